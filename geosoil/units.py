@@ -1,0 +1,234 @@
+"""Units of soil chemistry and of application rates.
+
+Exchangeable cations are carried through geosoil in cmol(+)/kg
+(= meq/100 g = 10 mmol(+)/kg). Masses per charge come from the standard
+atomic weights (IUPAC, abridged values), never from rounded rules of thumb.
+
+Rates are carried in kg/ha; t/ha and lb/ac are for display and files.
+1 lb/ac = 0.45359237 kg / 4046.8564224 m2, both exact by definition
+(NIST SP 811), so the factor below is exact as a ratio.
+
+Examples
+--------
+>>> round(mg_per_cmol("ca"), 2)   # mg/kg of Ca in 1 cmol(+)/kg
+200.39
+>>> float(kg_per_ha_of_layer(depth_m=0.2, bulk_density_g_cm3=1.3))   # soil mass, kg/ha
+2600000.0
+>>> round(float(mg_kg_to_kg_ha(100.0, depth_m=0.2, bulk_density_g_cm3=1.3)), 6)
+260.0
+"""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from .errors import SettingsError
+
+__all__ = [
+    "ATOMIC_WEIGHT",
+    "CHARGE",
+    "ANALYTES",
+    "CATION_UNITS",
+    "MG_CACO3_PER_CMOL",
+    "KG_HA_PER_LB_AC",
+    "mg_per_cmol",
+    "normalise_unit",
+    "to_cmol_kg",
+    "from_cmol_kg",
+    "kg_per_ha_of_layer",
+    "mg_kg_to_kg_ha",
+    "cmol_kg_to_kg_ha",
+    "kg_ha_to_lb_ac",
+    "lb_ac_to_kg_ha",
+    "kg_ha_to_mg_m2",
+    "rate_from_kg_ha",
+    "rate_to_kg_ha",
+    "RATE_UNITS",
+]
+
+#: Standard atomic weights, g/mol (IUPAC abridged standard atomic weights).
+ATOMIC_WEIGHT: dict[str, float] = {
+    "Ca": 40.078,
+    "Mg": 24.305,
+    "K": 39.098,
+    "Na": 22.990,
+    "Al": 26.982,
+    "H": 1.008,
+    "C": 12.011,
+    "O": 15.999,
+    "S": 32.06,
+}
+
+#: Element and charge of each exchangeable analyte that geosoil converts by mass.
+#: ``acidity`` (exchangeable Al + H) is reported by labs in charge units only;
+#: its mg/kg form is not defined, so it has no entry here.
+CHARGE: dict[str, tuple[str, int]] = {
+    "ca": ("Ca", 2),
+    "mg": ("Mg", 2),
+    "k": ("K", 1),
+    "na": ("Na", 1),
+    "al": ("Al", 3),
+    "h": ("H", 1),
+}
+
+#: Canonical analyte names of exchangeable cations and acidity.
+ANALYTES: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity")
+
+#: Units accepted for exchangeable cations, as canonical spellings.
+CATION_UNITS: tuple[str, ...] = ("cmol/kg", "meq/100g", "mmol/kg", "mg/kg")
+
+#: mg of CaCO3 per kg of soil that carries 1 cmol(+)/kg (100.086 g/mol / 2 x 10).
+MG_CACO3_PER_CMOL: float = (
+    ATOMIC_WEIGHT["Ca"] + ATOMIC_WEIGHT["C"] + 3 * ATOMIC_WEIGHT["O"]
+) / 2 * 10
+
+#: kg/ha in 1 lb/ac, exact: 0.45359237 kg / (4046.8564224 m2 / 10000 m2).
+KG_HA_PER_LB_AC: float = float(Fraction("0.45359237") / (Fraction("4046.8564224") / 10000))
+
+_UNIT_ALIASES: dict[str, str] = {
+    "cmol/kg": "cmol/kg",
+    "cmol(+)/kg": "cmol/kg",
+    "cmolc/kg": "cmol/kg",
+    "cmol+/kg": "cmol/kg",
+    "cmol_c/kg": "cmol/kg",
+    "meq/100g": "meq/100g",
+    "me/100g": "meq/100g",
+    "meq%": "meq/100g",
+    "mmol/kg": "mmol/kg",
+    "mmol(+)/kg": "mmol/kg",
+    "mmolc/kg": "mmol/kg",
+    "mmol+/kg": "mmol/kg",
+    "mg/kg": "mg/kg",
+    "ppm": "mg/kg",
+    "µg/g": "mg/kg",
+    "ug/g": "mg/kg",
+}
+
+
+def mg_per_cmol(analyte: str) -> float:
+    """mg/kg of ``analyte`` in 1 cmol(+)/kg: 10 x atomic weight / charge."""
+    try:
+        element, charge = CHARGE[analyte]
+    except KeyError:
+        raise SettingsError(
+            f"no mass conversion for '{analyte}'; mg/kg is defined for {', '.join(CHARGE)}"
+        ) from None
+    return 10.0 * ATOMIC_WEIGHT[element] / charge
+
+
+def normalise_unit(text: str) -> str:
+    """Canonical spelling of a cation unit, from the spellings labs print.
+
+    >>> normalise_unit("meq/100 g")
+    'meq/100g'
+    >>> normalise_unit("cmol(+)/kg")
+    'cmol/kg'
+    >>> normalise_unit("PPM")
+    'mg/kg'
+    """
+    key = text.strip().lower().replace(" ", "").replace("₊", "+")
+    if key in _UNIT_ALIASES:
+        return _UNIT_ALIASES[key]
+    raise SettingsError(
+        f"unit '{text}' is not known; use one of {', '.join(CATION_UNITS)} "
+        "(also understood: meq/100 g, cmol(+)/kg, mmol(+)/kg, ppm)"
+    )
+
+
+def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
+    """Convert exchangeable ``analyte`` values from ``unit`` to cmol(+)/kg.
+
+    >>> float(to_cmol_kg(200.39, "ca", "mg/kg")[()]).__round__(6)
+    1.0
+    >>> float(to_cmol_kg(25.0, "na", "mmol/kg")[()])
+    2.5
+    """
+    u = normalise_unit(unit)
+    v = np.asarray(values, dtype=float)
+    if u in ("cmol/kg", "meq/100g"):
+        return v.copy()
+    if u == "mmol/kg":
+        return v / 10.0
+    return v / mg_per_cmol(analyte)
+
+
+def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
+    """Convert cmol(+)/kg to ``unit``; the inverse of :func:`to_cmol_kg`."""
+    u = normalise_unit(unit)
+    v = np.asarray(values, dtype=float)
+    if u in ("cmol/kg", "meq/100g"):
+        return v.copy()
+    if u == "mmol/kg":
+        return v * 10.0
+    return v * mg_per_cmol(analyte)
+
+
+def kg_per_ha_of_layer(*, depth_m: ArrayLike, bulk_density_g_cm3: ArrayLike) -> ArrayLike:
+    """Mass of soil in a layer, kg/ha: 10 000 m2 x depth (m) x BD (kg/m3)."""
+    return 10_000.0 * np.asarray(depth_m) * np.asarray(bulk_density_g_cm3) * 1000.0
+
+
+def mg_kg_to_kg_ha(
+    mg_kg: ArrayLike, *, depth_m: ArrayLike, bulk_density_g_cm3: ArrayLike
+) -> ArrayLike:
+    """kg/ha of a substance present at ``mg_kg`` in a layer of soil."""
+    return np.asarray(mg_kg) * 1e-6 * kg_per_ha_of_layer(
+        depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3
+    )
+
+
+def cmol_kg_to_kg_ha(
+    cmol_kg: ArrayLike,
+    *,
+    mg_per_cmol_c: float,
+    depth_m: ArrayLike,
+    bulk_density_g_cm3: ArrayLike,
+) -> ArrayLike:
+    """kg/ha of a substance supplying ``cmol_kg`` of charge, ``mg_per_cmol_c`` mg/kg each."""
+    return mg_kg_to_kg_ha(
+        np.asarray(cmol_kg) * mg_per_cmol_c, depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3
+    )
+
+
+def kg_ha_to_lb_ac(kg_ha: ArrayLike) -> ArrayLike:
+    """kg/ha to lb/ac (exact factor)."""
+    return np.asarray(kg_ha) / KG_HA_PER_LB_AC
+
+
+def lb_ac_to_kg_ha(lb_ac: ArrayLike) -> ArrayLike:
+    """lb/ac to kg/ha (exact factor)."""
+    return np.asarray(lb_ac) * KG_HA_PER_LB_AC
+
+
+def kg_ha_to_mg_m2(kg_ha: ArrayLike) -> ArrayLike:
+    """kg/ha to mg/m2 (ISO 11783-10 DDI 6 unit): 1 kg/ha = 100 mg/m2."""
+    return np.asarray(kg_ha) * 100.0
+
+
+#: Rate units for display and files.
+RATE_UNITS: tuple[str, ...] = ("kg/ha", "t/ha", "lb/ac")
+
+
+def rate_from_kg_ha(kg_ha: ArrayLike, unit: str) -> ArrayLike:
+    """Express a rate given in kg/ha in ``unit`` (one of :data:`RATE_UNITS`)."""
+    if unit == "kg/ha":
+        return np.asarray(kg_ha)
+    if unit == "t/ha":
+        return np.asarray(kg_ha) / 1000.0
+    if unit == "lb/ac":
+        return kg_ha_to_lb_ac(kg_ha)
+    raise SettingsError(f"rate unit '{unit}' is not known; use one of {', '.join(RATE_UNITS)}")
+
+
+def rate_to_kg_ha(value: ArrayLike, unit: str) -> ArrayLike:
+    """Convert a rate in ``unit`` to kg/ha; the inverse of :func:`rate_from_kg_ha`."""
+    if unit == "kg/ha":
+        return np.asarray(value)
+    if unit == "t/ha":
+        return np.asarray(value) * 1000.0
+    if unit == "lb/ac":
+        return lb_ac_to_kg_ha(value)
+    raise SettingsError(f"rate unit '{unit}' is not known; use one of {', '.join(RATE_UNITS)}")
