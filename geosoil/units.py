@@ -20,6 +20,7 @@ Examples
 
 from __future__ import annotations
 
+import re
 from fractions import Fraction
 
 import numpy as np
@@ -119,6 +120,20 @@ def mg_per_cmol(analyte: str) -> float:
     return 10.0 * ATOMIC_WEIGHT[element] / charge
 
 
+def _squash_unit(text: str) -> str:
+    """``text`` lower-cased without spaces, brackets, '+', '_', '.' or '/' (for matching only)."""
+    key = text.strip().lower().replace("μ", "µ").replace("⁻¹", "-1").replace("₊", "+")
+    return re.sub(r"[\s()\[\]+_/.·]", "", key)
+
+
+#: The aliases above, squashed, and their "kg-1" forms: "cmol(+) kg-1", "cmolc_kg" and
+#: "meq/100 g" all match.
+_SQUASHED_ALIASES: dict[str, str] = {
+    **{_squash_unit(k): v for k, v in _UNIT_ALIASES.items()},
+    **{_squash_unit(k) + "-1": v for k, v in _UNIT_ALIASES.items() if "/" in k},
+}
+
+
 def normalise_unit(text: str) -> str:
     """Canonical spelling of a cation unit, from the spellings labs print.
 
@@ -128,10 +143,12 @@ def normalise_unit(text: str) -> str:
     'cmol/kg'
     >>> normalise_unit("PPM")
     'mg/kg'
+    >>> normalise_unit("cmolc kg-1")
+    'cmol/kg'
     """
-    key = text.strip().lower().replace(" ", "").replace("₊", "+")
-    if key in _UNIT_ALIASES:
-        return _UNIT_ALIASES[key]
+    key = _squash_unit(text)
+    if key in _SQUASHED_ALIASES:
+        return _SQUASHED_ALIASES[key]
     raise SettingsError(
         f"unit '{text}' is not known; use one of {', '.join(CATION_UNITS)} "
         "(also understood: meq/100 g, cmol(+)/kg, mmol(+)/kg, ppm)"
