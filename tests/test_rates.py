@@ -1,0 +1,722 @@
+"""Tests for geosoil.rates: the rules, the unit chain, explanations and spreader limits.
+
+Published values come from /work/shared/REFERENCES.md; each check names its source beside it.
+Rules of the trade are marked "common practice". Other checks are properties.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
+
+from geosoil.errors import InputError, RateWarning, SettingsError
+from geosoil.products import ProductSettings, default_products, resolve_products
+from geosoil.rates import (
+    BalanceRule,
+    CalciumRule,
+    GypsumRule,
+    LimeRule,
+    RateSettings,
+    SpreaderSettings,
+    apply_spreader_limits,
+    check_inputs,
+    compute_rates,
+    explain_cell,
+    format_steps,
+    inputs_used,
+    plan_rules,
+    split_passes,
+    spreader_passes,
+)
+from geosoil.settings import from_mapping
+from geosoil.units import KG_HA_PER_LB_AC, MG_CACO3_PER_CMOL, kg_ha_to_lb_ac, lb_ac_to_kg_ha
+
+PRODUCTS = default_products()
+OFF = "off"
+HYP = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+
+def only(**rules: object) -> RateSettings:
+    """Settings with every rule off except those given."""
+    base = {
+        "gypsum": GypsumRule(enabled=OFF),
+        "lime": LimeRule(enabled=OFF),
+        "calcium": CalciumRule(enabled=OFF),
+        "balance": BalanceRule(enabled=OFF),
+    }
+    base.update(rules)
+    return RateSettings(**base)  # type: ignore[arg-type]
+
+
+def rate_of(cells: dict, s: RateSettings, product: str, *, depth: float = 0.2,
+            bd: float = 1.2, products: dict | None = None) -> np.ndarray:
+    arrays = {k: np.atleast_1d(np.asarray(v, dtype=float)) for k, v in cells.items()}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RateWarning)
+        r = compute_rates(arrays, s, products or PRODUCTS, depth_m=depth, bulk_density_g_cm3=bd)
+    return r.product_rates[product]
+
+
+# --------------------------------------------------------------------------- gypsum
+
+
+def test_oster_1999_metric_gypsum_example() -> None:
+    # Oster et al. 1999 (as quoted by NDSU Extension), REFERENCES.md "Sodicity and gypsum":
+    # CEC 20, ESP 25 -> 5, 0.15 m, BD 1.5, F 1, 100 % gypsum -> 7.74 t/ha
+    # (GR = 8.6 x F x depth x BD x CEC x dESP / purity); first principles 7.747 t/ha.
+    s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.0))
+    t_ha = rate_of({"esp": 25, "ecec": 20}, s, "gypsum", depth=0.15, bd=1.5)[0] / 1000
+    assert t_ha == pytest.approx(7.747, abs=0.0005)
+    assert t_ha == pytest.approx(8.6 * 1 * 0.15 * 1.5 * 20 * 20 / 100, rel=2e-3)
+
+
+def test_oster_1999_with_exchange_efficiency_1_2() -> None:
+    # Oster et al. 1999: F 1.2 -> 9.30 t/ha for the same soil (REFERENCES.md / issue text)
+    s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.2))
+    t_ha = rate_of({"esp": 25, "ecec": 20}, s, "gypsum", depth=0.15, bd=1.5)[0] / 1000
+    assert round(t_ha, 2) == 9.30
+
+
+def test_one_meq_per_100g_over_an_acre_foot_is_1_72_short_tons_of_gypsum() -> None:
+    # [derived] REFERENCES.md: 1 meq/100 g over an acre-foot (4e6 lb of soil) ~ 1.72 short tons
+    # of gypsum (the "1.7 t" rule of thumb). Soil mass of 4e6 lb/ac, expressed as kg/ha, from a
+    # 1 ft layer with the matching bulk density.
+    depth = 0.3048
+    bd = 4e6 * KG_HA_PER_LB_AC / (10_000 * depth * 1000)
+    s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.0))
+    kg_ha = rate_of({"esp": 15, "ecec": 10}, s, "gypsum", depth=depth, bd=bd)[0]  # 1.0 cmol(+)/kg
+    short_tons = float(kg_ha_to_lb_ac(kg_ha)) / 2000
+    assert short_tons == pytest.approx(1.72, abs=0.005)
+
+
+def test_gypsum_purity_raises_the_rate() -> None:
+    # [derived] 80 % pure gypsum: 1 / 0.8 as much product
+    s = only(gypsum=GypsumRule(exchange_efficiency=1.0))
+    pure = rate_of({"esp": 25, "ecec": 20}, s, "gypsum")[0]
+    p80 = resolve_products({"gypsum": ProductSettings(purity_percent=80)})
+    low = rate_of({"esp": 25, "ecec": 20}, s, "gypsum", products=p80)[0]
+    assert low == pytest.approx(pure / 0.8)
+
+
+def test_esp_from_sodium_and_ecec() -> None:
+    # [derived] ESP = 100 x Na / ECEC: Na 5 of ECEC 20 is ESP 25
+    s = only(gypsum=GypsumRule(exchange_efficiency=1.0))
+    a = rate_of({"esp": 25, "ecec": 20}, s, "gypsum")[0]
+    b = rate_of({"na": 5, "ecec": 20}, s, "gypsum")[0]
+    assert b == pytest.approx(a)
+
+
+def test_leaching_note_where_esp_is_high() -> None:
+    s = only(gypsum=GypsumRule(leaching_note_esp_percent=15))
+    r = compute_rates({"esp": np.array([25.0, 8.0, np.nan]), "ecec": np.full(3, 20.0)}, s,
+                      PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    (note,) = [n for n in r.notes if "leach" in n]
+    assert note.startswith("1 cell(s)") and "drain" in note
+
+
+@given(esp=st.floats(0, 100), ecec=st.floats(0.1, 60), target=st.floats(0, 50))
+@HYP
+def test_gypsum_zero_at_or_below_target_and_never_negative(esp: float, ecec: float,
+                                                          target: float) -> None:
+    s = only(gypsum=GypsumRule(target_esp_percent=target))
+    r = rate_of({"esp": esp, "ecec": ecec}, s, "gypsum")[0]
+    assert r >= 0
+    if esp <= target:
+        assert r == 0
+
+
+@given(esp=st.floats(0, 60), more=st.floats(0, 40), ecec=st.floats(0.1, 60))
+@HYP
+def test_gypsum_non_decreasing_in_esp(esp: float, more: float, ecec: float) -> None:
+    s = only(gypsum=GypsumRule())
+    lo = rate_of({"esp": esp, "ecec": ecec}, s, "gypsum")[0]
+    hi = rate_of({"esp": esp + more, "ecec": ecec}, s, "gypsum")[0]
+    assert hi >= lo
+
+
+@given(esp=st.floats(5, 60), ecec=st.floats(0.1, 60), depth=st.floats(0.02, 0.9),
+       bd=st.floats(0.5, 1.3), k=st.floats(1.0, 2.0))
+@HYP
+def test_rates_are_linear_in_depth_and_bulk_density(esp: float, ecec: float, depth: float,
+                                                   bd: float, k: float) -> None:
+    s = only(gypsum=GypsumRule(), lime=LimeRule())
+    cells = {"esp": esp, "ecec": ecec, "al": ecec / 10}
+    for product in ("gypsum", "lime"):
+        base = rate_of(cells, s, product, depth=depth, bd=bd)[0]
+        assert rate_of(cells, s, product, depth=depth * k, bd=bd)[0] == pytest.approx(k * base)
+        assert rate_of(cells, s, product, depth=depth, bd=bd * k)[0] == pytest.approx(k * base)
+
+
+# --------------------------------------------------------------------------- lime
+
+
+def test_kamprath_worked_example() -> None:
+    # Kamprath 1970 (factor 1.5 as widely quoted), example [derived] in REFERENCES.md:
+    # Al 2.0 -> 3.0 cmol(+)/kg CaCO3 -> 1501 mg CaCO3/kg -> 3.60 t/ha at 0-20 cm, BD 1.2
+    s = only(lime=LimeRule(method="kamprath"))
+    steps = explain_cell({"al": 2.0}, s, PRODUCTS, depth_m=0.2, bulk_density_g_cm3=1.2)
+    lime = [x for x in steps if x.rule == "lime"]
+    assert lime[0].unit == "cmol(+)/kg CaCO3" and lime[0].result == pytest.approx(3.0)
+    assert round(lime[1].result) == 1501
+    assert rate_of({"al": 2.0}, s, "lime")[0] / 1000 == pytest.approx(3.60, abs=0.005)
+    assert "Kamprath 1970" in lime[0].source
+
+
+def test_cochrane_salinas_sanchez_worked_example() -> None:
+    # Cochrane, Salinas & Sanchez 1980 (REFERENCES.md): Al 2.0, Ca 0.8, Mg 0.2, RAS 20 %
+    # -> 1.5 x [2.0 - 0.2 x 3.0] = 2.10 cmol(+)/kg -> 2.52 t/ha for 0-20 cm, BD 1.2
+    s = only(lime=LimeRule(method="cochrane", target_al_saturation_percent=20))
+    steps = explain_cell({"al": 2.0, "ca": 0.8, "mg": 0.2}, s, PRODUCTS,
+                         depth_m=0.2, bulk_density_g_cm3=1.2)
+    need = [x for x in steps if x.rule == "lime" and x.unit == "cmol(+)/kg CaCO3"]
+    assert need[0].result == pytest.approx(2.10)
+    assert rate_of({"al": 2.0, "ca": 0.8, "mg": 0.2}, s, "lime")[0] / 1000 == pytest.approx(
+        2.52, abs=0.005)
+
+
+def test_general_conversion_t_caco3_per_ha() -> None:
+    # [derived] REFERENCES.md: t CaCO3/ha = cmol(+)/kg x 0.05004 x depth(cm) x BD
+    s = only(lime=LimeRule(method="acidity_share", acidity_factor=1.0,
+                           target_acidity_share_percent=0))
+    t_ha = rate_of({"acidity": 1.7, "ecec": 8.0}, s, "lime", depth=0.15, bd=1.35)[0] / 1000
+    assert t_ha == pytest.approx(1.7 * 0.05004 * 15 * 1.35, rel=1e-4)
+
+
+def test_acidity_share_brings_acidity_to_the_target_share() -> None:
+    # [derived] acidity 3 of ECEC 10, target 10 %: remove 2 cmol(+)/kg
+    s = only(lime=LimeRule(method="acidity_share", acidity_factor=1.0,
+                           target_acidity_share_percent=10))
+    steps = explain_cell({"acidity": 3.0, "ecec": 10.0}, s, PRODUCTS,
+                         depth_m=0.1, bulk_density_g_cm3=1.0)
+    assert steps[1].rule == "lime" and steps[1].result == pytest.approx(2.0)
+
+
+def test_lime_product_by_env_with_cornell_fineness() -> None:
+    # Cornell Cooperative Extension worked example: CCE 95, 100/70/50 % passing -> ENV 74.1 %;
+    # the Kamprath example's 3.0 cmol(+)/kg CaCO3 at 0-20 cm, BD 1.2 divided by the ENV [derived]
+    p = resolve_products({"lime": ProductSettings(cce_percent=95, percent_passing=(100, 70, 50))})
+    s = only(lime=LimeRule(method="kamprath"))
+    expected = 3.0 * MG_CACO3_PER_CMOL * 1e-6 * (10_000 * 0.2 * 1200) / 0.741
+    assert rate_of({"al": 2.0}, s, "lime", products=p)[0] == pytest.approx(expected)
+
+
+def test_hydrated_lime_needs_less_product_by_its_cce() -> None:
+    # [derived] CCE of Ca(OH)2 135.08 %: 1 / 1.3508 as much product as calcite
+    calcite = rate_of({"al": 2.0}, only(lime=LimeRule()), "lime")[0]
+    hyd = rate_of({"al": 2.0}, only(lime=LimeRule(product="hydrated_lime")), "hydrated_lime")[0]
+    assert hyd == pytest.approx(calcite / 1.3508, rel=1e-4)
+
+
+@pytest.mark.parametrize("method", ["kamprath", "cochrane", "acidity_share"])
+@given(al=st.floats(0, 8), more=st.floats(0, 4), ca=st.floats(0, 10), mg=st.floats(0, 5),
+       h=st.floats(0, 2))
+@HYP
+def test_lime_never_negative_and_non_decreasing_in_al(method: str, al: float, more: float,
+                                                     ca: float, mg: float, h: float) -> None:
+    s = only(lime=LimeRule(method=method))
+
+    def cells(a: float) -> dict:
+        return {"al": a, "ca": ca, "mg": mg, "acidity": a + h, "ecec": 10.0}
+
+    lo = rate_of(cells(al), s, "lime")[0]
+    hi = rate_of(cells(al + more), s, "lime")[0]
+    assert 0 <= lo <= hi
+
+
+@given(ca=st.floats(0, 10), mg=st.floats(0, 5), ras=st.floats(0, 100))
+@HYP
+def test_cochrane_zero_at_or_below_the_target_saturation(ca: float, mg: float, ras: float) -> None:
+    # Al at or below RAS x (Al + Ca + Mg) / 100 needs no lime
+    assume(ras < 100)
+    al = ras / (100 - ras) * (ca + mg) * 0.999
+    s = only(lime=LimeRule(method="cochrane", target_al_saturation_percent=ras))
+    assert rate_of({"al": al, "ca": ca, "mg": mg}, s, "lime")[0] == 0
+
+
+@given(ecec=st.floats(0.5, 40), share=st.floats(0, 100), frac=st.floats(0, 1))
+@HYP
+def test_acidity_share_zero_at_or_below_the_target_share(ecec: float, share: float,
+                                                         frac: float) -> None:
+    acidity = frac * share / 100 * ecec
+    s = only(lime=LimeRule(method="acidity_share", target_acidity_share_percent=share))
+    assert rate_of({"acidity": acidity, "ecec": ecec}, s, "lime")[0] == 0
+
+
+def test_kamprath_zero_without_al() -> None:
+    assert rate_of({"al": 0.0}, only(lime=LimeRule()), "lime")[0] == 0
+
+
+# --------------------------------------------------------------------------- pH guard
+
+
+def test_ph_guard_withholds_lime_above_7() -> None:
+    # common practice (REFERENCES.md): no lime on alkaline soil (pH above about 7)
+    s = only(lime=LimeRule())
+    cells = {"al": np.array([1.0, 1.0, 1.0]), "ph": np.array([6.5, 7.0, 7.4])}
+    with pytest.warns(RateWarning, match="1 cell"):
+        r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    lime = r.product_rates["lime"]
+    assert lime[0] > 0 and lime[1] > 0 and lime[2] == 0
+    assert r.ph_guard_cells == 1
+    assert any("pH guard" in n and "common practice" in n for n in r.notes)
+
+
+def test_ph_guard_can_be_switched_off() -> None:
+    s = RateSettings(gypsum=GypsumRule(enabled=OFF), calcium=CalciumRule(enabled=OFF),
+                     ph_guard=False)
+    assert rate_of({"al": 1.0, "ph": 7.5}, s, "lime")[0] > 0
+
+
+def test_calcium_goes_on_as_gypsum_on_alkaline_cells() -> None:
+    # common practice: where pH is high the calcium goes on as gypsum, not lime
+    s = only(calcium=CalciumRule(minimum_ca=5.0, lime_below_ph=6.0))
+    cells = {"ca": np.array([2.0, 2.0]), "ph": np.array([5.0, 7.8])}
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert r.product_rates["lime"][1] == 0 and r.product_rates["gypsum"][1] > 0
+    assert r.product_rates["lime"][0] > 0 and r.product_rates["gypsum"][0] == 0
+    # [derived] the same 3 cmol(+)/kg of Ca either way: product in the ratio of Ca fractions
+    ratio = r.product_rates["gypsum"][1] / r.product_rates["lime"][0]
+    assert ratio == pytest.approx(PRODUCTS["lime"].ca_fraction / PRODUCTS["gypsum"].ca_fraction)
+
+
+cell_values = st.fixed_dictionaries({
+    "esp": st.floats(0, 40), "ecec": st.floats(0.5, 40), "al": st.floats(0, 5),
+    "ca": st.floats(0, 20), "mg": st.floats(0, 10), "k": st.floats(0, 2),
+    "ph": st.floats(4.0, 9.0),
+})
+
+
+@given(cells=st.lists(cell_values, min_size=1, max_size=6))
+@HYP
+def test_cells_above_the_ph_limit_never_receive_a_liming_product(cells: list[dict]) -> None:
+    s = RateSettings(lime=LimeRule(method="cochrane"), balance=BalanceRule(enabled="on"),
+                     calcium=CalciumRule(minimum_ca=6.0))
+    arrays = {k: np.array([c[k] for c in cells]) for k in cells[0]}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RateWarning)
+        r = compute_rates(arrays, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    high = arrays["ph"] > s.no_lime_above_ph
+    for name, rate in r.product_rates.items():
+        assert np.all(rate >= 0)
+        if PRODUCTS[name].liming:
+            assert np.all(rate[high] == 0), name
+
+
+# --------------------------------------------------------------------------- calcium
+
+
+def test_about_200_mg_ca_per_cmol_in_the_chain() -> None:
+    # common practice: "about 200 mg Ca per cmol(+)/kg"; [derived] 200.39 from 10 x 40.078 / 2
+    s = only(calcium=CalciumRule(minimum_ca=3.0))
+    steps = explain_cell({"ca": 2.0, "ph": 6.5}, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    (mg_step,) = [x for x in steps if x.unit == "mg/kg"]
+    assert mg_step.inputs["mg per cmol(+)"][0] == pytest.approx(200, rel=0.005)
+    assert mg_step.inputs["mg per cmol(+)"][0] == pytest.approx(200.39, abs=0.005)
+    assert mg_step.result == pytest.approx(200.39, abs=0.005)
+
+
+def test_calcium_minimum_in_mg_per_kg_equals_cmol() -> None:
+    # [derived] 400.78 mg/kg of Ca = 2 cmol(+)/kg
+    a = only(calcium=CalciumRule(minimum_ca=2.0, minimum_ca_unit="cmol/kg"))
+    b = only(calcium=CalciumRule(minimum_ca=400.78, minimum_ca_unit="mg/kg"))
+    cells = {"ca": 0.5, "ph": 6.8}
+    assert rate_of(cells, b, "gypsum")[0] == pytest.approx(rate_of(cells, a, "gypsum")[0], rel=1e-4)
+
+
+def test_calcium_from_gypsum_rule_counts_toward_the_minimum() -> None:
+    # Double counting rule (documented in geosoil.rates): the gypsum rule's displaced Na,
+    # (ESP - target) / 100 x ECEC = (25 - 5) / 100 x 10 = 2 cmol(+)/kg, counts as added Ca.
+    cells = {"esp": 25.0, "ecec": 10.0, "ca": 1.0, "ph": 7.5}
+    s_both = RateSettings(lime=LimeRule(enabled=OFF), calcium=CalciumRule(minimum_ca=2.5))
+    r = compute_rates({k: np.array([v]) for k, v in cells.items()}, s_both, PRODUCTS,
+                      depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert r.contributions[("calcium", "gypsum")][0] == 0  # 1 + 2 >= 2.5
+    s_more = RateSettings(lime=LimeRule(enabled=OFF), calcium=CalciumRule(minimum_ca=4.0))
+    steps = explain_cell(cells, s_more, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    (deficit,) = [x for x in steps if x.rule == "calcium" and x.unit == "cmol(+)/kg"]
+    assert deficit.result == pytest.approx(1.0)  # 4 - 1 - 2
+
+
+def test_calcium_from_lime_rule_counts_toward_the_minimum() -> None:
+    # Kamprath 1.5 x Al 1.0 = 1.5 cmol(+)/kg CaCO3, of which Al 1.0 is the exchange equivalent
+    cells = {"al": 1.0, "ca": 0.5, "ph": 5.0}
+    s = only(lime=LimeRule(), calcium=CalciumRule(minimum_ca=2.0))
+    steps = explain_cell(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    (deficit,) = [x for x in steps if x.rule == "calcium" and x.unit == "cmol(+)/kg"]
+    assert deficit.inputs["Ca from earlier rules"][0] == pytest.approx(1.0)
+    assert deficit.result == pytest.approx(0.5)
+
+
+@given(ca=st.floats(0, 10), less=st.floats(0, 10), minimum=st.floats(0, 12),
+       ph=st.floats(4, 8.5))
+@HYP
+def test_calcium_zero_at_minimum_and_non_decreasing_in_deficit(ca: float, less: float,
+                                                              minimum: float, ph: float) -> None:
+    s = only(calcium=CalciumRule(minimum_ca=minimum))
+
+    def total(c: float) -> float:
+        return sum(float(rate_of({"ca": c, "ph": ph}, s, p)[0]) for p in ("lime", "gypsum"))
+
+    t_hi_ca = total(ca)
+    t_lo_ca = total(max(ca - less, 0.0))
+    assert 0 <= t_hi_ca <= t_lo_ca + 1e-9
+    if ca >= minimum:
+        assert t_hi_ca == 0
+
+
+# ------------------------------------------------------------- cation balance (contested)
+
+
+def test_balance_rule_is_off_by_default() -> None:
+    assert RateSettings().balance.enabled == "off"
+    cells = {"ca": np.array([1.0]), "mg": np.array([3.0]), "ecec": np.array([10.0]),
+             "ph": np.array([6.5])}
+    r = compute_rates(cells, RateSettings(), PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert not any(rule == "balance" for rule, _ in r.contributions)
+    assert "balance" not in r.methods
+
+
+def test_balance_rule_is_labelled_contested() -> None:
+    # Kopittke & Menzies 2007, SSSA J 71:259 (REFERENCES.md)
+    s = only(balance=BalanceRule(enabled="on"))
+    cells = {"ca": np.array([4.0]), "mg": np.array([3.0]), "k": np.array([0.1]),
+             "ecec": np.array([10.0]), "ph": np.array([6.5])}
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert "CONTESTED" in r.methods["balance"] and "Kopittke & Menzies 2007" in r.methods["balance"]
+    assert any("CONTESTED" in n for n in r.notes)
+    steps = explain_cell({k: float(v[0]) for k, v in cells.items()}, s, PRODUCTS,
+                         depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert all("CONTESTED" in x.source for x in steps if x.rule == "balance" and
+               "short" in x.description)
+
+
+def test_balance_calcium_where_mg_in_excess_dolomite_where_both_short_and_k() -> None:
+    # Targets Ca 65 %, Mg 10 %, K 5 % (Bear and co-workers, as cited by Kopittke & Menzies 2007)
+    s = only(balance=BalanceRule(enabled="on"))
+    cells = {
+        # cell 0: Ca 7 of target 6.5 (adequate), Mg 3 of target 1 (excess 2) -> gypsum
+        # cell 1: Ca 3, Mg 0.5 of ECEC 10: both short -> dolomite for Mg, rest of Ca as gypsum
+        # cell 2: K 0.2 of ECEC 10, target 0.5 -> potassium sulfate
+        "ca": np.array([7.0, 3.0, 6.5]),
+        "mg": np.array([3.0, 0.5, 1.0]),
+        "k": np.array([0.5, 0.5, 0.2]),
+        "ecec": np.array([10.0, 10.0, 10.0]),
+        "ph": np.array([6.5, 6.5, 6.5]),
+    }
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.0)
+    c = r.contributions
+    mass = 10_000 * 0.1 * 1000  # kg soil/ha [derived]
+    # cell 0: Ca to add = Mg excess 2 cmol(+)/kg as gypsum [derived]
+    assert c[("balance", "gypsum")][0] == pytest.approx(2 * 200.39e-6 * mass / 0.23279, rel=1e-3)
+    assert c[("balance", "dolomite")][0] == 0
+    # cell 1: Mg short 0.5 -> dolomite; it brings 0.5 Ca; Ca short 3.5 - 0.5 = 3.0 as gypsum
+    assert c[("balance", "dolomite")][1] == pytest.approx(0.5 * 121.53e-6 * mass / 0.1318, rel=1e-3)
+    assert c[("balance", "gypsum")][1] == pytest.approx(3.0 * 200.39e-6 * mass / 0.23279, rel=1e-3)
+    # cell 2: K short 0.3 cmol(+)/kg as K2SO4 (K 44.87 %)
+    assert c[("balance", "potassium_sulfate")][2] == pytest.approx(
+        0.3 * 390.98e-6 * mass / 0.4487, rel=1e-3)
+    assert c[("balance", "potassium_sulfate")][0] == 0
+
+
+def test_balance_k_minimum_alone() -> None:
+    s = only(balance=BalanceRule(enabled="on", target_k_sat_percent=0, minimum_k=195.49,
+                                 minimum_k_unit="mg/kg"))
+    steps = explain_cell({"ca": 7.0, "mg": 1.0, "k": 0.2, "ecec": 10.0, "ph": 6.5}, s, PRODUCTS,
+                         depth_m=0.1, bulk_density_g_cm3=1.0)
+    (k,) = [x for x in steps if x.description.startswith("K short")]
+    assert k.result == pytest.approx(0.3, abs=1e-4)  # [derived] 195.49 mg/kg K = 0.5 cmol(+)/kg
+
+
+def test_balance_dolomite_withheld_above_ph_limit() -> None:
+    s = only(balance=BalanceRule(enabled="on"))
+    cells = {"ca": np.array([3.0]), "mg": np.array([0.5]), "ecec": np.array([10.0]),
+             "k": np.array([0.5]), "ph": np.array([7.6])}
+    with pytest.warns(RateWarning):
+        r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.0)
+    assert r.product_rates["dolomite"][0] == 0
+    assert r.contributions[("balance", "gypsum")][0] > 0
+    assert any("Mg shortfall is not met" in n for n in r.notes)
+
+
+# --------------------------------------------------------------------------- NaN, explain, results
+
+
+def test_nan_in_nan_out() -> None:
+    s = RateSettings(balance=BalanceRule(enabled="on"))
+    cells = {k: np.array([[np.nan, v]]) for k, v in
+             {"esp": 20.0, "ecec": 10.0, "al": 1.0, "ca": 1.0, "mg": 0.5, "k": 0.1,
+              "ph": 5.5}.items()}
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    for arr in [*r.product_rates.values(), *r.contributions.values()]:
+        assert arr.shape == (1, 2)
+        assert np.isnan(arr[0, 0]) and np.isfinite(arr[0, 1])
+
+
+def test_per_cell_bulk_density_array() -> None:
+    s = only(gypsum=GypsumRule())
+    cells = {"esp": np.array([20.0, 20.0]), "ecec": np.array([10.0, 10.0])}
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=np.array([1.0, 1.5]))
+    g = r.product_rates["gypsum"]
+    assert g[1] == pytest.approx(1.5 * g[0])
+
+
+@given(cell=cell_values, lime_method=st.sampled_from(["kamprath", "cochrane", "acidity_share"]),
+       depth=st.floats(0.05, 0.5), bd=st.floats(0.8, 1.7))
+@HYP
+def test_explain_cell_totals_equal_compute_rates(cell: dict, lime_method: str, depth: float,
+                                                 bd: float) -> None:
+    cell = dict(cell, acidity=cell["al"] + 0.1)
+    s = RateSettings(lime=LimeRule(method=lime_method), balance=BalanceRule(enabled="on"),
+                     calcium=CalciumRule(minimum_ca=5.0))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RateWarning)
+        r = compute_rates({k: np.array([v]) for k, v in cell.items()}, s, PRODUCTS,
+                          depth_m=depth, bulk_density_g_cm3=bd)
+    steps = explain_cell(cell, s, PRODUCTS, depth_m=depth, bulk_density_g_cm3=bd)
+    totals = {x.description.split(":")[0]: x.result for x in steps if x.rule == "total"}
+    assert set(totals) == set(r.product_rates)
+    for name, value in totals.items():
+        assert value == pytest.approx(float(r.product_rates[name][0]), rel=1e-12, abs=1e-12)
+
+
+def test_steps_are_frozen_and_printable() -> None:
+    steps = explain_cell({"esp": 25, "ecec": 20, "depth_m": 0.15, "bulk_density_g_cm3": 1.5},
+                         only(gypsum=GypsumRule(exchange_efficiency=1.0)), PRODUCTS)
+    with pytest.raises(AttributeError):
+        steps[0].result = 0.0  # type: ignore[misc]
+    text = format_steps(steps)
+    assert "USDA Handbook 60" in text and "advisory" in text
+    assert all(isinstance(x.inputs, dict) for x in steps)
+    assert all(all(isinstance(u, str) for _, u in x.inputs.values()) for x in steps)
+
+
+def test_explain_cell_needs_depth_and_bulk_density() -> None:
+    with pytest.raises(SettingsError) as err:
+        explain_cell({"esp": 25, "ecec": 20}, RateSettings(), PRODUCTS)
+    assert err.value.key == "depth_m"
+
+
+# --------------------------------------------------------------------------- settings and inputs
+
+
+def test_auto_rule_without_inputs_is_skipped_with_a_note() -> None:
+    r = compute_rates({"esp": np.array([20.0]), "ecec": np.array([10.0])}, RateSettings(),
+                      PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    skipped = dict(r.skipped)
+    assert "exchangeable Al (al)" in skipped["lime"] and "Kamprath 1970" in skipped["lime"]
+    assert "calcium" in skipped
+    assert any(n.startswith("lime rule skipped") for n in r.notes)
+    assert set(r.product_rates) == {"gypsum"}
+
+
+def test_kamprath_switched_on_without_al_names_the_method_key() -> None:
+    s = RateSettings(lime=LimeRule(enabled="on", method="kamprath"))
+    with pytest.raises(SettingsError) as err:
+        compute_rates({"acidity": np.array([1.0]), "ecec": np.array([5.0])}, s, PRODUCTS,
+                      depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert err.value.key == "rates.lime.method"
+    assert "acidity_share" in str(err.value) or "choose a method" in str(err.value)
+
+
+def test_gypsum_switched_on_without_esp_names_the_enabled_key() -> None:
+    with pytest.raises(SettingsError) as err:
+        check_inputs(RateSettings(gypsum=GypsumRule(enabled="on")), {"al", "ph"})
+    assert err.value.key == "rates.gypsum.enabled"
+
+
+def test_check_inputs_returns_skip_notes_and_checks_products() -> None:
+    notes = check_inputs(RateSettings(), {"esp", "ecec", "ph", "ca"})
+    assert len(notes) == 1 and notes[0].startswith("lime rule skipped")
+    with pytest.raises(SettingsError) as err:
+        check_inputs(RateSettings(lime=LimeRule(product="gypsum")), {"al"}, PRODUCTS)
+    assert err.value.key == "rates.lime.product"
+
+
+def test_inputs_used_and_plan() -> None:
+    used = inputs_used(RateSettings(lime=LimeRule(method="acidity_share")),
+                       {"na", "ecec", "acidity", "ph", "ca"})
+    assert used == ["acidity", "ca", "ecec", "na", "ph"]
+    runs, skipped = plan_rules(RateSettings(balance=BalanceRule(enabled="auto")),
+                               {"ca", "mg", "ecec"})
+    assert "balance" in runs and ("lime" in dict(skipped))
+
+
+def test_gypsum_as_liming_product_names_the_key() -> None:
+    s = only(lime=LimeRule(product="gypsum"))
+    with pytest.raises(SettingsError) as err:
+        compute_rates({"al": np.array([1.0])}, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert err.value.key == "rates.lime.product"
+    assert "liming" in str(err.value)
+
+
+@pytest.mark.parametrize(
+    "rules, key",
+    [
+        ({"gypsum": GypsumRule(product="potassium_sulfate")}, "rates.gypsum.product"),
+        ({"gypsum": GypsumRule(product="nothing")}, "rates.gypsum.product"),
+        ({"calcium": CalciumRule(gypsum_product="lime")}, "rates.calcium.gypsum_product"),
+        ({"balance": BalanceRule(enabled="on", dolomite_product="lime")},
+         "rates.balance.dolomite_product"),
+        ({"balance": BalanceRule(enabled="on", calcium_product="lime")},
+         "rates.balance.calcium_product"),
+    ],
+)
+def test_products_without_what_the_rule_needs(rules: dict, key: str) -> None:
+    cells = {k: np.array([1.0]) for k in ("esp", "ecec", "ca", "mg", "k", "ph")}
+    with pytest.raises(SettingsError) as err:
+        compute_rates(cells, only(**rules), PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert err.value.key == key
+
+
+@pytest.mark.parametrize(
+    "data, key",
+    [
+        ({"gypsum": {"target_esp_percent": 120}}, "rates.gypsum.target_esp_percent"),
+        ({"gypsum": {"target_esp_percent": -1}}, "rates.gypsum.target_esp_percent"),
+        ({"gypsum": {"exchange_efficiency": 0.5}}, "rates.gypsum.exchange_efficiency"),
+        ({"lime": {"method": "smp"}}, "rates.lime.method"),
+        ({"lime": {"kamprath_factor": 0}}, "rates.lime.kamprath_factor"),
+        ({"lime": {"enabled": "yes"}}, "rates.lime.enabled"),
+        ({"calcium": {"minimum_ca": -2}}, "rates.calcium.minimum_ca"),
+        ({"calcium": {"lime_below_ph": 7.5}}, "rates.calcium.lime_below_ph"),
+        ({"balance": {"target_ca_sat_percent": 90, "target_mg_sat_percent": 15}},
+         "rates.balance.target_ca_sat_percent"),
+    ],
+)
+def test_bad_rate_settings_name_the_key(data: dict, key: str) -> None:
+    with pytest.raises(SettingsError) as err:
+        from_mapping(RateSettings, data, section="rates")
+    assert err.value.key == key
+
+
+def test_settings_built_in_code_are_checked_too() -> None:
+    with pytest.raises(SettingsError) as err:
+        GypsumRule(target_esp_percent=150)
+    assert err.value.key == "target_esp_percent"
+    with pytest.raises(SettingsError):
+        LimeRule(enabled="maybe")
+
+
+@pytest.mark.parametrize(
+    "depth, bd, key",
+    [(0.1, 0.0, "bulk_density_g_cm3"), (0.1, 3.5, "bulk_density_g_cm3"), (-0.1, 1.3, "depth_m"),
+     (0.1, np.array([1.2, 0.0]), "bulk_density_g_cm3")],
+)
+def test_bad_depth_or_bulk_density(depth: object, bd: object, key: str) -> None:
+    with pytest.raises(SettingsError) as err:
+        compute_rates({"esp": np.array([20.0, 10.0]), "ecec": np.array([10.0, 10.0])},
+                      only(gypsum=GypsumRule()), PRODUCTS, depth_m=depth,  # type: ignore[arg-type]
+                      bulk_density_g_cm3=bd)  # type: ignore[arg-type]
+    assert err.value.key == key
+
+
+def test_surfaces_of_different_shapes() -> None:
+    with pytest.raises(InputError, match="ecec"):
+        compute_rates({"esp": np.zeros(3), "ecec": np.zeros(4)}, RateSettings(), PRODUCTS,
+                      depth_m=0.1, bulk_density_g_cm3=1.3)
+
+
+def test_named_methods_in_settings_and_outputs() -> None:
+    s = RateSettings(lime=LimeRule(method="cochrane"))
+    assert s.gypsum.method == "handbook60" and s.calcium.method == "sufficiency"
+    cells = {k: np.array([v]) for k, v in
+             {"esp": 20.0, "ecec": 10.0, "al": 1.0, "ca": 1.0, "mg": 0.5, "ph": 5.0}.items()}
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    assert "Handbook 60" in r.methods["gypsum"]
+    assert "Cochrane, Salinas & Sanchez 1980" in r.methods["lime"]
+    assert "common practice" in r.methods["calcium"]
+
+
+# --------------------------------------------------------------------------- spreader
+
+
+def test_split_passes() -> None:
+    assert split_passes(6000.0, 2500.0) == (3, 2000.0)
+    assert split_passes(2500.0, 2500.0) == (1, 2500.0)
+    assert split_passes(0.0, 2500.0) == (0, 0.0)
+    n, per = split_passes(np.array([100.0, 5001.0, np.nan]), 2500.0)
+    assert n.tolist() == [1, 3, 0]
+    assert per[0] == 100.0 and per[1] == pytest.approx(1667.0) and np.isnan(per[2])
+    assert split_passes(9000.0, 0.0) == (1, 9000.0)
+
+
+def test_spreader_minimum_maximum_and_step() -> None:
+    sp = SpreaderSettings(unit="t/ha", min_rate=0.5, max_per_pass=2.5, rate_step=0.25)
+    with pytest.warns(RateWarning):
+        out = apply_spreader_limits(np.array([0.0, 400.0, 1080.0, 6100.0, np.nan]), sp)
+    assert out[0] == 0 and out[1] == 0  # below the minimum spreadable rate
+    assert out[2] == pytest.approx(1000.0)  # 1.08 t/ha rounds to 1.00 (step 0.25)
+    assert out[3] == pytest.approx(6000.0)  # 3 passes of 2.0 t/ha
+    assert np.isnan(out[4])
+
+
+def test_spreader_rounding_modes() -> None:
+    up = SpreaderSettings(rate_step=100, rounding="up")
+    down = SpreaderSettings(rate_step=100, rounding="down")
+    assert apply_spreader_limits(np.array([1210.0]), up)[0] == 1300.0
+    assert apply_spreader_limits(np.array([1290.0]), down)[0] == 1200.0
+    assert apply_spreader_limits(np.array([300.0]), down)[0] == 300.0  # exact multiple stays
+
+
+def test_spreader_in_lb_per_acre_is_exact() -> None:
+    # [derived] 1 lb/ac = 515445875/459870048 kg/ha exactly (= 1.1208511562...; NIST SP 811:
+    # 1 lb = 0.45359237 kg, 1 acre = 4046.8564224 m2, both exact by definition)
+    sp = SpreaderSettings(unit="lb/ac", rate_step=50, min_rate=100)
+    assert sp.rate_step_kg_ha == pytest.approx(50 * 515445875 / 459870048, rel=1e-15)
+    out = apply_spreader_limits(np.array([float(lb_ac_to_kg_ha(1234.0))]), sp)
+    assert float(kg_ha_to_lb_ac(out[0])) == pytest.approx(1250.0, rel=1e-12)
+
+
+@given(lb=st.floats(0, 1e6))
+@HYP
+def test_lb_ac_and_kg_ha_round_trip(lb: float) -> None:
+    assert float(kg_ha_to_lb_ac(lb_ac_to_kg_ha(lb))) == pytest.approx(lb, rel=1e-12, abs=1e-9)
+
+
+@given(rate=st.floats(0, 20_000), lo=st.floats(0, 1000), hi=st.floats(1000, 4000),
+       step=st.sampled_from([0.0, 10.0, 50.0, 100.0, 250.0]))
+@HYP
+def test_spreader_passes_respect_the_machine(rate: float, lo: float, hi: float,
+                                             step: float) -> None:
+    sp = SpreaderSettings(min_rate=lo, max_per_pass=hi, rate_step=step)
+    n, per = spreader_passes(rate, sp)
+    if rate < lo or per == 0:
+        assert n == 0 or per == 0
+        return
+    assert n >= 1
+    assert per <= hi + 1e-9
+    assert per >= lo - 1e-9
+    if step:
+        assert per / step == pytest.approx(round(per / step), abs=1e-9)
+    assert n == split_passes(rate, hi)[0]
+
+
+def test_bad_spreader_settings_name_the_key() -> None:
+    with pytest.raises(SettingsError) as err:
+        SpreaderSettings(min_rate=3000, max_per_pass=2500)
+    assert err.value.key == "min_rate"
+    with pytest.raises(SettingsError) as err:
+        SpreaderSettings(max_per_pass=2500, rate_step=3000)
+    assert err.value.key == "rate_step"
+    with pytest.raises(SettingsError) as err:
+        from_mapping(SpreaderSettings, {"unit": "kg/ac"}, section="spreader")
+    assert err.value.key == "spreader.unit"
+    with pytest.raises(SettingsError) as err:
+        from_mapping(SpreaderSettings, {"min_rate": -1}, section="spreader")
+    assert err.value.key == "spreader.min_rate"
+
+
+def test_no_rate_is_ever_negative_or_inf() -> None:
+    # Negative interpolated amounts are read as 0; ECEC 0 gives no ESP.
+    s = RateSettings(balance=BalanceRule(enabled="on"), lime=LimeRule(method="cochrane"))
+    cells = {k: np.array([-1.0, 0.0]) for k in ("na", "ecec", "al", "ca", "mg", "k")}
+    cells["ph"] = np.array([5.0, 5.0])
+    r = compute_rates(cells, s, PRODUCTS, depth_m=0.1, bulk_density_g_cm3=1.3)
+    for arr in r.product_rates.values():
+        assert np.all(np.isfinite(arr)) and np.all(arr >= 0)
+    assert not math.isnan(float(r.product_rates["gypsum"][0]))
