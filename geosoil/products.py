@@ -227,7 +227,7 @@ def fineness_factor(
     p = [float(v) for v in percent_passing]
     if len(sieves_mesh) < 1:
         raise SettingsError("give at least one sieve", key="fineness_sieves_mesh")
-    if any(b <= a for a, b in zip(sieves_mesh, sieves_mesh[1:])):
+    if any(b <= a for a, b in zip(sieves_mesh, sieves_mesh[1:], strict=False)):
         raise SettingsError(
             "sieves must be listed coarsest first, with rising mesh numbers "
             f"(got {list(sieves_mesh)})",
@@ -236,7 +236,8 @@ def fineness_factor(
     if len(factors) != len(sieves_mesh) + 1:
         raise SettingsError(
             f"needs {len(sieves_mesh) + 1} factors (one for the part retained on the coarsest "
-            f"sieve, one per pair of sieves, one for the part passing the finest); got {len(factors)}",
+            f"sieve, one per pair of sieves, one for the part passing the finest); "
+            f"got {len(factors)}",
             key="fineness_factors",
         )
     for i, fct in enumerate(factors):
@@ -249,13 +250,14 @@ def fineness_factor(
         )
     for i, v in enumerate(p):
         check_range(v, key=f"percent_passing[{i}]", minimum=0.0, maximum=100.0, unit="%")
-    if any(b > a for a, b in zip(p, p[1:])):
+    if any(b > a for a, b in zip(p, p[1:], strict=False)):
         raise SettingsError(
-            f"percent passing cannot rise on a finer sieve (got {p}); list the coarsest sieve first",
+            f"percent passing cannot rise on a finer sieve (got {p}); "
+            "list the coarsest sieve first",
             key="percent_passing",
         )
-    classes = [100.0 - p[0]] + [a - b for a, b in zip(p, p[1:])] + [p[-1]]
-    return sum(f * c for f, c in zip(factors, classes)) / 100.0
+    classes = [100.0 - p[0]] + [a - b for a, b in zip(p, p[1:], strict=False)] + [p[-1]]
+    return sum(f * c for f, c in zip(factors, classes, strict=True)) / 100.0
 
 
 @dataclass(frozen=True)
