@@ -565,6 +565,15 @@ def _missing_key(rule: str, settings: RateSettings) -> str:
     return f"{SECTION}.{rule}.enabled"
 
 
+def _possible_methods(available: set[str]) -> str:
+    ok = [
+        m for m in ("kamprath", "cochrane", "acidity_share")
+        if all(_source_of(n, available) is not None
+               for n in _needs("lime", RateSettings(lime=LimeRule(method=m))))
+    ]
+    return "possible here: " + ", ".join(ok) if ok else "none is possible with these samples"
+
+
 def plan_rules(
     settings: RateSettings, available: set[str]
 ) -> tuple[list[str], list[tuple[str, str]]]:
@@ -616,8 +625,8 @@ def plan_rules(
             reason = f"needs {what}"
         if rs.enabled == "on":
             fix = (
-                "choose a method whose inputs the samples give, supply them, or set "
-                f"{SECTION}.lime.enabled = 'auto'"
+                f"choose a method whose inputs the samples give ({_possible_methods(available)}), "
+                f"supply them, or set {SECTION}.lime.enabled = 'auto'"
                 if rule == "lime"
                 else f"supply them or set {SECTION}.{'balance' if rule == 'balance_k' else rule}"
                 ".enabled = 'auto'"
