@@ -1,0 +1,538 @@
+"""Spreader zones: tiling, rates from cells, merging, exclusions, user zones, grid, limits.
+
+Expected figures here are [derived] by hand from the fixtures (areas of rectangles,
+weighted means of a few cells), never produced by running the code under test.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+from affine import Affine
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from geosoil.errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
+from geosoil.settings import from_mapping
+from geosoil.zones import (
+    ZONE_COLUMNS,
+    ZoneSettings,
+    classify_rates,
+    limit_zone_rate,
+    make_zones,
+    parse_statistic,
+)
+
+CRS = "EPSG:32755"  # WGS 84 / UTM 55S: projected, metres
+X0, Y0, CELL = 500_000.0, 6_000_000.0, 10.0
+
+
+def transform_for(height: int) -> Affine:
+    """North-up 10 m grid whose south-west corner is (X0, Y0)."""
+    return Affine(CELL, 0, X0, 0, -CELL, Y0 + height * CELL)
+
+
+def cell_centres(shape: tuple[int, int], transform: Affine) -> tuple[np.ndarray, np.ndarray]:
+    rows, cols = np.mgrid[0 : shape[0], 0 : shape[1]]
+    return transform.c + (cols + 0.5) * transform.a, transform.f + (rows + 0.5) * transform.e
+
+
+def masked(rate: np.ndarray, transform: Affine, area: shapely.Geometry) -> np.ndarray:
+    """NaN outside ``area`` (cell-centre rule), as the grids contract says."""
+    x, y = cell_centres(rate.shape, transform)
+    out = rate.astype(float).copy()
+    out[~shapely.contains_xy(area, x, y)] = np.nan
+    return out
+
+
+def cell_boxes(shape: tuple[int, int], transform: Affine) -> gpd.GeoDataFrame:
+    rows, cols = np.mgrid[0 : shape[0], 0 : shape[1]]
+    x0 = transform.c + cols.ravel() * transform.a
+    y1 = transform.f + rows.ravel() * transform.e
+    boxes = shapely.box(x0, y1 + transform.e, x0 + transform.a, y1)
+    return gpd.GeoDataFrame({"row": rows.ravel(), "col": cols.ravel()}, geometry=boxes, crs=CRS)
+
+
+def quiet_zones(rate: np.ndarray, **kw):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataWarning)
+        warnings.simplefilter("ignore", RateWarning)
+        return make_zones(rate, crs=CRS, paddock=kw.pop("paddock", "Home"),
+                          product=kw.pop("product", "gypsum"), **kw)
+
+
+def assert_tiles(zones: gpd.GeoDataFrame, boundary: shapely.Geometry,
+                 excluded: shapely.Geometry | None = None) -> None:
+    """No gaps, no overlaps, valid geometry, areas within 0.1 % (the invariant asked for)."""
+    geoms = list(zones.geometry)
+    assert all(g.is_valid and not g.is_empty for g in geoms)
+    union = shapely.union_all(geoms)
+    total = sum(g.area for g in geoms)
+    # overlaps: the parts add up to their union
+    assert total == pytest.approx(union.area, rel=1e-9, abs=1e-6)
+    # gaps and spill: union equals the paddock
+    assert shapely.symmetric_difference(union, boundary).area <= 1e-6 * boundary.area
+    work = zones[zones["kind"] != "exclusion"]
+    expected_work = boundary.area - (excluded.intersection(boundary).area if excluded else 0.0)
+    assert work.geometry.area.sum() == pytest.approx(expected_work, rel=1e-3)
+    assert np.allclose(zones["area_ha"], zones.geometry.area / 1e4)
+
+
+@pytest.fixture
+def field():
+    """An irregular paddock over a 24 x 30 grid with a smooth rate trend and a bump."""
+    h, w = 24, 30
+    t = transform_for(h)
+    x, y = cell_centres((h, w), t)
+    bump = np.exp(-((x - X0 - 200) ** 2 + (y - Y0 - 120) ** 2) / 60.0**2)
+    rate = 200 + 4.0 * (x - X0) + 300 * bump
+    boundary = shapely.Polygon([
+        (X0 + 12, Y0 + 8), (X0 + 287, Y0 + 15), (X0 + 293, Y0 + 200),
+        (X0 + 150, Y0 + 236), (X0 + 5, Y0 + 180),
+    ])
+    return {"rate": rate, "transform": t, "boundary": boundary}
+
+
+# --------------------------------------------------------------------------- settings
+
+
+def test_settings_defaults_and_statistic_validation() -> None:
+    s = ZoneSettings()
+    assert (s.method, s.classes, s.statistic) == ("quantiles", 4, "mean")
+    assert parse_statistic("p90") == 90.0 and parse_statistic("mean") is None
+    for bad in ("median", "p101", "p-5", "P50", "90"):
+        with pytest.raises(SettingsError) as e:
+            from_mapping(ZoneSettings, {"statistic": bad}, section="zones")
+        assert e.value.key == "zones.statistic"
+    with pytest.raises(SettingsError) as e:
+        from_mapping(ZoneSettings, {"method": "jenks"}, section="zones")
+    assert e.value.key == "zones.method" and "natural_breaks" in str(e.value)
+
+
+# --------------------------------------------------------------------------- tiling and totals
+
+
+@pytest.mark.parametrize("method", ["quantiles", "equal_interval", "natural_breaks", "kmeans"])
+@pytest.mark.parametrize("smooth", [False, True])
+def test_rate_classes_tile_the_paddock(field, method: str, smooth: bool) -> None:
+    rate = masked(field["rate"], field["transform"], field["boundary"])
+    res = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
+                      settings=ZoneSettings(method=method, smooth=smooth, min_zone_area_ha=0.3))
+    z = res.zones
+    assert list(z.columns) == list(ZONE_COLUMNS)
+    assert z.crs.to_epsg() == 32755
+    assert z["zone"].tolist() == list(range(1, len(z) + 1))
+    assert set(z["kind"]) == {"rate"} and 1 <= len(z) <= 4
+    assert (z["paddock"] == "Home").all() and (z["product"] == "gypsum").all()
+    assert_tiles(z, field["boundary"])
+    # every piece of every zone is at least the minimum area (0.3 ha), or had no neighbour
+    parts = z.geometry.explode(index_parts=False)
+    assert (parts.area >= 0.3e4 - 1e-6).all()
+    # n_cells: every cell with a rate is counted in exactly one zone
+    assert z["n_cells"].sum() == np.isfinite(rate).sum()
+
+
+def test_total_equals_exact_integral_of_cell_rates(field) -> None:
+    """With a rate in every cell, sum(area x mean rate) over the zones equals
+    sum(cell rate x area of the cell inside the paddock) computed by an independent
+    overlay [derived: the area-weighted mean times the area is the weighted sum]."""
+    rate, t, boundary = field["rate"], field["transform"], field["boundary"]
+    boxes = cell_boxes(rate.shape, t)
+    boxes["rate"] = rate.ravel()
+    inside = gpd.overlay(boxes, gpd.GeoDataFrame(geometry=[boundary], crs=CRS), how="intersection")
+    integral = float((inside["rate"] * inside.geometry.area / 1e4).sum())
+    for method in ("quantiles", "natural_breaks", "spreader_grid"):
+        z = quiet_zones(rate, transform=t, boundary=boundary,
+                        settings=ZoneSettings(method=method, min_zone_area_ha=0.2,
+                                              travel_direction_deg=35.0)).zones
+        assert (z["area_ha"] * z["rate_raw_kg_ha"]).sum() == pytest.approx(integral, rel=1e-9)
+
+
+def test_total_within_stated_tolerance_of_cell_sum(field) -> None:
+    """Masked raster (NaN outside the paddock by the cell-centre rule): the total before
+    rounding differs from sum(cell rate x cell area) by at most max rate x the area of the
+    symmetric difference between the paddock and the rated cells [derived bound]."""
+    rate = masked(field["rate"], field["transform"], field["boundary"])
+    z = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
+                    settings=ZoneSettings(min_zone_area_ha=0.2)).zones
+    total = float((z["area_ha"] * z["rate_raw_kg_ha"]).sum())
+    cell_sum = float(np.nansum(rate) * CELL * CELL / 1e4)
+    rated = shapely.union_all(cell_boxes(rate.shape, field["transform"]).geometry[
+        np.isfinite(rate).ravel()])
+    sym_ha = shapely.symmetric_difference(rated, field["boundary"]).area / 1e4
+    assert abs(total - cell_sum) <= np.nanmax(rate) * sym_ha
+    assert sym_ha > 0  # the bound is not trivially zero for this paddock
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    data=st.data(),
+    h=st.integers(3, 9),
+    w=st.integers(3, 9),
+    method=st.sampled_from(["quantiles", "equal_interval", "natural_breaks", "kmeans"]),
+    classes=st.integers(1, 6),
+    smooth=st.booleans(),
+    min_area=st.sampled_from([0.0, 0.015, 0.05]),
+)
+def test_property_zones_tile_and_conserve_product(data, h, w, method, classes, smooth,
+                                                  min_area) -> None:
+    values = data.draw(st.lists(st.sampled_from([0.0, 50.0, 120.0, 500.0, 2000.0]),
+                                min_size=h * w, max_size=h * w))
+    rate = np.array(values, dtype=float).reshape(h, w)
+    t = transform_for(h)
+    # a paddock inside the raster, cutting cells: an inset, slanted quadrilateral
+    width, height = w * CELL, h * CELL
+    boundary = shapely.Polygon([(X0 + 3, Y0 + 4), (X0 + width - 6, Y0 + 1),
+                                (X0 + width - 2, Y0 + height - 3), (X0 + 5, Y0 + height - 7)])
+    z = quiet_zones(rate, transform=t, boundary=boundary,
+                    settings=ZoneSettings(method=method, classes=classes, smooth=smooth,
+                                          min_zone_area_ha=min_area)).zones
+    assert_tiles(z, boundary)
+    assert len(z) <= classes
+    # product is conserved exactly by the area-weighted means [derived]
+    boxes = cell_boxes(rate.shape, t)
+    share = shapely.area(shapely.intersection(boxes.geometry.values, boundary))
+    assert (z["area_ha"] * z["rate_raw_kg_ha"]).sum() == pytest.approx(
+        float((share * rate.ravel()).sum() / 1e4), rel=1e-9, abs=1e-9)
+
+
+# --------------------------------------------------------------------------- class details
+
+
+def test_two_rates_give_two_zones_with_exact_rates_and_a_note() -> None:
+    """Left half 100 kg/ha, right half 400 kg/ha; asking for 4 classes gives 2 (with a note)."""
+    rate = np.where(np.arange(8)[None, :] < 4, 100.0, 400.0).repeat(6, axis=0)
+    t = transform_for(6)
+    boundary = shapely.box(X0, Y0, X0 + 80, Y0 + 60)
+    res = quiet_zones(rate, transform=t, boundary=boundary,
+                      settings=ZoneSettings(classes=4, min_zone_area_ha=0))
+    z = res.zones
+    assert z["rate_raw_kg_ha"].tolist() == [100.0, 400.0]
+    assert z["area_ha"].tolist() == pytest.approx([0.24, 0.24])  # 40 m x 60 m each [derived]
+    assert z.geometry.iloc[0].equals(shapely.box(X0, Y0, X0 + 40, Y0 + 60))
+    assert any("2 distinct rates" in n and "instead of 4" in n for n in res.notes)
+
+
+def test_classes_are_numbered_from_low_to_high_rate(field) -> None:
+    rate = masked(field["rate"], field["transform"], field["boundary"])
+    for method in ("quantiles", "equal_interval", "natural_breaks", "kmeans"):
+        z = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
+                        settings=ZoneSettings(method=method, min_zone_area_ha=0)).zones
+        assert z["rate_raw_kg_ha"].is_monotonic_increasing
+
+
+def test_small_piece_merges_into_neighbour_with_longest_shared_edge() -> None:
+    """6 x 6 cells: columns 0-2 at 100, 3-5 at 500, and a 2-cell piece at 300 in column 2,
+    rows 0-1. The piece shares 3 cell edges with the 100 block and 2 with the 500 block,
+    so it joins the 100 block: that zone's rate is (16 x 100 + 2 x 300) / 18 [derived]."""
+    rate = np.where(np.arange(6)[None, :] < 3, 100.0, 500.0).repeat(6, axis=0)
+    rate[0:2, 2] = 300.0
+    t = transform_for(6)
+    boundary = shapely.box(X0, Y0, X0 + 60, Y0 + 60)
+    res = quiet_zones(rate, transform=t, boundary=boundary,
+                      settings=ZoneSettings(classes=3, min_zone_area_ha=0.05))  # 5 cells
+    z = res.zones
+    assert len(z) == 2
+    assert z["rate_raw_kg_ha"].iloc[0] == pytest.approx((16 * 100 + 2 * 300) / 18)
+    assert z["rate_raw_kg_ha"].iloc[1] == pytest.approx(500.0)
+    assert z.geometry.iloc[0].equals(shapely.box(X0, Y0, X0 + 30, Y0 + 60))
+    assert any("merged" in n for n in res.notes)
+
+
+def test_smoothing_removes_single_cell_speckle() -> None:
+    """One 500 kg/ha cell inside a 100 kg/ha field: smoothing (3 x 3 majority) gives
+    one zone whose mean still counts the odd cell: (24 x 100 + 500) / 25 [derived]."""
+    rate = np.full((5, 5), 100.0)
+    rate[2, 2] = 500.0
+    t = transform_for(5)
+    boundary = shapely.box(X0, Y0, X0 + 50, Y0 + 50)
+    rough = quiet_zones(rate, transform=t, boundary=boundary,
+                        settings=ZoneSettings(classes=2, min_zone_area_ha=0)).zones
+    smooth = quiet_zones(rate, transform=t, boundary=boundary,
+                         settings=ZoneSettings(classes=2, min_zone_area_ha=0, smooth=True)).zones
+    assert len(rough) == 2
+    assert len(smooth) == 1
+    assert smooth["rate_raw_kg_ha"].iloc[0] == pytest.approx((24 * 100 + 500) / 25)
+
+
+def test_classify_rates_methods() -> None:
+    # quantiles of 1..100 in 4 classes: 25 values each [derived]
+    cls, notes = classify_rates(np.arange(1.0, 101.0), method="quantiles", classes=4)
+    assert np.bincount(cls)[1:].tolist() == [25, 25, 25, 25] and notes == []
+    # equal intervals over 0..100 in 4 classes: breaks at 25, 50, 75 [derived]
+    cls, _ = classify_rates(np.array([0.0, 24.9, 25.1, 49.9, 50.1, 74.9, 75.1, 100.0]),
+                            method="equal_interval", classes=4)
+    assert cls.tolist() == [1, 1, 2, 2, 3, 3, 4, 4]
+    # three well separated clusters are found by natural breaks and k-means
+    rng = np.random.default_rng(3)
+    centres = np.repeat([100.0, 1000.0, 3000.0], [40, 70, 30])
+    values = centres + rng.normal(0, 20, centres.size)
+    truth = np.repeat([1, 2, 3], [40, 70, 30])
+    for method in ("natural_breaks", "kmeans"):
+        cls, _ = classify_rates(values, method=method, classes=3)
+        assert cls.tolist() == truth.tolist(), method
+    # above the sampling threshold natural breaks still find the clusters
+    big = np.repeat([100.0, 1000.0, 3000.0], [3000, 4000, 2000]) + rng.normal(0, 20, 9000)
+    cls, _ = classify_rates(big, method="natural_breaks", classes=3)
+    assert np.bincount(cls)[1:].tolist() == [3000, 4000, 2000]
+
+
+def test_all_cells_without_rate_give_a_remainder_zone_at_rate_zero() -> None:
+    rate = np.full((4, 4), np.nan)
+    t = transform_for(4)
+    boundary = shapely.box(X0, Y0, X0 + 40, Y0 + 40)
+    with pytest.warns(DataWarning):
+        z = make_zones(rate, transform=t, crs=CRS, paddock="Dry", product="lime",
+                       boundary=boundary, settings=ZoneSettings()).zones
+    assert z["kind"].tolist() == ["remainder"] and z["rate_kg_ha"].tolist() == [0.0]
+    assert_tiles(z, boundary)
+
+
+# --------------------------------------------------------------------------- exclusions
+
+
+def test_exclusions_polygon_and_creek_line(field) -> None:
+    t, boundary = field["transform"], field["boundary"]
+    rate = masked(field["rate"], t, boundary)
+    dam = shapely.Point(X0 + 100, Y0 + 100).buffer(25)
+    creek = shapely.LineString([(X0 - 50, Y0 + 60), (X0 + 400, Y0 + 60)])  # crosses it all
+    ex = gpd.GeoDataFrame({"exclusion": ["dam", "creek"]}, geometry=[dam, creek], crs=CRS)
+    res = quiet_zones(rate, transform=t, boundary=boundary, exclusions=ex,
+                      settings=ZoneSettings(min_zone_area_ha=0.2, creek_buffer_m=10.0))
+    z = res.zones
+    rate_z, excl_z = z[z["kind"] == "rate"], z[z["kind"] == "exclusion"]
+    assert len(excl_z) == 2
+    assert (excl_z["rate_kg_ha"] == 0).all() and (excl_z["passes"] == 0).all()
+    # exclusions are numbered after the rate zones
+    assert excl_z["zone"].min() == rate_z["zone"].max() + 1
+    excluded = shapely.union_all([dam, creek.buffer(10.0)])
+    assert_tiles(z, boundary, excluded)
+    # the creek strip is 20 m wide across the paddock [derived: buffer 10 m each side]
+    strip = boundary.intersection(shapely.box(X0 - 100, Y0 + 50, X0 + 500, Y0 + 70))
+    creek_zone = excl_z[excl_z["label"] == "creek"].geometry.iloc[0]
+    assert creek_zone.area == pytest.approx(strip.area, rel=1e-6)
+    assert excl_z[excl_z["label"] == "dam"].geometry.iloc[0].area == pytest.approx(dam.area)
+    # no rate zone reaches into an exclusion
+    assert shapely.union_all(rate_z.geometry).intersection(excluded).area < 1e-6
+
+
+def test_exclusions_in_another_crs_are_reprojected(field) -> None:
+    t, boundary = field["transform"], field["boundary"]
+    dam = shapely.box(X0 + 80, Y0 + 80, X0 + 140, Y0 + 130)
+    ex_utm = gpd.GeoDataFrame(geometry=[dam], crs=CRS)
+    ex_ll = ex_utm.to_crs("EPSG:4326")
+    a = quiet_zones(field["rate"], transform=t, boundary=boundary, exclusions=ex_utm,
+                    settings=ZoneSettings()).zones
+    b = quiet_zones(field["rate"], transform=t, boundary=boundary, exclusions=ex_ll,
+                    settings=ZoneSettings()).zones
+    ea = a[a["kind"] == "exclusion"]["area_ha"].sum()
+    eb = b[b["kind"] == "exclusion"]["area_ha"].sum()
+    assert ea == pytest.approx(0.3) and eb == pytest.approx(ea, rel=1e-6)  # 60 m x 50 m
+
+
+# --------------------------------------------------------------------------- user zones
+
+
+@pytest.fixture
+def columns_field():
+    """4 x 4 cells of 10 m; each column has one rate: 0, 100, 200, 300 kg/ha."""
+    rate = np.tile(np.array([0.0, 100.0, 200.0, 300.0]), (4, 1))
+    return rate, transform_for(4), shapely.box(X0, Y0, X0 + 40, Y0 + 40)
+
+
+def test_user_zones_get_area_weighted_means(columns_field) -> None:
+    """Zones split at x = 15 m, half way through column 1: A covers 10 m of column 0 and
+    5 m of column 1 -> (10 x 0 + 5 x 100) / 15; B -> (5 x 100 + 10 x 200 + 10 x 300) / 25
+    [derived]."""
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 15, Y0 + 40),
+                                    shapely.box(X0 + 15, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    z = quiet_zones(rate, transform=t, boundary=boundary, user_zones=uz,
+                    settings=ZoneSettings(method="user_zones")).zones
+    assert z["label"].tolist() == ["A", "B"]
+    assert z["rate_raw_kg_ha"].tolist() == pytest.approx([500 / 15, 5500 / 25])
+    assert z["area_ha"].tolist() == pytest.approx([0.06, 0.10])
+    assert_tiles(z, boundary)
+    # a percentile statistic: p100 is the highest cell under the zone, p0 the lowest
+    for stat, expected in (("p100", [100.0, 300.0]), ("p0", [0.0, 100.0])):
+        z = quiet_zones(rate, transform=t, boundary=boundary, user_zones=uz,
+                        settings=ZoneSettings(method="user_zones", statistic=stat)).zones
+        assert z["rate_raw_kg_ha"].tolist() == expected
+
+
+def test_user_zones_in_another_crs_are_reprojected(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 20, Y0 + 40),
+                                    shapely.box(X0 + 20, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    res = quiet_zones(rate, transform=t, boundary=boundary, user_zones=uz.to_crs("EPSG:4326"),
+                      settings=ZoneSettings(method="user_zones"))
+    assert res.zones["rate_raw_kg_ha"].tolist() == pytest.approx([50.0, 250.0], rel=1e-6)
+    assert any("reprojected" in n for n in res.notes)
+
+
+def test_user_zones_with_a_gap_get_a_remainder_zone(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A"]}, geometry=[shapely.box(X0, Y0, X0 + 20, Y0 + 40)],
+                          crs=CRS)
+    with pytest.warns(DataWarning, match="remainder"):
+        z = make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                       boundary=boundary, user_zones=uz,
+                       settings=ZoneSettings(method="user_zones", min_zone_area_ha=0.01)).zones
+    assert z["kind"].tolist() == ["rate", "remainder"]
+    assert z["rate_raw_kg_ha"].tolist() == pytest.approx([50.0, 250.0])
+    assert_tiles(z, boundary)
+
+
+def test_small_gap_between_user_zones_merges_without_remainder(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 19.5, Y0 + 40),
+                                    shapely.box(X0 + 20, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    res = quiet_zones(rate, transform=t, boundary=boundary, user_zones=uz,
+                      settings=ZoneSettings(method="user_zones", min_zone_area_ha=0.01))
+    assert res.zones["kind"].tolist() == ["rate", "rate"]
+    assert_tiles(res.zones, boundary)
+
+
+def test_overlapping_user_zones_are_refused_naming_them(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["north", "south"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 30, Y0 + 40),
+                                    shapely.box(X0 + 10, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    with pytest.raises(InputError) as e:
+        make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                   boundary=boundary, user_zones=uz, settings=ZoneSettings(method="user_zones"))
+    assert "'north' and 'south'" in str(e.value) and e.value.fix
+
+
+def test_user_zones_method_needs_zones(columns_field) -> None:
+    rate, t, boundary = columns_field
+    with pytest.raises(SettingsError) as e:
+        make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                   boundary=boundary, settings=ZoneSettings(method="user_zones"))
+    assert e.value.key == "method"
+
+
+def test_user_zones_without_crs_are_refused(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A"]}, geometry=[boundary])
+    with pytest.raises(CRSError):
+        make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                   boundary=boundary, user_zones=uz, settings=ZoneSettings(method="user_zones"))
+
+
+# --------------------------------------------------------------------------- spreader grid
+
+
+def test_spreader_grid_north_on_an_aligned_paddock() -> None:
+    """A 120 m x 80 m paddock, 20 m wide x 40 m long grid along north: 6 x 2 = 12 zones of
+    0.08 ha [derived]."""
+    rate = np.ones((8, 12)) * 250.0
+    t = transform_for(8)
+    boundary = shapely.box(X0, Y0, X0 + 120, Y0 + 80)
+    z = quiet_zones(rate, transform=t, boundary=boundary,
+                    settings=ZoneSettings(method="spreader_grid", working_width_m=20,
+                                          grid_length_m=40, travel_direction_deg=0)).zones
+    assert len(z) == 12
+    assert z["area_ha"].tolist() == pytest.approx([0.08] * 12)
+    assert (z["rate_raw_kg_ha"] == 250.0).all()
+    assert_tiles(z, boundary)
+
+
+@pytest.mark.parametrize("bearing", [30.0, 115.0])
+def test_spreader_grid_follows_the_travel_direction(field, bearing: float) -> None:
+    t, boundary = field["transform"], field["boundary"]
+    z = quiet_zones(field["rate"], transform=t, boundary=boundary,
+                    settings=ZoneSettings(method="spreader_grid", working_width_m=20,
+                                          grid_length_m=40, travel_direction_deg=bearing,
+                                          min_zone_area_ha=0.02)).zones
+    assert_tiles(z, boundary)
+    full = z[np.isclose(z.geometry.area, 800.0)]  # whole 20 m x 40 m cells
+    assert len(full) > 10
+    for g in full.geometry:
+        ring = np.asarray(g.exterior.coords)
+        for (xa, ya), (xb, yb) in zip(ring[:-1], ring[1:], strict=True):
+            if math.isclose(math.hypot(xb - xa, yb - ya), 40.0, rel_tol=1e-9):
+                along = math.degrees(math.atan2(xb - xa, yb - ya)) % 180.0
+                assert along == pytest.approx(bearing % 180.0, abs=1e-6)
+    # clipped edge pieces below half a cell (400 m2) and 0.02 ha merged into neighbours
+    assert (z.geometry.area >= 200.0 - 1e-6).all()
+
+
+# --------------------------------------------------------------------------- spreader limits
+
+
+def test_limit_zone_rate_rules() -> None:
+    # common practice: below the spreader's minimum nothing is spread
+    assert limit_zone_rate(180.0, min_rate_kg_ha=250) == (0.0, 0)
+    # rounded to the nearest 50 kg/ha step: 1234 -> 1250 [derived]
+    assert limit_zone_rate(1234.0, step_kg_ha=50) == (1250.0, 1)
+    # rounding below the minimum goes up to the first step at or above it
+    assert limit_zone_rate(260.0, min_rate_kg_ha=255, step_kg_ha=100) == (300.0, 1)
+    # 2500 kg/ha at most 1000 per pass: 3 passes [derived: ceil(2500 / 1000)]
+    assert limit_zone_rate(2500.0, max_per_pass_kg_ha=1000) == (2500.0, 3)
+    assert limit_zone_rate(2000.0, max_per_pass_kg_ha=1000) == (2000.0, 2)
+    assert limit_zone_rate(float("nan")) == (0.0, 0)
+
+
+@given(
+    raw=st.floats(0, 20000, allow_nan=False),
+    minimum=st.sampled_from([0.0, 100.0, 250.0]),
+    step=st.sampled_from([0.0, 25.0, 50.0, 100.0]),
+    per_pass=st.sampled_from([None, 500.0, 1500.0]),
+)
+def test_limit_zone_rate_properties(raw, minimum, step, per_pass) -> None:
+    rate, passes = limit_zone_rate(raw, min_rate_kg_ha=minimum, max_per_pass_kg_ha=per_pass,
+                                   step_kg_ha=step)
+    if raw < minimum or raw == 0:
+        assert (rate, passes) == (0.0, 0)
+        return
+    assert rate >= minimum
+    if step:
+        assert rate / step == pytest.approx(round(rate / step))
+        assert abs(rate - raw) <= step / 2 + 1e-9 or rate == step * math.ceil(minimum / step)
+    else:
+        assert rate == raw
+    if rate > 0 and per_pass:
+        assert passes * per_pass >= rate - 1e-9 and (passes - 1) * per_pass < rate
+    elif rate > 0:
+        assert passes == 1
+
+
+def test_make_zones_applies_limits_and_warns(columns_field) -> None:
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 20, Y0 + 40),
+                                    shapely.box(X0 + 20, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    rate = rate * 10  # A: 500 kg/ha, B: 2500 kg/ha
+    with pytest.warns(RateWarning) as record:
+        z = make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                       boundary=boundary, user_zones=uz,
+                       settings=ZoneSettings(method="user_zones"),
+                       min_rate_kg_ha=600, max_per_pass_kg_ha=1000, step_kg_ha=100).zones
+    assert z["rate_raw_kg_ha"].tolist() == pytest.approx([500.0, 2500.0])
+    assert z["rate_kg_ha"].tolist() == [0.0, 2500.0]
+    assert z["passes"].tolist() == [0, 3]
+    assert z["per_pass_kg_ha"].tolist() == pytest.approx([0.0, 2500 / 3])
+    messages = " ".join(str(w.message) for w in record)
+    assert "minimum rate" in messages and "more than one pass" in messages
+
+
+# --------------------------------------------------------------------------- bad input
+
+
+def test_bad_inputs(columns_field) -> None:
+    rate, t, boundary = columns_field
+    with pytest.raises(CRSError):
+        make_zones(rate, transform=t, crs="EPSG:4326", paddock="Home", product="gypsum",
+                   boundary=boundary, settings=ZoneSettings())
+    with pytest.raises(InputError, match="negative"):
+        make_zones(rate - 50, transform=t, crs=CRS, paddock="Home", product="gypsum",
+                   boundary=boundary, settings=ZoneSettings())
