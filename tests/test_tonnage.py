@@ -1,0 +1,149 @@
+"""Tonnage: tonnes = area x rate, subtotals, farm totals, truckloads and cost.
+
+Figures are [derived] from the definitions (1 t = 1000 kg; loads = ceil(tonnes / capacity)).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from geosoil.errors import InputError, SettingsError
+from geosoil.tonnage import LEVELS, TONNAGE_COLUMNS, format_summary, tonnage_table
+
+
+def zones_frame() -> pd.DataFrame:
+    return pd.DataFrame({
+        "paddock": ["North", "North", "North", "South", "South", "North"],
+        "product": ["gypsum", "gypsum", "gypsum", "gypsum", "lime", "lime"],
+        "zone": [1, 2, 3, 1, 1, 1],
+        "kind": ["rate", "rate", "exclusion", "rate", "rate", "rate"],
+        "rate_kg_ha": [2000.0, 3500.0, 0.0, 1000.0, 2500.0, 1200.0],
+        "area_ha": [4.0, 6.0, 0.5, 10.0, 8.0, 10.5],
+    })
+
+
+def test_rows_levels_and_columns() -> None:
+    t = tonnage_table(zones_frame())
+    assert list(t.columns) == list(TONNAGE_COLUMNS)
+    assert set(t["level"]) == set(LEVELS)
+    # one zone row per input zone, one subtotal per paddock and product, one farm row per product
+    assert (t["level"] == "zone").sum() == 6
+    assert (t["level"] == "paddock").sum() == 4
+    assert t.loc[t["level"] == "farm", "product"].tolist() == ["gypsum", "lime"]
+    # each subtotal follows its zones
+    north_gypsum = t[(t["paddock"] == "North") & (t["product"] == "gypsum")]
+    assert north_gypsum["level"].tolist() == ["zone", "zone", "zone", "paddock"]
+    assert t.loc[t["level"] == "farm", "paddock"].isna().all()
+
+
+def test_zone_tonnes_are_area_times_rate() -> None:
+    t = tonnage_table(zones_frame())
+    z = t[t["level"] == "zone"]
+    # 4 ha x 2000 kg/ha = 8 t; 6 ha x 3500 kg/ha = 21 t [derived]
+    ng = z[(z["paddock"] == "North") & (z["product"] == "gypsum")]
+    assert ng["tonnes"].tolist() == pytest.approx([8.0, 21.0, 0.0])
+    sub = t[(t["level"] == "paddock") & (t["paddock"] == "North") & (t["product"] == "gypsum")]
+    assert float(sub["tonnes"].iloc[0]) == pytest.approx(29.0)
+    assert float(sub["area_ha"].iloc[0]) == pytest.approx(10.5)  # exclusions included
+    assert float(sub["spread_area_ha"].iloc[0]) == pytest.approx(10.0)
+    # mean rate over the spread area: 29 t / 10 ha = 2900 kg/ha [derived]
+    assert float(sub["rate_kg_ha"].iloc[0]) == pytest.approx(2900.0)
+
+
+def test_farm_total_equals_sum_of_area_times_rate() -> None:
+    zones = zones_frame()
+    t = tonnage_table(zones)
+    farm = t[t["level"] == "farm"].set_index("product")["tonnes"]
+    for product, rows in zones.groupby("product"):
+        assert farm[product] == pytest.approx((rows["area_ha"] * rows["rate_kg_ha"]).sum() / 1000)
+
+
+def test_truckloads_and_cost() -> None:
+    t = tonnage_table(zones_frame(), capacity_t={"gypsum": 12.0},
+                      price_per_t={"gypsum": 50.0, "lime": 40.0})
+    farm = t[t["level"] == "farm"].set_index("product")
+    # gypsum: 8 + 21 + 10 = 39 t; 39 / 12 = 3.25 -> 4 loads; cost 39 x 50 = 1950 [derived]
+    assert farm.loc["gypsum", "tonnes"] == pytest.approx(39.0)
+    assert farm.loc["gypsum", "loads"] == pytest.approx(3.25)
+    assert farm.loc["gypsum", "truckloads"] == 4
+    assert farm.loc["gypsum", "cost"] == pytest.approx(1950.0)
+    # lime has a price but no capacity: cost but no loads
+    assert pd.isna(farm.loc["lime", "truckloads"]) and math.isnan(farm.loc["lime", "loads"])
+    assert farm.loc["lime", "cost"] == pytest.approx((20.0 + 12.6) * 40.0)
+    # a paddock's loads can be fewer than the sum of its zones' loads (one load serves zones)
+    z = t[(t["level"] == "zone") & (t["paddock"] == "North") & (t["product"] == "gypsum")]
+    sub = t[(t["level"] == "paddock") & (t["paddock"] == "North") & (t["product"] == "gypsum")]
+    assert z["truckloads"].sum() == 1 + 2 + 0 and int(sub["truckloads"].iloc[0]) == 3
+
+
+def test_exact_whole_loads_are_not_rounded_up() -> None:
+    zones = pd.DataFrame({"paddock": ["A"], "product": ["gypsum"], "zone": [1],
+                          "rate_kg_ha": [3000.0], "area_ha": [8.0]})  # 24 t
+    t = tonnage_table(zones, capacity_t=12.0)
+    assert t["truckloads"].tolist() == [2, 2, 2]
+
+
+def test_no_capacity_no_price() -> None:
+    t = tonnage_table(zones_frame(), capacity_t=None, price_per_t=None)
+    assert t["truckloads"].isna().all() and t["cost"].isna().all()
+
+
+def test_bad_settings_and_input() -> None:
+    with pytest.raises(SettingsError) as e:
+        tonnage_table(zones_frame(), capacity_t=0.0)
+    assert e.value.key == "capacity_t"
+    with pytest.raises(SettingsError) as e:
+        tonnage_table(zones_frame(), price_per_t={"gypsum": -1.0})
+    assert e.value.key == "price_per_t.gypsum"
+    with pytest.raises(InputError, match="area_ha"):
+        tonnage_table(zones_frame().drop(columns="area_ha"))
+    bad = zones_frame()
+    bad.loc[1, "rate_kg_ha"] = np.nan
+    with pytest.raises(InputError) as e:
+        tonnage_table(bad)
+    assert e.value.column == "rate_kg_ha"
+
+
+def test_format_summary_lists_totals_and_says_rates_are_advisory() -> None:
+    text = format_summary(tonnage_table(zones_frame(), capacity_t=12.0,
+                                        price_per_t={"gypsum": 50.0}))
+    lines = text.splitlines()
+    assert lines[0].split()[:2] == ["Paddock", "Product"]
+    assert any(line.startswith("North") and "gypsum" in line and "29.00" in line for line in lines)
+    assert any(line.startswith("Farm") and "39.00" in line for line in lines)
+    assert "Total cost" in text and "1,950.00" in text
+    assert "advisory" in text
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    rows=st.lists(
+        st.tuples(
+            st.sampled_from(["A", "B", "C"]),
+            st.sampled_from(["gypsum", "lime"]),
+            st.floats(0, 10000, allow_nan=False),
+            st.floats(0, 500, allow_nan=False),
+        ),
+        min_size=1, max_size=25,
+    ),
+    capacity=st.floats(0.5, 40, allow_nan=False),
+)
+def test_property_totals_add_up(rows, capacity) -> None:
+    zones = pd.DataFrame(rows, columns=["paddock", "product", "rate_kg_ha", "area_ha"])
+    zones["zone"] = zones.groupby(["paddock", "product"]).cumcount() + 1
+    t = tonnage_table(zones, capacity_t=capacity)
+    z = t[t["level"] == "zone"]
+    assert np.allclose(z["tonnes"], z["area_ha"] * z["rate_kg_ha"] / 1000)
+    for level in ("paddock", "farm"):
+        assert t.loc[t["level"] == level, "tonnes"].sum() == pytest.approx(z["tonnes"].sum())
+    assert t.loc[t["level"] == "farm", "tonnes"].sum() == pytest.approx(
+        (zones["area_ha"] * zones["rate_kg_ha"]).sum() / 1000)
+    loads = t["truckloads"].astype(float)
+    assert (loads * capacity >= t["tonnes"] - 1e-6).all()
+    assert ((loads - 1) * capacity < t["tonnes"] + 1e-6).all()
