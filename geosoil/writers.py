@@ -1,0 +1,601 @@
+"""Writing output files: GeoTIFF (COG), GeoJSON, zipped shapefile, CSV, JSON.  [I/O]
+
+Every writer writes to a temporary file in the destination folder and renames
+it into place with :func:`os.replace` (:func:`atomic_write`,
+:func:`atomic_path`), so a reader never sees half a file and a failed write
+leaves the old file (or none) behind.
+
+Formats
+-------
+* :func:`write_geojson` -- RFC 7946: WGS 84 longitude/latitude (§4, no
+  ``"crs"`` member), outer rings counter-clockwise and holes clockwise
+  (§3.1.6), coordinates rounded to 7 decimals (about 1 cm; §11.2 advises 6,
+  about 10 cm). Written with :mod:`json` after reprojecting with geopandas.
+  Features crossing the antimeridian are not split.
+* :func:`write_shapefile_zip` -- a zip of ``.shp .shx .dbf .prj .cpg`` written
+  by GDAL (pyogrio), with field names of 10 characters or fewer chosen here
+  (:data:`SHAPEFILE_FIELDS`), so GDAL never has to shorten ("launder") them;
+  integers as Integer, rates and areas as Real, text as String, UTF-8.
+* :func:`write_cog` -- Cloud Optimized GeoTIFF (GDAL's ``COG`` driver, DEFLATE,
+  256-pixel tiles, averaged overviews), or a tiled GeoTIFF with overviews where
+  the ``COG`` driver is missing. Cells outside the mask (NaN) hold ``nodata``.
+* :func:`write_csv`, :func:`write_json` (NaN and infinities become ``null``).
+
+:func:`ensure_output_dir` guards the output folder: it refuses a non-empty
+folder unless asked to overwrite, and any folder that is or holds an input
+file's folder.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import datetime as _dt
+import json
+import logging
+import math
+import os
+import secrets
+import tempfile
+import zipfile
+from collections.abc import Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import IO, Any
+
+import numpy as np
+import pandas as pd
+import pyproj
+import shapely
+from affine import Affine
+from numpy.typing import NDArray
+from shapely.geometry import mapping
+from shapely.geometry.base import BaseGeometry
+from shapely.geometry.polygon import orient
+
+from .errors import CRSError, OutputExistsError
+
+__all__ = [
+    "SHAPEFILE_FIELDS",
+    "atomic_write",
+    "atomic_path",
+    "ensure_output_dir",
+    "write_geojson",
+    "geojson_text",
+    "write_shapefile_zip",
+    "write_cog",
+    "write_csv",
+    "write_json",
+    "jsonable",
+]
+
+logger = logging.getLogger(__name__)
+
+#: Zone columns -> shapefile field names (10 characters or fewer, our own).
+SHAPEFILE_FIELDS: dict[str, str] = {
+    "paddock": "PADDOCK",
+    "product": "PRODUCT",
+    "zone": "ZONE",
+    "kind": "KIND",
+    "label": "LABEL",
+    "rate_kg_ha": "RATE_KGHA",
+    "rate_raw_kg_ha": "RATE_RAW",
+    "passes": "PASSES",
+    "per_pass_kg_ha": "PASS_KGHA",
+    "area_ha": "AREA_HA",
+    "n_cells": "N_CELLS",
+}
+
+_SHP_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")
+
+
+# --------------------------------------------------------------------------- atomic writes
+
+
+def _temp_name(path: Path) -> Path:
+    while True:
+        tmp = path.with_name(f".{path.stem}.{secrets.token_hex(4)}.part{path.suffix}")
+        if not tmp.exists():
+            return tmp
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
+    """A temporary path beside ``path``, renamed to ``path`` when the block succeeds.
+
+    For writers that need a file name (GDAL). On an exception the temporary
+    file is removed and ``path`` is left as it was.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> with atomic_path(folder / "a.txt") as tmp:
+    ...     _ = tmp.write_text("done")
+    >>> (folder / "a.txt").read_text(), sorted(p.name for p in folder.iterdir())
+    ('done', ['a.txt'])
+    """
+    target = Path(path)
+    tmp = _temp_name(target)
+    try:
+        yield tmp
+        if not tmp.exists():
+            raise FileNotFoundError(f"nothing was written to {tmp} for {target}")
+        os.replace(tmp, target)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
+
+
+@contextlib.contextmanager
+def atomic_write(
+    path: str | os.PathLike[str], *, mode: str = "wb", encoding: str | None = None
+) -> Iterator[IO[Any]]:
+    """An open temporary file beside ``path``, renamed to ``path`` when the block succeeds.
+
+    Parameters
+    ----------
+    path
+        The file to write.
+    mode
+        ``"wb"`` (bytes, the default) or ``"w"`` (text; ``encoding`` defaults
+        to UTF-8).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> with atomic_write(folder / "b.bin") as fh:
+    ...     _ = fh.write(b"abc")
+    >>> (folder / "b.bin").read_bytes()
+    b'abc'
+    >>> try:
+    ...     with atomic_write(folder / "c.txt", mode="w") as fh:
+    ...         _ = fh.write("half")
+    ...         raise RuntimeError("disk full")
+    ... except RuntimeError:
+    ...     pass
+    >>> sorted(p.name for p in folder.iterdir())
+    ['b.bin']
+    """
+    if mode not in ("w", "wb"):
+        raise ValueError(f"mode must be 'w' or 'wb', got {mode!r}")
+    if mode == "w" and encoding is None:
+        encoding = "utf-8"
+    with atomic_path(path) as tmp:
+        # 0o666 less the umask, like any new file (mkstemp would make it private)
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+        with open(fd, mode, encoding=encoding, newline="" if mode == "w" else None) as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+
+
+# --------------------------------------------------------------------------- output folder
+
+
+def _is_within(child: Path, parent: Path) -> bool:
+    return child == parent or parent in child.parents
+
+
+def ensure_output_dir(
+    path: str | os.PathLike[str],
+    *,
+    overwrite: bool,
+    inputs: Sequence[str | os.PathLike[str]],
+) -> Path:
+    """Check and create the output folder; return it resolved.
+
+    Parameters
+    ----------
+    path
+        The output folder. It is created (with its parents) when missing.
+    overwrite
+        Allow an existing, non-empty folder. Files the run writes replace
+        those of the same name; nothing else in the folder is touched.
+    inputs
+        Every input file of the run.
+
+    Raises
+    ------
+    OutputExistsError
+        ``path`` is a file; it exists, is not empty and ``overwrite`` is
+        false; or it is, or contains, the folder of an input file (outputs
+        never go where the inputs are, even with ``overwrite``).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> root = Path(tempfile.mkdtemp())
+    >>> (root / "data").mkdir(); _ = (root / "data" / "lab.csv").write_text("x")
+    >>> ensure_output_dir(root / "out", overwrite=False, inputs=[root / "data" / "lab.csv"]).name
+    'out'
+    >>> ensure_output_dir(root, overwrite=True, inputs=[root / "data" / "lab.csv"])
+    Traceback (most recent call last):
+    ...
+    geosoil.errors.OutputExistsError: ...holds the input file ...lab.csv; choose an output folder...
+    """
+    out = Path(path).expanduser().resolve()
+    for item in inputs:
+        inp = Path(item).expanduser().resolve()
+        folder = inp if inp.is_dir() else inp.parent
+        if _is_within(folder, out):
+            raise OutputExistsError(
+                f"the output folder {out} is or holds the input file {inp}; "
+                "choose an output folder outside the input folders"
+            )
+    if out.exists() and not out.is_dir():
+        raise OutputExistsError(f"the output path {out} is a file, not a folder; "
+                                "choose a folder name")
+    if out.is_dir() and any(out.iterdir()) and not overwrite:
+        raise OutputExistsError(
+            f"the output folder {out} exists and is not empty; choose a new folder or "
+            "allow overwriting (overwrite=True, on the command line --overwrite)"
+        )
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
+# --------------------------------------------------------------------------- JSON
+
+
+def jsonable(obj: Any) -> Any:
+    """``obj`` as plain JSON values: NaN, infinities and missing values become ``None``.
+
+    Handles mappings, sequences, numpy arrays and scalars, pandas missing
+    values and timestamps, paths, dates, dataclasses and shapely geometries.
+
+    Examples
+    --------
+    >>> jsonable({"a": float("nan"), "b": np.array([1.5, np.inf]), "c": np.int64(3)})
+    {'a': None, 'b': [1.5, None], 'c': 3}
+    """
+    if obj is None or isinstance(obj, (bool, str)):
+        return obj
+    if isinstance(obj, (int, np.integer)) and not isinstance(obj, bool):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, (float, np.floating)):
+        v = float(obj)
+        return v if math.isfinite(v) else None
+    if isinstance(obj, Mapping):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, np.ndarray):
+        return [jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, (list, tuple, set, frozenset)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, os.PathLike):
+        return os.fspath(obj)
+    if isinstance(obj, BaseGeometry):
+        return jsonable(mapping(obj))
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return jsonable(dataclasses.asdict(obj))
+    if isinstance(obj, (pd.Timestamp, _dt.datetime, _dt.date)):
+        return None if pd.isna(obj) else obj.isoformat()
+    if obj is pd.NA or obj is pd.NaT:
+        return None
+    if isinstance(obj, np.generic):
+        return jsonable(obj.item())
+    if isinstance(obj, pyproj.CRS):
+        return obj.to_wkt()
+    raise TypeError(f"cannot write a {type(obj).__name__} to JSON")
+
+
+def write_json(path: str | os.PathLike[str], obj: Any, *, indent: int = 2) -> Path:
+    """Write ``obj`` as UTF-8 JSON (NaN -> null), atomically.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> p = write_json(Path(tempfile.mkdtemp()) / "run.json", {"rmse": float("nan")})
+    >>> p.read_text()
+    '{\\n  "rmse": null\\n}\\n'
+    """
+    text = json.dumps(jsonable(obj), indent=indent, ensure_ascii=False, allow_nan=False)
+    with atomic_write(path, mode="w") as fh:
+        fh.write(text + "\n")
+    return Path(path)
+
+
+def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool = False) -> Path:
+    """Write a table as UTF-8 CSV, atomically. Missing values are empty cells;
+    a geometry column is left out.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> t = pd.DataFrame({"a": [1.5, None], "b": ["x", "y"]})
+    >>> write_csv(Path(tempfile.mkdtemp()) / "t.csv", t).read_text().splitlines()
+    ['a,b', '1.5,x', ',y']
+    """
+    frame = pd.DataFrame(table)
+    if "geometry" in frame.columns and frame["geometry"].map(
+        lambda g: isinstance(g, BaseGeometry)
+    ).any():
+        frame = frame.drop(columns="geometry")
+    with atomic_write(path, mode="w") as fh:
+        frame.to_csv(fh, index=index, lineterminator="\n")
+    return Path(path)
+
+
+# --------------------------------------------------------------------------- GeoJSON
+
+
+def _rfc7946_geometry(geom: BaseGeometry | None, precision: int) -> dict[str, Any] | None:
+    if geom is None or geom.is_empty:
+        return None
+    geom = shapely.transform(geom, lambda c: np.round(c, precision))
+    if not geom.is_valid:
+        geom = shapely.make_valid(geom)
+    geom = _orient(geom)
+    return mapping(geom)
+
+
+def _orient(geom: BaseGeometry) -> BaseGeometry:
+    """Outer rings counter-clockwise, holes clockwise (RFC 7946 §3.1.6)."""
+    if geom.geom_type == "Polygon":
+        return orient(geom, sign=1.0)
+    if geom.geom_type == "MultiPolygon":
+        return shapely.MultiPolygon([orient(p, sign=1.0) for p in geom.geoms])
+    if geom.geom_type == "GeometryCollection":
+        return shapely.GeometryCollection([_orient(g) for g in geom.geoms])
+    return geom
+
+
+def geojson_text(frame: Any, *, precision: int = 7) -> str:
+    """The RFC 7946 GeoJSON text of a GeoDataFrame (see :func:`write_geojson`).
+
+    Examples
+    --------
+    >>> import geopandas as gpd
+    >>> g = gpd.GeoDataFrame({"zone": [1]}, geometry=[shapely.box(500000, 6000000, 500100,
+    ...                      6000100)], crs="EPSG:32755")
+    >>> doc = json.loads(geojson_text(g))
+    >>> "crs" in doc, doc["features"][0]["properties"], doc["features"][0]["geometry"]["type"]
+    (False, {'zone': 1}, 'Polygon')
+    """
+    if frame.crs is None:
+        raise CRSError("the layer has no coordinate reference system; it cannot be written "
+                       "as GeoJSON (RFC 7946 needs WGS 84 longitude/latitude)")
+    wgs84 = frame.to_crs("EPSG:4326")
+    props = [c for c in wgs84.columns if c != wgs84.geometry.name]
+    features = []
+    for row, geom in zip(wgs84[props].itertuples(index=False, name=None),
+                         wgs84.geometry, strict=True):
+        features.append({
+            "type": "Feature",
+            "properties": {k: jsonable(v) for k, v in zip(props, row, strict=True)},
+            "geometry": _rfc7946_geometry(geom, precision),
+        })
+    doc = {"type": "FeatureCollection", "features": features}
+    return json.dumps(doc, ensure_ascii=False, allow_nan=False, separators=(",", ":")) + "\n"
+
+
+def write_geojson(path: str | os.PathLike[str], frame: Any, *, precision: int = 7) -> Path:
+    """Write a GeoDataFrame as RFC 7946 GeoJSON, atomically.
+
+    Parameters
+    ----------
+    path
+        The ``.geojson`` file.
+    frame
+        GeoDataFrame with a CRS; it is reprojected to WGS 84 longitude/latitude.
+        Every other column becomes a property (NaN -> null).
+    precision
+        Decimals of the coordinates (7: about 1 cm).
+
+    Raises
+    ------
+    CRSError
+        The frame has no CRS.
+    """
+    text = geojson_text(frame, precision=precision)
+    with atomic_write(path, mode="w") as fh:
+        fh.write(text)
+    return Path(path)
+
+
+# --------------------------------------------------------------------------- shapefile
+
+
+def _check_field_names(fields: Mapping[str, str]) -> None:
+    seen: set[str] = set()
+    for col, name in fields.items():
+        if not (0 < len(name) <= 10) or not name.replace("_", "").isalnum() or not name.isascii():
+            raise ValueError(
+                f"shapefile field name {name!r} for column {col!r} must be 1 to 10 ASCII "
+                "letters, digits or underscores"
+            )
+        if name.upper() in seen:
+            raise ValueError(f"shapefile field name {name!r} is used twice")
+        seen.add(name.upper())
+
+
+def _shapefile_frame(frame: Any, fields: Mapping[str, str]) -> Any:
+    import geopandas as gpd
+
+    keep = [c for c in frame.columns if c in fields]
+    dropped = [c for c in frame.columns if c not in fields and c != frame.geometry.name]
+    if dropped:
+        logger.debug("shapefile: columns left out: %s", ", ".join(dropped))
+    out = {}
+    for col in keep:
+        s = frame[col]
+        name = fields[col]
+        if pd.api.types.is_bool_dtype(s):
+            out[name] = s.astype("int32")
+        elif pd.api.types.is_integer_dtype(s):
+            vals = s.astype("int64")
+            if len(vals) and (vals.abs().max() > 2**31 - 1):
+                raise ValueError(f"column {col!r} holds integers too large for a shapefile")
+            out[name] = vals.astype("int32")
+        elif pd.api.types.is_float_dtype(s):
+            out[name] = s.astype("float64")
+        else:
+            text = s.map(lambda v: None if v is None or v is pd.NA or
+                         (isinstance(v, float) and math.isnan(v)) else str(v))
+            too_long = text.map(lambda v: v is not None and len(v.encode("utf-8")) > 254)
+            if too_long.any():
+                raise ValueError(
+                    f"column {col!r} holds text longer than the 254 bytes a shapefile "
+                    f"field can hold (row {int(np.flatnonzero(too_long.to_numpy())[0]) + 1})"
+                )
+            out[name] = text.astype(object)
+    return gpd.GeoDataFrame(out, geometry=list(frame.geometry), crs=frame.crs)
+
+
+def write_shapefile_zip(
+    path: str | os.PathLike[str],
+    frame: Any,
+    *,
+    fields: Mapping[str, str] | None = None,
+    layer: str | None = None,
+    crs: Any = None,
+) -> Path:
+    """Write a GeoDataFrame as a zipped ESRI shapefile, atomically.
+
+    Parameters
+    ----------
+    path
+        The ``.zip`` file.
+    frame
+        GeoDataFrame with a CRS (written to the ``.prj``).
+    fields
+        Column -> field name (10 characters or fewer); columns not named are
+        left out. Default :data:`SHAPEFILE_FIELDS`.
+    layer
+        Name of the files inside the zip; default: the zip's name without
+        ``.zip`` (and without a trailing ``_shp``).
+    crs
+        Reproject to this CRS first (e.g. ``"EPSG:4326"`` for a controller that
+        wants longitude/latitude); default: the frame's CRS.
+
+    Raises
+    ------
+    ValueError
+        A field name longer than 10 characters, used twice, or text longer
+        than 254 bytes.
+    CRSError
+        The frame has no CRS.
+    """
+    import pyogrio
+
+    fields = dict(SHAPEFILE_FIELDS if fields is None else fields)
+    _check_field_names(fields)
+    if frame.crs is None:
+        raise CRSError("the layer has no coordinate reference system; a shapefile needs one "
+                       "for its .prj")
+    if crs is not None:
+        frame = frame.to_crs(crs)
+    target = Path(path)
+    name = layer or target.stem.removesuffix("_shp") or "zones"
+    data = _shapefile_frame(frame, fields)
+    with tempfile.TemporaryDirectory(prefix="geosoil-shp-") as tmpdir:
+        shp = Path(tmpdir) / f"{name}.shp"
+        pyogrio.write_dataframe(
+            data, shp, driver="ESRI Shapefile", encoding="UTF-8", promote_to_multi=True,
+        )
+        cpg = shp.with_suffix(".cpg")
+        if not cpg.exists():
+            cpg.write_text("UTF-8", encoding="ascii")
+        missing = [s for s in _SHP_PARTS if not shp.with_suffix(s).exists()]
+        if missing:
+            raise OSError(f"GDAL did not write the shapefile's {', '.join(missing)}")
+        with atomic_write(target) as fh, zipfile.ZipFile(fh, "w", zipfile.ZIP_DEFLATED) as zf:
+            for suffix in _SHP_PARTS:
+                zf.write(shp.with_suffix(suffix), arcname=f"{name}{suffix}")
+    return target
+
+
+# --------------------------------------------------------------------------- GeoTIFF
+
+
+def _cog_driver_available() -> bool:
+    import rasterio
+
+    with rasterio.Env() as env:
+        return "COG" in env.drivers()
+
+
+def write_cog(
+    path: str | os.PathLike[str],
+    array: NDArray[np.floating[Any]],
+    *,
+    transform: Affine,
+    crs: Any,
+    nodata: float = -9999.0,
+    descriptions: Sequence[str] | None = None,
+    tags: Mapping[str, Any] | None = None,
+) -> Path:
+    """Write a raster (NaN outside the mask) as a Cloud Optimized GeoTIFF, atomically.
+
+    Parameters
+    ----------
+    path
+        The ``.tif`` file.
+    array
+        Float array of shape (height, width), or (bands, height, width).
+        NaN cells are written as ``nodata``.
+    transform, crs
+        Georeferencing (north-up affine; any CRS :meth:`pyproj.CRS.from_user_input` takes).
+    nodata
+        Value written for NaN cells and declared as the nodata value.
+    descriptions
+        One description per band.
+    tags
+        Dataset metadata (e.g. ``{"unit": "kg/ha"}``); values are written as text.
+
+    Examples
+    --------
+    >>> import tempfile, rasterio
+    >>> p = Path(tempfile.mkdtemp()) / "rate.tif"
+    >>> a = np.array([[1.0, np.nan], [3.0, 4.0]])
+    >>> _ = write_cog(p, a, transform=Affine(10, 0, 500000, 0, -10, 6000000), crs="EPSG:32755",
+    ...               descriptions=["gypsum rate"], tags={"unit": "kg/ha"})
+    >>> with rasterio.open(p) as src:
+    ...     src.read(1, masked=True).filled(np.nan).tolist(), src.tags()["unit"], src.crs.to_epsg()
+    ([[1.0, nan], [3.0, 4.0]], 'kg/ha', 32755)
+    """
+    import rasterio
+    from rasterio.enums import Resampling
+
+    data = np.asarray(array)
+    if data.ndim == 2:
+        data = data[None]
+    if data.ndim != 3:
+        raise ValueError(f"array must be 2-D or 3-D, got shape {np.shape(array)}")
+    if not np.issubdtype(data.dtype, np.floating):
+        data = data.astype("float64")
+    data = np.where(np.isfinite(data), data, nodata).astype(data.dtype)
+    bands, height, width = data.shape
+    if descriptions is not None and len(descriptions) != bands:
+        raise ValueError(f"{len(descriptions)} descriptions for {bands} band(s)")
+    rio_crs = rasterio.crs.CRS.from_wkt(pyproj.CRS.from_user_input(crs).to_wkt())
+    profile: dict[str, Any] = dict(
+        width=width, height=height, count=bands, dtype=data.dtype.name, crs=rio_crs,
+        transform=transform, nodata=nodata,
+    )
+    cog = _cog_driver_available()
+    if cog:
+        profile.update(driver="COG", compress="DEFLATE", predictor="YES", blocksize=256,
+                       overview_resampling="AVERAGE", bigtiff="IF_SAFER")
+    else:
+        profile.update(driver="GTiff", compress="deflate", predictor=3, tiled=True,
+                       blockxsize=256, blockysize=256)
+    with atomic_path(path) as tmp:
+        with rasterio.open(tmp, "w", **profile) as dst:
+            dst.write(data)
+            for i, text in enumerate(descriptions or (), start=1):
+                dst.set_band_description(i, str(text))
+            if tags:
+                dst.update_tags(**{str(k): str(v) for k, v in tags.items()})
+            if not cog:
+                factors = []
+                f = 2
+                while max(height, width) / f >= 128:
+                    factors.append(f)
+                    f *= 2
+                if factors:
+                    dst.build_overviews(factors, Resampling.average)
+    return Path(path)

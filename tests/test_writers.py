@@ -1,0 +1,280 @@
+"""Writers: RFC 7946 GeoJSON, zipped shapefile, COG GeoTIFF, CSV, JSON, atomic writes and
+the output-folder guard. Files are read back with GDAL (pyogrio, rasterio)."""
+
+from __future__ import annotations
+
+import json
+import os
+import stat
+import warnings
+import zipfile
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import rasterio
+import shapely
+from affine import Affine
+
+import geosoil.writers as writers
+from geosoil.errors import CRSError, OutputExistsError
+from geosoil.writers import (
+    SHAPEFILE_FIELDS,
+    atomic_write,
+    ensure_output_dir,
+    write_cog,
+    write_csv,
+    write_geojson,
+    write_json,
+    write_shapefile_zip,
+)
+from geosoil.zones import ZoneSettings, make_zones
+
+CRS = "EPSG:32755"
+X0, Y0 = 500_000.0, 6_000_000.0
+T = Affine(10.0, 0, X0, 0, -10.0, Y0 + 200)
+
+
+@pytest.fixture(scope="module")
+def zones() -> gpd.GeoDataFrame:
+    """Zones of a paddock with a dam inside it, so a rate zone has a hole."""
+    rows, cols = np.mgrid[0:20, 0:25]
+    rate = 150.0 + 40.0 * cols + 10.0 * rows
+    boundary = shapely.Polygon([(X0 + 3, Y0 + 2), (X0 + 246, Y0 + 6), (X0 + 240, Y0 + 197),
+                                (X0 + 8, Y0 + 190)])
+    dam = shapely.Point(X0 + 60, Y0 + 100).buffer(20)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        z = make_zones(rate, transform=T, crs=CRS, paddock="Creek flat", product="gypsum",
+                       boundary=boundary, exclusions=[dam],
+                       settings=ZoneSettings(classes=3, min_zone_area_ha=0.2)).zones
+    assert any(len(p.interiors) for g in z.geometry for p in shapely.get_parts(g))
+    return z
+
+
+def signed_area(ring: list[list[float]]) -> float:
+    """Shoelace formula: positive for counter-clockwise rings [derived]."""
+    a = np.asarray(ring)
+    return 0.5 * float(np.sum(a[:-1, 0] * a[1:, 1] - a[1:, 0] * a[:-1, 1]))
+
+
+# --------------------------------------------------------------------------- GeoJSON
+
+
+def test_geojson_follows_rfc7946(zones, tmp_path: Path) -> None:
+    path = write_geojson(tmp_path / "gypsum.geojson", zones)
+    doc = json.loads(path.read_text(encoding="utf-8"))
+    assert doc["type"] == "FeatureCollection"
+    assert "crs" not in doc  # RFC 7946 §4: no "crs" member
+    assert len(doc["features"]) == len(zones)
+    holes = 0
+    for feature in doc["features"]:
+        assert set(feature["properties"]) >= {"paddock", "product", "zone", "kind", "rate_kg_ha",
+                                               "area_ha"}
+        geom = feature["geometry"]
+        polygons = [geom["coordinates"]] if geom["type"] == "Polygon" else geom["coordinates"]
+        for rings in polygons:
+            for i, ring in enumerate(rings):
+                assert ring[0] == ring[-1] and len(ring) >= 4
+                for lon, lat in ring:  # §3.1.1: [longitude, latitude]
+                    assert -180 <= lon <= 180 and -90 <= lat <= 90
+                    assert round(lon, 7) == lon and round(lat, 7) == lat
+                # §3.1.6: exterior rings counter-clockwise, holes clockwise
+                assert (signed_area(ring) > 0) == (i == 0)
+                holes += i > 0
+    assert holes >= 1
+    # UTM 55S around 6 000 000 N lies near 147 E, 36 S [derived from the zone's meridian]
+    first = doc["features"][0]["geometry"]
+    outer = first["coordinates"][0] if first["type"] == "Polygon" else first["coordinates"][0][0]
+    lon, lat = outer[0]
+    assert 146 < lon < 148 and -37 < lat < -35
+
+
+def test_geojson_reads_back_with_same_rates_and_areas(zones, tmp_path: Path) -> None:
+    path = write_geojson(tmp_path / "gypsum.geojson", zones)
+    back = pyogrio.read_dataframe(path)
+    assert back.crs.to_epsg() == 4326
+    back = back.to_crs(CRS)
+    assert back["rate_kg_ha"].tolist() == zones["rate_kg_ha"].tolist()
+    assert back["zone"].tolist() == zones["zone"].tolist()
+    # 7 decimals of a degree is about 1 cm: areas agree to 1e-4 [derived]
+    assert np.allclose(back.geometry.area, zones.geometry.area, rtol=1e-4)
+    assert np.allclose(back["area_ha"], zones["area_ha"])
+    assert back.geometry.is_valid.all()
+
+
+def test_geojson_nan_becomes_null_and_needs_a_crs(tmp_path: Path) -> None:
+    g = gpd.GeoDataFrame({"v": [np.nan]}, geometry=[shapely.box(X0, Y0, X0 + 1, Y0 + 1)], crs=CRS)
+    doc = json.loads(write_geojson(tmp_path / "a.geojson", g).read_text())
+    assert doc["features"][0]["properties"]["v"] is None
+    with pytest.raises(CRSError):
+        write_geojson(tmp_path / "b.geojson", g.set_crs(None, allow_override=True))
+
+
+# --------------------------------------------------------------------------- shapefile
+
+
+def test_shapefile_zip_contents_and_fields(zones, tmp_path: Path) -> None:
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no renaming ("laundering") warning, or any other
+        path = write_shapefile_zip(tmp_path / "gypsum_shp.zip", zones)
+    with zipfile.ZipFile(path) as zf:
+        names = sorted(zf.namelist())
+        assert zf.read("gypsum.cpg").decode().strip().upper() in ("UTF-8", "UTF8")
+    assert names == sorted(f"gypsum{s}" for s in (".shp", ".shx", ".dbf", ".prj", ".cpg"))
+    info = pyogrio.read_info(path)
+    fields = dict(zip(info["fields"], info["ogr_types"], strict=True))
+    # ESRI shapefile (GDAL driver documentation): names of 10 characters or fewer
+    assert all(len(name) <= 10 for name in fields)
+    assert set(fields) == set(SHAPEFILE_FIELDS.values())
+    assert fields["RATE_KGHA"] == "OFTReal" and fields["AREA_HA"] == "OFTReal"
+    assert fields["ZONE"] == "OFTInteger" and fields["PRODUCT"] == "OFTString"
+    assert info["crs"] == "EPSG:32755"
+
+
+def test_shapefile_reads_back_with_same_rates_and_areas(zones, tmp_path: Path) -> None:
+    path = write_shapefile_zip(tmp_path / "gypsum_shp.zip", zones)
+    back = pyogrio.read_dataframe(path)
+    assert back["RATE_KGHA"].tolist() == zones["rate_kg_ha"].tolist()
+    assert back["PRODUCT"].tolist() == ["gypsum"] * len(zones)
+    assert back["PADDOCK"].tolist() == ["Creek flat"] * len(zones)
+    assert back["KIND"].tolist() == zones["kind"].tolist()
+    assert np.allclose(back["AREA_HA"], zones["area_ha"])
+    assert np.allclose(back.geometry.area / 1e4, zones["area_ha"], rtol=1e-9)
+
+
+def test_shapefile_refuses_long_field_names(zones, tmp_path: Path) -> None:
+    with pytest.raises(ValueError, match="10"):
+        write_shapefile_zip(tmp_path / "x.zip", zones, fields={"rate_kg_ha": "RATE_KG_PER_HA"})
+    assert not (tmp_path / "x.zip").exists()
+
+
+def test_shapefile_in_wgs84_on_request(zones, tmp_path: Path) -> None:
+    path = write_shapefile_zip(tmp_path / "ll_shp.zip", zones, crs="EPSG:4326")
+    assert pyogrio.read_info(path)["crs"] == "EPSG:4326"
+
+
+# --------------------------------------------------------------------------- GeoTIFF
+
+
+def test_cog_round_trip(tmp_path: Path) -> None:
+    rng = np.random.default_rng(0)
+    a = rng.uniform(0, 3000, (300, 280))
+    a[:20, :] = np.nan
+    path = write_cog(tmp_path / "rate.tif", a, transform=T, crs=CRS,
+                     descriptions=["gypsum rate"], tags={"unit": "kg/ha"})
+    with rasterio.open(path) as src:
+        assert src.crs.to_epsg() == 32755
+        assert src.transform == T
+        assert src.nodata == -9999.0
+        assert src.descriptions == ("gypsum rate",)
+        assert src.tags()["unit"] == "kg/ha"
+        image = src.tags(ns="IMAGE_STRUCTURE")
+        assert image.get("LAYOUT") == "COG"  # OGC 21-026 layout, as GDAL reports it
+        assert image.get("COMPRESSION") == "DEFLATE"
+        assert src.block_shapes[0] == (256, 256) and src.overviews(1)
+        back = src.read(1, masked=True)
+    assert np.array_equal(back.mask, np.isnan(a))
+    assert np.array_equal(back.filled(np.nan), a, equal_nan=True)
+
+
+def test_tiled_geotiff_when_cog_driver_is_missing(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.setattr(writers, "_cog_driver_available", lambda: False)
+    a = np.arange(300 * 300, dtype=float).reshape(300, 300)
+    path = write_cog(tmp_path / "r.tif", a, transform=T, crs=CRS)
+    with rasterio.open(path) as src:
+        assert src.driver == "GTiff" and src.block_shapes[0] == (256, 256)
+        assert src.overviews(1) == [2]
+        assert src.compression.name.lower() == "deflate"
+        assert np.array_equal(src.read(1), a)
+
+
+def test_zone_rates_as_raster_round_trip(zones, tmp_path: Path) -> None:
+    import rasterio.features
+
+    shapes = [(g, float(r)) for g, r in zip(zones.geometry, zones["rate_kg_ha"], strict=True)]
+    grid = rasterio.features.rasterize(shapes, out_shape=(20, 25), transform=T, fill=np.nan,
+                                       dtype="float64")
+    path = write_cog(tmp_path / "zones.tif", grid, transform=T, crs=CRS)
+    with rasterio.open(path) as src:
+        back = src.read(1, masked=True).filled(np.nan)
+    assert np.array_equal(back, grid, equal_nan=True)
+    assert set(np.unique(back[np.isfinite(back)])) <= set(zones["rate_kg_ha"])
+
+
+# --------------------------------------------------------------------------- CSV and JSON
+
+
+def test_csv_and_json(tmp_path: Path) -> None:
+    table = pd.DataFrame({"zone": [1, 2], "rate_kg_ha": [1250.5, np.nan], "name": ["a", "é"]})
+    back = pd.read_csv(write_csv(tmp_path / "t.csv", table))
+    assert back["rate_kg_ha"].iloc[0] == 1250.5 and pd.isna(back["rate_kg_ha"].iloc[1])
+    assert back["name"].tolist() == ["a", "é"]
+    obj = {"a": np.float64("nan"), "b": [np.int32(2), np.inf], "c": Path("x/y"),
+           "d": np.array([[1.0, np.nan]])}
+    doc = json.loads(write_json(tmp_path / "r.json", obj).read_text())
+    assert doc == {"a": None, "b": [2, None], "c": "x/y", "d": [[1.0, None]]}
+
+
+# --------------------------------------------------------------------------- atomic writes
+
+
+def test_atomic_write_replaces_only_on_success(tmp_path: Path) -> None:
+    target = tmp_path / "out.txt"
+    target.write_text("old")
+    with pytest.raises(RuntimeError), atomic_write(target, mode="w") as fh:
+        fh.write("new but broken")
+        raise RuntimeError("stop")
+    assert target.read_text() == "old"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.txt"]  # no temporary left
+    with atomic_write(target, mode="w") as fh:
+        fh.write("new")
+    assert target.read_text() == "new"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.txt"]
+
+
+def test_atomic_write_gives_ordinary_permissions(tmp_path: Path) -> None:
+    old = os.umask(0o022)
+    try:
+        with atomic_write(tmp_path / "p.bin") as fh:
+            fh.write(b"x")
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE((tmp_path / "p.bin").stat().st_mode) == 0o644
+
+
+def test_failed_raster_write_leaves_nothing(tmp_path: Path) -> None:
+    with pytest.raises(ValueError):
+        write_cog(tmp_path / "bad.tif", np.zeros((2, 2)), transform=T, crs=CRS,
+                  descriptions=["a", "b"])
+    assert list(tmp_path.iterdir()) == []
+
+
+# --------------------------------------------------------------------------- output folder
+
+
+def test_ensure_output_dir(tmp_path: Path) -> None:
+    inputs_dir = tmp_path / "farm"
+    inputs_dir.mkdir()
+    lab = inputs_dir / "lab.csv"
+    lab.write_text("x")
+    # a new folder is created
+    out = ensure_output_dir(tmp_path / "results" / "2024", overwrite=False, inputs=[lab])
+    assert out.is_dir()
+    # an existing non-empty folder needs overwrite
+    (out / "old.txt").write_text("x")
+    with pytest.raises(OutputExistsError, match="not empty"):
+        ensure_output_dir(out, overwrite=False, inputs=[lab])
+    assert ensure_output_dir(out, overwrite=True, inputs=[lab]) == out.resolve()
+    assert (out / "old.txt").exists()  # overwrite does not empty the folder
+    # the inputs' folder, or a folder holding it, is refused even with overwrite
+    for bad in (inputs_dir, tmp_path):
+        with pytest.raises(OutputExistsError, match="input"):
+            ensure_output_dir(bad, overwrite=True, inputs=[lab])
+    # a file is not a folder
+    with pytest.raises(OutputExistsError):
+        ensure_output_dir(lab, overwrite=True, inputs=[])
+    assert lab.read_text() == "x"
