@@ -1,0 +1,184 @@
+"""Tests for geosoil.columns: lab header spellings -> analytes, units, ID and coordinates."""
+
+from __future__ import annotations
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from geosoil.columns import ANALYTE_SPELLINGS, detect_columns, parse_header
+
+
+@pytest.mark.parametrize(
+    "header, role, unit, method",
+    [
+        ("Ca", "ca", None, None),
+        ("CA", "ca", None, None),
+        ("Exch Ca", "ca", None, None),
+        ("Exch. Ca (meq/100g)", "ca", "meq/100g", None),
+        ("Exchangeable Calcium (cmol(+)/kg)", "ca", "cmol/kg", None),
+        ("Calcium (meq/100g)", "ca", "meq/100g", None),
+        ("Ca (mg/kg)", "ca", "mg/kg", None),
+        ("Ca ppm", "ca", "mg/kg", None),
+        ("Ca [ppm]", "ca", "mg/kg", None),
+        ("Ca_cmolc_kg", "ca", "cmol/kg", None),
+        ("Ca_meq/100g", "ca", "meq/100g", None),
+        ("Ca2+ (cmol(c)/kg)", "ca", "cmol/kg", None),
+        ("Ca++", "ca", None, None),
+        ("Mg", "mg", None, None),
+        ("Mg mg/kg", "mg", "mg/kg", None),
+        ("Magnesium (mmol(+)/kg)", "mg", "mmol/kg", None),
+        ("K", "k", None, None),
+        ("Exch K (NH4OAc)", "k", None, "NH4OAc"),
+        ("Potassium", "k", None, None),
+        ("Na", "na", None, None),
+        ("Exch-Na mg kg-1", "na", "mg/kg", None),
+        ("Sodium (meq/100 g)", "na", "meq/100g", None),
+        ("Al", "al", None, None),
+        ("Exch Al (KCl)", "al", None, "KCl"),
+        ("Aluminium", "al", None, None),
+        ("Aluminum", "al", None, None),
+        ("H", "h", None, None),
+        ("Exch. Acidity", "acidity", None, None),
+        ("Exchangeable acidity (cmol/kg)", "acidity", "cmol/kg", None),
+        ("Al+H", "acidity", None, None),
+        ("Exch Al + H (meq/100g)", "acidity", "meq/100g", None),
+        ("ECEC", "cec", None, None),
+        ("ECEC (cmol(+)/kg)", "cec", "cmol/kg", None),
+        ("CEC", "cec", None, None),
+        ("Cation exchange capacity", "cec", None, None),
+        ("pH", "ph", None, None),
+        ("pH (CaCl2)", "ph", None, "CaCl2"),
+        ("pH (water)", "ph", None, "water"),
+        ("pH (1:5 water)", "ph", None, "water"),
+        ("pH_H2O", "ph", None, "water"),
+        ("pHw", "ph", None, "water"),
+        ("pHCa", "ph", None, "CaCl2"),
+        ("pH CaCl2", "ph", None, "CaCl2"),
+        ("SAR", "sar", None, None),
+        ("Sodium adsorption ratio", "sar", None, None),
+        ("Sample", "id", None, None),
+        ("Sample ID", "id", None, None),
+        ("Sample_ID", "id", None, None),
+        ("ID", "id", None, None),
+        ("Easting", "east", None, None),
+        ("Northing", "north", None, None),
+        ("Easting (m)", "east", None, None),
+        ("X", "x", None, None),
+        ("Y", "y", None, None),
+        ("Lon", "lon", None, None),
+        ("Lat", "lat", None, None),
+        ("Longitude", "lon", None, None),
+        ("Latitude (WGS84)", "lat", None, None),
+        ("\ufeffSample ID", "id", None, None),
+    ],
+)
+def test_parse_header_common_lab_spellings(header, role, unit, method):
+    info = parse_header(header)
+    assert (info.role, info.unit, info.method) == (role, unit, method)
+
+
+@pytest.mark.parametrize(
+    "header, note",
+    [
+        ("Ca %", "percentage"),
+        ("Ca (%)", "percentage"),
+        ("Ca (% of CEC)", "percentage"),
+        ("Exch Na %", "percentage"),
+        ("Ca sat", "percentage"),
+        ("Colwell K", "not the exchangeable amount"),
+        ("K (Colwell)", "not the exchangeable amount"),
+        ("Total Ca", "not the exchangeable amount"),
+        ("Al (CaCl2)", "not the exchangeable amount"),
+        ("Na (meq/L)", "not an exchangeable amount"),
+        ("Ca (mg/kg) (meq/100g)", "two units"),
+        ("CEC (mg/kg)", "mg/kg is not defined"),
+        ("pH (KCl)", "KCl"),
+    ],
+)
+def test_headers_that_name_an_analyte_but_hold_something_else(header, note):
+    info = parse_header(header)
+    assert info.role is None
+    assert note in info.note
+
+
+@pytest.mark.parametrize(
+    "header", ["Ca:Mg", "Ca/Mg ratio", "ESP", "EC", "Phosphorus", "Depth (cm)", "N", "Notes", ""]
+)
+def test_other_headers_are_left_alone(header):
+    assert parse_header(header).role is None
+
+
+def test_detect_prefers_ph_in_water_and_ecec():
+    guess = detect_columns(
+        ["ID", "Lon", "Lat", "pH (CaCl2)", "pH (water)", "CEC", "ECEC", "Ca", "Ca %"]
+    )
+    assert guess.analytes == {"ca": "Ca", "cec": "ECEC", "ph": "pH (water)"}
+    assert guess.methods["ph"] == "water"
+    assert guess.ambiguous == {}
+    assert guess.notes == {"Ca %": "a percentage (saturation), not an amount"}
+
+
+def test_detect_falls_back_to_ph_in_cacl2():
+    guess = detect_columns(["Sample", "X", "Y", "pH (CaCl2)"])
+    assert guess.analytes["ph"] == "pH (CaCl2)" and guess.methods["ph"] == "CaCl2"
+
+
+def test_two_equal_candidates_are_reported_not_guessed():
+    guess = detect_columns(["Ca (mg/kg)", "Calcium (meq/100g)", "Mg"])
+    assert "ca" not in guess.analytes
+    assert guess.ambiguous == {"ca": ("Ca (mg/kg)", "Calcium (meq/100g)")}
+    assert guess.analytes == {"mg": "Mg"}
+
+
+@pytest.mark.parametrize(
+    "headers, x, y, geographic",
+    [
+        (["Longitude", "Latitude"], "Longitude", "Latitude", True),
+        (["Easting", "Northing"], "Easting", "Northing", False),
+        (["X", "Y"], "X", "Y", None),
+        (["X", "Y", "Lon", "Lat"], "Lon", "Lat", True),
+        (["Lon", "Northing"], None, None, None),
+    ],
+)
+def test_detect_coordinates(headers, x, y, geographic):
+    guess = detect_columns(headers)
+    assert (guess.x, guess.y, guess.geographic) == (x, y, geographic)
+
+
+def test_detect_id_prefers_the_sample_id_over_lab_numbers():
+    assert detect_columns(["Lab No", "Sample ID", "Ca"]).id == "Sample ID"
+    assert detect_columns(["Name", "ID"]).id == "ID"
+    assert detect_columns(["Ca", "Mg"]).id is None
+
+
+_EXCHANGEABLE_SPELLINGS = [
+    (a, n) for a in ("ca", "mg", "k", "na", "al", "h") for n in ANALYTE_SPELLINGS[a]
+]
+_UNIT_SPELLINGS = [
+    ("cmol(+)/kg", "cmol/kg"), ("cmolc/kg", "cmol/kg"), ("meq/100g", "meq/100g"),
+    ("meq/100 g", "meq/100g"), ("mmol(+)/kg", "mmol/kg"), ("mg/kg", "mg/kg"), ("ppm", "mg/kg"),
+]
+
+
+@given(
+    spelling=st.sampled_from(_EXCHANGEABLE_SPELLINGS),
+    qualifier=st.sampled_from(["", "Exch ", "Exch. ", "Exchangeable ", "exch_"]),
+    unit=st.sampled_from(_UNIT_SPELLINGS),
+    layout=st.sampled_from(["{q}{n} ({u})", "{q}{n} [{u}]", "{q}{n} {u}", "{q}{n}_{u}"]),
+    upper=st.booleans(),
+)
+def test_any_qualifier_name_and_unit_layout_is_read(spelling, qualifier, unit, layout, upper):
+    analyte, name = spelling
+    name = name.upper() if upper else name.capitalize()
+    header = layout.format(q=qualifier, n=name, u=unit[0])
+    info = parse_header(header)
+    assert (info.role, info.unit) == (analyte, unit[1]), header
+
+
+@given(st.lists(st.text(max_size=12), max_size=8))
+def test_detect_never_fails_and_maps_each_header_once(headers):
+    guess = detect_columns(headers)
+    used = list(guess.analytes.values())
+    assert len(used) == len(set(used))
+    assert set(used) <= set(headers)
