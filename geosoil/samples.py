@@ -1,0 +1,1031 @@
+"""Reading lab results with locations into a checked samples GeoDataFrame.  [I/O]
+
+Accepted files: CSV (comma, semicolon or tab separated; decimal point, or
+decimal comma with ';' or tab separators; UTF-8 with or without BOM), Excel
+workbooks (.xlsx, .xlsm), GeoJSON, GeoPackage and shapefile (.shp, or zipped
+.zip). Columns are recognised by :func:`geosoil.columns.detect_columns`;
+``[samples.columns]`` and ``[samples.units]`` override what the headers say.
+Exchangeable amounts are converted to cmol(+)/kg with
+:func:`geosoil.units.to_cmol_kg`; the lab's other columns are kept as they were.
+
+Rows are numbered as a person numbers them in the file: in CSV and Excel the
+header is row 1 and the first data row is row 2 (Excel: the sheet's own row
+numbers); in vector files the feature number from 1. Every problem with a row
+raises :class:`~geosoil.errors.InputError` naming the file, row, column and the
+fix; with ``on_bad_row = "skip"`` the row is passed over instead, listed in
+:attr:`SampleRead.skipped` and in a :class:`~geosoil.errors.DataWarning`.
+Input files are only read, never written.
+
+Plausible ranges (:data:`PLAUSIBLE_MAX_CMOL`, :data:`PLAUSIBLE_PH`,
+:data:`PLAUSIBLE_MAX_SAR`) are common practice: generous upper bounds meant to
+catch a wrong unit (Ca = 1500 "cmol(+)/kg" is mg/kg), not to judge real soils.
+
+Examples
+--------
+>>> import tempfile, pathlib
+>>> folder = pathlib.Path(tempfile.mkdtemp())
+>>> _ = (folder / "lab.csv").write_text(
+...     "Sample;Lon;Lat;Ca (mg/kg);Mg;K;Na\\n"
+...     "A1;146,90;-35,10;1002;3,0;0,5;0,4\\n"
+...     "A2;146,91;-35,11;801,6;2,5;0,4;0,3\\n", encoding="utf-8")
+>>> read = read_samples(SampleSettings(file=folder / "lab.csv"))
+>>> read.samples[["sample_id", "source_row", "ca", "mg"]].round(3).to_dict("list")
+{'sample_id': ['A1', 'A2'], 'source_row': [2, 3], 'ca': [5.0, 4.0], 'mg': [3.0, 2.5]}
+>>> read.units["ca"], read.units["mg"], read.crs.to_epsg()
+('mg/kg', 'cmol/kg', 4326)
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import io
+import logging
+import math
+import re
+import warnings
+import zipfile
+from collections.abc import Iterable, Mapping, Sequence
+from pathlib import Path
+from typing import Any, NamedTuple
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import shapely
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
+
+from .chemistry import DERIVED
+from .columns import CANONICAL, UNITLESS, detect_columns, parse_header
+from .crs import describe_crs, parse_crs
+from .errors import CRSError, DataWarning, InputError, SettingsError
+from .settings import setting
+from .units import CATION_UNITS, from_cmol_kg, normalise_unit, to_cmol_kg
+
+__all__ = [
+    "SampleSettings",
+    "SampleRead",
+    "PLAUSIBLE_MAX_CMOL",
+    "PLAUSIBLE_PH",
+    "PLAUSIBLE_MAX_SAR",
+    "read_samples",
+    "prepare_samples",
+]
+
+logger = logging.getLogger(__name__)
+
+#: Largest plausible exchangeable amount, cmol(+)/kg (common practice; generous,
+#: to catch values in the wrong unit). cec covers organic soils.
+PLAUSIBLE_MAX_CMOL: dict[str, float] = {
+    "ca": 150.0,
+    "mg": 80.0,
+    "k": 25.0,
+    "na": 80.0,
+    "al": 30.0,
+    "h": 30.0,
+    "acidity": 40.0,
+    "cec": 300.0,
+}
+#: Plausible soil pH range (common practice; acid sulfate soils reach below 3).
+PLAUSIBLE_PH: tuple[float, float] = (1.5, 12.5)
+#: Largest plausible SAR (common practice).
+PLAUSIBLE_MAX_SAR: float = 300.0
+
+_TABLE_SUFFIXES = (".csv", ".txt", ".tsv")
+_EXCEL_SUFFIXES = (".xlsx", ".xlsm")
+_VECTOR_SUFFIXES = (".geojson", ".json", ".gpkg", ".shp", ".zip")
+_EMPTY_WORDS = {"", "na", "n/a", "n.a.", "-", "--", "nan", "none", "null"}
+_RESERVED = set(CANONICAL) | set(DERIVED) | {"sample_id", "source_row", "paddock", "geometry"}
+
+
+@dataclasses.dataclass(frozen=True)
+class SampleSettings:
+    """Where the lab results are and how to read them (the ``[samples]`` table)."""
+
+    file: Path = setting(
+        doc="lab results: CSV, Excel (.xlsx), GeoJSON, GeoPackage or shapefile (.shp or .zip)"
+    )
+    sheet_or_layer: str | None = setting(
+        None,
+        doc="Excel sheet or GeoPackage layer to read (default: the first sheet, the only layer)",
+    )
+    id_column: str | None = setting(None, doc="header of the sample ID (default: detected)")
+    x_column: str | None = setting(
+        None, doc="header of longitude or easting (default: detected; tables only)"
+    )
+    y_column: str | None = setting(
+        None, doc="header of latitude or northing (default: detected; tables only)"
+    )
+    crs: str | None = setting(
+        None,
+        doc="CRS of the coordinates: EPSG code ('EPSG:28355'), authority string or WKT "
+        "(default: the file's own, else WGS 84 longitude/latitude when they look like it)",
+    )
+    columns: dict[str, str] = setting(
+        default_factory=dict,
+        doc="analyte -> header, overriding detection (analytes: " + ", ".join(CANONICAL) + ")",
+    )
+    units: dict[str, str] = setting(
+        default_factory=dict,
+        doc="analyte -> unit, overriding the header (" + ", ".join(CATION_UNITS) + ")",
+    )
+    default_unit: str = setting(
+        "cmol/kg", doc="unit of exchangeable columns whose header names none"
+    )
+    empty_allowed: tuple[str, ...] = setting(
+        ("al", "h", "acidity", "cec", "sar"),
+        doc="analytes whose empty cells mean 'not measured' (elsewhere an empty cell is an error)",
+    )
+    below_detection: str = setting(
+        "half",
+        doc="values such as '<0.1': 'half' the limit (common practice), the 'limit', 'zero', "
+        "or 'stop'",
+        choices=("half", "limit", "zero", "stop"),
+    )
+    duplicates: str = setting(
+        "stop",
+        doc="samples closer than duplicate_distance_m: 'stop', or 'average' them into one",
+        choices=("stop", "average"),
+    )
+    duplicate_distance_m: float = setting(
+        1.0, doc="samples closer than this are at the same place", unit="m", minimum=0.0,
+        maximum=1000.0,
+    )
+    on_bad_row: str = setting(
+        "stop", doc="a bad row: 'stop' with an error, or 'skip' it and list it",
+        choices=("stop", "skip"),
+    )
+
+    def __post_init__(self) -> None:
+        for f in dataclasses.fields(self):
+            choices = f.metadata.get("choices")
+            if choices and getattr(self, f.name) not in choices:
+                raise SettingsError(
+                    f"'{getattr(self, f.name)}' is not allowed. Allowed: {', '.join(choices)}",
+                    key=f.name,
+                )
+        if not 0.0 <= self.duplicate_distance_m <= 1000.0:
+            raise SettingsError("must be from 0 to 1000 m", key="duplicate_distance_m")
+        for analyte in (*self.columns, *self.units, *self.empty_allowed):
+            if analyte not in CANONICAL:
+                near = difflib.get_close_matches(analyte, CANONICAL, n=1)
+                hint = f"; did you mean '{near[0]}'?" if near else ""
+                key = "empty_allowed" if analyte in self.empty_allowed else (
+                    f"columns.{analyte}" if analyte in self.columns else f"units.{analyte}"
+                )
+                raise SettingsError(
+                    f"'{analyte}' is not an analyte{hint} Analytes: {', '.join(CANONICAL)}",
+                    key=key,
+                )
+        for analyte, unit in self.units.items():
+            if analyte in UNITLESS:
+                raise SettingsError(f"{analyte} has no unit; remove it", key=f"units.{analyte}")
+            unit = _checked_unit(unit, key=f"units.{analyte}")
+            if unit == "mg/kg" and analyte in ("acidity", "cec"):
+                raise SettingsError(
+                    f"{analyte} has no mg/kg form; use cmol/kg, meq/100g or mmol/kg",
+                    key=f"units.{analyte}",
+                )
+        _checked_unit(self.default_unit, key="default_unit")
+        if self.crs is not None:
+            parse_crs(self.crs, key="crs")
+
+
+def _checked_unit(text: str, *, key: str) -> str:
+    try:
+        return normalise_unit(text)
+    except SettingsError as exc:
+        raise SettingsError(exc.bare_message, key=key) from None
+
+
+@dataclasses.dataclass(frozen=True)
+class SampleRead:
+    """What :func:`read_samples` read.
+
+    Attributes
+    ----------
+    samples
+        GeoDataFrame in the file's (or declared) CRS: ``sample_id`` (str),
+        ``source_row`` (int), the canonical analytes found (exchangeable ones in
+        cmol(+)/kg; ``ph`` and ``sar`` as given), the lab's other columns as they
+        were (renamed ``<name>_lab`` where a name is one geosoil uses), geometry.
+    columns
+        Analyte -> header read.
+    units
+        Analyte -> unit the values were in (None for pH and SAR).
+    methods
+        Analyte -> method named in the header (``methods.get("ph")`` is
+        "water", "CaCl2" or None; pass it to :func:`geosoil.chemistry.derive`).
+    skipped
+        (row, reason) of each row passed over (``on_bad_row = "skip"``).
+    crs
+        CRS of ``samples``.
+    file
+        The file read.
+    """
+
+    samples: gpd.GeoDataFrame
+    columns: dict[str, str]
+    units: dict[str, str | None]
+    methods: dict[str, str | None]
+    skipped: list[tuple[int, str]]
+    crs: pyproj.CRS
+    file: Path
+
+
+class _Issue(NamedTuple):
+    row: int
+    column: str | None
+    problem: str
+    fix: str
+
+
+class _Raw(NamedTuple):
+    """A file as read: cells as the file gave them, row numbers, points if any."""
+
+    table: pd.DataFrame
+    rows: np.ndarray
+    header_row: int | None
+    geometry: gpd.GeoSeries | None
+    crs: pyproj.CRS | None
+    decimal_comma: bool
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def _excel_column(i: int) -> str:
+    letters = ""
+    i += 1
+    while i:
+        i, r = divmod(i - 1, 26)
+        letters = chr(65 + r) + letters
+    return letters
+
+
+def _headers(cells: Sequence[Any], *, file: str, header_row: int, excel: bool) -> list[str]:
+    names = []
+    for i, cell in enumerate(cells):
+        text = "" if cell is None or (isinstance(cell, float) and math.isnan(cell)) else str(cell)
+        text = text.replace("\ufeff", "").strip()
+        if isinstance(cell, float) and cell.is_integer():
+            text = str(int(cell))
+        names.append(text or f"column {_excel_column(i) if excel else i + 1}")
+    seen: dict[str, int] = {}
+    for i, name in enumerate(names):
+        if name in seen:
+            where = (f"columns {_excel_column(seen[name])} and {_excel_column(i)}" if excel
+                     else f"columns {seen[name] + 1} and {i + 1}")
+            raise InputError(
+                f"the header appears twice ({where})", file=file, row=header_row, column=name,
+                fix="rename one of the two columns",
+            )
+        seen[name] = i
+    return names
+
+
+def _read_csv(path: Path, name: str) -> _Raw:
+    data = path.read_bytes()
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise InputError(
+            f"the file is not UTF-8 text (byte 0x{data[exc.start]:02x})", file=name, row=line,
+            fix="save it as 'CSV UTF-8' from the spreadsheet program",
+        ) from None
+    if not text.strip():
+        raise InputError("the file is empty", file=name, fix="export the lab results again")
+    first = re.sub(r'"[^"]*"', "", text.splitlines()[0])
+    sep = max((",", ";", "\t"), key=first.count)
+    if first.count(sep) == 0:
+        sep = ","
+    try:
+        table = pd.read_csv(
+            io.StringIO(text), sep=sep, header=None, dtype=str, keep_default_na=False,
+            skip_blank_lines=False,
+        )
+    except pd.errors.ParserError as exc:
+        m = re.search(r"line (\d+), saw (\d+)", str(exc))
+        expected = re.search(r"Expected (\d+) fields", str(exc))
+        raise InputError(
+            (f"the row has {m.group(2)} fields where row 1 has {expected.group(1)}"
+             if m and expected else f"the file cannot be read as CSV ({exc})"),
+            file=name, row=int(m.group(1)) if m else None,
+            fix=f"check the separator ('{sep}' was used) and the quotes on that row",
+        ) from None
+    rows = np.arange(1, len(table) + 1)
+    header = _headers(table.iloc[0].tolist(), file=name, header_row=1, excel=False)
+    body = table.iloc[1:].copy()
+    body.columns = header
+    keep = body.apply(lambda c: c.astype(str).str.strip() != "").any(axis=1).to_numpy()
+    body, body_rows = body[keep], rows[1:][keep]
+    decimal_comma = False
+    if sep != ",":
+        cells = pd.Series(body.to_numpy().ravel()).astype(str).str.strip()
+        decimal_comma = bool(cells.str.fullmatch(r"[+-]?\d*,\d+").any())
+    return _Raw(body.reset_index(drop=True), body_rows, 1, None, None, decimal_comma)
+
+
+def _read_excel(path: Path, name: str, sheet: str | None) -> _Raw:
+    try:
+        book = pd.ExcelFile(path, engine="openpyxl")
+    except (zipfile.BadZipFile, OSError, ValueError, KeyError) as exc:
+        raise InputError(
+            f"the file cannot be read as an Excel workbook ({exc})", file=name,
+            fix="open it in a spreadsheet program and save it as .xlsx or CSV UTF-8",
+        ) from None
+    with book:
+        if sheet is not None and sheet not in book.sheet_names:
+            raise InputError(
+                f"there is no sheet '{sheet}'; the sheets are {', '.join(book.sheet_names)}",
+                file=name, fix="set [samples] sheet_or_layer to one of them",
+            )
+        table = pd.read_excel(book, sheet_name=sheet if sheet is not None else 0, header=None,
+                              dtype=object)
+    filled = table.notna().any(axis=1).to_numpy()
+    if not filled.any():
+        raise InputError("the sheet is empty", file=name, fix="set [samples] sheet_or_layer")
+    first = int(np.flatnonzero(filled)[0])
+    header = _headers(table.iloc[first].tolist(), file=name, header_row=first + 1, excel=True)
+    body = table.iloc[first + 1 :].copy()
+    body.columns = header
+    keep = filled[first + 1 :]
+    rows = np.arange(first + 2, len(table) + 1)[keep]
+    return _Raw(body[keep].reset_index(drop=True), rows, first + 1, None, None, False)
+
+
+def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
+    fix = "check that the file opens in a GIS, or export it again as GeoJSON or GeoPackage"
+    try:
+        layers = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
+        if layer is None and len(layers) > 1:
+            raise InputError(
+                f"the file has {len(layers)} layers ({', '.join(layers)})", file=name,
+                fix="choose one with [samples] sheet_or_layer",
+            )
+        if layer is not None and layer not in layers:
+            raise InputError(
+                f"there is no layer '{layer}'; the layers are {', '.join(layers)}", file=name,
+                fix="set [samples] sheet_or_layer to one of them",
+            )
+        frame = gpd.read_file(path, layer=layer, engine="pyogrio")
+    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError) as exc:
+        raise InputError(f"the file cannot be read ({exc})", file=name, fix=fix) from None
+    rows = np.arange(1, len(frame) + 1)
+    geometry = None
+    crs = None
+    if isinstance(frame, gpd.GeoDataFrame) and frame.geometry.notna().any():
+        geometry = frame.geometry.reset_index(drop=True)
+        crs = frame.crs
+        table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
+    else:
+        table = pd.DataFrame(frame.drop(columns="geometry", errors="ignore"))
+    table.columns = [str(c) for c in table.columns]
+    return _Raw(table.reset_index(drop=True), rows, None, geometry, crs, False)
+
+
+def _read_raw(settings: SampleSettings, name: str) -> _Raw:
+    path = Path(settings.file)
+    if not path.exists():
+        raise InputError(
+            "the file does not exist", file=name,
+            fix="check the path in [samples] file (relative paths start at the project file)",
+        )
+    if path.is_dir():
+        raise InputError("this is a folder, not a file", file=name,
+                         fix="name the file in [samples] file")
+    suffix = path.suffix.lower()
+    if suffix in _TABLE_SUFFIXES:
+        return _read_csv(path, name)
+    if suffix in _EXCEL_SUFFIXES:
+        return _read_excel(path, name, settings.sheet_or_layer)
+    if suffix in _VECTOR_SUFFIXES:
+        return _read_vector(path, name, settings.sheet_or_layer)
+    if suffix == ".xls":
+        raise InputError("the old Excel format .xls is not read", file=name,
+                         fix="save the workbook as .xlsx or as CSV UTF-8")
+    kinds = ", ".join((*_TABLE_SUFFIXES, *_EXCEL_SUFFIXES, *_VECTOR_SUFFIXES))
+    raise InputError(f"the file type '{suffix or '(none)'}' is not read", file=name,
+                     fix=f"give a file ending in one of {kinds}")
+
+
+# --------------------------------------------------------------------------- cells
+
+
+def _cell(value: Any, *, decimal_comma: bool) -> tuple[float, str, str]:
+    """(number, status, text) of one cell; status: ok, empty, below, bad."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return math.nan, "empty", ""
+    if isinstance(value, bool) or isinstance(value, (pd.Timestamp, np.datetime64)) or hasattr(
+        value, "isoformat"
+    ):
+        return math.nan, "bad", str(value)
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        v = float(value)
+        return (v, "ok", str(value)) if math.isfinite(v) else (math.nan, "bad", str(value))
+    text = str(value).strip()
+    if text.lower() in _EMPTY_WORDS:
+        return math.nan, "empty", text
+    number = text.replace(",", ".") if decimal_comma else text
+    status = "ok"
+    if number.startswith("<"):
+        number, status = number[1:].strip(), "below"
+    try:
+        v = float(number)
+    except ValueError:
+        return math.nan, "bad", text
+    if not math.isfinite(v):
+        return math.nan, "bad", text
+    return v, status, text
+
+
+def _cells(values: pd.Series, *, decimal_comma: bool) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    parsed = [_cell(v, decimal_comma=decimal_comma) for v in values.tolist()]
+    numbers = np.array([p[0] for p in parsed], dtype=float)
+    status = np.array([p[1] for p in parsed], dtype=object)
+    return numbers, status, [p[2] for p in parsed]
+
+
+def _id_text(value: Any) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value).strip()
+
+
+# --------------------------------------------------------------------------- mapping
+
+
+def _nearest(header: str, headers: Sequence[str]) -> str:
+    near = difflib.get_close_matches(header, headers, n=1, cutoff=0.5)
+    shown = ", ".join(f"'{h}'" for h in headers)
+    return (f"did you mean '{near[0]}'? " if near else "") + f"The headers are: {shown}"
+
+
+def _map_columns(
+    headers: list[str], settings: SampleSettings, name: str, header_row: int | None,
+    *, need_xy: bool,
+) -> tuple[dict[str, str], str, tuple[str, str] | None, bool | None, dict[str, str | None]]:
+    guess = detect_columns(headers)
+
+    def present(header: str, key: str) -> str:
+        if header not in headers:
+            raise InputError(
+                f"the column named in [samples] {key} is not in the file", file=name,
+                row=header_row, column=header, fix=_nearest(header, headers),
+            )
+        return header
+
+    columns: dict[str, str] = {}
+    for analyte, header in settings.columns.items():
+        columns[analyte] = present(header, f"columns.{analyte}")
+    taken = set(columns.values())
+    methods: dict[str, str | None] = {a: parse_header(h).method for a, h in columns.items()}
+    for analyte in CANONICAL:
+        if analyte in columns:
+            continue
+        tied = [h for h in guess.ambiguous.get(analyte, ()) if h not in taken]
+        if len(tied) > 1:
+            raise InputError(
+                f"{' and '.join(repr(h) for h in tied)} both look like {analyte}", file=name,
+                row=header_row, column=tied[0],
+                fix=f"choose one in [samples.columns], e.g. {analyte} = '{tied[0]}'",
+            )
+        found = tied[0] if tied else guess.analytes.get(analyte)
+        if found is not None and found not in taken:
+            columns[analyte] = found
+            methods[analyte] = parse_header(found).method if tied else guess.methods[analyte]
+            taken.add(found)
+    if not columns:
+        hint = "; ".join(f"'{h}': {why}" for h, why in guess.notes.items())
+        raise InputError(
+            "no analyte column was recognised" + (f" (passed over: {hint})" if hint else ""),
+            file=name, row=header_row,
+            fix="name them in [samples.columns], e.g. ca = 'Exch Ca'. " + _nearest("", headers),
+        )
+    id_header = present(settings.id_column, "id_column") if settings.id_column else guess.id
+    if id_header is None:
+        raise InputError(
+            "no sample ID column was recognised", file=name, row=header_row,
+            fix="set [samples] id_column to the header of the sample IDs. "
+            + _nearest("", headers),
+        )
+    xy = None
+    geographic = None
+    if need_xy:
+        x = present(settings.x_column, "x_column") if settings.x_column else guess.x
+        y = present(settings.y_column, "y_column") if settings.y_column else guess.y
+        if x is None or y is None:
+            raise InputError(
+                "no coordinate columns were recognised (longitude/latitude, easting/northing "
+                "or X/Y)", file=name, row=header_row, column=x or y,
+                fix="set [samples] x_column and y_column (and crs when they are projected). "
+                + _nearest("", headers),
+            )
+        roles = (parse_header(x).role, parse_header(y).role)
+        geographic = True if roles == ("lon", "lat") else (
+            False if roles == ("east", "north") else None)
+        xy = (x, y)
+    return columns, id_header, xy, geographic, methods
+
+
+def _units(
+    columns: Mapping[str, str], settings: SampleSettings, name: str, header_row: int | None
+) -> dict[str, str | None]:
+    units: dict[str, str | None] = {}
+    for analyte, header in columns.items():
+        if analyte in UNITLESS:
+            units[analyte] = None
+            continue
+        if analyte in settings.units:
+            unit = normalise_unit(settings.units[analyte])
+            said = parse_header(header).unit
+            if said is not None and said != unit:
+                logger.info("%s: [samples.units] %s = %s overrides '%s'", name, analyte, unit,
+                            header)
+        else:
+            unit = parse_header(header).unit or normalise_unit(settings.default_unit)
+        if unit == "mg/kg" and analyte in ("acidity", "cec"):
+            raise InputError(
+                f"{analyte} has no mg/kg form (default_unit is {settings.default_unit})",
+                file=name, row=header_row, column=header,
+                fix=f"state its unit: [samples.units] {analyte} = 'cmol/kg'",
+            )
+        units[analyte] = unit
+    return units
+
+
+# --------------------------------------------------------------------------- checks
+
+
+def _analyte_values(
+    analyte: str, header: str, unit: str | None, values: pd.Series, rows: np.ndarray,
+    settings: SampleSettings, name: str, decimal_comma: bool, issues: list[_Issue],
+) -> np.ndarray:
+    numbers, status, texts = _cells(values, decimal_comma=decimal_comma)
+    skip_fix = " or set [samples] on_bad_row = 'skip'"
+    for i in np.flatnonzero(status == "bad"):
+        issues.append(_Issue(int(rows[i]), header, f"'{texts[i]}' is not a number",
+                             "correct the cell" + skip_fix))
+    empty = np.flatnonzero(status == "empty")
+    if analyte not in settings.empty_allowed:
+        for i in empty:
+            issues.append(_Issue(
+                int(rows[i]), header, "the value is empty",
+                f"fill it in, add '{analyte}' to [samples] empty_allowed" + skip_fix,
+            ))
+    below = np.flatnonzero(status == "below")
+    if below.size:
+        if settings.below_detection == "stop":
+            for i in below:
+                issues.append(_Issue(
+                    int(rows[i]), header, f"'{texts[i]}' is below the detection limit",
+                    "set [samples] below_detection = 'half' (or 'limit', 'zero')" + skip_fix,
+                ))
+        else:
+            factor = {"half": 0.5, "limit": 1.0, "zero": 0.0}[settings.below_detection]
+            numbers[below] *= factor
+            warnings.warn(
+                f"{name}, column '{header}': {below.size} value(s) below the detection limit "
+                f"(rows {_row_list(rows[below])}) taken as "
+                + {"half": "half the limit", "limit": "the limit", "zero": "0"}[
+                    settings.below_detection],
+                DataWarning, stacklevel=4,
+            )
+    negative = np.flatnonzero(numbers < 0)
+    for i in negative:
+        issues.append(_Issue(int(rows[i]), header, f"negative value {texts[i]}",
+                             "correct the cell" + skip_fix))
+    numbers[negative] = np.nan
+    if analyte in UNITLESS:
+        low, high = PLAUSIBLE_PH if analyte == "ph" else (0.0, PLAUSIBLE_MAX_SAR)
+        for i in np.flatnonzero((numbers < low) | (numbers > high)):
+            issues.append(_Issue(
+                int(rows[i]), header,
+                f"{analyte} = {texts[i]} is outside the plausible {low:g}-{high:g}",
+                "check the value and that the column holds " + analyte + skip_fix,
+            ))
+        return numbers
+    assert unit is not None
+    cmol = to_cmol_kg(numbers, analyte, unit)
+    limit = PLAUSIBLE_MAX_CMOL[analyte]
+    too_big = np.flatnonzero(cmol > limit)
+    if too_big.size:
+        shown = float(from_cmol_kg(limit, analyte, unit))
+
+        def problem(i: int) -> str:
+            return (f"{texts[i]} {unit} is implausibly large for exchangeable {analyte} "
+                    f"(plausible up to {shown:g} {unit}, common practice)")
+
+        unit_fix = (f"check the unit: the lab's unit goes in [samples.units] {analyte} = "
+                    f"'...' ({', '.join(CATION_UNITS)})")
+        if too_big.size * 2 > np.isfinite(cmol).sum():
+            raise InputError(f"most values look wrong for the unit: {problem(int(too_big[0]))}",
+                             file=name, row=int(rows[too_big[0]]), column=header, fix=unit_fix)
+        for i in too_big:
+            issues.append(_Issue(int(rows[i]), header, problem(int(i)),
+                                 "correct the cell, or " + unit_fix + skip_fix))
+    return cmol
+
+
+def _row_list(rows: Iterable[int], most: int = 10) -> str:
+    numbers = [int(r) for r in rows]
+    text = ", ".join(str(r) for r in numbers[:most])
+    return text + (f" and {len(numbers) - most} more" if len(numbers) > most else "")
+
+
+def _share_lonlat(x: np.ndarray, y: np.ndarray) -> float:
+    """Share of the located points whose x, y fit longitude/latitude (0 when none are located)."""
+    ok = np.isfinite(x) & np.isfinite(y)
+    if not ok.any():
+        return 0.0
+    return float(np.mean((np.abs(x[ok]) <= 180) & (np.abs(y[ok]) <= 90)))
+
+
+def _decide_crs(
+    settings: SampleSettings, file_crs: pyproj.CRS | None, x: np.ndarray, y: np.ndarray,
+    geographic: bool | None, name: str, column: str, first_row: int | None,
+) -> pyproj.CRS:
+    declared = None if settings.crs is None else parse_crs(settings.crs, key="samples.crs")
+    if file_crs is not None and declared is not None and not file_crs.equals(
+        declared, ignore_axis_order=True
+    ):
+        raise InputError(
+            f"the file's CRS is {describe_crs(file_crs)} but [samples] crs says "
+            f"{describe_crs(declared)}", file=name,
+            fix="remove [samples] crs to use the file's own, or correct the file's CRS",
+        )
+    crs = file_crs or declared
+    if crs is None:
+        # Named longitude/latitude: take them so (rows out of range are reported one by one);
+        # X/Y: when most fit.
+        if geographic is False or (geographic is None and _share_lonlat(x, y) < 0.5):
+            raise InputError(
+                "the coordinates are not longitude/latitude and no CRS is given", file=name,
+                row=first_row, column=column,
+                fix="set [samples] crs, e.g. crs = 'EPSG:28355'",
+            )
+        if geographic is None:
+            warnings.warn(
+                f"{name}: no CRS given; the coordinates in '{column}' look like longitude/"
+                "latitude, so WGS 84 (EPSG:4326) is assumed. Set [samples] crs to be sure",
+                DataWarning, stacklevel=4,
+            )
+        return pyproj.CRS.from_epsg(4326)
+    if crs.is_projected and _share_lonlat(x, y) == 1.0:
+        raise InputError(
+            f"the coordinates look like longitude/latitude in degrees, but the CRS is "
+            f"{describe_crs(crs)}", file=name, row=first_row, column=column,
+            fix="set [samples] crs = 'EPSG:4326' (or correct the coordinates)",
+        )
+    return crs
+
+
+def _coordinate_cells(
+    table: pd.DataFrame, column: str, rows: np.ndarray, decimal_comma: bool,
+    issues: list[_Issue],
+) -> np.ndarray:
+    """Coordinates of one table column; empty or non-numeric cells become issues (and NaN)."""
+    values, status, texts = _cells(table[column], decimal_comma=decimal_comma)
+    for i in np.flatnonzero(status != "ok"):
+        what = "empty" if status[i] == "empty" else f"'{texts[i]}', not a number"
+        issues.append(_Issue(int(rows[i]), column, f"the coordinate is {what}",
+                             "give the sample's location or set [samples] on_bad_row = 'skip'"))
+        values[i] = np.nan
+    return values
+
+
+def _range_issues(
+    x: np.ndarray, y: np.ndarray, rows: np.ndarray, crs: pyproj.CRS, xcol: str, ycol: str,
+    issues: list[_Issue],
+) -> None:
+    """Longitude/latitude out of range, apparently swapped, or 0, 0."""
+    if not crs.is_geographic:
+        return
+    skip_fix = " or set [samples] on_bad_row = 'skip'"
+    for i in np.flatnonzero(np.isfinite(x) & np.isfinite(y)):
+        lon, lat = x[i], y[i]
+        if abs(lon) <= 180 and abs(lat) <= 90:
+            if lon == 0 and lat == 0:
+                issues.append(_Issue(int(rows[i]), xcol, "the location is 0, 0: a missing "
+                                     "coordinate?", "give the sample's location" + skip_fix))
+            continue
+        if abs(lon) <= 90 < abs(lat) <= 180:
+            issues.append(_Issue(
+                int(rows[i]), ycol,
+                f"latitude {lat:g} is out of range and longitude {lon:g} would fit it: "
+                "longitude and latitude look swapped",
+                f"swap the columns (set [samples] x_column = '{ycol}', y_column = '{xcol}')"
+                + skip_fix,
+            ))
+        else:
+            col, v, lim = (xcol, lon, 180) if abs(lon) > 180 else (ycol, lat, 90)
+            issues.append(_Issue(int(rows[i]), col, f"{v:g} is outside -{lim} to {lim} degrees",
+                                 "correct the coordinate, or set [samples] crs if the "
+                                 "coordinates are projected" + skip_fix))
+
+
+def _vector_points(
+    geometry: gpd.GeoSeries, rows: np.ndarray, issues: list[_Issue]
+) -> tuple[np.ndarray, np.ndarray]:
+    """x, y of each feature's point; features without one become issues (and NaN)."""
+    geoms = geometry.to_numpy()
+    x = np.full(len(geoms), np.nan)
+    y = np.full(len(geoms), np.nan)
+    for i, g in enumerate(geoms):
+        if g is None or g.is_empty:
+            issues.append(_Issue(int(rows[i]), "geometry", "the feature has no location",
+                                 "give it a point, or set [samples] on_bad_row = 'skip'"))
+            continue
+        if g.geom_type == "MultiPoint" and len(g.geoms) == 1:
+            g = g.geoms[0]
+        if g.geom_type != "Point":
+            issues.append(_Issue(int(rows[i]), "geometry", f"the feature is a {g.geom_type}, "
+                                 "not a point", "give each sample as a point"))
+            continue
+        x[i], y[i] = g.x, g.y
+    return x, y
+
+
+# --------------------------------------------------------------------------- public
+
+
+def read_samples(settings: SampleSettings) -> SampleRead:
+    """Read and check the lab results named in ``settings``.
+
+    Parameters
+    ----------
+    settings
+        Where the file is and how to read it.
+
+    Returns
+    -------
+    SampleRead
+        The samples GeoDataFrame (in the file's or declared CRS), the columns
+        and units used, the rows passed over.
+
+    Raises
+    ------
+    InputError
+        The file is missing or unreadable; a needed column is absent; a row is
+        bad (empty or non-numeric value, negative or implausible amount,
+        duplicate sample ID, location out of range or swapped) unless
+        ``on_bad_row = "skip"``. The message names file, row, column and the fix.
+    SettingsError
+        A setting does not fit the file.
+    """
+    name = str(settings.file)
+    raw = _read_raw(settings, name)
+    table, rows = raw.table, raw.rows
+    if table.empty:
+        raise InputError("the file has no data rows", file=name,
+                         fix="export the lab results again, with one row per sample")
+    headers = list(table.columns)
+    columns, id_header, xy, geographic, methods = _map_columns(
+        headers, settings, name, raw.header_row, need_xy=raw.geometry is None
+    )
+    units = _units(columns, settings, name, raw.header_row)
+    issues: list[_Issue] = []
+
+    ids = [_id_text(v) for v in table[id_header].tolist()]
+    first_seen: dict[str, int] = {}
+    for i, sid in enumerate(ids):
+        if not sid:
+            issues.append(_Issue(int(rows[i]), id_header, "the sample ID is empty",
+                                 "give every sample an ID, or set [samples] on_bad_row = 'skip'"))
+        elif sid in first_seen:
+            issues.append(_Issue(
+                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[sid]}",
+                "give each sample its own ID, or set [samples] on_bad_row = 'skip' to keep "
+                "the first",
+            ))
+        else:
+            first_seen[sid] = int(rows[i])
+
+    values = {
+        a: _analyte_values(a, columns[a], units[a], table[columns[a]], rows, settings, name,
+                           raw.decimal_comma, issues)
+        for a in CANONICAL if a in columns
+    }
+
+    if raw.geometry is not None:
+        x, y = _vector_points(raw.geometry, rows, issues)
+        xcol = ycol = location_column = "geometry"
+        crs = _decide_crs(settings, raw.crs, x, y, None, name, "geometry", None)
+    else:
+        assert xy is not None
+        xcol, ycol = xy
+        x = _coordinate_cells(table, xcol, rows, raw.decimal_comma, issues)
+        y = _coordinate_cells(table, ycol, rows, raw.decimal_comma, issues)
+        location_column = f"{xcol}/{ycol}"
+        crs = _decide_crs(settings, None, x, y, geographic, name, xcol, int(rows[0]))
+    _range_issues(x, y, rows, crs, xcol, ycol, issues)
+
+    bad_rows = sorted({i.row for i in issues})
+    skipped: list[tuple[int, str]] = []
+    if issues:
+        if settings.on_bad_row == "stop":
+            order = {h: n for n, h in enumerate(headers)}
+            first = min(issues, key=lambda i: (i.row, order.get(i.column or "", -1)))
+            raise InputError(first.problem, file=name, row=first.row, column=first.column,
+                             fix=first.fix)
+        for r in bad_rows:
+            reasons = [f"column '{i.column}': {i.problem}" for i in issues if i.row == r]
+            skipped.append((r, "; ".join(reasons)))
+        if len(bad_rows) == len(rows):
+            r, reason = skipped[0]
+            raise InputError(f"every row is bad, e.g. {reason}", file=name, row=r,
+                             fix="check the file and the [samples] settings")
+        warnings.warn(
+            f"{name}: {len(skipped)} bad row(s) skipped: "
+            + "; ".join(f"row {r}: {why}" for r, why in skipped[:20])
+            + (f"; and {len(skipped) - 20} more" if len(skipped) > 20 else ""),
+            DataWarning, stacklevel=2,
+        )
+    keep = ~np.isin(rows, bad_rows)
+
+    used = set(columns.values()) | {id_header} | (set(xy) if xy else set())
+    data: dict[str, Any] = {
+        "sample_id": np.array(ids, dtype=object)[keep],
+        "source_row": rows[keep].astype(int),
+    }
+    for analyte, v in values.items():
+        data[analyte] = v[keep]
+    for header in headers:
+        if header in used:
+            continue
+        out_name = f"{header}_lab" if header in _RESERVED else header
+        data[out_name] = table[header].to_numpy()[keep]
+    points = gpd.points_from_xy(x[keep], y[keep], crs=crs)
+    samples = gpd.GeoDataFrame(data, geometry=points, crs=crs)
+    samples.attrs["location_column"] = location_column
+    logger.info(
+        "%s: %d samples, analytes %s, CRS %s", name, len(samples),
+        ", ".join(f"{a} <- '{h}' ({units[a] or 'no unit'})" for a, h in columns.items()),
+        describe_crs(crs),
+    )
+    return SampleRead(
+        samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
+        crs=crs, file=Path(settings.file),
+    )
+
+
+def prepare_samples(
+    samples: gpd.GeoDataFrame,
+    *,
+    paddocks: gpd.GeoDataFrame,
+    working_crs: pyproj.CRS,
+    settings: SampleSettings,
+    file: str,
+) -> gpd.GeoDataFrame:
+    """Reproject samples, name each one's paddock and merge (or refuse) near-duplicates.
+
+    Parameters
+    ----------
+    samples
+        As :func:`read_samples` returns them.
+    paddocks
+        GeoDataFrame with a ``paddock`` column and polygons, with a CRS.
+    working_crs
+        The run's metric CRS (see :func:`geosoil.crs.choose_working_crs`).
+    settings
+        ``on_bad_row``, ``duplicates`` and ``duplicate_distance_m`` are used.
+    file
+        The samples file, named in messages.
+
+    Returns
+    -------
+    GeoDataFrame
+        In ``working_crs``, with a ``paddock`` column; samples outside every
+        paddock dropped (``on_bad_row = "skip"``) and near-duplicates merged
+        (``duplicates = "average"``: analytes averaged, location the mean, IDs
+        joined as "A1+A2", ``source_row`` of the first), each with a DataWarning.
+
+    Raises
+    ------
+    InputError
+        A sample lies outside every paddock (or none lies inside any), or two
+        samples are closer than ``duplicate_distance_m`` with ``duplicates = "stop"``.
+    CRSError
+        The samples or the paddocks have no CRS.
+    """
+    location = samples.attrs.get("location_column")
+    if samples.crs is None or paddocks.crs is None:
+        raise CRSError("the samples and the paddocks must both have a CRS")
+    source_geographic = samples.crs.is_geographic
+    pts = samples.to_crs(working_crs).reset_index(drop=True)
+    pads = paddocks[["paddock", paddocks.geometry.name]].to_crs(working_crs)
+    pts = _assign_paddocks(pts, pads, samples, source_geographic, settings, file, location)
+    pts = _near_duplicates(pts, settings, file, location)
+    pts.attrs["location_column"] = location
+    return pts
+
+
+def _assign_paddocks(
+    pts: gpd.GeoDataFrame, pads: gpd.GeoDataFrame, original: gpd.GeoDataFrame,
+    source_geographic: bool, settings: SampleSettings, file: str, location: str | None,
+) -> gpd.GeoDataFrame:
+    tree = pads.sindex
+    hit_pt, hit_pad = tree.query(pts.geometry.to_numpy(), predicate="intersects")
+    order = np.lexsort((hit_pad, hit_pt))
+    hit_pt, hit_pad = hit_pt[order], hit_pad[order]
+    first = np.unique(hit_pt, return_index=True)
+    paddock = np.full(len(pts), None, dtype=object)
+    paddock[first[0]] = pads["paddock"].to_numpy()[hit_pad[first[1]]]
+    several = np.unique(hit_pt[1:][hit_pt[1:] == hit_pt[:-1]])
+    if several.size:
+        warnings.warn(
+            f"{file}: samples on rows {_row_list(pts['source_row'].to_numpy()[several])} lie in "
+            "more than one paddock (overlapping boundaries); each was given the first",
+            DataWarning, stacklevel=3,
+        )
+    outside = np.flatnonzero(pd.isna(paddock))
+    pts = pts.assign(paddock=paddock)
+    if outside.size == 0:
+        return pts
+    if outside.size == len(pts):
+        raise InputError(
+            f"none of the {len(pts)} samples lies in a paddock: the CRS of the samples or of "
+            "the paddocks is probably wrong", file=file, row=int(pts["source_row"].iloc[0]),
+            column=location,
+            fix="check [samples] crs and the paddock file's CRS (or that the files belong "
+            "together)",
+        )
+    pad_union = shapely.union_all(pads.geometry.to_numpy())
+    problems = []
+    for i in outside:
+        g = pts.geometry.iloc[i]
+        problem = f"sample '{pts['sample_id'].iloc[i]}' lies outside every paddock " \
+                  f"({g.distance(pad_union):.0f} m from the nearest)"
+        if source_geographic:
+            o = original.geometry.iloc[i]
+            swapped = gpd.GeoSeries(
+                [shapely.Point(o.y, o.x)], crs=original.crs
+            ).to_crs(pts.crs).iloc[0]
+            if abs(o.y) <= 180 and abs(o.x) <= 90 and swapped.intersects(pad_union):
+                problem += "; with longitude and latitude swapped it would lie inside one"
+        problems.append((int(pts["source_row"].iloc[i]), problem))
+    if settings.on_bad_row == "stop":
+        row, problem = problems[0]
+        raise InputError(
+            problem, file=file, row=row, column=location,
+            fix="check its coordinates and [samples] crs, or set [samples] on_bad_row = 'skip'",
+        )
+    warnings.warn(
+        f"{file}: {len(problems)} sample(s) outside every paddock skipped: "
+        + "; ".join(f"row {r}: {p}" for r, p in problems),
+        DataWarning, stacklevel=3,
+    )
+    return pts.drop(index=pts.index[outside]).reset_index(drop=True)
+
+
+def _near_duplicates(
+    pts: gpd.GeoDataFrame, settings: SampleSettings, file: str, location: str | None
+) -> gpd.GeoDataFrame:
+    xy = np.column_stack([pts.geometry.x.to_numpy(), pts.geometry.y.to_numpy()])
+    pairs = cKDTree(xy).query_pairs(r=settings.duplicate_distance_m, output_type="ndarray")
+    if len(pairs) == 0:
+        return pts
+    rows = pts["source_row"].to_numpy()
+    ids = pts["sample_id"].astype(str).to_numpy()
+    n = len(pts)
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _count, label = connected_components(graph, directed=False)
+    groups = [np.flatnonzero(label == g) for g in np.unique(label)]
+    groups = [g for g in groups if g.size > 1]
+    if settings.duplicates == "stop":
+        a, b = pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))][0]
+        gap = float(np.hypot(*(xy[a] - xy[b])))
+        raise InputError(
+            f"samples '{ids[a]}' (row {rows[a]}) and '{ids[b]}' (row {rows[b]}) are "
+            f"{gap:.2f} m apart; kriging needs distinct points", file=file, row=int(rows[b]),
+            column=location,
+            fix="correct the location, or set [samples] duplicates = 'average' to merge samples "
+            f"closer than duplicate_distance_m = {settings.duplicate_distance_m:g} m",
+        )
+    analytes = [a for a in CANONICAL if a in pts.columns]
+    drop: list[int] = []
+    merged = []
+    geoms = pts.geometry.to_numpy().copy()
+    for g in groups:
+        keep, rest = g[0], g[1:]
+        for a in analytes:
+            vals = pts[a].to_numpy(dtype=float)[g]
+            pts.loc[keep, a] = np.nanmean(vals) if np.isfinite(vals).any() else np.nan
+        geoms[keep] = shapely.Point(*xy[g].mean(axis=0))
+        pts.loc[keep, "sample_id"] = "+".join(ids[g])
+        drop.extend(rest.tolist())
+        merged.append(f"{' + '.join(f'{ids[i]} (row {rows[i]})' for i in g)}")
+    pts = pts.set_geometry(gpd.GeoSeries(geoms, crs=pts.crs, index=pts.index))
+    warnings.warn(
+        f"{file}: samples closer than {settings.duplicate_distance_m:g} m merged by averaging: "
+        + "; ".join(merged),
+        DataWarning, stacklevel=3,
+    )
+    return pts.drop(index=pts.index[drop]).reset_index(drop=True)

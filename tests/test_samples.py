@@ -1,0 +1,665 @@
+"""Tests for geosoil.samples: reading lab files and every kind of bad input.
+
+Every fixture is a tiny file written into tmp_path by the test itself. The soil values in
+them are invented; checks against the outside name their source.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import openpyxl
+import pandas as pd
+import pyproj
+import pytest
+from shapely.geometry import Point, Polygon, box
+
+from geosoil.chemistry import derive
+from geosoil.errors import DataWarning, InputError, SettingsError
+from geosoil.samples import SampleSettings, prepare_samples, read_samples
+from geosoil.settings import from_mapping
+
+HEADER = (
+    "Sample ID,Longitude,Latitude,Exch Ca (meq/100g),Exch Mg (meq/100g),Exch K (meq/100g),"
+    "Exch Na (meq/100g),Exch Al (meq/100g),pH (water),Notes"
+)
+ROWS = [
+    "A1,147.0010,-35.0010,6.0,2.0,0.5,0.4,0.1,5.9,north end",
+    "A2,147.0020,-35.0020,5.0,2.5,0.4,0.6,0.2,5.6,",
+    "A3,147.0030,-35.0030,7.0,1.5,0.6,0.2,0.0,6.2,wet",
+    "A4,147.0040,-35.0040,4.0,3.0,0.3,1.2,0.3,5.4,",
+]
+PADDOCKS = gpd.GeoDataFrame(
+    {"paddock": ["Home"]}, geometry=[box(146.99, -35.01, 147.01, -34.99)], crs=4326
+)
+UTM55 = pyproj.CRS.from_epsg(32755)
+
+
+def write(tmp_path: Path, text: str, name: str = "lab.csv", encoding: str = "utf-8") -> Path:
+    path = tmp_path / name
+    path.write_bytes(text.encode(encoding))
+    return path
+
+
+def lab(tmp_path: Path, rows=None, header=HEADER, name="lab.csv") -> Path:
+    return write(tmp_path, "\n".join([header, *(ROWS if rows is None else rows)]) + "\n", name)
+
+
+def read(path: Path, **settings):
+    return read_samples(SampleSettings(file=path, **settings))
+
+
+def error_of(path: Path, **settings) -> InputError:
+    with pytest.raises(InputError) as info:
+        read(path, **settings)
+    return info.value
+
+
+def assert_names(err: InputError, *, file, row, column) -> None:
+    text = str(err)
+    assert str(file) in text
+    if row is not None:
+        assert f"row {row}" in text and err.row == row
+    if column is not None:
+        assert f"column '{column}'" in text and err.column == column
+    assert "Fix:" in text
+
+
+# --------------------------------------------------------------------------- good files
+
+
+def test_reads_a_plain_csv(tmp_path):
+    path = lab(tmp_path)
+    got = read(path)
+    s = got.samples
+    assert s.sample_id.tolist() == ["A1", "A2", "A3", "A4"]
+    assert s.source_row.tolist() == [2, 3, 4, 5]  # header = row 1
+    assert s.ca.tolist() == [6.0, 5.0, 7.0, 4.0]  # meq/100 g = cmol(+)/kg [derived]
+    assert got.columns["ca"] == "Exch Ca (meq/100g)" and got.units["ca"] == "meq/100g"
+    assert got.methods["ph"] == "water" and got.units["ph"] is None
+    assert got.crs.equals(pyproj.CRS.from_epsg(4326))
+    assert s.crs.equals(got.crs)
+    assert s.geometry.iloc[0].x == pytest.approx(147.001) and s.geometry.iloc[0].y == -35.001
+    assert s.Notes.tolist() == ["north end", "", "wet", ""]  # kept as the lab wrote it
+    assert got.skipped == [] and got.file == path
+
+
+def test_semicolons_decimal_commas_and_bom(tmp_path):
+    text = "\ufeff" + "\n".join(
+        r.replace(",", ";") for r in [HEADER] + [r.replace(".", "#") for r in ROWS]
+    ).replace("#", ",")
+    got = read(write(tmp_path, text + "\n"))
+    assert got.samples.ca.tolist() == [6.0, 5.0, 7.0, 4.0]
+    assert got.samples.geometry.iloc[1].x == pytest.approx(147.002)
+
+
+def test_tab_separated(tmp_path):
+    text = "\n".join(r.replace(",", "\t") for r in [HEADER, *ROWS]) + "\n"
+    assert len(read(write(tmp_path, text, "lab.txt")).samples) == 4
+
+
+def test_blank_lines_keep_the_file_row_numbers(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], "", ROWS[1].replace(",5.0,", ",x,")])
+    assert_names(error_of(path), file=path, row=4, column="Exch Ca (meq/100g)")
+
+
+def test_units_from_headers_are_converted(tmp_path):
+    # REFERENCES.md: 200.39 mg Ca, 121.53 mg Mg, 390.98 mg K per cmol(+)/kg [derived];
+    # 10 mmol(+)/kg = 1 cmol(+)/kg by definition.
+    header = "Sample,Lon,Lat,Ca (mg/kg),Mg ppm,K_mg_kg,Na (mmol(+)/kg),pH"
+    path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,200.39,121.53,390.98,25,6.1"])
+    got = read(path)
+    row = got.samples.iloc[0]
+    assert row.ca == pytest.approx(1.0, rel=1e-4)
+    assert row.mg == pytest.approx(1.0, rel=1e-4)
+    assert row.k == pytest.approx(1.0, rel=1e-4)
+    assert row.na == pytest.approx(2.5)
+    assert got.units == {"ca": "mg/kg", "mg": "mg/kg", "k": "mg/kg", "na": "mmol/kg", "ph": None}
+
+
+def test_settings_override_columns_units_and_default_unit(tmp_path):
+    header = "Site,E,N,Calc,Mg,K,Na"
+    path = lab(tmp_path, header=header, rows=["S1,500100,6100100,400.78,1,0.5,0.5"])
+    got = read(path, id_column="Site", x_column="E", y_column="N", crs="EPSG:32755",
+               columns={"ca": "Calc"}, units={"ca": "ppm"}, default_unit="meq/100 g")
+    row = got.samples.iloc[0]
+    assert row.ca == pytest.approx(2.0, rel=1e-4)  # 400.78 mg/kg / 200.39 (REFERENCES.md)
+    assert got.units["ca"] == "mg/kg" and got.units["mg"] == "meq/100g"
+    assert got.crs.to_epsg() == 32755 and row.geometry.x == 500100
+
+
+@pytest.mark.parametrize(
+    "crs", ["EPSG:28355", "28355", "urn:ogc:def:crs:EPSG::28355",
+            pyproj.CRS.from_epsg(28355).to_wkt()]
+)
+def test_projected_coordinates_with_a_stated_crs(tmp_path, crs):
+    header = "Sample,Easting,Northing,Ca,Mg,K,Na"
+    path = lab(tmp_path, header=header, rows=["S1,590000,6126000,5,2,0.5,0.3"])
+    got = read(path, crs=crs)
+    assert got.crs.equals(pyproj.CRS.from_epsg(28355))
+
+
+def test_xy_in_degrees_without_crs_assume_wgs84_with_a_warning(tmp_path):
+    path = lab(tmp_path, header="ID,X,Y,Ca,Mg,K,Na", rows=["S1,147.001,-35.001,5,2,0.5,0.3"])
+    with pytest.warns(DataWarning, match="WGS 84"):
+        got = read(path)
+    assert got.crs.to_epsg() == 4326
+
+
+def test_other_columns_are_kept_and_clashing_names_renamed(tmp_path):
+    header = "Sample,Lon,Lat,Ca,Ca %,paddock,Depth (cm)"
+    path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,5,55.0,Back,0-10"])
+    s = read(path).samples
+    assert s["Ca %"].tolist() == ["55.0"] and s["Depth (cm)"].tolist() == ["0-10"]
+    assert s["paddock_lab"].tolist() == ["Back"] and "paddock" not in s.columns
+
+
+def test_empty_cells_allowed_for_optional_analytes(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0].replace(",0.1,5.9", ",,5.9")])
+    assert np.isnan(read(path).samples.al.iloc[0])
+
+
+def test_below_detection_limit_taken_as_half_with_a_warning(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0].replace(",0.1,5.9", ",<0.2,5.9")])
+    with pytest.warns(DataWarning, match="below the detection limit"):
+        got = read(path)
+    assert got.samples.al.iloc[0] == pytest.approx(0.1)  # half the limit: common practice
+    with pytest.warns(DataWarning, match="taken as the limit"):
+        assert read(path, below_detection="limit").samples.al.iloc[0] == pytest.approx(0.2)
+
+
+def test_below_detection_limit_can_stop(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0].replace(",0.1,5.9", ",<0.2,5.9")])
+    err = error_of(path, below_detection="stop")
+    assert_names(err, file=path, row=2, column="Exch Al (meq/100g)")
+
+
+def test_excel_rows_are_numbered_as_in_the_sheet(tmp_path):
+    path = tmp_path / "lab.xlsx"
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.title = "Results"
+    sheet.append([])  # rows 1-2 left empty by the lab
+    sheet.append([])
+    sheet.append(["Sample", "Lon", "Lat", "Ca (cmol(+)/kg)", "Mg", "K", "Na"])  # row 3
+    sheet.append(["S1", 147.001, -35.001, 5.5, 2, 0.5, 0.3])  # row 4
+    sheet.append([17, 147.002, -35.002, "n.d.", 2, 0.5, 0.3])  # row 5
+    book.save(path)
+    err = error_of(path, sheet_or_layer="Results")
+    assert_names(err, file=path, row=5, column="Ca (cmol(+)/kg)")
+
+
+def test_excel_good_workbook_and_numeric_ids(tmp_path):
+    path = tmp_path / "lab.xlsx"
+    pd.DataFrame({"ID": [101, 102], "Lon": [147.001, 147.002], "Lat": [-35.001, -35.002],
+                  "Ca (meq/100g)": [5.5, 6.0], "Mg": [2.0, 2.1], "K": [0.5, 0.4],
+                  "Na": [0.3, 0.2]}).to_excel(path, index=False, sheet_name="Data")
+    got = read(path)
+    assert got.samples.sample_id.tolist() == ["101", "102"]
+    assert got.samples.source_row.tolist() == [2, 3]
+    assert got.samples.ca.tolist() == [5.5, 6.0]
+
+
+def test_excel_missing_sheet(tmp_path):
+    path = tmp_path / "lab.xlsx"
+    pd.DataFrame({"ID": [1]}).to_excel(path, index=False, sheet_name="Data")
+    err = error_of(path, sheet_or_layer="Results")
+    assert "no sheet 'Results'" in str(err) and "Data" in str(err) and str(path) in str(err)
+
+
+def _points(crs=4326, **columns):
+    xy = columns.pop("xy")
+    return gpd.GeoDataFrame(columns, geometry=[Point(x, y) for x, y in xy], crs=crs)
+
+
+def test_geojson_features_numbered_from_1(tmp_path):
+    path = tmp_path / "lab.geojson"
+    _points(ID=["A", "B"], Ca=[5.0, -1.0], Mg=[2.0, 2.0], K=[0.5, 0.5], Na=[0.3, 0.3],
+            xy=[(147.001, -35.001), (147.002, -35.002)]).to_file(path)
+    assert_names(error_of(path), file=path, row=2, column="Ca")
+
+
+def test_geojson_reads(tmp_path):
+    path = tmp_path / "lab.geojson"
+    _points(ID=["A", "B"], Ca=[5.0, 4.0], Mg=[2.0, 2.0], K=[0.5, 0.5], Na=[0.3, 0.3],
+            xy=[(147.001, -35.001), (147.002, -35.002)]).to_file(path)
+    got = read(path)
+    assert got.crs.to_epsg() == 4326 and got.samples.source_row.tolist() == [1, 2]
+
+
+def test_geopackage_layers(tmp_path):
+    path = tmp_path / "lab.gpkg"
+    pts = _points(crs=28355, Sample=["A", "B"], Ca=[5.0, 4.0], Mg=[2.0, 2.0], K=[0.5, 0.5],
+                  Na=[0.3, 0.3], xy=[(590000, 6126000), (590050, 6126000)])
+    pts.to_file(path, layer="topsoil")
+    pts.to_file(path, layer="subsoil")
+    err = error_of(path)
+    assert "2 layers" in str(err) and "sheet_or_layer" in str(err) and str(path) in str(err)
+    got = read(path, sheet_or_layer="subsoil")
+    assert got.crs.equals(pyproj.CRS.from_epsg(28355)) and len(got.samples) == 2
+    assert "no layer 'deep'" in str(error_of(path, sheet_or_layer="deep"))
+
+
+def test_shapefile_without_prj_needs_a_crs(tmp_path):
+    path = tmp_path / "lab.shp"
+    pts = _points(crs=None, ID=["A"], Ca=[5.0], Mg=[2.0], K=[0.5], Na=[0.3],
+                  xy=[(590000, 6126000)])
+    with pytest.warns(UserWarning, match="crs"):  # GDAL warns when writing without a .prj
+        pts.to_file(path)
+    err = error_of(path)
+    assert "no CRS" in str(err) and "crs" in err.fix and str(path) in str(err)
+    assert read(path, crs="EPSG:28355").crs.to_epsg() == 28355
+
+
+def test_vector_crs_and_declared_crs_must_agree(tmp_path):
+    path = tmp_path / "lab.gpkg"
+    _points(crs=28355, ID=["A"], Ca=[5.0], Mg=[2.0], K=[0.5], Na=[0.3],
+            xy=[(590000, 6126000)]).to_file(path)
+    err = error_of(path, crs="EPSG:28356")
+    assert "EPSG:28355" in str(err) and "EPSG:28356" in str(err)
+
+
+def test_vector_feature_that_is_not_a_point(tmp_path):
+    path = tmp_path / "lab.geojson"
+    gpd.GeoDataFrame(
+        {"ID": ["A", "B"], "Ca": [5.0, 4.0], "Mg": [2.0, 2.0], "K": [0.5, 0.5], "Na": [0.3, 0.3]},
+        geometry=[Point(147.001, -35.001), Polygon([(147, -35), (147.1, -35), (147, -35.1)])],
+        crs=4326,
+    ).to_file(path)
+    assert_names(error_of(path), file=path, row=2, column="geometry")
+
+
+def test_zipped_shapefile(tmp_path):
+    import zipfile
+
+    folder = tmp_path / "shp"
+    folder.mkdir()
+    _points(crs=28355, ID=["A"], Ca=[5.0], Mg=[2.0], K=[0.5], Na=[0.3],
+            xy=[(590000, 6126000)]).to_file(folder / "lab.shp")
+    path = tmp_path / "lab.zip"
+    with zipfile.ZipFile(path, "w") as z:
+        for f in folder.iterdir():
+            z.write(f, f.name)
+    assert read(path).crs.to_epsg() == 28355
+
+
+def test_input_files_are_never_modified(tmp_path):
+    csv = lab(tmp_path)
+    gpkg = tmp_path / "lab.gpkg"
+    _points(crs=28355, ID=["A"], Ca=[5.0], Mg=[2.0], K=[0.5], Na=[0.3],
+            xy=[(590000, 6126000)]).to_file(gpkg)
+
+    def state():
+        return {p.name: (hashlib.sha256(p.read_bytes()).hexdigest(), p.stat().st_mtime_ns)
+                for p in tmp_path.iterdir()}
+
+    before = state()
+    read(csv)
+    read(gpkg)
+    with pytest.raises(InputError):
+        read(csv, columns={"ca": "nope"})
+    assert state() == before
+
+
+def test_same_soil_in_mg_kg_and_meq_per_100g_files_gives_the_same_saturations(tmp_path):
+    # Ca 5, Mg 2, K 0.5, Na 0.8 cmol(+)/kg written in mg/kg with REFERENCES.md factors
+    # (200.39, 121.53, 390.98, 229.90 mg/kg per cmol(+)/kg [derived]).
+    meq = lab(tmp_path, header="ID,Lon,Lat,Ca (meq/100g),Mg (meq/100g),K (meq/100g),"
+              "Na (meq/100g),Acidity (meq/100g)", rows=["S1,147.001,-35.001,5,2,0.5,0.8,0.4"],
+              name="meq.csv")
+    mg = lab(tmp_path, header="ID,Lon,Lat,Ca (mg/kg),Mg (mg/kg),K (mg/kg),Na (mg/kg),"
+             "Acidity (meq/100g)", rows=["S1,147.001,-35.001,1001.95,243.06,195.49,183.92,0.4"],
+             name="mg.csv")
+    a = derive(read(meq).samples).iloc[0]
+    b = derive(read(mg).samples).iloc[0]
+    for column in ("ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "base_sat"):
+        assert a[column] == pytest.approx(b[column], rel=1e-4)
+
+
+# --------------------------------------------------------------------------- bad input
+
+
+def test_missing_file(tmp_path):
+    path = tmp_path / "nowhere.csv"
+    err = error_of(path)
+    assert str(path) in str(err) and "does not exist" in str(err) and "[samples] file" in err.fix
+
+
+def test_folder_instead_of_file(tmp_path):
+    assert "folder" in str(error_of(tmp_path))
+
+
+@pytest.mark.parametrize("name", ["lab.docx", "lab", "lab.xls"])
+def test_unreadable_format_by_name(tmp_path, name):
+    path = write(tmp_path, "x", name)
+    err = error_of(path)
+    assert str(path) in str(err) and err.fix
+
+
+@pytest.mark.parametrize("name", ["lab.xlsx", "lab.geojson", "lab.gpkg"])
+def test_unreadable_content(tmp_path, name):
+    path = write(tmp_path, "this is not what it claims to be", name)
+    err = error_of(path)
+    assert str(path) in str(err) and "cannot be read" in str(err)
+
+
+def test_not_utf8(tmp_path):
+    text = "\n".join([HEADER, ROWS[0], ROWS[1] + "Pr\u00e9"]) + "\n"
+    path = write(tmp_path, text, encoding="cp1252")
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column=None)
+    assert "UTF-8" in str(err)
+
+
+def test_ragged_row(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1] + ",extra,more"])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column=None)
+    assert "fields" in str(err)
+
+
+def test_empty_file_and_header_only(tmp_path):
+    assert "empty" in str(error_of(write(tmp_path, "")))
+    assert "no data rows" in str(error_of(lab(tmp_path, rows=[])))
+
+
+def test_duplicate_header(tmp_path):
+    path = lab(tmp_path, header="ID,Lon,Lat,Ca,Ca,Mg,K,Na", rows=["S1,147,-35,5,5,2,0.5,0.3"])
+    assert_names(error_of(path), file=path, row=1, column="Ca")
+
+
+def test_no_id_column(tmp_path):
+    path = lab(tmp_path, header="Where,Lon,Lat,Ca,Mg,K,Na", rows=["S1,147,-35,5,2,0.5,0.3"])
+    err = error_of(path)
+    assert_names(err, file=path, row=1, column=None)
+    assert "sample ID" in str(err) and "id_column" in err.fix
+
+
+def test_no_coordinate_columns(tmp_path):
+    path = lab(tmp_path, header="ID,Ca,Mg,K,Na", rows=["S1,5,2,0.5,0.3"])
+    err = error_of(path)
+    assert "coordinate" in str(err) and "x_column" in err.fix and "row 1" in str(err)
+
+
+def test_no_analyte_column(tmp_path):
+    path = lab(tmp_path, header="ID,Lon,Lat,Colour,Ca %", rows=["S1,147,-35,red,50"])
+    err = error_of(path)
+    assert "no analyte" in str(err) and "[samples.columns]" in err.fix
+    assert "Ca %" in str(err)  # says why that header was passed over
+
+
+def test_mapped_column_not_in_file(tmp_path):
+    path = lab(tmp_path)
+    err = error_of(path, columns={"ca": "Exch Ca (meq/100 g)"})
+    assert_names(err, file=path, row=1, column="Exch Ca (meq/100 g)")
+    assert "did you mean 'Exch Ca (meq/100g)'" in err.fix
+    assert_names(error_of(path, id_column="Sample"), file=path, row=1, column="Sample")
+
+
+def test_ambiguous_columns(tmp_path):
+    header = "ID,Lon,Lat,Ca (mg/kg),Calcium (meq/100g),Mg,K,Na"
+    path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,1002,5,2,0.5,0.3"])
+    err = error_of(path)
+    assert "'Ca (mg/kg)' and 'Calcium (meq/100g)'" in str(err) and "[samples.columns]" in err.fix
+    got = read(path, columns={"ca": "Calcium (meq/100g)"})
+    assert got.samples.ca[0] == 5.0 and got.samples["Ca (mg/kg)"][0] == "1002"
+
+
+@pytest.mark.parametrize("value", ["abc", "1.2.3", "n.d.", "inf"])
+def test_non_numeric_value(tmp_path, value):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace(",2.5,", f",{value},")])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Exch Mg (meq/100g)")
+    assert "not a number" in str(err)
+
+
+def test_empty_value(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1], ROWS[2].replace(",7.0,", ",,")])
+    err = error_of(path)
+    assert_names(err, file=path, row=4, column="Exch Ca (meq/100g)")
+    assert "empty" in str(err) and "empty_allowed" in err.fix
+
+
+def test_negative_concentration(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1], ROWS[2], ROWS[3].replace(",1.2,", ",-1.2,")])
+    err = error_of(path)
+    assert_names(err, file=path, row=5, column="Exch Na (meq/100g)")
+    assert "negative" in str(err)
+
+
+def test_duplicate_sample_id(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace("A2", "A1")])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Sample ID")
+    assert "also on row 2" in str(err)
+
+
+def test_empty_sample_id(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace("A2", "")])
+    assert_names(error_of(path), file=path, row=3, column="Sample ID")
+
+
+def test_implausible_magnitude_for_the_unit(tmp_path):
+    # Ca = 1500 declared as cmol(+)/kg: above the plausible bound (common practice).
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace(",5.0,", ",1500,"), ROWS[2], ROWS[3]])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Exch Ca (meq/100g)")
+    assert "implausibly large" in str(err) and "[samples.units]" in err.fix
+
+
+def test_a_whole_column_in_the_wrong_unit_stops_even_when_skipping(tmp_path):
+    header = "ID,Lon,Lat,Ca,Mg,K,Na"
+    path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,1002,243,195,92",
+                                              "S2,147.002,-35.002,1503,300,180,80"])
+    err = error_of(path, on_bad_row="skip")
+    assert_names(err, file=path, row=2, column="Ca")
+    assert "unit" in str(err) and "ca = '...'" in err.fix
+
+
+def test_ph_out_of_range(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0].replace(",5.9,", ",59,")])
+    assert_names(error_of(path), file=path, row=2, column="pH (water)")
+
+
+def test_latitude_out_of_range(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace("-35.0020", "-95.0020")])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Latitude")
+    assert "outside" in str(err)
+
+
+def test_longitude_and_latitude_swapped(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], "A2,-35.0020,147.0020,5.0,2.5,0.4,0.6,0.2,5.6,"])
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Latitude")
+    assert "swapped" in str(err) and "x_column = 'Latitude'" in err.fix
+
+
+def test_zero_zero_location(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], "A2,0,0,5.0,2.5,0.4,0.6,0.2,5.6,"])
+    assert_names(error_of(path), file=path, row=3, column="Longitude")
+
+
+def test_empty_coordinate(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], "A2,147.002,,5.0,2.5,0.4,0.6,0.2,5.6,"])
+    assert_names(error_of(path), file=path, row=3, column="Latitude")
+
+
+def test_projected_coordinates_without_crs(tmp_path):
+    path = lab(tmp_path, header="ID,Easting,Northing,Ca,Mg,K,Na",
+               rows=["S1,590000,6126000,5,2,0.5,0.3"])
+    err = error_of(path)
+    assert_names(err, file=path, row=2, column="Easting")
+    assert "crs = 'EPSG:" in err.fix
+
+
+def test_degrees_with_a_projected_crs(tmp_path):
+    path = lab(tmp_path)
+    err = error_of(path, crs="EPSG:28355")
+    assert_names(err, file=path, row=2, column="Longitude")
+    assert "EPSG:4326" in err.fix
+
+
+def test_skip_bad_rows_lists_them(tmp_path):
+    rows = [ROWS[0], ROWS[1].replace(",2.5,", ",abc,"), ROWS[2],
+            ROWS[3].replace(",1.2,", ",-1.2,").replace("-35.0040", "-95")]
+    path = lab(tmp_path, rows=rows)
+    with pytest.warns(DataWarning, match="2 bad row"):
+        got = read(path, on_bad_row="skip")
+    assert got.samples.sample_id.tolist() == ["A1", "A3"]
+    assert [r for r, _ in got.skipped] == [3, 5]
+    assert "not a number" in got.skipped[0][1] and "Exch Mg" in got.skipped[0][1]
+    assert "negative" in got.skipped[1][1] and "Latitude" in got.skipped[1][1]
+
+
+def test_skip_keeps_the_first_of_duplicate_ids(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace("A2", "A1"), ROWS[2]])
+    with pytest.warns(DataWarning):
+        got = read(path, on_bad_row="skip")
+    assert got.samples.source_row.tolist() == [2, 4]
+
+
+def test_every_row_bad_stops_even_when_skipping(tmp_path):
+    path = lab(tmp_path, rows=[ROWS[0].replace(",6.0,", ",x,")])
+    assert_names(error_of(path, on_bad_row="skip"), file=path, row=2, column=None)
+
+
+def test_ecec_lacking_a_component_names_file_row_and_column(tmp_path):
+    header = "Sample ID,Longitude,Latitude,Exch Ca,Exch Mg,Exch K,pH (water)"
+    path = lab(tmp_path, header=header, rows=["A1,147.001,-35.001,6,2,0.5,6.1"])
+    got = read(path)
+    with pytest.raises(InputError) as info:
+        derive(got.samples, file=str(got.file), headers=got.columns,
+               ph_method=got.methods.get("ph"))
+    assert_names(info.value, file=path, row=2, column="na, acidity")
+    assert "Na" in info.value.problem and "lab CEC" in info.value.fix
+
+
+# --------------------------------------------------------------------------- prepare
+
+
+def _read_lonlat(tmp_path, rows):
+    return read(lab(tmp_path, rows=rows))
+
+
+def test_prepare_reprojects_and_names_paddocks(tmp_path):
+    got = read(lab(tmp_path))
+    out = prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55,
+                          settings=SampleSettings(file=got.file), file=str(got.file))
+    assert out.crs.equals(UTM55)
+    assert out.paddock.tolist() == ["Home"] * 4
+    # The same points, transformed independently (always_xy).
+    t = pyproj.Transformer.from_crs(4326, UTM55, always_xy=True)
+    x, y = t.transform(147.001, -35.001)
+    assert out.geometry.iloc[0].x == pytest.approx(x) and out.geometry.iloc[0].y == pytest.approx(y)
+    assert got.samples.crs.to_epsg() == 4326  # the input frame is left alone
+
+
+def test_point_outside_every_paddock(tmp_path):
+    rows = [ROWS[0], ROWS[1].replace("147.0020", "147.0500")]
+    got = _read_lonlat(tmp_path, rows)
+    settings = SampleSettings(file=got.file)
+    with pytest.raises(InputError) as info:
+        prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55, settings=settings,
+                        file=str(got.file))
+    assert_names(info.value, file=got.file, row=3, column="Longitude/Latitude")
+    assert "outside every paddock" in str(info.value) and "'A2'" in str(info.value)
+    skip = SampleSettings(file=got.file, on_bad_row="skip")
+    with pytest.warns(DataWarning, match="row 3"):
+        out = prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55, settings=skip,
+                              file=str(got.file))
+    assert out.sample_id.tolist() == ["A1"]
+
+
+def test_point_outside_that_fits_when_swapped(tmp_path):
+    paddocks = gpd.GeoDataFrame({"paddock": ["Steppe"]}, geometry=[box(40.0, 50.0, 40.01, 50.01)],
+                                crs=4326)
+    rows = ["A1,40.005,50.005,6,2,0.5,0.4,0.1,5.9,", "A2,50.005,40.005,6,2,0.5,0.4,0.1,5.9,"]
+    got = _read_lonlat(tmp_path, rows)
+    with pytest.raises(InputError, match="swapped"):
+        prepare_samples(got.samples, paddocks=paddocks, working_crs=pyproj.CRS.from_epsg(32637),
+                        settings=SampleSettings(file=got.file), file=str(got.file))
+
+
+def test_no_point_in_any_paddock_blames_the_crs(tmp_path):
+    got = read(lab(tmp_path))
+    far = gpd.GeoDataFrame({"paddock": ["Away"]}, geometry=[box(10, 10, 11, 11)], crs=4326)
+    with pytest.raises(InputError, match="CRS"):
+        prepare_samples(got.samples, paddocks=far, working_crs=UTM55,
+                        settings=SampleSettings(file=got.file, on_bad_row="skip"),
+                        file=str(got.file))
+
+
+def test_near_duplicates_stop_by_default(tmp_path):
+    # 147.00100 vs 147.00101 degrees: about 0.9 m apart at 35 S.
+    rows = [ROWS[0], ROWS[1].replace("147.0020,-35.0020", "147.00101,-35.0010"), ROWS[2]]
+    got = _read_lonlat(tmp_path, rows)
+    with pytest.raises(InputError) as info:
+        prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55,
+                        settings=SampleSettings(file=got.file), file=str(got.file))
+    assert_names(info.value, file=got.file, row=3, column="Longitude/Latitude")
+    assert "'A1' (row 2)" in str(info.value) and "duplicates = 'average'" in info.value.fix
+
+
+def test_near_duplicates_averaged(tmp_path):
+    rows = [ROWS[0], ROWS[1].replace("147.0020,-35.0020", "147.00100,-35.0010"), ROWS[2]]
+    got = _read_lonlat(tmp_path, rows)
+    settings = SampleSettings(file=got.file, duplicates="average")
+    with pytest.warns(DataWarning, match="merged by averaging"):
+        out = prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55,
+                              settings=settings, file=str(got.file))
+    assert out.sample_id.tolist() == ["A1+A2", "A3"]
+    merged = out.iloc[0]
+    assert merged.ca == pytest.approx(5.5) and merged.na == pytest.approx(0.5)
+    assert merged.source_row == 2 and merged.paddock == "Home"
+
+
+def test_duplicate_distance_is_a_setting(tmp_path):
+    got = read(lab(tmp_path))  # neighbours about 145 m apart
+    settings = SampleSettings(file=got.file, duplicates="average", duplicate_distance_m=200.0)
+    with pytest.warns(DataWarning):
+        out = prepare_samples(got.samples, paddocks=PADDOCKS, working_crs=UTM55,
+                              settings=settings, file=str(got.file))
+    assert out.sample_id.tolist() == ["A1+A2+A3+A4"]
+    assert out.ca[0] == pytest.approx(5.5)
+
+
+# --------------------------------------------------------------------------- settings
+
+
+@pytest.mark.parametrize(
+    "table, key",
+    [
+        ({"columns": {"calcium": "Ca"}}, "samples.columns.calcium"),
+        ({"units": {"ca": "ppb"}}, "samples.units.ca"),
+        ({"units": {"ph": "pH units"}}, "samples.units.ph"),
+        ({"units": {"acidity": "mg/kg"}}, "samples.units.acidity"),
+        ({"default_unit": "g/kg"}, "samples.default_unit"),
+        ({"on_bad_row": "skp"}, "samples.on_bad_row"),
+        ({"duplicates": "merge"}, "samples.duplicates"),
+        ({"duplicate_distance_m": -1.0}, "samples.duplicate_distance_m"),
+        ({"crs": "EPSG:99999999"}, "samples.crs"),
+        ({"below_detection": "third"}, "samples.below_detection"),
+        ({"empty_allowed": ["alu"]}, "samples.empty_allowed"),
+    ],
+)
+def test_settings_errors_name_the_key(table, key):
+    with pytest.raises(SettingsError) as info:
+        from_mapping(SampleSettings, {"file": "lab.csv", **table}, section="samples")
+    assert info.value.key == key
+
+
+def test_settings_from_mapping_resolve_the_file(tmp_path):
+    s = from_mapping(SampleSettings, {"file": "lab.csv", "crs": "EPSG:28355"}, section="samples",
+                     base_dir=tmp_path)
+    assert s.file == tmp_path / "lab.csv" and s.on_bad_row == "stop"
+
+
+def test_reading_records_no_unexpected_warnings(tmp_path):
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        read(lab(tmp_path))
