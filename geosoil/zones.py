@@ -334,8 +334,6 @@ def classify_rates(
     >>> cls.tolist(), notes
     ([1, 1, 2, 2, 3], ['3 distinct rates in the cells: 3 classes instead of 4'])
     """
-    import mapclassify
-
     values = np.asarray(values, dtype=float)
     notes: list[str] = []
     if values.size == 0:
@@ -353,11 +351,15 @@ def classify_rates(
         # one class per distinct rate, whatever the method
         return (np.searchsorted(distinct, values) + 1).astype(np.int64), notes
     if method == "quantiles":
+        import mapclassify
+
         # mapclassify warns when ties leave fewer classes than asked; we say so in a note
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
             yb = mapclassify.Quantiles(values, k=k).yb
     elif method == "equal_interval":
+        import mapclassify
+
         yb = mapclassify.EqualInterval(values, k=k).yb
     elif method == "natural_breaks":
         import jenkspy
