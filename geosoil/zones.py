@@ -831,7 +831,6 @@ def _user_zones(user_zones: gpd.GeoDataFrame, *, crs: pyproj.CRS, work: BaseGeom
     keep = [i for i, g in enumerate(clipped) if g.area > 0]
     tree = shapely.STRtree([clipped[i] for i in keep])
     bad: list[str] = []
-    first_row: int | None = None
     for ii, jj in zip(*tree.query([clipped[i] for i in keep], predicate="intersects"),
                       strict=True):
         i, j = keep[int(ii)], keep[int(jj)]
@@ -841,11 +840,9 @@ def _user_zones(user_zones: gpd.GeoDataFrame, *, crs: pyproj.CRS, work: BaseGeom
         smaller = min(clipped[i].area, clipped[j].area)
         if ov > _OVERLAP_M2 and ov > _OVERLAP_SHARE * smaller:
             bad.append(f"'{labels[i]}' and '{labels[j]}' ({ov / 1e4:.4g} ha)")
-            first_row = i + 1 if first_row is None else first_row
     if bad:
         raise InputError(
             f"zones overlap in paddock '{paddock}': {'; '.join(bad)}",
-            row=first_row,
             column="geometry",
             fix="edit the zone file so each piece of ground lies in one zone only",
         )
@@ -1033,7 +1030,8 @@ def make_zones(
             fix="rates are amounts to spread and cannot be negative; check the rate rules",
         )
     if user_zones is not None and settings.method != "user_zones":
-        notes_pre = [f"user zones given but method is '{settings.method}': they were not used"]
+        notes_pre = [f"method is '{settings.method}': the user zones were not used for "
+                     "spreader zones"]
     else:
         notes_pre = []
     if settings.method == "user_zones" and user_zones is None:
