@@ -157,7 +157,9 @@ def _utm_of(lon: float, lat: float) -> pyproj.CRS:
         datum_name="WGS 84", area_of_interest=AreaOfInterest(lon, lat, lon, lat)
     )
     # On a zone edge two zones touch the point: take the one that starts there.
-    inside = [i for i in infos if i.area_of_use.west <= lon < i.area_of_use.east] or infos
+    inside = [
+        i for i in infos if i.area_of_use and i.area_of_use.west <= lon < i.area_of_use.east
+    ] or infos
     if not inside:
         raise CRSError(
             f"no UTM zone covers longitude {lon:.4f}, latitude {lat:.4f} (UTM stops at 84°N and "
@@ -237,6 +239,8 @@ def choose_working_crs(
         f"({lon:.4f}, {lat:.4f})"
     )
     if east - west > 6.0:
-        logger.warning("the inputs span %.1f degrees of longitude, wider than a UTM zone", east - west)
+        logger.warning(
+            "the inputs span %.1f degrees of longitude, wider than a UTM zone", east - west
+        )
     logger.info("working CRS: %s", reason)
     return crs, reason

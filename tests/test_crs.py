@@ -95,7 +95,9 @@ def test_utm_zone_follows_the_zone_formula(lon, lat):
 
 def test_feet_crs_is_replaced_by_utm():
     texas_ft = pyproj.CRS.from_epsg(2277)  # NAD83 / Texas Central (ftUS)
-    crs, reason = choose_working_crs(candidates=[texas_ft], lonlat_bounds=(-97.8, 30.2, -97.7, 30.3))
+    crs, reason = choose_working_crs(
+        candidates=[texas_ft], lonlat_bounds=(-97.8, 30.2, -97.7, 30.3)
+    )
     assert crs.to_epsg() == 32614
     assert "not metres" in reason and "EPSG:2277" in reason
 
