@@ -161,15 +161,8 @@ class SampleSettings:
     )
 
     def __post_init__(self) -> None:
-        for f in dataclasses.fields(self):
-            choices = f.metadata.get("choices")
-            if choices and getattr(self, f.name) not in choices:
-                raise SettingsError(
-                    f"'{getattr(self, f.name)}' is not allowed. Allowed: {', '.join(choices)}",
-                    key=f.name,
-                )
-        if not 0.0 <= self.duplicate_distance_m <= 1000.0:
-            raise SettingsError("must be from 0 to 1000 m", key="duplicate_distance_m")
+        # Choices and ranges are checked by settings.from_mapping; these are the checks it
+        # cannot make (keys of the tables, units, the CRS).
         for analyte in (*self.columns, *self.units, *self.empty_allowed):
             if analyte not in CANONICAL:
                 near = difflib.get_close_matches(analyte, CANONICAL, n=1)
@@ -267,16 +260,44 @@ def _excel_column(i: int) -> str:
     return letters
 
 
-def _headers(cells: Sequence[Any], *, file: str, header_row: int, excel: bool) -> list[str]:
+def _missing(value: Any) -> bool:
+    """True for an empty cell as pandas or a reader gives it (None, NaN, NA, NaT)."""
+    return not isinstance(value, str) and bool(pd.isna(value))
+
+
+def _body(
+    table: pd.DataFrame, first: int, *, file: str, excel: bool
+) -> tuple[pd.DataFrame, np.ndarray]:
+    """Rows after the header row ``first`` (0-based), named by it, with their 0-based positions.
+
+    Wholly empty rows are dropped (their numbers are kept by the positions), and so are
+    columns with neither a header nor any value (trailing separators).
+    """
+    cells = table.iloc[first].tolist()
     names = []
     for i, cell in enumerate(cells):
-        text = "" if cell is None or (isinstance(cell, float) and math.isnan(cell)) else str(cell)
-        text = text.replace("\ufeff", "").strip()
+        text = "" if _missing(cell) else str(cell).replace("\ufeff", "").strip()
         if isinstance(cell, float) and cell.is_integer():
             text = str(int(cell))
         names.append(text or f"column {_excel_column(i) if excel else i + 1}")
+    body = table.iloc[first + 1 :].copy()
+    body.columns = range(len(names))
+    filled = body.map(lambda v: not _missing(v) and str(v).strip() != "")
+    unnamed = [i for i, c in enumerate(cells) if (_missing(c) or not str(c).strip())]
+    keep_columns = [i for i in range(len(names)) if i not in unnamed or filled[i].any()]
+    names = [names[i] for i in keep_columns]
+    _check_unique(names, keep_columns, file=file, header_row=first + 1, excel=excel)
+    keep_rows = filled.any(axis=1).to_numpy()
+    body = body.loc[keep_rows, keep_columns]
+    body.columns = names
+    return body.reset_index(drop=True), np.flatnonzero(keep_rows) + first + 1
+
+
+def _check_unique(
+    names: list[str], positions: list[int], *, file: str, header_row: int, excel: bool
+) -> None:
     seen: dict[str, int] = {}
-    for i, name in enumerate(names):
+    for i, name in zip(positions, names, strict=True):
         if name in seen:
             where = (f"columns {_excel_column(seen[name])} and {_excel_column(i)}" if excel
                      else f"columns {seen[name] + 1} and {i + 1}")
@@ -285,7 +306,6 @@ def _headers(cells: Sequence[Any], *, file: str, header_row: int, excel: bool) -
                 fix="rename one of the two columns",
             )
         seen[name] = i
-    return names
 
 
 def _read_csv(path: Path, name: str) -> _Raw:
@@ -318,17 +338,12 @@ def _read_csv(path: Path, name: str) -> _Raw:
             file=name, row=int(m.group(1)) if m else None,
             fix=f"check the separator ('{sep}' was used) and the quotes on that row",
         ) from None
-    rows = np.arange(1, len(table) + 1)
-    header = _headers(table.iloc[0].tolist(), file=name, header_row=1, excel=False)
-    body = table.iloc[1:].copy()
-    body.columns = header
-    keep = body.apply(lambda c: c.astype(str).str.strip() != "").any(axis=1).to_numpy()
-    body, body_rows = body[keep], rows[1:][keep]
+    body, positions = _body(table, 0, file=name, excel=False)
     decimal_comma = False
     if sep != ",":
         cells = pd.Series(body.to_numpy().ravel()).astype(str).str.strip()
         decimal_comma = bool(cells.str.fullmatch(r"[+-]?\d*,\d+").any())
-    return _Raw(body.reset_index(drop=True), body_rows, 1, None, None, decimal_comma)
+    return _Raw(body, positions + 1, 1, None, None, decimal_comma)
 
 
 def _read_excel(path: Path, name: str, sheet: str | None) -> _Raw:
@@ -351,12 +366,8 @@ def _read_excel(path: Path, name: str, sheet: str | None) -> _Raw:
     if not filled.any():
         raise InputError("the sheet is empty", file=name, fix="set [samples] sheet_or_layer")
     first = int(np.flatnonzero(filled)[0])
-    header = _headers(table.iloc[first].tolist(), file=name, header_row=first + 1, excel=True)
-    body = table.iloc[first + 1 :].copy()
-    body.columns = header
-    keep = filled[first + 1 :]
-    rows = np.arange(first + 2, len(table) + 1)[keep]
-    return _Raw(body[keep].reset_index(drop=True), rows, first + 1, None, None, False)
+    body, positions = _body(table, first, file=name, excel=True)
+    return _Raw(body, positions + 1, first + 1, None, None, False)
 
 
 def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
@@ -419,12 +430,10 @@ def _read_raw(settings: SampleSettings, name: str) -> _Raw:
 
 def _cell(value: Any, *, decimal_comma: bool) -> tuple[float, str, str]:
     """(number, status, text) of one cell; status: ok, empty, below, bad."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
+    if _missing(value):
         return math.nan, "empty", ""
-    if isinstance(value, bool) or isinstance(value, (pd.Timestamp, np.datetime64)) or hasattr(
-        value, "isoformat"
-    ):
-        return math.nan, "bad", str(value)
+    if isinstance(value, (bool, np.bool_, np.datetime64)) or hasattr(value, "isoformat"):
+        return math.nan, "bad", str(value)  # a tick box or a date, not an amount
     if isinstance(value, (int, float, np.integer, np.floating)):
         v = float(value)
         return (v, "ok", str(value)) if math.isfinite(v) else (math.nan, "bad", str(value))
@@ -452,7 +461,7 @@ def _cells(values: pd.Series, *, decimal_comma: bool) -> tuple[np.ndarray, np.nd
 
 
 def _id_text(value: Any) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
+    if _missing(value):
         return ""
     if isinstance(value, float) and value.is_integer():
         return str(int(value))

@@ -19,7 +19,7 @@ import pytest
 from shapely.geometry import Point, Polygon, box
 
 from geosoil.chemistry import derive
-from geosoil.errors import DataWarning, InputError, SettingsError
+from geosoil.errors import CRSError, DataWarning, InputError, SettingsError
 from geosoil.samples import SampleSettings, prepare_samples, read_samples
 from geosoil.settings import from_mapping
 
@@ -105,6 +105,27 @@ def test_tab_separated(tmp_path):
 def test_blank_lines_keep_the_file_row_numbers(tmp_path):
     path = lab(tmp_path, rows=[ROWS[0], "", ROWS[1].replace(",5.0,", ",x,")])
     assert_names(error_of(path), file=path, row=4, column="Exch Ca (meq/100g)")
+
+
+def test_trailing_separators_add_no_columns(tmp_path):
+    path = lab(tmp_path, header="ID,Lon,Lat,Ca,Mg,K,Na,,", rows=["S1,147.001,-35.001,5,2,1,1,,"])
+    assert list(read(path).samples.columns) == [
+        "sample_id", "source_row", "ca", "mg", "k", "na", "geometry"
+    ]
+
+
+def test_excel_dates_and_tick_boxes_are_not_numbers(tmp_path):
+    import datetime
+
+    path = tmp_path / "lab.xlsx"
+    pd.DataFrame({"ID": ["A", "B", "C"], "Lon": [147.001, 147.002, 147.003],
+                  "Lat": [-35.001, -35.002, -35.003], "Ca": [5.0, 4.0, 4.5],
+                  "Mg": [datetime.datetime(2024, 3, 2), 2.0, 2.0],
+                  "K": [0.5, True, 0.4], "Na": [0.3, 0.3, 0.3]}).to_excel(path, index=False)
+    assert_names(error_of(path), file=path, row=2, column="Mg")
+    with pytest.warns(DataWarning):
+        got = read(path, on_bad_row="skip")
+    assert [r for r, _ in got.skipped] == [2, 3]
 
 
 def test_units_from_headers_are_converted(tmp_path):
@@ -557,6 +578,24 @@ def test_prepare_reprojects_and_names_paddocks(tmp_path):
     x, y = t.transform(147.001, -35.001)
     assert out.geometry.iloc[0].x == pytest.approx(x) and out.geometry.iloc[0].y == pytest.approx(y)
     assert got.samples.crs.to_epsg() == 4326  # the input frame is left alone
+
+
+def test_overlapping_paddocks_take_the_first_with_a_warning(tmp_path):
+    got = read(lab(tmp_path))
+    two = gpd.GeoDataFrame({"paddock": ["Home", "Also"]},
+                           geometry=[box(146.99, -35.01, 147.01, -34.99)] * 2, crs=4326)
+    with pytest.warns(DataWarning, match="more than one paddock"):
+        out = prepare_samples(got.samples, paddocks=two, working_crs=UTM55,
+                              settings=SampleSettings(file=got.file), file=str(got.file))
+    assert set(out.paddock) == {"Home"}
+
+
+def test_prepare_needs_crs_on_both(tmp_path):
+    got = read(lab(tmp_path))
+    with pytest.raises(CRSError):
+        prepare_samples(got.samples, paddocks=PADDOCKS.set_crs(None, allow_override=True),
+                        working_crs=UTM55, settings=SampleSettings(file=got.file),
+                        file=str(got.file))
 
 
 def test_point_outside_every_paddock(tmp_path):
