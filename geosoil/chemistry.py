@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import os
 import warnings
 from collections.abc import Mapping
 
@@ -225,7 +226,7 @@ def derive(
     samples: pd.DataFrame,
     settings: ChemistrySettings | None = None,
     *,
-    file: str | None = None,
+    file: str | os.PathLike[str] | None = None,
     headers: Mapping[str, str] | None = None,
     ph_method: str | None = None,
     on_bad_row: str = "stop",
@@ -361,7 +362,7 @@ def _report_ecec_gaps(
     *,
     parts: Mapping[str, NDArray[np.float64]],
     neutral_ph: float,
-    file: str | None,
+    file: str | os.PathLike[str] | None,
     headers: Mapping[str, str],
     on_bad_row: str,
 ) -> None:

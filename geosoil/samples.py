@@ -69,6 +69,7 @@ from .units import CATION_UNITS, from_cmol_kg, normalise_unit, to_cmol_kg
 __all__ = [
     "SampleSettings",
     "SampleRead",
+    "CRSInputError",
     "PLAUSIBLE_MAX_CMOL",
     "PLAUSIBLE_PH",
     "PLAUSIBLE_MAX_SAR",
@@ -228,6 +229,14 @@ class SampleRead:
     skipped: list[tuple[int, str]]
     crs: pyproj.CRS
     file: Path
+
+
+class CRSInputError(InputError, CRSError):
+    """The CRS of a samples file is missing or does not fit its coordinates.
+
+    Both an :class:`~geosoil.errors.InputError` (it names file, row and column) and a
+    :class:`~geosoil.errors.CRSError`, so a caller can offer a CRS and try again.
+    """
 
 
 class _Issue(NamedTuple):
@@ -665,7 +674,7 @@ def _decide_crs(
     if file_crs is not None and declared is not None and not file_crs.equals(
         declared, ignore_axis_order=True
     ):
-        raise InputError(
+        raise CRSInputError(
             f"the file's CRS is {describe_crs(file_crs)} but [samples] crs says "
             f"{describe_crs(declared)}", file=name,
             fix="remove [samples] crs to use the file's own, or correct the file's CRS",
@@ -675,7 +684,7 @@ def _decide_crs(
         # Named longitude/latitude: take them so (rows out of range are reported one by one);
         # X/Y: when most fit.
         if geographic is False or (geographic is None and _share_lonlat(x, y) < 0.5):
-            raise InputError(
+            raise CRSInputError(
                 "the coordinates are not longitude/latitude and no CRS is given", file=name,
                 row=first_row, column=column,
                 fix="set [samples] crs, e.g. crs = 'EPSG:28355'",
@@ -688,7 +697,7 @@ def _decide_crs(
             )
         return pyproj.CRS.from_epsg(4326)
     if crs.is_projected and _share_lonlat(x, y) == 1.0:
-        raise InputError(
+        raise CRSInputError(
             f"the coordinates look like longitude/latitude in degrees, but the CRS is "
             f"{describe_crs(crs)}", file=name, row=first_row, column=column,
             fix="set [samples] crs = 'EPSG:4326' (or correct the coordinates)",

@@ -516,6 +516,7 @@ def test_projected_coordinates_without_crs(tmp_path):
     err = error_of(path)
     assert_names(err, file=path, row=2, column="Easting")
     assert "crs = 'EPSG:" in err.fix
+    assert isinstance(err, CRSError)  # a caller may offer a CRS and read again
 
 
 def test_degrees_with_a_projected_crs(tmp_path):
