@@ -59,6 +59,7 @@ from branca.element import Element, MacroElement
 from folium.template import Template
 from rasterio.enums import Resampling
 from shapely.geometry import box, mapping
+from shapely.ops import polylabel
 
 from .errors import CRSError, GeosoilError, InputError
 
@@ -71,6 +72,7 @@ __all__ = [
     "colourise",
     "ramp_colour",
     "escape_text",
+    "label_point",
     "remote_references",
     "RAMPS",
     "SODICITY_BREAKS",
@@ -1075,7 +1077,7 @@ def build_map(
                     pane=_ZONE_PANE,
                     popup=popup,
                 ).add_to(group)
-                anchor = z.geometry.representative_point()
+                anchor = label_point(z.geometry)
                 _Label(
                     [round(anchor.y, 7), round(anchor.x, 7)],
                     escape_text(_fmt_rate(rate)),
@@ -1218,6 +1220,30 @@ def build_map(
     if remote:  # a folium change brought a CDN link back: never ship that
         raise GeosoilError(f"the map would load from the network: {', '.join(sorted(set(remote)))}")
     return page
+
+
+def label_point(geom: Any) -> Any:
+    """Where a polygon's label goes: the pole of inaccessibility of its largest part
+    (the inside point farthest from the edges), so labels avoid holes and thin arms.
+
+    Examples
+    --------
+    >>> from shapely.geometry import Point, box
+    >>> ring = box(0, 0, 100, 100).difference(Point(50, 50).buffer(30))
+    >>> p = label_point(ring)  # clear of the hole and of the edges
+    >>> ring.contains(p), min(ring.exterior.distance(p), ring.interiors[0].distance(p)) > 15
+    (True, True)
+    """
+    parts = [
+        g for g in getattr(geom, "geoms", [geom]) if g.geom_type == "Polygon" and not g.is_empty
+    ]
+    if not parts:
+        return geom.representative_point()
+    largest = max(parts, key=lambda g: g.area)
+    minx, miny, maxx, maxy = largest.bounds
+    tolerance = max(maxx - minx, maxy - miny) / 200 or 1e-9
+    point = polylabel(largest, tolerance=tolerance)
+    return point if largest.contains(point) else largest.representative_point()
 
 
 def _north_anchor(geom: Any) -> Any:

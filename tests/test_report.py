@@ -1,0 +1,553 @@
+"""Tests of geosoil.report: content, SVG drawings, escaping, and printing in headless Chromium."""
+
+from __future__ import annotations
+
+import hashlib
+import html
+import math
+import re
+from datetime import UTC, datetime
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from shapely.geometry import Point, box
+
+from geosoil import report, webmap
+from geosoil.errors import InputError
+from tests.browser import Chromium, artifact_path, require_chromium
+
+HOSTILE_IMG = "<img src=x onerror=alert(1)>"
+HOSTILE_SCRIPT = "</script><script>alert(1)</script>"
+HOSTILE_TEMPLATE = "${7*6}"
+
+CRS = "EPSG:32755"
+X0, Y0 = 640_000.0, 6_190_000.0
+
+
+def report_input(
+    *, hostile: bool = False, inputs: tuple[tuple[str, str], ...] = ()
+) -> report.ReportInput:
+    """An invented two-paddock farm with gypsum and lime zones and an exclusion."""
+    north = "North " + HOSTILE_IMG if hostile else "North"
+    south = "South " + HOSTILE_SCRIPT if hostile else "South"
+    gypsum = "gypsum " + HOSTILE_TEMPLATE if hostile else "gypsum"
+    paddocks = gpd.GeoDataFrame(
+        {"paddock": [north, south]},
+        geometry=[box(X0, Y0 + 500, X0 + 800, Y0 + 1000), box(X0, Y0, X0 + 600, Y0 + 480)],
+        crs=CRS,
+    )
+    zone_rows, tonnage_rows = [], []
+    for name, geom in zip(paddocks["paddock"], paddocks.geometry, strict=True):
+        minx, miny, maxx, maxy = geom.bounds
+        third = (maxx - minx) / 3
+        dam = Point(minx + 0.5 * (maxx - minx), miny + 0.5 * (maxy - miny)).buffer(40)
+        for product, rates in ((gypsum, (0.0, 1500.0, 3000.0)), ("lime", (2500.0,))):
+            parts = (
+                [box(minx + k * third, miny, minx + (k + 1) * third, maxy) for k in range(3)]
+                if len(rates) == 3
+                else [geom]
+            )
+            for k, (part, rate) in enumerate(zip(parts, rates, strict=True)):
+                part = part.difference(dam)
+                area = part.area / 1e4
+                zone_rows.append(
+                    dict(
+                        paddock=name,
+                        product=product,
+                        zone=k + 1,
+                        kind="rate",
+                        rate_kg_ha=rate,
+                        area_ha=area,
+                        geometry=part,
+                    )
+                )
+                # tonnes = area x rate [derived]; truckloads at 25 t a load [invented]
+                tonnage_rows.append(
+                    dict(
+                        paddock=name,
+                        product=product,
+                        zone=k + 1,
+                        level="zone",
+                        area_ha=area,
+                        rate_kg_ha=rate,
+                        tonnes=area * rate / 1000,
+                        truckloads=area * rate / 25000,
+                        cost=area * rate / 1000 * 40.0,
+                    )
+                )
+            zone_rows.append(
+                dict(
+                    paddock=name,
+                    product=product,
+                    zone=0,
+                    kind="exclusion",
+                    rate_kg_ha=0.0,
+                    area_ha=dam.area / 1e4,
+                    geometry=dam,
+                )
+            )
+    tonnage = pd.DataFrame(tonnage_rows)
+    paddock_totals = tonnage.groupby(["paddock", "product"], as_index=False, sort=False)[
+        ["area_ha", "tonnes", "truckloads", "cost"]
+    ].sum()
+    paddock_totals["level"] = "paddock"
+    farm_totals = tonnage.groupby("product", as_index=False, sort=False)[
+        ["area_ha", "tonnes", "truckloads", "cost"]
+    ].sum()
+    farm_totals["level"] = "farm"
+    farm_totals["paddock"] = None
+    tonnage = pd.concat([tonnage, paddock_totals, farm_totals], ignore_index=True)
+    lags = tuple(float(h) for h in np.arange(25.0, 400.0, 50.0))
+    variograms = (
+        report.VariogramInfo(
+            variable="esp",
+            paddock=north,
+            method="ordinary kriging",
+            unit="%",
+            model="spherical",
+            nugget=1.0,
+            psill=4.0,
+            range_m=200.0,
+            lags=lags,
+            gamma=(1.9, 3.4, 4.4, 4.9, 5.1, 4.8, 5.2, 5.0),
+            counts=(12, 30, 41, 45, 44, 38, 30, 22),
+            cv_mean_error=0.05,
+            cv_rmse=1.21,
+            cv_msse=0.97,
+            n_samples=24,
+        ),
+        report.VariogramInfo(
+            variable="acidity",
+            paddock="farm",
+            method="ordinary kriging",
+            unit="cmol(+)/kg",
+            model="exponential",
+            nugget=0.02,
+            psill=0.1,
+            range_m=300.0,
+            lags=lags,
+            gamma=(0.05, 0.07, 0.09, 0.1, 0.11, 0.12, 0.11, 0.12),
+            counts=(20,) * 8,
+            cv_mean_error=-0.01,
+            cv_rmse=0.2,
+            cv_msse=1.1,
+            n_samples=40,
+            note="fitted on the farm's samples",
+        ),
+        report.VariogramInfo(
+            variable="ph",
+            paddock=south,
+            method="inverse-distance weighting",
+            unit="",
+            cv_mean_error=0.02,
+            cv_rmse=0.3,
+            n_samples=5,
+        ),
+    )
+    return report.ReportInput(
+        title=("Season report " + HOSTILE_SCRIPT) if hostile else "Season report",
+        created=datetime(2024, 5, 1, 9, 30, tzinfo=UTC),
+        tonnage=tonnage,
+        zones=gpd.GeoDataFrame(zone_rows, crs=CRS),
+        paddocks=paddocks,
+        variograms=variograms,
+        uncertainty=(
+            report.UncertaintySummary(
+                variable="esp",
+                paddock=north,
+                unit="%",
+                sd_threshold=2.0,
+                share_above=0.23,
+                sd_max=3.1,
+                sd_mean=1.4,
+            ),
+        ),
+        density=(
+            report.SampleDensity(paddock=north, samples=10, area_ha=40.0),
+            report.SampleDensity(paddock=south, samples=6, area_ha=28.8),
+        ),
+        assumptions={
+            "treated depth": "0.10 m",
+            "bulk density": "1.4 g/cm³ (unmeasured: typical topsoil)",
+            "gypsum analysis": "Ca 23.28 %, purity 100 %",
+            ("target " + HOSTILE_IMG if hostile else "target ESP"): "6 %",
+        },
+        methods=(
+            ("gypsum requirement", "USDA Handbook 60 (Richards 1954)"),
+            ("lime for exchangeable Al", "Kamprath 1970, Soil Sci. Soc. Am. Proc. 34:252"),
+        ),
+        warnings=("sample S7 " + HOSTILE_TEMPLATE + " has no sodium value",) if hostile else (),
+        provenance=report.Provenance(
+            inputs=inputs or (("lab.csv", "0" * 64),),
+            settings_toml='[soil]\ndepth_m = 0.1\nnote = "'
+            + (HOSTILE_SCRIPT if hostile else "x")
+            + '"\n',
+            versions={"geosoil": "0.1.0", "numpy": np.__version__},
+        ),
+    )
+
+
+def _section(page: str, section_id: str) -> str:
+    start = page.index(f'id="{section_id}"')
+    end = page.index("</section>", start)
+    return page[start:end]
+
+
+@pytest.fixture(scope="module")
+def page() -> str:
+    return report.build_report(report_input())
+
+
+# --------------------------------------------------------------------------- content
+
+
+def test_report_is_static_and_loads_nothing(page: str) -> None:
+    assert "<script" not in page.lower()
+    assert webmap.remote_references(page) == []
+    assert page.startswith("<!DOCTYPE html>")
+
+
+def test_sections_come_in_reading_order(page: str) -> None:
+    ids = re.findall(r'<section[^>]*\bid="([^"]+)"', page)
+    assert ids == [
+        "cautions",
+        "summary",
+        "paddock-0",
+        "paddock-1",
+        "surfaces",
+        "uncertainty",
+        "density",
+        "assumptions",
+        "warnings",
+        "provenance",
+    ]
+
+
+def test_every_paddock_and_product_has_a_zone_map_and_a_tonnage_table(page: str) -> None:
+    data = report_input()
+    for i, name in enumerate(data.paddocks["paddock"]):
+        sec = _section(page, f"paddock-{i}")
+        assert f"Paddock {name}" in sec
+        assert sec.count('class="zone-map"') == 2 and sec.count('class="tonnage"') == 2
+        for row in data.tonnage[(data.tonnage["paddock"] == name)].itertuples():
+            assert f"{row.tonnes:,.2f}" in sec
+            assert f"{row.area_ha:,.2f}" in sec
+        # exclusions are drawn hatched
+        assert 'fill="url(#hatch-' in sec
+
+
+def test_farm_totals_are_the_farm_rows(page: str) -> None:
+    data = report_input()
+    sec = _section(page, "summary")
+    farm = data.tonnage[data.tonnage["level"] == "farm"]
+    assert sec.count("<tr>") == len(farm) + 1  # header + one row per product
+    for row in farm.itertuples():
+        assert f"{row.tonnes:,.2f}" in sec and f"{row.cost:,.2f}" in sec
+
+
+def test_cautions_say_what_the_trade_expects(page: str) -> None:
+    # common practice: advisory rates, agronomist, regulations, buffers, handling, re-test, split
+    text = html.unescape(re.sub(r"<[^>]+>", " ", _section(page, "cautions")))
+    for phrase in (
+        "advisory",
+        "qualified agronomist",
+        "local regulations",
+        "waterways",
+        "handling advice",
+        "local code prevails",
+        "re-test the soil every year",
+        "Split large rates",
+    ):
+        assert phrase in text, phrase
+
+
+def test_cross_validation_table_has_every_surface(page: str) -> None:
+    sec = _section(page, "surfaces")
+    table = sec[
+        sec.index('class="cross-validation"') : sec.index(
+            "</table>", sec.index('class="cross-validation"')
+        )
+    ]
+    assert table.count("<tr>") == 1 + 3
+    for text in ("ordinary kriging", "inverse-distance weighting", "1.21", "0.97", "spherical"):
+        assert text in table
+    assert sec.count('class="variogram"') == 2
+    assert "No variogram: this surface was made by inverse-distance weighting." in sec
+    assert "fitted on the farm&#x27;s samples" in sec
+
+
+def test_uncertainty_shows_the_share_as_percent(page: str) -> None:
+    sec = _section(page, "uncertainty")
+    assert "23.0 %" in sec and "3.1 %" in sec and "2 %" in sec
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.integers(0, 500), st.floats(0.01, 5000, allow_nan=False))
+def test_sample_density_is_samples_per_hectare(samples: int, area: float) -> None:
+    d = report.SampleDensity(paddock="p", samples=samples, area_ha=area)
+    assert math.isclose(d.per_ha * area, samples, rel_tol=1e-12, abs_tol=1e-12)  # by definition
+    if samples:
+        assert math.isclose(d.per_ha * d.ha_per_sample, 1.0)
+
+
+def test_density_figures_in_the_report(page: str) -> None:
+    sec = _section(page, "density")
+    assert "0.25" in sec  # 10 samples on 40 ha [derived]
+    assert "4.0" in sec  # 4 ha per sample
+    assert "0.21" in sec  # 6 samples on 28.8 ha = 0.2083 [derived]
+
+
+def test_assumptions_methods_and_citations(page: str) -> None:
+    sec = _section(page, "assumptions")
+    for text in (
+        "treated depth",
+        "0.10 m",
+        "1.4 g/cm³",
+        "USDA Handbook 60 (Richards 1954)",
+        "Kamprath 1970, Soil Sci. Soc. Am. Proc. 34:252",
+    ):
+        assert text in sec
+
+
+def test_provenance_lists_files_with_their_sha256(tmp_path) -> None:
+    lab = tmp_path / "lab results.csv"
+    lab.write_text("sample,Ca\nS1,4.2\n", encoding="utf-8")
+    digest = hashlib.sha256(lab.read_bytes()).hexdigest()
+    page = report.build_report(report_input(inputs=((str(lab), digest),)))
+    sec = _section(page, "provenance")
+    assert digest in sec and html.escape(str(lab)) in sec
+    assert "numpy" in sec and np.__version__ in sec
+    assert "depth_m = 0.1" in sec
+
+
+def test_warnings_are_listed_or_said_to_be_none(page: str) -> None:
+    assert "The run raised no warnings." in _section(page, "warnings")
+    hostile = report.build_report(report_input(hostile=True))
+    assert "has no sodium value" in _section(hostile, "warnings")
+
+
+def test_bad_inputs_are_named() -> None:
+    data = report_input()
+    with pytest.raises(InputError, match="truckloads"):
+        report.ReportInput(
+            title="x",
+            created=data.created,
+            tonnage=data.tonnage.drop(columns="truckloads"),
+            zones=data.zones,
+            paddocks=data.paddocks,
+        )
+    with pytest.raises(InputError, match="fraction"):
+        report.UncertaintySummary(
+            variable="esp", paddock="p", unit="%", sd_threshold=1.0, share_above=23.0, sd_max=2.0
+        )
+    with pytest.raises(InputError, match="differ in length"):
+        report.VariogramInfo(
+            variable="esp", paddock="p", method="ordinary kriging", lags=(1.0, 2.0), gamma=(1.0,)
+        )
+
+
+def test_hostile_text_is_escaped_everywhere() -> None:
+    page = report.build_report(report_input(hostile=True))
+    assert "<script" not in page.lower()
+    for raw in (HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE):
+        assert raw not in page
+    assert "<img" not in page
+    assert webmap.escape_text("Paddock North " + HOSTILE_IMG) in page
+    assert webmap.escape_text(HOSTILE_TEMPLATE) in page
+
+
+# --------------------------------------------------------------------------- drawings
+
+
+def _numbers(text: str) -> list[float]:
+    return [float(v) for v in re.findall(r"-?\d+(?:\.\d+)?", text)]
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    st.lists(
+        st.tuples(
+            st.floats(0, 5000),
+            st.floats(0, 5000),
+            st.floats(5, 800),
+            st.floats(5, 800),
+            st.floats(0, 8000),
+        ),
+        min_size=1,
+        max_size=6,
+    ),
+    st.sampled_from([CRS, "EPSG:3577"]),
+)
+def test_zone_map_stays_inside_its_frame(boxes, crs) -> None:
+    geoms = [box(X0 + x, Y0 + y, X0 + x + w, Y0 + y + h) for x, y, w, h, _ in boxes]
+    zones = gpd.GeoDataFrame(
+        {
+            "zone": range(1, len(boxes) + 1),
+            "kind": ["rate"] * len(boxes),
+            "rate_kg_ha": [b[4] for b in boxes],
+        },
+        geometry=geoms,
+        crs=crs,
+    )
+    svg = report.zone_map_svg(zones, width=500, max_height=400)
+    width, height = (float(v) for v in re.search(r'viewBox="0 0 ([\d.]+) ([\d.]+)"', svg).groups())
+    assert width <= 500 and height <= 400
+    paths = re.findall(r'<path class="zone" d="([^"]+)"', svg)
+    assert len(paths) == len(boxes)
+    for d in paths:
+        values = _numbers(d)
+        xs, ys = values[0::2], values[1::2]
+        assert min(xs) >= 0 and max(xs) <= width and min(ys) >= 0 and max(ys) <= height
+
+
+def test_zone_map_darker_for_more_product() -> None:
+    # Sequential scheme (Harrower & Brewer 2003): more product, darker fill.
+    zones = gpd.GeoDataFrame(
+        {"zone": [1, 2, 3], "kind": ["rate"] * 3, "rate_kg_ha": [500.0, 2000.0, 4000.0]},
+        geometry=[box(X0 + 100 * k, Y0, X0 + 100 * (k + 1), Y0 + 300) for k in range(3)],
+        crs=CRS,
+    )
+    svg = report.zone_map_svg(zones)
+    fills = re.findall(r'<path class="zone" d="[^"]+" fill="(#[0-9a-f]{6})"', svg)
+    lum = [report._luminance(c) for c in fills]
+    assert lum[0] > lum[1] > lum[2]
+    assert "4.00 t/ha" in svg and "500 kg/ha" in svg
+
+
+def test_variogram_plot_draws_points_and_the_fitted_spherical_model() -> None:
+    info = report_input().variograms[0]  # spherical: nugget 1, partial sill 4, range 200 m
+    svg = report.variogram_svg(info)
+    frame = re.search(r'<rect x="([\d.]+)" y="([\d.]+)" width="([\d.]+)" height="([\d.]+)"', svg)
+    left, top, w, h = (float(v) for v in frame.groups())
+    base = top + h
+    circles = [
+        (float(x), float(y), float(r))
+        for x, y, r in re.findall(r'class="vg-point" cx="([\d.]+)" cy="([\d.]+)" r="([\d.]+)"', svg)
+    ]
+    assert len(circles) == len(info.lags)
+    assert [c[0] for c in circles] == sorted(c[0] for c in circles)
+    # bigger pair counts, bigger dots
+    assert max(circles, key=lambda c: c[2]) == circles[int(np.argmax(info.counts))]
+    # the points' heights keep the ratios of the empirical semivariances
+    heights = [base - c[1] for c in circles]
+    for hgt, g in zip(heights, info.gamma, strict=True):
+        assert math.isclose(hgt / heights[0], g / info.gamma[0], rel_tol=0.02)
+    d = re.search(r'class="vg-model" d="([^"]+)"', svg).group(1)
+    pts = list(zip(_numbers(d)[0::2], _numbers(d)[1::2], strict=True))
+    gam = [base - y for _, y in pts]
+    sill_px = gam[-1]
+    # The spherical model starts at the nugget, rises monotonically and is flat from the range on
+    # (its definition: gamma = nugget + psill for h >= range).
+    assert math.isclose(gam[0] / sill_px, 1.0 / 5.0, abs_tol=0.01)
+    assert all(b >= a - 1e-6 for a, b in zip(gam, gam[1:], strict=False))
+    range_x = float(re.search(r'class="vg-range" x1="([\d.]+)"', svg).group(1))
+    flat = [g for x, g in zip([p[0] for p in pts], gam, strict=True) if x >= range_x + 0.2]
+    assert flat and all(math.isclose(g, sill_px, abs_tol=0.15) for g in flat)
+    # Halfway to the range: nugget + psill (1.5/2 - 0.5/8) = 1 + 4 x 0.6875 = 3.75 of 5 [derived]
+    half_x = left + (range_x - left) / 2
+    x_half, g_half = min(
+        zip([p[0] for p in pts], gam, strict=True), key=lambda p: abs(p[0] - half_x)
+    )
+    assert abs(x_half - half_x) < 2.0
+    assert math.isclose(g_half / sill_px, 3.75 / 5.0, abs_tol=0.015)
+
+
+def test_variogram_plot_takes_a_given_curve() -> None:
+    info = report.VariogramInfo(
+        variable="k",
+        paddock="p",
+        method="ordinary kriging",
+        model="matern",
+        lags=(10.0, 20.0),
+        gamma=(1.0, 2.0),
+        counts=(5, 5),
+        curve=((0.0, 0.5), (10.0, 1.2), (20.0, 1.8)),
+    )
+    svg = report.variogram_svg(info)
+    d = re.search(r'class="vg-model" d="([^"]+)"', svg).group(1)
+    assert len(_numbers(d)) == 6
+
+
+# --------------------------------------------------------------------------- browser
+
+
+@pytest.fixture(scope="module")
+def browser():
+    with Chromium(require_chromium()) as chromium:
+        yield chromium
+
+
+@pytest.fixture(scope="module")
+def report_page(browser, tmp_path_factory):
+    path = tmp_path_factory.mktemp("report") / "report.html"
+    path.write_text(report.build_report(report_input(hostile=True)), encoding="utf-8")
+    tab = browser.new_page(width=1100, height=1400)
+    tab.goto(path)
+    browser.drain(0.2)
+    yield tab
+    tab.close()
+
+
+@pytest.mark.browser
+def test_browser_report_renders_offline_without_errors(report_page) -> None:
+    assert report_page.console_errors == []
+    assert report_page.dialogs == []
+    assert [u for u in report_page.requests if not u.startswith(("file:", "data:"))] == []
+    state = report_page.evaluate(
+        """({svgs: document.querySelectorAll('svg.zone-map').length,
+             variograms: document.querySelectorAll('svg.variogram').length,
+             zoneMapWidth: document.querySelector('svg.zone-map').getBoundingClientRect().width,
+             cautionsVisible:
+               document.getElementById('cautions').getBoundingClientRect().height > 50})"""
+    )
+    assert 240 <= state.pop("zoneMapWidth") <= 560
+    assert state == {"svgs": 4, "variograms": 2, "cautionsVisible": True}
+    shot = report_page.screenshot(artifact_path("report.png"), full_page=True)
+    assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.browser
+def test_browser_hostile_text_in_report_is_text(report_page) -> None:
+    state = report_page.evaluate(
+        """({scripts: document.scripts.length, imgs: document.images.length,
+             pwned: typeof window.__pwned, title: document.title,
+             h1: document.getElementById('report-title').innerText,
+             paddocks: Array.from(document.querySelectorAll('section.paddock h2'))
+               .map(e => e.innerText),
+             warning: document.querySelector('.warnings li').innerText})"""
+    )
+    assert state == {
+        "scripts": 0,
+        "imgs": 0,
+        "pwned": "undefined",
+        "title": "Season report " + HOSTILE_SCRIPT,
+        "h1": "Season report " + HOSTILE_SCRIPT,
+        "paddocks": ["Paddock North " + HOSTILE_IMG, "Paddock South " + HOSTILE_SCRIPT],
+        "warning": "sample S7 " + HOSTILE_TEMPLATE + " has no sodium value",
+    }
+    assert "42" not in state["warning"]
+    assert report_page.dialogs == []
+
+
+@pytest.mark.browser
+def test_browser_report_prints_with_page_breaks(report_page) -> None:
+    report_page.call("Emulation.setEmulatedMedia", {"media": "print"})
+    try:
+        css = report_page.evaluate(
+            """({paddocks: Array.from(document.querySelectorAll('section.paddock'))
+                   .map(s => getComputedStyle(s).breakBefore),
+                 nav: getComputedStyle(document.querySelector('nav')).display,
+                 tables: getComputedStyle(document.querySelector('table.tonnage')).breakInside})"""
+        )
+    finally:
+        report_page.call("Emulation.setEmulatedMedia", {"media": ""})
+    assert css == {"paddocks": ["page", "page"], "nav": "none", "tables": "avoid"}
+    pdf = report_page.pdf(artifact_path("report.pdf"))
+    assert pdf[:5] == b"%PDF-"
+    pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
+    assert pages >= 2 + 2  # front matter, one or more per paddock, the rest
+    assert report_page.console_errors == []
