@@ -675,3 +675,23 @@ def test_browser_overlay_pixels_sit_where_pyproj_puts_the_cells(map_page) -> Non
         assert inside == [int(v) for v in want], (k, inside, want)
         assert outside[3] == 0, (k, outside)
     assert map_page.console_errors == []
+
+
+@pytest.mark.browser
+def test_browser_background_tiles_fail_quietly_offline(browser, tmp_path) -> None:
+    path = tmp_path / "tiles.html"
+    path.write_text(build(background_tiles=True), encoding="utf-8")
+    tab = browser.new_page()
+    try:
+        tab.goto(path)
+        browser.drain(0.5)
+        tiles = [u for u in tab.requests if u.startswith("https://tile.openstreetmap.org/")]
+        assert tiles  # it tried, and the cut-off network refused
+        others = [u for u in tab.requests if not u.startswith(("file:", "data:", "https://tile."))]
+        assert others == []
+        # Only the failed tile loads are reported: no script error, the map still works.
+        assert all("tile.openstreetmap.org" in e for e in tab.console_errors), tab.console_errors
+        assert tab.evaluate("window.geosoilMap.layers.length") == 9
+        assert tab.evaluate("document.querySelectorAll('img.leaflet-image-layer').length") == 1
+    finally:
+        tab.close()
