@@ -18,6 +18,10 @@ What the page holds:
 * a legend with units for every layer (shown for the layers switched on), a
   layer switcher and a scale bar.
 
+The page exposes ``window.geosoilMap = {map, layers: [{title, layer, legend}]}``
+(the Leaflet map and each switchable layer with its legend entry's element id),
+which the legend uses and the browser tests read.
+
 Colour schemes follow Harrower & Brewer (2003): sequential ramps for amounts
 and rates (viridis, yellow-orange-brown), a blue-white-orange diverging ramp
 around a target, no rainbow or red-green scales.

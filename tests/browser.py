@@ -134,18 +134,24 @@ class Chromium:
         to_child_r, to_child_w = (_high_fd(fd) for fd in os.pipe())
         from_child_r, from_child_w = (_high_fd(fd) for fd in os.pipe())
 
-        def wire_pipes() -> None:  # runs in the child before exec
-            os.dup2(to_child_r, 3)
-            os.dup2(from_child_w, 4)
-
+        # Hand the pipe ends to Chromium as fds 3 and 4 (what --remote-debugging-pipe reads and
+        # writes) with a bash redirection, so no Python code runs between fork and exec.
+        wire = f'exec "$0" "$@" 3<&{to_child_r} 4>&{from_child_w} {to_child_r}<&- {from_child_w}>&-'
         self._log = open(Path(self._profile) / "chromium.log", "wb")  # noqa: SIM115
         self.process = subprocess.Popen(
-            [self.executable, *CHROMIUM_FLAGS, f"--user-data-dir={self._profile}", "about:blank"],
+            [
+                shutil.which("bash") or "/bin/bash",
+                "-c",
+                wire,
+                self.executable,
+                *CHROMIUM_FLAGS,
+                f"--user-data-dir={self._profile}",
+                "about:blank",
+            ],
             stdin=subprocess.DEVNULL,
             stdout=self._log,
             stderr=subprocess.STDOUT,
-            preexec_fn=wire_pipes,  # noqa: PLW1509 (single call, no threads touch these fds)
-            close_fds=False,
+            pass_fds=(to_child_r, from_child_w),
         )
         os.close(to_child_r)
         os.close(from_child_w)
