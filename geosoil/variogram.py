@@ -354,30 +354,48 @@ class Selection:
     candidates: tuple[Candidate, ...]
 
 
-def _check_samples(xy: ArrayLike, values: ArrayLike, *, minimum: int) -> tuple[
-    NDArray[np.float64], NDArray[np.float64]
-]:
-    xy = np.asarray(xy, dtype=np.float64)
-    z = np.asarray(values, dtype=np.float64)
-    if xy.ndim != 2 or xy.shape[1] != 2 or z.shape != (xy.shape[0],):
+def _as_points(xy: ArrayLike, what: str) -> NDArray[np.float64]:
+    """``xy`` as a finite (n, 2) float array; ``what`` names the points in messages."""
+    a = np.asarray(xy, dtype=np.float64)
+    if a.ndim == 1 and a.size == 2:
+        a = a.reshape(1, 2)
+    if a.ndim != 2 or a.shape[1] != 2:
         raise InputError(
-            f"sample coordinates must be an (n, 2) array and values an (n,) array "
-            f"(got {xy.shape} and {z.shape})",
-            fix="pass one x, y pair per value",
+            f"{what} coordinates must be an (n, 2) array of x, y in metres (got shape {a.shape})",
+            fix="pass one x, y pair per row",
         )
-    bad = np.flatnonzero(~(np.isfinite(z) & np.isfinite(xy).all(axis=1)))
+    if not np.isfinite(a).all():
+        i = int(np.flatnonzero(~np.isfinite(a).all(axis=1))[0])
+        raise InputError(
+            f"{what} {i} (0-based) has a missing or infinite coordinate",
+            fix=f"drop {what}s without coordinates",
+        )
+    return a
+
+
+def _as_samples(
+    xy: ArrayLike, values: ArrayLike, *, minimum: int = 1
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Checked sample coordinates (n, 2) and finite values (n,), at least ``minimum``."""
+    pts = _as_points(xy, "sample")
+    z = np.asarray(values, dtype=np.float64)
+    if z.shape != (pts.shape[0],):
+        raise InputError(
+            f"got {pts.shape[0]} sample coordinates but values of shape {z.shape}",
+            fix="pass one value per sample",
+        )
+    bad = np.flatnonzero(~np.isfinite(z))
     if bad.size:
         raise InputError(
-            f"sample {int(bad[0])} (0-based; {bad.size} in all) has a missing or infinite "
-            "coordinate or value",
+            f"sample {int(bad[0])} (0-based; {bad.size} in all) has a missing or infinite value",
             fix="drop samples without a value before interpolating",
         )
     if z.size < minimum:
         raise InputError(
-            f"at least {minimum} samples are needed (got {z.size})",
+            f"at least {minimum} sample{'s' if minimum > 1 else ''} needed here (got {z.size})",
             fix="add samples, or fix the variogram in the project instead of fitting it",
         )
-    return xy, z
+    return pts, z
 
 
 def _pair_blocks(
@@ -434,7 +452,7 @@ def empirical(
     >>> ev.lags.tolist(), ev.gamma.round(4).tolist(), ev.counts.tolist()
     ([1.0, 2.0, 3.0], [0.8333, 3.25, 4.5], [3, 2, 1])
     """
-    xy, z = _check_samples(xy, values, minimum=3)
+    xy, z = _as_samples(xy, values, minimum=3)
     if int(n_lags) != n_lags or n_lags < 1:
         raise SettingsError(f"must be a whole number of at least 1 (got {n_lags!r})", key="n_lags")
     if max_lag is None:
@@ -620,7 +638,7 @@ def select_model(
     """
     from .kriging import loo_cross_validation  # kriging imports this module
 
-    xy, z = _check_samples(xy, values, minimum=4)
+    xy, z = _as_samples(xy, values, minimum=4)
     if not candidates:
         raise SettingsError("name at least one variogram model to try", key="candidates")
     emp = empirical(xy, z, n_lags=n_lags, max_lag=max_lag)
