@@ -23,11 +23,13 @@ Printed per case:
 * time of geosoil's global engine and of pykrige (``backend="C"``), and the
   ratio pykrige / geosoil;
 * the same for geosoil's local mode (64 nearest samples per tile) against
-  pykrige's *global* run, and the largest difference of the local mode
-  from geosoil's global result;
+  pykrige's *global* run, the largest difference of the local mode from
+  geosoil's global result, and the part of it due to sharing one
+  neighbourhood per tile (against one neighbourhood per cell);
 * peak memory of geosoil's engine: the largest numpy allocation total seen
-  by tracemalloc, and the peak resident size of a child process that only
-  runs the engine (includes Python, numpy and BLAS themselves);
+  by tracemalloc, and the peak resident size (VmHWM) of a child process that
+  only builds the data and runs the engine (includes Python, numpy, BLAS and
+  the data themselves; its size before kriging is shown beside it);
 * the largest difference between geosoil and pykrige on the cells both ran,
   relative to the largest magnitude (``max |a - b| / max |b|``).
 
@@ -104,17 +106,30 @@ def pykrige_run(xy, z, target, model):
     return np.asarray(est), np.asarray(var)
 
 
+def _peak_rss() -> int:
+    """This process's peak resident size: VmHWM (Linux; ru_maxrss can carry the parent's
+    value over a fork), else ru_maxrss."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+
+
 def _child(case_name: str, neighbours, queue) -> None:
     xy, z, target, model = make_data(CASES[case_name])
+    before = _peak_rss()
     tracemalloc.start()
     ordinary_kriging(xy, z, target, model, neighbours=neighbours)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    queue.put((peak, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024))
+    queue.put((peak, _peak_rss(), before))
 
 
-def memory(case: Case, neighbours) -> tuple[int, int]:
-    """(tracemalloc peak, child peak RSS) in bytes, from a fresh process."""
+def memory(case: Case, neighbours) -> tuple[int, int, int]:
+    """(tracemalloc peak, child peak RSS, child RSS before kriging) in bytes, fresh process."""
     ctx = mp.get_context("spawn")
     queue = ctx.Queue()
     proc = ctx.Process(target=_child, args=(case.name, neighbours, queue))
@@ -159,14 +174,20 @@ def run_case(case: Case, *, pykrige_cells: int | None, repeats: int) -> None:
 
     print(f"  pykrige C backend, global:       {t_pk:9.2f} s   ({label})")
     print(f"  geosoil global (exact):          {t_ours:9.2f} s   ratio {t_pk / t_ours:6.1f}x   "
-          f"peak numpy {mib(mem_g[0])}, peak RSS {mib(mem_g[1])}")
+          f"peak numpy {mib(mem_g[0])}, peak RSS {mib(mem_g[1])} ({mib(mem_g[2])} before)")
     print(f"  geosoil local ({LOCAL_NEIGHBOURS} neighbours):    {t_local:9.2f} s   ratio "
-          f"{t_pk / t_local:6.1f}x   peak numpy {mib(mem_l[0])}, peak RSS {mib(mem_l[1])}")
+          f"{t_pk / t_local:6.1f}x   peak numpy {mib(mem_l[0])}, peak RSS {mib(mem_l[1])} "
+          f"({mib(mem_l[2])} before)")
     print(f"  global vs pykrige ({len(subset):,} cells): estimate {rel(est[subset], pk_est):.1e}, "
           f"variance {rel(var[subset], pk_var):.1e}  (max |a-b| / max |b|)")
     print(f"  local vs global (all cells):     estimate {rel(est_l, est):.1e}, "
           f"variance {rel(var_l, var):.1e}; largest estimate difference "
           f"{np.max(np.abs(est_l - est)):.3g} (values span {np.ptp(est):.3g})")
+    # how much of that is the tiles: each cell with its own 64 nearest samples (subset)
+    est_1, _ = ordinary_kriging(xy, z, target[subset[:20_000]], model,
+                                neighbours=LOCAL_NEIGHBOURS, tile_m=0.0)
+    print(f"  local, tiles vs one neighbourhood per cell ({len(est_1):,} cells): largest "
+          f"estimate difference {np.max(np.abs(est_l[subset[:20_000]] - est_1)):.3g}")
 
 
 def main(argv: list[str] | None = None) -> None:
