@@ -1,0 +1,1 @@
+"""The geosoil command line: a thin layer over the :mod:`geosoil` library."""

@@ -1,0 +1,43 @@
+"""``geosoil``: the command group. Each command lives in its own module."""
+
+from __future__ import annotations
+
+import click
+
+from geosoil import __version__
+
+from . import check, demo, explain, new, run
+from .options import set_verbosity
+
+__all__ = ["main", "cli"]
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="geosoil")
+@click.option("-v", "--verbose", count=True, help="More messages on stderr (-vv for debugging).")
+@click.option("-q", "--quiet", is_flag=True, help="Only errors on stderr; results still on stdout.")
+@click.pass_context
+def cli(ctx: click.Context, verbose: int, quiet: bool) -> None:
+    """Gypsum and lime prescriptions from soil samples.
+
+    Reads lab results and paddock boundaries, checks them, krige surfaces,
+    computes per-cell rates by published methods, and writes spreader zones,
+    tonnage, an offline map and a report. Rates are advisory: have them
+    checked by a qualified agronomist and follow local regulations.
+    """
+    ctx.ensure_object(dict)
+    ctx.obj["quiet"] = quiet
+    ctx.obj["verbose"] = verbose
+    set_verbosity(verbose, quiet)
+
+
+cli.add_command(new.new)
+cli.add_command(check.check)
+cli.add_command(run.run)
+cli.add_command(demo.demo)
+cli.add_command(explain.explain)
+
+
+def main() -> None:
+    """Console-script entry point."""
+    cli(prog_name="geosoil")

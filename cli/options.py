@@ -1,0 +1,106 @@
+"""Options shared by several commands, and the one place library errors become exit codes."""
+
+from __future__ import annotations
+
+import functools
+import logging
+import sys
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any, TypeVar
+
+import click
+
+from geosoil.errors import GeosoilError
+
+__all__ = [
+    "project_argument",
+    "out_option",
+    "overwrite_option",
+    "handle_errors",
+    "Progress",
+    "echo_err",
+    "set_verbosity",
+]
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+project_argument = click.argument(
+    "project", type=click.Path(exists=True, path_type=Path), metavar="PROJECT"
+)
+out_option = click.option(
+    "--out",
+    "out",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Output folder (created; must not be an input folder).",
+)
+overwrite_option = click.option(
+    "--overwrite", is_flag=True, help="Replace the contents of an existing output folder."
+)
+
+
+def echo_err(message: str) -> None:
+    """A message for the person at the terminal: to stderr, never to stdout."""
+    click.echo(message, err=True)
+
+
+def handle_errors(func: F) -> F:
+    """Map library errors to exit status 1 with the message on stderr."""
+
+    @functools.wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        try:
+            return func(*args, **kwargs)
+        except GeosoilError as exc:
+            echo_err(f"error: {exc}")
+            sys.exit(1)
+
+    return wrapper  # type: ignore[return-value]
+
+
+class Progress:
+    """Progress lines on stderr for the long steps; silent when quiet.
+
+    On a terminal the line is rewritten in place; otherwise one plain line per step
+    (no animation when the output is not a terminal).
+    """
+
+    def __init__(self, *, quiet: bool) -> None:
+        self.quiet = quiet
+        self.tty = sys.stderr.isatty()
+        self._last_len = 0
+
+    def __call__(self, message: str) -> None:
+        if self.quiet:
+            return
+        if self.tty:
+            pad = max(self._last_len - len(message), 0)
+            sys.stderr.write("\r" + message + " " * pad)
+            sys.stderr.flush()
+            self._last_len = len(message)
+        else:
+            sys.stderr.write(message + "\n")
+
+    def done(self) -> None:
+        if self.tty and not self.quiet and self._last_len:
+            sys.stderr.write("\n")
+            self._last_len = 0
+
+
+def set_verbosity(verbose: int, quiet: bool) -> None:
+    """Route the package logger to stderr at the level the flags ask for."""
+    level = logging.WARNING
+    if quiet:
+        level = logging.ERROR
+    elif verbose >= 2:
+        level = logging.DEBUG
+    elif verbose == 1:
+        level = logging.INFO
+    logger = logging.getLogger("geosoil")
+    logger.setLevel(level)
+    if not any(getattr(h, "_geosoil_cli", False) for h in logger.handlers):
+        handler = logging.StreamHandler(sys.stderr)
+        handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+        handler._geosoil_cli = True  # type: ignore[attr-defined]
+        logger.addHandler(handler)

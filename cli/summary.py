@@ -1,0 +1,31 @@
+"""The end-of-run summary: tonnage to stdout, paths and cautions after it."""
+
+from __future__ import annotations
+
+import click
+
+from geosoil.pipeline import CAUTIONS, RunResult
+from geosoil.tonnage import format_summary
+
+from .options import echo_err
+
+__all__ = ["print_summary"]
+
+
+def print_summary(result: RunResult, *, quiet: bool) -> None:
+    """Print the tonnage table (stdout), then files, warnings and cautions."""
+    click.echo(format_summary(result.tonnage))
+    click.echo("")
+    click.echo(f"Output folder: {result.out_dir}")
+    for name in ("tonnage.csv", "map.html", "report.html", "run.json"):
+        click.echo(f"  {result.out_dir / name}")
+    n_presc = sum(1 for p in result.written if "prescriptions" in p.parts)
+    click.echo(f"  {result.out_dir / 'prescriptions'}  ({n_presc} files)")
+    if result.warnings and not quiet:
+        echo_err(f"{len(result.warnings)} warning(s) recorded in run.json and the report:")
+        for w in result.warnings:
+            echo_err(f"  - {w}")
+    click.echo("")
+    click.echo("Cautions:")
+    for c in CAUTIONS:
+        click.echo(f"  * {c}")

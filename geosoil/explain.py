@@ -1,0 +1,227 @@
+"""The arithmetic for one location, from lab values to product kg/ha, rule by rule.
+
+An agronomist who must defend a rate picks a spot; :func:`explain_location`
+finds its paddock and grid cell, the nearest samples with their lab values,
+the interpolated values at that cell (with the kriging standard deviation),
+the cell's derived chemistry, every rule's steps with its inputs and source,
+and the zone rate the spreader will apply there.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pyproj
+import shapely
+
+from .errors import InputError
+from .pipeline import FarmResult
+from .rates import Step, explain_cell
+from .units import rate_from_kg_ha
+
+__all__ = ["Explanation", "explain_location", "parse_location", "format_explanation"]
+
+
+@dataclass(frozen=True)
+class Explanation:
+    """Everything behind the rate at one location."""
+
+    x: float
+    y: float
+    lon: float
+    lat: float
+    paddock: str
+    row: int
+    col: int
+    nearest_samples: list[dict[str, Any]]
+    interpolated: dict[str, tuple[float, float | None, str]]
+    cell: dict[str, float]
+    steps: list[Step]
+    zones: list[dict[str, Any]]
+    notes: list[str] = field(default_factory=list)
+
+
+def parse_location(text: str) -> tuple[float, float]:
+    """Parse ``"A,B"`` into two numbers.
+
+    >>> parse_location("147.1, -35.2")
+    (147.1, -35.2)
+    """
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) != 2:
+        raise InputError(
+            f"location '{text}' is not two numbers separated by a comma",
+            fix="write --at LON,LAT (e.g. 147.12,-35.20) or --at X,Y in the working CRS",
+        )
+    try:
+        a, b = float(parts[0]), float(parts[1])
+    except ValueError:
+        raise InputError(
+            f"location '{text}' is not two numbers", fix="write --at LON,LAT or --at X,Y"
+        ) from None
+    if not (math.isfinite(a) and math.isfinite(b)):
+        raise InputError(f"location '{text}' is not finite", fix="write --at LON,LAT or --at X,Y")
+    return a, b
+
+
+def explain_location(
+    farm: FarmResult, a: float, b: float, *, coords: str = "auto", n_samples: int = 3
+) -> Explanation:
+    """Explain the rate at ``(a, b)``.
+
+    Parameters
+    ----------
+    farm
+        A computed farm (:func:`geosoil.pipeline.compute`).
+    a, b
+        Longitude and latitude, or x and y in the working CRS.
+    coords
+        ``"lonlat"``, ``"xy"`` or ``"auto"`` (lon/lat when the numbers fit
+        longitude and latitude ranges, else x/y in the working CRS).
+    n_samples
+        How many nearest samples to show.
+
+    Raises
+    ------
+    InputError
+        The location is in no paddock, or outside the paddock's cells.
+    """
+    prep = farm.prep
+    crs = prep.crs
+    to_work = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+    to_ll = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+    lonlat = coords == "lonlat" or (coords == "auto" and abs(a) <= 180 and abs(b) <= 90)
+    if lonlat:
+        lon, lat = a, b
+        x, y = to_work.transform(a, b)
+    else:
+        x, y = a, b
+        lon, lat = to_ll.transform(a, b)
+    pt = shapely.Point(x, y)
+    hit = prep.paddocks[prep.paddocks.contains(pt)]
+    if hit.empty:
+        where = f"lon {lon:.6f}, lat {lat:.6f}" + ("" if lonlat else f" (x {x:.1f}, y {y:.1f})")
+        raise InputError(
+            f"{where} is not inside any paddock ({', '.join(prep.grids)})",
+            fix="give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
+            f"({crs.name})",
+        )
+    name = str(hit["paddock"].iloc[0])
+    grid = prep.grids[name]
+    col_f, row_f = ~grid.transform * (x, y)
+    row, col = int(math.floor(row_f)), int(math.floor(col_f))
+    notes: list[str] = []
+    if not (0 <= row < grid.height and 0 <= col < grid.width) or not grid.mask[row, col]:
+        raise InputError(
+            f"the point falls in paddock '{name}' but not on one of its cells "
+            "(an exclusion area, or the edge of the paddock)",
+            fix="pick a point a cell further inside the paddock",
+        )
+    pts = prep.samples[prep.samples["paddock"] == name]
+    d = np.hypot(pts.geometry.x.to_numpy() - x, pts.geometry.y.to_numpy() - y)
+    order = np.argsort(d)[:n_samples]
+    lab_cols = [c for c in ("ph", "ca", "mg", "k", "na", "acidity", "al", "cec", "sar", "ecec",
+                            "esp") if c in pts.columns]
+    nearest = []
+    for i in order:
+        r = pts.iloc[int(i)]
+        nearest.append({
+            "sample_id": str(r["sample_id"]), "distance_m": float(d[i]),
+            "source_row": int(r["source_row"]) if "source_row" in r else None,
+            **{c: (None if _nan(r[c]) else float(r[c])) for c in lab_cols},
+        })
+    interpolated: dict[str, tuple[float, float | None, str]] = {}
+    for (pad, var), surf in farm.surfaces.items():
+        if pad != name:
+            continue
+        sd = None if surf.std is None else float(surf.std[row, col])
+        interpolated[var] = (float(surf.estimate[row, col]), sd, surf.method)
+    pr = farm.paddocks[name]
+    cell = {k: float(v[row, col]) for k, v in pr.cells.items()}
+    s = prep.project.settings
+    steps = explain_cell(
+        cell, s.rates, prep.products, depth_m=s.soil.depth_m,
+        bulk_density_g_cm3=s.soil.bulk_density_for(name),
+    )
+    zones = []
+    z = pr.zones[pr.zones.contains(pt)]
+    for _, zr in z.iterrows():
+        zones.append({
+            "product": zr["product"], "zone": int(zr["zone"]), "kind": zr["kind"],
+            "rate_kg_ha": float(zr["rate_kg_ha"]),
+            "rate_in_unit": float(rate_from_kg_ha(zr["rate_kg_ha"], s.output.rate_unit)),
+            "unit": s.output.rate_unit,
+            "passes": int(zr["passes"]) if "passes" in zr and not _nan(zr["passes"]) else 1,
+        })
+    for prod, arr in pr.rates.product_rates.items():
+        notes.append(f"per-cell {prod} rate before spreader limits: {float(arr[row, col]):.1f} kg/ha")
+    return Explanation(
+        x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
+        nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
+        zones=zones, notes=notes,
+    )
+
+
+def _nan(v: Any) -> bool:
+    try:
+        return v is None or (isinstance(v, float) and math.isnan(v))
+    except TypeError:
+        return False
+
+
+def format_explanation(e: Explanation) -> str:
+    """The explanation as text for a terminal, top to bottom in the order of the arithmetic."""
+    out: list[str] = []
+    out.append(f"Location: lon {e.lon:.6f}, lat {e.lat:.6f} = x {e.x:.1f}, y {e.y:.1f} (working CRS)")
+    out.append(f"Paddock: {e.paddock}, grid cell row {e.row}, column {e.col}")
+    out.append("")
+    out.append("1. Nearest samples (lab values, cmol(+)/kg; pH as measured)")
+    for s in e.nearest_samples:
+        vals = ", ".join(f"{k} {v:.3g}" for k, v in s.items()
+                         if k not in ("sample_id", "distance_m", "source_row") and v is not None)
+        out.append(f"   {s['sample_id']} ({s['distance_m']:.0f} m away, file row {s['source_row']}): {vals}")
+    out.append("")
+    out.append("2. Interpolated values at this cell")
+    for var, (v, sd, method) in sorted(e.interpolated.items()):
+        sd_txt = f" +/- {sd:.3g} (kriging s.d.)" if sd is not None and math.isfinite(sd) else ""
+        out.append(f"   {var}: {v:.4g}{sd_txt}  [{method}]")
+    out.append("")
+    out.append("3. Cell chemistry (ECEC = sum of the interpolated parts; shares in % of ECEC)")
+    for k in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ph"):
+        if k in e.cell and math.isfinite(e.cell[k]):
+            out.append(f"   {k}: {e.cell[k]:.4g}")
+    out.append("")
+    out.append("4. Rules, step by step")
+    for st in e.steps:
+        out.append(f"   [{st.rule}] {st.description}")
+        if st.formula:
+            out.append(f"      formula: {st.formula}")
+        if st.inputs:
+            ins = ", ".join(f"{k} = {_fmt(v)}" for k, v in st.inputs.items())
+            out.append(f"      inputs: {ins}")
+        out.append(f"      result: {_fmt(st.result)} {st.unit}")
+        if st.source:
+            out.append(f"      source: {st.source}")
+    out.append("")
+    out.append("5. Zone rates the spreader applies here")
+    if not e.zones:
+        out.append("   none")
+    for z in e.zones:
+        out.append(
+            f"   {z['product']}: zone {z['zone']} ({z['kind']}): {z['rate_in_unit']:.4g} {z['unit']}"
+            + (f" in {z['passes']} passes" if z["passes"] > 1 else "")
+        )
+    for n in e.notes:
+        out.append(f"   note: {n}")
+    return "\n".join(out)
+
+
+def _fmt(v: Any) -> str:
+    if isinstance(v, tuple) and len(v) == 2:
+        return f"{_fmt(v[0])} {v[1]}"
+    if isinstance(v, float):
+        return f"{v:.6g}"
+    return str(v)

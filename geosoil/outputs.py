@@ -1,0 +1,471 @@
+"""The output folder of a run: what goes where. [I/O]
+
+Layout (stable; scripts rely on it)::
+
+    OUT/
+      run.json                         machine-readable record of the run
+      tonnage.csv                      one row per paddock, product and zone, plus totals
+      passes.csv                       zones whose rate needs more than one pass
+      samples.csv                      the checked samples with their derived chemistry
+      map.html                         the offline interactive map
+      report.html                      the printable report
+      surfaces/<paddock>/<variable>.tif        interpolated surface
+      surfaces/<paddock>/<variable>_sd.tif     its kriging standard deviation
+      surfaces/<paddock>/<quantity>.tif        derived cell chemistry (ecec, esp, ...)
+      rates/<paddock>/<product>.tif            per-cell product rate, kg/ha
+      rates/<paddock>/<product>__<rule>.tif    each rule's share of that rate, kg/ha
+      prescriptions/<paddock>/<product>.geojson       RFC 7946 zones
+      prescriptions/<paddock>/<product>_shp.zip       zipped ESRI shapefile of the zones
+      prescriptions/<paddock>/<product>_zones.tif     zone rates as a raster
+
+Every file is written to a temporary name and renamed into place.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import rasterio.features
+
+from . import report as report_mod
+from . import webmap
+from .grids import mosaic
+from .pipeline import (
+    CAUTIONS,
+    FarmResult,
+    input_checksums,
+    now_utc,
+    slug,
+    versions,
+)
+from .settings import to_mapping
+from .units import rate_from_kg_ha
+from .writers import atomic_write, write_cog, write_csv, write_geojson, write_json, write_shapefile_zip
+
+__all__ = ["write_outputs", "SURFACE_UNITS"]
+
+logger = logging.getLogger(__name__)
+
+#: Units of every surface and derived quantity, for files, map and report.
+SURFACE_UNITS: dict[str, str] = {
+    "ca": "cmol(+)/kg", "mg": "cmol(+)/kg", "k": "cmol(+)/kg", "na": "cmol(+)/kg",
+    "acidity": "cmol(+)/kg", "al": "cmol(+)/kg", "cec": "cmol(+)/kg", "ecec": "cmol(+)/kg",
+    "ph": "pH units", "esp": "% of ECEC", "ca_sat": "% of ECEC", "mg_sat": "% of ECEC",
+    "k_sat": "% of ECEC", "na_sat": "% of ECEC", "acid_sat": "% of ECEC", "al_sat": "% of ECEC",
+}
+
+#: Readable names of variables.
+TITLES: dict[str, str] = {
+    "ca": "Exchangeable Ca", "mg": "Exchangeable Mg", "k": "Exchangeable K",
+    "na": "Exchangeable Na", "acidity": "Exchangeable acidity", "al": "Exchangeable Al",
+    "cec": "CEC (lab)", "ecec": "ECEC", "ph": "pH", "esp": "ESP (exchangeable sodium)",
+    "ca_sat": "Ca saturation", "mg_sat": "Mg saturation", "k_sat": "K saturation",
+    "na_sat": "Na saturation", "acid_sat": "Acid saturation", "al_sat": "Al saturation",
+}
+
+
+def _rel(path: Path, root: Path) -> str:
+    return str(path.relative_to(root))
+
+
+def write_outputs(
+    farm: FarmResult, *, out_dir: Path, progress: Any = lambda _m: None
+) -> tuple[list[Path], dict[str, Any]]:
+    """Write every output of ``farm`` into ``out_dir`` (which exists and is ours)."""
+    prep = farm.prep
+    s = prep.project.settings
+    crs = prep.crs
+    written: list[Path] = []
+
+    def cog(path: Path, array: np.ndarray, transform: Any, description: str, unit: str) -> None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        write_cog(path, array, transform=transform, crs=crs, descriptions=(description,),
+                  tags={"unit": unit})
+        written.append(path)
+
+    # surfaces and cell chemistry
+    progress("writing surfaces")
+    for (paddock, variable), surf in farm.surfaces.items():
+        grid = prep.grids[paddock]
+        folder = out_dir / "surfaces" / slug(paddock)
+        unit = SURFACE_UNITS.get(variable, "")
+        cog(folder / f"{variable}.tif", surf.estimate, grid.transform,
+            f"{TITLES.get(variable, variable)} ({surf.method})", unit)
+        if surf.std is not None:
+            cog(folder / f"{variable}_sd.tif", surf.std, grid.transform,
+                f"{TITLES.get(variable, variable)}: kriging standard deviation", unit)
+    for name, pr in farm.paddocks.items():
+        folder = out_dir / "surfaces" / slug(name)
+        for q in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat"):
+            if q in pr.cells and (name, q) not in farm.surfaces:
+                cog(folder / f"{q}.tif", pr.cells[q], pr.grid.transform,
+                    f"{TITLES[q]} (derived from the interpolated amounts)", SURFACE_UNITS[q])
+
+    # per-cell rates and each rule's contribution
+    progress("writing rates")
+    for name, pr in farm.paddocks.items():
+        folder = out_dir / "rates" / slug(name)
+        for product, rate in pr.rates.product_rates.items():
+            cog(folder / f"{slug(product)}.tif", rate, pr.grid.transform,
+                f"{product} rate before spreader limits", "kg/ha")
+        for (rule, product), contrib in pr.rates.contributions.items():
+            cog(folder / f"{slug(product)}__{slug(rule)}.tif", contrib, pr.grid.transform,
+                f"{product} for rule {rule}", "kg/ha")
+
+    # prescriptions
+    progress("writing prescriptions")
+    for name, pr in farm.paddocks.items():
+        folder = out_dir / "prescriptions" / slug(name)
+        folder.mkdir(parents=True, exist_ok=True)
+        for product in pr.rates.product_rates:
+            z = pr.zones[pr.zones["product"] == product]
+            if z.empty:
+                continue
+            base = folder / slug(product)
+            p_geo = base.with_suffix(".geojson")
+            write_geojson(p_geo, z)
+            written.append(p_geo)
+            p_zip = folder / f"{slug(product)}_shp.zip"
+            write_shapefile_zip(p_zip, z)
+            written.append(p_zip)
+            shapes = [(g, float(r)) for g, r in zip(z.geometry, z["rate_kg_ha"], strict=True)]
+            zr = rasterio.features.rasterize(
+                shapes, out_shape=pr.grid.mask.shape, transform=pr.grid.transform,
+                fill=np.nan, dtype="float64",
+            )
+            zr[~pr.grid.mask] = np.nan
+            cog(folder / f"{slug(product)}_zones.tif", zr, pr.grid.transform,
+                f"{product} zone rates", "kg/ha")
+
+    # tables
+    p = out_dir / "tonnage.csv"
+    write_csv(p, farm.tonnage)
+    written.append(p)
+    passes = farm.zones[farm.zones.get("passes", pd.Series(1, index=farm.zones.index)) > 1] \
+        if "passes" in farm.zones.columns else farm.zones.iloc[0:0]
+    p = out_dir / "passes.csv"
+    cols = [c for c in ("paddock", "product", "zone", "rate_kg_ha", "passes", "per_pass_kg_ha", "area_ha")
+            if c in passes.columns]
+    write_csv(p, pd.DataFrame(passes[cols]))
+    written.append(p)
+    p = out_dir / "samples.csv"
+    samples = prep.samples.copy()
+    samples["x"] = samples.geometry.x
+    samples["y"] = samples.geometry.y
+    write_csv(p, pd.DataFrame(samples.drop(columns="geometry")))
+    written.append(p)
+
+    record = build_record(farm, out_dir=out_dir)
+
+    # map and report
+    progress("drawing the map")
+    html = build_farm_map(farm)
+    p = out_dir / "map.html"
+    with atomic_write(p) as fh:
+        fh.write(html.encode("utf-8"))
+    written.append(p)
+    progress("writing the report")
+    html = report_mod.build_report(report_input(farm, record))
+    p = out_dir / "report.html"
+    with atomic_write(p) as fh:
+        fh.write(html.encode("utf-8"))
+    written.append(p)
+
+    record["files"] = sorted(_rel(w, out_dir) for w in written) + ["run.json"]
+    p = out_dir / "run.json"
+    write_json(p, record)
+    written.append(p)
+    return written, record
+
+
+def _surface_record(surf: Any) -> dict[str, Any]:
+    rec: dict[str, Any] = {
+        "paddock": surf.paddock,
+        "variable": surf.variable,
+        "unit": SURFACE_UNITS.get(surf.variable, ""),
+        "method": surf.method,
+        "n_samples": surf.n_samples,
+        "log_transform": surf.log_transform,
+        "notes": list(surf.notes),
+    }
+    if surf.model is not None:
+        m = surf.model
+        rec["variogram"] = {
+            "model": m.name, "nugget": m.nugget, "partial_sill": m.psill,
+            "range_m": m.range, "scope": surf.variogram_scope,
+            "scale": "log" if surf.log_transform else "linear",
+        }
+        rec["candidates"] = [
+            {"model": n, "cv_rmse": r, "cv_msse": q} for n, r, q in surf.candidates
+        ]
+    if surf.cross_validation is not None:
+        cv = surf.cross_validation
+        rec["cross_validation"] = {
+            "n": int(cv.n), "mean_error": float(cv.mean_error), "rmse": float(cv.rmse),
+            "msse": float(cv.msse),
+        }
+    finite = surf.estimate[np.isfinite(surf.estimate)]
+    if finite.size:
+        rec["range_of_values"] = [float(finite.min()), float(finite.max())]
+    if surf.std is not None:
+        sd = surf.std[np.isfinite(surf.std)]
+        if sd.size:
+            rec["std_mean"] = float(sd.mean())
+            rec["std_max"] = float(sd.max())
+    return rec
+
+
+def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
+    """The machine-readable record of a run (``run.json``)."""
+    prep = farm.prep
+    s = prep.project.settings
+    zones = farm.zones
+    zone_rows = []
+    for _, z in zones.iterrows():
+        zone_rows.append({
+            k: (v.item() if hasattr(v, "item") else v)
+            for k, v in z.items() if k != "geometry"
+        })
+    totals = farm.tonnage
+    return {
+        "geosoil": {"version": versions()["geosoil"], "created": now_utc()},
+        "project_file": str(prep.project.path) if prep.project.path else None,
+        "inputs": [{"path": p, "sha256": h} for p, h in input_checksums(prep.project)],
+        "settings": to_mapping(s),
+        "versions": versions(),
+        "working_crs": {"wkt": prep.crs.to_wkt(), "name": prep.crs.name,
+                        "epsg": prep.crs.to_epsg(), "reason": prep.crs_reason},
+        "samples": {
+            "file": str(prep.read.file),
+            "n_read": int(len(prep.read.samples)),
+            "n_used": int(len(prep.samples)),
+            "columns": dict(prep.read.columns),
+            "units": dict(prep.read.units),
+            "skipped_rows": [{"row": r, "reason": why} for r, why in prep.read.skipped],
+        },
+        "paddocks": [
+            {"paddock": name, "cells": int(g.mask.sum()), "cell_size_m": s.grid.cell_size_m,
+             "area_ha": float(g.mask.sum() * g.cell_area_ha),
+             "samples": int((prep.samples["paddock"] == name).sum())}
+            for name, g in prep.grids.items()
+        ],
+        "surfaces": [_surface_record(sf) for sf in farm.surfaces.values()],
+        "surfaces_from_cache": farm.cache_hit,
+        "rules": {
+            "notes": prep.rule_notes,
+            "skipped": sorted({f"{r}: {why}" for pr in farm.paddocks.values()
+                               for r, why in pr.rates.skipped}),
+            "cell_notes": {name: pr.cell_notes + list(pr.rates.notes)
+                           for name, pr in farm.paddocks.items()},
+        },
+        "zones": zone_rows,
+        "tonnage": json.loads(totals.to_json(orient="records")),
+        "timings_s": {k: round(v, 3) for k, v in farm.timings.items()},
+        "warnings": list(farm.warnings),
+        "cautions": list(CAUTIONS),
+    }
+
+
+def build_farm_map(farm: FarmResult) -> str:
+    """The interactive map of a run."""
+    prep = farm.prep
+    s = prep.project.settings
+    layers = []
+    names = list(prep.grids)
+
+    def farm_layer(getter: Any) -> tuple[np.ndarray, Any] | None:
+        parts = []
+        for n in names:
+            arr = getter(n)
+            if arr is not None:
+                parts.append((prep.grids[n], arr))
+        if not parts:
+            return None
+        return mosaic(parts)
+
+    def surface(var: str, what: str = "estimate") -> Any:
+        def get(n: str) -> Any:
+            sf = farm.surfaces.get((n, var))
+            if sf is None:
+                cells = farm.paddocks[n].cells
+                return cells.get(var) if what == "estimate" else None
+            return getattr(sf, what)
+        return get
+
+    order = [
+        ("esp", "diverging", 6.0, True), ("ca_sat", "sequential", None, False),
+        ("acidity", "sequential", None, False), ("ecec", "sequential", None, False),
+        ("ph", "diverging", 5.5, False), ("mg_sat", "sequential", None, False),
+        ("ca", "sequential", None, False), ("mg", "sequential", None, False),
+        ("na", "sequential", None, False), ("al", "sequential", None, False),
+    ]
+    for var, scheme, centre, show in order:
+        got = farm_layer(surface(var))
+        if got is None:
+            continue
+        arr, transform = got
+        if not np.isfinite(arr).any():
+            continue
+        layers.append(webmap.RasterLayer(
+            title=TITLES.get(var, var), unit=SURFACE_UNITS.get(var, ""), array=arr,
+            transform=transform, crs=prep.crs, scheme=scheme, centre=centre, show=show,
+            breaks=webmap.SODICITY_BREAKS if var == "esp" else (),
+            class_labels=webmap.SODICITY_LABELS if var == "esp" else (),
+        ))
+    for var in ("na", "acidity", "ca", "ph"):
+        got = farm_layer(surface(var, "std"))
+        if got is None or not np.isfinite(got[0]).any():
+            continue
+        layers.append(webmap.RasterLayer(
+            title=f"{TITLES.get(var, var)}: kriging standard deviation",
+            unit=SURFACE_UNITS.get(var, ""), array=got[0], transform=got[1], crs=prep.crs,
+            scheme="sequential", centre=None, show=False,
+        ))
+    products = sorted({p for pr in farm.paddocks.values() for p in pr.rates.product_rates})
+    for product in products:
+        got = farm_layer(lambda n, p=product: farm.paddocks[n].rates.product_rates.get(p))
+        if got is None:
+            continue
+        arr = np.asarray(rate_from_kg_ha(got[0], s.output.rate_unit), dtype=float)
+        layers.append(webmap.RasterLayer(
+            title=f"{product}: per-cell rate", unit=s.output.rate_unit, array=arr,
+            transform=got[1], crs=prep.crs, scheme="sequential", centre=None, show=False,
+        ))
+    popup_cols = [c for c in (
+        "sample_id", "paddock", "ph", "ca", "mg", "k", "na", "acidity", "al", "ecec",
+        "ca_sat", "mg_sat", "k_sat", "esp", "esp_estimated", "acid_sat", "ca_mg_ratio",
+        "sodicity", "acid_flag") if c in prep.samples.columns]
+    return webmap.build_map(
+        title=s.farm or "geosoil",
+        paddocks=prep.paddocks,
+        samples=prep.samples[[*popup_cols, "geometry"]],
+        rasters=layers,
+        zones=farm.zones,
+        exclusions=prep.exclusions if not prep.exclusions.empty else None,
+        background_tiles=s.output.background_tiles,
+    )
+
+
+#: Kriging standard deviation counted as "uncertain", per variable, for the report's
+#: "least certain" table (in the variable's unit). Our own thresholds: about the size of
+#: the difference that would change a rate class.
+UNCERTAIN_SD: dict[str, float] = {
+    "ca": 1.0, "mg": 0.5, "k": 0.1, "na": 0.3, "acidity": 0.3, "al": 0.3, "cec": 2.0,
+    "ph": 0.3, "esp": 2.0,
+}
+
+
+def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportInput:
+    """Gather what the report shows (see :mod:`geosoil.report`)."""
+    prep = farm.prep
+    s = prep.project.settings
+    variograms = []
+    uncertainty = []
+    for surf in farm.surfaces.values():
+        emp = surf.empirical
+        m = surf.model
+        cv = surf.cross_validation
+        note = "; ".join(surf.notes)
+        if surf.log_transform:
+            note = (note + "; " if note else "") + "variogram of the natural log of the values"
+        variograms.append(report_mod.VariogramInfo(
+            variable=surf.variable, paddock=surf.paddock, method=surf.method,
+            unit=("ln " if surf.log_transform else "") + SURFACE_UNITS.get(surf.variable, ""),
+            model=None if m is None else m.name,
+            nugget=None if m is None else m.nugget,
+            psill=None if m is None else m.psill,
+            range_m=None if m is None else m.range,
+            nu=None if m is None else m.nu,
+            lags=() if emp is None else tuple(float(v) for v in emp.lags),
+            gamma=() if emp is None else tuple(float(v) for v in emp.gamma),
+            counts=() if emp is None else tuple(int(v) for v in emp.counts),
+            cv_mean_error=None if cv is None else float(cv.mean_error),
+            cv_rmse=None if cv is None else float(cv.rmse),
+            cv_msse=None if cv is None else float(cv.msse),
+            n_samples=surf.n_samples,
+            note=note,
+        ))
+        if surf.std is not None:
+            sd = surf.std[np.isfinite(surf.std)]
+            if sd.size:
+                thr = UNCERTAIN_SD.get(surf.variable, float(np.median(sd)))
+                uncertainty.append(report_mod.UncertaintySummary(
+                    variable=surf.variable, paddock=surf.paddock,
+                    unit=SURFACE_UNITS.get(surf.variable, ""), sd_threshold=thr,
+                    share_above=float((sd > thr).mean()), sd_max=float(sd.max()),
+                    sd_mean=float(sd.mean()),
+                ))
+    density = [
+        report_mod.SampleDensity(
+            paddock=name, samples=int((prep.samples["paddock"] == name).sum()),
+            area_ha=float(g.mask.sum() * g.cell_area_ha),
+        )
+        for name, g in prep.grids.items()
+    ]
+    assumptions: dict[str, str] = {
+        "Treated depth": f"{s.soil.depth_m:g} m",
+        "Bulk density": f"{s.soil.bulk_density_g_cm3:g} g/cm3"
+        + "".join(f"; {k}: {v:g}" for k, v in s.soil.bulk_density_by_paddock.items()),
+        "Grid cell": f"{s.grid.cell_size_m:g} m",
+        "Working CRS": f"{prep.crs.name} ({prep.crs_reason})",
+        "Zones": f"{s.zones.method}, {s.zones.classes} classes, zones under "
+        f"{s.zones.min_zone_area_ha:g} ha merged",
+        "Spreader": f"min {s.spreader.min_rate:g} {s.spreader.unit}, max per pass "
+        f"{s.spreader.max_per_pass:g} {s.spreader.unit} (0 = none), step "
+        f"{s.spreader.rate_step:g} {s.spreader.unit}",
+    }
+    for key, prod in prep.products.items():
+        assumptions[f"Product '{key}'"] = product_text(prod)
+    methods: dict[str, str] = {}
+    for pr in farm.paddocks.values():
+        for rule, method in pr.rates.methods.items():
+            methods.setdefault(rule, method)
+    methods.setdefault(
+        "Interpolation",
+        "ordinary kriging with variograms fitted by weighted least squares (Cressie 1985) "
+        "and chosen by leave-one-out cross-validation (closed form, Dubrule 1983)",
+    )
+    methods.setdefault("Sodicity classes", "ESP >= 6 % sodic, >= 15 % strongly sodic "
+                       "(Northcote & Skene 1972)")
+    settings_toml = prep.project.text
+    return report_mod.ReportInput(
+        title=f"{s.farm or 'Farm'}: gypsum and lime prescriptions",
+        created=datetime.now(UTC),
+        tonnage=farm.tonnage,
+        zones=farm.zones,
+        paddocks=prep.paddocks,
+        variograms=tuple(variograms),
+        uncertainty=tuple(uncertainty),
+        density=tuple(density),
+        assumptions=assumptions,
+        methods=tuple(methods.items()),
+        warnings=tuple(farm.warnings) + tuple(
+            f"{name}: {n}" for name, pr in farm.paddocks.items()
+            for n in (*pr.cell_notes, *pr.rates.notes, *pr.zone_notes)
+        ),
+        provenance=report_mod.Provenance(
+            inputs=tuple(input_checksums(prep.project)),
+            settings_toml=settings_toml,
+            versions=versions(),
+        ),
+    )
+
+
+def product_text(prod: Any) -> str:
+    """One line describing a product's analysis as used (fractions as spread)."""
+    bits = [f"{prod.label}"]
+    for v, label in ((prod.ca_fraction, "Ca"), (prod.mg_fraction, "Mg"), (prod.k_fraction, "K"),
+                     (prod.s_fraction, "S")):
+        if v:
+            bits.append(f"{label} {100 * v:.2f} %")
+    if prod.cce:
+        bits.append(f"CCE {100 * prod.cce:.1f} %, fineness factor {prod.fineness_factor:.2f}, "
+                    f"ENV {100 * prod.env:.1f} %")
+    bits.append(f"purity {100 * prod.purity:.0f} %, moisture {100 * prod.moisture:.0f} %")
+    return ", ".join(bits)

@@ -1,0 +1,518 @@
+"""The whole job: a project in, prescriptions, tonnage, map, report and run record out.
+
+Stages (each a call into one module; this file holds the order and the
+bookkeeping, no agronomy and no geostatistics):
+
+1. read the boundaries and the lab file; choose the working CRS;
+2. check and place the samples (paddock join, near-duplicates); per-sample chemistry;
+3. check that the enabled rules have the data they need;
+4. aligned paddock grids; interpolated surfaces (cached by a hash of their inputs);
+5. per-cell chemistry and rates; spreader zones; tonnage;
+6. write everything atomically into a new output folder.
+
+Every warning raised on the way is recorded in ``run.json`` and the report.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import logging
+import os
+import pickle
+import platform
+import re
+import time
+import warnings
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from . import __version__
+from .boundaries import read_exclusions, read_paddocks, read_user_zones
+from .chemistry import derive
+from .crs import choose_working_crs
+from .errors import GeosoilError, GeosoilWarning
+from .grids import PaddockGrid, aligned_grids
+from .products import Product, resolve_products
+from .report import CAUTIONS
+from .project import Project
+from .rates import RateResult, check_inputs, compute_rates
+from .samples import SampleRead, prepare_samples, read_samples
+from .settings import to_mapping
+from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
+from .tonnage import tonnage_table
+from .zones import make_zones
+
+__all__ = [
+    "Prepared",
+    "FarmResult",
+    "RunResult",
+    "prepare",
+    "compute",
+    "run",
+    "check",
+    "CAUTIONS",
+    "slug",
+]
+
+logger = logging.getLogger(__name__)
+
+Progress = Callable[[str], None]
+
+
+def _quiet(_: str) -> None:
+    return None
+
+
+def slug(name: str) -> str:
+    """A file-name-safe form of a paddock or product name.
+
+    >>> slug("North Flat / Dam side")
+    'north-flat-dam-side'
+    """
+    s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    return s or "unnamed"
+
+
+def sha256_file(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+@contextmanager
+def _recording(sink: list[str]) -> Iterator[None]:
+    """Record every geosoil warning raised inside the block (and still log it)."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", GeosoilWarning)
+        try:
+            yield
+        finally:
+            for w in caught:
+                if issubclass(w.category, GeosoilWarning):
+                    msg = str(w.message)
+                    if msg not in sink:
+                        sink.append(msg)
+                        logger.info(msg)
+                else:
+                    warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+
+
+# --------------------------------------------------------------------------- stage 1-4
+
+
+@dataclass
+class Prepared:
+    """Inputs read, checked and placed on the working CRS, ready to interpolate."""
+
+    project: Project
+    crs: Any
+    crs_reason: str
+    paddocks: gpd.GeoDataFrame
+    exclusions: gpd.GeoDataFrame
+    user_zones: gpd.GeoDataFrame | None
+    read: SampleRead
+    samples: gpd.GeoDataFrame
+    grids: dict[str, PaddockGrid]
+    variables: list[str]
+    products: dict[str, Product]
+    rule_notes: list[str]
+    warnings: list[str] = field(default_factory=list)
+
+
+def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
+    """Stages 1-4 without interpolation: read, check and place everything.
+
+    Raises
+    ------
+    GeosoilError
+        The first input or settings problem found, naming file, row, column or key.
+    """
+    s = project.settings
+    sink: list[str] = []
+    with _recording(sink):
+        progress("reading boundaries")
+        paddocks = read_paddocks(s.boundaries)
+        progress("reading samples")
+        read = read_samples(s.samples)
+        samples = read.samples
+        lonlat = paddocks.geometry.to_crs("EPSG:4326").total_bounds
+        crs, reason = choose_working_crs(
+            candidates=[c for c in (paddocks.crs, samples.crs) if c is not None],
+            lonlat_bounds=tuple(float(v) for v in lonlat),
+        )
+        paddocks = paddocks.to_crs(crs)
+        exclusions = read_exclusions(s.boundaries, crs=crs)
+        user_zones = None
+        if s.boundaries.zones is not None:
+            user_zones = read_user_zones(
+                s.boundaries.zones, crs=crs, id_column=s.boundaries.zone_id_column,
+                duplicate_names=s.boundaries.duplicate_names,
+            )
+        samples = prepare_samples(
+            samples, paddocks=paddocks, working_crs=crs, settings=s.samples, file=str(read.file)
+        )
+        samples = derive(
+            samples, s.chemistry, file=read.file, headers=read.columns,
+            ph_method=read.methods.get("ph"), on_bad_row=s.samples.on_bad_row,
+        )
+        variables = variables_to_interpolate(samples)
+        products = resolve_products(s.products)
+        rule_notes = check_inputs(s.rates, set(variables) | _derivable(variables), products)
+        progress("building grids")
+        excl_union = None if exclusions.empty else shapely.union_all(exclusions.geometry.values)
+        grids = aligned_grids(paddocks, cell_size_m=s.grid.cell_size_m, exclusions=excl_union)
+    return Prepared(
+        project=project, crs=crs, crs_reason=reason, paddocks=paddocks, exclusions=exclusions,
+        user_zones=user_zones, read=read, samples=samples, grids=grids, variables=variables,
+        products=products, rule_notes=list(rule_notes), warnings=sink,
+    )
+
+
+def _derivable(variables: list[str]) -> set[str]:
+    """Cell quantities that follow from the interpolated ones."""
+    have = set(variables)
+    out: set[str] = set()
+    if {"ca", "mg", "k", "na"} <= have or "cec" in have:
+        out |= {"ecec"}
+        out |= {f"{p}_sat" for p in ("ca", "mg", "k", "na") if p in have}
+        if "na" in have or "esp" in have:
+            out |= {"esp", "na_sat", "na"}
+        if "acidity" in have:
+            out.add("acid_sat")
+        if "al" in have:
+            out.add("al_sat")
+    return out
+
+
+# --------------------------------------------------------------------------- surfaces cache
+
+
+def _surface_key(prep: Prepared) -> str:
+    s = prep.project.settings
+    h = hashlib.sha256()
+    h.update(f"geosoil {__version__} surfaces v1\n".encode())
+    cols = ["paddock", *prep.variables]
+    table = prep.samples[cols].copy()
+    table["x"] = prep.samples.geometry.x.round(6)
+    table["y"] = prep.samples.geometry.y.round(6)
+    h.update(table.to_csv(index=False).encode())
+    h.update(json.dumps(to_mapping(s.interpolation), sort_keys=True).encode())
+    h.update(prep.crs.to_wkt().encode())
+    for name in sorted(prep.grids):
+        g = prep.grids[name]
+        h.update(name.encode())
+        h.update(repr(tuple(g.transform)).encode())
+        h.update(np.packbits(g.mask).tobytes())
+        h.update(repr(g.mask.shape).encode())
+    if prep.user_zones is not None:
+        for g in prep.user_zones.geometry:
+            h.update(shapely.to_wkb(g))
+    return h.hexdigest()
+
+
+def _cache_dir(prep: Prepared) -> Path:
+    configured = prep.project.settings.output.cache_dir
+    if configured is not None:
+        return Path(configured)
+    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
+    return Path(base) / "geosoil"
+
+
+def surfaces_for(
+    prep: Prepared, *, progress: Progress = _quiet, use_cache: bool = True
+) -> tuple[dict[tuple[str, str], Surface], bool]:
+    """Interpolated surfaces, from the cache when their inputs are unchanged.
+
+    Returns the surfaces and whether they came from the cache.
+    """
+    key = _surface_key(prep)
+    path = _cache_dir(prep) / f"surfaces-{key[:32]}.pickle"
+    if use_cache and path.exists():
+        try:
+            with open(path, "rb") as fh:
+                stored = pickle.load(fh)
+            if stored.get("key") == key:
+                progress("surfaces: unchanged inputs, taken from the cache")
+                return stored["surfaces"], True
+        except Exception as exc:  # a damaged cache is rebuilt, never trusted
+            logger.info("surface cache %s unreadable (%s); rebuilding", path, exc)
+    sink = prep.warnings
+    with _recording(sink):
+        surfaces = interpolate_farm(
+            prep.samples,
+            prep.grids,
+            variables=prep.variables,
+            settings=prep.project.settings.interpolation,
+            user_zones=prep.user_zones,
+            progress=progress,
+        )
+    if use_cache:
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            tmp = path.with_suffix(f".tmp{os.getpid()}")
+            with open(tmp, "wb") as fh:
+                pickle.dump({"key": key, "surfaces": surfaces}, fh, protocol=pickle.HIGHEST_PROTOCOL)
+            os.replace(tmp, path)
+        except OSError as exc:
+            logger.info("could not write the surface cache %s (%s)", path, exc)
+    return surfaces, False
+
+
+# --------------------------------------------------------------------------- stage 5
+
+
+@dataclass
+class PaddockResult:
+    """Everything computed for one paddock."""
+
+    name: str
+    grid: PaddockGrid
+    cells: dict[str, np.ndarray]
+    cell_notes: list[str]
+    rates: RateResult
+    zones: gpd.GeoDataFrame
+    zone_notes: list[str]
+
+
+@dataclass
+class FarmResult:
+    """Stages 1-5: every number of the job, nothing written yet."""
+
+    prep: Prepared
+    surfaces: dict[tuple[str, str], Surface]
+    cache_hit: bool
+    paddocks: dict[str, PaddockResult]
+    zones: gpd.GeoDataFrame
+    tonnage: pd.DataFrame
+    timings: dict[str, float]
+
+    @property
+    def warnings(self) -> list[str]:
+        return self.prep.warnings
+
+
+def compute(
+    project: Project, *, progress: Progress = _quiet, use_cache: bool = True
+) -> FarmResult:
+    """Stages 1-5: read, interpolate, compute rates, zones and tonnage."""
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    prep = prepare(project, progress=progress)
+    timings["read and check"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    surfaces, hit = surfaces_for(prep, progress=progress, use_cache=use_cache)
+    timings["surfaces"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    s = project.settings
+    results: dict[str, PaddockResult] = {}
+    all_zones: list[gpd.GeoDataFrame] = []
+    with _recording(prep.warnings):
+        for name, grid in prep.grids.items():
+            progress(f"rates and zones: {name}")
+            est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
+            cells, cell_notes = derive_cells(est)
+            rr = compute_rates(
+                cells,
+                s.rates,
+                prep.products,
+                depth_m=s.soil.depth_m,
+                bulk_density_g_cm3=s.soil.bulk_density_for(name),
+            )
+            boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
+            excl = None
+            if not prep.exclusions.empty:
+                near = prep.exclusions[prep.exclusions.intersects(boundary)]
+                excl = near if not near.empty else None
+            zones_here = None
+            zone_settings = s.zones
+            zone_notes: list[str] = []
+            if prep.user_zones is not None:
+                zh = prep.user_zones[prep.user_zones.intersects(boundary)]
+                if not zh.empty:
+                    zones_here = zh
+                    if zone_settings.method != "user_zones":
+                        zone_settings = dataclasses.replace(zone_settings, method="user_zones")
+                        zone_notes.append(
+                            f"{name}: the project gives management zones here, so each of them "
+                            "takes one rate (the zones method applies to the other paddocks)"
+                        )
+            zone_frames = []
+            for product, rate in rr.product_rates.items():
+                zr = make_zones(
+                    rate,
+                    transform=grid.transform,
+                    crs=prep.crs,
+                    paddock=name,
+                    product=product,
+                    boundary=boundary,
+                    exclusions=excl,
+                    user_zones=zones_here,
+                    settings=zone_settings,
+                    min_rate_kg_ha=s.spreader.min_rate_kg_ha,
+                    max_per_pass_kg_ha=s.spreader.max_per_pass_kg_ha or None,
+                    step_kg_ha=s.spreader.rate_step_kg_ha,
+                )
+                zone_frames.append(zr.zones)
+                zone_notes.extend(zr.notes)
+            zones = (
+                pd.concat(zone_frames, ignore_index=True)
+                if zone_frames
+                else gpd.GeoDataFrame(geometry=[], crs=prep.crs)
+            )
+            all_zones.append(zones)
+            results[name] = PaddockResult(name, grid, cells, cell_notes, rr, zones, zone_notes)
+        zones_all = gpd.GeoDataFrame(
+            pd.concat(all_zones, ignore_index=True), crs=prep.crs
+        ) if all_zones else gpd.GeoDataFrame(geometry=[], crs=prep.crs)
+        table = tonnage_table(
+            zones_all,
+            capacity_t=s.tonnage.truck_capacity_t,
+            price_per_t=s.tonnage.price_per_t or None,
+        )
+    timings["rates, zones and tonnage"] = time.perf_counter() - t0
+    return FarmResult(prep, surfaces, hit, results, zones_all, table, timings)
+
+
+# --------------------------------------------------------------------------- stage 6
+
+
+@dataclass
+class RunResult:
+    """What a run wrote and the figures the CLI prints."""
+
+    out_dir: Path
+    written: list[Path]
+    farm: FarmResult
+    record: dict[str, Any]
+
+    @property
+    def tonnage(self) -> pd.DataFrame:
+        return self.farm.tonnage
+
+    @property
+    def warnings(self) -> list[str]:
+        return self.farm.warnings
+
+
+def run(
+    project: Project,
+    *,
+    out_dir: Path,
+    overwrite: bool = False,
+    progress: Progress = _quiet,
+    use_cache: bool = True,
+) -> RunResult:
+    """The whole job into ``out_dir``.
+
+    Raises
+    ------
+    OutputExistsError
+        ``out_dir`` exists and is not empty, and ``overwrite`` is false; or it
+        is (or holds) an input folder.
+    GeosoilError
+        Any input or settings problem.
+    """
+    from .outputs import write_outputs  # the I/O edge
+
+    ensure = _ensure_output(project, out_dir, overwrite=overwrite)
+    farm = compute(project, progress=progress, use_cache=use_cache)
+    t0 = time.perf_counter()
+    written, record = write_outputs(farm, out_dir=ensure, progress=progress)
+    farm.timings["writing"] = time.perf_counter() - t0
+    return RunResult(out_dir=ensure, written=written, farm=farm, record=record)
+
+
+def _ensure_output(project: Project, out_dir: Path, *, overwrite: bool) -> Path:
+    from .writers import ensure_output_dir
+
+    inputs = [p for p in project.input_files() if p is not None]
+    if project.path is not None:
+        inputs.append(project.path)
+    return ensure_output_dir(Path(out_dir), overwrite=overwrite, inputs=inputs)
+
+
+def check(project: Project) -> tuple[list[str], list[str]]:
+    """Validate inputs and settings without writing anything.
+
+    Returns
+    -------
+    problems, warnings
+        ``problems`` lists every error found (all bad sample rows, not only
+        the first); an empty list means the project would run.
+    """
+    problems: list[str] = []
+    sink: list[str] = []
+    lenient = dataclasses.replace(project.settings.samples, on_bad_row="skip")
+    strict = project.settings.samples.on_bad_row == "stop"
+    trial = dataclasses.replace(
+        project, settings=dataclasses.replace(project.settings, samples=lenient)
+    )
+    try:
+        with _recording(sink):
+            prep = prepare(trial)
+        if strict:
+            for row, reason in prep.read.skipped:
+                problems.append(f"{prep.read.file}, row {row}: {reason}")
+        if not prep.samples.empty:
+            for name in prep.grids:
+                if not (prep.samples["paddock"] == name).any() and not (
+                    project.settings.interpolation.borrow_farm_surface
+                ):
+                    problems.append(
+                        f"paddock '{name}' has no samples; sample it or set "
+                        "[interpolation] borrow_farm_surface = true"
+                    )
+        sink.extend(w for w in prep.warnings if w not in sink)
+    except GeosoilError as exc:
+        problems.append(str(exc))
+    return problems, sink
+
+
+def versions() -> dict[str, str]:
+    """Versions of geosoil, Python and the libraries whose numbers matter."""
+    import importlib.metadata as md
+
+    out = {"geosoil": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "scipy", "pandas", "geopandas", "shapely", "pyproj", "rasterio",
+                "pyogrio", "folium", "mapclassify"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            pass
+    try:
+        import rasterio
+
+        out["gdal"] = rasterio.__gdal_version__
+        import pyproj
+
+        out["proj"] = pyproj.proj_version_str
+    except Exception:  # pragma: no cover - informative only
+        pass
+    return out
+
+
+def now_utc() -> str:
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+def input_checksums(project: Project) -> list[tuple[str, str]]:
+    out = []
+    for p in project.input_files():
+        if p is not None and Path(p).exists():
+            out.append((str(p), sha256_file(Path(p))))
+    if project.path is not None:
+        out.append((str(project.path), sha256_file(project.path)))
+    return out

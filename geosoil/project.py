@@ -1,0 +1,407 @@
+"""The project file: one TOML file that holds every setting of a job.
+
+A project file sits in a folder with (or pointing at) the samples file and the
+boundary files; relative paths are resolved from the project file's folder.
+Every key is validated on load (type, range, allowed values); an unknown key is
+rejected with the nearest valid key suggested; every message names the dotted
+key. :func:`template` writes a complete project file, every setting with its
+default and a one-line comment, from the settings classes themselves, so the
+template and the validation can never disagree.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import math
+import tomllib
+import typing
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import tomli_w
+
+from .boundaries import BoundarySettings
+from .chemistry import ChemistrySettings
+from .errors import InputError, SettingsError
+from .products import ProductSettings
+from .rates import RateSettings, SpreaderSettings
+from .samples import SampleSettings
+from .settings import describe, from_mapping, setting, to_mapping
+from .surfaces import InterpolationSettings
+from .zones import ZoneSettings
+
+__all__ = [
+    "PROJECT_FILE_NAME",
+    "SoilSettings",
+    "GridSettings",
+    "TonnageSettings",
+    "OutputSettings",
+    "ProjectSettings",
+    "Project",
+    "load_project",
+    "parse_project",
+    "template",
+    "default_products",
+    "new_project",
+]
+
+PROJECT_FILE_NAME = "geosoil.toml"
+
+
+@dataclass(frozen=True)
+class SoilSettings:
+    """The layer of soil an amendment must treat."""
+
+    depth_m: float = setting(
+        0.10, doc="depth of soil the amendment must treat", unit="m", minimum=0.01, maximum=1.0
+    )
+    bulk_density_g_cm3: float = setting(
+        1.3,
+        doc="dry bulk density of that layer (about 1.4 when unmeasured: common practice)",
+        unit="g/cm3",
+        minimum=0.5,
+        maximum=2.0,
+    )
+    bulk_density_by_paddock: dict[str, float] = setting(
+        default_factory=dict,
+        doc="measured bulk density per paddock name, overriding bulk_density_g_cm3",
+        unit="g/cm3",
+    )
+
+    def __post_init__(self) -> None:
+        for name, bd in self.bulk_density_by_paddock.items():
+            if not (0.5 <= bd <= 2.0):
+                raise SettingsError(
+                    f"must be from 0.5 to 2.0 g/cm3 (got {bd:g})",
+                    key=f"bulk_density_by_paddock.{name}",
+                )
+
+    def bulk_density_for(self, paddock: str) -> float:
+        """Bulk density of ``paddock`` (its own value, else the farm value)."""
+        return self.bulk_density_by_paddock.get(paddock, self.bulk_density_g_cm3)
+
+
+@dataclass(frozen=True)
+class GridSettings:
+    """The raster grid every surface and rate is computed on."""
+
+    cell_size_m: float = setting(
+        10.0, doc="side of a grid cell", unit="m", minimum=1.0, maximum=200.0
+    )
+
+
+@dataclass(frozen=True)
+class TonnageSettings:
+    """Carting and cost figures for the tonnage table."""
+
+    truck_capacity_t: float | None = setting(
+        None, doc="load a truck or spreader carries, for truckloads", unit="t", minimum=0.1
+    )
+    price_per_t: dict[str, float] = setting(
+        default_factory=dict, doc="price of each product per tonne, delivered", unit="per t"
+    )
+
+    def __post_init__(self) -> None:
+        for name, price in self.price_per_t.items():
+            if not (price >= 0 and math.isfinite(price)):
+                raise SettingsError(f"must be 0 or more (got {price:g})", key=f"price_per_t.{name}")
+
+
+@dataclass(frozen=True)
+class OutputSettings:
+    """How results are written and shown."""
+
+    rate_unit: str = setting(
+        "kg/ha", doc="unit of rates in the map, report and summary", choices=("kg/ha", "t/ha", "lb/ac")
+    )
+    background_tiles: bool = setting(
+        False, doc="add an online background map layer (the map works offline without it)"
+    )
+    cache_dir: Path | None = setting(
+        None,
+        doc="folder for cached surfaces (default: the user's cache folder, ~/.cache/geosoil)",
+    )
+
+
+def default_products() -> dict[str, ProductSettings]:
+    """The products a new project lists: gypsum and agricultural lime."""
+    return {"gypsum": ProductSettings(), "lime": ProductSettings()}
+
+
+@dataclass(frozen=True)
+class ProjectSettings:
+    """Every setting of a job, one table per stage."""
+
+    samples: SampleSettings = setting(doc="the lab results file and how to read it")
+    boundaries: BoundarySettings = setting(doc="paddock boundaries, exclusions, creeks, zones")
+    farm: str = setting("", doc="farm name shown on the map and the report")
+    chemistry: ChemistrySettings = setting(
+        default_factory=ChemistrySettings, doc="thresholds for sodicity and acidity classes"
+    )
+    soil: SoilSettings = setting(default_factory=SoilSettings, doc="the treated layer")
+    grid: GridSettings = setting(default_factory=GridSettings, doc="the computation grid")
+    interpolation: InterpolationSettings = setting(
+        default_factory=InterpolationSettings, doc="variograms and kriging"
+    )
+    rates: RateSettings = setting(default_factory=RateSettings, doc="amendment rules")
+    products: dict[str, ProductSettings] = setting(
+        default_factory=default_products, doc="products bought, with their analysis"
+    )
+    spreader: SpreaderSettings = setting(
+        default_factory=SpreaderSettings, doc="what the spreader can apply"
+    )
+    zones: ZoneSettings = setting(default_factory=ZoneSettings, doc="spreader zones")
+    tonnage: TonnageSettings = setting(default_factory=TonnageSettings, doc="carting and cost")
+    output: OutputSettings = setting(default_factory=OutputSettings, doc="outputs")
+
+
+@dataclass(frozen=True)
+class Project:
+    """A loaded project: its settings, its file and the folder paths are resolved from."""
+
+    settings: ProjectSettings
+    path: Path | None
+    text: str
+
+    @property
+    def folder(self) -> Path | None:
+        return None if self.path is None else self.path.parent
+
+    def input_files(self) -> list[Path]:
+        """Every input file the project names (samples, boundaries, zones...)."""
+        files: list[Path] = [self.settings.samples.file]
+        b = self.settings.boundaries
+        for f in dataclasses.fields(b):
+            v = getattr(b, f.name)
+            if isinstance(v, Path):
+                files.append(v)
+        return files
+
+
+def parse_project(text: str, *, base_dir: Path, source: str = "project file") -> ProjectSettings:
+    """Parse and validate project-file ``text``; relative paths resolve from ``base_dir``.
+
+    Raises
+    ------
+    InputError
+        The text is not valid TOML (with the line and column).
+    SettingsError
+        A key is unknown, missing, of the wrong type or out of range.
+    """
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(
+            f"not valid TOML ({exc})", file=source, fix="correct the line the parser names"
+        ) from None
+    return from_mapping(ProjectSettings, data, section="", base_dir=base_dir)
+
+
+def load_project(path: Path | str) -> Project:
+    """Load a project from its TOML file or from the folder that holds ``geosoil.toml``."""
+    p = Path(path)
+    if p.is_dir():
+        p = p / PROJECT_FILE_NAME
+    if not p.exists():
+        raise InputError(
+            "project file not found",
+            file=p,
+            fix=f"give a project folder holding {PROJECT_FILE_NAME}, or create one with 'geosoil new'",
+        )
+    try:
+        text = p.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the project file ({exc})", file=p) from None
+    settings = parse_project(text, base_dir=p.parent.resolve(), source=str(p))
+    return Project(settings=settings, path=p.resolve(), text=text)
+
+
+# --------------------------------------------------------------------------- template
+
+
+def _toml_value(value: Any) -> str:
+    """One TOML value on one line (inline tables and arrays included)."""
+    if isinstance(value, dict):
+        items = ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
+        return "{ " + items + " }" if items else "{}"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    return tomli_w.dumps({"v": value}).strip().split("=", 1)[1].strip()
+
+
+def _toml_key(key: str) -> str:
+    return tomli_w.dumps({key: 0}).strip().rsplit("=", 1)[0].strip()
+
+
+def _comment(doc: Any) -> str:
+    text = doc.doc
+    if doc.unit:
+        text += f" [{doc.unit}]"
+    if doc.choices:
+        text += "; one of: " + ", ".join(doc.choices)
+    return "  # " + text
+
+
+def _emit_table(lines: list[str], section: str, cls: type, values: Any) -> None:
+    hints = typing.get_type_hints(cls)
+    simple: list[str] = []
+    nested: list[tuple[str, type, Any]] = []
+    for doc in describe(cls):
+        value = getattr(values, doc.key) if values is not None else doc.default
+        tp = hints[doc.key]
+        if dataclasses.is_dataclass(tp):
+            nested.append((doc.key, tp, value))
+            continue
+        if typing.get_origin(tp) is dict:
+            vtp = typing.get_args(tp)[1]
+            if dataclasses.is_dataclass(vtp):
+                for name, sub in (value or {}).items():
+                    nested.append((f"{doc.key}.{name}", vtp, sub))
+                continue
+        if value is None or value is dataclasses.MISSING:
+            simple.append(f"# {doc.key} = {_comment(doc)[4:]}")
+        else:
+            plain = to_mapping(_Box(value))["v"] if value is not None else None
+            if isinstance(plain, dict) and not plain:
+                simple.append(f"# {doc.key} = {{}}{_comment(doc)}")
+            else:
+                simple.append(f"{doc.key} = {_toml_value(plain)}{_comment(doc)}")
+    if simple:
+        if section:
+            lines.append("")
+            lines.append(f"[{section}]")
+        lines.extend(simple)
+    for key, tp, value in nested:
+        _emit_table(lines, f"{section}.{key}" if section else key, tp, value)
+
+
+@dataclass(frozen=True)
+class _Box:
+    v: Any
+
+
+def template(settings: ProjectSettings, *, header: str = "") -> str:
+    """A complete, commented project file for ``settings``.
+
+    Every key is written with its value and a one-line comment (unit and allowed
+    values); keys without a value are written commented out. The text parses
+    back to the same settings.
+    """
+    lines = ["# geosoil project file. Units are in the key names or the comments."]
+    if header:
+        lines.extend("# " + h for h in header.splitlines())
+    lines.append(
+        "# Rates are advisory: have them checked by a qualified agronomist; local codes prevail."
+    )
+    _emit_table(lines, "", ProjectSettings, settings)
+    return "\n".join(lines) + "\n"
+
+
+# --------------------------------------------------------------------------- new project
+
+
+def _relative(path: Path, folder: Path) -> Path:
+    """``path`` relative to ``folder`` when it is near (at most one level up), else absolute."""
+    try:
+        rel = Path(os.path.relpath(path.resolve(), folder.resolve()))
+    except ValueError:  # another drive on Windows
+        return path.resolve()
+    return rel if rel.parts[:2] != ("..", "..") else path.resolve()
+
+
+def new_project(
+    folder: Path | str,
+    *,
+    samples: Path | str,
+    paddocks: Path | str,
+    crs: str | None = None,
+    overwrite: bool = False,
+) -> tuple[Path, list[str]]:
+    """Write ``folder/geosoil.toml`` for a samples file and a boundaries file.
+
+    The lab file's columns, units and coordinate CRS are detected and written
+    out; every other setting is written at its default with a comment. The
+    file runs as written.
+
+    CRS of the sample coordinates, in order: the file's own (vector formats);
+    ``crs`` when given; lon/lat when the coordinate columns are named or look
+    like longitude and latitude; else the boundaries' CRS when the x/y fall
+    inside the boundaries in that CRS (a note says so).
+
+    Returns
+    -------
+    path, notes
+        The project file written and what was detected.
+
+    Raises
+    ------
+    OutputExistsError
+        The project file exists and ``overwrite`` is false.
+    InputError, CRSError
+        A file cannot be read, or the samples' CRS cannot be decided.
+    """
+    from .boundaries import read_paddocks
+    from .errors import CRSError, OutputExistsError
+    from .samples import read_samples
+
+    folder = Path(folder)
+    target = folder / PROJECT_FILE_NAME
+    if target.exists() and not overwrite:
+        raise OutputExistsError(
+            f"{target} exists; pass --overwrite to replace it (the old file is not kept)"
+        )
+    samples = Path(samples).resolve()
+    paddocks_path = Path(paddocks).resolve()
+    notes: list[str] = []
+    boundaries = BoundarySettings(paddocks=paddocks_path)
+    pads = read_paddocks(boundaries)
+    trial = SampleSettings(file=samples, crs=crs)
+    try:
+        read = read_samples(trial)
+    except CRSError:
+        if crs is not None or pads.crs is None:
+            raise
+        guess = pads.crs.to_string()
+        read = read_samples(dataclasses.replace(trial, crs=guess))
+        minx, miny, maxx, maxy = pads.total_bounds
+        pts = read.samples.geometry
+        inside = (pts.x.between(minx, maxx) & pts.y.between(miny, maxy)).mean()
+        if inside < 0.5:
+            raise CRSError(
+                f"{samples}: the coordinates carry no CRS and do not fall inside the boundaries "
+                f"in the boundaries' CRS ({pads.crs.name}); pass --crs (e.g. --crs EPSG:28355)"
+            ) from None
+        notes.append(
+            f"sample x/y carry no CRS; they fall inside the boundaries in the boundaries' CRS, "
+            f"so {pads.crs.name} ({guess}) is assumed: check it"
+        )
+        crs = guess
+    else:
+        if crs is None and read.crs is not None and read.crs.is_geographic:
+            notes.append("sample coordinates read as longitude/latitude (WGS 84)")
+    notes.append(
+        "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
+    )
+    notes.append("units: " + ", ".join(f"{k} {v}" for k, v in read.units.items()))
+    sample_settings = dataclasses.replace(
+        trial,
+        file=_relative(samples, folder),
+        crs=crs if crs is not None else trial.crs,
+        columns=dict(read.columns),
+        units={k: v for k, v in read.units.items() if v},
+    )
+    settings = ProjectSettings(
+        samples=sample_settings,
+        boundaries=dataclasses.replace(boundaries, paddocks=_relative(paddocks_path, folder)),
+        farm=folder.resolve().name,
+    )
+    text = template(settings, header=f"written by 'geosoil new' for {samples.name}")
+    parse_project(text, base_dir=folder.resolve(), source=str(target))  # it must run as written
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = target.with_suffix(".toml.tmp")
+    tmp.write_text(text, encoding="utf-8")
+    os.replace(tmp, target)
+    return target, notes
