@@ -40,6 +40,7 @@ import shapely
 from . import __version__
 from .boundaries import read_exclusions, read_paddocks, read_user_zones
 from .chemistry import derive
+from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
 from .errors import GeosoilError, GeosoilWarning
 from .grids import PaddockGrid, aligned_grids
@@ -324,12 +325,18 @@ def compute(
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
             cells, cell_notes = derive_cells(est)
+            bd: float | np.ndarray = s.soil.bulk_density_for(name)
+            if s.soil.bulk_density_raster is not None:
+                bd = bulk_density_on_grid(
+                    s.soil.bulk_density_raster, grid, fallback_g_cm3=float(bd)
+                )
+                cells["bulk_density"] = bd
             rr = compute_rates(
                 cells,
                 s.rates,
                 prep.products,
                 depth_m=s.soil.depth_m,
-                bulk_density_g_cm3=s.soil.bulk_density_for(name),
+                bulk_density_g_cm3=bd,
             )
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
             excl = None

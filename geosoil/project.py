@@ -71,6 +71,12 @@ class SoilSettings:
         unit="g/cm3",
     )
 
+    bulk_density_raster: Path | None = setting(
+        None,
+        doc="raster of bulk density (GeoTIFF, g/cm3) used instead of the values above where it "
+        "has data",
+    )
+
     def __post_init__(self) -> None:
         for name, bd in self.bulk_density_by_paddock.items():
             if not (0.5 <= bd <= 2.0):
@@ -173,6 +179,8 @@ class Project:
     def input_files(self) -> list[Path]:
         """Every input file the project names (samples, boundaries, zones...)."""
         files: list[Path] = [self.settings.samples.file]
+        if self.settings.soil.bulk_density_raster is not None:
+            files.append(self.settings.soil.bulk_density_raster)
         b = self.settings.boundaries
         for f in dataclasses.fields(b):
             v = getattr(b, f.name)
