@@ -23,7 +23,11 @@ How the zones are built
    intersected with the polygon), so a zone's rate is the area-weighted mean
    (or weighted percentile) of the cell rates under it, and the zones follow
    the real boundary instead of the cell staircase.
-3. Rate classes: the cells with a rate are classified; with ``smooth = true``
+3. Rate classes: cells that need no product, or less than the spreader's
+   minimum rate, form one class of their own (the ``"no product"`` zone);
+   the classes asked for are made from the cells that need product (rate
+   surfaces are often zero over most of a paddock, and classes over all
+   cells would spend most classes on zeros). With ``smooth = true``
    one pass of a 3 x 3 majority filter replaces a cell's class by the class
    most common around it (ties keep the cell's own class), which removes
    single-cell speckle and ragged steps on class edges. Cells of the grid
@@ -46,7 +50,7 @@ area, exclusion zones cover the excluded part, with no gaps or overlaps.
 
 Output columns: ``paddock``, ``product``, ``zone`` (1..n: rate zones, then the
 remainder, then exclusions), ``kind``, ``label`` (class, user zone id, grid
-cell or exclusion name), ``rate_kg_ha`` (to spread), ``rate_raw_kg_ha``
+cell, ``"no product"`` or exclusion name), ``rate_kg_ha`` (to spread), ``rate_raw_kg_ha``
 (before spreader limits), ``passes``, ``per_pass_kg_ha``, ``area_ha``,
 ``n_cells`` (cells with a rate whose centre lies in the zone) and ``geometry``
 in the working CRS.
@@ -98,6 +102,7 @@ from .settings import setting
 
 __all__ = [
     "METHODS",
+    "NO_PRODUCT",
     "ZONE_COLUMNS",
     "ZoneSettings",
     "ZoneResult",
@@ -134,6 +139,9 @@ ZONE_COLUMNS: tuple[str, ...] = (
     "n_cells",
     "geometry",
 )
+
+#: Label of the zone whose cells need no product, or less than the spreader's minimum rate.
+NO_PRODUCT = "no product"
 
 _CLASS_METHODS = ("quantiles", "equal_interval", "natural_breaks", "kmeans")
 _STATISTIC = re.compile(r"^p(\d{1,3}(?:\.\d+)?)$")
@@ -201,7 +209,9 @@ class ZoneSettings:
         choices=METHODS,
     )
     classes: int = setting(
-        4, doc="number of rate classes (fewer when the cells hold fewer distinct rates)",
+        4, doc="number of rate classes among the cells that need product (fewer when they "
+        "hold fewer distinct rates); cells needing less than the spreader's minimum rate form "
+        "one more, 'no product' zone",
         minimum=1, maximum=20,
     )
     statistic: str = setting(
@@ -643,17 +653,38 @@ def _class_zones(
     work: BaseGeometry,
     overlap: NDArray[np.float64],
     settings: ZoneSettings,
+    min_rate_kg_ha: float,
     notes: list[str],
 ) -> list[_Piece]:
     has_rate = np.isfinite(rate) & (overlap > 0)
     if not has_rate.any():
         return []
-    cls_v, cnotes = classify_rates(
-        rate[has_rate], method=settings.method, classes=settings.classes
-    )
-    notes.extend(cnotes)
+    # Cells needing nothing, or less than the spreader can put out, form their own
+    # class; the classes asked for are made from the cells that need product.
+    none = has_rate & ((rate <= 0) | (rate < min_rate_kg_ha))
+    need = has_rate & ~none
     cls = np.zeros(rate.shape, dtype=np.int64)
-    cls[has_rate] = cls_v
+    offset = 0
+    if none.any():
+        cls[none] = 1
+        offset = 1
+        share = 100.0 * overlap[none].sum() / overlap[has_rate].sum()
+        below = (f"less than the spreader's minimum rate of {min_rate_kg_ha:g} kg/ha"
+                 if min_rate_kg_ha > 0 else "no product")
+        if need.any():
+            notes.append(
+                f"{int(none.sum())} cells ({share:.3g} % of the rated area) need {below}: they "
+                f"form their own 'no product' zone, and the rate classes are made from the "
+                f"{int(need.sum())} cells that need product"
+            )
+        else:
+            notes.append(f"every cell needs {below}: one 'no product' zone")
+    if need.any():
+        cls_v, cnotes = classify_rates(
+            rate[need], method=settings.method, classes=settings.classes
+        )
+        notes.extend(cnotes)
+        cls[need] = cls_v + offset
     if settings.smooth:
         before = cls.copy()
         cls = _majority_filter(cls, has_rate)
@@ -676,9 +707,10 @@ def _class_zones(
     for c in sorted(by_class):
         g = _polygonal(shapely.intersection(shapely.union_all(by_class[c]), work))
         if g.area > 0:
-            pieces.append(_Piece(g, f"class {c}", c))
-    # renumber the classes that are left 1..n
-    for i, p in enumerate(pieces, start=1):
+            pieces.append(_Piece(g, NO_PRODUCT if offset and c == 1 else f"class {c}", c))
+    # renumber the rate classes that are left 1..n (the no-product class keeps its label)
+    rated = [p for p in pieces if p.label != NO_PRODUCT]
+    for i, p in enumerate(rated, start=1):
         p.label = f"class {i}"
     return pieces
 
@@ -987,7 +1019,8 @@ def make_zones(
     settings
         :class:`ZoneSettings`.
     min_rate_kg_ha, max_per_pass_kg_ha, step_kg_ha
-        Spreader limits, see :func:`limit_zone_rate`.
+        Spreader limits, see :func:`limit_zone_rate`. Rate classes: cells below
+        ``min_rate_kg_ha`` (or at 0) form the ``"no product"`` zone.
 
     Returns
     -------
@@ -1061,7 +1094,7 @@ def make_zones(
     elif settings.method in _CLASS_METHODS:
         overlap, _ = _cell_overlap(work, transform, rate.shape)
         pieces = _class_zones(rate, transform=transform, work=work, overlap=overlap,
-                              settings=settings, notes=notes)
+                              settings=settings, min_rate_kg_ha=min_rate_kg_ha, notes=notes)
     elif settings.method == "spreader_grid":
         pieces = _grid_zones(work=work, boundary=boundary, settings=settings, notes=notes)
     else:
@@ -1094,7 +1127,10 @@ def make_zones(
             raw, min_rate_kg_ha=min_rate_kg_ha, max_per_pass_kg_ha=max_per_pass_kg_ha,
             step_kg_ha=step_kg_ha,
         )
-        if math.isfinite(raw) and raw > 0 and spread == 0:
+        if label == NO_PRODUCT:
+            if spread > 0:  # small pieces merged into it brought it to a spreadable rate
+                label = "class 0"
+        elif math.isfinite(raw) and raw > 0 and spread == 0:
             zeroed.append(str(number))
         if passes > 1:
             split.append(f"{number} ({passes} passes)")

@@ -20,6 +20,7 @@ from hypothesis import strategies as st
 from geosoil.errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
 from geosoil.settings import from_mapping
 from geosoil.zones import (
+    NO_PRODUCT,
     ZONE_COLUMNS,
     ZoneSettings,
     classify_rates,
@@ -193,12 +194,21 @@ def test_property_zones_tile_and_conserve_product(data, h, w, method, classes, s
                     settings=ZoneSettings(method=method, classes=classes, smooth=smooth,
                                           min_zone_area_ha=min_area)).zones
     assert_tiles(z, boundary)
-    assert len(z) <= classes
-    # product is conserved exactly by the area-weighted means [derived]
     boxes = cell_boxes(rate.shape, t)
     share = shapely.area(shapely.intersection(boxes.geometry.values, boundary))
+    zero_cells = (share > 0) & (rate.ravel() == 0)
+    # the classes asked for, plus one 'no product' zone when some cells need nothing
+    assert len(z) <= classes + int(zero_cells.any())
+    assert (z["label"] == NO_PRODUCT).sum() <= 1
+    # product is conserved exactly by the area-weighted means [derived]
     assert (z["area_ha"] * z["rate_raw_kg_ha"]).sum() == pytest.approx(
         float((share * rate.ravel()).sum() / 1e4), rel=1e-9, abs=1e-9)
+    if min_area == 0 and not smooth and zero_cells.any() and not zero_cells.all():
+        # nothing merges: the no-product zone is exactly the cells that need nothing
+        none = z[z["label"] == NO_PRODUCT]
+        assert len(none) == 1 and none["rate_raw_kg_ha"].iloc[0] == 0.0
+        assert none["area_ha"].iloc[0] == pytest.approx(share[zero_cells].sum() / 1e4)
+        assert (z.loc[z["label"] != NO_PRODUCT, "rate_raw_kg_ha"] > 0).all()
 
 
 # --------------------------------------------------------------------------- class details
@@ -224,6 +234,72 @@ def test_classes_are_numbered_from_low_to_high_rate(field) -> None:
         z = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
                         settings=ZoneSettings(method=method, min_zone_area_ha=0)).zones
         assert z["rate_raw_kg_ha"].is_monotonic_increasing
+
+
+def zero_inflated() -> tuple[np.ndarray, Affine, shapely.Geometry]:
+    """8 x 10 cells of 10 m at 0 kg/ha but for a patch in rows 2-5, columns 2-5 (16 cells)
+    whose rate rises along the rows: 300, 400, ..., 1800 kg/ha, row by row."""
+    rate = np.zeros((8, 10))
+    rate[2:6, 2:6] = (300.0 + 100.0 * np.arange(16)).reshape(4, 4)
+    return rate, transform_for(8), shapely.box(X0, Y0, X0 + 100, Y0 + 80)
+
+
+def test_cells_needing_nothing_form_their_own_zone_and_classes_come_from_the_rest() -> None:
+    """Quartiles of the 16 rated cells are its four rows: means 450, 850, 1250, 1650 kg/ha
+    [derived: (300 + 400 + 500 + 600) / 4, ...]; the 64 cells at 0 form one 'no product'
+    zone of 0.64 ha [derived]. Classes over all 80 cells would have put three of four
+    classes on the zeros."""
+    rate, t, boundary = zero_inflated()
+    for method in ("quantiles", "equal_interval", "natural_breaks", "kmeans"):
+        res = quiet_zones(rate, transform=t, boundary=boundary,
+                          settings=ZoneSettings(method=method, classes=4, min_zone_area_ha=0))
+        z = res.zones
+        assert z["label"].tolist() == [NO_PRODUCT, "class 1", "class 2", "class 3", "class 4"]
+        assert z["rate_raw_kg_ha"].tolist() == pytest.approx([0.0, 450.0, 850.0, 1250.0, 1650.0])
+        assert z["area_ha"].tolist() == pytest.approx([0.64, 0.04, 0.04, 0.04, 0.04])
+        assert z["rate_kg_ha"].iloc[0] == 0.0 and z["passes"].iloc[0] == 0
+        assert_tiles(z, boundary)
+        assert any("'no product' zone" in n and "16 cells that need product" in n
+                   for n in res.notes)
+
+
+def test_cells_below_the_spreader_minimum_join_the_no_product_zone() -> None:
+    """With a minimum of 500 kg/ha the first two cells of the patch (300, 400) need less than
+    the spreader can put out: they join the zeros; 14 cells are left for the classes."""
+    rate, t, boundary = zero_inflated()
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        res = make_zones(rate, transform=t, crs=CRS, paddock="Home", product="lime",
+                         boundary=boundary, min_rate_kg_ha=500.0,
+                         settings=ZoneSettings(classes=2, min_zone_area_ha=0))
+    z = res.zones
+    assert z["label"].tolist() == [NO_PRODUCT, "class 1", "class 2"]
+    # no product: 64 zeros + 300 + 400 over 66 cells; classes: 500..1100 and 1200..1800,
+    # 7 cells each [derived]
+    assert z["rate_raw_kg_ha"].tolist() == pytest.approx([700 / 66, 800.0, 1500.0])
+    assert z["area_ha"].tolist() == pytest.approx([0.66, 0.07, 0.07])
+    assert z["rate_kg_ha"].tolist() == [0.0, 800.0, 1500.0]
+    assert any("minimum rate of 500 kg/ha" in n and "14 cells" in n for n in res.notes)
+    # the zone made to hold no product is not reported as a zone pushed below the minimum
+    assert not any(issubclass(w.category, RateWarning) for w in record)
+
+
+def test_a_paddock_needing_nothing_is_one_zone() -> None:
+    rate, t, boundary = zero_inflated()
+    rate[:] = 0.0
+    rate[0, 0] = 100.0  # below the minimum
+    res = quiet_zones(rate, transform=t, boundary=boundary, min_rate_kg_ha=250.0,
+                      settings=ZoneSettings(classes=4, min_zone_area_ha=0))
+    assert res.zones["label"].tolist() == [NO_PRODUCT]
+    assert res.zones["rate_kg_ha"].tolist() == [0.0]
+    assert_tiles(res.zones, boundary)
+
+
+def test_no_zero_cells_no_extra_zone(field) -> None:
+    rate = masked(field["rate"], field["transform"], field["boundary"])
+    z = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
+                    settings=ZoneSettings(min_zone_area_ha=0)).zones
+    assert NO_PRODUCT not in set(z["label"]) and len(z) == 4
 
 
 def test_small_piece_merges_into_neighbour_with_longest_shared_edge() -> None:
