@@ -14,7 +14,8 @@ __all__ = ["print_summary"]
 
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
-    click.echo(format_summary(result.tonnage))
+    rate_unit = result.farm.prep.project.settings.output.rate_unit
+    click.echo(format_summary(result.tonnage, rate_unit=rate_unit))
     click.echo("")
     click.echo(f"Output folder: {result.out_dir}")
     for name in ("tonnage.csv", "map.html", "report.html", "run.json"):

@@ -349,6 +349,7 @@ def build_farm_map(farm: FarmResult) -> str:
         zones=farm.zones,
         exclusions=prep.exclusions if not prep.exclusions.empty else None,
         background_tiles=s.output.background_tiles,
+        rate_unit=s.output.rate_unit,
     )
 
 
@@ -454,6 +455,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
             settings_toml=settings_toml,
             versions=versions(),
         ),
+        rate_unit=s.output.rate_unit,
     )
 
 

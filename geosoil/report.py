@@ -14,6 +14,10 @@ density; assumptions, and the methods with their citations; the warnings the
 run raised; provenance (input files with SHA-256 checksums, settings, software
 versions).
 
+Rates are shown in :attr:`ReportInput.rate_unit` (kg/ha, t/ha or lb/ac) in
+the tonnage tables and the zone-map labels; the tables it is given stay in
+kg/ha.
+
 Every string from the user's files or settings is escaped with
 :func:`geosoil.webmap.escape_text`.
 
@@ -34,7 +38,8 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from .errors import GeosoilError, InputError
+from .errors import GeosoilError, InputError, SettingsError
+from .units import RATE_UNITS, format_rate
 from .webmap import escape_text, label_point, ramp_colour
 
 __all__ = [
@@ -265,6 +270,9 @@ class ReportInput:
         :class:`Provenance`.
     cautions
         The cautions box (default :data:`CAUTIONS`).
+    rate_unit
+        Unit of the rates shown (tonnage tables, zone-map labels): one of
+        :data:`geosoil.units.RATE_UNITS`. ``tonnage`` and ``zones`` stay in kg/ha.
     """
 
     title: str
@@ -280,8 +288,14 @@ class ReportInput:
     warnings: Sequence[str] = ()
     provenance: Provenance = field(default_factory=Provenance)
     cautions: Sequence[str] = CAUTIONS
+    rate_unit: str = "kg/ha"
 
     def __post_init__(self) -> None:
+        if self.rate_unit not in RATE_UNITS:
+            raise SettingsError(
+                f"rate unit '{self.rate_unit}' is not known; use one of {', '.join(RATE_UNITS)}",
+                key="rate_unit",
+            )
         missing = [c for c in _TONNAGE_COLUMNS if c not in self.tonnage.columns]
         if missing:
             raise InputError(
@@ -339,11 +353,10 @@ def _sig(value: Any, sig: int = 3) -> str:
     return f"{v:.{sig}g}"
 
 
-def _rate_text(rate: float) -> str:
-    if _isnan(rate) or not math.isfinite(float(rate)):
+def _rate_text(rate: float, unit: str, *, with_unit: bool = True) -> str:
+    if _isnan(rate):
         return "–"
-    rate = float(rate)
-    return f"{rate / 1000:.2f} t/ha" if rate >= 1000 else f"{rate:.0f} kg/ha"
+    return format_rate(float(rate), unit, with_unit=with_unit)
 
 
 def _zone_label(value: Any) -> str:
@@ -543,6 +556,7 @@ def zone_map_svg(
     *,
     outline: Any = None,
     top_rate: float | None = None,
+    rate_unit: str = "kg/ha",
     width: int = 560,
     max_height: int = 300,
     uid: str = "z",
@@ -562,6 +576,8 @@ def zone_map_svg(
         Optional paddock geometry (same CRS) drawn on top.
     top_rate
         Rate (kg/ha) at the dark end of the ramp (default: the largest here).
+    rate_unit
+        Unit of the rates in the labels (one of :data:`geosoil.units.RATE_UNITS`).
     width, max_height
         Largest size in CSS pixels (the drawing keeps the paddock's shape).
     uid
@@ -575,8 +591,8 @@ def zone_map_svg(
     ...                       "rate_kg_ha": [0.0, 2500.0]},
     ...                      geometry=[box(0, 0, 100, 200), box(100, 0, 200, 200)],
     ...                      crs="EPSG:32755")
-    >>> svg = zone_map_svg(z)
-    >>> svg.count('class="zone"'), "2.50 t/ha" in svg
+    >>> svg = zone_map_svg(z, rate_unit="t/ha")
+    >>> svg.count('class="zone"'), "2.5 t/ha" in svg
     (2, True)
     """
     zones = _metric(zones)
@@ -630,7 +646,8 @@ def zone_map_svg(
         else:
             fill = "#cccccc"
         zone_txt = _zone_label(z["zone"])
-        tip = "exclusion (not spread)" if excluded else f"zone {zone_txt}: {_rate_text(rate)}"
+        rate_txt = _rate_text(rate, rate_unit)
+        tip = "exclusion (not spread)" if excluded else f"zone {zone_txt}: {rate_txt}"
         parts.append(
             f'<path class="zone" d="{d}" fill="{fill}" fill-rule="evenodd" stroke="#333" '
             f'stroke-width="0.8"><title>{_t(tip)}</title></path>'
@@ -638,7 +655,7 @@ def zone_map_svg(
         area_px = z.geometry.area * scale * scale
         if area_px >= 900:
             anchor = label_point(z.geometry)
-            text = "excluded" if excluded else f"{zone_txt} · {_rate_text(rate)}"
+            text = "excluded" if excluded else f"{zone_txt} · {rate_txt}"
             if area_px < 3500 and not excluded:
                 text = zone_txt
             ink = (
@@ -752,17 +769,20 @@ def _table(
     return f"<table{klass}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-_TONNAGE_HEADERS = (
-    ("zone", False),
-    ("area (ha)", True),
-    ("rate (kg/ha)", True),
-    ("product (t)", True),
-    ("truckloads", True),
-    ("cost", True),
-)
+def _tonnage_headers(unit: str) -> tuple[tuple[str, bool], ...]:
+    return (
+        ("zone", False),
+        ("area (ha)", True),
+        (f"rate ({_t(unit)})", True),
+        ("product (t)", True),
+        ("truckloads", True),
+        ("cost", True),
+    )
 
 
-def _tonnage_rows(df: pd.DataFrame, colour_of: Any = None) -> tuple[list[list[str]], list[str]]:
+def _tonnage_rows(
+    df: pd.DataFrame, colour_of: Any = None, *, unit: str = "kg/ha"
+) -> tuple[list[list[str]], list[str]]:
     rows, classes = [], []
     for _, r in df.iterrows():
         level = str(r["level"]).lower()
@@ -779,7 +799,7 @@ def _tonnage_rows(df: pd.DataFrame, colour_of: Any = None) -> tuple[list[list[st
             [
                 label,
                 _num(r["area_ha"], 2),
-                _num(r["rate_kg_ha"], 0) if is_zone else "",
+                _t(_rate_text(r["rate_kg_ha"], unit, with_unit=False)) if is_zone else "",
                 _num(r["tonnes"], 2),
                 _num(r["truckloads"], 1),
                 _num(r["cost"], 2),
@@ -949,6 +969,7 @@ def build_report(data: ReportInput) -> str:
                     zp,
                     outline=paddock_geoms.get(paddock),
                     top_rate=top_rate.get(product),
+                    rate_unit=data.rate_unit,
                     uid=f"{i}-{j}",
                 )
                 excl_note = (
@@ -965,8 +986,9 @@ def build_report(data: ReportInput) -> str:
             if len(tp):
                 order = tp.assign(_o=(tp["level"] != "zone").astype(int))
                 order = order.sort_values(["_o"], kind="stable").drop(columns="_o")
-                rows, classes = _tonnage_rows(order, colour_of)
-                out.append(_table(_TONNAGE_HEADERS, rows, css="tonnage", row_classes=classes))
+                rows, classes = _tonnage_rows(order, colour_of, unit=data.rate_unit)
+                out.append(_table(_tonnage_headers(data.rate_unit), rows, css="tonnage",
+                                  row_classes=classes))
             else:
                 out.append('<p class="note">No tonnage for this product here.</p>')
             out.append("</div>")

@@ -54,6 +54,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError, SettingsError
+from .units import RATE_UNITS, format_rate
 
 __all__ = ["TONNAGE_COLUMNS", "LEVELS", "tonnage_table", "format_summary"]
 
@@ -219,11 +220,29 @@ def _num(value: object, digits: int) -> str:
     return f"{v:,.{digits}f}"
 
 
-def format_summary(table: pd.DataFrame) -> str:
+def _rate(value: object, unit: str) -> str:
+    if value is None or value is pd.NA:
+        return "-"
+    return format_rate(float(value), unit, with_unit=False, missing="-")  # type: ignore[arg-type]
+
+
+def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
     """A plain-text summary of a tonnage table for the terminal.
 
     Lists each paddock's subtotal per product and the farm totals, then the
     total cost where prices were given, and a reminder that rates are advisory.
+
+    Parameters
+    ----------
+    table
+        From :func:`tonnage_table` (rates in kg/ha).
+    rate_unit
+        Unit of the mean rates shown: one of :data:`geosoil.units.RATE_UNITS`.
+
+    Raises
+    ------
+    SettingsError
+        An unknown ``rate_unit`` (key ``rate_unit``).
 
     Examples
     --------
@@ -237,11 +256,19 @@ def format_summary(table: pd.DataFrame) -> str:
     Farm     gypsum        4.00         4.00              2,500   10.00      2
     <BLANKLINE>
     Rates are advisory: have them checked by a qualified agronomist before spreading.
+    >>> print(format_summary(table, rate_unit="t/ha").splitlines()[1])
+    North    gypsum        4.00         4.00               2.5   10.00      2
     """
+    if rate_unit not in RATE_UNITS:
+        raise SettingsError(
+            f"rate unit '{rate_unit}' is not known; use one of {', '.join(RATE_UNITS)}",
+            key="rate_unit",
+        )
     rows = table[table["level"].isin(["paddock", "farm"])]
     show_loads = rows["truckloads"].notna().any()
     show_cost = rows["cost"].notna().any()
-    header = ["Paddock", "Product", "Area (ha)", "Spread (ha)", "Mean rate (kg/ha)", "Tonnes"]
+    header = ["Paddock", "Product", "Area (ha)", "Spread (ha)", f"Mean rate ({rate_unit})",
+              "Tonnes"]
     if show_loads:
         header.append("Loads")
     if show_cost:
@@ -253,7 +280,7 @@ def format_summary(table: pd.DataFrame) -> str:
             str(r.product),
             _num(r.area_ha, 2),
             _num(r.spread_area_ha, 2),
-            _num(r.rate_kg_ha, 0),
+            _rate(r.rate_kg_ha, rate_unit),
             _num(r.tonnes, 2),
         ]
         if show_loads:

@@ -47,6 +47,7 @@ __all__ = [
     "kg_ha_to_mg_m2",
     "rate_from_kg_ha",
     "rate_to_kg_ha",
+    "format_rate",
     "RATE_UNITS",
 ]
 
@@ -249,3 +250,54 @@ def rate_to_kg_ha(value: ArrayLike, unit: str) -> ArrayLike:
     if unit == "lb/ac":
         return lb_ac_to_kg_ha(value)
     raise SettingsError(f"rate unit '{unit}' is not known; use one of {', '.join(RATE_UNITS)}")
+
+
+def format_rate(
+    kg_ha: float, unit: str, *, with_unit: bool = True, missing: str = "\u2013"
+) -> str:
+    """A rate given in kg/ha, as text in ``unit`` for people to read.
+
+    kg/ha and lb/ac are shown as whole numbers with thousands separators;
+    t/ha with up to two decimals (at least one); 0 as ``0``. Rates that would
+    round to 0 but are not 0 keep two significant digits.
+
+    Parameters
+    ----------
+    kg_ha
+        The rate, kg/ha.
+    unit
+        One of :data:`RATE_UNITS`.
+    with_unit
+        Append the unit (``"2.5 t/ha"``) or not (``"2.5"``, for a table whose
+        header names the unit).
+    missing
+        Text for a rate that is not a number.
+
+    Raises
+    ------
+    SettingsError
+        An unknown unit.
+
+    Examples
+    --------
+    >>> format_rate(2500.0, "kg/ha"), format_rate(2500.0, "t/ha"), format_rate(2500.0, "lb/ac")
+    ('2,500 kg/ha', '2.5 t/ha', '2,230 lb/ac')
+    >>> format_rate(1750.0, "t/ha", with_unit=False), format_rate(float("nan"), "t/ha")
+    ('1.75', '\u2013')
+    """
+    value = float(np.asarray(rate_from_kg_ha(kg_ha, unit)))
+    if not np.isfinite(value):
+        return missing
+    if value == 0:
+        text = "0"
+    elif unit == "t/ha":
+        text = f"{value:.2f}"
+        if text.endswith("0"):
+            text = text[:-1]
+        if abs(value) < 0.005 and value != 0:
+            text = f"{value:.2g}"
+    else:
+        text = f"{value:,.0f}"
+        if abs(value) < 0.5 and value != 0:
+            text = f"{value:.2g}"
+    return f"{text} {unit}" if with_unit else text

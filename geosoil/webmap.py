@@ -12,7 +12,8 @@ What the page holds:
 * one overlay per soil surface (:class:`RasterLayer`): warped to the web map's
   projection (EPSG:3857) with :func:`rasterio.warp.reproject` and drawn as a
   PNG image (a ``data:`` URI), so that every cell lands where pyproj puts it;
-* per product, the spreader zones coloured and labelled with their rate;
+* per product, the spreader zones coloured and labelled with their rate, in
+  the unit the caller asks for (``rate_unit``; the zones table stays in kg/ha);
 * exclusion areas, paddock outlines (labelled) and the sample points, whose
   popups list every column of the samples table;
 * a legend with units for every layer (shown for the layers switched on), a
@@ -65,7 +66,8 @@ from rasterio.enums import Resampling
 from shapely.geometry import box, mapping
 from shapely.ops import polylabel
 
-from .errors import CRSError, GeosoilError, InputError
+from .errors import CRSError, GeosoilError, InputError, SettingsError
+from .units import RATE_UNITS, format_rate
 
 __all__ = [
     "RasterLayer",
@@ -214,14 +216,6 @@ def _fmt_value(value: Any) -> str:
     except (TypeError, ValueError):
         pass
     return str(value)
-
-
-def _fmt_rate(rate_kg_ha: float) -> str:
-    if not math.isfinite(rate_kg_ha):
-        return "–"
-    if rate_kg_ha >= 1000:
-        return f"{rate_kg_ha / 1000:.2f} t/ha"
-    return f"{rate_kg_ha:.0f} kg/ha"
 
 
 # --------------------------------------------------------------------------- colour
@@ -858,19 +852,20 @@ def _legend_raster(layer: RasterLayer) -> str:
     )
 
 
-def _legend_zones(product: str, rates: Sequence[float], colour_of: Any) -> str:
-    head = f'<div class="gs-legend-title">{escape_text(product)} zones (rate, kg/ha)</div>'
+def _legend_zones(product: str, rates: Sequence[float], colour_of: Any, unit: str) -> str:
+    head = (f'<div class="gs-legend-title">{escape_text(product)} zones '
+            f"(rate, {escape_text(unit)})</div>")
     distinct = sorted({round(r, 6) for r in rates if math.isfinite(r)})
     if len(distinct) <= 10:
         items = "".join(
             f'<li><span class="gs-swatch" style="background:{colour_of(r)}"></span>'
-            f"{escape_text(_fmt_number(r))} kg/ha</li>"
+            f"{escape_text(format_rate(r, unit))}</li>"
             for r in distinct
         )
         return head + f'<ul class="gs-classes">{items}</ul>'
     hi = max(distinct)
     ticks = "".join(
-        f'<span style="left:{p}%">{escape_text(_fmt_number(v))}</span>'
+        f'<span style="left:{p}%">{escape_text(format_rate(v, unit, with_unit=False))}</span>'
         for p, v in ((0, 0.0), (100, hi))
     )
     return (
@@ -927,6 +922,7 @@ def build_map(
     zones: gpd.GeoDataFrame,
     exclusions: gpd.GeoDataFrame | None = None,
     background_tiles: bool = False,
+    rate_unit: str = "kg/ha",
 ) -> str:
     """The run's interactive map as one self-contained HTML page.
 
@@ -952,6 +948,9 @@ def build_map(
         ``None``, the zones of kind ``exclusion`` make up that layer.
     background_tiles
         Add an OpenStreetMap base layer (needs internet; offline it just stays blank).
+    rate_unit
+        Unit of the zone rates the map shows (labels, popups, legend): one of
+        :data:`geosoil.units.RATE_UNITS`. The zones' ``rate_kg_ha`` stays in kg/ha.
 
     Returns
     -------
@@ -964,6 +963,8 @@ def build_map(
         A table lacks a required column.
     CRSError
         A table has no CRS.
+    SettingsError
+        An unknown ``rate_unit`` (key ``rate_unit``).
 
     Examples
     --------
@@ -979,6 +980,11 @@ def build_map(
     >>> page.startswith("<!DOCTYPE html>"), remote_references(page)
     (True, [])
     """
+    if rate_unit not in RATE_UNITS:
+        raise SettingsError(
+            f"rate unit '{rate_unit}' is not known; use one of {', '.join(RATE_UNITS)}",
+            key="rate_unit",
+        )
     _require_columns(paddocks, ["paddock"], "paddocks")
     _require_columns(samples, ["sample_id"], "samples")
     _require_columns(
@@ -1065,7 +1071,7 @@ def build_map(
                     f"{product}: zone {_fmt_value(z['zone'])}",
                     [
                         ("paddock", z["paddock"]),
-                        ("rate (kg/ha)", rate),
+                        (f"rate ({rate_unit})", format_rate(rate, rate_unit, with_unit=False)),
                         ("area (ha)", z["area_ha"]),
                         ("kind", z["kind"]),
                     ],
@@ -1084,11 +1090,13 @@ def build_map(
                 anchor = label_point(z.geometry)
                 _Label(
                     [round(anchor.y, 7), round(anchor.x, 7)],
-                    escape_text(_fmt_rate(rate)),
+                    escape_text(format_rate(rate, rate_unit)),
                     "geosoil-zone-label",
                 ).add_to(group)
             group.add_to(fmap)
-            registry.append((group, name, _legend_zones(str(product), list(rates), colour_of)))
+            registry.append(
+                (group, name, _legend_zones(str(product), list(rates), colour_of, rate_unit))
+            )
 
     # Exclusion areas.
     if excl is not None and len(excl):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import html
 import math
@@ -17,7 +18,7 @@ from hypothesis import strategies as st
 from shapely.geometry import Point, box
 
 from geosoil import report, webmap
-from geosoil.errors import InputError
+from geosoil.errors import InputError, SettingsError
 from tests.browser import Chromium, artifact_path, require_chromium
 
 HOSTILE_IMG = "<img src=x onerror=alert(1)>"
@@ -350,6 +351,57 @@ def test_bad_inputs_are_named() -> None:
         )
 
 
+def _tonnage_table(page: str, paddock: str, product: str) -> tuple[list[str], list[list[str]]]:
+    """Header and zone rows (cells as text) of one paddock's tonnage table for one product."""
+    block = page[page.index(f"Paddock {paddock}</h2>") :]
+    block = block[block.index(f"<h3>{product}</h3>") :]
+    table = block[block.index('<table class="tonnage">') : block.index("</table>")]
+    head = [re.sub("<[^>]+>", "", h) for h in re.findall(r"<th[^>]*>(.*?)</th>", table)]
+    rows = [
+        [re.sub("<[^>]+>", "", c) for c in re.findall(r"<td[^>]*>(.*?)</td>", tr)]
+        for tr in re.findall(r"<tr>(.*?)</tr>", table)  # zone rows (totals have a class)
+    ]
+    return head, [r for r in rows if r]
+
+
+def test_tonnage_table_and_zone_map_in_t_per_ha() -> None:
+    """Lime at 2500 kg/ha reads 2.5 t/ha [derived: 1 t = 1000 kg]; the tables given stay
+    in kg/ha."""
+    data = dataclasses.replace(report_input(), rate_unit="t/ha")
+    page = report.build_report(data)
+    head, rows = _tonnage_table(page, "North", "lime")
+    assert head[2] == "rate (t/ha)"
+    assert [r[2] for r in rows] == ["2.5"]
+    head, rows = _tonnage_table(page, "North", "gypsum")
+    assert [r[2] for r in rows] == ["0", "1.5", "3.0"]
+    section = _section(page, "paddock-0")
+    assert "1 · 2.5 t/ha" in section  # lime zone map label
+    assert "kg/ha" not in section
+    assert data.zones["rate_kg_ha"].max() == 3000.0  # the input is unchanged
+
+
+def test_zone_map_in_lb_per_acre_uses_the_exact_factor() -> None:
+    """1 lb = 0.45359237 kg, 1 acre = 4046.8564224 m2, both exact (NIST SP 811): 3000 kg/ha
+    = 2676.5 lb/ac, shown as 2,677; the rounded factor 0.892 would show 2,676."""
+    lb_ac_in_kg_ha = 0.45359237 / 4046.8564224 * 10_000
+    zones = gpd.GeoDataFrame(
+        {"zone": [1], "kind": ["rate"], "rate_kg_ha": [3000.0]},
+        geometry=[box(X0, Y0, X0 + 300, Y0 + 300)], crs=CRS,
+    )
+    svg = report.zone_map_svg(zones, rate_unit="lb/ac")
+    assert f"1 · {3000 / lb_ac_in_kg_ha:,.0f} lb/ac" == "1 · 2,677 lb/ac"
+    assert "1 · 2,677 lb/ac" in svg
+    data = dataclasses.replace(report_input(), rate_unit="lb/ac")
+    head, rows = _tonnage_table(report.build_report(data), "North", "gypsum")
+    assert head[2] == "rate (lb/ac)" and rows[2][2] == "2,677"
+
+
+def test_unknown_rate_unit_is_refused() -> None:
+    with pytest.raises(SettingsError) as e:
+        dataclasses.replace(report_input(), rate_unit="kg/ac")
+    assert e.value.key == "rate_unit"
+
+
 def test_hostile_text_is_escaped_everywhere() -> None:
     page = report.build_report(report_input(hostile=True))
     assert "<script" not in page.lower()
@@ -415,7 +467,7 @@ def test_zone_map_darker_for_more_product() -> None:
     fills = re.findall(r'<path class="zone" d="[^"]+" fill="(#[0-9a-f]{6})"', svg)
     lum = [report._luminance(c) for c in fills]
     assert lum[0] > lum[1] > lum[2]
-    assert "4.00 t/ha" in svg and "500 kg/ha" in svg
+    assert "4,000 kg/ha" in svg and "500 kg/ha" in svg  # the default unit
 
 
 def test_variogram_plot_draws_points_and_the_fitted_spherical_model() -> None:

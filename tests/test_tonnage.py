@@ -121,6 +121,33 @@ def test_format_summary_lists_totals_and_says_rates_are_advisory() -> None:
     assert "advisory" in text
 
 
+def _summary_cell(text: str, paddock: str, product: str) -> str:
+    """The mean-rate cell of a paddock's line in the summary."""
+    for line in text.splitlines():
+        cells = line.split()
+        if cells[:2] == [paddock, product]:
+            return cells[4]
+    raise AssertionError(f"no line for {paddock} {product}")
+
+
+def test_format_summary_shows_rates_in_the_chosen_unit() -> None:
+    table = tonnage_table(zones_frame())
+    text = format_summary(table, rate_unit="t/ha")
+    assert "Mean rate (t/ha)" in text.splitlines()[0]
+    # South lime: 2500 kg/ha = 2.5 t/ha; North gypsum: 29 t / 10 ha = 2.9 t/ha [derived]
+    assert _summary_cell(text, "South", "lime") == "2.5"
+    assert _summary_cell(text, "North", "gypsum") == "2.9"
+    assert _summary_cell(format_summary(table), "North", "gypsum") == "2,900"
+    # lb/ac with the exact factor: 1 lb = 0.45359237 kg, 1 acre = 4046.8564224 m2 (NIST SP 811)
+    lb_ac_in_kg_ha = 0.45359237 / 4046.8564224 * 10_000
+    text = format_summary(table, rate_unit="lb/ac")
+    assert "Mean rate (lb/ac)" in text
+    assert _summary_cell(text, "North", "gypsum") == f"{2900 / lb_ac_in_kg_ha:,.0f}" == "2,587"
+    with pytest.raises(SettingsError) as e:
+        format_summary(table, rate_unit="kg/ac")
+    assert e.value.key == "rate_unit"
+
+
 @settings(max_examples=50, deadline=None)
 @given(
     rows=st.lists(

@@ -18,6 +18,7 @@ from geosoil.units import (
     MG_CACO3_PER_CMOL,
     RATE_UNITS,
     cmol_kg_to_kg_ha,
+    format_rate,
     from_cmol_kg,
     kg_ha_to_lb_ac,
     kg_ha_to_mg_m2,
@@ -188,3 +189,36 @@ def test_lb_ac_round_trip(value):
 def test_conversions_are_vectorised():
     values = np.array([200.39, 400.78])  # mg/kg of Ca: REFERENCES.md factor 200.39 [derived]
     assert to_cmol_kg(values, "ca", "ppm") == pytest.approx([1.0, 2.0], rel=1e-5)
+
+
+# 1 lb = 0.45359237 kg and 1 acre = 4046.8564224 m2, exact by definition (NIST SP 811)
+LB_AC_IN_KG_HA = 0.45359237 / 4046.8564224 * 10_000
+
+
+def test_format_rate_in_each_unit():
+    # 2500 kg/ha = 2.5 t/ha [derived: 1 t = 1000 kg]
+    assert format_rate(2500.0, "t/ha") == "2.5 t/ha"
+    assert format_rate(2500.0, "t/ha", with_unit=False) == "2.5"
+    assert format_rate(4000.0, "t/ha") == "4.0 t/ha" and format_rate(250.0, "t/ha") == "0.25 t/ha"
+    assert format_rate(2500.0, "kg/ha") == "2,500 kg/ha"
+    # 5000 kg/ha = 4460.90 lb/ac with the exact NIST SP 811 factor; the rounded factors
+    # 0.892 and 1 / 1.12 would give 4,460 and 4,464
+    assert 5000.0 / LB_AC_IN_KG_HA == pytest.approx(4460.90, abs=0.01)
+    assert format_rate(5000.0, "lb/ac") == "4,461 lb/ac"
+    assert format_rate(0.0, "t/ha") == "0 t/ha" and format_rate(0.0, "kg/ha") == "0 kg/ha"
+    assert format_rate(float("nan"), "kg/ha", missing="-") == "-"
+    with pytest.raises(SettingsError, match="rate unit 'kg/ac'"):
+        format_rate(1.0, "kg/ac")
+
+
+@given(
+    value=st.floats(min_value=0.0, max_value=1e5, allow_nan=False),
+    unit=st.sampled_from(RATE_UNITS),
+)
+def test_format_rate_reads_back_within_its_rounding(value, unit):
+    text = format_rate(value, unit, with_unit=False)
+    shown = float(text.replace(",", ""))
+    exact = float(rate_from_kg_ha(value, unit))
+    step = 0.01 if unit == "t/ha" else 1.0
+    assert abs(shown - exact) <= step / 2 + 1e-9 * exact
+    assert format_rate(value, unit).endswith(" " + unit)

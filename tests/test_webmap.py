@@ -22,7 +22,7 @@ from rasterio.io import MemoryFile
 from shapely.geometry import Point, box
 
 from geosoil import webmap
-from geosoil.errors import CRSError, InputError
+from geosoil.errors import CRSError, InputError, SettingsError
 from tests.browser import Chromium, artifact_path, require_chromium
 
 # Strings a hostile or careless input file might hold (sample ids, paddock names, columns).
@@ -246,6 +246,42 @@ def test_legend_has_a_unit_for_every_surface(page_text: str) -> None:
         assert f"{title} ({html.escape(unit)})" in legend
     for label in webmap.SODICITY_LABELS:
         assert html.escape(label) in legend
+
+
+# 1 lb = 0.45359237 kg and 1 acre = 4046.8564224 m2, exact by definition (NIST SP 811)
+LB_AC_IN_KG_HA = 0.45359237 / 4046.8564224 * 10_000
+
+
+@pytest.mark.parametrize(
+    ("unit", "shown"),
+    [
+        ("kg/ha", ("0 kg/ha", "1,500 kg/ha", "3,000 kg/ha", "2,000 kg/ha")),
+        ("t/ha", ("0 t/ha", "1.5 t/ha", "3.0 t/ha", "2.0 t/ha")),  # 1 t = 1000 kg [derived]
+        # exact factor (NIST SP 811): 3000 kg/ha = 2676.5 lb/ac; the rounded 0.892 gives 2,676
+        ("lb/ac", ("0 lb/ac", f"{1500 / LB_AC_IN_KG_HA:,.0f} lb/ac",
+                   f"{3000 / LB_AC_IN_KG_HA:,.0f} lb/ac", f"{2000 / LB_AC_IN_KG_HA:,.0f} lb/ac")),
+    ],
+)
+def test_zone_labels_popups_and_legend_use_the_rate_unit(unit: str, shown: tuple) -> None:
+    if unit == "lb/ac":
+        assert shown[2] == "2,677 lb/ac" and f"{3000 * 0.892:,.0f}" == "2,676"
+    page = build(rate_unit=unit)
+    legend = page[page.index('id="geosoil-legend"') :]
+    for product in ("gypsum", "lime"):
+        assert f"{product} zones (rate, {unit})" in legend
+    labels = re.findall(r'\.setContent\("([^"]*)"\)', page)
+    for text in shown:
+        assert f"</span>{text}</li>" in legend  # one legend item per distinct rate
+        assert text in labels  # the zone's label on the map
+    assert f"rate ({unit})" in page  # popup row
+    if unit != "kg/ha":
+        assert "kg/ha" not in page
+
+
+def test_unknown_rate_unit_is_refused() -> None:
+    with pytest.raises(SettingsError) as e:
+        build(rate_unit="kg/ac")
+    assert e.value.key == "rate_unit" and "lb/ac" in str(e.value)
 
 
 def test_missing_columns_and_crs_are_named() -> None:
