@@ -22,8 +22,22 @@ is recorded with a note:
    ``min_samples_variogram`` (``variogram_scope``), and the model chosen by
    leave-one-out cross-validation unless the project fixes it.
 
+If no variogram can be fitted (for example the samples sit in two tight
+clusters, so the empirical variogram has fewer than three lag classes), the
+paddock falls back to inverse-distance weighting, with a warning.
+
 A paddock without samples is an error naming it, unless
-``borrow_farm_surface`` is on: it is then kriged from the whole farm's samples.
+``borrow_farm_surface`` is on: it is then kriged from the whole farm's samples
+(with a warning and a note). A variable a sampled paddock has no values for
+gives an empty surface (with a warning).
+
+Estimates of exchangeable amounts below zero (ordinary kriging weights can be
+negative, so it can overshoot) are set to zero, and estimated ESP is kept
+within 0-100 %; each surface's notes count the cells changed. The kriging
+standard deviation is left as computed.
+
+When the samples fit a variable on a log scale (``log_transform``), a fixed
+variogram for it is read on that log scale, as a fitted one would be.
 """
 
 from __future__ import annotations
@@ -37,14 +51,16 @@ import geopandas as gpd
 import numpy as np
 import shapely
 from numpy.typing import NDArray
+from scipy.spatial import ConvexHull, QhullError, cKDTree
+from scipy.spatial.distance import pdist
 
 from .errors import InputError, InterpolationWarning, SettingsError
 from .grids import PaddockGrid
 from .kriging import (
     CrossValidation,
     idw,
-    loo_cross_validation,
     lognormal_backtransform,
+    loo_cross_validation,
     ordinary_kriging,
 )
 from .settings import setting
@@ -67,6 +83,9 @@ INTERPOLATED: tuple[str, ...] = ("ca", "mg", "k", "na", "acidity", "al", "cec", 
 
 _MODELS = ("spherical", "exponential", "gaussian", "matern")
 
+#: Interpolated variables that are exchangeable amounts (never below zero).
+_AMOUNTS = ("ca", "mg", "k", "na", "acidity", "al", "cec")
+
 
 @dataclass(frozen=True)
 class FixedVariogram:
@@ -74,9 +93,27 @@ class FixedVariogram:
 
     model: str = setting("spherical", doc="variogram model", choices=_MODELS)
     nugget: float = setting(0.0, doc="nugget (variable's unit squared)", minimum=0.0)
-    psill: float = setting(1.0, doc="partial sill (variable's unit squared)", exclusive_minimum=True, minimum=0.0)
-    range_m: float = setting(100.0, doc="practical range", unit="m", exclusive_minimum=True, minimum=0.0)
-    nu: float | None = setting(None, doc="Matern smoothness (matern only)", exclusive_minimum=True, minimum=0.0)
+    psill: float = setting(
+        1.0, doc="partial sill (variable's unit squared)", exclusive_minimum=True, minimum=0.0
+    )
+    range_m: float = setting(
+        100.0, doc="practical range", unit="m", exclusive_minimum=True, minimum=0.0
+    )
+    nu: float | None = setting(
+        None, doc="Matern smoothness (matern only)", exclusive_minimum=True, minimum=0.0
+    )
+
+    def __post_init__(self) -> None:
+        if self.model == "matern" and self.nu is None:
+            raise SettingsError(
+                "the matern model needs its smoothness nu (0.5 = exponential, 1.5, 2.5, ...)",
+                key="nu",
+            )
+        if self.model != "matern" and self.nu is not None:
+            raise SettingsError(
+                f"nu applies to the matern model only, not to '{self.model}'; leave it out",
+                key="nu",
+            )
 
     def as_model(self) -> VariogramModel:
         return VariogramModel(
@@ -105,6 +142,12 @@ class InterpolationSettings:
         doc="fit variograms per paddock, on the farm's pooled samples, or auto (by sample count)",
         choices=("auto", "paddock", "farm"),
     )
+    matern_nu: float = setting(
+        1.5,
+        doc="smoothness nu of the matern model when it is among the models (0.5 = exponential)",
+        minimum=0.2,
+        maximum=20.0,
+    )
     n_lags: int = setting(10, doc="lag classes of the empirical variogram", minimum=4, maximum=50)
     max_lag_fraction: float = setting(
         0.5,
@@ -119,7 +162,9 @@ class InterpolationSettings:
         ("na",),
         doc="variables kriged on a log scale (skewed ones; lognormal back-transform)",
     )
-    idw_power: float = setting(2.0, doc="power of inverse-distance weighting", minimum=0.5, maximum=6.0)
+    idw_power: float = setting(
+        2.0, doc="power of inverse-distance weighting", minimum=0.5, maximum=6.0
+    )
     borrow_farm_surface: bool = setting(
         False, doc="krige a paddock without samples from the whole farm's samples"
     )
@@ -130,7 +175,9 @@ class InterpolationSettings:
     def __post_init__(self) -> None:
         for m in self.models:
             if m not in _MODELS:
-                raise SettingsError(f"'{m}' is not a model; allowed: {', '.join(_MODELS)}", key="models")
+                raise SettingsError(
+                    f"'{m}' is not a model; allowed: {', '.join(_MODELS)}", key="models"
+                )
         if not self.models:
             raise SettingsError("name at least one model", key="models")
         for v in self.log_transform:
@@ -193,6 +240,17 @@ def _xy(gdf: gpd.GeoDataFrame) -> NDArray[np.float64]:
     return np.column_stack([gdf.geometry.x.to_numpy(), gdf.geometry.y.to_numpy()])
 
 
+def _max_distance(xy: NDArray[np.float64]) -> float:
+    """The largest distance between two points (through their convex hull: no n x n table)."""
+    pts = xy
+    if len(xy) > 3:
+        try:
+            pts = xy[ConvexHull(xy).vertices]
+        except QhullError:  # all on one line: its ends are extremes in x or in y
+            pts = xy[[xy[:, 0].argmin(), xy[:, 0].argmax(), xy[:, 1].argmin(), xy[:, 1].argmax()]]
+    return float(pdist(pts).max()) if len(pts) > 1 else 0.0
+
+
 @dataclass(frozen=True)
 class _Fit:
     model: VariogramModel | None
@@ -202,6 +260,10 @@ class _Fit:
     note: str | None
 
 
+class _NoFit(Exception):
+    """No variogram could be fitted; the message says why."""
+
+
 def _fit_variogram(
     xy: NDArray[np.float64],
     z: NDArray[np.float64],
@@ -209,50 +271,72 @@ def _fit_variogram(
     variable: str,
     settings: InterpolationSettings,
     scope: str,
+    note: str | None = None,
 ) -> _Fit:
-    dmax = float(np.max(np.hypot(*(xy[:, None, :] - xy[None, :, :]).transpose(2, 0, 1))))
-    max_lag = dmax * settings.max_lag_fraction
-    emp = empirical(xy, z, n_lags=settings.n_lags, max_lag=max_lag)
+    """Fit (or take the fixed) variogram of ``z``; raise :class:`_NoFit` when none can be had."""
+    max_lag = _max_distance(xy) * settings.max_lag_fraction
     if variable in settings.fixed:
-        return _Fit(settings.fixed[variable].as_model(), emp, (), scope, "variogram fixed in the project")
-    sel = select_model(
-        xy, z, candidates=settings.models, n_lags=settings.n_lags, max_lag=max_lag
-    )
+        try:
+            emp = empirical(xy, z, n_lags=settings.n_lags, max_lag=max_lag)
+        except (InputError, SettingsError):  # shown for information only
+            emp = None
+        fixed = "variogram fixed in the project"
+        return _Fit(settings.fixed[variable].as_model(), emp, (), scope,
+                    fixed if note is None else f"{fixed}; {note}")
+    nu = settings.matern_nu if "matern" in settings.models else None
+    try:
+        sel = select_model(
+            xy, z, candidates=settings.models, n_lags=settings.n_lags, max_lag=max_lag, nu=nu
+        )
+    except (InputError, SettingsError) as exc:
+        why = getattr(exc, "problem", None) or getattr(exc, "bare_message", None)
+        raise _NoFit(why or str(exc)) from None
     cands = tuple(
         (c.model.name, float(c.cross_validation.rmse), float(c.cross_validation.msse))
         for c in sel.candidates
     )
-    return _Fit(sel.model, emp, cands, scope, None)
+    return _Fit(sel.model, sel.empirical, cands, scope, note)
 
 
 def _flat(grid: PaddockGrid, value: float) -> NDArray[np.float64]:
-    return grid.to_array(np.full(int(grid.mask.sum()), value, dtype=float))
+    return grid.to_array(np.full(grid.n_cells, value, dtype=float))
+
+
+def _zones_over(grid: PaddockGrid, zones: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    """The user zones holding at least one of the grid's cell centres, indexed 0..n-1."""
+    x, y = grid.cell_centres()
+    geoms = zones.geometry.to_numpy()
+    keep = [g is not None and bool(shapely.contains_xy(g, x, y).any()) for g in geoms]
+    return zones[keep].reset_index(drop=True)
 
 
 def _zone_values(
     grid: PaddockGrid, pts: gpd.GeoDataFrame, variable: str, zones: gpd.GeoDataFrame
-) -> NDArray[np.float64] | None:
-    """Each user zone takes the value of the one sample inside it (None if not that design)."""
-    hits = gpd.sjoin(pts[[variable, "geometry"]], zones[["geometry"]], predicate="within", how="left")
-    if hits["index_right"].isna().any() or hits["index_right"].duplicated().any():
+) -> tuple[NDArray[np.float64], int] | None:
+    """Each user zone takes the value of the one sample inside it (None if not that design).
+
+    The design holds when every sample lies in exactly one zone and no zone
+    holds two. Cells in no sampled zone take the value of the nearest cell
+    that is in one; their count is returned with the surface.
+    """
+    zone_geoms = zones.geometry.to_numpy()
+    inside = shapely.within(pts.geometry.to_numpy()[:, None], zone_geoms[None, :])
+    if (inside.sum(axis=1) != 1).any() or (inside.sum(axis=0) > 1).any():
         return None
     x, y = grid.cell_centres()
-    cells = shapely.points(x, y)
-    out = np.full(cells.shape, np.nan)
-    for zi, value in zip(hits["index_right"].astype(int), hits[variable], strict=True):
-        inside = shapely.contains_xy(zones.geometry.iloc[zi], x, y)
-        out[inside] = value
-    if np.isnan(out).any():
-        # cells outside every zone take the nearest zone's value
-        filled = ~np.isnan(out)
-        if not filled.any():
-            return None
-        from scipy.spatial import cKDTree
-
+    out = np.full(x.shape, np.nan)
+    values = pts[variable].to_numpy(float)
+    for i, zi in enumerate(inside.argmax(axis=1)):
+        out[shapely.contains_xy(zone_geoms[zi], x, y)] = values[i]
+    filled = ~np.isnan(out)
+    if not filled.any():
+        return None
+    n_fill = int((~filled).sum())
+    if n_fill:
         tree = cKDTree(np.column_stack([x[filled], y[filled]]))
         _, idx = tree.query(np.column_stack([x[~filled], y[~filled]]))
         out[~filled] = out[filled][idx]
-    return grid.to_array(out)
+    return grid.to_array(out), n_fill
 
 
 def _krige(
@@ -275,6 +359,21 @@ def _krige(
     else:
         est, var = ordinary_kriging(xy, z, target, model, **kw)
     return grid.to_array(est), grid.to_array(np.sqrt(np.maximum(var, 0.0)))
+
+
+def _physical(variable: str, est: NDArray[np.float64], notes: list[str]) -> NDArray[np.float64]:
+    """Amounts below zero set to zero, ESP kept within 0-100 % (with a note each)."""
+    if variable in _AMOUNTS:
+        low = est < 0
+        if low.any():
+            est = np.where(low, 0.0, est)
+            notes.append(f"{int(low.sum())} cells estimated below zero were set to zero")
+    elif variable == "esp":
+        out = (est < 0) | (est > 100)
+        if out.any():
+            est = np.clip(est, 0.0, 100.0)
+            notes.append(f"{int(out.sum())} cells estimated outside 0-100 % were clipped to it")
+    return est
 
 
 def interpolate_farm(
@@ -314,19 +413,67 @@ def interpolate_farm(
     ------
     InputError
         A paddock has no samples and ``borrow_farm_surface`` is off.
+
+    Warns
+    -----
+    InterpolationWarning
+        Inverse-distance weighting instead of kriging (too few samples, or no
+        variogram could be fitted); a paddock's surface borrowed from the
+        farm; a variable without values in a sampled paddock.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> from geosoil.grids import aligned_grids
+    >>> paddocks = gpd.GeoDataFrame({"paddock": ["A"]}, geometry=[shapely.box(0, 0, 100, 100)],
+    ...                             crs="EPSG:32755")
+    >>> grids = aligned_grids(paddocks, cell_size_m=10.0)
+    >>> samples = gpd.GeoDataFrame({"paddock": ["A"], "ph": [5.5]},
+    ...                            geometry=[shapely.Point(50, 50)], crs="EPSG:32755")
+    >>> s = interpolate_farm(samples, grids, variables=["ph"], settings=InterpolationSettings())
+    >>> s[("A", "ph")].method, float(np.nanmax(s[("A", "ph")].estimate)), s[("A", "ph")].notes
+    ('flat', 5.5, ('one sample: flat surface at 5.5',))
     """
     out: dict[tuple[str, str], Surface] = {}
-    farm_fits: dict[str, _Fit] = {}
+    farm_fits: dict[tuple[str, bool], _Fit | _NoFit] = {}
 
-    def farm_fit(variable: str) -> _Fit:
-        if variable not in farm_fits:
+    def farm_fit(variable: str, log: bool) -> _Fit:
+        # keyed by the scale too: a paddock kriged on the log scale needs a log-scale variogram
+        if (variable, log) not in farm_fits:
             pts = samples[samples[variable].notna()]
             z = pts[variable].to_numpy(float)
-            log = variable in settings.log_transform and bool(np.all(z > 0))
-            farm_fits[variable] = _fit_variogram(
-                _xy(pts), np.log(z) if log else z, variable=variable, settings=settings, scope="farm"
-            )
-        return farm_fits[variable]
+            note = None
+            if log:
+                keep = z > 0
+                if not keep.all():
+                    note = (f"{int((~keep).sum())} farm sample(s) of zero or less left out of "
+                            "the log-scale variogram")
+                pts, z = pts[keep], np.log(z[keep])
+            try:
+                farm_fits[(variable, log)] = _fit_variogram(
+                    _xy(pts), z, variable=variable, settings=settings, scope="farm", note=note
+                )
+            except _NoFit as exc:
+                farm_fits[(variable, log)] = exc
+        got = farm_fits[(variable, log)]
+        if isinstance(got, _NoFit):
+            raise got
+        return got
+
+    def idw_surface(
+        name: str, variable: str, grid: PaddockGrid, xy: NDArray[np.float64],
+        z: NDArray[np.float64], notes: list[str], why: str,
+    ) -> Surface:
+        msg = (f"{why}: inverse-distance weighting (power {settings.idw_power:g}), "
+               "no error surface")
+        notes.append(msg)
+        warnings.warn(f"{name}, {variable}: {msg}", InterpolationWarning, stacklevel=3)
+        x, y = grid.cell_centres()
+        est = idw(xy, z, np.column_stack([x, y]), power=settings.idw_power)
+        return Surface(
+            variable, name, _physical(variable, grid.to_array(est), notes), None,
+            "inverse-distance weighting", len(z), notes=tuple(notes),
+        )
 
     for name, grid in grids.items():
         in_paddock = samples[samples["paddock"] == name]
@@ -336,23 +483,33 @@ def interpolate_farm(
                 fix="sample it, leave it out of the boundaries file, or set "
                 "[interpolation] borrow_farm_surface = true to krige it from the whole farm",
             )
+        borrowed = in_paddock.empty
+        if borrowed:
+            warnings.warn(
+                f"paddock '{name}' has no samples: its surfaces are interpolated from the "
+                "whole farm's samples (borrow_farm_surface)",
+                InterpolationWarning, stacklevel=2,
+            )
         zones_here = None
         if user_zones is not None and not user_zones.empty:
-            zones_here = user_zones[user_zones.intersects(_grid_outline(grid))]
+            zones_here = _zones_over(grid, user_zones)
         for variable in variables:
             if progress:
                 progress(f"surfaces: {name}: {variable}")
-            borrowed = in_paddock.empty
             pts = samples if borrowed else in_paddock
             pts = pts[pts[variable].notna()]
             notes: list[str] = []
             if borrowed:
-                notes.append("no samples in this paddock: kriged from the whole farm's samples")
+                notes.append(
+                    "no samples in this paddock: interpolated from the whole farm's samples"
+                )
             n = len(pts)
             if n == 0:
-                notes.append(f"no {variable} values in this paddock: surface left empty")
+                msg = f"no {variable} values in this paddock: surface left empty"
+                notes.append(msg)
+                warnings.warn(f"{name}: {msg}", InterpolationWarning, stacklevel=2)
                 out[(name, variable)] = Surface(
-                    variable, name, grid.to_array(np.full(int(grid.mask.sum()), np.nan)), None,
+                    variable, name, grid.to_array(np.full(grid.n_cells, np.nan)), None,
                     "none", 0, notes=tuple(notes),
                 )
                 continue
@@ -368,27 +525,26 @@ def interpolate_farm(
                 )
                 continue
             if zones_here is not None and len(zones_here) and n <= len(zones_here):
-                zv = _zone_values(grid, pts, variable, zones_here)
-                if zv is not None:
+                got = _zone_values(grid, pts, variable, zones_here)
+                if got is not None:
+                    zv, n_fill = got
                     notes.append(
-                        f"{n} composite samples, one per management zone: each zone takes its sample's value"
+                        f"{n} composite samples, one per management zone: each zone takes its "
+                        "sample's value"
                     )
+                    if n_fill:
+                        notes.append(
+                            f"{n_fill} cells in no sampled zone took the value of the nearest "
+                            "sampled zone"
+                        )
                     out[(name, variable)] = Surface(
                         variable, name, zv, None, "zone values", n, notes=tuple(notes)
                     )
                     continue
             if n < settings.min_samples_kriging:
-                msg = (
-                    f"{n} samples, fewer than min_samples_kriging = {settings.min_samples_kriging}: "
-                    f"inverse-distance weighting (power {settings.idw_power:g}), no error surface"
-                )
-                notes.append(msg)
-                warnings.warn(f"{name}, {variable}: {msg}", InterpolationWarning, stacklevel=2)
-                x, y = grid.cell_centres()
-                est = idw(xy, z, np.column_stack([x, y]), power=settings.idw_power)
-                out[(name, variable)] = Surface(
-                    variable, name, grid.to_array(est), None, "inverse-distance weighting", n,
-                    notes=tuple(notes),
+                out[(name, variable)] = idw_surface(
+                    name, variable, grid, xy, z, notes,
+                    f"{n} samples, fewer than min_samples_kriging = {settings.min_samples_kriging}",
                 )
                 continue
             log = variable in settings.log_transform and bool(np.all(z > 0))
@@ -398,16 +554,26 @@ def interpolate_farm(
             use_farm = borrowed or settings.variogram_scope == "farm" or (
                 settings.variogram_scope == "auto" and n < settings.min_samples_variogram
             )
-            if use_farm:
-                fit = farm_fit(variable)
-                if not borrowed:
-                    notes.append(
-                        f"{n} samples: variogram fitted on the farm's pooled samples"
-                        if settings.variogram_scope == "auto"
-                        else "variogram fitted on the farm's pooled samples"
+            try:
+                if use_farm:
+                    fit = farm_fit(variable, log)
+                    if not borrowed:
+                        notes.append(
+                            f"{n} samples, fewer than min_samples_variogram = "
+                            f"{settings.min_samples_variogram}: variogram fitted on the farm's "
+                            "pooled samples"
+                            if settings.variogram_scope == "auto"
+                            else "variogram fitted on the farm's pooled samples"
+                        )
+                else:
+                    fit = _fit_variogram(
+                        xy, zt, variable=variable, settings=settings, scope="paddock"
                     )
-            else:
-                fit = _fit_variogram(xy, zt, variable=variable, settings=settings, scope="paddock")
+            except _NoFit as exc:
+                out[(name, variable)] = idw_surface(
+                    name, variable, grid, xy, z, notes, f"no variogram could be fitted ({exc})"
+                )
+                continue
             if fit.note:
                 notes.append(fit.note)
             model = fit.model
@@ -416,6 +582,7 @@ def interpolate_farm(
             est, std = _krige(
                 xy, z, grid, model, log=log, neighbours=settings.neighbours
             )
+            est = _physical(variable, est, notes)
             if not np.isfinite(cv.msse) or cv.msse > 3 or cv.msse < 1 / 3:
                 notes.append(
                     f"cross-validation MSSE {cv.msse:.2f} is far from 1: the error surface may "
@@ -429,28 +596,33 @@ def interpolate_farm(
     return out
 
 
-def _grid_outline(grid: PaddockGrid) -> shapely.Geometry:
-    left, bottom, right, top = grid.bounds
-    return shapely.box(left, bottom, right, top)
-
-
 def derive_cells(
     surfaces: Mapping[str, NDArray[np.float64]],
 ) -> tuple[dict[str, NDArray[np.float64]], list[str]]:
     """The cell chemistry of one paddock from its interpolated amounts.
 
+    Each cell's ECEC is the sum of its parts (Ca, Mg, K, Na and exchangeable
+    acidity; exchangeable Al stands in for the acidity where only Al was
+    measured); each saturation is that part's share of the cell's ECEC, so
+    the saturations of the parts add up to 100 %. Where the parts are
+    incomplete the lab's CEC is used as the ECEC (and the shares need not add
+    up). Amounts below zero are set to zero and Al above the exchangeable
+    acidity is lowered to it, with a note each; a surface without any value
+    (a variable the paddock has no samples of) is left out, with a note.
+
     Parameters
     ----------
     surfaces
-        Variable -> estimate array (cmol(+)/kg; pH unitless), NaN outside.
+        Variable -> estimate array (cmol(+)/kg; ``esp`` percent; pH unitless),
+        NaN outside.
 
     Returns
     -------
     cells, notes
-        ``cells`` holds the amounts (negative kriged values set to zero),
-        ``ecec`` and the saturations ``ca_sat``, ``mg_sat``, ``k_sat``,
-        ``na_sat``, ``esp``, ``acid_sat``, ``al_sat`` (percent of the cell's
-        ECEC) and ``ph`` where given.
+        ``cells`` holds the amounts, ``ecec`` and the saturations ``ca_sat``,
+        ``mg_sat``, ``k_sat``, ``na_sat``, ``esp``, ``acid_sat``, ``al_sat``
+        (percent of the cell's ECEC) and ``ph`` where given. A cell with an
+        ECEC of 0 has saturations of 0.
 
     Examples
     --------
@@ -462,35 +634,60 @@ def derive_cells(
     """
     cells: dict[str, NDArray[np.float64]] = {}
     notes: list[str] = []
-    for v, arr in surfaces.items():
-        a = np.array(arr, dtype=float)
-        if v in ("ca", "mg", "k", "na", "acidity", "al", "cec"):
+    arrays = {v: np.array(arr, dtype=float) for v, arr in surfaces.items()}
+    any_values = any(np.isfinite(a).any() for a in arrays.values())
+    for v, a in arrays.items():
+        if any_values and a.size and not np.isfinite(a).any():
+            notes.append(f"{v}: no values in this paddock, left out")
+            continue
+        if v in _AMOUNTS:
             neg = a < 0
             if neg.any():
                 notes.append(f"{v}: {int(neg.sum())} cells kriged below zero were set to zero")
                 a[neg] = 0.0
+        elif v == "esp":
+            out = (a < 0) | (a > 100)
+            if out.any():
+                notes.append(f"esp: {int(out.sum())} cells outside 0-100 % were clipped to it")
+                a = np.clip(a, 0.0, 100.0)
         cells[v] = a
-    parts = [p for p in ("ca", "mg", "k", "na", "acidity") if p in cells]
-    if {"ca", "mg", "k", "na"} <= set(parts):
-        ecec = sum(cells[p] for p in parts)
-        if "acidity" not in cells:
+    if "al" in cells and "acidity" in cells:
+        above = cells["al"] > cells["acidity"]
+        if above.any():
+            notes.append(
+                f"al: {int(above.sum())} cells above the exchangeable acidity were lowered to it"
+            )
+            cells["al"] = np.where(above, cells["acidity"], cells["al"])
+    acid = "acidity" if "acidity" in cells else ("al" if "al" in cells else None)
+    bases = ("ca", "mg", "k", "na")
+    if set(bases) <= set(cells):
+        ecec = cells["ca"] + cells["mg"] + cells["k"] + cells["na"]
+        if acid is None:
             notes.append("no exchangeable acidity: ECEC is the sum of Ca, Mg, K and Na")
+        else:
+            ecec = ecec + cells[acid]
+            if acid == "al":
+                notes.append(
+                    "no exchangeable acidity: ECEC is the sum of Ca, Mg, K, Na and Al "
+                    "(exchangeable H unknown)"
+                )
         cells["ecec"] = ecec
     elif "cec" in cells:
         cells["ecec"] = cells["cec"]
         notes.append("ECEC taken from the lab's CEC (its parts are incomplete)")
     if "ecec" in cells:
+        ecec = cells["ecec"]
         with np.errstate(invalid="ignore", divide="ignore"):
-            ecec = cells["ecec"]
-            for p, name in (("ca", "ca_sat"), ("mg", "mg_sat"), ("k", "k_sat"),
-                            ("na", "na_sat"), ("acidity", "acid_sat"), ("al", "al_sat")):
-                if p in cells:
-                    cells[name] = np.clip(np.where(ecec > 0, 100.0 * cells[p] / ecec, 0.0), 0, 100)
-                    cells[name][np.isnan(ecec)] = np.nan
-            if "na_sat" in cells:
-                cells["esp"] = cells["na_sat"]
-            elif "esp" in cells:
-                cells["na"] = cells["esp"] / 100.0 * ecec
-                cells["na_sat"] = cells["esp"]
-                notes.append("ESP interpolated from SAR-based estimates (Na not measured)")
+            for p, sat in (("ca", "ca_sat"), ("mg", "mg_sat"), ("k", "k_sat"),
+                           ("na", "na_sat"), (acid, "acid_sat"), ("al", "al_sat")):
+                if p is not None and p in cells:
+                    share = np.clip(np.where(ecec > 0, 100.0 * cells[p] / ecec, 0.0), 0, 100)
+                    share[np.isnan(ecec) | np.isnan(cells[p])] = np.nan
+                    cells[sat] = share
+        if "na_sat" in cells:
+            cells["esp"] = cells["na_sat"]
+        elif "esp" in cells:
+            cells["na"] = cells["esp"] / 100.0 * ecec
+            cells["na_sat"] = cells["esp"]
+            notes.append("ESP interpolated from SAR-based estimates (Na not measured)")
     return cells, notes
