@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from geosoil.pipeline import check as check_project
-from geosoil.project import load_project
+from geosoil.project import load_project_problems
 
 from .options import echo_err, handle_errors, project_argument
 
@@ -20,14 +20,27 @@ __all__ = ["check"]
 @click.pass_context
 @handle_errors
 def check(ctx: click.Context, project: Path) -> None:
-    """Check PROJECT's inputs and settings; exit 1 if anything is wrong."""
-    proj = load_project(project)
-    problems, warnings = check_project(proj)
-    for w in warnings:
-        echo_err(f"warning: {w}")
-    for p in problems:
+    """Check PROJECT's inputs and settings; exit 1 if anything is wrong.
+
+    PROJECT is a project folder or its TOML file. Every problem found is
+    listed on stderr; nothing is written.
+    """
+    proj, problems = load_project_problems(project)
+    if proj is None:
+        for p in problems:
+            echo_err(f"problem: {p}")
+        echo_err(
+            f"{len(problems)} problem(s) in the settings of {project}; "
+            "the input files are checked once the settings are valid"
+        )
+        sys.exit(1)
+    found, warnings = check_project(proj)
+    if not ctx.obj["quiet"]:
+        for w in warnings:
+            echo_err(f"warning: {w}")
+    for p in found:
         echo_err(f"problem: {p}")
-    if problems:
-        echo_err(f"{len(problems)} problem(s) found in {proj.path}")
+    if found:
+        echo_err(f"{len(found)} problem(s) found in {proj.path}")
         sys.exit(1)
     click.echo(f"ok: {proj.path} is ready to run ({len(warnings)} warning(s))")

@@ -13,6 +13,22 @@ from .options import echo_err, handle_errors, overwrite_option
 __all__ = ["new"]
 
 
+def _check_crs(value: str | None) -> str | None:
+    """Reject a --crs that pyproj cannot read, as a usage error naming the option."""
+    if value is None:
+        return None
+    import pyproj
+
+    try:
+        pyproj.CRS.from_user_input(value)
+    except pyproj.exceptions.CRSError as exc:
+        raise click.BadParameter(
+            f"'{value}' is not a CRS pyproj knows ({exc}); give an EPSG code such as "
+            "EPSG:28355, an authority string or WKT"
+        ) from None
+    return value
+
+
 @click.command()
 @click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
 @click.option(
@@ -30,6 +46,7 @@ __all__ = ["new"]
 @click.option(
     "--crs",
     default=None,
+    callback=lambda ctx, param, value: _check_crs(value),
     help="CRS of the samples' coordinates when the file carries none "
     "(EPSG code such as EPSG:28355, authority string or WKT).",
 )

@@ -482,7 +482,7 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                         f"paddock '{name}' has no samples; sample it or set "
                         "[interpolation] borrow_farm_surface = true"
                     )
-        sink.extend(w for w in prep.warnings if w not in sink)
+        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if w not in sink)
     except GeosoilError as exc:
         problems.append(str(exc))
     return problems, sink

@@ -21,11 +21,13 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+import shapely
 import tomli_w
 
 from .boundaries import BoundarySettings
 from .chemistry import ChemistrySettings
-from .errors import InputError, SettingsError
+from .errors import GeosoilError, InputError, SettingsError
 from .products import ProductSettings
 from .rates import RateSettings, SpreaderSettings
 from .samples import SampleSettings
@@ -43,6 +45,8 @@ __all__ = [
     "Project",
     "load_project",
     "parse_project",
+    "settings_problems",
+    "load_project_problems",
     "template",
     "default_products",
     "new_project",
@@ -189,6 +193,97 @@ class Project:
         return files
 
 
+def _read_toml(text: str, *, source: str) -> dict[str, Any]:
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(
+            f"not valid TOML ({exc})", file=source, fix="correct the line the parser names"
+        ) from None
+
+
+def _split_key(data: Mapping[str, Any], parts: list[str]) -> list[str] | None:
+    """The path of mapping keys that ``parts`` (a dotted key split on dots) names in ``data``.
+
+    Keys of user tables may hold dots themselves (a paddock called "Block 2.1"), so
+    at each level the longest run of parts that is a key wins.
+    """
+    for n in range(len(parts), 0, -1):
+        head = ".".join(parts[:n])
+        if head not in data:
+            continue
+        if n == len(parts):
+            return [head]
+        sub = data[head]
+        if isinstance(sub, Mapping):
+            rest = _split_key(sub, parts[n:])
+            if rest is not None:
+                return [head, *rest]
+    return None
+
+
+def _set_aside(data: dict[str, Any], key: str) -> bool:
+    """Remove dotted ``key`` from ``data`` (``key[i]``: the whole list). False if absent."""
+    bare = key.split("[", 1)[0]
+    path = _split_key(data, bare.split(".")) if bare else None
+    if not path:
+        return False
+    table: Any = data
+    for part in path[:-1]:
+        table = table[part]
+    del table[path[-1]]
+    return True
+
+
+def settings_problems(
+    text: str, *, base_dir: Path, source: str = "project file"
+) -> tuple[ProjectSettings | None, list[GeosoilError]]:
+    """Validate project-file ``text`` and list every problem, not only the first.
+
+    Each key found wrong is set aside (as if it were not written) and the
+    rest is validated again, until it passes or a problem cannot be set aside
+    (a required key is missing, or a check spans keys that were not written).
+
+    Returns
+    -------
+    settings, problems
+        The settings when there is no problem (else None), and the problems
+        in the order found, each naming its dotted key.
+
+    Examples
+    --------
+    >>> text = '''farm = 1
+    ... [samples]
+    ... file = "lab.csv"
+    ... [boundaries]
+    ... paddocks = "paddocks.geojson"
+    ... [grid]
+    ... cell_sise_m = 5
+    ... '''
+    >>> settings, problems = settings_problems(text, base_dir=Path("."))
+    >>> settings is None, [p.key for p in problems]
+    (True, ['farm', 'grid.cell_sise_m'])
+    """
+    try:
+        data = _read_toml(text, source=source)
+    except InputError as exc:
+        return None, [exc]
+    problems: list[GeosoilError] = []
+    seen: set[str | None] = set()
+    while True:
+        try:
+            settings = from_mapping(ProjectSettings, data, section="", base_dir=base_dir)
+        except SettingsError as exc:
+            if exc.key in seen:  # setting it aside did not help: stop here
+                return None, problems
+            seen.add(exc.key)
+            problems.append(exc)
+            if exc.key is None or not _set_aside(data, exc.key):
+                return None, problems
+            continue
+        return (None if problems else settings), problems
+
+
 def parse_project(text: str, *, base_dir: Path, source: str = "project file") -> ProjectSettings:
     """Parse and validate project-file ``text``; relative paths resolve from ``base_dir``.
 
@@ -197,34 +292,74 @@ def parse_project(text: str, *, base_dir: Path, source: str = "project file") ->
     InputError
         The text is not valid TOML (with the line and column).
     SettingsError
-        A key is unknown, missing, of the wrong type or out of range.
+        A key is unknown, missing, of the wrong type or out of range. When
+        several keys are wrong, one error lists them all (see
+        :func:`settings_problems`).
     """
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(
-            f"not valid TOML ({exc})", file=source, fix="correct the line the parser names"
-        ) from None
-    return from_mapping(ProjectSettings, data, section="", base_dir=base_dir)
+    settings, problems = settings_problems(text, base_dir=base_dir, source=source)
+    if settings is not None:
+        return settings
+    if len(problems) == 1:
+        raise problems[0]
+    raise SettingsError(
+        f"{len(problems)} problems in {source}:\n" + "\n".join(f"  {p}" for p in problems)
+    )
 
 
-def load_project(path: Path | str) -> Project:
-    """Load a project from its TOML file or from the folder that holds ``geosoil.toml``."""
+def _project_path(path: Path | str) -> Path:
     p = Path(path)
     if p.is_dir():
         p = p / PROJECT_FILE_NAME
-    if not p.exists():
+    if not p.is_file():
         raise InputError(
             "project file not found",
             file=p,
             fix=f"give a project folder holding {PROJECT_FILE_NAME}, or create one with 'geosoil new'",
         )
+    return p
+
+
+def _read_text(p: Path) -> str:
     try:
-        text = p.read_text(encoding="utf-8-sig")
+        return p.read_text(encoding="utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the project file ({exc})", file=p) from None
+
+
+def load_project(path: Path | str) -> Project:
+    """Load a project from its TOML file or from the folder that holds ``geosoil.toml``.
+
+    Raises
+    ------
+    InputError
+        No project file there, it cannot be read, or it is not valid TOML.
+    SettingsError
+        A setting is wrong (one error lists every wrong key).
+    """
+    p = _project_path(path)
+    text = _read_text(p)
     settings = parse_project(text, base_dir=p.parent.resolve(), source=str(p))
     return Project(settings=settings, path=p.resolve(), text=text)
+
+
+def load_project_problems(path: Path | str) -> tuple[Project | None, list[GeosoilError]]:
+    """Like :func:`load_project`, but return every problem instead of raising the first.
+
+    Returns
+    -------
+    project, problems
+        The project when its file reads and its settings are valid (else
+        None), and the problems found.
+    """
+    try:
+        p = _project_path(path)
+        text = _read_text(p)
+    except InputError as exc:
+        return None, [exc]
+    settings, problems = settings_problems(text, base_dir=p.parent.resolve(), source=str(p))
+    if settings is None:
+        return None, problems
+    return Project(settings=settings, path=p.resolve(), text=text), []
 
 
 # --------------------------------------------------------------------------- template
@@ -253,37 +388,44 @@ def _comment(doc: Any) -> str:
     return "  # " + text
 
 
-def _emit_table(lines: list[str], section: str, cls: type, values: Any) -> None:
+def _emit_table(
+    lines: list[str], section: str, cls: type, values: Any, *, header: bool = False
+) -> None:
     hints = typing.get_type_hints(cls)
     simple: list[str] = []
-    nested: list[tuple[str, type, Any]] = []
+    nested: list[tuple[str, type, Any, bool]] = []
     for doc in describe(cls):
         value = getattr(values, doc.key) if values is not None else doc.default
         tp = hints[doc.key]
         if dataclasses.is_dataclass(tp):
-            nested.append((doc.key, tp, value))
+            nested.append((_toml_key(doc.key), tp, value, False))
             continue
         if typing.get_origin(tp) is dict:
             vtp = typing.get_args(tp)[1]
             if dataclasses.is_dataclass(vtp):
+                where = f"{section}.{doc.key}" if section else doc.key
+                simple.append(
+                    f"# {doc.key}: {'none yet; ' if not value else ''}one table [{where}.NAME] "
+                    f"each{_comment(doc)}"
+                )
                 for name, sub in (value or {}).items():
-                    nested.append((f"{doc.key}.{name}", vtp, sub))
+                    nested.append((f"{_toml_key(doc.key)}.{_toml_key(name)}", vtp, sub, True))
                 continue
         if value is None or value is dataclasses.MISSING:
-            simple.append(f"# {doc.key} = {_comment(doc)[4:]}")
+            simple.append(f"# {doc.key} = ...{_comment(doc)}")
         else:
-            plain = to_mapping(_Box(value))["v"] if value is not None else None
+            plain = to_mapping(_Box(value))["v"]
             if isinstance(plain, dict) and not plain:
                 simple.append(f"# {doc.key} = {{}}{_comment(doc)}")
             else:
-                simple.append(f"{doc.key} = {_toml_value(plain)}{_comment(doc)}")
-    if simple:
+                simple.append(f"{_toml_key(doc.key)} = {_toml_value(plain)}{_comment(doc)}")
+    if simple or header:
         if section:
             lines.append("")
             lines.append(f"[{section}]")
         lines.extend(simple)
-    for key, tp, value in nested:
-        _emit_table(lines, f"{section}.{key}" if section else key, tp, value)
+    for key, tp, value, force in nested:
+        _emit_table(lines, f"{section}.{key}" if section else key, tp, value, header=force)
 
 
 @dataclass(frozen=True)
@@ -372,28 +514,50 @@ def new_project(
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
+        ask = (
+            f"{samples}: the sample coordinates carry no CRS and are not longitude/latitude; "
+            "give their CRS with --crs (an EPSG code such as EPSG:28355, or WKT)"
+        )
+        if pads.crs.is_geographic:  # projected x/y cannot be in the boundaries' lon/lat
+            raise CRSError(
+                f"{ask}: the boundaries are in longitude/latitude ({pads.crs.name})"
+            ) from None
         guess = pads.crs.to_string()
         read = read_samples(dataclasses.replace(trial, crs=guess))
-        minx, miny, maxx, maxy = pads.total_bounds
+        area = pads.geometry.union_all()
         pts = read.samples.geometry
-        inside = (pts.x.between(minx, maxx) & pts.y.between(miny, maxy)).mean()
+        inside = float(np.mean(shapely.contains_xy(area, pts.x.to_numpy(), pts.y.to_numpy())))
         if inside < 0.5:
             raise CRSError(
-                f"{samples}: the coordinates carry no CRS and do not fall inside the boundaries "
-                f"in the boundaries' CRS ({pads.crs.name}); pass --crs (e.g. --crs EPSG:28355)"
+                f"{ask}: in the boundaries' CRS ({pads.crs.name}) only {inside:.0%} of them "
+                "fall inside the boundaries"
             ) from None
         notes.append(
-            f"sample x/y carry no CRS; they fall inside the boundaries in the boundaries' CRS, "
-            f"so {pads.crs.name} ({guess}) is assumed: check it"
+            f"sample x/y carry no CRS; {inside:.0%} of them fall inside the boundaries in the "
+            f"boundaries' CRS, so {pads.crs.name} ({guess}) is assumed: check it, or give "
+            "--crs"
         )
         crs = guess
     else:
         if crs is None and read.crs is not None and read.crs.is_geographic:
             notes.append("sample coordinates read as longitude/latitude (WGS 84)")
+            if samples.suffix.lower() in (".csv", ".txt", ".tsv", ".xlsx", ".xlsm", ".xls"):
+                crs = read.crs.to_string()  # a table carries no CRS: write what was detected
+    if read.samples.crs is not None and pads.crs is not None and len(read.samples):
+        pts = read.samples.geometry.to_crs(pads.crs)
+        share = float(np.mean(shapely.contains_xy(
+            pads.geometry.union_all(), pts.x.to_numpy(), pts.y.to_numpy())))
+        if share < 0.5:
+            notes.append(
+                f"only {share:.0%} of the samples fall inside the boundaries with the CRS "
+                f"{read.samples.crs.name}: check the samples' CRS (--crs) and the boundaries file"
+            )
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
     )
-    notes.append("units: " + ", ".join(f"{k} {v}" for k, v in read.units.items()))
+    notes.append(
+        "units: " + ", ".join(f"{k} {v}" for k, v in read.units.items() if v)
+    )
     sample_settings = dataclasses.replace(
         trial,
         file=_relative(samples, folder),

@@ -1,0 +1,170 @@
+"""``geosoil check``: every problem listed, exit 1 when any; nothing written."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import geopandas as gpd
+import pytest
+import shapely
+from click.testing import CliRunner
+
+from cli.main import cli
+
+UTM = "EPSG:32755"
+X0, Y0 = 540_000.0, 6_160_000.0
+
+HEADER = "Sample,Easting,Northing,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg)"
+
+
+def _rows(n: int = 12) -> list[str]:
+    rows = []
+    for i in range(n):
+        x, y = X0 + 20 + (i % 4) * 90 + i, Y0 + 30 + (i // 4) * 80 + 2 * i
+        rows.append(f"S{i + 1:02d},{x:.1f},{y:.1f},{5.0 + i / 10:.1f},{6 + i / 5:.2f},2.1,0.5,"
+                    f"{0.3 + i / 8:.2f}")
+    return rows
+
+
+def make_project(folder: Path, *, rows: list[str] | None = None, extra: str = "",
+                 header: str = HEADER) -> Path:
+    """A project folder with a lab CSV (easting/northing), one paddock and ``extra`` TOML."""
+    folder.mkdir(parents=True, exist_ok=True)
+    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
+                     crs=UTM).to_file(folder / "paddocks.gpkg")
+    (folder / "lab.csv").write_text(header + "\n" + "\n".join(rows or _rows()) + "\n")
+    (folder / "geosoil.toml").write_text(
+        f'[samples]\nfile = "lab.csv"\ncrs = "{UTM}"\n\n[boundaries]\npaddocks = "paddocks.gpkg"\n'
+        f"\n{extra}\n"
+    )
+    return folder
+
+
+def check(project: Path, *args: str):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, [*args, "check", str(project)])
+
+
+def _problems(stderr: str) -> list[str]:
+    return [ln for ln in stderr.splitlines() if ln.startswith("problem: ")]
+
+
+def _tree(root: Path) -> list[tuple[str, int, int]]:
+    return sorted(
+        (str(p.relative_to(root)), p.stat().st_size if p.is_file() else -1,
+         p.stat().st_mtime_ns if p.is_file() else 0)
+        for p in root.rglob("*")
+    )
+
+
+def test_help() -> None:
+    r = CliRunner().invoke(cli, ["check", "--help"])
+    assert r.exit_code == 0 and "PROJECT" in r.stdout and "nothing is written" in r.stdout
+
+
+def test_a_project_that_does_not_exist_is_a_usage_error(tmp_path: Path) -> None:
+    r = check(tmp_path / "nowhere")
+    assert r.exit_code == 2 and "PROJECT" in r.stderr and "does not exist" in r.stderr
+
+
+def test_a_folder_without_a_project_file_is_an_error(tmp_path: Path) -> None:
+    r = check(tmp_path)
+    assert r.exit_code == 1 and r.stdout == ""
+    assert "geosoil.toml" in r.stderr and "geosoil new" in r.stderr
+
+
+def test_ok_project_exits_0_and_writes_nothing_anywhere(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    project = make_project(tmp_path / "farm")
+    cwd = tmp_path / "cwd"
+    cwd.mkdir()
+    monkeypatch.chdir(cwd)
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    before = _tree(tmp_path)
+    for target in (project, project / "geosoil.toml"):  # a folder or its TOML file
+        r = check(target)
+        assert r.exit_code == 0, r.stderr
+        assert r.stdout.startswith("ok: ") and "ready to run" in r.stdout
+        assert _problems(r.stderr) == []
+    assert _tree(tmp_path) == before
+    assert os.listdir(cwd) == []
+
+
+def _broken(tmp_path: Path, **kw: object):  # noqa: ANN202
+    r = check(make_project(tmp_path / "farm", **kw))  # type: ignore[arg-type]
+    assert r.exit_code == 1
+    assert r.stdout == ""
+    return r, _problems(r.stderr)
+
+
+def test_typo_in_a_key_suggests_the_nearest_valid_key(tmp_path: Path) -> None:
+    r, problems = _broken(tmp_path, extra="[grid]\ncell_sise_m = 5\n")
+    assert len(problems) == 1
+    assert "'grid.cell_sise_m'" in problems[0] and "did you mean 'cell_size_m'?" in problems[0]
+
+
+def test_value_out_of_range_names_the_key_and_the_range(tmp_path: Path) -> None:
+    r, problems = _broken(tmp_path, extra="[rates.gypsum]\ntarget_esp_percent = 120\n")
+    assert "'rates.gypsum.target_esp_percent'" in problems[0]
+    assert "from 0 to 100 %" in problems[0] and "got 120" in problems[0]
+
+
+def test_wrong_type_names_the_key(tmp_path: Path) -> None:
+    r, problems = _broken(tmp_path, extra='[soil]\ndepth_m = "10 cm"\n')
+    assert "'soil.depth_m'" in problems[0] and "must be a number" in problems[0]
+
+
+def test_several_settings_problems_are_all_listed(tmp_path: Path) -> None:
+    r, problems = _broken(
+        tmp_path,
+        extra='[grid]\ncell_sise_m = 5\n[soil]\ndepth_m = 3\n[zones]\nmethod = "quantile"\n'
+        "[outputs]\nrate_unit = 1\n",
+    )
+    text = "\n".join(problems)
+    assert len(problems) == 4
+    for key in ("grid.cell_sise_m", "soil.depth_m", "zones.method", "outputs"):
+        assert f"'{key}'" in text
+    assert "did you mean 'quantiles'" in text and "did you mean 'output'" in text
+    assert "4 problem(s)" in r.stderr
+
+
+def test_missing_samples_file_is_named(tmp_path: Path) -> None:
+    project = make_project(tmp_path / "farm")
+    (project / "lab.csv").unlink()
+    r = check(project)
+    assert r.exit_code == 1 and r.stdout == ""
+    problems = _problems(r.stderr)
+    assert len(problems) == 1 and str(project / "lab.csv") in problems[0]
+
+
+def test_several_bad_sample_rows_are_all_listed(tmp_path: Path) -> None:
+    rows = _rows()
+    rows[1] = rows[1].replace(",2.1,", ",abc,")  # file row 3: Mg not a number
+    rows[4] = rows[4].replace(",0.5,", ",,")  # file row 6: K empty
+    f = rows[8].split(",")
+    f[3] = "15.2"  # file row 10: pH out of range
+    rows[8] = ",".join(f)
+    r, problems = _broken(tmp_path, rows=rows)
+    text = "\n".join(problems)
+    for row in (3, 6, 10):
+        assert f"row {row}" in text, text
+    assert len(problems) >= 3
+    assert "abc" in text
+
+
+def test_a_rule_switched_on_without_its_data_names_the_key(tmp_path: Path) -> None:
+    # Kamprath's lime requirement needs exchangeable Al; this lab file has none
+    r, problems = _broken(tmp_path, extra='[rates.lime]\nenabled = "on"\nmethod = "kamprath"\n')
+    assert len(problems) == 1
+    assert "'rates.lime.method'" in problems[0]
+    assert "exchangeable Al" in problems[0] or "al" in problems[0]
+    assert "enabled" in problems[0]
+
+
+def test_the_same_rule_on_auto_is_skipped_with_a_note(tmp_path: Path) -> None:
+    r = check(make_project(tmp_path / "farm", extra='[rates.lime]\nmethod = "kamprath"\n'))
+    assert r.exit_code == 0, r.stderr
+    assert "lime rule skipped" in r.stderr
+    assert "warning" in r.stdout  # the count of warnings

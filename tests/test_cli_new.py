@@ -1,0 +1,237 @@
+"""``geosoil new``: a ready-to-run project file from a lab file and a boundaries file."""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+from click.testing import CliRunner
+from pyproj import Transformer
+
+from cli.main import cli
+from geosoil.project import load_project
+
+UTM = "EPSG:32755"  # WGS 84 / UTM zone 55S
+X0, Y0 = 540_000.0, 6_160_000.0  # a paddock of 400 m x 300 m in the Riverina
+
+
+def make_inputs(folder: Path, *, n: int = 16, seed: int = 3) -> dict[str, Path]:
+    """Paddocks (UTM, and lon/lat) and lab files (lon/lat, and easting/northing without a CRS).
+
+    Invented values with a west-east sodicity trend and a south-north acidity trend.
+    """
+    folder.mkdir(parents=True, exist_ok=True)
+    paddock = shapely.box(X0, Y0, X0 + 400, Y0 + 300)
+    utm = gpd.GeoDataFrame({"name": ["Home"]}, geometry=[paddock], crs=UTM)
+    paths = {"paddocks_utm": folder / "paddocks_utm.gpkg", "paddocks_ll": folder / "paddocks.geojson"}
+    utm.to_file(paths["paddocks_utm"])
+    utm.to_crs("EPSG:4326").to_file(paths["paddocks_ll"])
+    rng = np.random.default_rng(seed)
+    x = X0 + rng.uniform(20, 380, n)
+    y = Y0 + rng.uniform(20, 280, n)
+    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
+    fx, fy = (x - X0) / 400, (y - Y0) / 300
+    ca = 6 + 2 * fx + rng.normal(0, 0.2, n)
+    mg = 2 + fy + rng.normal(0, 0.1, n)
+    k = 0.5 + rng.normal(0, 0.03, n)
+    na = 0.2 + 2.0 * fx + rng.normal(0, 0.05, n)
+    al = np.clip(1.5 * fy - 0.3 + rng.normal(0, 0.05, n), 0.02, None)
+    ph = 4.6 + 2.8 * fx - 0.4 * fy
+    rows = []
+    for i in range(n):
+        vals = f"{ph[i]:.2f},{ca[i]:.3f},{mg[i]:.3f},{k[i]:.3f},{na[i]:.3f},{al[i]:.3f},{al[i] + 0.1:.3f}"
+        rows.append((f"S{i + 1:02d}", lon[i], lat[i], x[i], y[i], vals))
+    head = "pH (CaCl2),Exch Ca (meq/100g),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),Al (cmol/kg),Acidity (cmol/kg)"
+    paths["lab_ll"] = folder / "lab_lonlat.csv"
+    paths["lab_ll"].write_text(
+        f"Sample ID,Longitude,Latitude,{head}\n"
+        + "".join(f"{r[0]},{r[1]:.7f},{r[2]:.7f},{r[5]}\n" for r in rows)
+    )
+    paths["lab_xy"] = folder / "lab_xy.csv"
+    paths["lab_xy"].write_text(
+        f"Sample ID,Easting,Northing,{head}\n"
+        + "".join(f"{r[0]},{r[3]:.1f},{r[4]:.1f},{r[5]}\n" for r in rows)
+    )
+    return paths
+
+
+@pytest.fixture(scope="module")
+def inputs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    return make_inputs(tmp_path_factory.mktemp("inputs"))
+
+
+def invoke(*args: str, **kw: object):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, [str(a) for a in args], **kw)  # type: ignore[arg-type]
+
+
+def test_help_names_the_arguments() -> None:
+    r = invoke("new", "--help")
+    assert r.exit_code == 0
+    for word in ("FOLDER", "--samples", "--paddocks", "--crs", "--overwrite"):
+        assert word in r.stdout
+
+
+def test_missing_samples_option_is_a_usage_error(inputs: dict[str, Path], tmp_path: Path) -> None:
+    r = invoke("new", tmp_path / "p", "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 2
+    assert "--samples" in r.stderr and r.stdout == ""
+    assert not (tmp_path / "p").exists()
+
+
+def test_a_samples_file_that_does_not_exist_is_a_usage_error(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    r = invoke("new", tmp_path / "p", "--samples", tmp_path / "nope.csv",
+               "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 2 and "--samples" in r.stderr and "does not exist" in r.stderr
+
+
+def test_an_unknown_crs_is_a_usage_error_naming_the_option(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
+               "--paddocks", inputs["paddocks_utm"], "--crs", "EPSG:999999")
+    assert r.exit_code == 2 and "--crs" in r.stderr and "EPSG:999999" in r.stderr
+    assert not (tmp_path / "p").exists()
+
+
+@pytest.fixture(scope="module")
+def lonlat_project(inputs: dict[str, Path], tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+    folder = tmp_path_factory.mktemp("new") / "farm"
+    r = invoke("new", folder, "--samples", inputs["lab_ll"], "--paddocks", inputs["paddocks_utm"])
+    return folder, r
+
+
+def test_lonlat_columns_are_recognised_and_written(
+    lonlat_project, inputs: dict[str, Path]  # noqa: ANN001
+) -> None:
+    folder, r = lonlat_project
+    assert r.exit_code == 0, r.stderr
+    path = folder / "geosoil.toml"
+    assert r.stdout.strip() == str(path)  # the result on stdout; notes on stderr
+    assert "longitude/latitude" in r.stderr
+    data = tomllib.loads(path.read_text())
+    assert data["samples"]["crs"] == "EPSG:4326"
+    assert data["samples"]["columns"]["ca"] == "Exch Ca (meq/100g)"
+    assert data["samples"]["columns"]["ph"] == "pH (CaCl2)"
+    assert data["samples"]["units"]["ca"] == "meq/100g"
+    assert data["samples"]["units"]["mg"] == "cmol/kg"
+    # the paths written lead back to the inputs
+    project = load_project(folder)
+    assert project.settings.samples.file == inputs["lab_ll"].resolve()
+    assert project.settings.boundaries.paddocks == inputs["paddocks_utm"].resolve()
+
+
+def test_every_setting_is_written_with_a_comment(lonlat_project) -> None:  # noqa: ANN001
+    folder, _ = lonlat_project
+    text = (folder / "geosoil.toml").read_text()
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.startswith(("[", "#"))]
+    assert len(lines) > 60
+    for line in lines:
+        assert re.match(r"^[\w\"]+.* = .+  # \S", line), f"no comment: {line}"
+    for table in ("samples", "boundaries", "soil", "grid", "interpolation", "rates.gypsum",
+                  "rates.lime", "rates.calcium", "rates.balance", "products.gypsum",
+                  "products.lime", "spreader", "zones", "tonnage", "output"):
+        assert f"\n[{table}]\n" in text
+    assert "advisory" in text
+
+
+def test_the_new_project_checks_clean_and_runs_as_written(
+    lonlat_project, tmp_path: Path  # noqa: ANN001
+) -> None:
+    folder, _ = lonlat_project
+    before = sorted(p.name for p in folder.iterdir())
+    r = invoke("check", folder)
+    assert r.exit_code == 0, r.stderr
+    assert r.stdout.startswith("ok:")
+    r = invoke("--quiet", "run", folder, "--out", tmp_path / "out",
+               env={"XDG_CACHE_HOME": str(tmp_path / "cache")})
+    assert r.exit_code == 0, r.stderr
+    assert (tmp_path / "out" / "run.json").is_file()
+    assert (tmp_path / "out" / "tonnage.csv").is_file()
+    assert sorted(p.name for p in folder.iterdir()) == before  # nothing written beside it
+
+
+def test_projected_xy_inside_the_boundaries_take_their_crs_with_a_note(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
+               "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 0, r.stderr
+    assert "assumed" in r.stderr and "UTM zone 55S" in r.stderr and UTM in r.stderr
+    assert tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())["samples"]["crs"] == UTM
+    assert invoke("check", tmp_path / "p").exit_code == 0
+
+
+def test_projected_xy_outside_the_boundaries_ask_for_crs(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    # the boundaries are in lon/lat: easting/northing cannot be in their CRS
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
+               "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 1
+    assert r.stdout == ""
+    assert r.stderr.startswith("error:") and "--crs" in r.stderr and "lab_xy.csv" in r.stderr
+    assert not (tmp_path / "p" / "geosoil.toml").exists()
+
+
+def test_projected_xy_that_miss_the_boundaries_in_their_crs_ask_for_crs(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    shifted = tmp_path / "shifted.csv"
+    lines = inputs["lab_xy"].read_text().splitlines()
+    out = [lines[0]]
+    for ln in lines[1:]:
+        f = ln.split(",")
+        f[1] = f"{float(f[1]) + 50_000:.1f}"  # 50 km east of the paddock
+        out.append(",".join(f))
+    shifted.write_text("\n".join(out) + "\n")
+    r = invoke("new", tmp_path / "p", "--samples", shifted, "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 1 and "--crs" in r.stderr and "0%" in r.stderr
+
+
+def test_crs_given_is_used(inputs: dict[str, Path], tmp_path: Path) -> None:
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
+               "--paddocks", inputs["paddocks_ll"], "--crs", UTM)
+    assert r.exit_code == 0, r.stderr
+    assert "assumed" not in r.stderr
+    assert tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())["samples"]["crs"] == UTM
+    assert invoke("check", tmp_path / "p").exit_code == 0
+
+
+def test_a_crs_that_puts_the_samples_elsewhere_is_written_with_a_warning_note(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
+               "--paddocks", inputs["paddocks_utm"], "--crs", "EPSG:32756")
+    assert r.exit_code == 0
+    assert "0% of the samples fall inside the boundaries" in r.stderr
+
+
+def test_an_existing_project_file_is_kept_without_overwrite(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    folder = tmp_path / "p"
+    folder.mkdir()
+    (folder / "geosoil.toml").write_text("# mine\n")
+    args = ["new", folder, "--samples", inputs["lab_ll"], "--paddocks", inputs["paddocks_utm"]]
+    r = invoke(*args)
+    assert r.exit_code == 1
+    assert r.stderr.startswith("error:") and "--overwrite" in r.stderr and r.stdout == ""
+    assert (folder / "geosoil.toml").read_text() == "# mine\n"
+    r = invoke(*args, "--overwrite")
+    assert r.exit_code == 0
+    assert "[samples]" in (folder / "geosoil.toml").read_text()
+    assert sorted(p.name for p in folder.iterdir()) == ["geosoil.toml"]  # no temporary left
+
+
+def test_quiet_keeps_the_notes_off_stderr(inputs: dict[str, Path], tmp_path: Path) -> None:
+    r = invoke("-q", "new", tmp_path / "p", "--samples", inputs["lab_ll"],
+               "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 0 and r.stderr == ""
+    assert r.stdout.strip().endswith("geosoil.toml")
