@@ -204,7 +204,9 @@ def _derivable(variables: list[str]) -> set[str]:
 def _surface_key(prep: Prepared) -> str:
     s = prep.project.settings
     h = hashlib.sha256()
-    h.update(f"geosoil {__version__} surfaces v1\n".encode())
+    # bump "surfaces vN" whenever geosoil.surfaces changes what it computes (v2: amounts
+    # kept >= 0, log-scale farm variograms, IDW fallback), so old cached surfaces are not reused
+    h.update(f"geosoil {__version__} surfaces v2\n".encode())
     cols = ["paddock", *prep.variables]
     table = prep.samples[cols].copy()
     table["x"] = prep.samples.geometry.x.round(6)
@@ -368,9 +370,7 @@ def compute(
                     exclusions=excl,
                     user_zones=zones_here,
                     settings=zone_settings,
-                    min_rate_kg_ha=s.spreader.min_rate_kg_ha,
-                    max_per_pass_kg_ha=s.spreader.max_per_pass_kg_ha or None,
-                    step_kg_ha=s.spreader.rate_step_kg_ha,
+                    spreader=s.spreader,
                 )
                 zone_frames.append(zr.zones)
                 zone_notes.extend(zr.notes)

@@ -79,6 +79,7 @@ from .units import (
     CATION_UNITS,
     MG_CACO3_PER_CMOL,
     RATE_UNITS,
+    format_rate,
     kg_per_ha_of_layer,
     mg_kg_to_kg_ha,
     mg_per_cmol,
@@ -108,6 +109,7 @@ __all__ = [
     "split_passes",
     "spreader_passes",
     "apply_spreader_limits",
+    "pass_schedule",
 ]
 
 logger = logging.getLogger(__name__)
@@ -1554,3 +1556,24 @@ def apply_spreader_limits(
             stacklevel=2,
         )
     return out
+
+
+def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings) -> str:
+    """How a rate split by :func:`spreader_passes` is put on, in the spreader's unit.
+
+    ``"3 passes of 0.75 t/ha"`` when ``split_into = "passes"``; ``"2 seasons of
+    2.0 t/ha"`` when ``split_into = "seasons"`` (one application a year,
+    re-testing the soil between). Empty for one pass or none.
+
+    Examples
+    --------
+    >>> sp = SpreaderSettings(unit="t/ha", max_per_pass=2.5, split_into="seasons")
+    >>> n, per = spreader_passes(4000.0, sp)
+    >>> pass_schedule(n, per, sp)
+    '2 seasons of 2.0 t/ha'
+    >>> pass_schedule(1, 2000.0, sp)
+    ''
+    """
+    if passes <= 1:
+        return ""
+    return f"{passes} {spreader.split_into} of {format_rate(per_pass_kg_ha, spreader.unit)}"

@@ -43,17 +43,21 @@ How the zones are built
    ``"remainder"`` with its own rate, and a :class:`~geosoil.errors.DataWarning`
    says so.
 6. Spreader limits turn each zone's raw rate into the rate to spread
-   (:func:`limit_zone_rate`).
+   (:func:`limit_zone_rate`, which applies the spreader's own rules from
+   :func:`geosoil.rates.spreader_passes`: minimum rate, equal passes of at
+   most the largest rate per pass, each rounded to the rate step).
 
 So the zones of a paddock tile it: rate and remainder zones cover the working
 area, exclusion zones cover the excluded part, with no gaps or overlaps.
 
 Output columns: ``paddock``, ``product``, ``zone`` (1..n: rate zones, then the
 remainder, then exclusions), ``kind``, ``label`` (class, user zone id, grid
-cell, ``"no product"`` or exclusion name), ``rate_kg_ha`` (to spread), ``rate_raw_kg_ha``
-(before spreader limits), ``passes``, ``per_pass_kg_ha``, ``area_ha``,
-``n_cells`` (cells with a rate whose centre lies in the zone) and ``geometry``
-in the working CRS.
+cell, ``"no product"`` or exclusion name), ``rate_kg_ha`` (to spread, all
+passes together), ``rate_raw_kg_ha`` (before spreader limits), ``passes`` (or
+seasons), ``per_pass_kg_ha``, ``schedule`` (``"3 passes of 0.75 t/ha"`` or
+``"2 seasons of 2.0 t/ha"``, in the spreader's unit; empty for one pass),
+``area_ha``, ``n_cells`` (cells with a rate whose centre lies in the zone) and
+``geometry`` in the working CRS. Rates are in kg/ha.
 
 Rates are advisory: they inherit every error of the soil data, the
 interpolation and the rules behind them.
@@ -98,6 +102,7 @@ from shapely.geometry import shape as shape_from_geojson
 from shapely.geometry.base import BaseGeometry
 
 from .errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
+from .rates import SpreaderSettings, pass_schedule, spreader_passes
 from .settings import setting
 
 __all__ = [
@@ -106,6 +111,7 @@ __all__ = [
     "ZONE_COLUMNS",
     "ZoneSettings",
     "ZoneResult",
+    "ZoneRate",
     "make_zones",
     "classify_rates",
     "limit_zone_rate",
@@ -135,6 +141,7 @@ ZONE_COLUMNS: tuple[str, ...] = (
     "rate_raw_kg_ha",
     "passes",
     "per_pass_kg_ha",
+    "schedule",
     "area_ha",
     "n_cells",
     "geometry",
@@ -261,55 +268,54 @@ class ZoneResult:
 # --------------------------------------------------------------------------- rate limits
 
 
-def limit_zone_rate(
-    raw_kg_ha: float,
-    *,
-    min_rate_kg_ha: float = 0.0,
-    max_per_pass_kg_ha: float | None = None,
-    step_kg_ha: float = 0.0,
-) -> tuple[float, int]:
-    """A zone's rate to spread and its number of passes, from its raw rate.
+@dataclass(frozen=True)
+class ZoneRate:
+    """What the spreader puts on one zone (see :func:`limit_zone_rate`)."""
 
-    Rules, in order: a raw rate below ``min_rate_kg_ha`` (or not a number) is
-    0; otherwise it is rounded to the nearest multiple of ``step_kg_ha`` (when
-    set), and raised to the smallest multiple of the step at or above the
-    minimum if rounding took it below. The zone keeps its whole rate; when that
-    is more than ``max_per_pass_kg_ha`` the spreader needs
-    ``ceil(rate / max_per_pass)`` passes. A zone at rate 0 needs 0 passes.
+    rate_kg_ha: float
+    """All passes together, kg/ha."""
+    passes: int
+    """Number of passes (or seasons); 0 where nothing is spread."""
+    per_pass_kg_ha: float
+    """Rate of each pass, kg/ha."""
+    schedule: str
+    """``"3 passes of 0.75 t/ha"`` or ``"2 seasons of 2.0 t/ha"``; empty for one pass or none."""
+
+
+def limit_zone_rate(raw_kg_ha: float, *, spreader: SpreaderSettings | None = None) -> ZoneRate:
+    """A zone's rate to spread, its passes and their schedule, from its raw rate.
+
+    The rules are the spreader's own, :func:`geosoil.rates.spreader_passes`:
+    below the minimum rate nothing is spread; otherwise the rate is split into
+    the fewest equal passes of at most ``max_per_pass``, each rounded to the
+    rate step by the spreader's ``rounding`` mode and kept between the smallest
+    and largest spreadable step multiples. The zone's rate is passes x rate per
+    pass. ``split_into`` names the passes in the schedule
+    (:func:`geosoil.rates.pass_schedule`).
 
     Parameters
     ----------
     raw_kg_ha
-        The zone's rate before limits, kg/ha.
-    min_rate_kg_ha, max_per_pass_kg_ha, step_kg_ha
-        The spreader's smallest practical rate, largest rate per pass and rate
-        step (0 or ``None``: no limit).
-
-    Returns
-    -------
-    rate_kg_ha, passes
+        The zone's rate before limits, kg/ha (not a number, or 0 or less: nothing spread).
+    spreader
+        The spreader's limits; ``None``: no limits (the raw rate in one pass).
 
     Examples
     --------
-    >>> limit_zone_rate(1234.0, min_rate_kg_ha=250, max_per_pass_kg_ha=1000, step_kg_ha=50)
-    (1250.0, 2)
-    >>> limit_zone_rate(180.0, min_rate_kg_ha=250)
-    (0.0, 0)
+    >>> sp = SpreaderSettings(min_rate=250, max_per_pass=1000, rate_step=50)
+    >>> limit_zone_rate(2345.0, spreader=sp)
+    ZoneRate(rate_kg_ha=2400.0, passes=3, per_pass_kg_ha=800.0, schedule='3 passes of 800 kg/ha')
+    >>> limit_zone_rate(180.0, spreader=sp).rate_kg_ha
+    0.0
     """
-    if not math.isfinite(raw_kg_ha) or raw_kg_ha <= 0 or raw_kg_ha < min_rate_kg_ha:
-        return 0.0, 0
-    rate = float(raw_kg_ha)
-    if step_kg_ha and step_kg_ha > 0:
-        rate = step_kg_ha * math.floor(rate / step_kg_ha + 0.5)
-        if rate < min_rate_kg_ha:
-            rate = step_kg_ha * math.ceil(min_rate_kg_ha / step_kg_ha)
-        rate = round(float(rate), 9)
-    if rate <= 0:
-        return 0.0, 0
-    passes = 1
-    if max_per_pass_kg_ha is not None and max_per_pass_kg_ha > 0:
-        passes = max(1, math.ceil(rate / max_per_pass_kg_ha - 1e-9))
-    return rate, passes
+    sp = spreader if spreader is not None else SpreaderSettings()
+    if not math.isfinite(raw_kg_ha) or raw_kg_ha <= 0:
+        return ZoneRate(0.0, 0, 0.0, "")
+    passes, per = spreader_passes(float(raw_kg_ha), sp)
+    if passes == 0 or not per > 0:
+        return ZoneRate(0.0, 0, 0.0, "")
+    return ZoneRate(round(passes * per, 9), int(passes), float(per),
+                    pass_schedule(passes, per, sp))
 
 
 # --------------------------------------------------------------------------- classes
@@ -653,7 +659,7 @@ def _class_zones(
     work: BaseGeometry,
     overlap: NDArray[np.float64],
     settings: ZoneSettings,
-    min_rate_kg_ha: float,
+    spreader: SpreaderSettings,
     notes: list[str],
 ) -> list[_Piece]:
     has_rate = np.isfinite(rate) & (overlap > 0)
@@ -661,6 +667,7 @@ def _class_zones(
         return []
     # Cells needing nothing, or less than the spreader can put out, form their own
     # class; the classes asked for are made from the cells that need product.
+    min_rate_kg_ha = spreader.min_rate_kg_ha
     none = has_rate & ((rate <= 0) | (rate < min_rate_kg_ha))
     need = has_rate & ~none
     cls = np.zeros(rate.shape, dtype=np.int64)
@@ -669,8 +676,8 @@ def _class_zones(
         cls[none] = 1
         offset = 1
         share = 100.0 * overlap[none].sum() / overlap[has_rate].sum()
-        below = (f"less than the spreader's minimum rate of {min_rate_kg_ha:g} kg/ha"
-                 if min_rate_kg_ha > 0 else "no product")
+        below = (f"less than the spreader's minimum rate of {spreader.min_rate:g} "
+                 f"{spreader.unit}" if min_rate_kg_ha > 0 else "no product")
         if need.any():
             notes.append(
                 f"{int(none.sum())} cells ({share:.3g} % of the rated area) need {below}: they "
@@ -989,9 +996,7 @@ def make_zones(
     exclusions: Any = None,
     user_zones: gpd.GeoDataFrame | None = None,
     settings: ZoneSettings,
-    min_rate_kg_ha: float = 0.0,
-    max_per_pass_kg_ha: float | None = None,
-    step_kg_ha: float = 0.0,
+    spreader: SpreaderSettings | None = None,
 ) -> ZoneResult:
     """Spreader zones for one paddock and product.
 
@@ -1018,9 +1023,12 @@ def make_zones(
         for ``method = "user_zones"``.
     settings
         :class:`ZoneSettings`.
-    min_rate_kg_ha, max_per_pass_kg_ha, step_kg_ha
-        Spreader limits, see :func:`limit_zone_rate`. Rate classes: cells below
-        ``min_rate_kg_ha`` (or at 0) form the ``"no product"`` zone.
+    spreader
+        The spreader's limits (:class:`geosoil.rates.SpreaderSettings`: minimum
+        rate, largest rate per pass, rate step, rounding mode, passes or
+        seasons), applied to each zone by :func:`limit_zone_rate`; ``None``: no
+        limits. Rate classes: cells below the minimum rate (or at 0) form the
+        ``"no product"`` zone.
 
     Returns
     -------
@@ -1075,6 +1083,7 @@ def make_zones(
         )
     notes: list[str] = list(notes_pre)
     percentile = parse_statistic(settings.statistic)
+    sp = spreader if spreader is not None else SpreaderSettings()
 
     if isinstance(boundary, (gpd.GeoSeries, gpd.GeoDataFrame)):
         boundary = shapely.union_all(_as_geoms(boundary, crs=crs, what="paddock")[0])
@@ -1094,7 +1103,7 @@ def make_zones(
     elif settings.method in _CLASS_METHODS:
         overlap, _ = _cell_overlap(work, transform, rate.shape)
         pieces = _class_zones(rate, transform=transform, work=work, overlap=overlap,
-                              settings=settings, min_rate_kg_ha=min_rate_kg_ha, notes=notes)
+                              settings=settings, spreader=sp, notes=notes)
     elif settings.method == "spreader_grid":
         pieces = _grid_zones(work=work, boundary=boundary, settings=settings, notes=notes)
     else:
@@ -1123,25 +1132,23 @@ def make_zones(
         raw, n_cells = _zone_rate(geom, rate, transform, percentile)
         if not math.isfinite(raw):
             no_rate.append(label)
-        spread, passes = limit_zone_rate(
-            raw, min_rate_kg_ha=min_rate_kg_ha, max_per_pass_kg_ha=max_per_pass_kg_ha,
-            step_kg_ha=step_kg_ha,
-        )
+        limited = limit_zone_rate(raw, spreader=sp)
+        spread, passes = limited.rate_kg_ha, limited.passes
         if label == NO_PRODUCT:
             if spread > 0:  # small pieces merged into it brought it to a spreadable rate
                 label = "class 0"
         elif math.isfinite(raw) and raw > 0 and spread == 0:
             zeroed.append(str(number))
         if passes > 1:
-            split.append(f"{number} ({passes} passes)")
+            split.append(f"{number} ({passes} {sp.split_into})")
         rows.append(dict(zone=number, kind=kind, label=label, rate_kg_ha=spread,
                          rate_raw_kg_ha=raw if math.isfinite(raw) else 0.0, passes=passes,
-                         per_pass_kg_ha=spread / passes if passes else 0.0,
+                         per_pass_kg_ha=limited.per_pass_kg_ha, schedule=limited.schedule,
                          area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
     for geom, label in excl:
         _, n_cells = _zone_rate(geom, rate, transform, None)
         rows.append(dict(zone=len(rows) + 1, kind="exclusion", label=label, rate_kg_ha=0.0,
-                         rate_raw_kg_ha=0.0, passes=0, per_pass_kg_ha=0.0,
+                         rate_raw_kg_ha=0.0, passes=0, per_pass_kg_ha=0.0, schedule="",
                          area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
 
     where = f"paddock '{paddock}', {product}"
@@ -1152,12 +1159,12 @@ def make_zones(
         warnings.warn(msg, DataWarning, stacklevel=2)
     if zeroed:
         msg = (f"{where}: zone(s) {_id_list(zeroed)} fall below the spreader's minimum rate "
-               f"of {min_rate_kg_ha:g} kg/ha and get rate 0")
+               f"of {sp.min_rate:g} {sp.unit} and get rate 0")
         notes.append(msg)
         warnings.warn(msg, RateWarning, stacklevel=2)
     if split:
-        msg = (f"{where}: zone(s) {_id_list(split)} need more than one pass at up to "
-               f"{max_per_pass_kg_ha:g} kg/ha per pass")
+        msg = (f"{where}: zone(s) {_id_list(split)} need more than {sp.max_per_pass:g} "
+               f"{sp.unit} per pass: split into equal {sp.split_into}")
         notes.append(msg)
         warnings.warn(msg, RateWarning, stacklevel=2)
 
@@ -1166,7 +1173,8 @@ def make_zones(
     frame.insert(0, "paddock", str(paddock))
     frame = frame.astype({"zone": "int64", "passes": "int64", "n_cells": "int64",
                           "rate_kg_ha": "float64", "rate_raw_kg_ha": "float64",
-                          "per_pass_kg_ha": "float64", "area_ha": "float64"})
+                          "per_pass_kg_ha": "float64", "area_ha": "float64",
+                          "schedule": "object"})
     zones = gpd.GeoDataFrame(frame, geometry="geometry", crs=crs)
     for n in notes:
         logger.info("%s", n)

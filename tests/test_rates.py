@@ -29,6 +29,7 @@ from geosoil.rates import (
     explain_cell,
     format_steps,
     inputs_used,
+    pass_schedule,
     plan_rules,
     split_passes,
     spreader_passes,
@@ -694,6 +695,19 @@ def test_spreader_passes_respect_the_machine(rate: float, lo: float, hi: float,
     if step:
         assert per / step == pytest.approx(round(per / step), abs=1e-9)
     assert n == split_passes(rate, hi)[0]
+
+
+def test_pass_schedule_names_passes_or_seasons_in_the_spreader_unit() -> None:
+    # 6.1 t/ha at most 2.5 t/ha a pass: 3 passes of 2.03, rounded to 2.0 t/ha [derived]
+    sp = SpreaderSettings(unit="t/ha", min_rate=0.5, max_per_pass=2.5, rate_step=0.25)
+    n, per = spreader_passes(6100.0, sp)
+    assert pass_schedule(n, per, sp) == "3 passes of 2.0 t/ha"
+    seasons = SpreaderSettings(unit="t/ha", max_per_pass=2.5, split_into="seasons")
+    assert pass_schedule(*spreader_passes(4000.0, seasons), seasons) == "2 seasons of 2.0 t/ha"
+    assert pass_schedule(1, 2000.0, seasons) == "" and pass_schedule(0, 0.0, seasons) == ""
+    lb = SpreaderSettings(unit="lb/ac")
+    # 2 x 1000 lb/ac: the rate per pass is shown back in lb/ac (exact factor, NIST SP 811)
+    assert pass_schedule(2, float(lb_ac_to_kg_ha(1000.0)), lb) == "2 passes of 1,000 lb/ac"
 
 
 def test_bad_spreader_settings_name_the_key() -> None:

@@ -18,6 +18,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from geosoil.errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
+from geosoil.rates import SpreaderSettings, spreader_passes
 from geosoil.settings import from_mapping
 from geosoil.zones import (
     NO_PRODUCT,
@@ -270,7 +271,7 @@ def test_cells_below_the_spreader_minimum_join_the_no_product_zone() -> None:
     with warnings.catch_warnings(record=True) as record:
         warnings.simplefilter("always")
         res = make_zones(rate, transform=t, crs=CRS, paddock="Home", product="lime",
-                         boundary=boundary, min_rate_kg_ha=500.0,
+                         boundary=boundary, spreader=SpreaderSettings(min_rate=500.0),
                          settings=ZoneSettings(classes=2, min_zone_area_ha=0))
     z = res.zones
     assert z["label"].tolist() == [NO_PRODUCT, "class 1", "class 2"]
@@ -288,7 +289,8 @@ def test_a_paddock_needing_nothing_is_one_zone() -> None:
     rate, t, boundary = zero_inflated()
     rate[:] = 0.0
     rate[0, 0] = 100.0  # below the minimum
-    res = quiet_zones(rate, transform=t, boundary=boundary, min_rate_kg_ha=250.0,
+    res = quiet_zones(rate, transform=t, boundary=boundary,
+                      spreader=SpreaderSettings(min_rate=250.0),
                       settings=ZoneSettings(classes=4, min_zone_area_ha=0))
     assert res.zones["label"].tolist() == [NO_PRODUCT]
     assert res.zones["rate_kg_ha"].tolist() == [0.0]
@@ -547,42 +549,86 @@ def test_spreader_grid_follows_the_travel_direction(field, bearing: float) -> No
 
 def test_limit_zone_rate_rules() -> None:
     # common practice: below the spreader's minimum nothing is spread
-    assert limit_zone_rate(180.0, min_rate_kg_ha=250) == (0.0, 0)
+    z = limit_zone_rate(180.0, spreader=SpreaderSettings(min_rate=250))
+    assert (z.rate_kg_ha, z.passes, z.per_pass_kg_ha, z.schedule) == (0.0, 0, 0.0, "")
     # rounded to the nearest 50 kg/ha step: 1234 -> 1250 [derived]
-    assert limit_zone_rate(1234.0, step_kg_ha=50) == (1250.0, 1)
+    z = limit_zone_rate(1234.0, spreader=SpreaderSettings(rate_step=50))
+    assert (z.rate_kg_ha, z.passes, z.schedule) == (1250.0, 1, "")
     # rounding below the minimum goes up to the first step at or above it
-    assert limit_zone_rate(260.0, min_rate_kg_ha=255, step_kg_ha=100) == (300.0, 1)
-    # 2500 kg/ha at most 1000 per pass: 3 passes [derived: ceil(2500 / 1000)]
-    assert limit_zone_rate(2500.0, max_per_pass_kg_ha=1000) == (2500.0, 3)
-    assert limit_zone_rate(2000.0, max_per_pass_kg_ha=1000) == (2000.0, 2)
-    assert limit_zone_rate(float("nan")) == (0.0, 0)
+    assert limit_zone_rate(260.0, spreader=SpreaderSettings(min_rate=255, rate_step=100)
+                           ).rate_kg_ha == 300.0
+    # 2500 kg/ha at most 1000 per pass: 3 equal passes [derived: ceil(2500 / 1000)]
+    z = limit_zone_rate(2500.0, spreader=SpreaderSettings(max_per_pass=1000))
+    assert (z.rate_kg_ha, z.passes) == (2500.0, 3)
+    assert z.per_pass_kg_ha == pytest.approx(2500 / 3)
+    assert z.schedule == "3 passes of 833 kg/ha"
+    z = limit_zone_rate(2000.0, spreader=SpreaderSettings(max_per_pass=1000))
+    assert (z.rate_kg_ha, z.passes, z.per_pass_kg_ha) == (2000.0, 2, 1000.0)
+    # no spreader: the raw rate in one pass; not a number or 0: nothing
+    assert limit_zone_rate(1234.5).rate_kg_ha == 1234.5
+    assert limit_zone_rate(float("nan")).passes == 0 and limit_zone_rate(0.0).passes == 0
 
 
-@given(
-    raw=st.floats(0, 20000, allow_nan=False),
-    minimum=st.sampled_from([0.0, 100.0, 250.0]),
-    step=st.sampled_from([0.0, 25.0, 50.0, 100.0]),
-    per_pass=st.sampled_from([None, 500.0, 1500.0]),
-)
-def test_limit_zone_rate_properties(raw, minimum, step, per_pass) -> None:
-    rate, passes = limit_zone_rate(raw, min_rate_kg_ha=minimum, max_per_pass_kg_ha=per_pass,
-                                   step_kg_ha=step)
-    if raw < minimum or raw == 0:
-        assert (rate, passes) == (0.0, 0)
+def test_limit_zone_rate_rounds_each_pass_by_the_spreader_mode() -> None:
+    """2500 kg/ha in passes of at most 1000: 3 passes of 833.3, each rounded to the 100 kg/ha
+    step: nearest 800 (2400 in all), up 900 (2700), down 800 (2400) [derived]."""
+    for mode, per in (("nearest", 800.0), ("up", 900.0), ("down", 800.0)):
+        sp = SpreaderSettings(max_per_pass=1000, rate_step=100, rounding=mode)
+        z = limit_zone_rate(2500.0, spreader=sp)
+        assert (z.passes, z.per_pass_kg_ha, z.rate_kg_ha) == (3, per, 3 * per), mode
+
+
+def test_limit_zone_rate_schedule_in_seasons_and_the_spreader_unit() -> None:
+    """4 t/ha at most 2.5 t/ha a year: 2 seasons of 2.0 t/ha [derived: ceil(4 / 2.5) = 2]."""
+    sp = SpreaderSettings(unit="t/ha", max_per_pass=2.5, rate_step=0.25, split_into="seasons")
+    z = limit_zone_rate(4000.0, spreader=sp)
+    assert (z.passes, z.per_pass_kg_ha, z.rate_kg_ha) == (2, 2000.0, 4000.0)
+    assert z.schedule == "2 seasons of 2.0 t/ha"
+    assert limit_zone_rate(2000.0, spreader=sp).schedule == ""  # one season
+
+
+@st.composite
+def spreaders(draw) -> SpreaderSettings:
+    step = draw(st.sampled_from([0.0, 25.0, 50.0, 100.0]))
+    per_pass = draw(st.sampled_from([0.0, 500.0, 1500.0]))
+    minimum = draw(st.sampled_from([0.0, 100.0, 250.0]))
+    rounding = draw(st.sampled_from(["nearest", "up", "down"]))
+    split = draw(st.sampled_from(["passes", "seasons"]))
+    return SpreaderSettings(min_rate=minimum, max_per_pass=per_pass, rate_step=step,
+                            rounding=rounding, split_into=split)
+
+
+@given(raw=st.floats(0, 20000, allow_nan=False), sp=spreaders())
+def test_limit_zone_rate_is_the_spreaders_rule(raw, sp) -> None:
+    """The zone rate is what rates.spreader_passes says the machine puts out, and its
+    properties hold: equal passes within the machine's range, on the rate step."""
+    z = limit_zone_rate(raw, spreader=sp)
+    n, per = spreader_passes(raw, sp)
+    assert (z.passes, z.per_pass_kg_ha) == (n, per if n else 0.0)
+    assert z.rate_kg_ha == pytest.approx(z.passes * z.per_pass_kg_ha, abs=1e-9)
+    if raw < sp.min_rate or raw == 0:
+        assert (z.rate_kg_ha, z.passes) == (0.0, 0)
         return
-    assert rate >= minimum
-    if step:
-        assert rate / step == pytest.approx(round(rate / step))
-        assert abs(rate - raw) <= step / 2 + 1e-9 or rate == step * math.ceil(minimum / step)
+    if z.passes == 0:  # rounded to 0 on the rate step (no minimum to hold it up)
+        assert sp.min_rate == 0 and raw < sp.rate_step and z.rate_kg_ha == 0.0
+        return
+    assert z.per_pass_kg_ha >= sp.min_rate - 1e-9
+    if sp.max_per_pass:
+        assert z.per_pass_kg_ha <= sp.max_per_pass + 1e-9
+        assert z.passes == max(1, math.ceil(raw / sp.max_per_pass - 1e-9))
     else:
-        assert rate == raw
-    if rate > 0 and per_pass:
-        assert passes * per_pass >= rate - 1e-9 and (passes - 1) * per_pass < rate
-    elif rate > 0:
-        assert passes == 1
+        assert z.passes == 1
+    if sp.rate_step:
+        q = z.per_pass_kg_ha / sp.rate_step
+        assert q == pytest.approx(round(q))
+    assert (z.schedule != "") == (z.passes > 1)
+    if z.passes > 1:
+        assert z.schedule.startswith(f"{z.passes} {sp.split_into} of ")
 
 
 def test_make_zones_applies_limits_and_warns(columns_field) -> None:
+    """A: 500 kg/ha, below the 600 minimum: 0. B: 2500 kg/ha, at most 1000 a pass: 3 passes
+    of 833.3, rounded to the 100 kg/ha step: 800 each, 2400 in all [derived]."""
     rate, t, boundary = columns_field
     uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
                           geometry=[shapely.box(X0, Y0, X0 + 20, Y0 + 40),
@@ -592,13 +638,37 @@ def test_make_zones_applies_limits_and_warns(columns_field) -> None:
         z = make_zones(rate, transform=t, crs=CRS, paddock="Home", product="gypsum",
                        boundary=boundary, user_zones=uz,
                        settings=ZoneSettings(method="user_zones"),
-                       min_rate_kg_ha=600, max_per_pass_kg_ha=1000, step_kg_ha=100).zones
+                       spreader=SpreaderSettings(min_rate=600, max_per_pass=1000,
+                                                 rate_step=100)).zones
     assert z["rate_raw_kg_ha"].tolist() == pytest.approx([500.0, 2500.0])
-    assert z["rate_kg_ha"].tolist() == [0.0, 2500.0]
+    assert z["rate_kg_ha"].tolist() == [0.0, 2400.0]
     assert z["passes"].tolist() == [0, 3]
-    assert z["per_pass_kg_ha"].tolist() == pytest.approx([0.0, 2500 / 3])
+    assert z["per_pass_kg_ha"].tolist() == [0.0, 800.0]
+    assert z["schedule"].tolist() == ["", "3 passes of 800 kg/ha"]
     messages = " ".join(str(w.message) for w in record)
-    assert "minimum rate" in messages and "more than one pass" in messages
+    assert "minimum rate of 600 kg/ha" in messages
+    assert "more than 1000 kg/ha per pass: split into equal passes" in messages
+
+
+def test_make_zones_takes_rounding_and_seasons_from_the_spreader(columns_field) -> None:
+    """Settings in t/ha: B needs 2.5 t/ha, at most 1.0 t/ha a season: 3 seasons of 0.833,
+    rounded up to the 0.1 t/ha step: 0.9 t/ha, 2.7 t/ha in all [derived]."""
+    rate, t, boundary = columns_field
+    uz = gpd.GeoDataFrame({"zone": ["A", "B"]},
+                          geometry=[shapely.box(X0, Y0, X0 + 20, Y0 + 40),
+                                    shapely.box(X0 + 20, Y0, X0 + 40, Y0 + 40)], crs=CRS)
+    sp = SpreaderSettings(unit="t/ha", min_rate=0.6, max_per_pass=1.0, rate_step=0.1,
+                          rounding="up", split_into="seasons")
+    with pytest.warns(RateWarning, match="split into equal seasons"):
+        z = make_zones(rate * 10, transform=t, crs=CRS, paddock="Home", product="lime",
+                       boundary=boundary, user_zones=uz,
+                       settings=ZoneSettings(method="user_zones"), spreader=sp).zones
+    b = z[z["label"] == "B"].iloc[0]
+    assert b["passes"] == 3
+    assert b["per_pass_kg_ha"] == pytest.approx(900.0)
+    assert b["rate_kg_ha"] == pytest.approx(2700.0)
+    assert b["schedule"] == "3 seasons of 0.9 t/ha"
+    assert list(z.columns) == list(ZONE_COLUMNS)
 
 
 # --------------------------------------------------------------------------- bad input
