@@ -1,0 +1,484 @@
+"""Tests of geosoil.pipeline (and the output folder it writes): the whole job on the demo farm.
+
+The demo farm (``demo_farm/``, invented) is run once per module into ``tmp_path``
+with the surface cache in ``tmp_path`` too. Everything read back is checked
+with tools other than the writers: rasterio for the GeoTIFFs, geopandas/pyogrio
+and :mod:`json` for the GeoJSON, :mod:`zipfile` and the dBASE header for the
+shapefile, :mod:`hashlib` for the checksums. The paddock areas to compare with
+are worked out here from the input files with shapely.
+
+Sources of the expectations:
+
+* GeoJSON: RFC 7946 (WGS 84 longitude/latitude, no "crs" member §4, outer
+  rings counter-clockwise and holes clockwise §3.1.6).
+* Shapefile field names of at most 10 characters: the dBASE header holds 11
+  bytes per name, null-terminated (GDAL's shapefile driver documentation).
+* Cloud Optimized GeoTIFF: GDAL reports ``LAYOUT=COG`` in the
+  ``IMAGE_STRUCTURE`` metadata of a file laid out as one (OGC 21-026).
+* Working CRS of the demo farm: WGS 84 / UTM zone 55S (EPSG:32755), [derived]
+  from its longitude (about 147.45 E: zone floor((147.45 + 180) / 6) + 1 = 55)
+  and its southern latitude; the demo's README says the same.
+* Gypsum requirement grows with ESP_initial - ESP_final (USDA Handbook 60,
+  Richards 1954), so a higher target ESP asks for less gypsum.
+* Tonnes = area (ha) x rate (kg/ha) / 1000 [derived].
+* Saturations and ESP are percentages of the ECEC, so 0-100 %; exchangeable
+  amounts are never negative [derived]. pH of agricultural soils within 3-10
+  [common practice].
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import html
+import json
+import platform
+import re
+import shutil
+import struct
+import tomllib
+import zipfile
+from pathlib import Path
+from types import SimpleNamespace
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyproj
+import pytest
+import rasterio
+import shapely
+
+import demo_farm
+import geosoil
+from geosoil.pipeline import compute, run
+from geosoil.project import load_project
+from geosoil.variogram import MODELS
+
+DEMO = Path(demo_farm.__file__).parent
+WORKING_EPSG = 32755  # WGS 84 / UTM zone 55S ([derived], see the module notes)
+PADDOCK_NAMES = ("Red Hill", "Creek Flat", "Windmill")  # demo_farm/README.md
+HOSTILE_IMG = "<img src=x onerror=alert(1)>"
+HOSTILE_TEMPLATE = "${7*6}"
+HOSTILE_PADDOCK = "</script><script>alert(1)</script>"
+HOSTILE_FARM = "<img src=x onerror=alert(2)> & </script><script>alert(2)</script>"
+
+
+def copy_demo(base: Path) -> tuple[Path, Path]:
+    """The demo farm copied into ``base/farm``; its cache folder ``base/cache`` (outside it)."""
+    farm = base / "farm"
+    shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    cache = base / "cache"
+    toml = farm / "geosoil.toml"
+    text = toml.read_text(encoding="utf-8")
+    line = f"cache_dir = {json.dumps(str(cache))}\n"
+    if re.search(r"^\[output\]\s*$", text, flags=re.M):
+        text = re.sub(r"^\[output\]\s*$\n?", "[output]\n" + line, text, count=1, flags=re.M)
+    else:
+        text += "\n[output]\n" + line
+    toml.write_text(text, encoding="utf-8")
+    return farm, cache
+
+
+def snapshot(folder: Path) -> dict[str, tuple[bytes, int]]:
+    return {
+        str(p.relative_to(folder)): (p.read_bytes(), p.stat().st_mtime_ns)
+        for p in sorted(folder.rglob("*")) if p.is_file()
+    }
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    base = tmp_path_factory.mktemp("pipeline")
+    farm, cache = copy_demo(base)
+    before = snapshot(farm)
+    project = load_project(farm)
+    result = run(project, out_dir=base / "out")
+    record = json.loads((base / "out" / "run.json").read_text(encoding="utf-8"))
+    return SimpleNamespace(base=base, farm=farm, cache=cache, out=base / "out", project=project,
+                           result=result, record=record, before=before)
+
+
+def slug_of(name: str) -> str:
+    return name.lower().replace(" ", "-")
+
+
+def working(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    return frame.to_crs(WORKING_EPSG)
+
+
+@pytest.fixture(scope="module")
+def areas(demo):
+    """Paddocks, the untreated areas (exclusions and buffered creek) and what is left, read
+    here from the input files in the working CRS."""
+    pads = working(gpd.read_file(demo.farm / "paddocks.geojson")).set_index("name").geometry
+    excl = working(gpd.read_file(demo.farm / "exclusions.geojson")).geometry
+    buffer_m = tomllib.loads((demo.farm / "geosoil.toml").read_text())["boundaries"][
+        "creek_buffer_m"]
+    creek = working(gpd.read_file(demo.farm / "creek.geojson")).geometry.buffer(buffer_m)
+    untreated = shapely.union_all([*excl, *creek])
+    return SimpleNamespace(
+        paddock=dict(pads.items()),
+        untreated=untreated,
+        treated={n: g.difference(untreated) for n, g in pads.items()},
+    )
+
+
+# --------------------------------------------------------------------------- inputs
+
+
+def test_input_files_unchanged_and_nothing_written_into_the_input_folder(demo) -> None:
+    after = snapshot(demo.farm)
+    assert sorted(after) == sorted(demo.before)  # no file added or removed
+    for name, (data, mtime) in demo.before.items():
+        assert after[name][0] == data, f"{name} changed"
+        assert after[name][1] == mtime, f"{name} was touched"
+    assert not demo.out.is_relative_to(demo.farm)
+    assert list(demo.cache.glob("surfaces-*.pickle"))  # the cache went where it was told
+
+
+# --------------------------------------------------------------------------- GeoTIFFs
+
+
+def bounds_for(path: Path) -> tuple[float, float] | None:
+    stem = path.stem
+    if stem.endswith("_sd"):
+        return (0.0, np.inf)
+    if stem == "ph":
+        return (3.0, 10.0)  # [common practice] agricultural soils
+    if stem == "esp" or stem.endswith("_sat"):
+        return (0.0, 100.0)  # [derived] percent of the ECEC
+    if stem in {"ca", "mg", "k", "na", "acidity", "al", "cec", "ecec"}:
+        return (0.0, np.inf)  # [derived] amounts
+    if path.parent.parent.name in ("rates", "prescriptions"):
+        return (0.0, np.inf)  # kg/ha of product
+    return None
+
+
+def test_geotiffs_crs_nodata_cog_and_physical_bounds(demo, areas) -> None:
+    tifs = sorted(demo.out.rglob("*.tif"))
+    folders = {p.relative_to(demo.out).parts[0] for p in tifs}
+    assert folders == {"surfaces", "rates", "prescriptions"}
+    by_slug = {slug_of(n): n for n in PADDOCK_NAMES}
+    assert {p.parent.name for p in tifs} == set(by_slug)
+    seen_sd = False
+    for path in tifs:
+        name = by_slug[path.parent.name]
+        with rasterio.open(path) as src:
+            assert src.crs is not None and src.crs.to_epsg() == WORKING_EPSG, path
+            structure = src.tags(ns="IMAGE_STRUCTURE")
+            assert structure.get("LAYOUT") == "COG", path
+            assert structure.get("COMPRESSION") == "DEFLATE", path
+            assert src.nodata is not None, path
+            data = src.read(1, masked=True)
+            t = src.transform
+            rows, cols = np.indices(data.shape)
+            x, y = t.c + (cols + 0.5) * t.a, t.f + (rows + 0.5) * t.e
+        pts = shapely.points(x, y)
+        paddock = areas.paddock[name]
+        treated = areas.treated[name]
+        # centres within 0.5 m of an edge may go either way
+        clear = shapely.distance(pts, shapely.union_all([paddock.boundary,
+                                                         treated.boundary])) > 0.5
+        outside = clear & ~shapely.contains_xy(paddock, x, y)
+        inside = clear & shapely.contains_xy(treated, x, y)
+        excluded = clear & shapely.contains_xy(paddock, x, y) & ~inside
+        assert outside.any() and inside.any()
+        assert data.mask[outside].all(), f"{path}: values outside the paddock"
+        assert data.mask[excluded].all(), f"{path}: values in an exclusion"
+        assert not data.mask[inside].any(), f"{path}: nodata inside the paddock"
+        lo, hi = bounds_for(path)
+        values = data.compressed()
+        assert values.min() >= lo - 1e-9 and values.max() <= hi + 1e-9, (path, values.min(),
+                                                                           values.max())
+        seen_sd |= path.stem.endswith("_sd")
+    assert seen_sd
+
+
+# --------------------------------------------------------------------------- zones
+
+
+@pytest.fixture(scope="module")
+def prescriptions(demo):
+    """(paddock name, product) -> (zones read back in the working CRS, raw GeoJSON document)."""
+    out = {}
+    by_slug = {slug_of(n): n for n in PADDOCK_NAMES}
+    for path in sorted((demo.out / "prescriptions").rglob("*.geojson")):
+        frame = gpd.read_file(path)
+        doc = json.loads(path.read_text(encoding="utf-8"))
+        out[(by_slug[path.parent.name], path.stem)] = (working(frame), doc, frame)
+    return out
+
+
+def test_every_paddock_and_product_has_a_prescription(demo, prescriptions) -> None:
+    products = set(demo.project.settings.products)
+    assert set(prescriptions) == {(n, p) for n in PADDOCK_NAMES for p in products}
+
+
+def test_zones_tile_each_paddock(prescriptions, areas) -> None:
+    for (name, product), (zones, _doc, lonlat) in prescriptions.items():
+        where = f"{name}, {product}"
+        assert shapely.is_valid(lonlat.geometry.values).all(), where
+        assert set(zones["paddock"]) == {name} and set(zones["product"]) == {product}
+        paddock = areas.paddock[name]
+        union = shapely.union_all(zones.geometry.values)
+        tol = 1e-3 * paddock.area
+        assert union.symmetric_difference(paddock).area <= tol, f"{where}: gaps"
+        assert zones.geometry.area.sum() - union.area <= tol, f"{where}: overlaps"
+        spread = zones[zones["kind"] != "exclusion"]
+        treated = areas.treated[name].area
+        assert spread.geometry.area.sum() == pytest.approx(treated, rel=1e-3), where
+        np.testing.assert_allclose(zones["area_ha"], zones.geometry.area / 1e4, rtol=1e-3)
+        assert zones["zone"].tolist() == list(range(1, len(zones) + 1))
+        assert (zones["rate_kg_ha"] >= 0).all()
+
+
+def test_farm_tonnage_is_area_times_rate_from_the_geojson(demo, prescriptions) -> None:
+    table = pd.read_csv(demo.out / "tonnage.csv")
+    farm = table[table["level"] == "farm"].set_index("product")
+    assert set(farm.index) == set(demo.project.settings.products)
+    by_hand: dict[str, float] = {}
+    for (_name, product), (zones, _doc, _ll) in prescriptions.items():
+        t = float((zones.geometry.area / 1e4 * zones["rate_kg_ha"]).sum() / 1000.0)
+        by_hand[product] = by_hand.get(product, 0.0) + t
+    for product, tonnes in by_hand.items():
+        assert farm.loc[product, "tonnes"] == pytest.approx(tonnes, rel=1e-3), product
+    # the demo's sodic patch and acid rise need gypsum and lime (demo_farm/README.md)
+    assert by_hand["gypsum"] > 0 and by_hand["lime"] > 0
+
+
+def ring_positions(geometry: dict) -> list[tuple[list, list[list]]]:
+    polys = [geometry["coordinates"]] if geometry["type"] == "Polygon" else geometry["coordinates"]
+    return [(rings[0], rings[1:]) for rings in polys]
+
+
+def test_geojson_is_rfc7946(prescriptions) -> None:
+    for key, (_zones, doc, _ll) in prescriptions.items():
+        assert doc["type"] == "FeatureCollection" and "crs" not in doc, key
+        for feature in doc["features"]:
+            assert "crs" not in feature
+            geom = feature["geometry"]
+            assert geom["type"] in ("Polygon", "MultiPolygon"), key
+            for outer, holes in ring_positions(geom):
+                for ring in (outer, *holes):
+                    xy = np.asarray(ring, dtype=float)
+                    assert xy.shape[1] == 2
+                    assert (np.abs(xy[:, 0]) <= 180).all() and (np.abs(xy[:, 1]) <= 90).all()
+                    # [lon, lat] order: the demo farm is at about 147.45 E, 34.69 S
+                    assert np.allclose(xy.mean(axis=0), [147.45, -34.69], atol=0.05)
+                    assert ring[0] == ring[-1]
+                assert shapely.LinearRing(outer).is_ccw, key
+                for hole in holes:
+                    assert not shapely.LinearRing(hole).is_ccw, key
+
+
+def dbf_field_names(data: bytes) -> list[str]:
+    """Field names from a dBASE III header (32-byte descriptors after a 32-byte header)."""
+    header_len = struct.unpack("<H", data[8:10])[0]
+    names = []
+    for offset in range(32, header_len - 1, 32):
+        if data[offset] == 0x0D:
+            break
+        names.append(data[offset:offset + 11].split(b"\0", 1)[0].decode("ascii"))
+    return names
+
+
+def test_shapefile_zips(demo, prescriptions) -> None:
+    zips = sorted((demo.out / "prescriptions").rglob("*_shp.zip"))
+    assert len(zips) == len(prescriptions)
+    by_slug = {slug_of(n): n for n in PADDOCK_NAMES}
+    for path in zips:
+        with zipfile.ZipFile(path) as zf:
+            members = zf.namelist()
+            suffixes = {Path(m).suffix for m in members}
+            assert {".shp", ".shx", ".dbf", ".prj", ".cpg"} <= suffixes, path
+            dbf = zf.read(next(m for m in members if m.endswith(".dbf")))
+        names = dbf_field_names(dbf)
+        assert names and all(0 < len(n) <= 10 for n in names), names
+        shp = gpd.read_file(path)
+        assert shp.crs.to_epsg() == WORKING_EPSG
+        assert set(shp.columns) - {"geometry"} == set(names)
+        zones = prescriptions[(by_slug[path.parent.name], path.name.removesuffix("_shp.zip"))][0]
+        assert len(shp) == len(zones)
+        rate_field = next(n for n in names if "RATE" in n.upper() and "RAW" not in n.upper())
+        np.testing.assert_allclose(np.sort(shp[rate_field]), np.sort(zones["rate_kg_ha"]))
+
+
+# --------------------------------------------------------------------------- run.json
+
+
+def test_run_record_settings_inputs_versions_crs(demo) -> None:
+    rec = demo.record
+    toml = tomllib.loads((demo.farm / "geosoil.toml").read_text(encoding="utf-8"))
+    s = rec["settings"]
+    assert s["farm"] == toml["farm"]
+    assert s["rates"]["gypsum"]["target_esp_percent"] == toml["rates"]["gypsum"][
+        "target_esp_percent"]
+    assert s["interpolation"]["log_transform"] == toml["interpolation"]["log_transform"]
+    assert s["grid"]["cell_size_m"] == toml["grid"]["cell_size_m"]
+    assert s["zones"] == {**s["zones"], **toml["zones"]}
+    assert Path(s["samples"]["file"]) == demo.farm / toml["samples"]["file"]
+    assert Path(s["output"]["cache_dir"]) == demo.cache
+
+    expected_inputs = {"lab_results.csv", "paddocks.geojson", "exclusions.geojson",
+                       "creek.geojson", "zones_windmill.geojson", "geosoil.toml"}
+    assert {Path(i["path"]).name for i in rec["inputs"]} == expected_inputs
+    for item in rec["inputs"]:
+        path = Path(item["path"])
+        assert path.parent == demo.farm
+        assert item["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
+
+    v = rec["versions"]
+    assert v["geosoil"] == geosoil.__version__ == rec["geosoil"]["version"]
+    assert v["python"] == platform.python_version()
+    assert v["numpy"] == np.__version__ and v["rasterio"] == rasterio.__version__
+    assert v["gdal"] == rasterio.__gdal_version__ and v["pyproj"] == pyproj.__version__
+
+    crs = rec["working_crs"]
+    assert crs["epsg"] == WORKING_EPSG
+    assert pyproj.CRS.from_wkt(crs["wkt"]) == pyproj.CRS.from_epsg(WORKING_EPSG)
+    assert isinstance(crs["reason"], str) and crs["reason"].strip()
+
+
+def test_run_record_variograms_and_cross_validation(demo) -> None:
+    surfaces = demo.record["surfaces"]
+    # every paddock has a surface for every interpolated variable
+    assert {s["paddock"] for s in surfaces} == set(PADDOCK_NAMES)
+    lab = pd.read_csv(demo.farm / "lab_results.csv")
+    ids = lab["Sample ID"].astype(str)
+    counts = {"Red Hill": int(ids.str.startswith("RH-").sum()),
+              "Creek Flat": int(ids.str.startswith("CF-").sum())}
+    kriged = [s for s in surfaces if s["method"] == "ordinary kriging"]
+    # the two grid-sampled paddocks are kriged (README: about one sample per hectare)
+    assert {(s["paddock"], s["variable"]) for s in kriged} >= {
+        (p, v) for p in counts for v in ("ca", "mg", "k", "na", "ph")}
+    for s in kriged:
+        where = (s["paddock"], s["variable"])
+        vg = s["variogram"]
+        assert vg["model"] in MODELS and vg["nugget"] >= 0, where
+        assert vg["partial_sill"] > 0 and vg["range_m"] > 0, where
+        assert vg["scope"] in ("paddock", "farm"), where
+        cv = s["cross_validation"]
+        assert cv["n"] == s["n_samples"] == counts[s["paddock"]], where
+        assert np.isfinite(cv["mean_error"]) and cv["rmse"] >= 0, where
+        assert np.isfinite(cv["msse"]) and cv["msse"] > 0, where
+        assert s["candidates"] and {c["model"] for c in s["candidates"]} <= set(MODELS), where
+        assert vg["model"] in {c["model"] for c in s["candidates"]}, where
+        assert min(c["cv_rmse"] for c in s["candidates"]) == pytest.approx(cv["rmse"]), where
+    na = [s for s in kriged if s["variable"] == "na"]
+    assert na and all(s["log_transform"] and s["variogram"]["scale"] == "log" for s in na)
+    # Windmill: one composite sample per management zone (README)
+    windmill = {s["variable"]: s for s in surfaces if s["paddock"] == "Windmill"}
+    assert windmill["ca"]["method"] == "zone values"
+
+
+def test_run_record_zones_totals_warnings_cautions(demo, prescriptions) -> None:
+    rec = demo.record
+    from_files = {
+        (name, product, int(z)): float(r)
+        for (name, product), (zones, _d, _l) in prescriptions.items()
+        for z, r in zip(zones["zone"], zones["rate_kg_ha"], strict=True)
+    }
+    from_record = {(z["paddock"], z["product"], int(z["zone"])): float(z["rate_kg_ha"])
+                   for z in rec["zones"]}
+    assert from_record == pytest.approx(from_files)
+    table = pd.read_csv(demo.out / "tonnage.csv")
+    farm_csv = table[table["level"] == "farm"].set_index("product")["tonnes"]
+    farm_rec = {t["product"]: t["tonnes"] for t in rec["tonnage"] if t["level"] == "farm"}
+    assert farm_rec == pytest.approx(farm_csv.to_dict())
+    assert rec["surfaces_from_cache"] is False
+    assert all(isinstance(w, str) and w for w in rec["warnings"])
+    # the lab file's '<0.1' Al values are below the detection limit (README), and say so
+    assert any("detection" in w for w in rec["warnings"])
+    assert rec["cautions"] and any("advisory" in c.lower() for c in rec["cautions"])
+    assert set(rec["files"]) == {str(p.relative_to(demo.out)) for p in demo.out.rglob("*")
+                                 if p.is_file()}
+
+
+# --------------------------------------------------------------------------- cache
+
+
+def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(demo) -> None:
+    s = demo.project.settings
+    gypsum = dataclasses.replace(s.rates.gypsum,
+                                 target_esp_percent=s.rates.gypsum.target_esp_percent + 3.0)
+    higher = dataclasses.replace(
+        demo.project,
+        settings=dataclasses.replace(s, rates=dataclasses.replace(s.rates, gypsum=gypsum)),
+    )
+    second = run(higher, out_dir=demo.base / "out-target-esp")
+    assert second.record["surfaces_from_cache"] is True
+
+    def farm_gypsum(record) -> float:
+        return next(t["tonnes"] for t in record["tonnage"]
+                    if t["level"] == "farm" and t["product"] == "gypsum")
+
+    # USDA Handbook 60: a higher target ESP -> less gypsum
+    assert farm_gypsum(second.record) < farm_gypsum(demo.record)
+    for paddock in PADDOCK_NAMES:
+        rel = Path("rates") / slug_of(paddock) / "gypsum__gypsum.tif"
+        with rasterio.open(demo.out / rel) as a, rasterio.open(second.out_dir / rel) as b:
+            before, after = a.read(1, masked=True), b.read(1, masked=True)
+        assert (after <= before + 1e-9).all(), paddock
+    assert second.farm.cache_hit
+
+    s2 = dataclasses.replace(s, interpolation=dataclasses.replace(
+        s.interpolation, n_lags=s.interpolation.n_lags + 2))
+    third = compute(dataclasses.replace(demo.project, settings=s2))
+    assert third.cache_hit is False
+
+
+# --------------------------------------------------------------------------- hostile text
+
+
+def unescape_all(text: str) -> str:
+    """Undo JSON \\uXXXX escapes and HTML entities (to find the text a reader sees)."""
+    text = re.sub(r"\\u([0-9a-fA-F]{4})", lambda m: chr(int(m.group(1), 16)), text)
+    return html.unescape(html.unescape(text))
+
+
+@pytest.fixture(scope="module")
+def hostile(tmp_path_factory):
+    base = tmp_path_factory.mktemp("hostile")
+    farm, _cache = copy_demo(base)
+    lab = farm / "lab_results.csv"
+    lines = lab.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert lines[1].startswith("RH-01,") and lines[2].startswith("RH-02,")
+    lines[1] = HOSTILE_IMG + lines[1][len("RH-01"):]
+    lines[2] = HOSTILE_TEMPLATE + lines[2][len("RH-02"):]
+    lab.write_text("".join(lines), encoding="utf-8")
+    pads = json.loads((farm / "paddocks.geojson").read_text(encoding="utf-8"))
+    assert pads["features"][0]["properties"]["name"] == "Red Hill"
+    pads["features"][0]["properties"]["name"] = HOSTILE_PADDOCK
+    (farm / "paddocks.geojson").write_text(json.dumps(pads), encoding="utf-8")
+    toml = farm / "geosoil.toml"
+    text, n = re.subn(r"^farm = .*$", f"farm = {json.dumps(HOSTILE_FARM)}",
+                      toml.read_text(encoding="utf-8"), count=1, flags=re.M)
+    assert n == 1
+    toml.write_text(text, encoding="utf-8")
+    result = run(load_project(farm), out_dir=base / "out")
+    return SimpleNamespace(out=base / "out", result=result)
+
+
+def test_hostile_text_reaches_map_and_report_only_escaped(hostile) -> None:
+    page = (hostile.out / "map.html").read_text(encoding="utf-8")
+    report = (hostile.out / "report.html").read_text(encoding="utf-8")
+    for text in (page, report):
+        assert "<img src=x onerror" not in text
+        assert "</script><script>alert(1)" not in text
+        assert "<script>alert(" not in text
+    # the text did pass through (escaped), so the checks above are not vacuous
+    seen = unescape_all(page)
+    assert HOSTILE_IMG in seen and HOSTILE_TEMPLATE in seen and HOSTILE_PADDOCK in seen
+    assert HOSTILE_FARM in seen
+    assert HOSTILE_PADDOCK in unescape_all(report) and HOSTILE_FARM in unescape_all(report)
+
+
+def test_hostile_paddock_name_gives_safe_file_names(hostile) -> None:
+    for path in hostile.out.rglob("*"):
+        rel = path.relative_to(hostile.out)
+        assert all(re.fullmatch(r"[a-z0-9._-]+", part) for part in rel.parts), rel
+    record = json.loads((hostile.out / "run.json").read_text(encoding="utf-8"))
+    assert HOSTILE_PADDOCK in {p["paddock"] for p in record["paddocks"]}
+    samples = pd.read_csv(hostile.out / "samples.csv", dtype={"sample_id": str})
+    assert {HOSTILE_IMG, HOSTILE_TEMPLATE} <= set(samples["sample_id"])
