@@ -6,13 +6,22 @@ from pathlib import Path
 
 import click
 
-from geosoil.explain import explain_location, format_explanation, parse_location
-from geosoil.pipeline import compute
+from geosoil.errors import InputError
+from geosoil.explain import explain_location, format_explanation, locate, parse_location
+from geosoil.pipeline import compute, prepare
 from geosoil.project import load_project
 
 from .options import Progress, handle_errors, project_argument
 
 __all__ = ["explain"]
+
+
+def _location(ctx: click.Context, param: click.Parameter, value: str) -> tuple[float, float]:
+    """--at as two numbers; a malformed value is a usage error naming the option."""
+    try:
+        return parse_location(value)
+    except InputError as exc:
+        raise click.BadParameter(exc.problem + (f"; {exc.fix}" if exc.fix else "")) from None
 
 
 @click.command()
@@ -22,7 +31,8 @@ __all__ = ["explain"]
     "at",
     required=True,
     metavar="LON,LAT",
-    help="The location: LON,LAT in degrees, or X,Y in the working CRS.",
+    callback=_location,
+    help="The location: LON,LAT in degrees, or X,Y in the working CRS (see --coords).",
 )
 @click.option(
     "--coords",
@@ -33,10 +43,17 @@ __all__ = ["explain"]
 )
 @click.pass_context
 @handle_errors
-def explain(ctx: click.Context, project: Path, at: str, coords: str) -> None:
-    """Show how the rate at one location is computed, rule by rule."""
-    a, b = parse_location(at)
+def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: str) -> None:
+    """Show how the rate at one location is computed, rule by rule.
+
+    From the lab values of the nearest samples, through the interpolated
+    values and the cell's chemistry, to the product rate of each rule and the
+    zone rate the spreader applies there.
+    """
+    a, b = at
+    proj = load_project(project)
+    locate(prepare(proj), a, b, coords=coords)  # a point off the farm fails before kriging
     progress = Progress(quiet=ctx.obj["quiet"])
-    farm = compute(load_project(project), progress=progress)
+    farm = compute(proj, progress=progress)
     progress.done()
     click.echo(format_explanation(explain_location(farm, a, b, coords=coords)))

@@ -18,11 +18,18 @@ import pyproj
 import shapely
 
 from .errors import InputError
-from .pipeline import FarmResult
+from .pipeline import FarmResult, Prepared
 from .rates import Step, explain_cell
 from .units import rate_from_kg_ha
 
-__all__ = ["Explanation", "explain_location", "parse_location", "format_explanation"]
+__all__ = [
+    "Explanation",
+    "Location",
+    "locate",
+    "explain_location",
+    "parse_location",
+    "format_explanation",
+]
 
 
 @dataclass(frozen=True)
@@ -42,6 +49,7 @@ class Explanation:
     steps: list[Step]
     zones: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
+    ecec_parts: dict[str, float] = field(default_factory=dict)
 
 
 def parse_location(text: str) -> tuple[float, float]:
@@ -67,6 +75,78 @@ def parse_location(text: str) -> tuple[float, float]:
     return a, b
 
 
+
+@dataclass(frozen=True)
+class Location:
+    """A point placed on the farm: working-CRS and lon/lat coordinates, paddock and grid cell."""
+
+    x: float
+    y: float
+    lon: float
+    lat: float
+    paddock: str
+    row: int
+    col: int
+
+
+def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Location:
+    """Place ``(a, b)`` in its paddock and grid cell, before anything is interpolated.
+
+    Parameters
+    ----------
+    prep
+        The prepared inputs (:func:`geosoil.pipeline.prepare`).
+    a, b
+        Longitude and latitude, or x and y in the working CRS.
+    coords
+        ``"lonlat"``, ``"xy"`` or ``"auto"`` (lon/lat when the numbers fit
+        longitude and latitude ranges, else x/y in the working CRS).
+
+    Raises
+    ------
+    InputError
+        The point is in no paddock (the message names the point in both
+        coordinate systems), or on no cell of its paddock.
+    """
+    if coords not in ("auto", "lonlat", "xy"):
+        raise ValueError(f"coords must be 'auto', 'lonlat' or 'xy', not {coords!r}")
+    crs = prep.crs
+    to_work = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+    to_ll = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+    lonlat = coords == "lonlat" or (coords == "auto" and abs(a) <= 180 and abs(b) <= 90)
+    if lonlat:
+        if not (abs(a) <= 180 and abs(b) <= 90):
+            raise InputError(
+                f"lon {a:g}, lat {b:g} is not a longitude and latitude",
+                fix="give --at LON,LAT in degrees, or x,y in the working CRS with --coords xy",
+            )
+        lon, lat = a, b
+        x, y = to_work.transform(a, b)
+    else:
+        x, y = a, b
+        lon, lat = to_ll.transform(a, b)
+    pt = shapely.Point(x, y)
+    hit = prep.paddocks[prep.paddocks.covers(pt)]
+    if hit.empty:
+        where = f"lon {lon:.6f}, lat {lat:.6f}" + ("" if lonlat else f" (x {x:.1f}, y {y:.1f})")
+        raise InputError(
+            f"the point at {where} is not inside any paddock ({', '.join(prep.grids)})",
+            fix="give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
+            f"({crs.name}) with --coords xy",
+        )
+    name = str(hit["paddock"].iloc[0])
+    grid = prep.grids[name]
+    col_f, row_f = ~grid.transform @ (x, y)
+    row, col = int(math.floor(row_f)), int(math.floor(col_f))
+    if not (0 <= row < grid.height and 0 <= col < grid.width) or not grid.mask[row, col]:
+        raise InputError(
+            f"the point at lon {lon:.6f}, lat {lat:.6f} falls in paddock '{name}' but not on "
+            "one of its cells (an exclusion area, or the edge of the paddock)",
+            fix="pick a point a cell further inside the paddock",
+        )
+    return Location(float(x), float(y), float(lon), float(lat), name, row, col)
+
+
 def explain_location(
     farm: FarmResult, a: float, b: float, *, coords: str = "auto", n_samples: int = 3
 ) -> Explanation:
@@ -90,36 +170,11 @@ def explain_location(
         The location is in no paddock, or outside the paddock's cells.
     """
     prep = farm.prep
-    crs = prep.crs
-    to_work = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
-    to_ll = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
-    lonlat = coords == "lonlat" or (coords == "auto" and abs(a) <= 180 and abs(b) <= 90)
-    if lonlat:
-        lon, lat = a, b
-        x, y = to_work.transform(a, b)
-    else:
-        x, y = a, b
-        lon, lat = to_ll.transform(a, b)
-    pt = shapely.Point(x, y)
-    hit = prep.paddocks[prep.paddocks.contains(pt)]
-    if hit.empty:
-        where = f"lon {lon:.6f}, lat {lat:.6f}" + ("" if lonlat else f" (x {x:.1f}, y {y:.1f})")
-        raise InputError(
-            f"{where} is not inside any paddock ({', '.join(prep.grids)})",
-            fix="give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
-            f"({crs.name})",
-        )
-    name = str(hit["paddock"].iloc[0])
+    where = locate(prep, a, b, coords=coords)
+    x, y, lon, lat, name = where.x, where.y, where.lon, where.lat, where.paddock
+    row, col = where.row, where.col
     grid = prep.grids[name]
-    col_f, row_f = ~grid.transform * (x, y)
-    row, col = int(math.floor(row_f)), int(math.floor(col_f))
     notes: list[str] = []
-    if not (0 <= row < grid.height and 0 <= col < grid.width) or not grid.mask[row, col]:
-        raise InputError(
-            f"the point falls in paddock '{name}' but not on one of its cells "
-            "(an exclusion area, or the edge of the paddock)",
-            fix="pick a point a cell further inside the paddock",
-        )
     pts = prep.samples[prep.samples["paddock"] == name]
     d = np.hypot(pts.geometry.x.to_numpy() - x, pts.geometry.y.to_numpy() - y)
     order = np.argsort(d)[:n_samples]
@@ -140,14 +195,19 @@ def explain_location(
         sd = None if surf.std is None else float(surf.std[row, col])
         interpolated[var] = (float(surf.estimate[row, col]), sd, surf.method)
     pr = farm.paddocks[name]
-    cell = {k: float(v[row, col]) for k, v in pr.cells.items()}
+    cell = {k: float(np.asarray(v)[row, col]) if np.ndim(v) == 2 else float(v)
+            for k, v in pr.cells.items()}
     s = prep.project.settings
+    bd = cell.pop("bulk_density", None)  # a bulk-density raster, where the project gives one
+    if bd is None or not math.isfinite(bd):
+        bd = s.soil.bulk_density_for(name)
     steps = explain_cell(
-        cell, s.rates, prep.products, depth_m=s.soil.depth_m,
-        bulk_density_g_cm3=s.soil.bulk_density_for(name),
+        cell, s.rates, prep.products, depth_m=s.soil.depth_m, bulk_density_g_cm3=bd,
     )
+    # the zone of the cell (its centre: a point on a zone edge belongs to the cell it is in)
+    centre = shapely.Point(*(grid.transform @ (col + 0.5, row + 0.5)))
     zones = []
-    z = pr.zones[pr.zones.contains(pt)]
+    z = pr.zones[pr.zones.covers(centre)].drop_duplicates(subset=["product"])
     for _, zr in z.iterrows():
         zones.append({
             "product": zr["product"], "zone": int(zr["zone"]), "kind": zr["kind"],
@@ -161,8 +221,20 @@ def explain_location(
     return Explanation(
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
-        zones=zones, notes=notes,
+        zones=zones, notes=notes, ecec_parts=_ecec_parts(cell),
     )
+
+
+def _ecec_parts(cell: dict[str, float]) -> dict[str, float]:
+    """The parts whose sum is the cell's ECEC, when they are what it is made of (else empty)."""
+    acid = "acidity" if math.isfinite(cell.get("acidity", math.nan)) else "al"
+    parts = {k: cell[k] for k in ("ca", "mg", "k", "na", acid)
+             if k in cell and math.isfinite(cell[k])}
+    ecec = cell.get("ecec", math.nan)
+    if len(parts) == 5 and math.isfinite(ecec) and math.isclose(sum(parts.values()), ecec,
+                                                                rel_tol=1e-9, abs_tol=1e-12):
+        return parts
+    return {}
 
 
 def _nan(v: Any) -> bool:
@@ -189,20 +261,32 @@ def format_explanation(e: Explanation) -> str:
         sd_txt = f" +/- {sd:.3g} (kriging s.d.)" if sd is not None and math.isfinite(sd) else ""
         out.append(f"   {var}: {v:.4g}{sd_txt}  [{method}]")
     out.append("")
-    out.append("3. Cell chemistry (ECEC = sum of the interpolated parts; shares in % of ECEC)")
-    for k in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ph"):
+    out.append("3. Cell chemistry (amounts in cmol(+)/kg; shares in % of the cell's ECEC)")
+    if e.ecec_parts:
+        terms = " + ".join(f"{_LABEL[k]} {v:.4g}" for k, v in e.ecec_parts.items())
+        out.append(f"   ECEC = {terms} = {e.cell['ecec']:.4g}")
+    elif "ecec" in e.cell and math.isfinite(e.cell["ecec"]):
+        out.append(f"   ECEC = {e.cell['ecec']:.4g} (the lab's CEC: the exchangeable parts are "
+                   "incomplete here)")
+    for k, part in (("esp", "na"), ("ca_sat", "ca"), ("mg_sat", "mg"), ("k_sat", "k"),
+                    ("acid_sat", "acidity"), ("al_sat", "al")):
         if k in e.cell and math.isfinite(e.cell[k]):
-            out.append(f"   {k}: {e.cell[k]:.4g}")
+            how = "interpolated" if k in e.interpolated else f"100 x {_LABEL[part]} / ECEC"
+            out.append(f"   {_LABEL[k]} = {how} = {e.cell[k]:.4g} %")
+    if "ph" in e.cell and math.isfinite(e.cell["ph"]):
+        out.append(f"   pH = {e.cell['ph']:.3g}")
     out.append("")
     out.append("4. Rules, step by step")
     for st in e.steps:
         out.append(f"   [{st.rule}] {st.description}")
+        if not st.formula and math.isnan(st.result):  # a note, not a computation
+            continue
         if st.formula:
             out.append(f"      formula: {st.formula}")
         if st.inputs:
             ins = ", ".join(f"{k} = {_fmt(v)}" for k, v in st.inputs.items())
             out.append(f"      inputs: {ins}")
-        out.append(f"      result: {_fmt(st.result)} {st.unit}")
+        out.append(f"      result: {_fmt((st.result, st.unit))}")
         if st.source:
             out.append(f"      source: {st.source}")
     out.append("")
@@ -219,9 +303,16 @@ def format_explanation(e: Explanation) -> str:
     return "\n".join(out)
 
 
+_LABEL = {
+    "ca": "Ca", "mg": "Mg", "k": "K", "na": "Na", "acidity": "acidity", "al": "Al",
+    "esp": "ESP", "ca_sat": "Ca saturation", "mg_sat": "Mg saturation", "k_sat": "K saturation",
+    "acid_sat": "acid saturation", "al_sat": "Al saturation",
+}
+
+
 def _fmt(v: Any) -> str:
     if isinstance(v, tuple) and len(v) == 2:
-        return f"{_fmt(v[0])} {v[1]}"
+        return f"{_fmt(v[0])} {v[1]}".rstrip()
     if isinstance(v, float):
         return f"{v:.6g}"
     return str(v)

@@ -1,0 +1,191 @@
+"""``geosoil run``: the documented output layout, the output-folder guards, stdout/stderr, cache.
+
+End-to-end runs use a copy of the demo farm, with the surface cache in the session's
+temporary folder (never the user's cache).
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import rasterio
+import tomli_w
+from click.testing import CliRunner
+
+from cli.main import cli
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+
+# The layout documented in geosoil/outputs.py
+TOP_FILES = {"run.json", "tonnage.csv", "passes.csv", "samples.csv", "map.html", "report.html"}
+PADDOCKS = {"red-hill", "creek-flat", "windmill"}
+
+
+def invoke(*args: object):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def _tree(root: Path) -> list[tuple[str, int]]:
+    return sorted((str(p.relative_to(root)), p.stat().st_size) for p in root.rglob("*"))
+
+
+def copy_demo(dest: Path, cache: Path, **changes: dict[str, object]) -> Path:
+    """The demo farm copied to ``dest``, its surface cache in ``cache``, tables updated."""
+    shutil.copytree(DEMO, dest, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    data = tomllib.loads((dest / "geosoil.toml").read_text())
+    data.setdefault("output", {})["cache_dir"] = str(cache)
+    for dotted, values in changes.items():
+        table = data
+        for part in dotted.split("."):
+            table = table.setdefault(part, {})
+        table.update(values)
+    (dest / "geosoil.toml").write_text(tomli_w.dumps(data))
+    return dest
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
+    """Two runs of the demo copy: as given, then with only a rate setting changed (quiet)."""
+    root = tmp_path_factory.mktemp("run")
+    cache = tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil"  # shared by the session
+    farm = copy_demo(root / "farm", cache)
+    before = _tree(farm)
+    first = invoke("run", farm, "--out", root / "out1")
+    after_first = _tree(farm)
+    # change only the exchange-efficiency factor F of the gypsum rule (1.2 -> 1.1)
+    data = tomllib.loads((farm / "geosoil.toml").read_text())
+    assert data["rates"]["gypsum"]["exchange_efficiency"] == 1.2
+    data["rates"]["gypsum"]["exchange_efficiency"] = 1.1
+    (farm / "geosoil.toml").write_text(tomli_w.dumps(data))
+    out2 = root / "out2"
+    out2.mkdir()
+    (out2 / "keep.txt").write_text("not the run's")
+    second = invoke("--quiet", "run", farm, "--out", out2, "--overwrite")
+    return {"root": root, "farm": farm, "first": first, "second": second,
+            "before": before, "after_first": after_first}
+
+
+def test_first_run_succeeds_and_writes_nothing_into_the_project_folder(runs) -> None:  # noqa: ANN001
+    r = runs["first"]
+    assert r.exit_code == 0, r.stderr
+    assert runs["after_first"] == runs["before"]
+
+
+def test_the_documented_layout(runs) -> None:  # noqa: ANN001
+    out = runs["root"] / "out1"
+    assert TOP_FILES <= {p.name for p in out.iterdir() if p.is_file()}
+    assert {p.name for p in out.iterdir() if p.is_dir()} == {"surfaces", "rates", "prescriptions"}
+    for sub in ("surfaces", "rates", "prescriptions"):
+        assert {p.name for p in (out / sub).iterdir()} == PADDOCKS
+    for pad in PADDOCKS:
+        surfaces = {p.name for p in (out / "surfaces" / pad).iterdir()}
+        assert {"ca.tif", "esp.tif", "ecec.tif"} <= surfaces
+        rates = {p.name for p in (out / "rates" / pad).iterdir()}
+        assert {"gypsum.tif", "lime.tif", "gypsum__gypsum.tif", "lime__lime.tif"} <= rates
+        presc = {p.name for p in (out / "prescriptions" / pad).iterdir()}
+        assert {"gypsum.geojson", "gypsum_shp.zip", "gypsum_zones.tif", "lime.geojson"} <= presc
+    # kriged variables carry their standard deviation beside them
+    assert "ca_sd.tif" in {p.name for p in (out / "surfaces" / "red-hill").iterdir()}
+    record = json.loads((out / "run.json").read_text())
+    files = {str(p.relative_to(out)) for p in out.rglob("*") if p.is_file()}
+    assert set(record["files"]) == files  # run.json lists every file, and nothing else is there
+    assert not any(".tmp" in f for f in files)  # atomic writes leave no temporaries
+
+
+def test_stdout_has_the_tonnage_and_the_cautions_stderr_the_progress(runs) -> None:  # noqa: ANN001
+    r = runs["first"]
+    out = r.stdout
+    assert "Paddock" in out and "Tonnes" in out and "Farm" in out
+    for pad in ("Red Hill", "Creek Flat", "Windmill"):
+        assert pad in out
+    assert "Cautions:" in out and "advisory" in out
+    assert str(runs["root"] / "out1") in out  # the paths written
+    assert "reading samples" in r.stderr and "writing the report" in r.stderr
+    assert "reading samples" not in out and "Cautions" not in r.stderr
+    assert "\r" not in r.stderr  # no progress animation when stderr is not a terminal
+    # the tonnage printed is the tonnage written
+    table = pd.read_csv(runs["root"] / "out1" / "tonnage.csv")
+    assert len(table) > 0
+
+
+def test_quiet_run_prints_results_but_no_progress(runs) -> None:  # noqa: ANN001
+    r = runs["second"]
+    assert r.exit_code == 0, r.stderr
+    assert r.stderr == ""
+    assert "Cautions:" in r.stdout and "Farm" in r.stdout
+
+
+def test_overwrite_replaces_the_run_files_and_leaves_other_files(runs) -> None:  # noqa: ANN001
+    out2 = runs["root"] / "out2"
+    assert (out2 / "keep.txt").read_text() == "not the run's"
+    assert (out2 / "run.json").is_file()
+
+
+def test_second_run_takes_surfaces_from_the_cache_and_changes_the_rates(runs) -> None:  # noqa: ANN001
+    out1, out2 = runs["root"] / "out1", runs["root"] / "out2"
+    rec2 = json.loads((out2 / "run.json").read_text())
+    assert rec2["surfaces_from_cache"] is True
+    assert rec2["settings"]["rates"]["gypsum"]["exchange_efficiency"] == 1.1
+    # the surfaces are the same ...
+    with rasterio.open(out1 / "surfaces/creek-flat/na.tif") as a, \
+            rasterio.open(out2 / "surfaces/creek-flat/na.tif") as b:
+        np.testing.assert_array_equal(a.read(1), b.read(1))
+    # ... and the gypsum rule's rate scales with F: USDA Handbook 60 requirement x F
+    # (Oster et al. 1999), so the new rate is 1.1 / 1.2 of the old one [derived]
+    with rasterio.open(out1 / "rates/creek-flat/gypsum__gypsum.tif") as a, \
+            rasterio.open(out2 / "rates/creek-flat/gypsum__gypsum.tif") as b:
+        old, new = a.read(1), b.read(1)
+    sodic = np.isfinite(old) & (old > 0)
+    assert sodic.sum() > 10
+    np.testing.assert_allclose(new[sodic], old[sodic] * 1.1 / 1.2, rtol=1e-9)
+    t1 = pd.read_csv(out1 / "tonnage.csv")
+    t2 = pd.read_csv(out2 / "tonnage.csv")
+    assert not t1.equals(t2)
+
+
+def test_an_existing_output_folder_is_refused_without_overwrite(runs) -> None:  # noqa: ANN001
+    out1 = runs["root"] / "out1"
+    before = _tree(out1)
+    r = invoke("run", runs["farm"], "--out", out1)
+    assert r.exit_code == 1
+    assert r.stdout == ""
+    assert r.stderr.startswith("error:") and "not empty" in r.stderr and "--overwrite" in r.stderr
+    assert _tree(out1) == before
+
+
+@pytest.mark.parametrize("where", ["project", "parent"])
+def test_output_never_goes_into_an_input_folder(runs, where: str) -> None:  # noqa: ANN001
+    farm = runs["farm"]
+    target = farm if where == "project" else farm.parent
+    before = _tree(farm)
+    r = invoke("run", farm, "--out", target, "--overwrite")
+    assert r.exit_code == 1 and r.stdout == ""
+    assert r.stderr.startswith("error:") and "input" in r.stderr
+    assert _tree(farm) == before
+
+
+def test_run_help_and_usage_errors(runs) -> None:  # noqa: ANN001
+    r = invoke("run", "--help")
+    assert r.exit_code == 0
+    for word in ("PROJECT", "--out", "--overwrite", "--no-cache"):
+        assert word in r.stdout
+    r = invoke("run", runs["farm"])
+    assert r.exit_code == 2 and "--out" in r.stderr and r.stdout == ""
+    r = invoke("run", runs["farm"], "--out", runs["root"] / "x", "--colour")
+    assert r.exit_code == 2 and "--colour" in r.stderr
+    assert not (runs["root"] / "x").exists()
+
+
+def test_a_settings_error_exits_1_with_the_message_on_stderr(tmp_path: Path) -> None:
+    farm = copy_demo(tmp_path / "farm", tmp_path / "cache", grid={"cell_size_m": 0.5})
+    r = invoke("run", farm, "--out", tmp_path / "out")
+    assert r.exit_code == 1 and r.stdout == ""
+    assert r.stderr.startswith("error: setting 'grid.cell_size_m'")
+    assert "from 1 to 200 m" in r.stderr
+    assert not (tmp_path / "out").exists()

@@ -1,0 +1,210 @@
+"""The explanation of one location: placement, the arithmetic by hand, the pH guard.
+
+The farm is the demo farm computed once for the module, its surface cache in the
+session's temporary folder.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from geosoil.errors import InputError
+from geosoil.explain import (
+    Explanation,
+    explain_location,
+    format_explanation,
+    locate,
+    parse_location,
+)
+from geosoil.pipeline import FarmResult, compute
+from geosoil.project import load_project
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+
+# IUPAC standard atomic weight of Ca; gypsum CaSO4.2H2O is 23.28 % Ca (REFERENCES.md [derived])
+CA_ATOMIC_WEIGHT = 40.078
+CA_IN_GYPSUM = 0.2328
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+@given(st.floats(allow_nan=False, allow_infinity=False),
+       st.floats(allow_nan=False, allow_infinity=False), st.sampled_from(["", " ", "  "]))
+def test_parse_location_reads_any_two_finite_numbers(a: float, b: float, pad: str) -> None:
+    assert parse_location(f"{pad}{a!r}{pad},{pad}{b!r}") == (a, b)
+
+
+@pytest.mark.parametrize("text", ["147.1", "147.1;-35", "a,b", "1,2,3", "nan,1", "1,inf", ""])
+def test_parse_location_rejects_what_is_not_two_finite_numbers(text: str) -> None:
+    with pytest.raises(InputError) as err:
+        parse_location(text)
+    assert "LON,LAT" in str(err.value) or "X,Y" in str(err.value)
+
+
+# --------------------------------------------------------------------------- on the demo farm
+
+
+@pytest.fixture(scope="module")
+def farm(tmp_path_factory: pytest.TempPathFactory) -> FarmResult:
+    project = load_project(DEMO)
+    s = project.settings
+    cache = tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil"
+    project = dataclasses.replace(
+        project, settings=dataclasses.replace(
+            s, output=dataclasses.replace(s.output, cache_dir=cache)))
+    return compute(project)
+
+
+@pytest.fixture(scope="module")
+def demo_toml() -> dict:
+    return tomllib.loads((DEMO / "geosoil.toml").read_text())
+
+
+def _cell_centre(farm: FarmResult, paddock: str, row: int, col: int) -> tuple[float, float]:
+    return farm.prep.grids[paddock].transform @ (col + 0.5, row + 0.5)
+
+
+def _most(farm: FarmResult, paddock: str, product: str) -> tuple[int, int]:
+    rate = farm.paddocks[paddock].rates.product_rates[product]
+    return tuple(int(v) for v in np.unravel_index(np.nanargmax(rate), rate.shape))  # type: ignore[return-value]
+
+
+def _total(e: Explanation, product: str) -> float:
+    (step,) = [s for s in e.steps if s.rule == "total" and s.description.startswith(product + ":")]
+    return step.result
+
+
+def test_gypsum_by_hand_from_the_interpolated_values(farm: FarmResult, demo_toml: dict) -> None:
+    """USDA Handbook 60 gypsum requirement, worked by hand from the values the explanation shows.
+
+    Ca (cmol(+)/kg) = (ESP - target) / 100 x ECEC x F (Handbook 60; F after Oster et al. 1999);
+    mg/kg = cmol(+)/kg x 10 x atomic weight / charge; kg/ha = mg/kg x depth (m) x BD x 10;
+    product = kg Ca/ha / (23.28 % x purity x (1 - moisture)) [derived].
+    """
+    row, col = _most(farm, "Creek Flat", "gypsum")
+    x, y = _cell_centre(farm, "Creek Flat", row, col)
+    e = explain_location(farm, x, y, coords="xy")
+    assert (e.paddock, e.row, e.col) == ("Creek Flat", row, col)
+    v = {k: est for k, (est, _sd, _m) in e.interpolated.items()}
+    ecec = v["ca"] + v["mg"] + v["k"] + v["na"] + v["acidity"]  # ECEC as the sum of its parts
+    esp = 100 * v["na"] / ecec
+    assert e.cell["ecec"] == pytest.approx(ecec, rel=1e-12)
+    assert e.cell["esp"] == pytest.approx(esp, rel=1e-12)
+    g = demo_toml["rates"]["gypsum"]
+    soil, product = demo_toml["soil"], demo_toml["products"]["gypsum"]
+    ca_cmol = (esp - g["target_esp_percent"]) / 100 * ecec * g["exchange_efficiency"]
+    ca_mg_kg = ca_cmol * 10 * CA_ATOMIC_WEIGHT / 2
+    ca_kg_ha = ca_mg_kg * soil["depth_m"] * soil["bulk_density_g_cm3"] * 10
+    fraction = CA_IN_GYPSUM * product["purity_percent"] / 100 * (1 - product["moisture_percent"] / 100)
+    by_hand = ca_kg_ha / fraction
+    assert by_hand > 1000  # a sodic cell: the check is not about a zero
+    # the calcium rule adds nothing here (Ca far above its minimum), so the total is the gypsum rule's
+    assert v["ca"] > demo_toml["rates"]["calcium"]["minimum_ca"]
+    assert _total(e, "gypsum") == pytest.approx(by_hand, rel=2e-4)
+    assert float(farm.paddocks["Creek Flat"].rates.product_rates["gypsum"][row, col]) == \
+        pytest.approx(_total(e, "gypsum"), rel=1e-12)
+    # every rule step names its source
+    for step in e.steps:
+        if step.rule in ("gypsum", "lime") and step.formula:
+            assert step.source
+
+
+def test_the_explanation_text_shows_each_stage(farm: FarmResult) -> None:
+    row, col = _most(farm, "Creek Flat", "gypsum")
+    e = explain_location(farm, *_cell_centre(farm, "Creek Flat", row, col), coords="xy")
+    text = format_explanation(e)
+    for heading in ("Paddock: Creek Flat", "1. Nearest samples", "2. Interpolated values",
+                    "3. Cell chemistry", "4. Rules, step by step", "5. Zone rates"):
+        assert heading in text
+    assert "ECEC = Ca " in text and "ESP = 100 x Na / ECEC" in text
+    assert "source: USDA Handbook 60" in text and "kriging s.d." in text
+    assert "nan" not in text
+    assert len(e.nearest_samples) == 3
+    d = [s["distance_m"] for s in e.nearest_samples]
+    assert d == sorted(d)
+    assert all(s["sample_id"].startswith("CF-") for s in e.nearest_samples)
+    assert {z["product"] for z in e.zones} == {"gypsum", "lime"}
+
+
+def test_lonlat_and_xy_name_the_same_cell(farm: FarmResult) -> None:
+    import pyproj
+
+    x, y = _cell_centre(farm, "Red Hill", *_most(farm, "Red Hill", "lime"))
+    lon, lat = pyproj.Transformer.from_crs(farm.prep.crs, "EPSG:4326", always_xy=True).transform(x, y)
+    a = locate(farm.prep, x, y, coords="xy")
+    b = locate(farm.prep, lon, lat)  # auto: numbers in degree ranges are lon/lat
+    c = locate(farm.prep, lon, lat, coords="lonlat")
+    assert (a.paddock, a.row, a.col) == (b.paddock, b.row, b.col) == (c.paddock, c.row, c.col)
+    assert a.paddock == "Red Hill"
+    assert b.x == pytest.approx(x, abs=1e-3) and b.y == pytest.approx(y, abs=1e-3)
+
+
+def test_a_point_outside_every_paddock_is_named(farm: FarmResult) -> None:
+    with pytest.raises(InputError) as err:
+        locate(farm.prep, 147.0, -35.0)
+    msg = str(err.value)
+    assert "lon 147.000000, lat -35.000000" in msg and "not inside any paddock" in msg
+    assert "Red Hill" in msg  # the paddocks there are
+    with pytest.raises(InputError) as err:
+        locate(farm.prep, 500_000.0, 6_100_000.0, coords="xy")
+    assert "x 500000.0, y 6100000.0" in str(err.value)
+
+
+def test_lonlat_out_of_range_is_refused(farm: FarmResult) -> None:
+    with pytest.raises(InputError):
+        locate(farm.prep, 541_000.0, 6_160_000.0, coords="lonlat")
+
+
+def test_a_point_in_an_exclusion_is_on_no_cell(farm: FarmResult) -> None:
+    excl = farm.prep.exclusions
+    inside = [g for g in excl.geometry if farm.prep.paddocks.covers(g.representative_point()).any()]
+    assert inside
+    p = inside[0].representative_point()
+    with pytest.raises(InputError) as err:
+        locate(farm.prep, p.x, p.y, coords="xy")
+    assert "not on one of its cells" in str(err.value)
+
+
+def test_no_lime_above_the_ph_limit(farm: FarmResult, demo_toml: dict) -> None:
+    """No liming product on cells with pH above the limit (common practice: about 7)."""
+    limit = demo_toml["rates"]["no_lime_above_ph"]
+    n_alkaline = 0
+    for name, pr in farm.paddocks.items():
+        ph = pr.cells["ph"]
+        lime = pr.rates.product_rates["lime"]
+        alkaline = np.isfinite(ph) & (ph > limit)
+        n_alkaline += int(alkaline.sum())
+        assert np.all(lime[alkaline] == 0), name
+    assert n_alkaline > 10  # the demo's sodic patch is alkaline
+    # the explanation of the most alkaline cell says so, and its zone gets no lime
+    pr = farm.paddocks["Creek Flat"]
+    row, col = (int(v) for v in np.unravel_index(np.nanargmax(pr.cells["ph"]), pr.cells["ph"].shape))
+    e = explain_location(farm, *_cell_centre(farm, "Creek Flat", row, col), coords="xy")
+    assert e.cell["ph"] > limit
+    assert _total(e, "lime") == 0
+    guard = [s for s in e.steps if s.rule == "lime" and s.description.startswith("pH guard")]
+    assert guard and guard[0].result == 0 and guard[0].source.startswith("[common practice]")
+    (zone,) = [z for z in e.zones if z["product"] == "lime"]
+    assert zone["rate_kg_ha"] == 0
+
+
+def test_the_totals_are_the_per_cell_rates(farm: FarmResult) -> None:
+    """The explanation runs the same arithmetic as the grid (checked on a spread of cells)."""
+    rng = np.random.default_rng(0)
+    for name, pr in farm.paddocks.items():
+        rows, cols = np.nonzero(pr.grid.mask)
+        for i in rng.choice(len(rows), size=3, replace=False):
+            r, c = int(rows[i]), int(cols[i])
+            e = explain_location(farm, *_cell_centre(farm, name, r, c), coords="xy")
+            for product, rate in pr.rates.product_rates.items():
+                assert _total(e, product) == pytest.approx(float(rate[r, c]), rel=1e-12, abs=1e-9)
+            assert math.isfinite(e.cell["ecec"])
