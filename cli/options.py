@@ -46,7 +46,7 @@ def echo_err(message: str) -> None:
 
 
 def handle_errors(func: F) -> F:
-    """Map library errors to exit status 1 with the message on stderr."""
+    """Map library errors, and files that cannot be read or written, to exit 1 on stderr."""
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
@@ -54,6 +54,10 @@ def handle_errors(func: F) -> F:
             return func(*args, **kwargs)
         except GeosoilError as exc:
             echo_err(f"error: {exc}")
+            sys.exit(1)
+        except OSError as exc:  # a folder that cannot be made, a disk that is full...
+            where = f": {exc.filename}" if getattr(exc, "filename", None) else ""
+            echo_err(f"error: {exc.strerror or exc}{where}")
             sys.exit(1)
 
     return wrapper  # type: ignore[return-value]
@@ -99,8 +103,22 @@ def set_verbosity(verbose: int, quiet: bool) -> None:
         level = logging.INFO
     logger = logging.getLogger("geosoil")
     logger.setLevel(level)
-    if not any(getattr(h, "_geosoil_cli", False) for h in logger.handlers):
-        handler = logging.StreamHandler(sys.stderr)
+    if not any(isinstance(h, _StderrHandler) for h in logger.handlers):
+        handler = _StderrHandler()
         handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
-        handler._geosoil_cli = True  # type: ignore[attr-defined]
         logger.addHandler(handler)
+
+
+class _StderrHandler(logging.StreamHandler):  # type: ignore[type-arg]
+    """Writes to whatever ``sys.stderr`` is at the time of each record (not the one at setup)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+
+    @property  # type: ignore[override]
+    def stream(self) -> Any:
+        return sys.stderr
+
+    @stream.setter
+    def stream(self, value: Any) -> None:  # the base class sets it; the property ignores it
+        pass

@@ -168,3 +168,15 @@ def test_the_same_rule_on_auto_is_skipped_with_a_note(tmp_path: Path) -> None:
     assert r.exit_code == 0, r.stderr
     assert "lime rule skipped" in r.stderr
     assert "warning" in r.stdout  # the count of warnings
+
+
+def test_verbose_logs_to_stderr_quiet_keeps_only_the_result(tmp_path: Path) -> None:
+    project = make_project(tmp_path / "farm")
+    for _ in range(2):  # each invocation logs to its own stderr, not the first one's
+        r = check(project, "-v")
+        assert r.exit_code == 0
+        assert "INFO geosoil.samples:" in r.stderr and "INFO" not in r.stdout
+    r = check(project, "--quiet")
+    assert r.exit_code == 0 and r.stderr == "" and r.stdout.startswith("ok: ")
+    r = check(project)
+    assert "INFO" not in r.stderr

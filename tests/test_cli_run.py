@@ -182,6 +182,16 @@ def test_run_help_and_usage_errors(runs) -> None:  # noqa: ANN001
     assert not (runs["root"] / "x").exists()
 
 
+def test_an_output_folder_that_cannot_be_made_is_an_error_not_a_traceback(
+    runs, tmp_path: Path  # noqa: ANN001
+) -> None:
+    (tmp_path / "a-file").write_text("x")
+    r = invoke("run", runs["farm"], "--out", tmp_path / "a-file" / "out")
+    assert r.exit_code == 1 and r.stdout == ""
+    assert r.stderr.startswith("error:") and "a-file" in r.stderr
+    assert r.exception is None or isinstance(r.exception, SystemExit)
+
+
 def test_a_settings_error_exits_1_with_the_message_on_stderr(tmp_path: Path) -> None:
     farm = copy_demo(tmp_path / "farm", tmp_path / "cache", grid={"cell_size_m": 0.5})
     r = invoke("run", farm, "--out", tmp_path / "out")
