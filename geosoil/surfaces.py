@@ -36,8 +36,11 @@ negative, so it can overshoot) are set to zero, and estimated ESP is kept
 within 0-100 %; each surface's notes count the cells changed. The kriging
 standard deviation is left as computed.
 
-When the samples fit a variable on a log scale (``log_transform``), a fixed
-variogram for it is read on that log scale, as a fitted one would be.
+When a variable is kriged on a log scale (``log_transform``, and all of the
+paddock's values are above zero), its variogram is on that scale too: a fixed
+one is read on it, and a farm variogram is fitted on the log of the farm's
+values above zero (a paddock holding zeros is kriged as it is, with a farm
+variogram of the values as they are).
 """
 
 from __future__ import annotations
