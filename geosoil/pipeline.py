@@ -482,7 +482,9 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                         f"paddock '{name}' has no samples; sample it or set "
                         "[interpolation] borrow_farm_surface = true"
                     )
-        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if w not in sink)
+        # with on_bad_row = "stop" the bad rows are problems above, not rows a run would skip
+        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if w not in sink
+                    and not (strict and " bad row(s) skipped: " in w))
     except GeosoilError as exc:
         problems.append(str(exc))
     return problems, sink

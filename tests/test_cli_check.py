@@ -152,6 +152,21 @@ def test_several_bad_sample_rows_are_all_listed(tmp_path: Path) -> None:
         assert f"row {row}" in text, text
     assert len(problems) >= 3
     assert "abc" in text
+    assert "bad row(s) skipped" not in r.stderr  # on_bad_row = "stop": a run stops, not skips
+
+
+def test_bad_rows_set_to_skip_are_warnings_not_problems(tmp_path: Path) -> None:
+    rows = _rows()
+    rows[1] = rows[1].replace(",2.1,", ",abc,")
+    r = check(make_project(tmp_path / "farm", rows=rows))
+    assert r.exit_code == 1
+    project = tmp_path / "farm"
+    text = (project / "geosoil.toml").read_text().replace(
+        'crs = "EPSG:32755"', 'crs = "EPSG:32755"\non_bad_row = "skip"')
+    (project / "geosoil.toml").write_text(text)
+    r = check(project)
+    assert r.exit_code == 0, r.stderr
+    assert "1 bad row(s) skipped: row 3" in r.stderr
 
 
 def test_a_rule_switched_on_without_its_data_names_the_key(tmp_path: Path) -> None:
