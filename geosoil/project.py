@@ -539,10 +539,12 @@ def new_project(
         )
         crs = guess
     else:
-        if crs is None and read.crs is not None and read.crs.is_geographic:
+        table = samples.suffix.lower() in (".csv", ".txt", ".tsv", ".xlsx", ".xlsm", ".xls")
+        if crs is None and read.crs is not None and read.crs.is_geographic and table:
             notes.append("sample coordinates read as longitude/latitude (WGS 84)")
-            if samples.suffix.lower() in (".csv", ".txt", ".tsv", ".xlsx", ".xlsm", ".xls"):
-                crs = read.crs.to_string()  # a table carries no CRS: write what was detected
+            crs = read.crs.to_string()  # a table carries no CRS: write what was detected
+        elif crs is None and read.crs is not None:
+            notes.append(f"sample coordinates in the file's own CRS, {read.crs.name}")
     if read.samples.crs is not None and pads.crs is not None and len(read.samples):
         pts = read.samples.geometry.to_crs(pads.crs)
         share = float(np.mean(shapely.contains_xy(

@@ -235,3 +235,42 @@ def test_quiet_keeps_the_notes_off_stderr(inputs: dict[str, Path], tmp_path: Pat
                "--paddocks", inputs["paddocks_utm"])
     assert r.exit_code == 0 and r.stderr == ""
     assert r.stdout.strip().endswith("geosoil.toml")
+
+
+def test_samples_with_their_own_crs_keep_it(inputs: dict[str, Path], tmp_path: Path) -> None:
+    table = gpd.pd.read_csv(inputs["lab_xy"])
+    points = gpd.GeoDataFrame(
+        table.drop(columns=["Easting", "Northing"]),
+        geometry=gpd.points_from_xy(table["Easting"], table["Northing"]), crs=UTM,
+    )
+    points.to_file(tmp_path / "lab.gpkg")
+    r = invoke("new", tmp_path / "p", "--samples", tmp_path / "lab.gpkg",
+               "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    assert "the file's own CRS" in r.stderr and "UTM zone 55S" in r.stderr
+    data = tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())
+    assert "crs" not in data["samples"]  # the file's own is read again
+    assert invoke("check", tmp_path / "p").exit_code == 0
+
+
+def test_inputs_near_the_project_are_written_as_relative_paths(
+    inputs: dict[str, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    data_dir = tmp_path / "data"
+    data_dir.mkdir()
+    for key in ("lab_ll", "paddocks_utm"):
+        (data_dir / inputs[key].name).write_bytes(inputs[key].read_bytes())
+    monkeypatch.chdir(tmp_path)
+    r = invoke("new", "project", "--samples", "data/lab_lonlat.csv",
+               "--paddocks", "data/paddocks_utm.gpkg")
+    assert r.exit_code == 0, r.stderr
+    data = tomllib.loads((tmp_path / "project" / "geosoil.toml").read_text())
+    assert data["samples"]["file"] == "../data/lab_lonlat.csv"
+    assert data["boundaries"]["paddocks"] == "../data/paddocks_utm.gpkg"
+    assert data["farm"] == "project"
+    # the folder can move with its data
+    (tmp_path / "moved").mkdir()
+    for name in ("project", "data"):
+        (tmp_path / name).rename(tmp_path / "moved" / name)
+    monkeypatch.chdir(tmp_path / "moved" / "project")
+    assert invoke("check", ".").exit_code == 0
