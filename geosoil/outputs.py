@@ -17,6 +17,8 @@ Layout (stable; scripts rely on it)::
       prescriptions/<paddock>/<product>.geojson       RFC 7946 zones
       prescriptions/<paddock>/<product>_shp.zip       zipped ESRI shapefile of the zones
       prescriptions/<paddock>/<product>_zones.tif     zone rates as a raster
+      prescriptions/<paddock>/<product>_isoxml/TASKDATA/   ISO 11783-10 task data (rate grid, DDI 6);
+                                       <product>_isoxml_pass<k>/ when rates need several passes
 
 Every file is written to a temporary name and renamed into place.
 """
@@ -36,6 +38,7 @@ import rasterio.features
 from . import report as report_mod
 from . import webmap
 from .grids import mosaic
+from .isoxml import write_taskdata
 from .pipeline import (
     CAUTIONS,
     FarmResult,
@@ -142,6 +145,7 @@ def write_outputs(
             zr[~pr.grid.mask] = np.nan
             cog(folder / f"{slug(product)}_zones.tif", zr, pr.grid.transform,
                 f"{product} zone rates", "kg/ha")
+            written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product))
 
     # tables
     p = out_dir / "tonnage.csv"
@@ -150,8 +154,8 @@ def write_outputs(
     passes = farm.zones[farm.zones.get("passes", pd.Series(1, index=farm.zones.index)) > 1] \
         if "passes" in farm.zones.columns else farm.zones.iloc[0:0]
     p = out_dir / "passes.csv"
-    cols = [c for c in ("paddock", "product", "zone", "rate_kg_ha", "passes", "per_pass_kg_ha", "area_ha")
-            if c in passes.columns]
+    cols = [c for c in ("paddock", "product", "zone", "rate_kg_ha", "passes", "per_pass_kg_ha",
+                        "schedule", "area_ha") if c in passes.columns]
     write_csv(p, pd.DataFrame(passes[cols]))
     written.append(p)
     p = out_dir / "samples.csv"
@@ -182,6 +186,42 @@ def write_outputs(
     write_json(p, record)
     written.append(p)
     return written, record
+
+
+def _write_isoxml(
+    folder: Path, zones: Any, *, farm: FarmResult, paddock: str, product: str
+) -> list[Path]:
+    """ISO 11783-10 task data for one paddock and product: one task per pass.
+
+    A controller applies one rate per cell per task, so a zone whose rate
+    needs several passes (spreader max per pass) is written as pass 1, pass 2...
+    tasks, each holding the per-pass rate of the zones that still need it.
+    Nothing is written when no zone gets product.
+    """
+    if not (zones["rate_kg_ha"] > 0).any():
+        return []
+    prep = farm.prep
+    boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
+    label = prep.products[product].label if product in prep.products else product
+    passes = zones["passes"].fillna(1).astype(int) if "passes" in zones.columns else None
+    n_tasks = int(passes.max()) if passes is not None else 1
+    written: list[Path] = []
+    for k in range(1, max(n_tasks, 1) + 1):
+        zk = zones.copy()
+        if n_tasks > 1:
+            per_pass = zones["per_pass_kg_ha"].fillna(zones["rate_kg_ha"])
+            zk["rate_kg_ha"] = np.where(passes >= k, per_pass, 0.0)
+            sub = folder / f"{slug(product)}_isoxml_pass{k}"
+            task_label = f"{label} pass {k} of {n_tasks}"
+        else:
+            sub = folder / f"{slug(product)}_isoxml"
+            task_label = label
+        written.extend(write_taskdata(
+            sub, zones=zk, boundary=boundary, crs=zones.crs, product_label=task_label,
+            farm=prep.project.settings.farm or "farm",
+            cell_size_m=prep.project.settings.grid.cell_size_m,
+        ))
+    return written
 
 
 def _surface_record(surf: Any) -> dict[str, Any]:

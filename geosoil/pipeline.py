@@ -437,7 +437,8 @@ def run(
     ensure = _ensure_output(project, out_dir, overwrite=overwrite)
     farm = compute(project, progress=progress, use_cache=use_cache)
     t0 = time.perf_counter()
-    written, record = write_outputs(farm, out_dir=ensure, progress=progress)
+    with _recording(farm.prep.warnings):
+        written, record = write_outputs(farm, out_dir=ensure, progress=progress)
     farm.timings["writing"] = time.perf_counter() - t0
     return RunResult(out_dir=ensure, written=written, farm=farm, record=record)
 
