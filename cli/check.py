@@ -38,8 +38,8 @@ def check(ctx: click.Context, project: Path) -> None:
     if not ctx.obj["quiet"]:
         for w in warnings:
             echo_err(f"warning: {w}")
-    for p in found:
-        echo_err(f"problem: {p}")
+    for problem in found:
+        echo_err(f"problem: {problem}")
     if found:
         echo_err(f"{len(found)} problem(s) found in {proj.path}")
         sys.exit(1)

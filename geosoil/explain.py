@@ -212,12 +212,15 @@ def explain_location(
         zones.append({
             "product": zr["product"], "zone": int(zr["zone"]), "kind": zr["kind"],
             "rate_kg_ha": float(zr["rate_kg_ha"]),
-            "rate_in_unit": float(rate_from_kg_ha(zr["rate_kg_ha"], s.output.rate_unit)),
+            "rate_in_unit": float(np.asarray(rate_from_kg_ha(zr["rate_kg_ha"],
+                                                             s.output.rate_unit))),
             "unit": s.output.rate_unit,
             "passes": int(zr["passes"]) if "passes" in zr and not _nan(zr["passes"]) else 1,
         })
     for prod, arr in pr.rates.product_rates.items():
-        notes.append(f"per-cell {prod} rate before spreader limits: {float(arr[row, col]):.1f} kg/ha")
+        notes.append(
+            f"per-cell {prod} rate before spreader limits: {float(arr[row, col]):.1f} kg/ha"
+        )
     return Explanation(
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
@@ -247,14 +250,17 @@ def _nan(v: Any) -> bool:
 def format_explanation(e: Explanation) -> str:
     """The explanation as text for a terminal, top to bottom in the order of the arithmetic."""
     out: list[str] = []
-    out.append(f"Location: lon {e.lon:.6f}, lat {e.lat:.6f} = x {e.x:.1f}, y {e.y:.1f} (working CRS)")
+    out.append(
+        f"Location: lon {e.lon:.6f}, lat {e.lat:.6f} = x {e.x:.1f}, y {e.y:.1f} (working CRS)"
+    )
     out.append(f"Paddock: {e.paddock}, grid cell row {e.row}, column {e.col}")
     out.append("")
     out.append("1. Nearest samples (lab values, cmol(+)/kg; pH as measured)")
     for s in e.nearest_samples:
         vals = ", ".join(f"{k} {v:.3g}" for k, v in s.items()
                          if k not in ("sample_id", "distance_m", "source_row") and v is not None)
-        out.append(f"   {s['sample_id']} ({s['distance_m']:.0f} m away, file row {s['source_row']}): {vals}")
+        out.append(f"   {s['sample_id']} ({s['distance_m']:.0f} m away, "
+                   f"file row {s['source_row']}): {vals}")
     out.append("")
     out.append("2. Interpolated values at this cell")
     for var, (v, sd, method) in sorted(e.interpolated.items()):
@@ -295,7 +301,8 @@ def format_explanation(e: Explanation) -> str:
         out.append("   none")
     for z in e.zones:
         out.append(
-            f"   {z['product']}: zone {z['zone']} ({z['kind']}): {z['rate_in_unit']:.4g} {z['unit']}"
+            f"   {z['product']}: zone {z['zone']} ({z['kind']}): "
+            f"{z['rate_in_unit']:.4g} {z['unit']}"
             + (f" in {z['passes']} passes" if z["passes"] > 1 else "")
         )
     for n in e.notes:

@@ -12,8 +12,8 @@ template and the validation can never disagree.
 from __future__ import annotations
 
 import dataclasses
-import os
 import math
+import os
 import tomllib
 import typing
 from collections.abc import Mapping
@@ -125,7 +125,9 @@ class OutputSettings:
     """How results are written and shown."""
 
     rate_unit: str = setting(
-        "kg/ha", doc="unit of rates in the map, report and summary", choices=("kg/ha", "t/ha", "lb/ac")
+        "kg/ha",
+        doc="unit of rates in the map, report and summary",
+        choices=("kg/ha", "t/ha", "lb/ac"),
     )
     background_tiles: bool = setting(
         False, doc="add an online background map layer (the map works offline without it)"
@@ -314,7 +316,8 @@ def _project_path(path: Path | str) -> Path:
         raise InputError(
             "project file not found",
             file=p,
-            fix=f"give a project folder holding {PROJECT_FILE_NAME}, or create one with 'geosoil new'",
+            fix=f"give a project folder holding {PROJECT_FILE_NAME}, or create one with "
+            "'geosoil new'",
         )
     return p
 
@@ -393,7 +396,7 @@ def _emit_table(
 ) -> None:
     hints = typing.get_type_hints(cls)
     simple: list[str] = []
-    nested: list[tuple[str, type, Any, bool]] = []
+    nested: list[tuple[str, Any, Any, bool]] = []
     for doc in describe(cls):
         value = getattr(values, doc.key) if values is not None else doc.default
         tp = hints[doc.key]

@@ -1,4 +1,4 @@
-"""``geosoil explain``: the arithmetic for one demo location, checked by hand from what it prints."""
+"""``geosoil explain``: the arithmetic at one demo location, checked by hand from its printout."""
 
 from __future__ import annotations
 
@@ -42,7 +42,8 @@ def sodic_sample() -> tuple[float, float]:
     with open(DEMO / "lab_results.csv", newline="") as fh:
         rows = [r for r in csv.DictReader(fh) if r["Sample ID"].startswith("CF-")]
     # Na in mmol/kg is 0.1 cmol(+)/kg per mmol/kg (Na is monovalent)
-    best = max(rows, key=lambda r: float(r["Exch. Na (mmol/kg)"]) / 10 / float(r["ECEC (cmol(+)/kg)"]))
+    best = max(rows, key=lambda r: float(r["Exch. Na (mmol/kg)"]) / 10
+               / float(r["ECEC (cmol(+)/kg)"]))
     return float(best["Longitude"]), float(best["Latitude"])
 
 
@@ -86,7 +87,8 @@ def test_explain_at_lonlat_prints_every_stage(at_lonlat) -> None:  # noqa: ANN00
     assert r.exit_code == 0, r.stderr
     out = r.stdout
     assert "Paddock: Creek Flat" in out
-    for heading in ("1. Nearest samples", "2. Interpolated values at this cell", "3. Cell chemistry",
+    for heading in ("1. Nearest samples", "2. Interpolated values at this cell",
+                    "3. Cell chemistry",
                     "4. Rules, step by step", "5. Zone rates the spreader applies here"):
         assert heading in out
     assert re.search(r"^   CF-\d+ \(\d+ m away, file row \d+\): ph ", out, re.M)
@@ -113,8 +115,10 @@ def test_gypsum_by_hand_from_the_printed_values(at_lonlat) -> None:  # noqa: ANN
     g, soil = project["rates"]["gypsum"], project["soil"]
     product = project["products"]["gypsum"]
     ca_cmol = (esp - g["target_esp_percent"]) / 100 * ecec * g["exchange_efficiency"]
-    ca_kg_ha = ca_cmol * 10 * CA_ATOMIC_WEIGHT / 2 * soil["depth_m"] * soil["bulk_density_g_cm3"] * 10
-    fraction = CA_IN_GYPSUM * product["purity_percent"] / 100 * (1 - product["moisture_percent"] / 100)
+    ca_mg_kg = ca_cmol * 10 * CA_ATOMIC_WEIGHT / 2
+    ca_kg_ha = ca_mg_kg * soil["depth_m"] * soil["bulk_density_g_cm3"] * 10
+    purity, moisture = product["purity_percent"] / 100, product["moisture_percent"] / 100
+    fraction = CA_IN_GYPSUM * purity * (1 - moisture)
     by_hand = ca_kg_ha / fraction
     assert by_hand > 1000  # a sodic cell
     printed = _number(r"^   \[total\] gypsum: .*\n.*\n.*\n      result: ([\d.e+]+) kg/ha", out)

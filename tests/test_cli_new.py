@@ -28,7 +28,8 @@ def make_inputs(folder: Path, *, n: int = 16, seed: int = 3) -> dict[str, Path]:
     folder.mkdir(parents=True, exist_ok=True)
     paddock = shapely.box(X0, Y0, X0 + 400, Y0 + 300)
     utm = gpd.GeoDataFrame({"name": ["Home"]}, geometry=[paddock], crs=UTM)
-    paths = {"paddocks_utm": folder / "paddocks_utm.gpkg", "paddocks_ll": folder / "paddocks.geojson"}
+    paths = {"paddocks_utm": folder / "paddocks_utm.gpkg",
+             "paddocks_ll": folder / "paddocks.geojson"}
     utm.to_file(paths["paddocks_utm"])
     utm.to_crs("EPSG:4326").to_file(paths["paddocks_ll"])
     rng = np.random.default_rng(seed)
@@ -44,9 +45,10 @@ def make_inputs(folder: Path, *, n: int = 16, seed: int = 3) -> dict[str, Path]:
     ph = 4.6 + 2.8 * fx - 0.4 * fy
     rows = []
     for i in range(n):
-        vals = f"{ph[i]:.2f},{ca[i]:.3f},{mg[i]:.3f},{k[i]:.3f},{na[i]:.3f},{al[i]:.3f},{al[i] + 0.1:.3f}"
+        vals = ",".join(f"{v:.3f}" for v in (ph[i], ca[i], mg[i], k[i], na[i], al[i], al[i] + 0.1))
         rows.append((f"S{i + 1:02d}", lon[i], lat[i], x[i], y[i], vals))
-    head = "pH (CaCl2),Exch Ca (meq/100g),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),Al (cmol/kg),Acidity (cmol/kg)"
+    head = ("pH (CaCl2),Exch Ca (meq/100g),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),Al (cmol/kg),"
+            "Acidity (cmol/kg)")
     paths["lab_ll"] = folder / "lab_lonlat.csv"
     paths["lab_ll"].write_text(
         f"Sample ID,Longitude,Latitude,{head}\n"

@@ -104,10 +104,11 @@ def test_gypsum_by_hand_from_the_interpolated_values(farm: FarmResult, demo_toml
     ca_cmol = (esp - g["target_esp_percent"]) / 100 * ecec * g["exchange_efficiency"]
     ca_mg_kg = ca_cmol * 10 * CA_ATOMIC_WEIGHT / 2
     ca_kg_ha = ca_mg_kg * soil["depth_m"] * soil["bulk_density_g_cm3"] * 10
-    fraction = CA_IN_GYPSUM * product["purity_percent"] / 100 * (1 - product["moisture_percent"] / 100)
+    purity, moisture = product["purity_percent"] / 100, product["moisture_percent"] / 100
+    fraction = CA_IN_GYPSUM * purity * (1 - moisture)
     by_hand = ca_kg_ha / fraction
     assert by_hand > 1000  # a sodic cell: the check is not about a zero
-    # the calcium rule adds nothing here (Ca far above its minimum), so the total is the gypsum rule's
+    # the calcium rule adds nothing here (Ca far above its minimum): the total is the gypsum rule's
     assert v["ca"] > demo_toml["rates"]["calcium"]["minimum_ca"]
     assert _total(e, "gypsum") == pytest.approx(by_hand, rel=2e-4)
     assert float(farm.paddocks["Creek Flat"].rates.product_rates["gypsum"][row, col]) == \
@@ -139,7 +140,8 @@ def test_lonlat_and_xy_name_the_same_cell(farm: FarmResult) -> None:
     import pyproj
 
     x, y = _cell_centre(farm, "Red Hill", *_most(farm, "Red Hill", "lime"))
-    lon, lat = pyproj.Transformer.from_crs(farm.prep.crs, "EPSG:4326", always_xy=True).transform(x, y)
+    to_ll = pyproj.Transformer.from_crs(farm.prep.crs, "EPSG:4326", always_xy=True)
+    lon, lat = to_ll.transform(x, y)
     a = locate(farm.prep, x, y, coords="xy")
     b = locate(farm.prep, lon, lat)  # auto: numbers in degree ranges are lon/lat
     c = locate(farm.prep, lon, lat, coords="lonlat")
@@ -187,7 +189,8 @@ def test_no_lime_above_the_ph_limit(farm: FarmResult, demo_toml: dict) -> None:
     assert n_alkaline > 10  # the demo's sodic patch is alkaline
     # the explanation of the most alkaline cell says so, and its zone gets no lime
     pr = farm.paddocks["Creek Flat"]
-    row, col = (int(v) for v in np.unravel_index(np.nanargmax(pr.cells["ph"]), pr.cells["ph"].shape))
+    ph = pr.cells["ph"]
+    row, col = (int(v) for v in np.unravel_index(np.nanargmax(ph), ph.shape))
     e = explain_location(farm, *_cell_centre(farm, "Creek Flat", row, col), coords="xy")
     assert e.cell["ph"] > limit
     assert _total(e, "lime") == 0
