@@ -4,7 +4,10 @@ An agronomist who must defend a rate picks a spot; :func:`explain_location`
 finds its paddock and grid cell, the nearest samples with their lab values,
 the interpolated values at that cell (with the kriging standard deviation),
 the cell's derived chemistry, every rule's steps with its inputs and source,
-and the zone rate the spreader will apply there.
+and the zone rate the spreader will apply there. :func:`locate` places the
+point alone (paddock and cell) so that a point off the farm is refused before
+anything is interpolated. The rates shown are advisory, as every rate geosoil
+computes.
 """
 
 from __future__ import annotations
