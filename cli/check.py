@@ -7,6 +7,7 @@ from pathlib import Path
 
 import click
 
+from geosoil.errors import SettingsError
 from geosoil.pipeline import check as check_project
 from geosoil.project import load_project_problems
 
@@ -29,10 +30,11 @@ def check(ctx: click.Context, project: Path) -> None:
     if proj is None:
         for p in problems:
             echo_err(f"problem: {p}")
-        echo_err(
-            f"{len(problems)} problem(s) in the settings of {project}; "
-            "the input files are checked once the settings are valid"
-        )
+        if all(isinstance(p, SettingsError) for p in problems):
+            echo_err(
+                f"{len(problems)} problem(s) in the settings of {project}; "
+                "the input files are checked once the settings are valid"
+            )
         sys.exit(1)
     found, warnings = check_project(proj)
     if not ctx.obj["quiet"]:

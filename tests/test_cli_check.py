@@ -71,6 +71,7 @@ def test_a_folder_without_a_project_file_is_an_error(tmp_path: Path) -> None:
     r = check(tmp_path)
     assert r.exit_code == 1 and r.stdout == ""
     assert "geosoil.toml" in r.stderr and "geosoil new" in r.stderr
+    assert "settings" not in r.stderr
 
 
 def test_ok_project_exits_0_and_writes_nothing_anywhere(
