@@ -301,7 +301,16 @@ def derive(
     use_lab = ~use_sum & np.isfinite(lab_cec) & (lab_cec > 0)
     ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.nan))
     bad = ~use_sum & ~use_lab
-    if bad.any():
+    no_cations = not any(np.isfinite(v).any() for v in (ca, mg, k, na, lab_cec))
+    if no_cations and len(samples):
+        # a file of pH (or Al) alone: it still gives surfaces for what it has
+        warnings.warn(
+            f"{file or 'samples'}: no exchangeable cations and no CEC in the file, so no ECEC, "
+            "saturations or ESP; rules that need them are skipped",
+            DataWarning,
+            stacklevel=2,
+        )
+    elif bad.any():
         _report_ecec_gaps(
             samples, bad, parts={"ca": ca, "mg": mg, "k": k, "na": na, "acidity": acidity_used},
             neutral_ph=s.neutral_ph, file=file, headers=headers,

@@ -52,7 +52,7 @@ from .samples import SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
 from .tonnage import tonnage_table
-from .zones import make_zones
+from .zones import ZONE_COLUMNS, make_zones
 
 __all__ = [
     "Prepared",
@@ -377,13 +377,13 @@ def compute(
             zones = (
                 pd.concat(zone_frames, ignore_index=True)
                 if zone_frames
-                else gpd.GeoDataFrame(geometry=[], crs=prep.crs)
+                else _no_zones(prep.crs)
             )
             all_zones.append(zones)
             results[name] = PaddockResult(name, grid, cells, cell_notes, rr, zones, zone_notes)
         zones_all = gpd.GeoDataFrame(
             pd.concat(all_zones, ignore_index=True), crs=prep.crs
-        ) if all_zones else gpd.GeoDataFrame(geometry=[], crs=prep.crs)
+        ) if all_zones else _no_zones(prep.crs)
         table = tonnage_table(
             zones_all,
             capacity_t=s.tonnage.truck_capacity_t,
@@ -391,6 +391,12 @@ def compute(
         )
     timings["rates, zones and tonnage"] = time.perf_counter() - t0
     return FarmResult(prep, surfaces, hit, results, zones_all, table, timings)
+
+
+def _no_zones(crs: Any) -> gpd.GeoDataFrame:
+    """An empty zones table with the zone columns (no product needed anywhere)."""
+    cols = [c for c in ZONE_COLUMNS if c != "geometry"]
+    return gpd.GeoDataFrame({c: [] for c in cols}, geometry=[], crs=crs)
 
 
 # --------------------------------------------------------------------------- stage 6

@@ -484,3 +484,27 @@ def test_hostile_paddock_name_gives_safe_file_names(hostile) -> None:
     assert HOSTILE_PADDOCK in {p["paddock"] for p in record["paddocks"]}
     samples = pd.read_csv(hostile.out / "samples.csv", dtype={"sample_id": str})
     assert {HOSTILE_IMG, HOSTILE_TEMPLATE} <= set(samples["sample_id"])
+
+
+# --------------------------------------------------------------------------- partial lab data
+
+
+def test_a_ph_only_file_gives_ph_surfaces_and_skips_the_rules(tmp_path) -> None:
+    """A lab file with pH alone still runs: pH surfaces, no ECEC, every rule skipped with a
+    note (issue: 'a samples file that carries only some variables still yields surfaces')."""
+    farm, _cache = copy_demo(tmp_path)
+    lab = pd.read_csv(farm / "lab_results.csv")
+    lab[["Sample ID", "Latitude", "Longitude", "pH (CaCl2)"]].to_csv(
+        farm / "lab_results.csv", index=False
+    )
+    project = load_project(farm)
+    result = run(project, out_dir=tmp_path / "out")
+    variables = {v for (_p, v) in result.farm.surfaces}
+    assert variables == {"ph"}
+    ph = rasterio.open(tmp_path / "out" / "surfaces" / "red-hill" / "ph.tif").read(1, masked=True)
+    assert 3 < ph.min() and ph.max() < 10
+    assert not any((tmp_path / "out" / "surfaces" / "red-hill").glob("ecec.tif"))
+    skipped = " ".join(result.record["rules"]["skipped"])
+    assert "gypsum" in skipped and "lime" in skipped
+    assert any("no exchangeable cations" in w for w in result.warnings)
+    assert float(result.tonnage.loc[result.tonnage["level"] == "farm", "tonnes"].sum()) == 0.0
