@@ -83,6 +83,7 @@ SHAPEFILE_FIELDS: dict[str, str] = {
     "per_pass_kg_ha": "PASS_KGHA",
     "area_ha": "AREA_HA",
     "n_cells": "N_CELLS",
+    "schedule": "SCHEDULE",
 }
 
 _SHP_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")
