@@ -45,9 +45,9 @@ class InputError(GeosoilError, ValueError):
 
     Examples
     --------
-    >>> str(InputError("value is not a number", file="lab.csv", row=7, column="Ca",
-    ...                fix="correct the cell or set [samples] on_bad_row = 'skip'"))
-    "lab.csv, row 7, column 'Ca': value is not a number. Fix: correct the cell or set [samples] on_bad_row = 'skip'"
+    >>> print(InputError("value is not a number", file="lab.csv", row=7, column="Ca",
+    ...                  fix="correct the cell"))
+    lab.csv, row 7, column 'Ca': value is not a number. Fix: correct the cell
     """
 
     def __init__(

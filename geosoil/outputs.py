@@ -17,8 +17,9 @@ Layout (stable; scripts rely on it)::
       prescriptions/<paddock>/<product>.geojson       RFC 7946 zones
       prescriptions/<paddock>/<product>_shp.zip       zipped ESRI shapefile of the zones
       prescriptions/<paddock>/<product>_zones.tif     zone rates as a raster
-      prescriptions/<paddock>/<product>_isoxml/TASKDATA/   ISO 11783-10 task data (rate grid, DDI 6);
-                                       <product>_isoxml_pass<k>/ when rates need several passes
+      prescriptions/<paddock>/<product>_isoxml/TASKDATA/
+                                       ISO 11783-10 task data (rate grid, DDI 6); one
+                                       <product>_isoxml_pass<k>/ per pass when rates need several
 
 Every file is written to a temporary name and renamed into place.
 """
@@ -49,7 +50,14 @@ from .pipeline import (
 )
 from .settings import to_mapping
 from .units import rate_from_kg_ha
-from .writers import atomic_write, write_cog, write_csv, write_geojson, write_json, write_shapefile_zip
+from .writers import (
+    atomic_write,
+    write_cog,
+    write_csv,
+    write_geojson,
+    write_json,
+    write_shapefile_zip,
+)
 
 __all__ = ["write_outputs", "SURFACE_UNITS"]
 
@@ -82,7 +90,6 @@ def write_outputs(
 ) -> tuple[list[Path], dict[str, Any]]:
     """Write every output of ``farm`` into ``out_dir`` (which exists and is ours)."""
     prep = farm.prep
-    s = prep.project.settings
     crs = prep.crs
     written: list[Path] = []
 
@@ -203,8 +210,11 @@ def _write_isoxml(
     prep = farm.prep
     boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
     label = prep.products[product].label if product in prep.products else product
-    passes = zones["passes"].fillna(1).astype(int) if "passes" in zones.columns else None
-    n_tasks = int(passes.max()) if passes is not None else 1
+    if "passes" in zones.columns:
+        passes = zones["passes"].fillna(1).astype(int)
+    else:
+        passes = pd.Series(1, index=zones.index)
+    n_tasks = int(passes.max())
     written: list[Path] = []
     for k in range(1, max(n_tasks, 1) + 1):
         zk = zones.copy()

@@ -45,9 +45,9 @@ from .crs import choose_working_crs
 from .errors import GeosoilError, GeosoilWarning
 from .grids import PaddockGrid, aligned_grids
 from .products import Product, resolve_products
-from .report import CAUTIONS
 from .project import Project
 from .rates import RateResult, check_inputs, compute_rates
+from .report import CAUTIONS
 from .samples import SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
@@ -152,7 +152,9 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         lonlat = paddocks.geometry.to_crs("EPSG:4326").total_bounds
         crs, reason = choose_working_crs(
             candidates=[c for c in (paddocks.crs, samples.crs) if c is not None],
-            lonlat_bounds=tuple(float(v) for v in lonlat),
+            lonlat_bounds=(
+                float(lonlat[0]), float(lonlat[1]), float(lonlat[2]), float(lonlat[3])
+            ),
         )
         paddocks = paddocks.to_crs(crs)
         exclusions = read_exclusions(s.boundaries, crs=crs)
@@ -267,7 +269,9 @@ def surfaces_for(
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_suffix(f".tmp{os.getpid()}")
             with open(tmp, "wb") as fh:
-                pickle.dump({"key": key, "surfaces": surfaces}, fh, protocol=pickle.HIGHEST_PROTOCOL)
+                pickle.dump(
+                    {"key": key, "surfaces": surfaces}, fh, protocol=pickle.HIGHEST_PROTOCOL
+                )
             os.replace(tmp, path)
         except OSError as exc:
             logger.info("could not write the surface cache %s (%s)", path, exc)

@@ -24,7 +24,7 @@ Examples
 >>> from_mapping(Soil, {"depth_mm": 0.2}, section="soil")
 Traceback (most recent call last):
 ...
-geosoil.errors.SettingsError: setting 'soil.depth_mm': unknown key; did you mean 'depth_m'? Valid keys: depth_m
+geosoil.errors.SettingsError: setting 'soil.depth_mm': unknown key; did you mean 'depth_m'? ...
 """
 
 from __future__ import annotations
@@ -147,7 +147,7 @@ def _convert(value: Any, tp: Any, key: str, meta: Mapping[str, Any], base_dir: P
             return None
         raise SettingsError("a value is required", key=key)
     origin = typing.get_origin(tp)
-    if dataclasses.is_dataclass(tp):
+    if isinstance(tp, type) and dataclasses.is_dataclass(tp):
         if not isinstance(value, Mapping):
             raise SettingsError(f"must be a table of settings (got {value!r})", key=key)
         return from_mapping(tp, value, section=key, base_dir=base_dir)
@@ -155,7 +155,9 @@ def _convert(value: Any, tp: Any, key: str, meta: Mapping[str, Any], base_dir: P
         ktp, vtp = typing.get_args(tp)
         if not isinstance(value, Mapping):
             raise SettingsError(f"must be a table (got {value!r})", key=key)
-        return {str(k): _convert(v, vtp, _join(key, str(k)), {}, base_dir) for k, v in value.items()}
+        return {
+            str(k): _convert(v, vtp, _join(key, str(k)), {}, base_dir) for k, v in value.items()
+        }
     if origin is tuple:
         (etp, _ellipsis) = typing.get_args(tp)
         if isinstance(value, str) or not isinstance(value, (list, tuple)):
@@ -245,7 +247,9 @@ def from_mapping(
         if not f.init:
             continue
         if name in data:
-            kwargs[name] = _convert(data[name], hints[name], _join(section, name), f.metadata, base_dir)
+            kwargs[name] = _convert(
+                data[name], hints[name], _join(section, name), f.metadata, base_dir
+            )
         elif f.default is _MISSING and f.default_factory is _MISSING:
             raise SettingsError("this key is required", key=_join(section, name))
     try:

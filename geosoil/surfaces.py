@@ -353,14 +353,14 @@ def _krige(
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     x, y = grid.cell_centres()
     target = np.column_stack([x, y])
-    kw = {"neighbours": neighbours or None}
+    near = neighbours or None
     if log:
         est_l, var_l, lagr = ordinary_kriging(
-            xy, np.log(z), target, model, return_lagrange=True, **kw
+            xy, np.log(z), target, model, neighbours=near, return_lagrange=True
         )
         est, var = lognormal_backtransform(est_l, var_l, lagr)
     else:
-        est, var = ordinary_kriging(xy, z, target, model, **kw)
+        est, var = ordinary_kriging(xy, z, target, model, neighbours=near)
     return grid.to_array(est), grid.to_array(np.sqrt(np.maximum(var, 0.0)))
 
 

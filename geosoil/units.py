@@ -193,9 +193,8 @@ def mg_kg_to_kg_ha(
     mg_kg: ArrayLike, *, depth_m: ArrayLike, bulk_density_g_cm3: ArrayLike
 ) -> ArrayLike:
     """kg/ha of a substance present at ``mg_kg`` in a layer of soil."""
-    return np.asarray(mg_kg) * 1e-6 * kg_per_ha_of_layer(
-        depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3
-    )
+    layer = np.asarray(kg_per_ha_of_layer(depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3))
+    return np.asarray(mg_kg) * 1e-6 * layer
 
 
 def cmol_kg_to_kg_ha(

@@ -1014,7 +1014,7 @@ def build_map(
     # No CDN: Leaflet is inlined below; jQuery, Bootstrap and the icon fonts are not used.
     fmap.default_js = []
     fmap.default_css = []
-    figure = fmap.get_root()
+    figure: Any = fmap.get_root()  # a branca Figure (header, html, title)
     figure.title = escape_text(title)
     js, css = _leaflet_assets()
     figure.header.add_child(Element(f"<style>{css}</style>"), name="leaflet_css_inline")
