@@ -208,7 +208,7 @@ def _surface_key(prep: Prepared) -> str:
     h = hashlib.sha256()
     # bump "surfaces vN" whenever geosoil.surfaces changes what it computes (v2: amounts
     # kept >= 0, log-scale farm variograms, IDW fallback), so old cached surfaces are not reused
-    h.update(f"geosoil {__version__} surfaces v2\n".encode())
+    h.update(f"geosoil {__version__} surfaces v3\n".encode())
     cols = ["paddock", *prep.variables]
     table = prep.samples[cols].copy()
     table["x"] = prep.samples.geometry.x.round(6)

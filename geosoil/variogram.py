@@ -481,9 +481,12 @@ def empirical(
 
 
 def _model(name: str, params: NDArray[np.float64], nu: float | None) -> VariogramModel:
-    return VariogramModel(
-        name=name, nugget=float(params[0]), psill=float(params[1]), range=float(params[2]), nu=nu
-    )
+    nugget, psill = float(params[0]), float(params[1])
+    # the optimiser stops a hair above its lower bound: a nugget below 1e-9 of the sill
+    # is that bound, not a measurement, so it is reported (and used) as 0
+    if nugget < 1e-9 * (nugget + psill):
+        nugget = 0.0
+    return VariogramModel(name=name, nugget=nugget, psill=psill, range=float(params[2]), nu=nu)
 
 
 def fit(
