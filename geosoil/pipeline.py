@@ -38,6 +38,10 @@ import pandas as pd
 import shapely
 
 from . import __version__
+from . import grids as grids_mod
+from . import kriging as kriging_mod
+from . import surfaces as surfaces_mod
+from . import variogram as variogram_mod
 from .boundaries import read_exclusions, read_paddocks, read_user_zones
 from .chemistry import derive
 from .covariates import bulk_density_on_grid
@@ -206,9 +210,10 @@ def _derivable(variables: list[str]) -> set[str]:
 def _surface_key(prep: Prepared) -> str:
     s = prep.project.settings
     h = hashlib.sha256()
-    # bump "surfaces vN" whenever geosoil.surfaces changes what it computes (v2: amounts
-    # kept >= 0, log-scale farm variograms, IDW fallback), so old cached surfaces are not reused
-    h.update(f"geosoil {__version__} surfaces v3\n".encode())
+    # the code that makes surfaces is part of the key: a changed engine never reuses old results
+    h.update(f"geosoil {__version__} surfaces\n".encode())
+    for module in (surfaces_mod, kriging_mod, variogram_mod, grids_mod):
+        h.update(Path(module.__file__ or "").read_bytes())
     cols = ["paddock", *prep.variables]
     table = prep.samples[cols].copy()
     table["x"] = prep.samples.geometry.x.round(6)
