@@ -633,6 +633,17 @@ def zone_map_svg(
         f'<line x1="0" y1="0" x2="0" y2="6" stroke="#666" stroke-width="2"/></pattern></defs>',
     ]
     labels = []
+    placed: list[tuple[float, float, float, float]] = []  # label boxes drawn so far (px)
+
+    def free_box(x: float, y: float, text: str) -> tuple[float, float, float, float] | None:
+        """The label's box if it overlaps none drawn so far (about 6.5 px a character)."""
+        half_w, half_h = 3.3 * len(text) + 2, 8.0
+        bx = (x - half_w, y - half_h, x + half_w, y + half_h)
+        for ox in placed:
+            if bx[0] < ox[2] and ox[0] < bx[2] and bx[1] < ox[3] and ox[1] < bx[3]:
+                return None
+        return bx
+
     for _, z in zones.iterrows():
         d = _geom_path(z.geometry, fx, fy)
         if not d:
@@ -663,6 +674,14 @@ def zone_map_svg(
                 if excluded or not fill.startswith("#") or _luminance(fill) > 0.35
                 else "#fff"
             )
+            x_px, y_px = fx(anchor.x), fy(anchor.y)
+            box_px = free_box(x_px, y_px, text)
+            if box_px is None and text != zone_txt:  # try the zone number alone
+                text = zone_txt
+                box_px = free_box(x_px, y_px, text)
+            if box_px is None:  # no room: the table under the map lists every zone
+                continue
+            placed.append(box_px)
             labels.append(
                 f'<text class="zone-label" fill="{ink}" '
                 f'x="{fx(anchor.x):.1f}" y="{fy(anchor.y):.1f}" '

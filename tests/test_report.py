@@ -603,3 +603,33 @@ def test_browser_report_prints_with_page_breaks(report_page) -> None:
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf))
     assert pages >= 2 + 2  # front matter, one or more per paddock, the rest
     assert report_page.console_errors == []
+
+
+def test_zone_labels_never_overlap_on_concentric_ring_zones() -> None:
+    """Rings around a patch (the usual shape of rate classes) put every label pole near the
+    same centre; labels that would overlap are dropped (the table lists every zone)."""
+    centre = Point(500, 500)
+    radii = [60, 120, 180, 240]
+    geoms, rates = [], []
+    inner = None
+    for i, r in enumerate(radii):
+        disc = centre.buffer(r)
+        geoms.append(disc if inner is None else disc.difference(inner))
+        rates.append(1000.0 * (len(radii) - i))
+        inner = disc
+    geoms.append(box(0, 0, 1000, 1000).difference(inner))
+    rates.append(0.0)
+    zones = gpd.GeoDataFrame(
+        {"paddock": "P", "product": "gypsum", "zone": range(1, len(geoms) + 1), "kind": "rate",
+         "rate_kg_ha": rates, "area_ha": [g.area / 1e4 for g in geoms]},
+        geometry=geoms, crs="EPSG:32755",
+    )
+    svg = report.zone_map_svg(zones, width=300, max_height=300)
+    label = r'<text class="zone-label"[^>]*x="([\d.]+)" y="([\d.]+)"[^>]*>([^<]*)</text>'
+    found = re.findall(label, svg)
+    assert found, "at least one zone is labelled"
+    boxes = [(float(x) - 3.3 * len(t), float(y) - 7, float(x) + 3.3 * len(t), float(y) + 7)
+             for x, y, t in found]
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1:]:
+            assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (a, b)
