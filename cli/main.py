@@ -20,7 +20,7 @@ __all__ = ["main", "cli"]
 def cli(ctx: click.Context, verbose: int, quiet: bool) -> None:
     """Gypsum and lime prescriptions from soil samples.
 
-    Reads lab results and paddock boundaries, checks them, krige surfaces,
+    Reads lab results and paddock boundaries, checks them, kriges surfaces,
     computes per-cell rates by published methods, and writes spreader zones,
     tonnage, an offline map and a report. Rates are advisory: have them
     checked by a qualified agronomist and follow local regulations.
