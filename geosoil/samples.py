@@ -10,7 +10,12 @@ Exchangeable amounts are converted to cmol(+)/kg with
 
 Rows are numbered as a person numbers them in the file: in CSV and Excel the
 header is row 1 and the first data row is row 2 (Excel: the sheet's own row
-numbers); in vector files the feature number from 1. Every problem with a row
+numbers); in vector files the feature number from 1. Labs often put a title,
+the client or a date above the header: in CSV and Excel the header is the row
+among the first :data:`HEADER_SEARCH_ROWS` that names the most analytes, sample
+ID and coordinate columns, and the rows above it are passed over. A row of units
+right under the header (``meq/100g``, ``mg/kg``, ...: no numbers, at least one
+cation unit) gives the unit of each column whose header names none. Every problem with a row
 raises :class:`~geosoil.errors.InputError` naming the file, row, column and the
 fix; with ``on_bad_row = "skip"`` the row is passed over instead, listed in
 :attr:`SampleRead.skipped` and in a :class:`~geosoil.errors.DataWarning`.
@@ -37,12 +42,12 @@ Examples
 
 from __future__ import annotations
 
+import csv
 import dataclasses
 import difflib
 import io
 import logging
 import math
-import re
 import warnings
 import zipfile
 from collections.abc import Iterable, Mapping, Sequence
@@ -73,6 +78,7 @@ __all__ = [
     "PLAUSIBLE_MAX_CMOL",
     "PLAUSIBLE_PH",
     "PLAUSIBLE_MAX_SAR",
+    "HEADER_SEARCH_ROWS",
     "read_samples",
     "prepare_samples",
 ]
@@ -95,6 +101,8 @@ PLAUSIBLE_MAX_CMOL: dict[str, float] = {
 PLAUSIBLE_PH: tuple[float, float] = (1.5, 12.5)
 #: Largest plausible SAR (common practice).
 PLAUSIBLE_MAX_SAR: float = 300.0
+#: Non-empty rows at the top of a CSV file or sheet searched for the header row.
+HEADER_SEARCH_ROWS: int = 30
 
 _TABLE_SUFFIXES = (".csv", ".txt", ".tsv")
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm")
@@ -247,7 +255,11 @@ class _Issue(NamedTuple):
 
 
 class _Raw(NamedTuple):
-    """A file as read: cells as the file gave them, row numbers, points if any."""
+    """A file as read: cells as the file gave them, row numbers, points if any.
+
+    ``unit_cells`` holds, per header, the cell of the units row under the header
+    (only cells that name a cation unit or a percentage); ``units_row`` is its row.
+    """
 
     table: pd.DataFrame
     rows: np.ndarray
@@ -255,6 +267,8 @@ class _Raw(NamedTuple):
     geometry: gpd.GeoSeries | None
     crs: pyproj.CRS | None
     decimal_comma: bool
+    unit_cells: dict[str, str] = {}
+    units_row: int | None = None
 
 
 # --------------------------------------------------------------------------- reading
@@ -274,20 +288,79 @@ def _missing(value: Any) -> bool:
     return not isinstance(value, str) and bool(pd.isna(value))
 
 
+def _header_text(cell: Any) -> str:
+    """A header cell as text ('' when empty; 2.0 -> '2')."""
+    if _missing(cell):
+        return ""
+    if isinstance(cell, float) and cell.is_integer():
+        return str(int(cell))
+    return str(cell).replace("\ufeff", "").strip()
+
+
+def _find_header(table: pd.DataFrame, settings: SampleSettings) -> int:
+    """0-based position of the header row in a table read without a header.
+
+    Among the first :data:`HEADER_SEARCH_ROWS` non-empty rows, the first that names
+    the most analytes, sample ID and coordinate columns (or headers named in the
+    settings); the first non-empty row when none names any (its headers are then
+    reported as not recognised).
+    """
+    named = {h for h in (*settings.columns.values(), settings.id_column, settings.x_column,
+                         settings.y_column) if h}
+    best, best_score, seen = -1, 0, 0
+    for i in range(len(table)):
+        texts = [t for t in (_header_text(c) for c in table.iloc[i].tolist()) if t]
+        if not texts:
+            continue
+        if best < 0:
+            best = i
+        if len(texts) >= 2:
+            guess = detect_columns(texts)
+            score = (len(guess.analytes) + len(guess.ambiguous) + (guess.id is not None)
+                     + 2 * (guess.x is not None) + sum(t in named for t in texts))
+            if score > best_score:
+                best, best_score = i, score
+        seen += 1
+        if seen >= HEADER_SEARCH_ROWS:
+            break
+    return max(best, 0)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        return math.isfinite(float(text.replace(",", ".").lstrip("<").strip()))
+    except ValueError:
+        return False
+
+
+def _unit_cell(text: str) -> str | None:
+    """The units-row cell ``text`` when it names a cation unit or a percentage, else None."""
+    inner = text.strip().strip("()[]{}").strip()
+    if not inner:
+        return None
+    if "%" in inner:
+        return inner
+    try:
+        normalise_unit(inner)
+    except SettingsError:
+        return None
+    return inner
+
+
 def _body(
     table: pd.DataFrame, first: int, *, file: str, excel: bool
-) -> tuple[pd.DataFrame, np.ndarray]:
+) -> tuple[pd.DataFrame, np.ndarray, dict[str, str], int | None]:
     """Rows after the header row ``first`` (0-based), named by it, with their 0-based positions.
 
     Wholly empty rows are dropped (their numbers are kept by the positions), and so are
-    columns with neither a header nor any value (trailing separators).
+    columns with neither a header nor any value (trailing separators). A units row right
+    under the header (no numbers, at least one cation unit) is taken out of the rows:
+    its cells that name a unit are returned by header, with the row's 0-based position.
     """
     cells = table.iloc[first].tolist()
     names = []
     for i, cell in enumerate(cells):
-        text = "" if _missing(cell) else str(cell).replace("\ufeff", "").strip()
-        if isinstance(cell, float) and cell.is_integer():
-            text = str(int(cell))
+        text = _header_text(cell)
         names.append(text or f"column {_excel_column(i) if excel else i + 1}")
     body = table.iloc[first + 1 :].copy()
     body.columns = range(len(names))
@@ -299,7 +372,19 @@ def _body(
     keep_rows = filled.any(axis=1).to_numpy()
     body = body.loc[keep_rows, keep_columns]
     body.columns = names
-    return body.reset_index(drop=True), np.flatnonzero(keep_rows) + first + 1
+    body = body.reset_index(drop=True)
+    positions = np.flatnonzero(keep_rows) + first + 1
+    unit_cells: dict[str, str] = {}
+    units_row = None
+    if len(body):
+        texts = {n: _header_text(v) for n, v in zip(names, body.iloc[0].tolist(), strict=True)}
+        given = [t for t in texts.values() if t]
+        found = {n: u for n, t in texts.items() if t and (u := _unit_cell(t)) is not None}
+        if (given and not any(_is_number(t) for t in given)
+                and any("%" not in u for u in found.values())):
+            unit_cells, units_row = found, int(positions[0])
+            body, positions = body.iloc[1:].reset_index(drop=True), positions[1:]
+    return body, positions, unit_cells, units_row
 
 
 def _check_unique(
@@ -317,7 +402,28 @@ def _check_unique(
         seen[name] = i
 
 
-def _read_csv(path: Path, name: str) -> _Raw:
+def _separator(text: str) -> str:
+    """The field separator (',', ';' or tab) of CSV ``text``.
+
+    The one that splits the most of the first non-blank lines into the same number
+    (more than one) of fields: title lines above the header and decimal commas in
+    a ';'-separated file do not mislead it. ',' when none splits any line.
+    """
+    lines = [line for line in text.splitlines() if line.strip()][: HEADER_SEARCH_ROWS]
+    best, best_key = ",", (0, 0)
+    for sep in (",", ";", "\t"):
+        counts = [len(r) for r in csv.reader(lines, delimiter=sep)]
+        split = [c for c in counts if c > 1]
+        if not split:
+            continue
+        mode = max(set(split), key=lambda c: (split.count(c), c))
+        key = (split.count(mode), mode)
+        if key > best_key:
+            best, best_key = sep, key
+    return best
+
+
+def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
     data = path.read_bytes()
     try:
         text = data.decode("utf-8-sig")
@@ -329,33 +435,36 @@ def _read_csv(path: Path, name: str) -> _Raw:
         ) from None
     if not text.strip():
         raise InputError("the file is empty", file=name, fix="export the lab results again")
-    first = re.sub(r'"[^"]*"', "", text.splitlines()[0])
-    sep = max((",", ";", "\t"), key=first.count)
-    if first.count(sep) == 0:
-        sep = ","
+    sep = _separator(text)
     try:
-        table = pd.read_csv(
-            io.StringIO(text), sep=sep, header=None, dtype=str, keep_default_na=False,
-            skip_blank_lines=False,
-        )
-    except pd.errors.ParserError as exc:
-        m = re.search(r"line (\d+), saw (\d+)", str(exc))
-        expected = re.search(r"Expected (\d+) fields", str(exc))
+        records = list(csv.reader(io.StringIO(text, newline=""), delimiter=sep))
+    except csv.Error as exc:
         raise InputError(
-            (f"the row has {m.group(2)} fields where row 1 has {expected.group(1)}"
-             if m and expected else f"the file cannot be read as CSV ({exc})"),
-            file=name, row=int(m.group(1)) if m else None,
-            fix=f"check the separator ('{sep}' was used) and the quotes on that row",
+            f"the file cannot be read as CSV ({exc})", file=name,
+            fix=f"check the separator ('{sep}' was used) and the quotes",
         ) from None
-    body, positions = _body(table, 0, file=name, excel=False)
+    width = max((len(r) for r in records), default=0)
+    table = pd.DataFrame([r + [""] * (width - len(r)) for r in records], dtype=object)
+    first = _find_header(table, settings)
+    # A row with values beyond the header's last field has too many fields.
+    for n, record in enumerate(records[first + 1 :], start=first + 2):
+        if any(c.strip() for c in record[len(records[first]) :]):
+            raise InputError(
+                f"the row has {len(record)} fields where the header (row {first + 1}) has "
+                f"{len(records[first])}", file=name, row=n,
+                fix=f"check the separator ('{sep}' was used) and the quotes on that row",
+            )
+    body, positions, unit_cells, units_row = _body(table, first, file=name, excel=False)
     decimal_comma = False
     if sep != ",":
         cells = pd.Series(body.to_numpy().ravel()).astype(str).str.strip()
         decimal_comma = bool(cells.str.fullmatch(r"[+-]?\d*,\d+").any())
-    return _Raw(body, positions + 1, 1, None, None, decimal_comma)
+    return _Raw(body, positions + 1, first + 1, None, None, decimal_comma, unit_cells,
+                None if units_row is None else units_row + 1)
 
 
-def _read_excel(path: Path, name: str, sheet: str | None) -> _Raw:
+def _read_excel(path: Path, name: str, settings: SampleSettings) -> _Raw:
+    sheet = settings.sheet_or_layer
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except (zipfile.BadZipFile, OSError, ValueError, KeyError) as exc:
@@ -374,9 +483,10 @@ def _read_excel(path: Path, name: str, sheet: str | None) -> _Raw:
     filled = table.notna().any(axis=1).to_numpy()
     if not filled.any():
         raise InputError("the sheet is empty", file=name, fix="set [samples] sheet_or_layer")
-    first = int(np.flatnonzero(filled)[0])
-    body, positions = _body(table, first, file=name, excel=True)
-    return _Raw(body, positions + 1, first + 1, None, None, False)
+    first = _find_header(table, settings)
+    body, positions, unit_cells, units_row = _body(table, first, file=name, excel=True)
+    return _Raw(body, positions + 1, first + 1, None, None, False, unit_cells,
+                None if units_row is None else units_row + 1)
 
 
 def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
@@ -421,9 +531,9 @@ def _read_raw(settings: SampleSettings, name: str) -> _Raw:
                          fix="name the file in [samples] file")
     suffix = path.suffix.lower()
     if suffix in _TABLE_SUFFIXES:
-        return _read_csv(path, name)
+        return _read_csv(path, name, settings)
     if suffix in _EXCEL_SUFFIXES:
-        return _read_excel(path, name, settings.sheet_or_layer)
+        return _read_excel(path, name, settings)
     if suffix in _VECTOR_SUFFIXES:
         return _read_vector(path, name, settings.sheet_or_layer)
     if suffix == ".xls":
@@ -488,9 +598,29 @@ def _nearest(header: str, headers: Sequence[str]) -> str:
 
 def _map_columns(
     headers: list[str], settings: SampleSettings, name: str, header_row: int | None,
-    *, need_xy: bool,
+    *, need_xy: bool, described: Mapping[str, str] | None = None,
 ) -> tuple[dict[str, str], str, tuple[str, str] | None, bool | None, dict[str, str | None]]:
-    guess = detect_columns(headers)
+    """Analyte -> header, ID header, coordinate headers, lon/lat or not, methods.
+
+    ``described`` gives a header with the unit from the units row under it
+    ("Exch Ca" -> "Exch Ca (meq/100g)"): detection reads that; the header is returned.
+    """
+    described = described or {}
+    back = {described.get(h, h): h for h in headers}
+
+    def orig(text: str | None) -> str | None:
+        return None if text is None else back.get(text, text)
+
+    def info(header: str) -> Any:
+        return parse_header(described.get(header, header))
+
+    raw_guess = detect_columns([described.get(h, h) for h in headers])
+    guess = dataclasses.replace(
+        raw_guess,
+        analytes={a: back.get(h, h) for a, h in raw_guess.analytes.items()},
+        ambiguous={a: tuple(back.get(h, h) for h in t) for a, t in raw_guess.ambiguous.items()},
+        id=orig(raw_guess.id), x=orig(raw_guess.x), y=orig(raw_guess.y),
+    )
 
     def present(header: str, key: str) -> str:
         if header not in headers:
@@ -504,7 +634,7 @@ def _map_columns(
     for analyte, header in settings.columns.items():
         columns[analyte] = present(header, f"columns.{analyte}")
     taken = set(columns.values())
-    methods: dict[str, str | None] = {a: parse_header(h).method for a, h in columns.items()}
+    methods: dict[str, str | None] = {a: info(h).method for a, h in columns.items()}
     for analyte in CANONICAL:
         if analyte in columns:
             continue
@@ -518,7 +648,7 @@ def _map_columns(
         found = tied[0] if tied else guess.analytes.get(analyte)
         if found is not None and found not in taken:
             columns[analyte] = found
-            methods[analyte] = parse_header(found).method if tied else guess.methods[analyte]
+            methods[analyte] = info(found).method if tied else guess.methods[analyte]
             taken.add(found)
     if not columns:
         hint = "; ".join(f"'{h}': {why}" for h, why in guess.notes.items())
@@ -546,7 +676,7 @@ def _map_columns(
                 fix="set [samples] x_column and y_column (and crs when they are projected). "
                 + _nearest("", headers),
             )
-        roles = (parse_header(x).role, parse_header(y).role)
+        roles = (info(x).role, info(y).role)
         geographic = True if roles == ("lon", "lat") else (
             False if roles == ("east", "north") else None)
         xy = (x, y)
@@ -554,21 +684,33 @@ def _map_columns(
 
 
 def _units(
-    columns: Mapping[str, str], settings: SampleSettings, name: str, header_row: int | None
+    columns: Mapping[str, str], settings: SampleSettings, name: str, header_row: int | None,
+    *, unit_cells: Mapping[str, str] | None = None, units_row: int | None = None,
 ) -> dict[str, str | None]:
     units: dict[str, str | None] = {}
     for analyte, header in columns.items():
         if analyte in UNITLESS:
             units[analyte] = None
             continue
+        said = parse_header(header).unit
+        cell = (unit_cells or {}).get(header)
+        below = None
+        if cell is not None and "%" not in cell:
+            below = normalise_unit(cell)
         if analyte in settings.units:
             unit = normalise_unit(settings.units[analyte])
-            said = parse_header(header).unit
-            if said is not None and said != unit:
+            if (said or below) not in (None, unit):
                 logger.info("%s: [samples.units] %s = %s overrides '%s'", name, analyte, unit,
                             header)
+        elif said is not None and below is not None and said != below:
+            raise InputError(
+                f"the header says {said} but the units row says '{cell}'", file=name,
+                row=units_row, column=header,
+                fix=f"correct one of them, or state the unit: [samples.units] {analyte} = "
+                f"'...' ({', '.join(CATION_UNITS)})",
+            )
         else:
-            unit = parse_header(header).unit or normalise_unit(settings.default_unit)
+            unit = said or below or normalise_unit(settings.default_unit)
         if unit == "mg/kg" and analyte in ("acidity", "cec"):
             raise InputError(
                 f"{analyte} has no mg/kg form (default_unit is {settings.default_unit})",
@@ -805,10 +947,14 @@ def read_samples(settings: SampleSettings) -> SampleRead:
         raise InputError("the file has no data rows", file=name,
                          fix="export the lab results again, with one row per sample")
     headers = list(table.columns)
+    described = {h: f"{h} ({raw.unit_cells[h]})" for h in headers
+                 if h in raw.unit_cells and parse_header(h).unit is None}
     columns, id_header, xy, geographic, methods = _map_columns(
-        headers, settings, name, raw.header_row, need_xy=raw.geometry is None
+        headers, settings, name, raw.header_row, need_xy=raw.geometry is None,
+        described=described,
     )
-    units = _units(columns, settings, name, raw.header_row)
+    units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
+                   units_row=raw.units_row)
     issues: list[_Issue] = []
 
     ids = [_id_text(v) for v in table[id_header].tolist()]

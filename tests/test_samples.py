@@ -225,6 +225,109 @@ def test_excel_good_workbook_and_numeric_ids(tmp_path):
     assert got.samples.ca.tolist() == [5.5, 6.0]
 
 
+def _lab_workbook(path: Path, *, titles: list[list], header: list, units: list | None,
+                  rows: list[list]) -> Path:
+    book = openpyxl.Workbook()
+    sheet = book.active
+    for line in titles:
+        sheet.append(line)
+    sheet.append(header)
+    if units is not None:
+        sheet.append(units)
+    for r in rows:
+        sheet.append(r)
+    book.save(path)
+    return path
+
+
+def test_excel_title_rows_above_the_header_are_passed_over(tmp_path):
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx",
+        titles=[["Soil analysis report 2027-114"], ["Client: Home farm", None, "Received 3/3"]],
+        header=["Sample ID", "Lon", "Lat", "Exch Ca (meq/100g)", "Mg", "K", "Na"],
+        units=None,
+        rows=[["S1", 147.001, -35.001, 5.5, 2, 0.5, 0.3], ["S2", 147.002, -35.002, "x", 2, 0.5,
+                                                            0.3]],
+    )
+    err = error_of(path)
+    assert_names(err, file=path, row=5, column="Exch Ca (meq/100g)")  # the sheet's own rows
+    with pytest.warns(DataWarning):
+        got = read(path, on_bad_row="skip")
+    assert got.samples.sample_id.tolist() == ["S1"] and got.samples.source_row.tolist() == [4]
+    assert got.skipped[0][0] == 5
+
+
+def test_excel_units_row_under_the_header_gives_the_units(tmp_path):
+    # 1 cmol(+)/kg of Ca = 200.39 mg/kg; of K = 390.98 mg/kg (REFERENCES.md [derived]);
+    # 1 meq/100 g = 1 cmol(+)/kg; 10 mmol(+)/kg = 1 cmol(+)/kg [derived].
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx",
+        titles=[["Soil analysis report"], []],
+        header=["Sample ID", "Longitude", "Latitude", "pH (CaCl2)", "Exch Ca", "Exch Mg",
+                "Exch K", "Exch Na", "EC", "Comments"],
+        units=["", "deg", "deg", "pH units", "mg/kg", "meq/100g", "mg/kg", "mmol(+)/kg", "dS/m",
+               ""],
+        rows=[["S1", 147.001, -35.001, 5.1, 1001.95, 2.0, 195.49, 8.0, 0.1, "ok"],
+              ["S2", 147.002, -35.002, 5.3, 801.56, 2.5, 390.98, 4.0, 0.2, None]],
+    )
+    got = read(path)
+    s = got.samples
+    assert s.source_row.tolist() == [5, 6]  # title rows 1-2, header 3, units 4
+    assert s.ca.tolist() == pytest.approx([5.0, 4.0], rel=1e-4)
+    assert s.mg.tolist() == [2.0, 2.5]
+    assert s.k.tolist() == pytest.approx([0.5, 1.0], rel=1e-4)
+    assert s.na.tolist() == pytest.approx([0.8, 0.4])
+    assert got.units == {"ca": "mg/kg", "mg": "meq/100g", "k": "mg/kg", "na": "mmol/kg",
+                         "ph": None}
+    assert got.columns["ca"] == "Exch Ca" and got.methods["ph"] == "CaCl2"
+
+
+def test_units_row_that_contradicts_the_header_is_an_error(tmp_path):
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx", titles=[],
+        header=["Sample", "Lon", "Lat", "Ca (mg/kg)", "Mg", "K", "Na"],
+        units=[None, None, None, "meq/100g", "meq/100g", "meq/100g", "meq/100g"],
+        rows=[["S1", 147.001, -35.001, 5.5, 2, 0.5, 0.3]],
+    )
+    err = error_of(path)
+    assert_names(err, file=path, row=2, column="Ca (mg/kg)")
+    assert "units row" in str(err) and "[samples.units]" in err.fix
+    # The setting decides when the user says which is right.
+    assert read(path, units={"ca": "meq/100g"}).samples.ca.tolist() == [5.5]
+
+
+def test_units_row_percent_marks_a_saturation_not_an_amount(tmp_path):
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx", titles=[],
+        header=["Sample", "Lon", "Lat", "Ca", "Ca sat", "Mg", "K", "Na"],
+        units=[None, None, None, "meq/100g", "%", "meq/100g", "meq/100g", "meq/100g"],
+        rows=[["S1", 147.001, -35.001, 5.5, 60.0, 2, 0.5, 0.3]],
+    )
+    got = read(path)
+    assert got.columns["ca"] == "Ca" and got.samples.ca.tolist() == [5.5]
+    assert got.samples["Ca sat"].tolist() == [60.0]  # kept as the lab's own column
+
+
+def test_csv_title_lines_units_row_semicolons_decimal_commas_and_bom(tmp_path):
+    text = "\ufeff" + "\n".join([
+        "Soil analysis report, batch 114",  # a comma in a title of a ';' file
+        "",
+        "Sample ID;Longitude;Latitude;Exch Ca;Exch Mg;Exch K;Exch Na;pH (water)",
+        ";;;cmol(+)/kg;cmol(+)/kg;mg/kg;cmol(+)/kg;",
+        "A1;147,001;-35,001;6,0;2,0;195,49;0,4;5,9",
+        "A2;147,002;-35,002;5,5;2,5;390,98;0,6;x",
+    ]) + "\n"
+    path = write(tmp_path, text)
+    err = error_of(path)
+    assert_names(err, file=path, row=6, column="pH (water)")  # lines as numbered in the file
+    with pytest.warns(DataWarning):
+        got = read(path, on_bad_row="skip")
+    assert got.samples.source_row.tolist() == [5]
+    assert got.samples.ca.tolist() == [6.0]
+    assert got.samples.k.tolist() == pytest.approx([0.5], rel=1e-4)  # 390.98 mg/kg per cmol
+    assert got.samples.geometry.iloc[0].x == pytest.approx(147.001)
+
+
 def test_excel_missing_sheet(tmp_path):
     path = tmp_path / "lab.xlsx"
     pd.DataFrame({"ID": [1]}).to_excel(path, index=False, sheet_name="Data")
