@@ -39,7 +39,7 @@ import rasterio.features
 from . import report as report_mod
 from . import webmap
 from .grids import mosaic
-from .isoxml import write_taskdata
+from .isoxml import MAX_DESIGNATOR, write_taskdata
 from .pipeline import (
     CAUTIONS,
     FarmResult,
@@ -202,7 +202,11 @@ def _write_isoxml(
 
     A controller applies one rate per cell per task, so a zone whose rate
     needs several passes (spreader max per pass) is written as pass 1, pass 2...
-    tasks, each holding the per-pass rate of the zones that still need it.
+    tasks, each holding the per-pass rate of the zones that still need it (and
+    0 elsewhere). Each task is one pass, so it carries no "needs several passes"
+    warning; its product name starts with the pass ("pass 2/3 ...", or "season
+    2/3 ..." when rates are split into seasons) so that the terminal tells them
+    apart even when the name is cut to the standard's 32 characters.
     Nothing is written when no zone gets product.
     """
     if not (zones["rate_kg_ha"] > 0).any():
@@ -221,8 +225,12 @@ def _write_isoxml(
         if n_tasks > 1:
             per_pass = zones["per_pass_kg_ha"].fillna(zones["rate_kg_ha"])
             zk["rate_kg_ha"] = np.where(passes >= k, per_pass, 0.0)
+            zk["passes"] = 1  # this task is one pass of each zone
+            zk["per_pass_kg_ha"] = zk["rate_kg_ha"]
             sub = folder / f"{slug(product)}_isoxml_pass{k}"
-            task_label = f"{label} pass {k} of {n_tasks}"
+            word = "season" if prep.project.settings.spreader.split_into == "seasons" else "pass"
+            prefix = f"{word} {k}/{n_tasks} "
+            task_label = prefix + str(label)[: MAX_DESIGNATOR - len(prefix)].rstrip()
         else:
             sub = folder / f"{slug(product)}_isoxml"
             task_label = label
