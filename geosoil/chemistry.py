@@ -261,6 +261,8 @@ def derive(
         ``ca_mg_ratio`` (charge basis; NaN where Mg is 0), ``sodicity``
         (see :func:`sodicity_class`), ``acid_flag`` (bool) and ``acid_reason``
         (text, "" when not flagged). A NaN pH or acid saturation does not set the flag.
+        ``attrs["ecec_gaps"]`` lists the (row, problem) of the samples whose ECEC was
+        left empty (``on_bad_row="skip"``), so a caller can report them as problems.
 
     Raises
     ------
@@ -310,14 +312,16 @@ def derive(
             DataWarning,
             stacklevel=2,
         )
-    elif bad.any():
-        _report_ecec_gaps(
+    gaps: list[tuple[int | None, str]] = []
+    if not no_cations and bad.any():
+        gaps = _report_ecec_gaps(
             samples, bad, parts={"ca": ca, "mg": mg, "k": k, "na": na, "acidity": acidity_used},
             neutral_ph=s.neutral_ph, file=file, headers=headers,
             on_bad_row=on_bad_row,
         )
 
     out = samples.copy()
+    out.attrs["ecec_gaps"] = gaps
     out["ecec"] = ecec
     out["ecec_basis"] = np.select([use_sum, use_lab], ["sum of cations", "lab CEC"], "none")
     for name, part in (("ca", ca), ("mg", mg), ("k", k), ("na", na)):
@@ -374,8 +378,11 @@ def _report_ecec_gaps(
     file: str | os.PathLike[str] | None,
     headers: Mapping[str, str],
     on_bad_row: str,
-) -> None:
-    """Raise (or warn, for "skip") naming the samples whose ECEC cannot be formed."""
+) -> list[tuple[int | None, str]]:
+    """Raise (or warn, for "skip") naming the samples whose ECEC cannot be formed.
+
+    Returns the (row, problem) of each such sample when they are skipped.
+    """
     rows = samples["source_row"].to_numpy() if "source_row" in samples.columns else None
     ids = samples["sample_id"].to_numpy() if "sample_id" in samples.columns else None
     problems = []
@@ -412,3 +419,4 @@ def _report_ecec_gaps(
         DataWarning,
         stacklevel=3,
     )
+    return [(r, p) for r, _c, p in problems]

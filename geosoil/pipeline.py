@@ -487,8 +487,14 @@ def check(project: Project) -> tuple[list[str], list[str]]:
         with _recording(sink):
             prep = prepare(trial)
         if strict:
+            # rows a run with on_bad_row = "stop" would stop at: skipped here only to list
+            # them all
             for row, reason in prep.read.skipped:
                 problems.append(f"{prep.read.file}, row {row}: {reason}")
+            for row, reason in [*prep.samples.attrs.get("outside", []),
+                                *prep.samples.attrs.get("ecec_gaps", [])]:
+                where = f", row {row}" if row is not None else ""
+                problems.append(f"{prep.read.file}{where}: {reason}")
         if not prep.samples.empty:
             for name in prep.grids:
                 if not (prep.samples["paddock"] == name).any() and not (
@@ -499,8 +505,10 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                         "[interpolation] borrow_farm_surface = true"
                     )
         # with on_bad_row = "stop" the bad rows are problems above, not rows a run would skip
+        skipped = (" bad row(s) skipped: ", " sample(s) outside every paddock skipped: ",
+                   ": ECEC left empty for ")
         sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if w not in sink
-                    and not (strict and " bad row(s) skipped: " in w))
+                    and not (strict and any(t in w for t in skipped)))
     except GeosoilError as exc:
         problems.append(str(exc))
     return problems, sink

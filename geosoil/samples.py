@@ -1070,6 +1070,8 @@ def prepare_samples(
         paddock dropped (``on_bad_row = "skip"``) and near-duplicates merged
         (``duplicates = "average"``: analytes averaged, location the mean, IDs
         joined as "A1+A2", ``source_row`` of the first), each with a DataWarning.
+        ``attrs["outside"]`` lists the (row, problem) of the samples dropped for
+        lying outside every paddock.
 
     Raises
     ------
@@ -1085,16 +1087,22 @@ def prepare_samples(
     source_geographic = samples.crs.is_geographic
     pts = samples.to_crs(working_crs).reset_index(drop=True)
     pads = paddocks[["paddock", paddocks.geometry.name]].to_crs(working_crs)
-    pts = _assign_paddocks(pts, pads, samples, source_geographic, settings, file, location)
+    outside: list[tuple[int, str]] = []
+    pts = _assign_paddocks(pts, pads, samples, source_geographic, settings, file, location,
+                           outside)
     pts = _near_duplicates(pts, settings, file, location)
     pts.attrs["location_column"] = location
+    pts.attrs["outside"] = outside
     return pts
 
 
 def _assign_paddocks(
     pts: gpd.GeoDataFrame, pads: gpd.GeoDataFrame, original: gpd.GeoDataFrame,
     source_geographic: bool, settings: SampleSettings, file: str, location: str | None,
+    outside_rows: list[tuple[int, str]],
 ) -> gpd.GeoDataFrame:
+    """Name each sample's paddock; samples outside every one raise, or are dropped and
+    appended to ``outside_rows`` as (row, problem)."""
     tree = pads.sindex
     hit_pt, hit_pad = tree.query(pts.geometry.to_numpy(), predicate="intersects")
     order = np.lexsort((hit_pad, hit_pt))
@@ -1141,6 +1149,7 @@ def _assign_paddocks(
             problem, file=file, row=row, column=location,
             fix="check its coordinates and [samples] crs, or set [samples] on_bad_row = 'skip'",
         )
+    outside_rows.extend(problems)
     warnings.warn(
         f"{file}: {len(problems)} sample(s) outside every paddock skipped: "
         + "; ".join(f"row {r}: {p}" for r, p in problems),

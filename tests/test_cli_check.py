@@ -15,7 +15,8 @@ from cli.main import cli
 UTM = "EPSG:32755"
 X0, Y0 = 540_000.0, 6_160_000.0
 
-HEADER = "Sample,Easting,Northing,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg)"
+HEADER = ("Sample,Easting,Northing,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),"
+          "Exch Acidity (cmol/kg)")
 
 
 def _rows(n: int = 12) -> list[str]:
@@ -23,7 +24,7 @@ def _rows(n: int = 12) -> list[str]:
     for i in range(n):
         x, y = X0 + 20 + (i % 4) * 90 + i, Y0 + 30 + (i // 4) * 80 + 2 * i
         rows.append(f"S{i + 1:02d},{x:.1f},{y:.1f},{5.0 + i / 10:.1f},{6 + i / 5:.2f},2.1,0.5,"
-                    f"{0.3 + i / 8:.2f}")
+                    f"{0.3 + i / 8:.2f},0.2")
     return rows
 
 
@@ -168,6 +169,48 @@ def test_bad_rows_set_to_skip_are_warnings_not_problems(tmp_path: Path) -> None:
     r = check(project)
     assert r.exit_code == 0, r.stderr
     assert "1 bad row(s) skipped: row 3" in r.stderr
+
+
+def _run(project: Path, out: Path):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, ["run", str(project), "--out", str(out)])
+
+
+def test_samples_outside_every_paddock_are_problems_when_a_run_would_stop(
+    tmp_path: Path
+) -> None:
+    # check's verdict must match run's: with on_bad_row = "stop" a run stops at them
+    rows = [*_rows(), f"FAR1,{X0 - 500:.1f},{Y0 - 500:.1f},5.5,6.0,2.1,0.5,0.3,0.2",
+            f"FAR2,{X0 + 900:.1f},{Y0 + 100:.1f},5.5,6.0,2.1,0.5,0.3,0.2"]
+    project = make_project(tmp_path / "farm", rows=rows)
+    r = check(project)
+    problems = _problems(r.stderr)
+    assert r.exit_code == 1, r.stderr
+    assert len(problems) == 2
+    assert "row 14" in problems[0] and "'FAR1'" in problems[0] and "outside" in problems[0]
+    assert "row 15" in problems[1] and "'FAR2'" in problems[1]
+    assert "outside every paddock skipped" not in r.stderr  # a run stops, not skips
+    assert _run(project, tmp_path / "out").exit_code == 1
+    # with on_bad_row = "skip" they are skipped by both, with a warning
+    text = (project / "geosoil.toml").read_text().replace(
+        'crs = "EPSG:32755"', 'crs = "EPSG:32755"\non_bad_row = "skip"')
+    (project / "geosoil.toml").write_text(text)
+    r = check(project)
+    assert r.exit_code == 0, r.stderr
+    assert "2 sample(s) outside every paddock skipped" in r.stderr
+
+
+def test_samples_without_an_ecec_are_problems_when_a_run_would_stop(tmp_path: Path) -> None:
+    # acidity empty below the neutral pH and no lab CEC: the ECEC cannot be formed
+    rows = _rows()
+    rows[2] = rows[2][: -len(",0.2")] + ","  # file row 4, pH 5.2
+    rows[5] = rows[5][: -len(",0.2")] + ","  # file row 7
+    project = make_project(tmp_path / "farm", rows=rows)
+    r = check(project)
+    problems = _problems(r.stderr)
+    assert r.exit_code == 1, r.stderr
+    assert len(problems) == 2 and "row 4" in problems[0] and "row 7" in problems[1]
+    assert all("ECEC" in p for p in problems)
+    assert _run(project, tmp_path / "out").exit_code == 1
 
 
 def test_a_rule_switched_on_without_its_data_names_the_key(tmp_path: Path) -> None:
