@@ -84,6 +84,7 @@ __all__ = [
     "SODICITY_BREAKS",
     "SODICITY_LABELS",
     "TILE_URL",
+    "MAX_ZONE_LABELS",
 ]
 
 logger = logging.getLogger(__name__)
@@ -93,6 +94,10 @@ logger = logging.getLogger(__name__)
 SODICITY_BREAKS: tuple[float, ...] = (6.0, 15.0)
 #: Labels of the three ESP classes of :data:`SODICITY_BREAKS`.
 SODICITY_LABELS: tuple[str, ...] = ("non-sodic (< 6)", "sodic (6 to 15)", "strongly sodic (≥ 15)")
+
+#: Most zones in one product layer that are each labelled with their rate; a layer
+#: with more (a spreader grid) shows the rate on hover and in the popup only.
+MAX_ZONE_LABELS: int = 80
 
 #: The optional background tiles (only named in the page when ``background_tiles=True``).
 TILE_URL = "https://tile.openstreetmap.org/{z}/{x}/{y}.png"
@@ -883,6 +888,7 @@ _PAGE_CSS = """
   padding: 8px 10px; border-radius: 4px; box-shadow: 0 1px 4px rgba(0,0,0,.35);
   font: 12px/1.35 system-ui, sans-serif; max-height: 55vh; overflow-y: auto; width: 250px; }
 .geosoil-legend h3 { margin: 0 0 4px; font-size: 13px; }
+.geosoil-note { font: 400 12px/1.35 system-ui, sans-serif; margin-top: 3px; }
 .gs-legend-entry { margin: 6px 0 8px; }
 .gs-legend-title { font-weight: 600; margin-bottom: 3px; }
 .gs-bar { height: 12px; border: 1px solid #777; }
@@ -923,6 +929,7 @@ def build_map(
     exclusions: gpd.GeoDataFrame | None = None,
     background_tiles: bool = False,
     rate_unit: str = "kg/ha",
+    notes: Sequence[str] = (),
 ) -> str:
     """The run's interactive map as one self-contained HTML page.
 
@@ -940,8 +947,11 @@ def build_map(
         The surfaces (:class:`RasterLayer`), each a layer of its own, in order.
     zones
         Columns ``paddock``, ``product``, ``zone``, ``kind``, ``rate_kg_ha``,
-        ``area_ha`` and geometry: one layer per product (the first switched
-        on), zones coloured and labelled by rate. Zones of kind ``exclusion``
+        ``area_ha`` and geometry (and optionally ``schedule``, shown in the
+        popup): one layer per product (the first switched on), zones coloured
+        by rate, with the rate on hover. A layer of at most
+        :data:`MAX_ZONE_LABELS` zones also labels each zone with its rate; more
+        labels (a spreader grid) would hide the map. Zones of kind ``exclusion``
         are drawn in the exclusions layer instead.
     exclusions
         Optional areas not to spread (any columns, polygon geometry). When
@@ -951,6 +961,9 @@ def build_map(
     rate_unit
         Unit of the zone rates the map shows (labels, popups, legend): one of
         :data:`geosoil.units.RATE_UNITS`. The zones' ``rate_kg_ha`` stays in kg/ha.
+    notes
+        Lines shown under the title (escaped): that the rates are advisory, that a
+        contested rule contributed, and the like.
 
     Returns
     -------
@@ -1065,17 +1078,20 @@ def build_map(
 
             name = f"{product} zones"
             group = folium.FeatureGroup(name=escape_text(name), overlay=True, show=(i == 0))
+            labelled = len(rows) <= MAX_ZONE_LABELS
             for _, z in rows.iterrows():
                 rate = float(z["rate_kg_ha"])
-                popup = _popup_table(
-                    f"{product}: zone {_fmt_value(z['zone'])}",
-                    [
-                        ("paddock", z["paddock"]),
-                        (f"rate ({rate_unit})", format_rate(rate, rate_unit, with_unit=False)),
-                        ("area (ha)", z["area_ha"]),
-                        ("kind", z["kind"]),
-                    ],
-                )
+                schedule = z.get("schedule", "")
+                schedule = schedule if isinstance(schedule, str) else ""
+                fields = [
+                    ("paddock", z["paddock"]),
+                    (f"rate ({rate_unit})", format_rate(rate, rate_unit, with_unit=False)),
+                ]
+                if schedule:
+                    fields.append(("applied as", schedule))
+                fields += [("area (ha)", z["area_ha"]), ("kind", z["kind"])]
+                popup = _popup_table(f"{product}: zone {_fmt_value(z['zone'])}", fields)
+                hover = f"zone {_fmt_value(z['zone'])}: {format_rate(rate, rate_unit)}"
                 _Vector(
                     _geometry_json(z.geometry),
                     style={
@@ -1086,13 +1102,15 @@ def build_map(
                     },
                     pane=_ZONE_PANE,
                     popup=popup,
+                    tooltip=escape_text(hover + (f" ({schedule})" if schedule else "")),
                 ).add_to(group)
-                anchor = label_point(z.geometry)
-                _Label(
-                    [round(anchor.y, 7), round(anchor.x, 7)],
-                    escape_text(format_rate(rate, rate_unit)),
-                    "geosoil-zone-label",
-                ).add_to(group)
+                if labelled:
+                    anchor = label_point(z.geometry)
+                    _Label(
+                        [round(anchor.y, 7), round(anchor.x, 7)],
+                        escape_text(format_rate(rate, rate_unit)),
+                        "geosoil-zone-label",
+                    ).add_to(group)
             group.add_to(fmap)
             registry.append(
                 (group, name, _legend_zones(str(product), list(rates), colour_of, rate_unit))
@@ -1192,6 +1210,9 @@ def build_map(
     if bounds is not None:
         fmap.fit_bounds(bounds, padding=(20, 20))
 
+    notes_html = "".join(
+        f'<div class="geosoil-note">{escape_text(n)}</div>' for n in notes if str(n).strip()
+    )
     # Legend and the in-page registry of layers (used by the legend and by tests).
     entries = "".join(
         f'<section class="gs-legend-entry" id="gs-legend-{i}">{legend}</section>'
@@ -1199,7 +1220,7 @@ def build_map(
     )
     figure.html.add_child(
         Element(
-            f'<div class="geosoil-title" id="geosoil-title">{escape_text(title)}</div>'
+            f'<div class="geosoil-title" id="geosoil-title">{escape_text(title)}{notes_html}</div>'
             f'<div class="geosoil-legend" id="geosoil-legend" role="region" aria-label="Legend">'
             f"<h3>Legend</h3>{entries}</div>"
         ),

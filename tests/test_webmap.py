@@ -278,6 +278,48 @@ def test_zone_labels_popups_and_legend_use_the_rate_unit(unit: str, shown: tuple
         assert "kg/ha" not in page
 
 
+def _grid_zones(n_side: int) -> gpd.GeoDataFrame:
+    """n_side x n_side square zones over the north paddock, like a spreader grid."""
+    size = 400 / n_side
+    rows = [
+        dict(paddock="North", product="gypsum", zone=i * n_side + j + 1, kind="rate",
+             rate_kg_ha=1000.0 + 10 * (i * n_side + j), area_ha=size * size / 1e4,
+             schedule="2 seasons of 0.5 t/ha" if i == 0 and j == 0 else "",
+             geometry=box(X0 + j * size, Y0 + 500 + i * size, X0 + (j + 1) * size,
+                          Y0 + 500 + (i + 1) * size))
+        for i in range(n_side) for j in range(n_side)
+    ]
+    return gpd.GeoDataFrame(rows, crs=CRS)
+
+
+def _zone_labels(page: str) -> list[str]:
+    return re.findall(r'className: "geosoil-zone-label"', page)
+
+
+def test_a_spreader_grid_is_not_buried_under_labels_but_every_zone_tells_its_rate() -> None:
+    few = _grid_zones(3)  # 9 zones: each labelled
+    many = _grid_zones(12)  # 144 zones, more than MAX_ZONE_LABELS: a label each would hide the map
+    assert len(few) <= webmap.MAX_ZONE_LABELS < len(many)
+    page_few = build(zones=few, rate_unit="kg/ha")
+    page_many = build(zones=many, rate_unit="kg/ha")
+    assert len(_zone_labels(page_few)) == 9
+    assert _zone_labels(page_many) == []
+    tooltips = re.findall(r'bindTooltip\("(zone [^"]*)"', page_many)
+    assert len(tooltips) == 144  # the rate on hover, zone by zone
+    assert "zone 144: 2,430 kg/ha" in tooltips
+    # the split schedule is in the hover text and the popup
+    assert "zone 1: 1,000 kg/ha (2 seasons of 0.5 t/ha)" in tooltips
+    assert "applied as" in page_many and "2 seasons of 0.5 t/ha" in page_many
+
+
+def test_notes_show_under_the_title_escaped() -> None:
+    page = build(notes=["Rates are advisory.", "Cation balance: CONTESTED " + HOSTILE_IMG, " "])
+    title = page[page.index('id="geosoil-title"') : page.index('id="geosoil-legend"')]
+    assert title.count('class="geosoil-note"') == 2  # blank notes are left out
+    assert "Rates are advisory." in title and "CONTESTED" in title
+    assert HOSTILE_IMG not in page and html.escape(HOSTILE_IMG) in title
+
+
 def test_unknown_rate_unit_is_refused() -> None:
     with pytest.raises(SettingsError) as e:
         build(rate_unit="kg/ac")
