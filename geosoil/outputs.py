@@ -408,7 +408,28 @@ def build_farm_map(farm: FarmResult) -> str:
         exclusions=prep.exclusions if not prep.exclusions.empty else None,
         background_tiles=s.output.background_tiles,
         rate_unit=s.output.rate_unit,
+        notes=_map_notes(farm),
     )
+
+
+def _map_notes(farm: FarmResult) -> list[str]:
+    """The lines under the map's title: rates are advisory; which products a contested
+    rule (cation balance) added to, when it added anything."""
+    notes = ["Rates are advisory: have them checked by a qualified agronomist before "
+             "spreading; local codes prevail."]
+    contested = sorted({
+        product
+        for pr in farm.paddocks.values()
+        for (rule, product), rate in pr.rates.contributions.items()
+        if rule == "balance" and bool(np.any(np.nan_to_num(rate) > 0))
+    })
+    if contested:
+        notes.append(
+            "Cation balance targets (CONTESTED: Kopittke & Menzies 2007) add to "
+            f"{', '.join(contested)}; within the ranges common in soils, Ca:Mg:K ratios "
+            "generally do not affect fertility."
+        )
+    return notes
 
 
 #: Kriging standard deviation counted as "uncertain", per variable, for the report's

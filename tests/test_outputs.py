@@ -14,7 +14,7 @@ import shapely
 
 from geosoil.errors import RateWarning
 from geosoil.isoxml import MAX_DESIGNATOR
-from geosoil.outputs import _write_isoxml
+from geosoil.outputs import _map_notes, _write_isoxml
 
 CRS = "EPSG:32755"
 
@@ -87,3 +87,21 @@ def test_one_pass_zones_write_one_task_named_by_the_product(tmp_path: Path) -> N
     root, values = _grid_values(tmp_path / "lime_isoxml")
     assert root.find("PDT").get("B") == "Lime"
     assert values == {0, 90000, 160000, 210000}
+
+
+def _rated(contributions: dict) -> SimpleNamespace:
+    return SimpleNamespace(paddocks={"Home": SimpleNamespace(
+        rates=SimpleNamespace(contributions=contributions))})
+
+
+def test_map_notes_say_rates_are_advisory_and_name_a_contested_rule_that_added_product() -> None:
+    cells = np.array([[0.0, 250.0], [np.nan, 0.0]])
+    none = np.array([[0.0, 0.0], [np.nan, 0.0]])
+    plain = _map_notes(_rated({("gypsum", "gypsum"): cells, ("balance", "gypsum"): none}))
+    assert len(plain) == 1 and "advisory" in plain[0]  # the balance rule added nothing
+    notes = _map_notes(_rated({("gypsum", "gypsum"): cells, ("balance", "gypsum"): cells,
+                               ("balance", "dolomite"): none}))
+    assert len(notes) == 2
+    # Kopittke & Menzies 2007 (REFERENCES.md): cation balance targets are contested
+    assert "CONTESTED" in notes[1] and "Kopittke & Menzies 2007" in notes[1]
+    assert "gypsum" in notes[1] and "dolomite" not in notes[1]
