@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 
 import click
@@ -63,9 +64,14 @@ def new(
     setting at its default, each with a one-line comment. Edit it, then
     'geosoil check FOLDER' and 'geosoil run FOLDER --out DIR'.
     """
-    path, notes = new_project(folder, samples=samples, paddocks=paddocks, crs=crs,
-                              overwrite=overwrite)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        path, notes = new_project(folder, samples=samples, paddocks=paddocks, crs=crs,
+                                  overwrite=overwrite)
     if not ctx.obj["quiet"]:
         for n in notes:
             echo_err(f"note: {n}")
+        # what reading the files warned about, once each, as 'check' and 'run' show it
+        for message in dict.fromkeys(str(w.message) for w in caught):
+            echo_err(f"warning: {message}")
     click.echo(str(path))

@@ -550,12 +550,22 @@ def new_project(
             notes.append(f"sample coordinates in the file's own CRS, {read.crs.name}")
     if read.samples.crs is not None and pads.crs is not None and len(read.samples):
         pts = read.samples.geometry.to_crs(pads.crs)
-        share = float(np.mean(shapely.contains_xy(
-            pads.geometry.union_all(), pts.x.to_numpy(), pts.y.to_numpy())))
+        inside_each = shapely.intersects_xy(
+            pads.geometry.union_all(), pts.x.to_numpy(), pts.y.to_numpy())
+        share = float(np.mean(inside_each))
         if share < 0.5:
             notes.append(
                 f"only {share:.0%} of the samples fall inside the boundaries with the CRS "
                 f"{read.samples.crs.name}: check the samples' CRS (--crs) and the boundaries file"
+            )
+        elif share < 1:
+            rows = read.samples["source_row"].to_numpy()[~inside_each]
+            shown = ", ".join(str(int(r)) for r in rows[:10]) + (
+                f" and {len(rows) - 10} more" if len(rows) > 10 else "")
+            notes.append(
+                f"{len(rows)} sample(s) lie outside every paddock ({samples.name} row(s) "
+                f"{shown}): 'check' and 'run' stop at them; correct their coordinates, or set "
+                "[samples] on_bad_row = 'skip' to leave them out"
             )
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())

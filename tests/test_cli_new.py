@@ -197,6 +197,29 @@ def test_projected_xy_that_miss_the_boundaries_in_their_crs_ask_for_crs(
     assert r.exit_code == 1 and "--crs" in r.stderr and "0%" in r.stderr
 
 
+def test_reading_warnings_show_once_as_warnings_and_stray_samples_are_named(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    lines = inputs["lab_xy"].read_text().splitlines()
+    f = lines[2].split(",")
+    f[-2] = "<0.05"  # file row 3: Al below the detection limit
+    lines[2] = ",".join(f)
+    g = lines[5].split(",")
+    g[1] = f"{X0 - 300:.1f}"  # file row 6: 300 m west of the paddock
+    lines[5] = ",".join(g)
+    lab = tmp_path / "lab.csv"
+    lab.write_text("\n".join(lines) + "\n")
+    # x/y without a CRS: the file is read twice (to guess the CRS), the warning shown once
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 0, r.stderr
+    warned = [ln for ln in r.stderr.splitlines() if ln.startswith("warning: ")]
+    assert len(warned) == 1 and "below the detection limit" in warned[0]
+    assert "DataWarning" not in r.stderr and ".py:" not in r.stderr  # no Python internals
+    outside = [ln for ln in r.stderr.splitlines() if "outside every paddock" in ln]
+    assert len(outside) == 1 and outside[0].startswith("note: ")
+    assert "row(s) 6" in outside[0] and "on_bad_row = 'skip'" in outside[0]
+
+
 def test_crs_given_is_used(inputs: dict[str, Path], tmp_path: Path) -> None:
     r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
                "--paddocks", inputs["paddocks_ll"], "--crs", UTM)
