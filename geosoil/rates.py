@@ -62,6 +62,7 @@ array([7.747, 0.   ])
 
 from __future__ import annotations
 
+import difflib
 import logging
 import math
 import warnings
@@ -893,8 +894,10 @@ def _ca_share(product: Product) -> tuple[float, float]:
 
 def _product(products: Mapping[str, Product], name: str, key: str, *, need: str) -> Product:
     if name not in products:
+        near = difflib.get_close_matches(name, list(products), n=1)
+        hint = f"did you mean '{near[0]}'? " if near else ""
         raise SettingsError(
-            f"product '{name}' is not defined; defined products: "
+            f"product '{name}' is not defined; {hint}defined products: "
             f"{', '.join(sorted(products)) or 'none'}. Fix: add a [products.{name}] table or "
             "name a defined product",
             key=key,

@@ -538,6 +538,13 @@ def test_check_inputs_returns_skip_notes_and_checks_products() -> None:
     assert err.value.key == "rates.lime.product"
 
 
+def test_a_misspelt_product_names_the_key_and_the_nearest_product() -> None:
+    with pytest.raises(SettingsError) as err:
+        check_inputs(RateSettings(lime=LimeRule(product="lmie")), {"al"}, PRODUCTS)
+    assert err.value.key == "rates.lime.product"
+    assert "did you mean 'lime'?" in str(err.value) and "[products.lmie]" in str(err.value)
+
+
 def test_inputs_used_and_plan() -> None:
     used = inputs_used(RateSettings(lime=LimeRule(method="acidity_share")),
                        {"na", "ecec", "acidity", "ph", "ca"})
