@@ -12,6 +12,7 @@ template and the validation can never disagree.
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import math
 import os
 import tomllib
@@ -168,6 +169,19 @@ class ProjectSettings:
     zones: ZoneSettings = setting(default_factory=ZoneSettings, doc="spreader zones")
     tonnage: TonnageSettings = setting(default_factory=TonnageSettings, doc="carting and cost")
     output: OutputSettings = setting(default_factory=OutputSettings, doc="outputs")
+
+    def __post_init__(self) -> None:
+        # A price for a product that is not defined (a typo) would leave the real one
+        # without a price and the total cost short, without a word.
+        for name in self.tonnage.price_per_t:
+            if name not in self.products:
+                near = difflib.get_close_matches(name, list(self.products), n=1)
+                hint = f"did you mean '{near[0]}'? " if near else ""
+                raise SettingsError(
+                    f"'{name}' is not a defined product; {hint}defined products: "
+                    f"{', '.join(sorted(self.products)) or 'none'}",
+                    key=f"tonnage.price_per_t.{name}",
+                )
 
 
 @dataclass(frozen=True)

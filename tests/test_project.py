@@ -142,6 +142,16 @@ def test_a_choice_lists_the_allowed_values(tmp_path: Path) -> None:
     assert "kamprath, cochrane, acidity_share" in str(err)
 
 
+def test_a_price_for_a_product_that_is_not_defined_names_the_key_and_the_nearest(
+    tmp_path: Path
+) -> None:
+    # a typo would leave gypsum without a price and the total cost short, silently
+    err = _problem(MINIMAL + "\n[tonnage]\nprice_per_t = { gypsm = 60.0, lime = 45.0 }\n",
+                   tmp_path)
+    assert err.key == "tonnage.price_per_t.gypsm"
+    assert "did you mean 'gypsum'?" in str(err) and "gypsum, lime" in str(err)
+
+
 def test_a_missing_required_key_is_named(tmp_path: Path) -> None:
     err = _problem('[boundaries]\npaddocks = "p.geojson"\n', tmp_path)
     assert err.key == "samples"
@@ -252,6 +262,8 @@ def test_template_round_trip_with_tables_and_lists(
     for name in product_names:
         products[name] = ProductSettings(material="gypsum", label=name, purity_percent=purity)
     products["lime"] = ProductSettings(percent_passing=tuple(passing))
+    # prices are for defined products (a price for another name is refused)
+    prices = dict(zip(sorted(products), prices.values(), strict=False))
     base = _defaults(tmp_path)
     s = dataclasses.replace(
         base,
