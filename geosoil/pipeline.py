@@ -16,6 +16,7 @@ Every warning raised on the way is recorded in ``run.json`` and the report.
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import hashlib
 import json
 import logging
@@ -46,7 +47,7 @@ from .boundaries import read_exclusions, read_paddocks, read_user_zones
 from .chemistry import derive
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
-from .errors import GeosoilError, GeosoilWarning
+from .errors import GeosoilError, GeosoilWarning, SettingsError
 from .grids import PaddockGrid, aligned_grids
 from .products import Product, resolve_products
 from .project import Project
@@ -137,6 +138,23 @@ class Prepared:
     warnings: list[str] = field(default_factory=list)
 
 
+def _check_paddock_keys(
+    table: dict[str, Any], paddocks: gpd.GeoDataFrame, *, key: str, file: Path
+) -> None:
+    """Refuse a setting keyed by paddock name that names no paddock (a typo would leave
+    the paddock on the default value without a word)."""
+    names = [str(n) for n in paddocks["paddock"]]
+    for name in table:
+        if name not in names:
+            near = difflib.get_close_matches(name, names, n=1)
+            hint = f"did you mean '{near[0]}'? " if near else ""
+            raise SettingsError(
+                f"'{name}' is not a paddock in {file}; {hint}the paddocks are "
+                f"{', '.join(repr(n) for n in names)}",
+                key=f"{key}.{name}",
+            )
+
+
 def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     """Stages 1-4 without interpolation: read, check and place everything.
 
@@ -150,6 +168,8 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     with _recording(sink):
         progress("reading boundaries")
         paddocks = read_paddocks(s.boundaries)
+        _check_paddock_keys(s.soil.bulk_density_by_paddock, paddocks,
+                            key="soil.bulk_density_by_paddock", file=s.boundaries.paddocks)
         progress("reading samples")
         read = read_samples(s.samples)
         samples = read.samples

@@ -213,6 +213,21 @@ def test_samples_without_an_ecec_are_problems_when_a_run_would_stop(tmp_path: Pa
     assert _run(project, tmp_path / "out").exit_code == 1
 
 
+def test_a_bulk_density_for_a_paddock_that_does_not_exist_names_the_key(
+    tmp_path: Path
+) -> None:
+    # a typo would leave paddock 'Home' on the default bulk density without a word
+    extra = '[soil]\nbulk_density_by_paddock = { "Hmoe" = 1.5 }\n'
+    project = make_project(tmp_path / "farm", extra=extra)
+    r = check(project)
+    problems = _problems(r.stderr)
+    assert r.exit_code == 1 and len(problems) == 1
+    assert "'soil.bulk_density_by_paddock.Hmoe'" in problems[0]
+    assert "did you mean 'Home'?" in problems[0]
+    run = _run(project, tmp_path / "out")
+    assert run.exit_code == 1 and "bulk_density_by_paddock.Hmoe" in run.stderr
+
+
 def test_a_rule_switched_on_without_its_data_names_the_key(tmp_path: Path) -> None:
     # Kamprath's lime requirement needs exchangeable Al; this lab file has none
     r, problems = _broken(tmp_path, extra='[rates.lime]\nenabled = "on"\nmethod = "kamprath"\n')
