@@ -251,7 +251,9 @@ class ReportInput:
         total of one product. ``cost`` may be NaN (no price given).
     zones
         Zones GeoDataFrame (``paddock, product, zone, kind, rate_kg_ha,
-        area_ha``, geometry in a projected CRS in metres).
+        area_ha``, geometry in a projected CRS in metres). An optional
+        ``schedule`` column (``"2 seasons of 1.0 t/ha"``, empty for one pass)
+        adds an "applied as" column to a product's zone table when a zone is split.
     paddocks
         ``paddock`` and geometry, same CRS as ``zones``.
     variograms
@@ -788,11 +790,12 @@ def _table(
     return f"<table{klass}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-def _tonnage_headers(unit: str) -> tuple[tuple[str, bool], ...]:
+def _tonnage_headers(unit: str, *, schedule: bool = False) -> tuple[tuple[str, bool], ...]:
     return (
         ("zone", False),
         ("area (ha)", True),
         (f"rate ({_t(unit)})", True),
+        *((("applied as", False),) if schedule else ()),
         ("product (t)", True),
         ("truckloads", True),
         ("cost", True),
@@ -800,8 +803,11 @@ def _tonnage_headers(unit: str) -> tuple[tuple[str, bool], ...]:
 
 
 def _tonnage_rows(
-    df: pd.DataFrame, colour_of: Any = None, *, unit: str = "kg/ha"
+    df: pd.DataFrame, colour_of: Any = None, *, unit: str = "kg/ha",
+    schedules: Mapping[Any, str] | None = None,
 ) -> tuple[list[list[str]], list[str]]:
+    """Rows of a tonnage table; with ``schedules`` (zone -> "2 seasons of 1.0 t/ha", "" for
+    one pass) an "applied as" column after the rate."""
     rows, classes = [], []
     for _, r in df.iterrows():
         level = str(r["level"]).lower()
@@ -814,11 +820,17 @@ def _tonnage_rows(
             label = sw + _t(_zone_label(r["zone"]))
         else:
             label = "total" if level in ("paddock", "farm") else _t(level)
+        split = []
+        if schedules is not None:
+            spread = is_zone and not _isnan(r["rate_kg_ha"]) and float(r["rate_kg_ha"]) > 0
+            text = schedules.get(r["zone"], "") if is_zone else ""
+            split = [_t(text or ("one pass" if spread else ""))]
         rows.append(
             [
                 label,
                 _num(r["area_ha"], 2),
                 _t(_rate_text(r["rate_kg_ha"], unit, with_unit=False)) if is_zone else "",
+                *split,
                 _num(r["tonnes"], 2),
                 _num(r["truckloads"], 1),
                 _num(r["cost"], 2),
@@ -1005,9 +1017,16 @@ def build_report(data: ReportInput) -> str:
             if len(tp):
                 order = tp.assign(_o=(tp["level"] != "zone").astype(int))
                 order = order.sort_values(["_o"], kind="stable").drop(columns="_o")
-                rows, classes = _tonnage_rows(order, colour_of, unit=data.rate_unit)
-                out.append(_table(_tonnage_headers(data.rate_unit), rows, css="tonnage",
-                                  row_classes=classes))
+                schedules = None
+                if "schedule" in zp.columns:
+                    split = {z: str(t) for z, t in zip(zp["zone"], zp["schedule"], strict=True)
+                             if isinstance(t, str) and t}
+                    schedules = split or None  # the column only when a zone is split
+                rows, classes = _tonnage_rows(order, colour_of, unit=data.rate_unit,
+                                              schedules=schedules)
+                out.append(_table(_tonnage_headers(data.rate_unit,
+                                                   schedule=schedules is not None),
+                                  rows, css="tonnage", row_classes=classes))
             else:
                 out.append('<p class="note">No tonnage for this product here.</p>')
             out.append("</div>")

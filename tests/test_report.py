@@ -396,6 +396,23 @@ def test_zone_map_in_lb_per_acre_uses_the_exact_factor() -> None:
     assert head[2] == "rate (lb/ac)" and rows[2][2] == "2,677"
 
 
+def test_zones_split_into_seasons_say_so_in_their_table() -> None:
+    """A zone that needs several seasons shows how it is applied beside its rate; a product
+    whose zones all go on in one pass keeps the plain table."""
+    data = report_input()
+    zones = data.zones.copy()
+    zones["schedule"] = ""
+    split = (zones["paddock"] == "North") & (zones["product"] == "gypsum") & (zones["zone"] == 3)
+    zones.loc[split, "schedule"] = "2 seasons of 1.5 t/ha"
+    page = report.build_report(dataclasses.replace(data, zones=zones, rate_unit="t/ha"))
+    head, rows = _tonnage_table(page, "North", "gypsum")
+    assert head[:4] == ["zone", "area (ha)", "rate (t/ha)", "applied as"]
+    assert [r[3] for r in rows] == ["", "one pass", "2 seasons of 1.5 t/ha"]  # zone 1: none
+    assert [r[2] for r in rows] == ["0", "1.5", "3.0"]  # the full rate stays in its column
+    head, rows = _tonnage_table(page, "North", "lime")
+    assert "applied as" not in head and len(rows[0]) == len(head)
+
+
 def test_unknown_rate_unit_is_refused() -> None:
     with pytest.raises(SettingsError) as e:
         dataclasses.replace(report_input(), rate_unit="kg/ac")
