@@ -266,7 +266,10 @@ def surfaces_for(
 ) -> tuple[dict[tuple[str, str], Surface], bool]:
     """Interpolated surfaces, from the cache when their inputs are unchanged.
 
-    Returns the surfaces and whether they came from the cache.
+    Returns the surfaces and whether they came from the cache. The warnings the
+    interpolation raised (fallbacks to inverse-distance weighting, zone values...)
+    are kept with the surfaces and recorded again on a cache hit, so a re-run
+    reports what the first run did.
     """
     key = _surface_key(prep)
     path = _cache_dir(prep) / f"surfaces-{key[:32]}.pickle"
@@ -274,13 +277,14 @@ def surfaces_for(
         try:
             with open(path, "rb") as fh:
                 stored = pickle.load(fh)
-            if stored.get("key") == key:
+            if stored.get("key") == key and isinstance(stored.get("warnings"), list):
                 progress("surfaces: unchanged inputs, taken from the cache")
+                prep.warnings.extend(w for w in stored["warnings"] if w not in prep.warnings)
                 return stored["surfaces"], True
         except Exception as exc:  # a damaged cache is rebuilt, never trusted
             logger.info("surface cache %s unreadable (%s); rebuilding", path, exc)
-    sink = prep.warnings
-    with _recording(sink):
+    found: list[str] = []
+    with _recording(found):
         surfaces = interpolate_farm(
             prep.samples,
             prep.grids,
@@ -289,13 +293,15 @@ def surfaces_for(
             user_zones=prep.user_zones,
             progress=progress,
         )
+    prep.warnings.extend(w for w in found if w not in prep.warnings)
     if use_cache:
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_suffix(f".tmp{os.getpid()}")
             with open(tmp, "wb") as fh:
                 pickle.dump(
-                    {"key": key, "surfaces": surfaces}, fh, protocol=pickle.HIGHEST_PROTOCOL
+                    {"key": key, "surfaces": surfaces, "warnings": found}, fh,
+                    protocol=pickle.HIGHEST_PROTOCOL,
                 )
             os.replace(tmp, path)
         except OSError as exc:

@@ -428,6 +428,21 @@ def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(
     assert third.cache_hit is False
 
 
+def test_a_cache_hit_records_the_interpolation_warnings_again(demo) -> None:
+    # a re-run must report what the first run did: here Creek Flat's 39 samples fall short
+    # of min_samples_kriging and its surfaces come from inverse-distance weighting
+    s = demo.project.settings
+    s2 = dataclasses.replace(s, interpolation=dataclasses.replace(
+        s.interpolation, min_samples_kriging=50))
+    project = dataclasses.replace(demo.project, settings=s2)
+    first = compute(project)
+    second = compute(project)
+    assert first.cache_hit is False and second.cache_hit is True
+    idw = [w for w in first.warnings if "inverse-distance weighting" in w]
+    assert any(w.startswith("Creek Flat, ") for w in idw)
+    assert [w for w in second.warnings if "inverse-distance weighting" in w] == idw
+
+
 # --------------------------------------------------------------------------- hostile text
 
 
