@@ -560,7 +560,7 @@ def interpolate_farm(
             try:
                 if use_farm:
                     fit = farm_fit(variable, log)
-                    if not borrowed:
+                    if not borrowed and variable not in settings.fixed:  # a fixed one is not fitted
                         notes.append(
                             f"{n} samples, fewer than min_samples_variogram = "
                             f"{settings.min_samples_variogram}: variogram fitted on the farm's "

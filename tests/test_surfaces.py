@@ -238,6 +238,19 @@ def test_fixed_variogram_is_used_as_given(grid_a) -> None:
     np.testing.assert_allclose(surf.estimate[grid_a["A"].mask], est, rtol=1e-12)
 
 
+@pytest.mark.parametrize("scope", ["farm", "auto"])
+def test_a_fixed_variogram_is_not_said_to_be_fitted_on_the_farm(grid_a, scope: str) -> None:
+    # 20 samples < min_samples_variogram: 'auto' would pool the farm, 'farm' always does
+    xy = random_xy(20, seed=4)
+    s = samples("A", xy, ca=smooth_field(xy))
+    fixed = FixedVariogram(model="exponential", nugget=0.05, psill=2.0, range_m=150.0)
+    out, _ = quiet(samples=s, grids=grid_a, variables=["ca"],
+                   settings=InterpolationSettings(fixed={"ca": fixed}, variogram_scope=scope))
+    notes = out[("A", "ca")].notes
+    assert any("fixed in the project" in n for n in notes)
+    assert not any("fitted" in n for n in notes), notes
+
+
 def test_matern_among_the_models_uses_matern_nu(grid_a) -> None:
     xy = random_xy(30, seed=5)
     s = samples("A", xy, k=smooth_field(xy, offset=1.0) / 10.0)
