@@ -1176,6 +1176,8 @@ def make_zones(
                           "per_pass_kg_ha": "float64", "area_ha": "float64",
                           "schedule": "object"})
     zones = gpd.GeoDataFrame(frame, geometry="geometry", crs=crs)
+    # every note names its product (a paddock's notes of several products read alike)
+    notes = [n if n.startswith(where) else f"{product}: {n}" for n in notes]
     for n in notes:
         logger.info("%s", n)
     return ZoneResult(zones=zones, notes=notes)

@@ -295,6 +295,9 @@ def test_a_paddock_needing_nothing_is_one_zone() -> None:
     assert res.zones["label"].tolist() == [NO_PRODUCT]
     assert res.zones["rate_kg_ha"].tolist() == [0.0]
     assert_tiles(res.zones, boundary)
+    # the note names its product: a paddock's notes for lime and dolomite must not read alike
+    said = [n for n in res.notes if "every cell needs less than" in n]
+    assert len(said) == 1 and said[0].startswith(f"{res.zones['product'].iloc[0]}: ")
 
 
 def test_no_zero_cells_no_extra_zone(field) -> None:
