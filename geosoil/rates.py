@@ -230,6 +230,13 @@ class LimeRule:
         1.5, doc="CaCO3 cmol(+)/kg per cmol(+)/kg of exchangeable Al (Kamprath 1970: 1.5)",
         minimum=0.0, maximum=5.0, exclusive_minimum=True,
     )
+    kamprath_min_al: float = setting(
+        0.1,
+        doc="exchangeable Al at or below this counts as none for the Kamprath method (labs' "
+        "detection limits are about 0.1; a value reported below the limit is no evidence of "
+        "Al: common practice)",
+        unit="cmol(+)/kg", minimum=0.0, maximum=2.0,
+    )
     cochrane_factor: float = setting(
         1.5, doc="factor of the Cochrane, Salinas & Sanchez (1980) formula",
         minimum=0.0, maximum=5.0, exclusive_minimum=True,
@@ -1039,10 +1046,13 @@ def _rule_lime(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
     p = _product(products, lr.product, f"{SECTION}.lime.product", need="liming")
     src = METHOD_CITATIONS[lr.method]
     if lr.method == "kamprath":
-        al = cells.get("al")
+        al_measured = cells.get("al")
+        al = np.where(al_measured > lr.kamprath_min_al, al_measured, 0.0)
+        al = np.where(np.isnan(al_measured), np.nan, al)
         need = lr.kamprath_factor * al
-        trace.add("lime", "lime requirement from exchangeable Al", "CaCO3 = factor x Al",
-                  {"factor": (lr.kamprath_factor, ""), "Al": (al, "cmol(+)/kg")}, need,
+        trace.add("lime", "lime requirement from exchangeable Al (Al at or below "
+                  f"{lr.kamprath_min_al:g} cmol(+)/kg counts as none)", "CaCO3 = factor x Al",
+                  {"factor": (lr.kamprath_factor, ""), "Al": (al_measured, "cmol(+)/kg")}, need,
                   "cmol(+)/kg CaCO3", src)
     elif lr.method == "cochrane":
         al, ca, mg = cells.get("al"), cells.get("ca"), cells.get("mg")

@@ -741,3 +741,16 @@ def test_no_rate_is_ever_negative_or_inf() -> None:
     for arr in r.product_rates.values():
         assert np.all(np.isfinite(arr)) and np.all(arr >= 0)
     assert not math.isnan(float(r.product_rates["gypsum"][0]))
+
+
+def test_kamprath_ignores_al_at_or_below_the_detection_threshold() -> None:
+    # a lab's '<0.1' taken as half the limit (0.05) is no evidence of Al: no Kamprath lime
+    # (common practice); just above the threshold the Kamprath factor applies as usual
+    s = only(lime=LimeRule(method="kamprath"))
+    assert rate_of({"al": 0.05}, s, "lime")[0] == 0
+    assert rate_of({"al": 0.1}, s, "lime")[0] == 0
+    above = rate_of({"al": 0.2}, s, "lime")[0]
+    # 1.5 x 0.2 cmol(+)/kg CaCO3 = 0.3 x 500.43 mg/kg (Kamprath 1970; [derived] conversion)
+    assert above > 0
+    with_zero_threshold = only(lime=LimeRule(method="kamprath", kamprath_min_al=0.0))
+    assert rate_of({"al": 0.05}, with_zero_threshold, "lime")[0] == pytest.approx(above / 4)
