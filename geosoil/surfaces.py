@@ -45,9 +45,10 @@ variogram of the values as they are).
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import geopandas as gpd
@@ -364,6 +365,16 @@ def _krige(
     return grid.to_array(est), grid.to_array(np.sqrt(np.maximum(var, 0.0)))
 
 
+@contextlib.contextmanager
+def _where(place: str) -> Iterator[None]:
+    """Re-raise the engine's warnings with the paddock and variable they concern."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    for w in caught:
+        warnings.warn(f"{place}: {w.message}", w.category, stacklevel=3)
+
+
 def _physical(variable: str, est: NDArray[np.float64], notes: list[str]) -> NDArray[np.float64]:
     """Amounts below zero set to zero, ESP kept within 0-100 % (with a note each)."""
     if variable in _AMOUNTS:
@@ -581,10 +592,11 @@ def interpolate_farm(
                 notes.append(fit.note)
             model = fit.model
             assert model is not None
-            cv = loo_cross_validation(xy, zt, model)
-            est, std = _krige(
-                xy, z, grid, model, log=log, neighbours=settings.neighbours
-            )
+            with _where(f"{name}, {variable}"):
+                cv = loo_cross_validation(xy, zt, model)
+                est, std = _krige(
+                    xy, z, grid, model, log=log, neighbours=settings.neighbours
+                )
             est = _physical(variable, est, notes)
             if not np.isfinite(cv.msse) or cv.msse > 3 or cv.msse < 1 / 3:
                 notes.append(

@@ -567,3 +567,18 @@ def test_derive_cells_from_lab_cec_and_sar_esp() -> None:
     assert cells["na"][0] == pytest.approx(1.2)  # [derived] 10 % of 12
     assert cells["ca_sat"][0] == pytest.approx(100 * 8 / 12)
     assert any("lab's CEC" in n for n in notes) and any("SAR" in n for n in notes)
+
+
+def test_engine_warnings_name_the_paddock_and_variable() -> None:
+    # two samples at the same place under a variogram without nugget make the covariance
+    # matrix numerically singular ([derived]); the engine's warning must say where it arose
+    rng = np.random.default_rng(7)
+    xy = rng.uniform(5, 195, size=(12, 2))
+    xy[1] = xy[0]
+    pts = samples("North", xy, ph=6.0 + 0.01 * xy[:, 0])
+    grids = aligned_grids(paddocks(North=box(0, 0, 200, 200)), cell_size_m=10.0)
+    fixed = {"ph": FixedVariogram(model="gaussian", nugget=0.0, psill=1.0, range_m=400.0)}
+    s = InterpolationSettings(fixed=fixed)
+    with pytest.warns(InterpolationWarning) as record:
+        interpolate_farm(pts, grids, variables=["ph"], settings=s)
+    assert any(str(w.message).startswith("North, ph: ") for w in record)
