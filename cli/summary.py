@@ -16,6 +16,13 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
     rate_unit = result.farm.prep.project.settings.output.rate_unit
     click.echo(format_summary(result.tonnage, rate_unit=rate_unit))
+    first = result.record.get("first_season_tonnes")
+    if first:
+        click.echo("")
+        click.echo("Rates are split into seasons; the totals above cover every season.")
+        click.echo("To spread this season (then re-test before the next):")
+        for product, tonnes in sorted(first.items()):
+            click.echo(f"  {product}: {tonnes:,.2f} t")
     click.echo("")
     click.echo(f"Output folder: {result.out_dir}")
     for name in ("tonnage.csv", "map.html", "report.html", "run.json"):

@@ -49,6 +49,7 @@ from .pipeline import (
     versions,
 )
 from .settings import to_mapping
+from .tonnage import first_season_tonnes
 from .units import rate_from_kg_ha
 from .writers import (
     atomic_write,
@@ -326,6 +327,9 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "tonnage": json.loads(totals.to_json(orient="records")),
         "timings_s": {k: round(v, 3) for k, v in farm.timings.items()},
         "warnings": list(farm.warnings),
+        "first_season_tonnes": (
+            first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
+        ),
         "cautions": list(CAUTIONS),
     }
 

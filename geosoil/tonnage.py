@@ -56,7 +56,7 @@ import pandas as pd
 from .errors import InputError, SettingsError
 from .units import RATE_UNITS, format_rate
 
-__all__ = ["TONNAGE_COLUMNS", "LEVELS", "tonnage_table", "format_summary"]
+__all__ = ["TONNAGE_COLUMNS", "LEVELS", "tonnage_table", "format_summary", "first_season_tonnes"]
 
 logger = logging.getLogger(__name__)
 
@@ -305,3 +305,24 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
         "Rates are advisory: have them checked by a qualified agronomist before spreading."
     )
     return "\n".join(lines)
+
+
+def first_season_tonnes(zones: pd.DataFrame) -> dict[str, float]:
+    """Tonnes of each product to spread in the first season when rates are split into seasons.
+
+    A zone split into seasons gets ``per_pass_kg_ha`` this season and the rest in
+    later ones (after a re-test); a zone spread in one go gets its whole rate.
+
+    Examples
+    --------
+    >>> z = pd.DataFrame({"product": ["gypsum", "gypsum"], "area_ha": [10.0, 5.0],
+    ...                   "rate_kg_ha": [4000.0, 1000.0], "passes": [2, 1],
+    ...                   "per_pass_kg_ha": [2000.0, 1000.0]})
+    >>> first_season_tonnes(z)   # 10 ha x 2 t/ha + 5 ha x 1 t/ha [derived]
+    {'gypsum': 25.0}
+    """
+    if zones.empty:
+        return {}
+    per_pass = zones.get("per_pass_kg_ha", zones["rate_kg_ha"]).fillna(zones["rate_kg_ha"])
+    now = zones["area_ha"].astype(float) * per_pass.astype(float) / 1000.0
+    return {str(p): float(t) for p, t in now.groupby(zones["product"]).sum().items()}

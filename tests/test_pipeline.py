@@ -523,3 +523,26 @@ def test_a_ph_only_file_gives_ph_surfaces_and_skips_the_rules(tmp_path) -> None:
     assert "gypsum" in skipped and "lime" in skipped
     assert any("no exchangeable cations" in w for w in result.warnings)
     assert float(result.tonnage.loc[result.tonnage["level"] == "farm", "tonnes"].sum()) == 0.0
+
+
+def test_seasons_split_reports_this_seasons_tonnes(tmp_path) -> None:
+    """With rates split into seasons, run.json gives this season's tonnes: one per-pass rate
+    on split zones, the whole rate elsewhere ([derived] area x rate / 1000)."""
+    farm, _cache = copy_demo(tmp_path)
+    toml = farm / "geosoil.toml"
+    text = toml.read_text(encoding="utf-8").replace(
+        "[spreader]\n", '[spreader]\nsplit_into = "seasons"\n', 1
+    )
+    toml.write_text(text, encoding="utf-8")
+    result = run(load_project(farm), out_dir=tmp_path / "out")
+    first = result.record["first_season_tonnes"]
+    zones = result.farm.zones
+    for product, tonnes in first.items():
+        z = zones[zones["product"] == product]
+        by_hand = float((z["area_ha"] * z["per_pass_kg_ha"].fillna(z["rate_kg_ha"])).sum() / 1000)
+        total = float((z["area_ha"] * z["rate_kg_ha"]).sum() / 1000)
+        assert tonnes == pytest.approx(by_hand)
+        assert tonnes <= total + 1e-9
+    # the demo's Red Hill lime needs more than one pass (4 t/ha per pass), so this season is less
+    assert first["lime"] < float(zones.loc[zones["product"] == "lime", "area_ha"].mul(
+        zones.loc[zones["product"] == "lime", "rate_kg_ha"]).sum() / 1000)

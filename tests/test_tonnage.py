@@ -174,3 +174,16 @@ def test_property_totals_add_up(rows, capacity) -> None:
     loads = t["truckloads"].astype(float)
     assert (loads * capacity >= t["tonnes"] - 1e-6).all()
     assert ((loads - 1) * capacity < t["tonnes"] + 1e-6).all()
+
+
+def test_first_season_tonnes_take_one_pass_of_split_zones() -> None:
+    # [derived] tonnes = area x rate / 1000; a zone split into seasons spreads one
+    # per-pass rate this season, a zone not split spreads its whole rate
+    from geosoil.tonnage import first_season_tonnes
+
+    z = pd.DataFrame({
+        "product": ["gypsum", "gypsum", "lime"], "area_ha": [4.0, 2.0, 3.0],
+        "rate_kg_ha": [6000.0, 500.0, 0.0], "passes": [3, 1, 0],
+        "per_pass_kg_ha": [2000.0, 500.0, 0.0],
+    })
+    assert first_season_tonnes(z) == {"gypsum": 4 * 2 + 2 * 0.5, "lime": 0.0}
