@@ -231,7 +231,7 @@ def ensure_output_dir(
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise OutputExistsError(
             f"the output folder {out} exists and is not empty; choose a new folder or "
-            "allow overwriting (overwrite=True, on the command line --overwrite)"
+            "pass --overwrite to write over what is there"
         )
     out.mkdir(parents=True, exist_ok=True)
     return out
