@@ -55,6 +55,10 @@ __all__ = [
 
 PROJECT_FILE_NAME = "geosoil.toml"
 
+#: Smallest rate a new project's spreader meters, kg/ha: spinner spreaders rarely put out less
+#: lime or gypsum (common practice). The library's own default is 0 (no limit).
+NEW_MIN_RATE_KG_HA = 100.0
+
 
 @dataclass(frozen=True)
 class SoilSettings:
@@ -598,6 +602,13 @@ def new_project(
         samples=sample_settings,
         boundaries=dataclasses.replace(boundaries, paddocks=_relative(paddocks_path, folder)),
         farm=folder.resolve().name,
+        # a new project starts from a spreader that meters no less than NEW_MIN_RATE_KG_HA:
+        # tiny rates over whole paddocks are not what a spreader can put out
+        spreader=SpreaderSettings(unit="kg/ha", min_rate=NEW_MIN_RATE_KG_HA),
+    )
+    notes.append(
+        f"spreader minimum rate set to {NEW_MIN_RATE_KG_HA:g} kg/ha (common practice for "
+        "spinner spreaders); put your machine's figures in [spreader]"
     )
     text = template(settings, header=f"written by 'geosoil new' for {samples.name}")
     parse_project(text, base_dir=folder.resolve(), source=str(target))  # it must run as written

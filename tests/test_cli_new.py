@@ -2,19 +2,21 @@
 
 from __future__ import annotations
 
+import json
 import re
 import tomllib
 from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 import shapely
 from click.testing import CliRunner
 from pyproj import Transformer
 
 from cli.main import cli
-from geosoil.project import load_project
+from geosoil.project import NEW_MIN_RATE_KG_HA, load_project
 
 UTM = "EPSG:32755"  # WGS 84 / UTM zone 55S
 X0, Y0 = 540_000.0, 6_160_000.0  # a paddock of 400 m x 300 m in the Riverina
@@ -157,6 +159,11 @@ def test_the_new_project_checks_clean_and_runs_as_written(
     assert (tmp_path / "out" / "run.json").is_file()
     assert (tmp_path / "out" / "tonnage.csv").is_file()
     assert sorted(p.name for p in folder.iterdir()) == before  # nothing written beside it
+    # a new project's spreader meters no less than 100 kg/ha (common practice), so no zone
+    # carries a rate between 0 and that
+    zones = pd.DataFrame(json.loads((tmp_path / "out" / "run.json").read_text())["zones"])
+    rated = zones.loc[zones["rate_kg_ha"] > 0, "rate_kg_ha"]
+    assert (rated >= NEW_MIN_RATE_KG_HA).all()
 
 
 def test_projected_xy_inside_the_boundaries_take_their_crs_with_a_note(
