@@ -279,6 +279,7 @@ def surfaces_for(
                 stored = pickle.load(fh)
             if stored.get("key") == key and isinstance(stored.get("warnings"), list):
                 progress("surfaces: unchanged inputs, taken from the cache")
+                os.utime(path)  # most recently used: the pruning keeps it longest
                 prep.warnings.extend(w for w in stored["warnings"] if w not in prep.warnings)
                 return stored["surfaces"], True
         except Exception as exc:  # a damaged cache is rebuilt, never trusted
@@ -304,9 +305,22 @@ def surfaces_for(
                     protocol=pickle.HIGHEST_PROTOCOL,
                 )
             os.replace(tmp, path)
+            _prune_cache(path.parent, keep=CACHE_KEEP)
         except OSError as exc:
             logger.info("could not write the surface cache %s (%s)", path, exc)
     return surfaces, False
+
+
+#: How many cached surface sets the cache folder keeps (the most recently used).
+CACHE_KEEP = 24
+
+
+def _prune_cache(folder: Path, *, keep: int) -> None:
+    """Delete all but the ``keep`` most recently used surface files in ``folder``."""
+    files = sorted(folder.glob("surfaces-*.pickle"), key=lambda p: p.stat().st_mtime,
+                   reverse=True)
+    for old in files[keep:]:
+        old.unlink(missing_ok=True)
 
 
 # --------------------------------------------------------------------------- stage 5
