@@ -15,7 +15,7 @@ of three ways, chosen by :attr:`ZoneSettings.method`:
 
 How the zones are built
 -----------------------
-1. Exclusions (polygons; lines and points buffered by ``creek_buffer_m``) are
+1. Exclusions (polygons; lines and points buffered by ``line_buffer_m``) are
    clipped to the paddock, dissolved and split into their connected parts;
    each part is a zone of kind ``"exclusion"`` with rate 0. The rest of the
    paddock is the *working area*.
@@ -246,13 +246,6 @@ class ZoneSettings:
         0.0, doc="spreader_grid: direction of travel, clockwise from grid north",
         unit="degrees", minimum=0.0, maximum=360.0,
     )
-    creek_buffer_m: float = setting(
-        10.0,
-        doc="untreated distance each side of exclusion lines (creeks) given as lines; "
-        "a placeholder: local rules and codes of practice decide the real distance",
-        unit="m", minimum=0.0,
-    )
-
     def __post_init__(self) -> None:
         parse_statistic(self.statistic)
 
@@ -997,6 +990,7 @@ def make_zones(
     user_zones: gpd.GeoDataFrame | None = None,
     settings: ZoneSettings,
     spreader: SpreaderSettings | None = None,
+    line_buffer_m: float = 10.0,
 ) -> ZoneResult:
     """Spreader zones for one paddock and product.
 
@@ -1017,7 +1011,8 @@ def make_zones(
         Areas to leave untreated: a GeoDataFrame/GeoSeries (reprojected to
         ``crs`` if needed; labels from an ``exclusion`` or ``name`` column), a
         geometry or a list of geometries. Lines and points are buffered by
-        ``settings.creek_buffer_m``.
+        ``line_buffer_m`` (a project's creeks arrive already buffered by
+        ``[boundaries] creek_buffer_m``; local codes decide the real distance).
     user_zones
         The user's zones (GeoDataFrame with a CRS, ids in a ``zone`` column),
         for ``method = "user_zones"``.
@@ -1093,7 +1088,7 @@ def make_zones(
                          fix="check the paddock file")
 
     excl = _exclusion_area(exclusions, crs=crs, boundary=boundary,
-                           buffer_m=settings.creek_buffer_m)
+                           buffer_m=line_buffer_m)
     excluded = shapely.union_all([g for g, _ in excl]) if excl else shapely.Polygon()
     work = _polygonal(shapely.difference(boundary, excluded)) if excl else boundary
 

@@ -384,7 +384,7 @@ def test_exclusions_polygon_and_creek_line(field) -> None:
     creek = shapely.LineString([(X0 - 50, Y0 + 60), (X0 + 400, Y0 + 60)])  # crosses it all
     ex = gpd.GeoDataFrame({"exclusion": ["dam", "creek"]}, geometry=[dam, creek], crs=CRS)
     res = quiet_zones(rate, transform=t, boundary=boundary, exclusions=ex,
-                      settings=ZoneSettings(min_zone_area_ha=0.2, creek_buffer_m=10.0))
+                      settings=ZoneSettings(min_zone_area_ha=0.2), line_buffer_m=10.0)
     z = res.zones
     rate_z, excl_z = z[z["kind"] == "rate"], z[z["kind"] == "exclusion"]
     assert len(excl_z) == 2
