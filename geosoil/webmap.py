@@ -671,6 +671,17 @@ def remote_references(page: str) -> list[str]:
     return scanner.found
 
 
+class _Verbatim(Element):
+    """HTML written into the page as it is, never parsed as a template (Leaflet's own
+    files, our CSS, the legend): text with braces cannot turn into template code."""
+
+    _template = Template("{{ this.html }}")
+
+    def __init__(self, html: str) -> None:
+        super().__init__()
+        self.html = html
+
+
 class _Raw(MacroElement):
     """A script fragment written by this module (all values pre-encoded)."""
 
@@ -1030,9 +1041,9 @@ def build_map(
     figure: Any = fmap.get_root()  # a branca Figure (header, html, title)
     figure.title = escape_text(title)
     js, css = _leaflet_assets()
-    figure.header.add_child(Element(f"<style>{css}</style>"), name="leaflet_css_inline")
-    figure.header.add_child(Element(f"<script>{js}</script>"), name="leaflet_js_inline")
-    figure.header.add_child(Element(f"<style>{_PAGE_CSS}</style>"), name="geosoil_css")
+    figure.header.add_child(_Verbatim(f"<style>{css}</style>"), name="leaflet_css_inline")
+    figure.header.add_child(_Verbatim(f"<script>{js}</script>"), name="leaflet_js_inline")
+    figure.header.add_child(_Verbatim(f"<style>{_PAGE_CSS}</style>"), name="geosoil_css")
 
     folium.map.CustomPane(_RASTER_PANE, z_index=350, pointer_events=False).add_to(fmap)
     folium.map.CustomPane(_ZONE_PANE, z_index=410, pointer_events=True).add_to(fmap)
@@ -1219,7 +1230,7 @@ def build_map(
         for i, (_, _, legend) in enumerate(registry)
     )
     figure.html.add_child(
-        Element(
+        _Verbatim(
             f'<div class="geosoil-title" id="geosoil-title">{escape_text(title)}{notes_html}</div>'
             f'<div class="geosoil-legend" id="geosoil-legend" role="region" aria-label="Legend">'
             f"<h3>Legend</h3>{entries}</div>"
