@@ -33,11 +33,19 @@ from pyproj.database import query_utm_crs_info
 
 from .errors import CRSError, SettingsError
 
-__all__ = ["parse_crs", "choose_working_crs", "lonlat_bounds", "describe_crs", "is_metric"]
+__all__ = [
+    "LONLAT",
+    "parse_crs",
+    "choose_working_crs",
+    "lonlat_bounds",
+    "describe_crs",
+    "is_metric",
+]
 
 logger = logging.getLogger(__name__)
 
 #: CRS of longitude/latitude on WGS 84, x = longitude (as RFC 7946 uses it).
+#: WGS 84 longitude/latitude (EPSG:4326).
 LONLAT = pyproj.CRS.from_epsg(4326)
 
 

@@ -61,7 +61,16 @@ from .writers import (
     write_shapefile_zip,
 )
 
-__all__ = ["write_outputs", "SURFACE_UNITS"]
+__all__ = [
+    "write_outputs",
+    "build_record",
+    "build_farm_map",
+    "report_input",
+    "product_text",
+    "SURFACE_UNITS",
+    "TITLES",
+    "UNCERTAIN_SD",
+]
 
 logger = logging.getLogger(__name__)
 
@@ -90,7 +99,24 @@ def _rel(path: Path, root: Path) -> str:
 def write_outputs(
     farm: FarmResult, *, out_dir: Path, progress: Any = lambda _m: None
 ) -> tuple[list[Path], dict[str, Any]]:
-    """Write every output of ``farm`` into ``out_dir`` (which exists and is ours)."""
+    """Write every output of ``farm`` into ``out_dir`` (which exists and is ours).
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm from :func:`geosoil.pipeline.compute`.
+    out_dir : Path
+        The output folder, already checked by ``writers.ensure_output_dir``.
+    progress : callable, optional
+        Called with a short message at each stage.
+
+    Returns
+    -------
+    written : list of Path
+        Every file written.
+    record : dict
+        The run record, as written to ``run.json``.
+    """
     # GeoTIFFs are written by GDAL on worker threads (it releases the GIL) while this thread
     # goes on with the vector files, the map and the report; all are joined before run.json.
     with ThreadPoolExecutor(max_workers=2, thread_name_prefix="geosoil-cog") as pool:
@@ -299,7 +325,20 @@ def _surface_record(surf: Any) -> dict[str, Any]:
 
 
 def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
-    """The machine-readable record of a run (``run.json``)."""
+    """The machine-readable record of a run (``run.json``).
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm.
+    out_dir : Path
+        The output folder; file paths in the record are relative to it.
+
+    Returns
+    -------
+    dict
+        Settings, input checksums, versions, fits, zones, totals and warnings (JSON-ready).
+    """
     prep = farm.prep
     s = prep.project.settings
     zones = farm.zones
@@ -353,7 +392,18 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
 
 
 def build_farm_map(farm: FarmResult) -> str:
-    """The interactive map of a run."""
+    """The interactive map of a run.
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm.
+
+    Returns
+    -------
+    str
+        The self-contained HTML page (Leaflet inlined, works offline).
+    """
     prep = farm.prep
     s = prep.project.settings
     layers = []
@@ -464,7 +514,20 @@ UNCERTAIN_SD: dict[str, float] = {
 
 
 def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportInput:
-    """Gather what the report shows (see :mod:`geosoil.report`)."""
+    """Gather what the report shows (see :mod:`geosoil.report`).
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm.
+    record : dict
+        The run record from :func:`build_record`.
+
+    Returns
+    -------
+    geosoil.report.ReportInput
+        Everything :func:`geosoil.report.build_report` draws.
+    """
     prep = farm.prep
     s = prep.project.settings
     variograms = []
@@ -561,7 +624,18 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
 
 
 def product_text(prod: Any) -> str:
-    """One line describing a product's analysis as used (fractions as spread)."""
+    """One line describing a product's analysis as used (fractions as spread).
+
+    Parameters
+    ----------
+    prod : Product
+        An amendment product from :mod:`geosoil.products`.
+
+    Returns
+    -------
+    str
+        The line shown in the report.
+    """
     bits = [f"{prod.label}"]
     for v, label in ((prod.ca_fraction, "Ca"), (prod.mg_fraction, "Mg"), (prod.k_fraction, "K"),
                      (prod.s_fraction, "S")):

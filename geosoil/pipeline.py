@@ -68,7 +68,14 @@ __all__ = [
     "run",
     "check",
     "CAUTIONS",
+    "CACHE_KEEP",
+    "PaddockResult",
+    "surfaces_for",
     "slug",
+    "sha256_file",
+    "versions",
+    "now_utc",
+    "input_checksums",
 ]
 
 logger = logging.getLogger(__name__)
@@ -83,6 +90,18 @@ def _quiet(_: str) -> None:
 def slug(name: str) -> str:
     """A file-name-safe form of a paddock or product name.
 
+    Parameters
+    ----------
+    name : str
+        A paddock or product name as the user wrote it.
+
+    Returns
+    -------
+    str
+        Lower case letters, digits and dashes.
+
+    Examples
+    --------
     >>> slug("North Flat / Dam side")
     'north-flat-dam-side'
     """
@@ -91,6 +110,18 @@ def slug(name: str) -> str:
 
 
 def sha256_file(path: Path) -> str:
+    """SHA-256 checksum of a file, read in 1 MiB chunks.
+
+    Parameters
+    ----------
+    path : Path
+        The file to hash.
+
+    Returns
+    -------
+    str
+        The hexadecimal digest.
+    """
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
@@ -157,6 +188,18 @@ def _check_paddock_keys(
 
 def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     """Stages 1-4 without interpolation: read, check and place everything.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+    progress : callable, optional
+        Called with a short message at each stage.
+
+    Returns
+    -------
+    Prepared
+        The checked samples, paddocks, grids, products and settings.
 
     Raises
     ------
@@ -266,10 +309,25 @@ def surfaces_for(
 ) -> tuple[dict[tuple[str, str], Surface], bool]:
     """Interpolated surfaces, from the cache when their inputs are unchanged.
 
-    Returns the surfaces and whether they came from the cache. The warnings the
-    interpolation raised (fallbacks to inverse-distance weighting, zone values...)
-    are kept with the surfaces and recorded again on a cache hit, so a re-run
-    reports what the first run did.
+    The warnings the interpolation raised (fallbacks to inverse-distance
+    weighting, zone values...) are kept with the surfaces and recorded again on
+    a cache hit, so a re-run reports what the first run did.
+
+    Parameters
+    ----------
+    prep : Prepared
+        The checked inputs from :func:`prepare`.
+    progress : callable, optional
+        Called with a short message at each stage.
+    use_cache : bool, optional
+        False interpolates again even when the inputs are unchanged.
+
+    Returns
+    -------
+    surfaces : dict of (paddock, variable) to Surface
+        Every interpolated surface.
+    from_cache : bool
+        True when the surfaces came from the cache.
     """
     key = _surface_key(prep)
     path = _cache_dir(prep) / f"surfaces-{key[:32]}.pickle"
@@ -353,13 +411,34 @@ class FarmResult:
 
     @property
     def warnings(self) -> list[str]:
+        """Every warning recorded while reading, interpolating and computing."""
         return self.prep.warnings
 
 
 def compute(
     project: Project, *, progress: Progress = _quiet, use_cache: bool = True
 ) -> FarmResult:
-    """Stages 1-5: read, interpolate, compute rates, zones and tonnage."""
+    """Stages 1-5: read, interpolate, compute rates, zones and tonnage.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+    progress : callable, optional
+        Called with a short message at each stage.
+    use_cache : bool, optional
+        False interpolates again even when the inputs are unchanged.
+
+    Returns
+    -------
+    FarmResult
+        Surfaces, rates, zones and tonnage of every paddock, with the warnings.
+
+    Raises
+    ------
+    GeosoilError
+        Any input or settings problem.
+    """
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
     prep = prepare(project, progress=progress)
@@ -462,10 +541,12 @@ class RunResult:
 
     @property
     def tonnage(self) -> pd.DataFrame:
+        """The tonnage table (``tonnage.csv``)."""
         return self.farm.tonnage
 
     @property
     def warnings(self) -> list[str]:
+        """Every warning recorded during the run."""
         return self.farm.warnings
 
 
@@ -478,6 +559,24 @@ def run(
     use_cache: bool = True,
 ) -> RunResult:
     """The whole job into ``out_dir``.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+    out_dir : Path
+        The output folder (created; see :mod:`geosoil.outputs` for its layout).
+    overwrite : bool, optional
+        Replace the contents of a non-empty output folder.
+    progress : callable, optional
+        Called with a short message at each stage.
+    use_cache : bool, optional
+        False interpolates again even when the inputs are unchanged.
+
+    Returns
+    -------
+    RunResult
+        The computed farm, the files written and the run record.
 
     Raises
     ------
@@ -509,6 +608,11 @@ def _ensure_output(project: Project, out_dir: Path, *, overwrite: bool) -> Path:
 
 def check(project: Project) -> tuple[list[str], list[str]]:
     """Validate inputs and settings without writing anything.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
 
     Returns
     -------
@@ -555,7 +659,13 @@ def check(project: Project) -> tuple[list[str], list[str]]:
 
 
 def versions() -> dict[str, str]:
-    """Versions of geosoil, Python and the libraries whose numbers matter."""
+    """Versions of geosoil, Python and the libraries whose numbers matter.
+
+    Returns
+    -------
+    dict of str to str
+        Package name to version (GDAL and PROJ included when available).
+    """
     import importlib.metadata as md
 
     out = {"geosoil": __version__, "python": platform.python_version()}
@@ -578,10 +688,29 @@ def versions() -> dict[str, str]:
 
 
 def now_utc() -> str:
+    """The current time in UTC, ISO 8601 to the second.
+
+    Returns
+    -------
+    str
+        Such as ``"2026-12-02T04:50:00+00:00"``.
+    """
     return datetime.now(UTC).isoformat(timespec="seconds")
 
 
 def input_checksums(project: Project) -> list[tuple[str, str]]:
+    """SHA-256 checksums of a project's input files and of its project file.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+
+    Returns
+    -------
+    list of (path, sha256)
+        One pair per input file that exists, the project file last.
+    """
     out = []
     for p in project.input_files():
         if p is not None and Path(p).exists():

@@ -38,6 +38,7 @@ from .zones import ZoneSettings
 
 __all__ = [
     "PROJECT_FILE_NAME",
+    "NEW_MIN_RATE_KG_HA",
     "SoilSettings",
     "GridSettings",
     "TonnageSettings",

@@ -90,6 +90,7 @@ from .units import (
 )
 
 __all__ = [
+    "SECTION",
     "ENABLED_CHOICES",
     "INPUT_NAMES",
     "METHOD_CITATIONS",
