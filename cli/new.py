@@ -9,7 +9,7 @@ import click
 
 from geosoil.project import new_project
 
-from .options import echo_err, handle_errors, overwrite_option
+from .options import echo_err, handle_errors
 
 __all__ = ["new"]
 
@@ -51,7 +51,10 @@ def _check_crs(value: str | None) -> str | None:
     help="CRS of the samples' coordinates when the file carries none "
     "(EPSG code such as EPSG:28355, authority string or WKT).",
 )
-@overwrite_option
+@click.option(
+    "--overwrite", is_flag=True,
+    help="Replace FOLDER/geosoil.toml if it exists (the old file is not kept).",
+)
 @click.pass_context
 @handle_errors
 def new(
