@@ -252,7 +252,8 @@ def parse_header(header: str) -> HeaderInfo:
     >>> parse_header("Na mg kg-1").unit
     'mg/kg'
     """
-    text = str(header).replace("\ufeff", "").strip()
+    given = str(header)  # returned as written, so it still finds its column
+    text = given.replace("\ufeff", "").strip()
     plain = re.sub(r"\((\+|c)\)", r"\1", text)  # cmol(+)/kg -> cmol+/kg
     units: list[str] = []
     methods: list[str] = []
@@ -284,22 +285,22 @@ def parse_header(header: str) -> HeaderInfo:
     while words and words[-1] in _QUALIFIERS:
         words = words[:-1]
     if not words:
-        return HeaderInfo(text, None)
+        return HeaderInfo(given, None)
     # pH, with its method in the name ("pHw", "pH CaCl2") or in brackets.
     if words[0].startswith("ph") and (words[0] == "ph" or _ph_method(words[0][2:])):
         method_text = " ".join([words[0][2:], *words[1:], *methods]).lower()
         method = _ph_method(method_text)
         if method == "KCl":
-            return HeaderInfo(text, None, method="KCl", note="pH in KCl is not used; give pH in "
+            return HeaderInfo(given, None, method="KCl", note="pH in KCl is not used; give pH in "
                               "water or CaCl2")
         extra_words = any(c.isalpha() for c in " ".join(words[1:]))
         if note is not None or (extra_words and method is None):
-            return HeaderInfo(text, None, note=note)
-        return HeaderInfo(text, "ph", method=method)
+            return HeaderInfo(given, None, note=note)
+        return HeaderInfo(given, "ph", method=method)
     joined = " ".join(words)
     role = _ROLE_NAMES.get(joined)
     if role is not None:
-        return HeaderInfo(text, role)
+        return HeaderInfo(given, role)
     analyte = _ANALYTE_OF.get(joined)
     if analyte is None:
         # "Colwell K", "Total Ca", "Ca %", "Ca sat": name an analyte, hold something else.
@@ -310,24 +311,24 @@ def parse_header(header: str) -> HeaderInfo:
                 note = "a percentage (saturation), not an amount"
             else:
                 note = "another extract or measure, not the exchangeable amount"
-        return HeaderInfo(text, None, note=note)
+        return HeaderInfo(given, None, note=note)
     method = " ".join(methods) or None
     if note is not None:
-        return HeaderInfo(text, None, method=method, note=note)
+        return HeaderInfo(given, None, method=method, note=note)
     if analyte in EXCHANGEABLE and method is not None:
         if any(w in method.lower() for w in _NOT_EXCHANGEABLE):
-            return HeaderInfo(text, None, method=method,
+            return HeaderInfo(given, None, method=method,
                               note=f"a {method} extract, not the exchangeable amount")
     if len(set(units)) > 1:
-        return HeaderInfo(text, None, note=f"two units in one header: {', '.join(units)}")
+        return HeaderInfo(given, None, note=f"two units in one header: {', '.join(units)}")
     unit = units[0] if units else None
     if analyte in UNITLESS and unit is not None:
-        return HeaderInfo(text, None, note=f"{analyte} has no unit, but the header says {unit}")
+        return HeaderInfo(given, None, note=f"{analyte} has no unit, but the header says {unit}")
     if analyte in ("acidity", "cec") and unit == "mg/kg":
         return HeaderInfo(
-            text, None, note=f"{analyte} in mg/kg is not defined; give it in cmol(+)/kg"
+            given, None, note=f"{analyte} in mg/kg is not defined; give it in cmol(+)/kg"
         )
-    return HeaderInfo(text, analyte, unit=unit, method=method)
+    return HeaderInfo(given, analyte, unit=unit, method=method)
 
 
 def _preference(info: HeaderInfo) -> int:

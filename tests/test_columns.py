@@ -182,3 +182,43 @@ def test_detect_never_fails_and_maps_each_header_once(headers):
     used = list(guess.analytes.values())
     assert len(used) == len(set(used))
     assert set(used) <= set(headers)
+
+
+# --------------------------------------------------------------------------- messy header rows
+
+#: Header cells as labs write them, plus junk a spreadsheet export leaves behind.
+_MESSY_HEADERS = [
+    "Sample ID", "Sample", "ID", "Site", "Lab No", "Longitude", "Latitude", "Lon", "Lat",
+    "Easting", "Northing", "X", "Y", "Exch Ca (meq/100g)", "Ca", "Mg", "K", "Na", "Al", "H",
+    "Exch. Ca", "Ca (mg/kg)", "Mg (cmol(+)/kg)", "K (mmol/kg)", "Na (ppm)", "pH (water)",
+    "pH (CaCl2)", "pH", "CEC", "ECEC", "SAR", "Exch Acidity", "Calcium", "Ca %", "Notes",
+    "", " ", "\ufeffSample", "(meq/100g)", "meq/100g", "Ca/Mg", "Lat Lon", "column 7", "2",
+    "Ca Ca", "n.d.", "<0.1", "ÉCEC", "Échantillon", "\x00", "Ca\tMg", "Ca (meq/100g) (mg/kg)",
+]
+
+
+@given(st.lists(st.sampled_from(_MESSY_HEADERS) | st.text(max_size=10), max_size=10))
+def test_detect_columns_on_messy_rows_names_only_headers_given(headers):
+    """Property: any header row, duplicates and junk included, is read without an exception;
+    every role points at a header that is in the row, no header takes two roles, x and y differ."""
+    guess = detect_columns(headers)
+    named = [*guess.analytes.values(), *(h for h in (guess.id, guess.x, guess.y) if h)]
+    assert set(named) <= set(headers)
+    assert len(named) == len(set(named))
+    for tied in guess.ambiguous.values():
+        assert len(tied) > 1 and set(tied) <= set(headers)
+    assert (guess.x is None) == (guess.y is None)
+
+
+@given(st.sampled_from(_MESSY_HEADERS) | st.text(max_size=30))
+def test_parse_header_never_fails_and_keeps_the_header(header):
+    info = parse_header(header)
+    assert info.header == header
+
+
+def test_header_with_spaces_or_bom_is_returned_as_written():
+    """Regression (hypothesis found it): a padded header was returned stripped, so the reader
+    looked up a column that does not exist (KeyError on GeoJSON properties like ' Ca')."""
+    guess = detect_columns(["\ufeffSample", " Ca ", "Lon", "Lat"])
+    assert guess.id == "\ufeffSample" and guess.analytes["ca"] == " Ca "
+    assert parse_header(" Ca ").header == " Ca " and parse_header(" Ca ").role == "ca"
