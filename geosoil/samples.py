@@ -284,8 +284,14 @@ def _excel_column(i: int) -> str:
 
 
 def _missing(value: Any) -> bool:
-    """True for an empty cell as pandas or a reader gives it (None, NaN, NA, NaT)."""
-    return not isinstance(value, str) and bool(pd.isna(value))
+    """True for an empty cell as pandas or a reader gives it (None, NaN, NA, NaT).
+
+    A list or mapping (a GeoJSON array or object property) is not empty: it is
+    reported as a cell that is not a number.
+    """
+    if isinstance(value, str) or not pd.api.types.is_scalar(value):
+        return False
+    return bool(pd.isna(value))
 
 
 def _header_text(cell: Any) -> str:
@@ -412,7 +418,10 @@ def _separator(text: str) -> str:
     lines = [line for line in text.splitlines() if line.strip()][: HEADER_SEARCH_ROWS]
     best, best_key = ",", (0, 0)
     for sep in (",", ";", "\t"):
-        counts = [len(r) for r in csv.reader(lines, delimiter=sep)]
+        try:
+            counts = [len(r) for r in csv.reader(lines, delimiter=sep)]
+        except csv.Error:  # e.g. a field over the csv module's size limit: not this one
+            continue
         split = [c for c in counts if c > 1]
         if not split:
             continue
@@ -436,13 +445,26 @@ def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
     if not text.strip():
         raise InputError("the file is empty", file=name, fix="export the lab results again")
     sep = _separator(text)
+    records: list[list[str]] = []
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep)
     try:
-        records = list(csv.reader(io.StringIO(text, newline=""), delimiter=sep))
+        records.extend(reader)
     except csv.Error as exc:
         raise InputError(
-            f"the file cannot be read as CSV ({exc})", file=name,
-            fix=f"check the separator ('{sep}' was used) and the quotes",
+            f"the file cannot be read as CSV ({exc})", file=name, row=len(records) + 1,
+            fix=f"check the separator ('{sep}' was used) and the quotes on that row",
         ) from None
+    try:
+        for _ in csv.reader(io.StringIO(text, newline=""), delimiter=sep, strict=True):
+            pass
+    except csv.Error as exc:
+        if "unexpected end of data" in str(exc) and records:
+            # a quote opened and never closed swallows the rest of the file into one cell
+            raise InputError(
+                "a quote (\") opens on this row and is never closed, so the rest of the file "
+                "runs into one cell", file=name, row=len(records),
+                fix="remove the stray quote or close it",
+            ) from None
     width = max((len(r) for r in records), default=0)
     table = pd.DataFrame([r + [""] * (width - len(r)) for r in records], dtype=object)
     first = _find_header(table, settings)

@@ -806,3 +806,292 @@ def test_reading_records_no_unexpected_warnings(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         read(lab(tmp_path))
+
+
+# --------------------------------------------------------------------------- messy files (hypothesis)
+#
+# Whatever a user's file holds, reading it either works or raises a GeosoilError whose message
+# names the file (and the row, where one row is at fault): never another exception.
+
+import json  # noqa: E402
+import traceback  # noqa: E402
+
+from click.testing import CliRunner  # noqa: E402
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from cli.main import cli  # noqa: E402
+from geosoil.errors import GeosoilError  # noqa: E402
+
+_FUZZ = settings(max_examples=60, deadline=None,
+                 suppress_health_check=[HealthCheck.function_scoped_fixture])
+
+#: Header cells as labs write them, and junk.
+_HEADER_WORDS = [
+    "Sample ID", "Sample", "ID", "Lab No", "Longitude", "Latitude", "Lon", "Lat", "Easting",
+    "Northing", "X", "Y", "Exch Ca (meq/100g)", "Ca", "Mg", "K", "Na", "Al", "Ca (mg/kg)",
+    "Mg (cmol(+)/kg)", "pH (water)", "pH (CaCl2)", "CEC", "ECEC", "SAR", "Notes", "Ca %",
+    "", " ", "(meq/100g)", "meq/100g", "Lat Lon", "Ca Ca", "Échantillon",
+]
+#: Cell values as labs write them, and junk.
+_CELL_WORDS = [
+    "1", "0", "-1", "3,5", "3.5", "<0.1", "< 0,1", "<", "n.d.", "", "NaN", "inf", "-inf",
+    "1e308", "1e400", "99999999", "146.9", "-35.1", "146,9", "-35,1", "A1", "A1", '"q,1"',
+    "  ", "-", "<-1", "0x10", "1_000", "½", "True", ".", "1e-320",
+]
+
+
+@st.composite
+def messy_csv(draw) -> bytes:
+    """CSV bytes: random headers and cells, separator, line ends, ragged rows, BOM, stray bytes."""
+    sep = draw(st.sampled_from([",", ";", "\t"]))
+    width = draw(st.integers(1, 7))
+    cell = st.sampled_from(_CELL_WORDS) | st.text(max_size=4)
+    lines = [sep.join(draw(st.lists(st.sampled_from(_HEADER_WORDS) | st.text(max_size=6),
+                                    min_size=width, max_size=width)))]
+    for _ in range(draw(st.integers(0, 5))):
+        n = draw(st.integers(0, width + 1))
+        lines.append(sep.join(draw(st.lists(cell, min_size=n, max_size=n))))
+    data = draw(st.sampled_from(["\n", "\r\n", "\r"])).join(lines).encode("utf-8",
+                                                                          "surrogatepass")
+    if draw(st.booleans()):
+        data = b"\xef\xbb\xbf" + data
+    if draw(st.integers(0, 5)) == 0:
+        at = draw(st.integers(0, len(data)))
+        data = data[:at] + draw(st.sampled_from([b"\xff", b"\xe9", b"\x00", b'"', b"\r"])) + data[at:]
+    return data
+
+
+def _assert_only_geosoil_errors(path: Path, call) -> GeosoilError | None:
+    """Run ``call``; any exception must be a GeosoilError naming ``path``."""
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            call()
+    except GeosoilError as exc:
+        assert path.name in str(exc) or "setting" in str(exc), str(exc)
+        return exc
+    except Exception as exc:  # noqa: BLE001 - the property under test
+        pytest.fail("escaped as " + "".join(traceback.format_exception_only(exc)))
+    return None
+
+
+@_FUZZ
+@given(data=messy_csv(), on_bad_row=st.sampled_from(["stop", "skip"]))
+def test_messy_csv_raises_only_input_errors_naming_the_file(tmp_path, data, on_bad_row):
+    path = tmp_path / "lab.csv"
+    path.write_bytes(data)
+    exc = _assert_only_geosoil_errors(
+        path, lambda: read(path, on_bad_row=on_bad_row))
+    if isinstance(exc, InputError) and exc.row is not None:
+        assert 1 <= exc.row <= len(data.splitlines()) + 1
+        assert f"row {exc.row}" in str(exc)
+
+
+_GOOD = [("S1", "146.901", "-35.101", "5.1", "2.3", "6.1", "0.5", "0.4", "0.1"),
+         ("S2", "146.902", "-35.102", "4.2", "1.9", "5.8", "0.6", "0.3", "0.2"),
+         ("S3", "146.903", "-35.103", "6.0", "2.8", "6.4", "0.4", "0.5", "0.0"),
+         ("S4", "146.904", "-35.104", "3.7", "2.1", "5.5", "0.7", "0.2", "0.3")]
+_GOOD_HEADER = ("Sample", "Longitude", "Latitude", "Ca (cmol/kg)", "Mg (cmol/kg)", "pH (water)",
+                "K (cmol/kg)", "Na (cmol/kg)", "Al (cmol/kg)")
+#: Cells that are wrong in each column (common practice: a lab value is a non-negative number,
+#: a pH lies within 1.5-12.5, a longitude within +-180 and a latitude within +-90 degrees).
+_BAD_CELLS = {
+    0: ["", "S1"],  # empty or repeated sample ID (S1 is the first row's)
+    1: ["abc", "", "999", "n.d."],
+    2: ["abc", "", "999", "1e400"],
+    3: ["abc", "-1", "", "n.d.", "1e400", "inf", "99999", "<", "1..2"],
+    4: ["abc", "-1", "", "n.d.", "1e400", "inf", "99999", "<", "1..2"],
+    5: ["abc", "-1", "", "99", "inf"],
+}
+
+
+@st.composite
+def one_bad_cell(draw) -> tuple[bytes, int, str]:
+    """A good lab file written in any of the accepted ways, with one wrong cell.
+
+    Returns the bytes, the line number of the bad row (as a person counts lines in the file)
+    and the header of the bad column.
+    """
+    sep = draw(st.sampled_from([",", ";", "\t"]))
+    comma = sep != "," and draw(st.booleans())
+    quote = draw(st.booleans())
+    bad_row = draw(st.integers(1, len(_GOOD) - 1))  # the first row keeps ID 'S1'
+    bad_col = draw(st.sampled_from(sorted(_BAD_CELLS)))
+    rows = [list(r) for r in _GOOD]
+    rows[bad_row][bad_col] = draw(st.sampled_from(_BAD_CELLS[bad_col]))
+
+    def field(text: str) -> str:
+        if comma and text[:1].isdigit() or comma and text[:1] == "-":
+            text = text.replace(".", ",")
+        return f'"{text}"' if quote else text
+
+    lines = []
+    if draw(st.booleans()):
+        lines += ["Soil test results", ""]
+    lines.append(sep.join(field(h) for h in _GOOD_HEADER))
+    header_line = len(lines)
+    bad_line = 0
+    for i, r in enumerate(rows):
+        if draw(st.integers(0, 3)) == 0:
+            lines.append("")
+        lines.append(sep.join(field(c) for c in r))
+        if i == bad_row:
+            bad_line = len(lines)
+    assert header_line < bad_line
+    text = draw(st.sampled_from(["\n", "\r\n"])).join(lines) + draw(st.sampled_from(["", "\n"]))
+    bom = b"\xef\xbb\xbf" if draw(st.booleans()) else b""
+    return bom + text.encode("utf-8"), bad_line, _GOOD_HEADER[bad_col]
+
+
+@_FUZZ
+@given(case=one_bad_cell())
+def test_one_bad_cell_is_named_by_row_and_column(tmp_path, case):
+    data, line, column = case
+    path = tmp_path / "lab.csv"
+    path.write_bytes(data)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        err = error_of(path)
+    assert_names(err, file=path, row=line, column=column)
+    # with on_bad_row = 'skip' the same row, and only it, is passed over
+    with pytest.warns(DataWarning, match=f"row {line}"):
+        got = read(path, on_bad_row="skip")
+    assert [r for r, _ in got.skipped] == [line]
+    assert line not in got.samples["source_row"].tolist() and len(got.samples) == 3
+
+
+def test_the_good_file_behind_one_bad_cell_reads(tmp_path):
+    path = write(tmp_path, "\n".join(",".join(r) for r in [_GOOD_HEADER, *_GOOD]))
+    got = read(path)
+    assert got.samples["sample_id"].tolist() == ["S1", "S2", "S3", "S4"]
+    assert got.samples["ca"].tolist() == [5.1, 4.2, 6.0, 3.7]
+
+
+_PROPS = [{}, {"Sample": "A1", "Ca": 1}, {"Sample": "A1", "Ca": "x"}, {"Sample": None, "Ca": None},
+          {"Sample": "A2", "Ca": [1, 2]}, {"Sample": "A3", "Ca": {"v": 1}}, {"Sample": "A3", "Ca": True},
+          {"Sample": 5, "Ca": 1e308}, {" Sample ": "A5", " Ca": 2}, {"sample": "A6", "CA": -1},
+          {"Sample": "A7", "Ca": 1, "source_row": 3, "paddock": "x", "geometry": 1}]
+_POINTS = [None, {"type": "Point", "coordinates": [146, -35]}, {"type": "Point", "coordinates": []},
+           {"type": "Point", "coordinates": [146, -35, 3]},
+           {"type": "MultiPoint", "coordinates": [[146, -35], [146.1, -35]]},
+           {"type": "MultiPoint", "coordinates": []},
+           {"type": "Polygon", "coordinates": [[[0, 0], [1, 0], [1, 1], [0, 0]]]},
+           {"type": "GeometryCollection", "geometries": []},
+           {"type": "Point", "coordinates": [540000, 6160000]},
+           {"type": "Point", "coordinates": [1e308, 0]}]
+
+
+@st.composite
+def messy_sample_geojson(draw) -> str:
+    features = [{"type": "Feature", "properties": draw(st.sampled_from(_PROPS)),
+                 "geometry": draw(st.sampled_from(_POINTS))}
+                for _ in range(draw(st.integers(0, 4)))]
+    top: dict = {"type": "FeatureCollection", "features": features}
+    crs = draw(st.sampled_from([None, "EPSG:4326", "EPSG:28355", "junk"]))
+    if crs:
+        top["crs"] = {"type": "name", "properties": {"name": crs}}
+    text = json.dumps(top)
+    if draw(st.integers(0, 9)) == 0:
+        text = text[: draw(st.integers(0, len(text)))]  # cut short
+    return text
+
+
+@_FUZZ
+@given(text=messy_sample_geojson(), on_bad_row=st.sampled_from(["stop", "skip"]))
+def test_messy_sample_geojson_raises_only_input_errors(tmp_path, text, on_bad_row):
+    path = write(tmp_path, text, name="lab.geojson")
+    exc = _assert_only_geosoil_errors(path, lambda: read(path, on_bad_row=on_bad_row))
+    if isinstance(exc, InputError) and exc.row is not None:
+        assert 1 <= exc.row <= text.count('"Feature"')
+
+
+# Regressions: the smallest failing files hypothesis found, written out.
+
+
+def test_geojson_array_property_is_a_bad_cell_not_a_crash(tmp_path):
+    """A GeoJSON array in a value column was a ValueError ('truth value of an array')."""
+    feature = {"type": "Feature", "properties": {"Sample": "A2", "Ca": [1, 2]},
+               "geometry": {"type": "Point", "coordinates": [146, -35]}}
+    path = write(tmp_path, json.dumps({"type": "FeatureCollection", "features": [feature]}),
+                 name="lab.geojson")
+    assert_names(error_of(path), file=path, row=1, column="Ca")
+    assert "not a number" in str(error_of(path))
+
+
+def test_geojson_property_names_with_spaces_are_found(tmp_path):
+    """Property names with spaces around them (' Ca', 'Sample ') were a KeyError."""
+    feature = {"type": "Feature", "properties": {"Sample ": "A1", " Ca": 1.5},
+               "geometry": {"type": "Point", "coordinates": [146, -35]}}
+    path = write(tmp_path, json.dumps({"type": "FeatureCollection", "features": [feature]}),
+                 name="lab.geojson")
+    got = read(path, crs="EPSG:4326")
+    assert got.columns["ca"] == " Ca" and got.samples["ca"].tolist() == [1.5]
+    assert got.samples["sample_id"].tolist() == ["A1"]
+
+
+def test_a_cell_over_the_csv_size_limit_is_an_input_error(tmp_path):
+    """A field longer than the csv module's limit (131072 characters) was a _csv.Error."""
+    path = write(tmp_path, "Sample,Lon,Lat,Ca\nA," + "1" * 200_000 + ",-35,1\n")
+    err = error_of(path)
+    assert_names(err, file=path, row=2, column=None)
+
+
+def test_an_unclosed_quote_names_its_row(tmp_path):
+    """A quote never closed swallowed the rest of the file into one cell; the error blamed
+    an empty coordinate instead of the quote."""
+    path = write(tmp_path, 'Sample,Lon,Lat,Ca\nA,146,-35,1\n"B,146,-35,1\nC,146,-35,1\n')
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column=None)
+    assert "quote" in str(err)
+
+
+# The command line on such files: exit 1, a message, never a traceback.
+
+
+def _project(folder: Path, lab_bytes: bytes) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[box(146.89, -35.12, 146.92, -35.09)],
+                     crs=4326).to_file(folder / "paddocks.geojson")
+    (folder / "lab.csv").write_bytes(lab_bytes)
+    (folder / "geosoil.toml").write_text(
+        '[samples]\nfile = "lab.csv"\n\n[boundaries]\npaddocks = "paddocks.geojson"\n\n'
+        f'[output]\ncache_dir = "{(folder / "cache").as_posix()}"\n'
+    )
+    return folder
+
+
+def _assert_clean_failure(result) -> None:
+    assert result.exit_code == 1, (result.exit_code, result.stderr, result.exception)
+    lines = result.stderr.splitlines()
+    assert any(ln.startswith(("error:", "problem:")) for ln in lines), result.stderr
+    assert "Traceback" not in result.stderr + result.stdout
+
+
+def test_cli_good_project_behind_the_messy_files_checks(tmp_path):
+    good = "\n".join(",".join(r) for r in [_GOOD_HEADER, *_GOOD]).encode()
+    result = CliRunner().invoke(cli, ["check", str(_project(tmp_path / "p", good))])
+    assert result.exit_code == 0, result.stderr
+
+
+@settings(max_examples=12, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(case=one_bad_cell(), command=st.sampled_from(["check", "run"]))
+def test_cli_on_a_bad_lab_file_exits_1_with_a_message(tmp_path_factory, case, command):
+    data, line, _column = case
+    folder = _project(tmp_path_factory.mktemp("cli"), data)
+    extra = [] if command == "check" else ["--out", str(folder / "out")]
+    result = CliRunner().invoke(cli, [command, str(folder), *extra])
+    _assert_clean_failure(result)
+    assert f"row {line}" in result.stderr
+
+
+@settings(max_examples=12, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=messy_csv(), command=st.sampled_from(["check", "run"]))
+def test_cli_on_a_messy_lab_file_never_shows_a_traceback(tmp_path_factory, data, command):
+    folder = _project(tmp_path_factory.mktemp("cli"), data)
+    extra = [] if command == "check" else ["--out", str(folder / "out")]
+    result = CliRunner().invoke(cli, [command, str(folder), *extra])
+    if result.exit_code != 0:  # a random file may happen to be a good one
+        _assert_clean_failure(result)
