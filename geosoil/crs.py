@@ -112,6 +112,18 @@ def parse_crs(value: Any, *, key: str) -> pyproj.CRS:
 def describe_crs(crs: pyproj.CRS) -> str:
     """A short name for messages: ``"GDA94 / MGA zone 55 (EPSG:28355)"``.
 
+    Parameters
+    ----------
+    crs : pyproj.CRS
+        Any CRS.
+
+    Returns
+    -------
+    str
+        Its name, with the authority code when it has one.
+
+    Examples
+    --------
     >>> describe_crs(pyproj.CRS.from_epsg(32755))
     'WGS 84 / UTM zone 55S (EPSG:32755)'
     """
@@ -122,6 +134,18 @@ def describe_crs(crs: pyproj.CRS) -> str:
 def is_metric(crs: pyproj.CRS) -> bool:
     """True for a projected CRS whose horizontal axes are in metres.
 
+    Parameters
+    ----------
+    crs : pyproj.CRS
+        Any CRS.
+
+    Returns
+    -------
+    bool
+        Whether distances in it are metres.
+
+    Examples
+    --------
     >>> is_metric(pyproj.CRS.from_epsg(28355)), is_metric(pyproj.CRS.from_epsg(4326))
     (True, False)
     """
@@ -136,6 +160,23 @@ def lonlat_bounds(*, frames: Sequence[gpd.GeoDataFrame]) -> tuple[float, float, 
 
     Each frame must have a CRS; empty frames are passed over.
 
+    Parameters
+    ----------
+    frames : sequence of GeoDataFrame
+        Layers with a CRS.
+
+    Returns
+    -------
+    tuple of float
+        (west, south, east, north), degrees.
+
+    Raises
+    ------
+    CRSError
+        A layer has no CRS, or there are no features.
+
+    Examples
+    --------
     >>> from shapely.geometry import Point
     >>> f = gpd.GeoDataFrame(geometry=[Point(146.9, -35.1), Point(147.0, -35.0)], crs=4326)
     >>> lonlat_bounds(frames=[f])

@@ -145,7 +145,13 @@ class OutputSettings:
 
 
 def default_products() -> dict[str, ProductSettings]:
-    """The products a new project lists: gypsum and agricultural lime."""
+    """The products a new project lists: gypsum and agricultural lime.
+
+    Returns
+    -------
+    dict of str to ProductSettings
+        ``gypsum`` and ``lime`` with their default analyses.
+    """
     return {"gypsum": ProductSettings(), "lime": ProductSettings()}
 
 
@@ -199,6 +205,7 @@ class Project:
 
     @property
     def folder(self) -> Path | None:
+        """The folder of the project file (None for a project read from text)."""
         return None if self.path is None else self.path.parent
 
     def input_files(self) -> list[Path]:
@@ -265,6 +272,15 @@ def settings_problems(
     rest is validated again, until it passes or a problem cannot be set aside
     (a required key is missing, or a check spans keys that were not written).
 
+    Parameters
+    ----------
+    text : str
+        The TOML text.
+    base_dir : Path
+        Folder that relative paths resolve from.
+    source : str, optional
+        Name of the text in messages.
+
     Returns
     -------
     settings, problems
@@ -307,6 +323,20 @@ def settings_problems(
 
 def parse_project(text: str, *, base_dir: Path, source: str = "project file") -> ProjectSettings:
     """Parse and validate project-file ``text``; relative paths resolve from ``base_dir``.
+
+    Parameters
+    ----------
+    text : str
+        The TOML text.
+    base_dir : Path
+        Folder that relative paths resolve from.
+    source : str, optional
+        Name of the text in messages.
+
+    Returns
+    -------
+    ProjectSettings
+        The validated settings.
 
     Raises
     ------
@@ -351,6 +381,16 @@ def _read_text(p: Path) -> str:
 def load_project(path: Path | str) -> Project:
     """Load a project from its TOML file or from the folder that holds ``geosoil.toml``.
 
+    Parameters
+    ----------
+    path : Path or str
+        The project file, or the folder that holds ``geosoil.toml``.
+
+    Returns
+    -------
+    Project
+        The validated settings, the file's path and its text.
+
     Raises
     ------
     InputError
@@ -367,11 +407,17 @@ def load_project(path: Path | str) -> Project:
 def load_project_problems(path: Path | str) -> tuple[Project | None, list[GeosoilError]]:
     """Like :func:`load_project`, but return every problem instead of raising the first.
 
+    Parameters
+    ----------
+    path : Path or str
+        The project file, or the folder that holds ``geosoil.toml``.
+
     Returns
     -------
     project, problems
         The project when its file reads and its settings are valid (else
         None), and the problems found.
+
     """
     try:
         p = _project_path(path)
@@ -461,6 +507,18 @@ def template(settings: ProjectSettings, *, header: str = "") -> str:
     Every key is written with its value and a one-line comment (unit and allowed
     values); keys without a value are written commented out. The text parses
     back to the same settings.
+
+    Parameters
+    ----------
+    settings : ProjectSettings
+        The values to write.
+    header : str, optional
+        Comment lines put at the top of the file.
+
+    Returns
+    -------
+    str
+        The TOML text.
     """
     lines = ["# geosoil project file. Units are in the key names or the comments."]
     if header:
@@ -502,6 +560,19 @@ def new_project(
     ``crs`` when given; lon/lat when the coordinate columns are named or look
     like longitude and latitude; else the boundaries' CRS when the x/y fall
     inside the boundaries in that CRS (a note says so).
+
+    Parameters
+    ----------
+    folder : Path or str
+        The project folder (created when missing).
+    samples : Path or str
+        The lab results file.
+    paddocks : Path or str
+        The paddock boundaries file.
+    crs : str, optional
+        CRS of the sample coordinates when the file carries none.
+    overwrite : bool, optional
+        Replace an existing ``folder/geosoil.toml``.
 
     Returns
     -------

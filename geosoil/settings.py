@@ -73,6 +73,11 @@ def setting(
         Allowed numeric range (inclusive unless ``exclusive_minimum``).
     choices
         Allowed string values.
+
+    Returns
+    -------
+    dataclasses.Field
+        The field, with the description and limits in its metadata.
     """
     meta = {
         "doc": doc,
@@ -122,7 +127,26 @@ def check_range(
     exclusive_minimum: bool = False,
     unit: str | None = None,
 ) -> None:
-    """Raise :class:`SettingsError` naming ``key`` when ``value`` is out of range."""
+    """Raise :class:`SettingsError` naming ``key`` when ``value`` is out of range.
+
+    Parameters
+    ----------
+    value : float
+        The value to check.
+    key : str
+        Dotted key named in the message.
+    minimum, maximum : float, optional
+        Allowed range (inclusive unless ``exclusive_minimum``).
+    exclusive_minimum : bool, optional
+        ``minimum`` itself is not allowed.
+    unit : str, optional
+        Unit shown in the message.
+
+    Raises
+    ------
+    SettingsError
+        ``value`` is not finite or is out of range.
+    """
     u = f" {unit}" if unit else ""
     if isinstance(value, float) and not math.isfinite(value):
         raise SettingsError(f"must be a finite number (got {value})", key=key)
@@ -225,6 +249,11 @@ def from_mapping(
     base_dir
         Relative ``Path`` values are resolved against this folder.
 
+    Returns
+    -------
+    T
+        An instance of ``cls``.
+
     Raises
     ------
     SettingsError
@@ -275,7 +304,18 @@ def _plain(value: Any) -> Any:
 
 
 def to_mapping(obj: Any) -> dict[str, Any]:
-    """The settings as a plain mapping (None values left out), ready for TOML or JSON."""
+    """The settings as a plain mapping (None values left out), ready for TOML or JSON.
+
+    Parameters
+    ----------
+    obj : dataclass instance
+        Settings (nested settings become nested mappings).
+
+    Returns
+    -------
+    dict
+        Key to plain value (paths as text).
+    """
     out: dict[str, Any] = {}
     for f in dataclasses.fields(obj):
         v = getattr(obj, f.name)
@@ -286,7 +326,18 @@ def to_mapping(obj: Any) -> dict[str, Any]:
 
 
 def describe(cls: type) -> list[SettingDoc]:
-    """The keys of settings dataclass ``cls`` with defaults, comments and limits."""
+    """The keys of settings dataclass ``cls`` with defaults, comments and limits.
+
+    Parameters
+    ----------
+    cls : type
+        A dataclass whose fields were declared with :func:`setting`.
+
+    Returns
+    -------
+    list of SettingDoc
+        One entry per key, in declaration order.
+    """
     docs = []
     for f in dataclasses.fields(cls):
         if f.default is not _MISSING:

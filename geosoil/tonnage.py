@@ -239,6 +239,11 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
     rate_unit
         Unit of the mean rates shown: one of :data:`geosoil.units.RATE_UNITS`.
 
+    Returns
+    -------
+    str
+        The summary, several lines.
+
     Raises
     ------
     SettingsError
@@ -312,6 +317,16 @@ def first_season_tonnes(zones: pd.DataFrame) -> dict[str, float]:
 
     A zone split into seasons gets ``per_pass_kg_ha`` this season and the rest in
     later ones (after a re-test); a zone spread in one go gets its whole rate.
+
+    Parameters
+    ----------
+    zones : DataFrame
+        Zones with ``product``, ``area_ha``, ``rate_kg_ha``, ``passes`` and ``per_pass_kg_ha``.
+
+    Returns
+    -------
+    dict of str to float
+        Tonnes per product (empty when there are no zones).
 
     Examples
     --------

@@ -111,7 +111,23 @@ _UNIT_ALIASES: dict[str, str] = {
 
 
 def mg_per_cmol(analyte: str) -> float:
-    """mg/kg of ``analyte`` in 1 cmol(+)/kg: 10 x atomic weight / charge."""
+    """mg/kg of ``analyte`` in 1 cmol(+)/kg: 10 x atomic weight / charge.
+
+    Parameters
+    ----------
+    analyte : str
+        Canonical cation name (``ca``, ``mg``, ``k``, ``na``, ``al``, ``h``...).
+
+    Returns
+    -------
+    float
+        mg/kg per cmol(+)/kg.
+
+    Raises
+    ------
+    SettingsError
+        An analyte without a mass conversion.
+    """
     try:
         element, charge = CHARGE[analyte]
     except KeyError:
@@ -138,6 +154,23 @@ _SQUASHED_ALIASES: dict[str, str] = {
 def normalise_unit(text: str) -> str:
     """Canonical spelling of a cation unit, from the spellings labs print.
 
+    Parameters
+    ----------
+    text : str
+        The unit as the lab printed it.
+
+    Returns
+    -------
+    str
+        One of ``cmol/kg``, ``meq/100g``, ``mg/kg``, ``mmol/kg``...
+
+    Raises
+    ------
+    SettingsError
+        A unit that is not a known spelling.
+
+    Examples
+    --------
     >>> normalise_unit("meq/100 g")
     'meq/100g'
     >>> normalise_unit("cmol(+)/kg")
@@ -159,6 +192,27 @@ def normalise_unit(text: str) -> str:
 def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
     """Convert exchangeable ``analyte`` values from ``unit`` to cmol(+)/kg.
 
+    Parameters
+    ----------
+    values : array_like
+        The lab's values.
+    analyte : str
+        Canonical cation name (``ca``, ``mg``, ``k``, ``na``, ``al``, ``h``...).
+    unit : str
+        Their unit, any spelling :func:`normalise_unit` reads.
+
+    Returns
+    -------
+    ndarray of float64
+        The values in cmol(+)/kg.
+
+    Raises
+    ------
+    SettingsError
+        An unknown unit or analyte.
+
+    Examples
+    --------
     >>> float(to_cmol_kg(200.39, "ca", "mg/kg")[()]).__round__(6)
     1.0
     >>> float(to_cmol_kg(25.0, "na", "mmol/kg")[()])
@@ -174,7 +228,27 @@ def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64
 
 
 def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
-    """Convert cmol(+)/kg to ``unit``; the inverse of :func:`to_cmol_kg`."""
+    """Convert cmol(+)/kg to ``unit``; the inverse of :func:`to_cmol_kg`.
+
+    Parameters
+    ----------
+    values : array_like
+        Values in cmol(+)/kg.
+    analyte : str
+        Canonical cation name (``ca``, ``mg``, ``k``, ``na``, ``al``, ``h``...).
+    unit : str
+        The unit wanted.
+
+    Returns
+    -------
+    ndarray of float64
+        The values in ``unit``.
+
+    Raises
+    ------
+    SettingsError
+        An unknown unit or analyte.
+    """
     u = normalise_unit(unit)
     v = np.asarray(values, dtype=float)
     if u in ("cmol/kg", "meq/100g"):
@@ -185,14 +259,42 @@ def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float
 
 
 def kg_per_ha_of_layer(*, depth_m: ArrayLike, bulk_density_g_cm3: ArrayLike) -> ArrayLike:
-    """Mass of soil in a layer, kg/ha: 10 000 m2 x depth (m) x BD (kg/m3)."""
+    """Mass of soil in a layer, kg/ha: 10 000 m2 x depth (m) x BD (kg/m3).
+
+    Parameters
+    ----------
+    depth_m : array_like
+        Depth of the layer, m.
+    bulk_density_g_cm3 : array_like
+        Dry bulk density, g/cm3.
+
+    Returns
+    -------
+    array_like
+        kg of soil per hectare.
+    """
     return 10_000.0 * np.asarray(depth_m) * np.asarray(bulk_density_g_cm3) * 1000.0
 
 
 def mg_kg_to_kg_ha(
     mg_kg: ArrayLike, *, depth_m: ArrayLike, bulk_density_g_cm3: ArrayLike
 ) -> ArrayLike:
-    """kg/ha of a substance present at ``mg_kg`` in a layer of soil."""
+    """kg/ha of a substance present at ``mg_kg`` in a layer of soil.
+
+    Parameters
+    ----------
+    mg_kg : array_like
+        Concentration in the soil, mg/kg.
+    depth_m : array_like
+        Depth of the layer, m.
+    bulk_density_g_cm3 : array_like
+        Dry bulk density, g/cm3.
+
+    Returns
+    -------
+    array_like
+        kg/ha.
+    """
     layer = np.asarray(kg_per_ha_of_layer(depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3))
     return np.asarray(mg_kg) * 1e-6 * layer
 
@@ -204,24 +306,74 @@ def cmol_kg_to_kg_ha(
     depth_m: ArrayLike,
     bulk_density_g_cm3: ArrayLike,
 ) -> ArrayLike:
-    """kg/ha of a substance supplying ``cmol_kg`` of charge, ``mg_per_cmol_c`` mg/kg each."""
+    """kg/ha of a substance supplying ``cmol_kg`` of charge, ``mg_per_cmol_c`` mg/kg each.
+
+    Parameters
+    ----------
+    cmol_kg : array_like
+        Charge to supply, cmol(+)/kg.
+    mg_per_cmol_c : float
+        mg/kg of the substance per cmol(+)/kg.
+    depth_m : array_like
+        Depth of the layer, m.
+    bulk_density_g_cm3 : array_like
+        Dry bulk density, g/cm3.
+
+    Returns
+    -------
+    array_like
+        kg/ha.
+    """
     return mg_kg_to_kg_ha(
         np.asarray(cmol_kg) * mg_per_cmol_c, depth_m=depth_m, bulk_density_g_cm3=bulk_density_g_cm3
     )
 
 
 def kg_ha_to_lb_ac(kg_ha: ArrayLike) -> ArrayLike:
-    """kg/ha to lb/ac (exact factor)."""
+    """kg/ha to lb/ac (exact factor).
+
+    Parameters
+    ----------
+    kg_ha : array_like
+        Rate in kg/ha.
+
+    Returns
+    -------
+    array_like
+        Rate in lb/ac.
+    """
     return np.asarray(kg_ha) / KG_HA_PER_LB_AC
 
 
 def lb_ac_to_kg_ha(lb_ac: ArrayLike) -> ArrayLike:
-    """lb/ac to kg/ha (exact factor)."""
+    """lb/ac to kg/ha (exact factor).
+
+    Parameters
+    ----------
+    lb_ac : array_like
+        Rate in lb/ac.
+
+    Returns
+    -------
+    array_like
+        Rate in kg/ha.
+    """
     return np.asarray(lb_ac) * KG_HA_PER_LB_AC
 
 
 def kg_ha_to_mg_m2(kg_ha: ArrayLike) -> ArrayLike:
-    """kg/ha to mg/m2 (ISO 11783-10 DDI 6 unit): 1 kg/ha = 100 mg/m2."""
+    """kg/ha to mg/m2 (ISO 11783-10 DDI 6 unit): 1 kg/ha = 100 mg/m2.
+
+    Parameters
+    ----------
+    kg_ha : array_like
+        Rate in kg/ha.
+
+    Returns
+    -------
+    array_like
+        Rate in mg/m2.
+    """
     return np.asarray(kg_ha) * 100.0
 
 
@@ -230,7 +382,25 @@ RATE_UNITS: tuple[str, ...] = ("kg/ha", "t/ha", "lb/ac")
 
 
 def rate_from_kg_ha(kg_ha: ArrayLike, unit: str) -> ArrayLike:
-    """Express a rate given in kg/ha in ``unit`` (one of :data:`RATE_UNITS`)."""
+    """Express a rate given in kg/ha in ``unit`` (one of :data:`RATE_UNITS`).
+
+    Parameters
+    ----------
+    kg_ha : array_like
+        Rate in kg/ha.
+    unit : str
+        One of :data:`RATE_UNITS`.
+
+    Returns
+    -------
+    array_like
+        Rate in ``unit``.
+
+    Raises
+    ------
+    SettingsError
+        An unknown unit.
+    """
     if unit == "kg/ha":
         return np.asarray(kg_ha)
     if unit == "t/ha":
@@ -241,7 +411,25 @@ def rate_from_kg_ha(kg_ha: ArrayLike, unit: str) -> ArrayLike:
 
 
 def rate_to_kg_ha(value: ArrayLike, unit: str) -> ArrayLike:
-    """Convert a rate in ``unit`` to kg/ha; the inverse of :func:`rate_from_kg_ha`."""
+    """Convert a rate in ``unit`` to kg/ha; the inverse of :func:`rate_from_kg_ha`.
+
+    Parameters
+    ----------
+    value : array_like
+        Rate in ``unit``.
+    unit : str
+        One of :data:`RATE_UNITS`.
+
+    Returns
+    -------
+    array_like
+        Rate in kg/ha.
+
+    Raises
+    ------
+    SettingsError
+        An unknown unit.
+    """
     if unit == "kg/ha":
         return np.asarray(value)
     if unit == "t/ha":
@@ -271,6 +459,11 @@ def format_rate(
         header names the unit).
     missing
         Text for a rate that is not a number.
+
+    Returns
+    -------
+    str
+        The rate as text (``"2,500 kg/ha"``).
 
     Raises
     ------
