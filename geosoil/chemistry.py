@@ -153,6 +153,18 @@ def ecec_from_parts(
 
     A missing part (NaN) gives a NaN ECEC; :func:`derive` decides what to do then.
 
+    Parameters
+    ----------
+    ca, mg, k, na, acidity : array_like
+        Exchangeable amounts, cmol(+)/kg.
+
+    Returns
+    -------
+    ndarray of float64
+        ECEC, cmol(+)/kg (NaN where a part is missing).
+
+    Examples
+    --------
     >>> float(ecec_from_parts(8.0, 3.0, 0.5, 1.5, 2.0)[()])
     15.0
     """
@@ -163,6 +175,20 @@ def ecec_from_parts(
 def saturation(part: ArrayLike, ecec: ArrayLike) -> NDArray[np.float64]:
     """``part`` as percent of ``ecec``; NaN where the ECEC is missing or not positive.
 
+    Parameters
+    ----------
+    part : array_like
+        Exchangeable amount, cmol(+)/kg.
+    ecec : array_like
+        ECEC, cmol(+)/kg.
+
+    Returns
+    -------
+    ndarray of float64
+        Percent of the ECEC.
+
+    Examples
+    --------
     >>> saturation([1.5, 1.0], [13.0, 0.0]).round(3).tolist()
     [11.538, nan]
     """
@@ -181,6 +207,18 @@ def esp_from_sar(sar: ArrayLike) -> NDArray[np.float64]:
     ESR = -0.0126 + 0.01475 SAR; ESP = 100 ESR / (1 + ESR). Below SAR 0.854
     the relation gives a negative ESR; the ESP is then 0.
 
+    Parameters
+    ----------
+    sar : array_like
+        Sodium adsorption ratio, (mmol/L)^0.5.
+
+    Returns
+    -------
+    ndarray of float64
+        Estimated ESP, %.
+
+    Examples
+    --------
     >>> esp_from_sar([5.0, 10.0, 0.0]).round(3).tolist()
     [5.763, 11.887, 0.0]
     """
@@ -194,6 +232,20 @@ def sodicity_class(
 ) -> NDArray[np.str_]:
     """Sodicity class of each ESP: "non-sodic", "sodic", "strongly sodic" ("unknown" for NaN).
 
+    Parameters
+    ----------
+    esp : array_like
+        ESP, %.
+    settings : ChemistrySettings, optional
+        The class limits (default: :class:`ChemistrySettings` defaults).
+
+    Returns
+    -------
+    ndarray of str
+        One class per value.
+
+    Examples
+    --------
     >>> sodicity_class([2.0, 6.0, 15.0, float("nan")]).tolist()
     ['non-sodic', 'sodic', 'strongly sodic', 'unknown']
     """

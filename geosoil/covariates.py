@@ -34,6 +34,18 @@ def read_onto_grid(path: Path, grid: PaddockGrid) -> NDArray[np.float64]:
     Cells the raster does not cover, or where it holds nodata, are NaN; so are
     cells outside the grid's mask.
 
+    Parameters
+    ----------
+    path : Path
+        The raster file.
+    grid : PaddockGrid
+        The paddock's grid.
+
+    Returns
+    -------
+    ndarray of float64
+        Values on the grid, NaN where the raster has no data.
+
     Raises
     ------
     InputError
@@ -69,6 +81,22 @@ def bulk_density_on_grid(
     path: Path, grid: PaddockGrid, *, fallback_g_cm3: float, key: str = "soil.bulk_density_raster"
 ) -> NDArray[np.float64]:
     """Bulk density per cell from a raster, the paddock's value where it has none.
+
+    Parameters
+    ----------
+    path : Path
+        Bulk density raster, g/cm3.
+    grid : PaddockGrid
+        The paddock's grid.
+    fallback_g_cm3 : float
+        The paddock's bulk density, used where the raster has no data.
+    key : str, optional
+        Setting named in messages.
+
+    Returns
+    -------
+    ndarray of float64
+        Bulk density per cell, g/cm3.
 
     Raises
     ------

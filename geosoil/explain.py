@@ -58,6 +58,23 @@ class Explanation:
 def parse_location(text: str) -> tuple[float, float]:
     """Parse ``"A,B"`` into two numbers.
 
+    Parameters
+    ----------
+    text : str
+        Two numbers separated by a comma (``"147.45,-34.69"``).
+
+    Returns
+    -------
+    tuple of float
+        The two numbers.
+
+    Raises
+    ------
+    InputError
+        Not two finite numbers.
+
+    Examples
+    --------
     >>> parse_location("147.1, -35.2")
     (147.1, -35.2)
     """
@@ -104,6 +121,11 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
     coords
         ``"lonlat"``, ``"xy"`` or ``"auto"`` (lon/lat when the numbers fit
         longitude and latitude ranges, else x/y in the working CRS).
+
+    Returns
+    -------
+    Location
+        The point in both coordinate systems, its paddock and grid cell.
 
     Raises
     ------
@@ -166,6 +188,11 @@ def explain_location(
         longitude and latitude ranges, else x/y in the working CRS).
     n_samples
         How many nearest samples to show.
+
+    Returns
+    -------
+    Explanation
+        Nearest samples, interpolated values, cell chemistry, rule steps and zone rates.
 
     Raises
     ------
@@ -251,7 +278,18 @@ def _nan(v: Any) -> bool:
 
 
 def format_explanation(e: Explanation) -> str:
-    """The explanation as text for a terminal, top to bottom in the order of the arithmetic."""
+    """The explanation as text for a terminal, top to bottom in the order of the arithmetic.
+
+    Parameters
+    ----------
+    e : Explanation
+        From :func:`explain_location`.
+
+    Returns
+    -------
+    str
+        The text, several lines.
+    """
     out: list[str] = []
     out.append(
         f"Location: lon {e.lon:.6f}, lat {e.lat:.6f} = x {e.x:.1f}, y {e.y:.1f} (working CRS)"

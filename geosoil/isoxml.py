@@ -402,6 +402,16 @@ def grid_from_zones(
 def grid_bytes(grid: TaskGrid) -> bytes:
     """The binary file of a type 2 grid: little-endian int32, rows from the south.
 
+    Parameters
+    ----------
+    grid : TaskGrid
+        The rate grid.
+
+    Returns
+    -------
+    bytes
+        The ``GRD00001.bin`` content.
+
     Examples
     --------
     >>> g = TaskGrid(min_north=-35.0, min_east=148.0, cell_north=0.0001, cell_east=0.0001,
@@ -496,6 +506,11 @@ def taskdata_xml(
         :class:`~geosoil.errors.DataWarning`).
     software_version
         Written as ``ManagementSoftwareVersion``.
+
+    Returns
+    -------
+    str
+        The XML text.
 
     Examples
     --------

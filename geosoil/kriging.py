@@ -749,6 +749,11 @@ def idw(
     block_cells
         Targets per block (bounds memory).
 
+    Returns
+    -------
+    ndarray
+        The estimate at each target.
+
     Examples
     --------
     >>> idw([[0.0, 0.0], [10.0, 0.0]], [1.0, 3.0], [[0.0, 0.0], [5.0, 0.0], [2.5, 0.0]]).tolist()

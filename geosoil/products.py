@@ -95,6 +95,11 @@ def molar_mass(formula: Mapping[str, int]) -> float:
         Element symbol -> number of atoms; the symbols must be in
         :data:`geosoil.units.ATOMIC_WEIGHT`.
 
+    Returns
+    -------
+    float
+        g/mol.
+
     Examples
     --------
     >>> round(molar_mass({"Ca": 1, "S": 1, "O": 6, "H": 4}), 2)   # CaSO4·2H2O
@@ -209,6 +214,11 @@ def fineness_factor(
     factors
         One factor per size class: ``len(sieves_mesh) + 1`` values, coarsest
         class first.
+
+    Returns
+    -------
+    float
+        Fineness factor, 0 to 1.
 
     Raises
     ------
@@ -529,6 +539,13 @@ def resolve_products(settings_by_name: Mapping[str, ProductSettings]) -> dict[st
 def default_products() -> dict[str, Product]:
     """Every built-in material as a product of 100 % purity, by its own key.
 
+    Returns
+    -------
+    dict of str to Product
+        Material key to product.
+
+    Examples
+    --------
     >>> sorted(default_products())
     ['dolomite', 'gypsum', 'hydrated_lime', 'lime', 'potassium_sulfate', 'quicklime']
     """

@@ -705,6 +705,18 @@ def check_inputs(
 def inputs_used(settings: RateSettings, available: set[str]) -> list[str]:
     """The input surfaces the running rules will read (so only those need interpolating).
 
+    Parameters
+    ----------
+    settings : RateSettings
+        The rate settings (which rules run).
+    available : set of str
+        Variables the samples have.
+
+    Returns
+    -------
+    list of str
+        Sorted variable names.
+
     Examples
     --------
     >>> inputs_used(RateSettings(), {"esp", "ecec", "al", "ph", "ca", "na", "k"})
@@ -1433,7 +1445,18 @@ def explain_cell(
 
 
 def format_steps(steps: list[Step]) -> str:
-    """The steps as text, one per line (what the command line prints)."""
+    """The steps as text, one per line (what the command line prints).
+
+    Parameters
+    ----------
+    steps : list of Step
+        From :func:`explain_cell`.
+
+    Returns
+    -------
+    str
+        The text, several lines.
+    """
     lines = [str(s) for s in steps]
     lines.append(
         "Rates are advisory: have them checked by a qualified agronomist before spreading."
@@ -1492,6 +1515,20 @@ def spreader_passes(rate_kg_ha: ArrayLike, spreader: SpreaderSettings) -> tuple[
     passes of at most ``max_per_pass``, each rounded to the rate step and kept
     within the smallest and largest step-multiples in ``[min_rate, max_per_pass]``.
 
+    Parameters
+    ----------
+    rate_kg_ha : array_like
+        Required rate, kg/ha.
+    spreader : SpreaderSettings
+        The spreader's limits.
+
+    Returns
+    -------
+    passes : int or ndarray of int64
+        Number of passes (0 where nothing is spread).
+    per_pass : float or ndarray
+        Rate per pass, kg/ha.
+
     Examples
     --------
     >>> sp = SpreaderSettings(unit="t/ha", min_rate=0.5, max_per_pass=2.5, rate_step=0.25)
@@ -1539,6 +1576,18 @@ def apply_spreader_limits(
         Counting the cells set to 0 below the minimum and the cells split
         into several passes (or seasons).
 
+    Parameters
+    ----------
+    rate_kg_ha : ndarray of float64
+        Required rate per cell, kg/ha.
+    spreader : SpreaderSettings
+        The spreader's limits.
+
+    Returns
+    -------
+    ndarray of float64
+        Rate spread per cell, kg/ha.
+
     Examples
     --------
     >>> import numpy as np
@@ -1578,6 +1627,20 @@ def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings
     ``"3 passes of 0.75 t/ha"`` when ``split_into = "passes"``; ``"2 seasons of
     2.0 t/ha"`` when ``split_into = "seasons"`` (one application a year,
     re-testing the soil between). Empty for one pass or none.
+
+    Parameters
+    ----------
+    passes : int
+        Number of passes.
+    per_pass_kg_ha : float
+        Rate per pass, kg/ha.
+    spreader : SpreaderSettings
+        The spreader's limits.
+
+    Returns
+    -------
+    str
+        Such as ``"2 seasons of 2.0 t/ha"``; empty for one pass.
 
     Examples
     --------

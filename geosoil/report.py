@@ -585,6 +585,11 @@ def zone_map_svg(
     uid
         Text unique in the page, for the SVG's pattern id.
 
+    Returns
+    -------
+    str
+        The SVG markup (or a short note when there are no zones).
+
     Examples
     --------
     >>> import geopandas as gpd

@@ -226,6 +226,16 @@ def variables_to_interpolate(samples: gpd.GeoDataFrame) -> list[str]:
 
     ``esp`` is interpolated directly only when there is no exchangeable Na (ESP
     estimated from SAR); ``cec`` only when the parts of an ECEC are incomplete.
+
+    Parameters
+    ----------
+    samples : GeoDataFrame
+        The checked samples.
+
+    Returns
+    -------
+    list of str
+        Variable names.
     """
     have = [
         v

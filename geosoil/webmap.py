@@ -247,6 +247,18 @@ def _ramp_rgb(name: str, t: np.ndarray) -> np.ndarray:
 def ramp_colour(name: str, t: float) -> str:
     """The hex colour at position ``t`` (0 to 1, clipped) along ramp ``name``.
 
+    Parameters
+    ----------
+    name : str
+        Name of the colour ramp.
+    t : float
+        Position along it.
+
+    Returns
+    -------
+    str
+        Such as ``"#1a9850"``.
+
     Examples
     --------
     >>> ramp_colour("blue-orange", 0.5)
@@ -509,6 +521,21 @@ def warp_to_web_mercator(
 def encode_png(rgba: np.ndarray) -> bytes:
     """Encode an 8-bit RGBA image (rows, columns, 4) as PNG bytes.
 
+    Parameters
+    ----------
+    rgba : ndarray of uint8
+        Image of shape (rows, columns, 4).
+
+    Returns
+    -------
+    bytes
+        The PNG file.
+
+    Raises
+    ------
+    InputError
+        The array is not (rows, columns, 4).
+
     Examples
     --------
     >>> import numpy as np
@@ -538,6 +565,18 @@ def encode_png(rgba: np.ndarray) -> bytes:
 
 def colourise(values: np.ndarray, layer: RasterLayer) -> np.ndarray:
     """RGBA (uint8) image of ``values`` in ``layer``'s colour scheme; NaN is transparent.
+
+    Parameters
+    ----------
+    values : ndarray
+        The surface.
+    layer : RasterLayer
+        The layer's colour scheme and range.
+
+    Returns
+    -------
+    ndarray of uint8
+        Image of shape (rows, columns, 4).
 
     Examples
     --------
@@ -657,6 +696,16 @@ def remote_references(page: str) -> list[str]:
     elements (script, link, img, iframe, ...) and CSS ``url(...)`` / ``@import``,
     other than ``data:`` URIs and in-page ``#`` references. Links a person may
     follow (``<a href>``) and text inside scripts are not fetches and not listed.
+
+    Parameters
+    ----------
+    page : str
+        The HTML page.
+
+    Returns
+    -------
+    list of str
+        Every address that would be fetched (empty for an offline page).
 
     Examples
     --------
@@ -1269,6 +1318,16 @@ def build_map(
 def label_point(geom: Any) -> Any:
     """Where a polygon's label goes: the pole of inaccessibility of its largest part
     (the inside point farthest from the edges), so labels avoid holes and thin arms.
+
+    Parameters
+    ----------
+    geom : shapely geometry
+        A polygon or multipolygon.
+
+    Returns
+    -------
+    shapely.Point
+        The label position, inside the geometry.
 
     Examples
     --------

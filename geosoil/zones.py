@@ -171,6 +171,11 @@ def parse_statistic(text: str) -> float | None:
     text
         ``"mean"`` or ``"pNN"`` with NN from 0 to 100 (``"p50"``, ``"p90"``, ``"p87.5"``).
 
+    Returns
+    -------
+    float or None
+        The percentile (0-100), or None for the mean.
+
     Raises
     ------
     SettingsError
@@ -292,6 +297,11 @@ def limit_zone_rate(raw_kg_ha: float, *, spreader: SpreaderSettings | None = Non
         The zone's rate before limits, kg/ha (not a number, or 0 or less: nothing spread).
     spreader
         The spreader's limits; ``None``: no limits (the raw rate in one pass).
+
+    Returns
+    -------
+    ZoneRate
+        Rate spread, passes, rate per pass and schedule.
 
     Examples
     --------
