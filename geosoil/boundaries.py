@@ -384,11 +384,27 @@ def _as_text(value: Any) -> str | None:
 # --------------------------------------------------------------------------- geometry
 
 
+def _a(noun: str) -> str:
+    """``noun`` with its indefinite article ("a paddock", "an exclusion")."""
+    return ("an " if noun[:1] in "aeiou" else "a ") + noun
+
+
+def _flat_parts(geom: BaseGeometry) -> list[BaseGeometry]:
+    """The parts of a collection, with collections nested inside it opened too."""
+    parts = []
+    for part in shapely.get_parts(geom):
+        if part.geom_type == "GeometryCollection":
+            parts.extend(_flat_parts(part))
+        else:
+            parts.append(part)
+    return parts
+
+
 def _polygonal_part(geom: BaseGeometry) -> BaseGeometry:
     """The polygons of a geometry (parts of a collection), as one valid (Multi)Polygon."""
     if geom.geom_type in _POLYGONAL:
         return geom
-    parts = [p for p in shapely.get_parts(geom) if p.geom_type in _POLYGONAL and not p.is_empty]
+    parts = [p for p in _flat_parts(geom) if p.geom_type in _POLYGONAL and not p.is_empty]
     if not parts:
         return shapely.Polygon()
     return shapely.union_all(parts)
@@ -407,16 +423,16 @@ def _clean_polygon(
     geom = shapely.force_2d(geom)
     gtype = geom.geom_type
     if gtype == "GeometryCollection":
-        kinds = {p.geom_type for p in shapely.get_parts(geom)}
+        kinds = {p.geom_type for p in _flat_parts(geom)}
         if not kinds <= set(_POLYGONAL):
             raise InputError(
-                f"{where} mixes geometry types ({', '.join(sorted(kinds))}); "
-                f"a {what} must be a polygon",
+                f"{where} is a collection of {', '.join(sorted(kinds))}; "
+                f"{_a(what)} must be a polygon",
                 file=path, row=row, fix=fix_type,
             )
     elif gtype not in _POLYGONAL:
         raise InputError(
-            f"{where} is a {gtype}; a {what} must be a polygon or multipolygon",
+            f"{where} is a {gtype}; {_a(what)} must be a polygon or multipolygon",
             file=path, row=row, fix=fix_type,
         )
     if not geom.is_valid:
@@ -670,7 +686,7 @@ def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame
                     f"creek '{names[i - 1]}' has no geometry", file=path, row=i,
                     fix="draw the creek line, or delete the feature",
                 )
-            kinds_here = {p.geom_type for p in shapely.get_parts(g)}
+            kinds_here = {p.geom_type for p in _flat_parts(g)}
             if not kinds_here <= set(_LINEAR) | set(_POLYGONAL):
                 raise InputError(
                     f"creek '{names[i - 1]}' is a {g.geom_type}; creeks are lines "

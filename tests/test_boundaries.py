@@ -458,3 +458,179 @@ def test_user_zones_must_be_polygons(tmp_path):
                          [({"zone": 1}, {"type": "Point", "coordinates": [147, -34]})])
     with pytest.raises(InputError, match=r"row 1: zone '1' is a Point"):
         read_user_zones(path, crs=UTM55S)
+
+
+# --------------------------------------------------------------------------- messy GeoJSON (hypothesis)
+#
+# Whatever a paddock, exclusion, creek or zones file holds, reading it works or raises a
+# GeosoilError naming the file (and the feature, where one feature is at fault).
+
+import traceback  # noqa: E402
+
+from click.testing import CliRunner  # noqa: E402
+
+from cli.main import cli  # noqa: E402
+from geosoil.boundaries import read_user_zones as _read_zones  # noqa: E402
+from geosoil.errors import GeosoilError  # noqa: E402
+
+_SQ = [[[146.0, -35.0], [146.01, -35.0], [146.01, -35.01], [146.0, -35.01], [146.0, -35.0]]]
+_MESSY_GEOMETRIES = [
+    None, "abc", 5, {"type": "Polygon"}, {"type": "Polygonx", "coordinates": []},
+    {"type": "Polygon", "coordinates": []}, {"type": "MultiPolygon", "coordinates": []},
+    {"type": "Polygon", "coordinates": _SQ},
+    {"type": "Polygon", "coordinates": [[[146, -35], [146.01, -35.01], [146.01, -35],
+                                         [146, -35.01], [146, -35]]]},  # bow tie
+    {"type": "Polygon", "coordinates": [[[146, -35], [146.01, -35], [146.02, -35],
+                                         [146, -35]]]},  # no area
+    {"type": "Polygon", "coordinates": [[[146, -35], [146.01, -35], [146.01, -35.01]]]},  # open
+    {"type": "Polygon", "coordinates": [[[146, -35, 9], [146.01, -35, 9], [146, -35.01, 9],
+                                         [146, -35, 9]]]},
+    {"type": "Polygon", "coordinates": [*_SQ, [[147, -36], [147.01, -36], [147, -36.01],
+                                               [147, -36]]]},  # hole outside the shell
+    {"type": "Polygon", "coordinates": [[[0, 0], [1e308, 0], [1e308, 1e308], [0, 0]]]},
+    {"type": "Point", "coordinates": [146, -35]},
+    {"type": "LineString", "coordinates": [[146, -35], [146.01, -35]]},
+    {"type": "GeometryCollection", "geometries": []},
+    {"type": "GeometryCollection", "geometries": [{"type": "Polygon", "coordinates": _SQ},
+                                                  {"type": "Point", "coordinates": [146, -35]}]},
+    {"type": "GeometryCollection", "geometries": [
+        {"type": "GeometryCollection", "geometries": [{"type": "Polygon", "coordinates": _SQ}]}]},
+]
+_MESSY_PROPERTIES = [
+    None, {}, {"name": "A"}, {"name": "A"}, {"name": None}, {"name": ""}, {"name": "  "},
+    {"name": 5}, {"name": 1.5}, {"name": True}, {"name": [1]}, {"name": {"a": 1}},
+    {"paddock": "B"}, {"Name": "A", "name": "B"}, {" name ": "C"}, {"zone": 2}, {"type": "dam"},
+]
+_MESSY_CRS = [None, {"type": "name", "properties": {"name": "EPSG:4326"}},
+              {"type": "name", "properties": {"name": "EPSG:28355"}},
+              {"type": "name", "properties": {"name": "junk"}},
+              {"type": "name", "properties": {"name": None}}, {"type": "name"}, "x"]
+
+
+@st.composite
+def messy_geojson(draw) -> str:
+    """GeoJSON text: wrong types, empty and invalid geometries, missing properties, odd CRS,
+    nested collections, files cut short."""
+    features = []
+    for _ in range(draw(st.integers(0, 4))):
+        feature: dict = {"type": draw(st.sampled_from(["Feature", "Feature", "feature"]))}
+        if draw(st.integers(0, 9)):
+            feature["geometry"] = draw(st.sampled_from(_MESSY_GEOMETRIES))
+        if draw(st.integers(0, 9)):
+            feature["properties"] = draw(st.sampled_from(_MESSY_PROPERTIES))
+        features.append(feature)
+    top: object = {"type": draw(st.sampled_from(
+        ["FeatureCollection", "FeatureCollection", "Feature", "GeometryCollection"])),
+        "features": features}
+    crs = draw(st.sampled_from([*_MESSY_CRS, "leave out", "leave out"]))
+    if crs != "leave out":
+        top["crs"] = crs
+    if draw(st.integers(0, 9)) == 0:
+        top = draw(st.sampled_from([[], {}, "x", None, {"type": "FeatureCollection"},
+                                    {"type": "FeatureCollection", "features": {}}]))
+    text = json.dumps(top)
+    if draw(st.integers(0, 14)) == 0:
+        text = text[: draw(st.integers(0, len(text)))]  # cut short
+    return text
+
+
+def _only_geosoil_errors(path: Path, call) -> GeosoilError | None:
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            call()
+    except GeosoilError as exc:
+        assert path.name in str(exc), str(exc)
+        if isinstance(exc, InputError) and exc.row is not None:
+            assert f"row {exc.row}" in str(exc) and 1 <= exc.row <= 4
+        return exc
+    except Exception as exc:  # noqa: BLE001 - the property under test
+        pytest.fail("escaped as " + "".join(traceback.format_exception_only(exc)))
+    return None
+
+
+@settings(max_examples=80, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(text=messy_geojson(), duplicate_names=st.sampled_from(["merge", "error"]))
+def test_messy_geojson_raises_only_geosoil_errors_naming_the_file(tmp_path, text,
+                                                                   duplicate_names):
+    path = tmp_path / "paddocks.geojson"
+    path.write_text(text)
+    s = BoundarySettings(paddocks=path, exclusions=path, creeks=path,
+                         duplicate_names=duplicate_names)
+    _only_geosoil_errors(path, lambda: read_paddocks(s))
+    _only_geosoil_errors(path, lambda: read_exclusions(s, crs=UTM55S))
+    _only_geosoil_errors(path, lambda: _read_zones(path, crs=UTM55S,
+                                                   duplicate_names=duplicate_names))
+
+
+def _geojson(path: Path, *features: tuple[dict, dict | None]) -> Path:
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": p, "geometry": g} for p, g in features]}))
+    return path
+
+
+def test_nested_geometry_collection_of_polygons_is_a_paddock(tmp_path):
+    """A GeometryCollection inside a GeometryCollection (allowed by GeoJSON, RFC 7946 section
+    3.1.8, though discouraged) holding one square was refused as 'mixing' types."""
+    nested = {"type": "GeometryCollection", "geometries": [
+        {"type": "GeometryCollection", "geometries": [{"type": "Polygon", "coordinates": _SQ}]}]}
+    path = _geojson(tmp_path / "p.geojson", ({"name": "A"}, nested))
+    out = read_paddocks(BoundarySettings(paddocks=path))
+    assert out.geometry[0].equals(shapely.Polygon(_SQ[0]))
+
+
+def test_nested_collection_with_a_point_names_the_feature(tmp_path):
+    nested = {"type": "GeometryCollection", "geometries": [
+        {"type": "GeometryCollection", "geometries": [
+            {"type": "Polygon", "coordinates": _SQ}, {"type": "Point", "coordinates": [146, -35]}]}]}
+    path = _geojson(tmp_path / "p.geojson", ({"name": "A"}, {"type": "Polygon", "coordinates": _SQ}),
+                    ({"name": "B"}, nested))
+    with pytest.raises(InputError) as info:
+        read_paddocks(BoundarySettings(paddocks=path))
+    assert info.value.row == 2 and "p.geojson, row 2" in str(info.value)
+    assert "Point" in str(info.value) and "Fix:" in str(info.value)
+
+
+def test_nested_collection_of_lines_is_a_creek(tmp_path):
+    line = {"type": "LineString", "coordinates": [[146.0, -35.0], [146.01, -35.0]]}
+    nested = {"type": "GeometryCollection", "geometries": [
+        {"type": "GeometryCollection", "geometries": [line]}]}
+    pad = _geojson(tmp_path / "p.geojson", ({"name": "A"}, {"type": "Polygon", "coordinates": _SQ}))
+    creeks = _geojson(tmp_path / "c.geojson", ({}, nested))
+    out = read_exclusions(BoundarySettings(paddocks=pad, creeks=creeks), crs=UTM55S)
+    assert out["kind"].tolist() == ["creek buffer"] and out.geometry[0].area > 0
+
+
+def test_an_exclusion_line_message_reads_well(tmp_path):
+    line = {"type": "LineString", "coordinates": [[146.0, -35.0], [146.01, -35.0]]}
+    path = _geojson(tmp_path / "x.geojson", ({}, line))
+    with pytest.raises(InputError, match="an exclusion must be a polygon"):
+        read_exclusions(BoundarySettings(paddocks=path, exclusions=path), crs=UTM55S)
+
+
+# The command line on messy paddock files: exit 1 with a message, never a traceback.
+
+_LAB = ("Sample,Longitude,Latitude,Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),"
+        "Al (cmol/kg),pH (water)\n"
+        + "".join(f"S{i},146.00{i},-35.00{i},5.{i},2.1,0.5,0.4,0.1,6.{i}\n" for i in range(1, 6)))
+
+
+@settings(max_examples=15, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(text=messy_geojson(), command=st.sampled_from(["check", "run"]))
+def test_cli_on_a_messy_paddock_file_never_shows_a_traceback(tmp_path_factory, text, command):
+    folder = tmp_path_factory.mktemp("cli")
+    (folder / "lab.csv").write_text(_LAB)
+    (folder / "paddocks.geojson").write_text(text)
+    (folder / "geosoil.toml").write_text(
+        '[samples]\nfile = "lab.csv"\n\n[boundaries]\npaddocks = "paddocks.geojson"\n\n'
+        f'[output]\ncache_dir = "{(folder / "cache").as_posix()}"\n')
+    extra = [] if command == "check" else ["--out", str(folder / "out")]
+    result = CliRunner().invoke(cli, [command, str(folder), *extra])
+    assert "Traceback" not in result.stderr + result.stdout
+    assert result.exit_code in (0, 1), (result.exit_code, result.stderr, result.exception)
+    assert result.exception is None or isinstance(result.exception, SystemExit), repr(
+        result.exception)
+    if result.exit_code == 1:
+        assert any(ln.startswith(("error:", "problem:")) for ln in result.stderr.splitlines())

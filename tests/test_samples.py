@@ -1063,6 +1063,7 @@ def _project(folder: Path, lab_bytes: bytes) -> Path:
 
 def _assert_clean_failure(result) -> None:
     assert result.exit_code == 1, (result.exit_code, result.stderr, result.exception)
+    assert isinstance(result.exception, SystemExit), repr(result.exception)  # no escape
     lines = result.stderr.splitlines()
     assert any(ln.startswith(("error:", "problem:")) for ln in lines), result.stderr
     assert "Traceback" not in result.stderr + result.stdout
