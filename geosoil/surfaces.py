@@ -120,6 +120,7 @@ class FixedVariogram:
             )
 
     def as_model(self) -> VariogramModel:
+        """The fixed variogram as a :class:`~geosoil.variogram.VariogramModel`."""
         return VariogramModel(
             name=self.model, nugget=self.nugget, psill=self.psill, range=self.range_m, nu=self.nu
         )

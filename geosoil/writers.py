@@ -106,6 +106,21 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     For writers that need a file name (GDAL). On an exception the temporary
     file is removed and ``path`` is left as it was.
 
+    Parameters
+    ----------
+    path : path-like
+        The file to write.
+
+    Yields
+    ------
+    Path
+        The temporary path to write to.
+
+    Raises
+    ------
+    FileNotFoundError
+        The block wrote nothing to the temporary path.
+
     Examples
     --------
     >>> import tempfile
@@ -141,6 +156,16 @@ def atomic_write(
     mode
         ``"wb"`` (bytes, the default) or ``"w"`` (text; ``encoding`` defaults
         to UTF-8).
+
+    Yields
+    ------
+    file object
+        The open temporary file.
+
+    Raises
+    ------
+    ValueError
+        ``mode`` is not ``"w"`` or ``"wb"``.
 
     Examples
     --------
@@ -197,6 +222,11 @@ def ensure_output_dir(
     inputs
         Every input file of the run.
 
+    Returns
+    -------
+    Path
+        The folder, resolved.
+
     Raises
     ------
     OutputExistsError
@@ -246,6 +276,16 @@ def jsonable(obj: Any) -> Any:
     Handles mappings, sequences, numpy arrays and scalars, pandas missing
     values and timestamps, paths, dates, dataclasses and shapely geometries.
 
+    Parameters
+    ----------
+    obj : object
+        The value to convert.
+
+    Returns
+    -------
+    object
+        Dicts, lists, str, int, float, bool and None only.
+
     Examples
     --------
     >>> jsonable({"a": float("nan"), "b": np.array([1.5, np.inf]), "c": np.int64(3)})
@@ -286,6 +326,20 @@ def jsonable(obj: Any) -> Any:
 def write_json(path: str | os.PathLike[str], obj: Any, *, indent: int = 2) -> Path:
     """Write ``obj`` as UTF-8 JSON (NaN -> null), atomically.
 
+    Parameters
+    ----------
+    path : path-like
+        The ``.json`` file.
+    obj : object
+        Anything :func:`jsonable` converts.
+    indent : int, optional
+        Spaces per level.
+
+    Returns
+    -------
+    Path
+        ``path``.
+
     Examples
     --------
     >>> import tempfile
@@ -302,6 +356,20 @@ def write_json(path: str | os.PathLike[str], obj: Any, *, indent: int = 2) -> Pa
 def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool = False) -> Path:
     """Write a table as UTF-8 CSV, atomically. Missing values are empty cells;
     a geometry column is left out.
+
+    Parameters
+    ----------
+    path : path-like
+        The ``.csv`` file.
+    table : DataFrame
+        The table.
+    index : bool, optional
+        Write the index as the first column.
+
+    Returns
+    -------
+    Path
+        ``path``.
 
     Examples
     --------
@@ -347,6 +415,23 @@ def _orient(geom: BaseGeometry) -> BaseGeometry:
 def geojson_text(frame: Any, *, precision: int = 7) -> str:
     """The RFC 7946 GeoJSON text of a GeoDataFrame (see :func:`write_geojson`).
 
+    Parameters
+    ----------
+    frame : GeoDataFrame
+        As for :func:`write_geojson`.
+    precision : int, optional
+        Decimals of the coordinates.
+
+    Returns
+    -------
+    str
+        The GeoJSON text.
+
+    Raises
+    ------
+    CRSError
+        The frame has no CRS.
+
     Examples
     --------
     >>> import geopandas as gpd
@@ -385,6 +470,11 @@ def write_geojson(path: str | os.PathLike[str], frame: Any, *, precision: int = 
         Every other column becomes a property (NaN -> null).
     precision
         Decimals of the coordinates (7: about 1 cm).
+
+    Returns
+    -------
+    Path
+        ``path``.
 
     Raises
     ------
@@ -472,6 +562,11 @@ def write_shapefile_zip(
         Reproject to this CRS first (e.g. ``"EPSG:4326"`` for a controller that
         wants longitude/latitude); default: the frame's CRS.
 
+    Returns
+    -------
+    Path
+        ``path``.
+
     Raises
     ------
     ValueError
@@ -546,6 +641,11 @@ def write_cog(
         One description per band.
     tags
         Dataset metadata (e.g. ``{"unit": "kg/ha"}``); values are written as text.
+
+    Returns
+    -------
+    Path
+        ``path``.
 
     Examples
     --------
