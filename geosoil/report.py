@@ -420,6 +420,18 @@ def variogram_svg(info: VariogramInfo, *, width: int = 440, height: int = 270) -
 
     Returns a short note instead of a plot when the surface had no variogram.
 
+    Parameters
+    ----------
+    info : VariogramInfo
+        The surface's fitted model and empirical semivariogram.
+    width, height : int, optional
+        Size in CSS pixels.
+
+    Returns
+    -------
+    str
+        The SVG markup, or the note.
+
     Examples
     --------
     >>> info = VariogramInfo(variable="esp", paddock="North", method="ordinary kriging", unit="%",
