@@ -69,7 +69,7 @@ class SoilSettings:
         0.10, doc="depth of soil the amendment must treat", unit="m", minimum=0.01, maximum=1.0
     )
     bulk_density_g_cm3: float = setting(
-        1.3,
+        1.4,
         doc="dry bulk density of that layer (about 1.4 when unmeasured: common practice)",
         unit="g/cm3",
         minimum=0.5,
