@@ -1,7 +1,8 @@
 """Reading lab results with locations into a checked samples GeoDataFrame.  [I/O]
 
 Accepted files: CSV (comma, semicolon or tab separated; decimal point, or
-decimal comma with ';' or tab separators; UTF-8 with or without BOM), Excel
+decimal comma with ';' or tab separators; UTF-8 with or without BOM, or UTF-16
+with BOM as Excel's 'Unicode text' export), Excel
 workbooks (.xlsx, .xlsm), GeoJSON, GeoPackage and shapefile (.shp, or zipped
 .zip). Columns are recognised by :func:`geosoil.columns.detect_columns`;
 ``[samples.columns]`` and ``[samples.units]`` override what the headers say.
@@ -434,9 +435,16 @@ def _separator(text: str) -> str:
 
 def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
     data = path.read_bytes()
+    # Excel's "Unicode text" export is UTF-16 with a byte-order mark.
+    encoding = "utf-16" if data[:2] in (b"\xff\xfe", b"\xfe\xff") else "utf-8-sig"
     try:
-        text = data.decode("utf-8-sig")
+        text = data.decode(encoding)
     except UnicodeDecodeError as exc:
+        if encoding == "utf-16":
+            raise InputError(
+                "the file starts like UTF-16 text but is not", file=name,
+                fix="save it as 'CSV UTF-8' from the spreadsheet program",
+            ) from None
         line = data[: exc.start].count(b"\n") + 1
         raise InputError(
             f"the file is not UTF-8 text (byte 0x{data[exc.start]:02x})", file=name, row=line,

@@ -1096,3 +1096,19 @@ def test_cli_on_a_messy_lab_file_never_shows_a_traceback(tmp_path_factory, data,
     result = CliRunner().invoke(cli, [command, str(folder), *extra])
     if result.exit_code != 0:  # a random file may happen to be a good one
         _assert_clean_failure(result)
+
+
+def test_utf16_unicode_text_export_is_read(tmp_path):
+    """Excel's 'Unicode text' export: UTF-16 with a byte-order mark, tab separated."""
+    text = "\n".join("\t".join(r) for r in [_GOOD_HEADER, *_GOOD]) + "\n"
+    path = tmp_path / "lab.txt"
+    path.write_bytes(text.encode("utf-16"))  # Python writes the BOM
+    got = read(path)
+    assert got.samples["sample_id"].tolist() == ["S1", "S2", "S3", "S4"]
+    assert got.samples["ca"].tolist() == [5.1, 4.2, 6.0, 3.7]
+
+
+def test_broken_utf16_is_an_input_error(tmp_path):
+    path = tmp_path / "lab.csv"
+    path.write_bytes(b"\xff\xfeS\x00a\x00\x00\xd8")  # a lone surrogate
+    assert_names(error_of(path), file=path, row=None, column=None)
