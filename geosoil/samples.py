@@ -54,6 +54,7 @@ import zipfile
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any, NamedTuple
+from xml.etree import ElementTree
 
 import geopandas as gpd
 import numpy as np
@@ -434,7 +435,12 @@ def _separator(text: str) -> str:
 
 
 def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
-    data = path.read_bytes()
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"the file cannot be read ({exc.strerror or exc})", file=name,
+                         fix="check that the file is yours to read and not open elsewhere "
+                         "(or locked)") from None
     # Excel's "Unicode text" export is UTF-16 with a byte-order mark.
     encoding = "utf-16" if data[:2] in (b"\xff\xfe", b"\xfe\xff") else "utf-8-sig"
     try:
@@ -497,7 +503,7 @@ def _read_excel(path: Path, name: str, settings: SampleSettings) -> _Raw:
     sheet = settings.sheet_or_layer
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
-    except (zipfile.BadZipFile, OSError, ValueError, KeyError) as exc:
+    except (zipfile.BadZipFile, OSError, ValueError, KeyError, ElementTree.ParseError) as exc:
         raise InputError(
             f"the file cannot be read as an Excel workbook ({exc})", file=name,
             fix="open it in a spreadsheet program and save it as .xlsx or CSV UTF-8",
@@ -508,8 +514,14 @@ def _read_excel(path: Path, name: str, settings: SampleSettings) -> _Raw:
                 f"there is no sheet '{sheet}'; the sheets are {', '.join(book.sheet_names)}",
                 file=name, fix="set [samples] sheet_or_layer to one of them",
             )
-        table = pd.read_excel(book, sheet_name=sheet if sheet is not None else 0, header=None,
-                              dtype=object)
+        try:
+            table = pd.read_excel(book, sheet_name=sheet if sheet is not None else 0,
+                                  header=None, dtype=object)
+        except Exception as exc:  # noqa: BLE001 - openpyxl and XML errors of a damaged sheet
+            raise InputError(
+                f"the sheet cannot be read ({type(exc).__name__}: {exc})", file=name,
+                fix="open it in a spreadsheet program and save it again as .xlsx or CSV UTF-8",
+            ) from None
     filled = table.notna().any(axis=1).to_numpy()
     if not filled.any():
         raise InputError("the sheet is empty", file=name, fix="set [samples] sheet_or_layer")

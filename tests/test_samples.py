@@ -1112,3 +1112,41 @@ def test_broken_utf16_is_an_input_error(tmp_path):
     path = tmp_path / "lab.csv"
     path.write_bytes(b"\xff\xfeS\x00a\x00\x00\xd8")  # a lone surrogate
     assert_names(error_of(path), file=path, row=None, column=None)
+
+
+def _damaged_workbook(tmp_path: Path, part: str) -> Path:
+    """A good workbook with one of its XML parts replaced by a cut-off tag."""
+    good, bad = tmp_path / "good.xlsx", tmp_path / "lab.xlsx"
+    book = openpyxl.Workbook()
+    for row in [_GOOD_HEADER, *_GOOD]:
+        book.active.append(list(row))
+    book.save(good)
+    import zipfile
+
+    with zipfile.ZipFile(good) as zin, zipfile.ZipFile(bad, "w") as zout:
+        for item in zin.infolist():
+            zout.writestr(item, b"<worksheet" if item.filename == part else zin.read(item))
+    return bad
+
+
+@pytest.mark.parametrize("part", ["xl/worksheets/sheet1.xml", "xl/workbook.xml"])
+def test_damaged_workbook_is_an_input_error(tmp_path, part):
+    """A workbook whose sheet XML is cut off raised xml.etree.ElementTree.ParseError."""
+    path = _damaged_workbook(tmp_path, part)
+    err = error_of(path)
+    assert_names(err, file=path, row=None, column=None)
+    assert "cannot be read" in str(err)
+
+
+def test_unreadable_csv_is_an_input_error(tmp_path, monkeypatch):
+    """A file the user may not read (PermissionError) is an InputError, not an OSError.
+    Simulated: tests may run as a user who can read everything."""
+    path = lab(tmp_path)
+
+    def refuse(self):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(Path, "read_bytes", refuse)
+    err = error_of(path)
+    assert_names(err, file=path, row=None, column=None)
+    assert "Permission denied" in str(err)
