@@ -722,7 +722,30 @@ def _map_columns(
         geographic = True if roles == ("lon", "lat") else (
             False if roles == ("east", "north") else None)
         xy = (x, y)
+    _check_roles(columns, id_header, xy, name, header_row)
     return columns, id_header, xy, geographic, methods
+
+
+def _check_roles(
+    columns: Mapping[str, str], id_header: str, xy: tuple[str, str] | None, name: str,
+    header_row: int | None,
+) -> None:
+    """One column, one role: settings that read a column twice are an error."""
+    roles: dict[str, list[str]] = {}
+    for analyte, header in columns.items():
+        roles.setdefault(header, []).append(f"columns.{analyte}")
+    roles.setdefault(id_header, []).append("id_column")
+    if xy is not None:
+        roles.setdefault(xy[0], []).append("x_column")
+        roles.setdefault(xy[1], []).append("y_column")
+    for header, keys in roles.items():
+        if len(keys) > 1:
+            shown = " and ".join(f"[samples] {k}" for k in keys)
+            raise InputError(
+                f"the column is read as {len(keys)} things ({shown})", file=name,
+                row=header_row, column=header,
+                fix="give each of them its own column in the [samples] settings",
+            )
 
 
 def _units(

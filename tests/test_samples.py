@@ -1150,3 +1150,21 @@ def test_unreadable_csv_is_an_input_error(tmp_path, monkeypatch):
     err = error_of(path)
     assert_names(err, file=path, row=None, column=None)
     assert "Permission denied" in str(err)
+
+
+@pytest.mark.parametrize(
+    "given, column, keys",
+    [
+        ({"columns": {"ca": "Ca", "mg": "Ca"}}, "Ca", ("columns.ca", "columns.mg")),
+        ({"x_column": "Lon", "y_column": "Lon"}, "Lon", ("x_column", "y_column")),
+        ({"columns": {"ca": "Sample"}}, "Sample", ("columns.ca", "id_column")),
+        ({"columns": {"ca": "Lon"}}, "Lon", ("columns.ca", "x_column")),
+    ],
+)
+def test_settings_that_read_one_column_twice_are_an_error(tmp_path, given, column, keys):
+    """One header mapped to Ca and Mg was read silently as both; x_column = y_column
+    was blamed on a missing CRS."""
+    path = write(tmp_path, "Sample,Lon,Lat,Ca,Mg\nA,146,-35,1,2\nB,146.1,-35,1,2\n")
+    err = error_of(path, **given)
+    assert_names(err, file=path, row=1, column=column)
+    assert all(f"[samples] {k}" in str(err) for k in keys)
