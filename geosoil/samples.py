@@ -545,7 +545,12 @@ def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
                 f"there is no layer '{layer}'; the layers are {', '.join(layers)}", file=name,
                 fix="set [samples] sheet_or_layer to one of them",
             )
-        frame = gpd.read_file(path, layer=layer, engine="pyogrio")
+        with warnings.catch_warnings():
+            # GDAL's notes on odd features (e.g. a point with no coordinates) are reported
+            # by the checks below, row by row
+            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.simplefilter("ignore", UserWarning)
+            frame = gpd.read_file(path, layer=layer, engine="pyogrio")
     except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError) as exc:
         raise InputError(f"the file cannot be read ({exc})", file=name, fix=fix) from None
     rows = np.arange(1, len(frame) + 1)

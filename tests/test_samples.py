@@ -1168,3 +1168,19 @@ def test_settings_that_read_one_column_twice_are_an_error(tmp_path, given, colum
     err = error_of(path, **given)
     assert_names(err, file=path, row=1, column=column)
     assert all(f"[samples] {k}" in str(err) for k in keys)
+
+
+def test_a_point_without_coordinates_is_named_without_gdal_noise(tmp_path):
+    """GDAL warned (RuntimeWarning, a traceback when warnings are errors) about a point
+    with empty coordinates; the reader reports the row itself."""
+    features = [{"type": "Feature", "properties": {"Sample": "A1", "Ca": 1.0},
+                 "geometry": {"type": "Point", "coordinates": [146.0, -35.0]}},
+                {"type": "Feature", "properties": {"Sample": "A2", "Ca": 1.0},
+                 "geometry": {"type": "Point", "coordinates": []}}]
+    path = write(tmp_path, json.dumps({"type": "FeatureCollection", "features": features}),
+                 name="lab.geojson")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        err = error_of(path, crs="EPSG:4326")
+    assert not [w for w in caught if issubclass(w.category, RuntimeWarning)]
+    assert_names(err, file=path, row=2, column="geometry")
