@@ -460,7 +460,7 @@ def test_user_zones_must_be_polygons(tmp_path):
         read_user_zones(path, crs=UTM55S)
 
 
-# --------------------------------------------------------------------------- messy GeoJSON (hypothesis)
+# ------------------------------------------------------------------ messy GeoJSON (hypothesis)
 #
 # Whatever a paddock, exclusion, creek or zones file holds, reading it works or raises a
 # GeosoilError naming the file (and the feature, where one feature is at fault).
@@ -583,9 +583,10 @@ def test_nested_geometry_collection_of_polygons_is_a_paddock(tmp_path):
 def test_nested_collection_with_a_point_names_the_feature(tmp_path):
     nested = {"type": "GeometryCollection", "geometries": [
         {"type": "GeometryCollection", "geometries": [
-            {"type": "Polygon", "coordinates": _SQ}, {"type": "Point", "coordinates": [146, -35]}]}]}
-    path = _geojson(tmp_path / "p.geojson", ({"name": "A"}, {"type": "Polygon", "coordinates": _SQ}),
-                    ({"name": "B"}, nested))
+            {"type": "Polygon", "coordinates": _SQ},
+            {"type": "Point", "coordinates": [146, -35]}]}]}
+    square = {"type": "Polygon", "coordinates": _SQ}
+    path = _geojson(tmp_path / "p.geojson", ({"name": "A"}, square), ({"name": "B"}, nested))
     with pytest.raises(InputError) as info:
         read_paddocks(BoundarySettings(paddocks=path))
     assert info.value.row == 2 and "p.geojson, row 2" in str(info.value)

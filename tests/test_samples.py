@@ -808,7 +808,7 @@ def test_reading_records_no_unexpected_warnings(tmp_path):
         read(lab(tmp_path))
 
 
-# --------------------------------------------------------------------------- messy files (hypothesis)
+# ------------------------------------------------------------------ messy files (hypothesis)
 #
 # Whatever a user's file holds, reading it either works or raises a GeosoilError whose message
 # names the file (and the row, where one row is at fault): never another exception.
@@ -858,7 +858,8 @@ def messy_csv(draw) -> bytes:
         data = b"\xef\xbb\xbf" + data
     if draw(st.integers(0, 5)) == 0:
         at = draw(st.integers(0, len(data)))
-        data = data[:at] + draw(st.sampled_from([b"\xff", b"\xe9", b"\x00", b'"', b"\r"])) + data[at:]
+        stray = draw(st.sampled_from([b"\xff", b"\xe9", b"\x00", b'"', b"\r"]))
+        data = data[:at] + stray + data[at:]
     return data
 
 
@@ -969,7 +970,8 @@ def test_the_good_file_behind_one_bad_cell_reads(tmp_path):
 
 
 _PROPS = [{}, {"Sample": "A1", "Ca": 1}, {"Sample": "A1", "Ca": "x"}, {"Sample": None, "Ca": None},
-          {"Sample": "A2", "Ca": [1, 2]}, {"Sample": "A3", "Ca": {"v": 1}}, {"Sample": "A3", "Ca": True},
+          {"Sample": "A2", "Ca": [1, 2]}, {"Sample": "A3", "Ca": {"v": 1}},
+          {"Sample": "A3", "Ca": True},
           {"Sample": 5, "Ca": 1e308}, {" Sample ": "A5", " Ca": 2}, {"sample": "A6", "CA": -1},
           {"Sample": "A7", "Ca": 1, "source_row": 3, "paddock": "x", "geometry": 1}]
 _POINTS = [None, {"type": "Point", "coordinates": [146, -35]}, {"type": "Point", "coordinates": []},
