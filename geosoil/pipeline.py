@@ -634,7 +634,9 @@ def check(project: Project) -> tuple[list[str], list[str]]:
             # rows a run with on_bad_row = "stop" would stop at: skipped here only to list
             # them all
             for row, reason in prep.read.skipped:
-                problems.append(f"{prep.read.file}, row {row}: {reason}")
+                # the same shape as InputError's "file, row N, column 'X': problem"
+                sep = ", " if reason.startswith("column ") else ": "
+                problems.append(f"{prep.read.file}, row {row}{sep}{reason}")
             for row, reason in [*prep.samples.attrs.get("outside", []),
                                 *prep.samples.attrs.get("ecec_gaps", [])]:
                 where = f", row {row}" if row is not None else ""
