@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import json
 import logging
-from concurrent.futures import Future, ThreadPoolExecutor
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -117,35 +116,14 @@ def write_outputs(
     record : dict
         The run record, as written to ``run.json``.
     """
-    # GeoTIFFs are written by GDAL on worker threads (it releases the GIL) while this thread
-    # goes on with the vector files, the map and the report; all are joined before run.json.
-    with ThreadPoolExecutor(max_workers=2, thread_name_prefix="geosoil-cog") as pool:
-        jobs: list[Future[Path]] = []
-        written, record = _write_all(farm, out_dir=out_dir, progress=progress, pool=pool,
-                                     jobs=jobs)
-        for job in jobs:
-            job.result()  # re-raises a writer's error here
-    record["files"] = sorted(_rel(w, out_dir) for w in written) + ["run.json"]
-    p = out_dir / "run.json"
-    write_json(p, record)
-    written.append(p)
-    return written, record
-
-
-def _write_all(
-    farm: FarmResult, *, out_dir: Path, progress: Any, pool: ThreadPoolExecutor,
-    jobs: list[Future[Path]],
-) -> tuple[list[Path], dict[str, Any]]:
     prep = farm.prep
     crs = prep.crs
     written: list[Path] = []
 
     def cog(path: Path, array: np.ndarray, transform: Any, description: str, unit: str) -> None:
         path.parent.mkdir(parents=True, exist_ok=True)
-        jobs.append(pool.submit(
-            write_cog, path, array, transform=transform, crs=crs, descriptions=(description,),
-            tags={"unit": unit},
-        ))
+        write_cog(path, array, transform=transform, crs=crs, descriptions=(description,),
+                  tags={"unit": unit})
         written.append(path)
 
     # surfaces and cell chemistry
@@ -237,6 +215,10 @@ def _write_all(
         fh.write(html.encode("utf-8"))
     written.append(p)
 
+    record["files"] = sorted(_rel(w, out_dir) for w in written) + ["run.json"]
+    p = out_dir / "run.json"
+    write_json(p, record)
+    written.append(p)
     return written, record
 
 
