@@ -588,22 +588,33 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
             DataWarning,
             stacklevel=2,
         )
-    labels = _labels(frame, column, path=path, prefix="Paddock", required=True)
-    fix_type = "a paddock file holds polygons only; convert boundary lines to polygons in a GIS"
-    geoms = [
-        _clean_polygon(g, path=path, row=i, label=labels[i - 1], what="paddock", fix_type=fix_type)
-        for i, g in enumerate(frame.geometry.tolist(), start=1)
-    ]
-    labels, geoms = _merge_duplicates(
-        labels, geoms, path=path, what="paddock", column=column,
-        mode=settings.duplicate_names, key="duplicate_names",
-    )
-    _warn_overlaps(labels, geoms, path=path, what="paddock")
-    out = gpd.GeoDataFrame(
-        {"paddock": pd.Series(labels, dtype=object)}, geometry=geoms, crs=frame.crs
+    out = _labelled_polygons(
+        frame, column, path=path, what="paddock", prefix="Paddock",
+        fix_type="a paddock file holds polygons only; convert boundary lines to polygons in a GIS",
+        duplicate_names=settings.duplicate_names,
     )
     logger.info("read %d paddocks from %s", len(out), path)
     return out
+
+
+def _labelled_polygons(
+    frame: gpd.GeoDataFrame, column: str | None, *, path: Path, what: str, prefix: str,
+    fix_type: str, duplicate_names: str,
+) -> gpd.GeoDataFrame:
+    """One cleaned polygon per label (a ``what`` column), shared features merged or refused,
+    overlaps warned about; in the file's CRS."""
+    labels = _labels(frame, column, path=path, prefix=prefix, required=True)
+    geoms = [
+        _clean_polygon(g, path=path, row=i, label=labels[i - 1], what=what, fix_type=fix_type)
+        for i, g in enumerate(frame.geometry.tolist(), start=1)
+    ]
+    labels, geoms = _merge_duplicates(
+        labels, geoms, path=path, what=what, column=column, mode=duplicate_names,
+        key="duplicate_names",
+    )
+    _warn_overlaps(labels, geoms, path=path, what=what)
+    return gpd.GeoDataFrame({what: pd.Series(labels, dtype=object)}, geometry=geoms,
+                            crs=frame.crs)
 
 
 def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame:
@@ -765,19 +776,9 @@ def read_user_zones(
             DataWarning,
             stacklevel=2,
         )
-    labels = _labels(frame, column, path=path, prefix="Zone", required=True)
-    fix_type = "a zones file holds polygons only"
-    geoms = [
-        _clean_polygon(g, path=path, row=i, label=labels[i - 1], what="zone", fix_type=fix_type)
-        for i, g in enumerate(frame.geometry.tolist(), start=1)
-    ]
-    labels, geoms = _merge_duplicates(
-        labels, geoms, path=path, what="zone", column=column, mode=duplicate_names,
-        key="duplicate_names",
-    )
-    _warn_overlaps(labels, geoms, path=path, what="zone")
-    out = gpd.GeoDataFrame(
-        {"zone": pd.Series(labels, dtype=object)}, geometry=geoms, crs=frame.crs
+    out = _labelled_polygons(
+        frame, column, path=path, what="zone", prefix="Zone",
+        fix_type="a zones file holds polygons only", duplicate_names=duplicate_names,
     ).to_crs(target)
     out["geometry"] = [g if g.is_valid else _polygonal_part(shapely.make_valid(g))
                        for g in out.geometry]
