@@ -26,7 +26,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from geosoil.pipeline import run  # noqa: E402
+from geosoil.job import run  # noqa: E402
 from geosoil.project import load_project  # noqa: E402
 
 GOAL_FULL_S = 10.0

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from geosoil.pipeline import run as run_job
+from geosoil.job import run as run_job
 from geosoil.project import load_project
 
 from .options import Progress, handle_errors, out_option, overwrite_option, project_argument

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import click
 
-from geosoil.pipeline import CAUTIONS, RunResult
+from geosoil.job import RunResult
+from geosoil.report import CAUTIONS
 from geosoil.tonnage import format_summary
 
 from .options import echo_err

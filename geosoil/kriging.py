@@ -37,7 +37,7 @@ Local (``neighbours=N``)
 The nugget and targets on top of a sample
 -----------------------------------------
 The sample covariance matrix carries the nugget on its diagonal only. A
-target within :data:`~geosoil.variogram.COINCIDENT_M` of a sample is "at" it:
+target within :data:`~geosoil.points.COINCIDENT_M` of a sample is "at" it:
 
 * ``exact=True`` (default; pykrige's ``exact_values=True``, GSTools'
   ``exact=True``): the covariance to that sample includes the nugget, so the
@@ -82,7 +82,8 @@ from scipy.spatial import cKDTree
 from threadpoolctl import threadpool_limits
 
 from .errors import InputError, InterpolationWarning, SettingsError
-from .variogram import COINCIDENT_M, VariogramModel, _as_points, _as_samples
+from .points import COINCIDENT_M, as_points, as_samples
+from .variogram import VariogramModel
 
 __all__ = [
     "CrossValidation",
@@ -590,8 +591,8 @@ def ordinary_kriging(
     >>> bool(np.isfinite(est_local).all() and (var_local >= var - 1e-9).all())
     True
     """
-    xd, z = _as_samples(xy_data, values)
-    xt = _as_points(xy_target, "target")
+    xd, z = as_samples(xy_data, values)
+    xt = as_points(xy_target, "target")
     if int(block_cells) != block_cells or block_cells < 1:
         raise SettingsError(f"must be a whole number of at least 1 (got {block_cells!r})",
                             key="block_cells")
@@ -656,8 +657,8 @@ def kriging_weights(
     >>> w.tolist()
     [0.5, 0.5]
     """
-    xd = _as_points(xy_data, "sample")
-    x0 = _as_points(xy_target, "target")
+    xd = as_points(xy_data, "sample")
+    x0 = as_points(xy_target, "target")
     if len(x0) != 1:
         raise InputError("kriging_weights takes one target", fix="pass a single (x, y)")
     n = len(xd)
@@ -705,7 +706,7 @@ def loo_cross_validation(
     >>> cv.n, bool(abs(cv.errors[1]) < 0.1)
     (4, True)
     """
-    xd, z = _as_samples(xy, values, minimum=3)
+    xd, z = as_samples(xy, values, minimum=3)
     n = len(z)
     low, _ = _factor(xd, model)
     cinv = scipy.linalg.cho_solve((low, True), np.eye(n), check_finite=False)
@@ -737,7 +738,7 @@ def idw(
 ) -> Array:
     """Inverse-distance-weighted mean of all samples at each target (the fallback).
 
-    A target within :data:`~geosoil.variogram.COINCIDENT_M` of samples takes
+    A target within :data:`~geosoil.points.COINCIDENT_M` of samples takes
     their mean value.
 
     Parameters
@@ -759,8 +760,8 @@ def idw(
     >>> idw([[0.0, 0.0], [10.0, 0.0]], [1.0, 3.0], [[0.0, 0.0], [5.0, 0.0], [2.5, 0.0]]).tolist()
     [1.0, 2.0, 1.2]
     """
-    xd, z = _as_samples(xy_data, values)
-    xt = _as_points(xy_target, "target")
+    xd, z = as_samples(xy_data, values)
+    xt = as_points(xy_target, "target")
     if not (np.isfinite(power) and power > 0):
         raise SettingsError(f"must be more than 0 (got {power!r})", key="power")
     out = np.empty(len(xt))

@@ -40,14 +40,8 @@ from . import report as report_mod
 from . import webmap
 from .grids import mosaic
 from .isoxml import MAX_DESIGNATOR, write_taskdata
-from .pipeline import (
-    CAUTIONS,
-    FarmResult,
-    input_checksums,
-    now_utc,
-    slug,
-    versions,
-)
+from .pipeline import FarmResult
+from .record import input_checksums, now_utc, slug, versions
 from .settings import to_mapping
 from .tonnage import first_season_tonnes
 from .units import rate_from_kg_ha
@@ -369,7 +363,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "first_season_tonnes": (
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
-        "cautions": list(CAUTIONS),
+        "cautions": list(report_mod.CAUTIONS),
     }
 
 

@@ -1,16 +1,16 @@
-"""The whole job: a project in, prescriptions, tonnage, map, report and run record out.
+"""The computing stages of a run: a project in, a computed farm (rates, zones, tonnage) out.
 
 Stages (each a call into one module; this file holds the order and the
-bookkeeping, no agronomy and no geostatistics):
+bookkeeping, no agronomy, no geostatistics and no output files):
 
 1. read the boundaries and the lab file; choose the working CRS;
 2. check and place the samples (paddock join, near-duplicates); per-sample chemistry;
 3. check that the enabled rules have the data they need;
 4. aligned paddock grids; interpolated surfaces (cached by a hash of their inputs);
 5. per-cell chemistry and rates; spreader zones; tonnage;
-6. write everything atomically into a new output folder.
-
-Every warning raised on the way is recorded in ``run.json`` and the report.
+Writing the output folder is :mod:`geosoil.outputs`; :func:`geosoil.job.run`
+does both. Every warning raised on the way is caught by :func:`recording` and
+ends in ``run.json``, the report and the CLI summary.
 """
 
 from __future__ import annotations
@@ -22,14 +22,11 @@ import json
 import logging
 import os
 import pickle
-import platform
-import re
 import time
 import warnings
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -41,6 +38,8 @@ import shapely
 from . import __version__
 from . import grids as grids_mod
 from . import kriging as kriging_mod
+from . import model_choice as model_choice_mod
+from . import points as points_mod
 from . import surfaces as surfaces_mod
 from . import variogram as variogram_mod
 from .boundaries import read_exclusions, read_paddocks, read_user_zones
@@ -52,7 +51,6 @@ from .grids import PaddockGrid, aligned_grids
 from .products import Product, resolve_products
 from .project import Project
 from .rates import RateResult, check_inputs, compute_rates
-from .report import CAUTIONS
 from .samples import SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
@@ -62,20 +60,13 @@ from .zones import ZONE_COLUMNS, make_zones
 __all__ = [
     "Prepared",
     "FarmResult",
-    "RunResult",
     "prepare",
     "compute",
-    "run",
     "check",
-    "CAUTIONS",
     "CACHE_KEEP",
     "PaddockResult",
     "surfaces_for",
-    "slug",
-    "sha256_file",
-    "versions",
-    "now_utc",
-    "input_checksums",
+    "recording",
 ]
 
 logger = logging.getLogger(__name__)
@@ -87,50 +78,8 @@ def _quiet(_: str) -> None:
     return None
 
 
-def slug(name: str) -> str:
-    """A file-name-safe form of a paddock or product name.
-
-    Parameters
-    ----------
-    name : str
-        A paddock or product name as the user wrote it.
-
-    Returns
-    -------
-    str
-        Lower case letters, digits and dashes.
-
-    Examples
-    --------
-    >>> slug("North Flat / Dam side")
-    'north-flat-dam-side'
-    """
-    s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
-    return s or "unnamed"
-
-
-def sha256_file(path: Path) -> str:
-    """SHA-256 checksum of a file, read in 1 MiB chunks.
-
-    Parameters
-    ----------
-    path : Path
-        The file to hash.
-
-    Returns
-    -------
-    str
-        The hexadecimal digest.
-    """
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 @contextmanager
-def _recording(sink: list[str]) -> Iterator[None]:
+def recording(sink: list[str]) -> Iterator[None]:
     """Record every geosoil warning raised inside the block (and still log it)."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", GeosoilWarning)
@@ -208,7 +157,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     """
     s = project.settings
     sink: list[str] = []
-    with _recording(sink):
+    with recording(sink):
         progress("reading boundaries")
         paddocks = read_paddocks(s.boundaries)
         _check_paddock_keys(s.soil.bulk_density_by_paddock, paddocks,
@@ -275,7 +224,8 @@ def _surface_key(prep: Prepared) -> str:
     h = hashlib.sha256()
     # the code that makes surfaces is part of the key: a changed engine never reuses old results
     h.update(f"geosoil {__version__} surfaces\n".encode())
-    for module in (surfaces_mod, kriging_mod, variogram_mod, grids_mod):
+    for module in (surfaces_mod, kriging_mod, model_choice_mod, variogram_mod, points_mod,
+                   grids_mod):
         h.update(Path(module.__file__ or "").read_bytes())
     cols = ["paddock", *prep.variables]
     table = prep.samples[cols].copy()
@@ -343,7 +293,7 @@ def surfaces_for(
         except Exception as exc:  # a damaged cache is rebuilt, never trusted
             logger.info("surface cache %s unreadable (%s); rebuilding", path, exc)
     found: list[str] = []
-    with _recording(found):
+    with recording(found):
         surfaces = interpolate_farm(
             prep.samples,
             prep.grids,
@@ -450,7 +400,7 @@ def compute(
     s = project.settings
     results: dict[str, PaddockResult] = {}
     all_zones: list[gpd.GeoDataFrame] = []
-    with _recording(prep.warnings):
+    with recording(prep.warnings):
         for name, grid in prep.grids.items():
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
@@ -527,85 +477,6 @@ def _no_zones(crs: Any) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame({c: [] for c in cols}, geometry=[], crs=crs)
 
 
-# --------------------------------------------------------------------------- stage 6
-
-
-@dataclass
-class RunResult:
-    """What a run wrote and the figures the CLI prints."""
-
-    out_dir: Path
-    written: list[Path]
-    farm: FarmResult
-    record: dict[str, Any]
-
-    @property
-    def tonnage(self) -> pd.DataFrame:
-        """The tonnage table (``tonnage.csv``)."""
-        return self.farm.tonnage
-
-    @property
-    def warnings(self) -> list[str]:
-        """Every warning recorded during the run."""
-        return self.farm.warnings
-
-
-def run(
-    project: Project,
-    *,
-    out_dir: Path,
-    overwrite: bool = False,
-    progress: Progress = _quiet,
-    use_cache: bool = True,
-) -> RunResult:
-    """The whole job into ``out_dir``.
-
-    Parameters
-    ----------
-    project : Project
-        The loaded project.
-    out_dir : Path
-        The output folder (created; see :mod:`geosoil.outputs` for its layout).
-    overwrite : bool, optional
-        Replace the contents of a non-empty output folder.
-    progress : callable, optional
-        Called with a short message at each stage.
-    use_cache : bool, optional
-        False interpolates again even when the inputs are unchanged.
-
-    Returns
-    -------
-    RunResult
-        The computed farm, the files written and the run record.
-
-    Raises
-    ------
-    OutputExistsError
-        ``out_dir`` exists and is not empty, and ``overwrite`` is false; or it
-        is (or holds) an input folder.
-    GeosoilError
-        Any input or settings problem.
-    """
-    from .outputs import write_outputs  # the I/O edge
-
-    ensure = _ensure_output(project, out_dir, overwrite=overwrite)
-    farm = compute(project, progress=progress, use_cache=use_cache)
-    t0 = time.perf_counter()
-    with _recording(farm.prep.warnings):
-        written, record = write_outputs(farm, out_dir=ensure, progress=progress)
-    farm.timings["writing"] = time.perf_counter() - t0
-    return RunResult(out_dir=ensure, written=written, farm=farm, record=record)
-
-
-def _ensure_output(project: Project, out_dir: Path, *, overwrite: bool) -> Path:
-    from .writers import ensure_output_dir
-
-    inputs = [p for p in project.input_files() if p is not None]
-    if project.path is not None:
-        inputs.append(project.path)
-    return ensure_output_dir(Path(out_dir), overwrite=overwrite, inputs=inputs)
-
-
 def check(project: Project) -> tuple[list[str], list[str]]:
     """Validate inputs and settings without writing anything.
 
@@ -628,7 +499,7 @@ def check(project: Project) -> tuple[list[str], list[str]]:
         project, settings=dataclasses.replace(project.settings, samples=lenient)
     )
     try:
-        with _recording(sink):
+        with recording(sink):
             prep = prepare(trial)
         if strict:
             # rows a run with on_bad_row = "stop" would stop at: skipped here only to list
@@ -658,65 +529,3 @@ def check(project: Project) -> tuple[list[str], list[str]]:
     except GeosoilError as exc:
         problems.append(str(exc))
     return problems, sink
-
-
-def versions() -> dict[str, str]:
-    """Versions of geosoil, Python and the libraries whose numbers matter.
-
-    Returns
-    -------
-    dict of str to str
-        Package name to version (GDAL and PROJ included when available).
-    """
-    import importlib.metadata as md
-
-    out = {"geosoil": __version__, "python": platform.python_version()}
-    for pkg in ("numpy", "scipy", "pandas", "geopandas", "shapely", "pyproj", "rasterio",
-                "pyogrio", "folium", "mapclassify"):
-        try:
-            out[pkg] = md.version(pkg)
-        except md.PackageNotFoundError:
-            pass
-    try:
-        import rasterio
-
-        out["gdal"] = rasterio.__gdal_version__
-        import pyproj
-
-        out["proj"] = pyproj.proj_version_str
-    except Exception:  # pragma: no cover - informative only
-        pass
-    return out
-
-
-def now_utc() -> str:
-    """The current time in UTC, ISO 8601 to the second.
-
-    Returns
-    -------
-    str
-        Such as ``"2026-12-02T04:50:00+00:00"``.
-    """
-    return datetime.now(UTC).isoformat(timespec="seconds")
-
-
-def input_checksums(project: Project) -> list[tuple[str, str]]:
-    """SHA-256 checksums of a project's input files and of its project file.
-
-    Parameters
-    ----------
-    project : Project
-        The loaded project.
-
-    Returns
-    -------
-    list of (path, sha256)
-        One pair per input file that exists, the project file last.
-    """
-    out = []
-    for p in project.input_files():
-        if p is not None and Path(p).exists():
-            out.append((str(p), sha256_file(Path(p))))
-    if project.path is not None:
-        out.append((str(project.path), sha256_file(project.path)))
-    return out

@@ -30,9 +30,10 @@ from .boundaries import BoundarySettings
 from .chemistry import ChemistrySettings
 from .errors import GeosoilError, InputError, SettingsError
 from .products import ProductSettings
-from .rates import RateSettings, SpreaderSettings
+from .rates import RateSettings
 from .samples import SampleSettings
 from .settings import describe, from_mapping, setting, to_mapping
+from .spreader import SpreaderSettings
 from .surfaces import InterpolationSettings
 from .zones import ZoneSettings
 

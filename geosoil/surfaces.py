@@ -67,8 +67,9 @@ from .kriging import (
     loo_cross_validation,
     ordinary_kriging,
 )
+from .model_choice import select_model
 from .settings import setting
-from .variogram import EmpiricalVariogram, VariogramModel, empirical, select_model
+from .variogram import EmpiricalVariogram, VariogramModel, empirical
 
 __all__ = [
     "INTERPOLATED",

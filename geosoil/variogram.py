@@ -1,12 +1,12 @@
-"""Variograms: models, the empirical semivariogram, fitting and model choice.
+"""Variograms: models, the empirical semivariogram and weighted least-squares fitting.
 
 A variogram model is a small frozen value, :class:`VariogramModel` (name,
 nugget, partial sill, practical range), that the kriging engine in
 :mod:`geosoil.kriging` takes as it is. This module builds one from samples:
 :func:`empirical` bins the half squared differences of all sample pairs by
 distance (Matheron's estimator), :func:`fit` fits one model to those bins by
-weighted least squares, and :func:`select_model` fits several and keeps the
-one that predicts the samples best in leave-one-out cross-validation.
+weighted least squares. Choosing among fitted models by cross-validation is
+:mod:`geosoil.model_choice`'s job.
 
 Model parameterisation
 ----------------------
@@ -51,9 +51,9 @@ import difflib
 import functools
 import logging
 import math
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Final
+from typing import Final
 
 import numpy as np
 import scipy.optimize
@@ -61,23 +61,17 @@ import scipy.special
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError, SettingsError
+from .points import COINCIDENT_M, as_samples
 from .settings import check_range, setting
-
-if TYPE_CHECKING:  # kriging imports this module
-    from .kriging import CrossValidation
 
 __all__ = [
     "MODELS",
     "WEIGHTINGS",
-    "COINCIDENT_M",
     "VariogramModel",
     "EmpiricalVariogram",
     "FitResult",
-    "Candidate",
-    "Selection",
     "empirical",
     "fit",
-    "select_model",
 ]
 
 logger = logging.getLogger(__name__)
@@ -87,10 +81,6 @@ MODELS: Final = ("spherical", "exponential", "gaussian", "matern")
 
 #: Weightings of the least-squares fit (see :func:`fit`).
 WEIGHTINGS: Final = ("pairs", "cressie")
-
-#: Two points closer than this (metres) are the same place: the covariance
-#: there includes the nugget. The same cut-off as pykrige's ``eps``.
-COINCIDENT_M: Final = 1e-10
 
 _NU_MIN, _NU_MAX = 0.2, 20.0
 _GAUSSIAN_SCALE: Final = 7.0 / 4.0  # gaussian: rho = exp(-(h * 7/4 / a)^2)
@@ -257,7 +247,7 @@ class VariogramModel:
     def covariance(self, h: ArrayLike) -> NDArray[np.float64]:
         """Covariance at distances ``h``: ``psill * rho(h)``, and the sill at ``h = 0``.
 
-        Distances up to :data:`COINCIDENT_M` count as zero.
+        Distances up to :data:`~geosoil.points.COINCIDENT_M` count as zero.
 
         Examples
         --------
@@ -322,82 +312,6 @@ class FitResult:
     weights: str
 
 
-@dataclass(frozen=True)
-class Candidate:
-    """One model tried by :func:`select_model`: its fit and its cross-validation."""
-
-    fit: FitResult
-    cross_validation: CrossValidation
-
-    @property
-    def model(self) -> VariogramModel:
-        """The fitted model."""
-        return self.fit.model
-
-
-@dataclass(frozen=True, eq=False)
-class Selection:
-    """The outcome of :func:`select_model`.
-
-    Attributes
-    ----------
-    model
-        The chosen model (lowest leave-one-out RMSE).
-    empirical
-        The empirical variogram every candidate was fitted to.
-    candidates
-        Every candidate that could be fitted, in the order tried.
-    """
-
-    model: VariogramModel
-    empirical: EmpiricalVariogram
-    candidates: tuple[Candidate, ...]
-
-
-def _as_points(xy: ArrayLike, what: str) -> NDArray[np.float64]:
-    """``xy`` as a finite (n, 2) float array; ``what`` names the points in messages."""
-    a = np.asarray(xy, dtype=np.float64)
-    if a.ndim == 1 and a.size == 2:
-        a = a.reshape(1, 2)
-    if a.ndim != 2 or a.shape[1] != 2:
-        raise InputError(
-            f"{what} coordinates must be an (n, 2) array of x, y in metres (got shape {a.shape})",
-            fix="pass one x, y pair per row",
-        )
-    if not np.isfinite(a).all():
-        i = int(np.flatnonzero(~np.isfinite(a).all(axis=1))[0])
-        raise InputError(
-            f"{what} {i} (0-based) has a missing or infinite coordinate",
-            fix=f"drop {what}s without coordinates",
-        )
-    return a
-
-
-def _as_samples(
-    xy: ArrayLike, values: ArrayLike, *, minimum: int = 1
-) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Checked sample coordinates (n, 2) and finite values (n,), at least ``minimum``."""
-    pts = _as_points(xy, "sample")
-    z = np.asarray(values, dtype=np.float64)
-    if z.shape != (pts.shape[0],):
-        raise InputError(
-            f"got {pts.shape[0]} sample coordinates but values of shape {z.shape}",
-            fix="pass one value per sample",
-        )
-    bad = np.flatnonzero(~np.isfinite(z))
-    if bad.size:
-        raise InputError(
-            f"sample {int(bad[0])} (0-based; {bad.size} in all) has a missing or infinite value",
-            fix="drop samples without a value before interpolating",
-        )
-    if z.size < minimum:
-        raise InputError(
-            f"at least {minimum} sample{'s' if minimum > 1 else ''} needed here (got {z.size})",
-            fix="add samples, or fix the variogram in the project instead of fitting it",
-        )
-    return pts, z
-
-
 def _pair_blocks(
     xy: NDArray[np.float64], z: NDArray[np.float64], *, block: int = 256
 ) -> Iterator[tuple[NDArray[np.float64], NDArray[np.float64]]]:
@@ -452,7 +366,7 @@ def empirical(
     >>> ev.lags.tolist(), ev.gamma.round(4).tolist(), ev.counts.tolist()
     ([1.0, 2.0, 3.0], [0.8333, 3.25, 4.5], [3, 2, 1])
     """
-    xy, z = _as_samples(xy, values, minimum=3)
+    xy, z = as_samples(xy, values, minimum=3)
     if int(n_lags) != n_lags or n_lags < 1:
         raise SettingsError(f"must be a whole number of at least 1 (got {n_lags!r})", key="n_lags")
     if max_lag is None:
@@ -592,68 +506,3 @@ def fit(
     )
     logger.debug("fitted %s: %s (rmse %.4g)", model, fitted, rmse)
     return FitResult(model=fitted, rmse=rmse, weights=words)
-
-
-def select_model(
-    xy: ArrayLike,
-    values: ArrayLike,
-    *,
-    candidates: Sequence[str] = ("spherical", "exponential", "gaussian"),
-    n_lags: int = 12,
-    max_lag: float | None = None,
-    nu: float | None = None,
-    weighting: str = "pairs",
-) -> Selection:
-    """Fit each candidate model and keep the one with the lowest cross-validation RMSE.
-
-    Each candidate is fitted to the same empirical variogram (:func:`fit`)
-    and judged by leave-one-out cross-validation of ordinary kriging with all
-    samples (:func:`geosoil.kriging.loo_cross_validation`, which also reports
-    the mean squared standardised error, MSSE: near 1 when the kriging
-    variance is realistic). The lowest RMSE wins; ties go to the earlier
-    candidate.
-
-    Parameters
-    ----------
-    xy, values
-        Sample coordinates (n, 2) in metres and values (n,).
-    candidates
-        Model names to try (each from :data:`MODELS`; ``"matern"`` needs ``nu``).
-    n_lags, max_lag
-        As for :func:`empirical`.
-    nu, weighting
-        As for :func:`fit`.
-
-    Returns
-    -------
-    Selection
-
-    Examples
-    --------
-    >>> rng = np.random.default_rng(1)
-    >>> xy = rng.uniform(0, 1000, (60, 2))
-    >>> z = np.sin(xy[:, 0] / 200) + 0.1 * rng.normal(size=60)
-    >>> sel = select_model(xy, z, n_lags=8)
-    >>> [c.model.name for c in sel.candidates]
-    ['spherical', 'exponential', 'gaussian']
-    >>> sel.model.name in {c.model.name for c in sel.candidates}
-    True
-    """
-    from .kriging import loo_cross_validation  # kriging imports this module
-
-    xy, z = _as_samples(xy, values, minimum=4)
-    if not candidates:
-        raise SettingsError("name at least one variogram model to try", key="candidates")
-    emp = empirical(xy, z, n_lags=n_lags, max_lag=max_lag)
-    tried = []
-    for name in candidates:
-        f = fit(emp, model=name, nu=nu, weighting=weighting)
-        cv = loo_cross_validation(xy, z, f.model)
-        logger.info(
-            "variogram %s: fit rmse %.4g, cross-validation rmse %.4g, msse %.3f",
-            name, f.rmse, cv.rmse, cv.msse,
-        )
-        tried.append(Candidate(fit=f, cross_validation=cv))
-    best = min(tried, key=lambda c: c.cross_validation.rmse)
-    return Selection(model=best.model, empirical=emp, candidates=tuple(tried))
-

@@ -44,7 +44,7 @@ How the zones are built
    says so.
 6. Spreader limits turn each zone's raw rate into the rate to spread
    (:func:`limit_zone_rate`, which applies the spreader's own rules from
-   :func:`geosoil.rates.spreader_passes`: minimum rate, equal passes of at
+   :func:`geosoil.spreader.spreader_passes`: minimum rate, equal passes of at
    most the largest rate per pass, each rounded to the rate step).
 
 So the zones of a paddock tile it: rate and remainder zones cover the working
@@ -102,8 +102,8 @@ from shapely.geometry import shape as shape_from_geojson
 from shapely.geometry.base import BaseGeometry
 
 from .errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
-from .rates import SpreaderSettings, pass_schedule, spreader_passes
 from .settings import setting
+from .spreader import SpreaderSettings, pass_schedule, spreader_passes
 
 __all__ = [
     "METHODS",
@@ -283,13 +283,13 @@ class ZoneRate:
 def limit_zone_rate(raw_kg_ha: float, *, spreader: SpreaderSettings | None = None) -> ZoneRate:
     """A zone's rate to spread, its passes and their schedule, from its raw rate.
 
-    The rules are the spreader's own, :func:`geosoil.rates.spreader_passes`:
+    The rules are the spreader's own, :func:`geosoil.spreader.spreader_passes`:
     below the minimum rate nothing is spread; otherwise the rate is split into
     the fewest equal passes of at most ``max_per_pass``, each rounded to the
     rate step by the spreader's ``rounding`` mode and kept between the smallest
     and largest spreadable step multiples. The zone's rate is passes x rate per
     pass. ``split_into`` names the passes in the schedule
-    (:func:`geosoil.rates.pass_schedule`).
+    (:func:`geosoil.spreader.pass_schedule`).
 
     Parameters
     ----------
@@ -1029,7 +1029,7 @@ def make_zones(
     settings
         :class:`ZoneSettings`.
     spreader
-        The spreader's limits (:class:`geosoil.rates.SpreaderSettings`: minimum
+        The spreader's limits (:class:`geosoil.spreader.SpreaderSettings`: minimum
         rate, largest rate per pass, rate step, rounding mode, passes or
         seasons), applied to each zone by :func:`limit_zone_rate`; ``None``: no
         limits. Rate classes: cells below the minimum rate (or at 0) form the

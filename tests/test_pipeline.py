@@ -51,7 +51,8 @@ import shapely
 
 import demo_farm
 import geosoil
-from geosoil.pipeline import compute, run
+from geosoil.job import run
+from geosoil.pipeline import compute
 from geosoil.project import load_project
 from geosoil.variogram import MODELS
 

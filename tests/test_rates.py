@@ -1,4 +1,4 @@
-"""Tests for geosoil.rates: the rules, the unit chain, explanations and spreader limits.
+"""Tests for geosoil.rates: the rules, the unit chain, explanations.
 
 Published values come from /work/shared/REFERENCES.md; each check names its source beside it.
 Rules of the trade are marked "common practice". Other checks are properties.
@@ -22,20 +22,15 @@ from geosoil.rates import (
     GypsumRule,
     LimeRule,
     RateSettings,
-    SpreaderSettings,
-    apply_spreader_limits,
     check_inputs,
     compute_rates,
     explain_cell,
     format_steps,
     inputs_used,
-    pass_schedule,
     plan_rules,
-    split_passes,
-    spreader_passes,
 )
 from geosoil.settings import from_mapping
-from geosoil.units import KG_HA_PER_LB_AC, MG_CACO3_PER_CMOL, kg_ha_to_lb_ac, lb_ac_to_kg_ha
+from geosoil.units import KG_HA_PER_LB_AC, MG_CACO3_PER_CMOL, kg_ha_to_lb_ac
 
 PRODUCTS = default_products()
 OFF = "off"
@@ -638,98 +633,6 @@ def test_named_methods_in_settings_and_outputs() -> None:
     assert "Handbook 60" in r.methods["gypsum"]
     assert "Cochrane, Salinas & Sanchez 1980" in r.methods["lime"]
     assert "common practice" in r.methods["calcium"]
-
-
-# --------------------------------------------------------------------------- spreader
-
-
-def test_split_passes() -> None:
-    assert split_passes(6000.0, 2500.0) == (3, 2000.0)
-    assert split_passes(2500.0, 2500.0) == (1, 2500.0)
-    assert split_passes(0.0, 2500.0) == (0, 0.0)
-    n, per = split_passes(np.array([100.0, 5001.0, np.nan]), 2500.0)
-    assert n.tolist() == [1, 3, 0]
-    assert per[0] == 100.0 and per[1] == pytest.approx(1667.0) and np.isnan(per[2])
-    assert split_passes(9000.0, 0.0) == (1, 9000.0)
-
-
-def test_spreader_minimum_maximum_and_step() -> None:
-    sp = SpreaderSettings(unit="t/ha", min_rate=0.5, max_per_pass=2.5, rate_step=0.25)
-    with pytest.warns(RateWarning):
-        out = apply_spreader_limits(np.array([0.0, 400.0, 1080.0, 6100.0, np.nan]), sp)
-    assert out[0] == 0 and out[1] == 0  # below the minimum spreadable rate
-    assert out[2] == pytest.approx(1000.0)  # 1.08 t/ha rounds to 1.00 (step 0.25)
-    assert out[3] == pytest.approx(6000.0)  # 3 passes of 2.0 t/ha
-    assert np.isnan(out[4])
-
-
-def test_spreader_rounding_modes() -> None:
-    up = SpreaderSettings(rate_step=100, rounding="up")
-    down = SpreaderSettings(rate_step=100, rounding="down")
-    assert apply_spreader_limits(np.array([1210.0]), up)[0] == 1300.0
-    assert apply_spreader_limits(np.array([1290.0]), down)[0] == 1200.0
-    assert apply_spreader_limits(np.array([300.0]), down)[0] == 300.0  # exact multiple stays
-
-
-def test_spreader_in_lb_per_acre_is_exact() -> None:
-    # [derived] 1 lb/ac = 515445875/459870048 kg/ha exactly (= 1.1208511562...; NIST SP 811:
-    # 1 lb = 0.45359237 kg, 1 acre = 4046.8564224 m2, both exact by definition)
-    sp = SpreaderSettings(unit="lb/ac", rate_step=50, min_rate=100)
-    assert sp.rate_step_kg_ha == pytest.approx(50 * 515445875 / 459870048, rel=1e-15)
-    out = apply_spreader_limits(np.array([float(lb_ac_to_kg_ha(1234.0))]), sp)
-    assert float(kg_ha_to_lb_ac(out[0])) == pytest.approx(1250.0, rel=1e-12)
-
-
-@given(lb=st.floats(0, 1e6))
-@HYP
-def test_lb_ac_and_kg_ha_round_trip(lb: float) -> None:
-    assert float(kg_ha_to_lb_ac(lb_ac_to_kg_ha(lb))) == pytest.approx(lb, rel=1e-12, abs=1e-9)
-
-
-@given(rate=st.floats(0, 20_000), lo=st.floats(0, 1000), hi=st.floats(1000, 4000),
-       step=st.sampled_from([0.0, 10.0, 50.0, 100.0, 250.0]))
-@HYP
-def test_spreader_passes_respect_the_machine(rate: float, lo: float, hi: float,
-                                             step: float) -> None:
-    sp = SpreaderSettings(min_rate=lo, max_per_pass=hi, rate_step=step)
-    n, per = spreader_passes(rate, sp)
-    if rate < lo or per == 0:
-        assert n == 0 or per == 0
-        return
-    assert n >= 1
-    assert per <= hi + 1e-9
-    assert per >= lo - 1e-9
-    if step:
-        assert per / step == pytest.approx(round(per / step), abs=1e-9)
-    assert n == split_passes(rate, hi)[0]
-
-
-def test_pass_schedule_names_passes_or_seasons_in_the_spreader_unit() -> None:
-    # 6.1 t/ha at most 2.5 t/ha a pass: 3 passes of 2.03, rounded to 2.0 t/ha [derived]
-    sp = SpreaderSettings(unit="t/ha", min_rate=0.5, max_per_pass=2.5, rate_step=0.25)
-    n, per = spreader_passes(6100.0, sp)
-    assert pass_schedule(n, per, sp) == "3 passes of 2.0 t/ha"
-    seasons = SpreaderSettings(unit="t/ha", max_per_pass=2.5, split_into="seasons")
-    assert pass_schedule(*spreader_passes(4000.0, seasons), seasons) == "2 seasons of 2.0 t/ha"
-    assert pass_schedule(1, 2000.0, seasons) == "" and pass_schedule(0, 0.0, seasons) == ""
-    lb = SpreaderSettings(unit="lb/ac")
-    # 2 x 1000 lb/ac: the rate per pass is shown back in lb/ac (exact factor, NIST SP 811)
-    assert pass_schedule(2, float(lb_ac_to_kg_ha(1000.0)), lb) == "2 passes of 1,000 lb/ac"
-
-
-def test_bad_spreader_settings_name_the_key() -> None:
-    with pytest.raises(SettingsError) as err:
-        SpreaderSettings(min_rate=3000, max_per_pass=2500)
-    assert err.value.key == "min_rate"
-    with pytest.raises(SettingsError) as err:
-        SpreaderSettings(max_per_pass=2500, rate_step=3000)
-    assert err.value.key == "rate_step"
-    with pytest.raises(SettingsError) as err:
-        from_mapping(SpreaderSettings, {"unit": "kg/ac"}, section="spreader")
-    assert err.value.key == "spreader.unit"
-    with pytest.raises(SettingsError) as err:
-        from_mapping(SpreaderSettings, {"min_rate": -1}, section="spreader")
-    assert err.value.key == "spreader.min_rate"
 
 
 def test_no_rate_is_ever_negative_or_inf() -> None:

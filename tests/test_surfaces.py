@@ -32,6 +32,7 @@ from scipy.spatial.distance import pdist
 from geosoil.errors import InputError, InterpolationWarning, SettingsError
 from geosoil.grids import aligned_grids
 from geosoil.kriging import ordinary_kriging
+from geosoil.model_choice import select_model
 from geosoil.products import default_products
 from geosoil.rates import RateSettings, check_inputs, compute_rates
 from geosoil.settings import from_mapping
@@ -43,7 +44,7 @@ from geosoil.surfaces import (
     interpolate_farm,
     variables_to_interpolate,
 )
-from geosoil.variogram import VariogramModel, select_model
+from geosoil.variogram import VariogramModel
 
 UTM55S = "EPSG:32755"
 E0, N0 = 541_000.0, 6_160_000.0  # south-eastern Australia, UTM zone 55S metres

@@ -1,4 +1,4 @@
-"""Tests of geosoil.variogram: models, empirical variogram, fitting, model choice.
+"""Tests of geosoil.variogram (models, empirical variogram, fitting) and geosoil.model_choice.
 
 Outside references: pykrige's model functions (``pykrige.variogram_models``,
 the parameterisation the module promises to share) and GSTools' Matérn model.
@@ -17,6 +17,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from geosoil.errors import InputError, SettingsError
+from geosoil.model_choice import select_model
 from geosoil.settings import from_mapping
 from geosoil.variogram import (
     MODELS,
@@ -24,7 +25,6 @@ from geosoil.variogram import (
     VariogramModel,
     empirical,
     fit,
-    select_model,
 )
 
 pykrige_models = pytest.importorskip("pykrige.variogram_models")

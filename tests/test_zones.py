@@ -18,8 +18,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from geosoil.errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
-from geosoil.rates import SpreaderSettings, spreader_passes
 from geosoil.settings import from_mapping
+from geosoil.spreader import SpreaderSettings, spreader_passes
 from geosoil.zones import (
     NO_PRODUCT,
     ZONE_COLUMNS,
@@ -603,7 +603,7 @@ def spreaders(draw) -> SpreaderSettings:
 
 @given(raw=st.floats(0, 20000, allow_nan=False), sp=spreaders())
 def test_limit_zone_rate_is_the_spreaders_rule(raw, sp) -> None:
-    """The zone rate is what rates.spreader_passes says the machine puts out, and its
+    """The zone rate is what spreader.spreader_passes says the machine puts out, and its
     properties hold: equal passes within the machine's range, on the rate step."""
     z = limit_zone_rate(raw, spreader=sp)
     n, per = spreader_passes(raw, sp)

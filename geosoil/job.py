@@ -1,0 +1,99 @@
+"""The whole job in one call: compute a project's farm, then write its output folder.
+
+:func:`run` checks the output folder first (never over an input, never over
+results without ``overwrite``), then calls :func:`geosoil.pipeline.compute`
+and :func:`geosoil.outputs.write_outputs`, recording every warning of the
+writing stage with the run's others.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from .outputs import write_outputs
+from .pipeline import FarmResult, Progress, compute, recording
+from .project import Project
+from .writers import ensure_output_dir
+
+__all__ = ["RunResult", "run"]
+
+
+def _quiet(_: str) -> None:
+    return None
+
+
+@dataclass
+class RunResult:
+    """What a run wrote and the figures the CLI prints."""
+
+    out_dir: Path
+    written: list[Path]
+    farm: FarmResult
+    record: dict[str, Any]
+
+    @property
+    def tonnage(self) -> pd.DataFrame:
+        """The tonnage table (``tonnage.csv``)."""
+        return self.farm.tonnage
+
+    @property
+    def warnings(self) -> list[str]:
+        """Every warning recorded during the run."""
+        return self.farm.warnings
+
+
+def run(
+    project: Project,
+    *,
+    out_dir: Path,
+    overwrite: bool = False,
+    progress: Progress = _quiet,
+    use_cache: bool = True,
+) -> RunResult:
+    """The whole job into ``out_dir``.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+    out_dir : Path
+        The output folder (created; see :mod:`geosoil.outputs` for its layout).
+    overwrite : bool, optional
+        Replace the contents of a non-empty output folder.
+    progress : callable, optional
+        Called with a short message at each stage.
+    use_cache : bool, optional
+        False interpolates again even when the inputs are unchanged.
+
+    Returns
+    -------
+    RunResult
+        The computed farm, the files written and the run record.
+
+    Raises
+    ------
+    OutputExistsError
+        ``out_dir`` exists and is not empty, and ``overwrite`` is false; or it
+        is (or holds) an input folder.
+    GeosoilError
+        Any input or settings problem.
+    """
+    ensure = _ensure_output(project, out_dir, overwrite=overwrite)
+    farm = compute(project, progress=progress, use_cache=use_cache)
+    t0 = time.perf_counter()
+    with recording(farm.prep.warnings):
+        written, record = write_outputs(farm, out_dir=ensure, progress=progress)
+    farm.timings["writing"] = time.perf_counter() - t0
+    return RunResult(out_dir=ensure, written=written, farm=farm, record=record)
+
+
+def _ensure_output(project: Project, out_dir: Path, *, overwrite: bool) -> Path:
+    inputs = [p for p in project.input_files() if p is not None]
+    if project.path is not None:
+        inputs.append(project.path)
+    return ensure_output_dir(Path(out_dir), overwrite=overwrite, inputs=inputs)

@@ -1,0 +1,125 @@
+"""Facts for the run record: file-name slugs, input checksums, versions, the time.
+
+Small helpers that both the pipeline and the output folder use; they know
+nothing of surfaces or rates.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import platform
+import re
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from . import __version__
+
+if TYPE_CHECKING:
+    from .project import Project
+
+__all__ = ["slug", "sha256_file", "versions", "now_utc", "input_checksums"]
+
+
+def slug(name: str) -> str:
+    """A file-name-safe form of a paddock or product name.
+
+    Parameters
+    ----------
+    name : str
+        A paddock or product name as the user wrote it.
+
+    Returns
+    -------
+    str
+        Lower case letters, digits and dashes.
+
+    Examples
+    --------
+    >>> slug("North Flat / Dam side")
+    'north-flat-dam-side'
+    """
+    s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    return s or "unnamed"
+
+
+def sha256_file(path: Path) -> str:
+    """SHA-256 checksum of a file, read in 1 MiB chunks.
+
+    Parameters
+    ----------
+    path : Path
+        The file to hash.
+
+    Returns
+    -------
+    str
+        The hexadecimal digest.
+    """
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def versions() -> dict[str, str]:
+    """Versions of geosoil, Python and the libraries whose numbers matter.
+
+    Returns
+    -------
+    dict of str to str
+        Package name to version (GDAL and PROJ included when available).
+    """
+    import importlib.metadata as md
+
+    out = {"geosoil": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "scipy", "pandas", "geopandas", "shapely", "pyproj", "rasterio",
+                "pyogrio", "folium", "mapclassify"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            pass
+    try:
+        import rasterio
+
+        out["gdal"] = rasterio.__gdal_version__
+        import pyproj
+
+        out["proj"] = pyproj.proj_version_str
+    except Exception:  # pragma: no cover - informative only
+        pass
+    return out
+
+
+def now_utc() -> str:
+    """The current time in UTC, ISO 8601 to the second.
+
+    Returns
+    -------
+    str
+        Such as ``"2026-12-02T04:50:00+00:00"``.
+    """
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+def input_checksums(project: Project) -> list[tuple[str, str]]:
+    """SHA-256 checksums of a project's input files and of its project file.
+
+    Parameters
+    ----------
+    project : Project
+        The loaded project.
+
+    Returns
+    -------
+    list of (path, sha256)
+        One pair per input file that exists, the project file last.
+    """
+    out = []
+    for p in project.input_files():
+        if p is not None and Path(p).exists():
+            out.append((str(p), sha256_file(Path(p))))
+    if project.path is not None:
+        out.append((str(project.path), sha256_file(project.path)))
+    return out
