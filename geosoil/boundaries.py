@@ -410,6 +410,20 @@ def _polygonal_part(geom: BaseGeometry) -> BaseGeometry:
     return shapely.union_all(parts)
 
 
+def _check_finite(geom: BaseGeometry, *, path: Path, row: int, where: str) -> None:
+    """Refuse a vertex whose coordinate is not a number (NaN, infinite): no repair can
+    place it, and the geometry libraries only warn about it."""
+    xy = shapely.get_coordinates(geom)
+    bad = ~np.isfinite(xy).all(axis=1)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(
+            f"{where} has {int(bad.sum())} vertex(es) whose coordinate is not a number "
+            f"(the first is vertex {i + 1}: {float(xy[i, 0])}, {float(xy[i, 1])})",
+            file=path, row=row, fix="correct or delete those vertices in a GIS",
+        )
+
+
 def _clean_polygon(
     geom: BaseGeometry | None, *, path: Path, row: int, label: str, what: str, fix_type: str,
 ) -> BaseGeometry:
@@ -421,6 +435,7 @@ def _clean_polygon(
             fix="draw its boundary, or delete the feature",
         )
     geom = shapely.force_2d(geom)
+    _check_finite(geom, path=path, row=row, where=where)
     gtype = geom.geom_type
     if gtype == "GeometryCollection":
         kinds = {p.geom_type for p in _flat_parts(geom)}
@@ -705,7 +720,9 @@ def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame
                     file=path, row=i,
                     fix="draw the creek as a line; put point features in no boundary file",
                 )
-            lines.append(shapely.force_2d(g))
+            g = shapely.force_2d(g)
+            _check_finite(g, path=path, row=i, where=f"creek '{names[i - 1]}'")
+            lines.append(g)
         projected = gpd.GeoSeries(lines, crs=frame.crs).to_crs(target)
         for name, g in zip(names, projected.tolist(), strict=True):
             labels.append(name)

@@ -16,8 +16,9 @@ from typing import Any
 import pandas as pd
 
 from .outputs import write_outputs
-from .pipeline import FarmResult, Progress, compute, recording
+from .pipeline import FarmResult, Progress, compute
 from .project import Project
+from .recording import record_warnings
 from .writers import ensure_output_dir
 
 __all__ = ["RunResult", "run"]
@@ -86,7 +87,7 @@ def run(
     ensure = _ensure_output(project, out_dir, overwrite=overwrite)
     farm = compute(project, progress=progress, use_cache=use_cache)
     t0 = time.perf_counter()
-    with recording(farm.prep.warnings):
+    with record_warnings(farm.prep.warnings):
         written, record = write_outputs(farm, out_dir=ensure, progress=progress)
     farm.timings["writing"] = time.perf_counter() - t0
     return RunResult(out_dir=ensure, written=written, farm=farm, record=record)

@@ -9,7 +9,7 @@ bookkeeping, no agronomy, no geostatistics and no output files):
 4. aligned paddock grids; interpolated surfaces (cached by a hash of their inputs);
 5. per-cell chemistry and rates; spreader zones; tonnage;
 Writing the output folder is :mod:`geosoil.outputs`; :func:`geosoil.job.run`
-does both. Every warning raised on the way is caught by :func:`recording` and
+does both. Every warning raised on the way is caught by :func:`geosoil.recording.record_warnings` and
 ends in ``run.json``, the report and the CLI summary.
 """
 
@@ -23,9 +23,7 @@ import logging
 import os
 import pickle
 import time
-import warnings
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -46,11 +44,12 @@ from .boundaries import read_exclusions, read_paddocks, read_user_zones
 from .chemistry import derive
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
-from .errors import GeosoilError, GeosoilWarning, SettingsError
+from .errors import GeosoilError, SettingsError
 from .grids import PaddockGrid, aligned_grids
 from .products import Product, resolve_products
 from .project import Project
 from .rates import RateResult, check_inputs, compute_rates
+from .recording import record_warnings
 from .samples import SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
@@ -66,7 +65,6 @@ __all__ = [
     "CACHE_KEEP",
     "PaddockResult",
     "surfaces_for",
-    "recording",
 ]
 
 logger = logging.getLogger(__name__)
@@ -76,24 +74,6 @@ Progress = Callable[[str], None]
 
 def _quiet(_: str) -> None:
     return None
-
-
-@contextmanager
-def recording(sink: list[str]) -> Iterator[None]:
-    """Record every geosoil warning raised inside the block (and still log it)."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", GeosoilWarning)
-        try:
-            yield
-        finally:
-            for w in caught:
-                if issubclass(w.category, GeosoilWarning):
-                    msg = str(w.message)
-                    if msg not in sink:
-                        sink.append(msg)
-                        logger.info(msg)
-                else:
-                    warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
 
 # --------------------------------------------------------------------------- stage 1-4
@@ -157,7 +137,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     """
     s = project.settings
     sink: list[str] = []
-    with recording(sink):
+    with record_warnings(sink):
         progress("reading boundaries")
         paddocks = read_paddocks(s.boundaries)
         _check_paddock_keys(s.soil.bulk_density_by_paddock, paddocks,
@@ -293,7 +273,7 @@ def surfaces_for(
         except Exception as exc:  # a damaged cache is rebuilt, never trusted
             logger.info("surface cache %s unreadable (%s); rebuilding", path, exc)
     found: list[str] = []
-    with recording(found):
+    with record_warnings(found):
         surfaces = interpolate_farm(
             prep.samples,
             prep.grids,
@@ -400,7 +380,7 @@ def compute(
     s = project.settings
     results: dict[str, PaddockResult] = {}
     all_zones: list[gpd.GeoDataFrame] = []
-    with recording(prep.warnings):
+    with record_warnings(prep.warnings):
         for name, grid in prep.grids.items():
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
@@ -493,13 +473,21 @@ def check(project: Project) -> tuple[list[str], list[str]]:
     """
     problems: list[str] = []
     sink: list[str] = []
+    raised: list[str] = []  # what the stages raised, also when one stopped early
     lenient = dataclasses.replace(project.settings.samples, on_bad_row="skip")
     strict = project.settings.samples.on_bad_row == "stop"
     trial = dataclasses.replace(
         project, settings=dataclasses.replace(project.settings, samples=lenient)
     )
+    # with on_bad_row = "stop" the bad rows are problems, not rows a run would skip
+    skipped = (" bad row(s) skipped: ", " sample(s) outside every paddock skipped: ",
+               ": ECEC left empty for ")
+
+    def keep(w: str) -> bool:
+        return w not in sink and not (strict and any(t in w for t in skipped))
+
     try:
-        with recording(sink):
+        with record_warnings(raised):
             prep = prepare(trial)
         if strict:
             # rows a run with on_bad_row = "stop" would stop at: skipped here only to list
@@ -521,11 +509,8 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                         f"paddock '{name}' has no samples; sample it or set "
                         "[interpolation] borrow_farm_surface = true"
                     )
-        # with on_bad_row = "stop" the bad rows are problems above, not rows a run would skip
-        skipped = (" bad row(s) skipped: ", " sample(s) outside every paddock skipped: ",
-                   ": ECEC left empty for ")
-        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if w not in sink
-                    and not (strict and any(t in w for t in skipped)))
+        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if keep(w))
     except GeosoilError as exc:
         problems.append(str(exc))
+        sink.extend(w for w in raised if keep(w))
     return problems, sink
