@@ -9,8 +9,9 @@ bookkeeping, no agronomy, no geostatistics and no output files):
 4. aligned paddock grids; interpolated surfaces (cached by a hash of their inputs);
 5. per-cell chemistry and rates; spreader zones; tonnage;
 Writing the output folder is :mod:`geosoil.outputs`; :func:`geosoil.job.run`
-does both. Every warning raised on the way is caught by :func:`geosoil.recording.record_warnings` and
-ends in ``run.json``, the report and the CLI summary.
+does both. Every warning raised on the way is caught by
+:func:`geosoil.recording.record_warnings` and ends in ``run.json``, the report and the
+CLI summary.
 """
 
 from __future__ import annotations
