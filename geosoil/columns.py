@@ -37,6 +37,8 @@ from .units import normalise_unit
 
 __all__ = [
     "CANONICAL",
+    "BUFFER_PH",
+    "PROPERTIES",
     "EXCHANGEABLE",
     "UNITLESS",
     "ANALYTE_SPELLINGS",
@@ -47,14 +49,30 @@ __all__ = [
     "detect_columns",
 ]
 
+#: Buffer-pH analytes, one per buffer (a buffer pH means nothing without its buffer).
+BUFFER_PH: tuple[str, ...] = ("bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans")
+
+#: Soil properties read for lime to a target pH, with the units each may be given in (the
+#: first is the canonical one): organic carbon, organic matter and clay in %, CEC at pH 7
+#: (exchangeable-style units), pH buffering capacity per pH unit.
+PROPERTIES: dict[str, tuple[str, ...]] = {
+    "oc": ("%", "g/kg"),
+    "om": ("%", "g/kg"),
+    "clay": ("%", "g/kg"),
+    "phbc": ("cmol/kg/pH", "mmol/kg/pH"),
+}
+
 #: Canonical analytes, in the order they are reported.
-CANONICAL: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity", "cec", "ph", "sar")
+CANONICAL: tuple[str, ...] = (
+    "ca", "mg", "k", "na", "al", "h", "acidity", "cec", "ph", "sar",
+    "cec_ph7", *BUFFER_PH, *PROPERTIES,
+)
 
 #: Analytes that are exchangeable amounts, carried in cmol(+)/kg.
-EXCHANGEABLE: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity", "cec")
+EXCHANGEABLE: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity", "cec", "cec_ph7")
 
 #: Analytes without a unit.
-UNITLESS: tuple[str, ...] = ("ph", "sar")
+UNITLESS: tuple[str, ...] = ("ph", "sar", *BUFFER_PH)
 
 #: Names (lower case, qualifier, charge and unit removed) that mean each analyte.
 #: The first spellings of ``cec`` name an effective CEC and are preferred over a plain CEC.
@@ -75,6 +93,27 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
     ),
     "ph": ("ph",),
     "sar": ("sar", "sodium adsorption ratio"),
+    "cec_ph7": (
+        "cec ph7", "cec ph 7", "cec at ph 7", "cec ph 7 0", "ctc", "ctc ph 7", "ctc ph7",
+        "ctc a ph 7", "cec nh4oac ph 7", "potential cec",
+    ),
+    "bph_smp": ("smp buffer ph", "smp bph", "smp ph", "smp", "smp lime index", "bph smp",
+                "buffer ph smp"),
+    "bph_sikora": ("sikora buffer ph", "sikora bph", "sikora ph", "sikora", "bph sikora",
+                   "buffer ph sikora", "sikora 2 buffer ph", "sikora ii buffer ph"),
+    "bph_mehlich": ("mehlich buffer ph", "mehlich bph", "mehlich ph", "bph mehlich",
+                    "buffer ph mehlich"),
+    "bph_adams_evans": ("adams evans buffer ph", "adams evans bph", "adams evans ph",
+                        "adams evans", "ae buffer ph", "a e buffer ph", "bph adams evans",
+                        "buffer ph adams evans"),
+    "oc": ("oc", "organic carbon", "org c", "org carbon", "organic c", "soc", "toc",
+           "total organic carbon", "walkley black c", "walkley black organic carbon",
+           "carbon organic", "c org"),
+    "om": ("om", "organic matter", "org matter", "som", "soil organic matter",
+           "organic matter loi", "om loi", "loi"),
+    "clay": ("clay", "clay content", "clay fraction"),
+    "phbc": ("phbc", "ph bc", "ph buffering capacity", "ph buffer capacity",
+             "buffering capacity"),
 }
 
 #: Names of a sample ID column, most specific first.
@@ -268,6 +307,9 @@ def parse_header(header: str) -> HeaderInfo:
             note = f"unit '{inner}' is not an exchangeable amount"
         elif inner:
             methods.append(inner)
+    other = _lime_analyte(given, plain, methods, units)
+    if other is not None:
+        return other
     rest = _BRACKETS.sub(" ", plain).lower().replace("_", " ")
     tokens = rest.split()
     # A unit written after the name: "Ca ppm", "Ca meq/100 g", "Ca mg kg-1".
@@ -329,6 +371,78 @@ def parse_header(header: str) -> HeaderInfo:
             given, None, note=f"{analyte} in mg/kg is not defined; give it in cmol(+)/kg"
         )
     return HeaderInfo(given, analyte, unit=unit, method=method)
+
+
+_BUFFER_NAMES: dict[str, str] = {
+    "smp": "bph_smp", "sikora": "bph_sikora", "mehlich": "bph_mehlich",
+    "adams evans": "bph_adams_evans", "ae": "bph_adams_evans", "a e": "bph_adams_evans",
+}
+_PROPERTY_UNIT_TEXT: dict[str, str] = {
+    "%": "%", "pct": "%", "percent": "%", "g/100g": "%", "g/100 g": "%", "dag/kg": "%",
+    "g/kg": "g/kg", "g kg-1": "g/kg",
+    "cmol/kg/ph": "cmol/kg/pH", "cmol+/kg/ph": "cmol/kg/pH", "cmolc/kg/ph": "cmol/kg/pH",
+    "meq/100g/ph": "cmol/kg/pH", "mmol/kg/ph": "mmol/kg/pH", "mmol+/kg/ph": "mmol/kg/pH",
+    "mmolc/kg/ph": "mmol/kg/pH",
+}
+
+
+def _words(text: str) -> list[str]:
+    t = text.lower().replace("_", " ").replace("-", " ").replace(".", " ")
+    return [w for w in re.split(r"[\s,:]+", t) if w]
+
+
+def _lime_analyte(
+    given: str, plain: str, methods: list[str], units: list[str]
+) -> HeaderInfo | None:
+    """Buffer pH (by buffer), organic carbon / matter, clay and pHBC headers; None otherwise."""
+    inner = [i.strip() for i in _BRACKETS.findall(plain)]
+    unit_texts = [i for i in inner if i.lower().replace(" ", "") in
+                  {k.replace(" ", "") for k in _PROPERTY_UNIT_TEXT}]
+    name_part = _BRACKETS.sub(" ", plain)
+    words = _words(name_part)
+    # a unit written after the name: "Clay %", "OC g/kg", "pHBC mmol/kg/pH"
+    tail_unit = None
+    for n in range(len(words) - 1, 0, -1):
+        key = " ".join(words[n:]).replace(" ", "")
+        if key in {k.replace(" ", "") for k in _PROPERTY_UNIT_TEXT}:
+            tail_unit, words = key, words[:n]
+            break
+        if words[-1] == "%":
+            tail_unit, words = "%", words[:-1]
+            break
+    words = [w for w in words if w not in ("%",)]
+    extra = [w for i in inner if i not in unit_texts for w in _words(i)]
+    all_words = words + extra
+    joined_all = " ".join(all_words)
+    is_buffer = ("buffer" in all_words and "ph" in " ".join(all_words)) or any(
+        w in ("bph", "lime index", "sikora") for w in all_words) or joined_all.startswith(
+        "lime index") or joined_all in ("smp", "adams evans")
+    if is_buffer and "capacity" not in all_words:
+        for name, analyte in _BUFFER_NAMES.items():
+            if re.search(rf"\b{name}\b", joined_all):
+                return HeaderInfo(given, analyte, method=name)
+        return HeaderInfo(
+            given, None, note="a buffer pH that names no buffer: say which with [samples.columns] "
+            + ", ".join(f"{a} = '{given}'" for a in BUFFER_PH[:1]) + " (or "
+            + ", ".join(BUFFER_PH[1:]) + ")",
+        )
+    joined = " ".join(words)
+    analyte = next((a for a in PROPERTIES if joined in ANALYTE_SPELLINGS[a]), None)
+    if analyte is None:
+        return None
+    said = [_PROPERTY_UNIT_TEXT.get(u.lower(), _PROPERTY_UNIT_TEXT.get(u.lower().replace(" ", "")))
+            for u in unit_texts]
+    if tail_unit is not None:
+        said.append(_PROPERTY_UNIT_TEXT.get(tail_unit, "%" if tail_unit == "%" else None))
+    said = [u for u in said if u is not None]
+    if units:
+        return HeaderInfo(given, None, note=f"{analyte} in {units[0]} is not understood; give it "
+                          f"in {' or '.join(PROPERTIES[analyte])}")
+    if said and said[0] not in PROPERTIES[analyte]:
+        return HeaderInfo(given, None, note=f"{analyte} in {said[0]} is not understood; give it "
+                          f"in {' or '.join(PROPERTIES[analyte])}")
+    method = " ".join(extra) or None
+    return HeaderInfo(given, analyte, unit=said[0] if said else None, method=method)
 
 
 def _preference(info: HeaderInfo) -> int:

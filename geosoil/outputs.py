@@ -73,6 +73,9 @@ SURFACE_UNITS: dict[str, str] = {
     "acidity": "cmol(+)/kg", "al": "cmol(+)/kg", "cec": "cmol(+)/kg", "ecec": "cmol(+)/kg",
     "ph": "pH units", "esp": "% of ECEC", "ca_sat": "% of ECEC", "mg_sat": "% of ECEC",
     "k_sat": "% of ECEC", "na_sat": "% of ECEC", "acid_sat": "% of ECEC", "al_sat": "% of ECEC",
+    "cec_ph7": "cmol(+)/kg", "bph_smp": "pH units", "bph_sikora": "pH units",
+    "bph_mehlich": "pH units", "bph_adams_evans": "pH units", "oc": "%", "om": "%", "clay": "%",
+    "phbc": "cmol(+)/kg per pH unit",
 }
 
 #: Readable names of variables.
@@ -82,6 +85,9 @@ TITLES: dict[str, str] = {
     "cec": "CEC (lab)", "ecec": "ECEC", "ph": "pH", "esp": "ESP (exchangeable sodium)",
     "ca_sat": "Ca saturation", "mg_sat": "Mg saturation", "k_sat": "K saturation",
     "na_sat": "Na saturation", "acid_sat": "Acid saturation", "al_sat": "Al saturation",
+    "cec_ph7": "CEC at pH 7", "bph_smp": "SMP buffer pH", "bph_sikora": "Sikora buffer pH",
+    "bph_mehlich": "Mehlich buffer pH", "bph_adams_evans": "Adams-Evans buffer pH",
+    "oc": "Organic carbon", "om": "Organic matter", "clay": "Clay", "phbc": "pH buffering capacity",
 }
 
 

@@ -67,11 +67,18 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from .chemistry import DERIVED
-from .columns import CANONICAL, UNITLESS, detect_columns, parse_header
+from .columns import BUFFER_PH, CANONICAL, PROPERTIES, UNITLESS, detect_columns, parse_header
 from .crs import describe_crs, parse_crs
 from .errors import CRSError, DataWarning, InputError, SettingsError
 from .settings import setting
-from .units import CATION_UNITS, from_cmol_kg, normalise_unit, to_cmol_kg
+from .units import (
+    DEFAULT_SCOOP_DENSITY_G_CM3,
+    LAB_UNITS,
+    VOLUMETRIC_UNITS,
+    from_cmol_kg,
+    normalise_unit,
+    to_cmol_kg,
+)
 
 __all__ = [
     "SampleSettings",
@@ -80,6 +87,8 @@ __all__ = [
     "PLAUSIBLE_MAX_CMOL",
     "PLAUSIBLE_PH",
     "PLAUSIBLE_MAX_SAR",
+    "PLAUSIBLE_BUFFER_PH",
+    "PLAUSIBLE_MAX_PROPERTY",
     "HEADER_SEARCH_ROWS",
     "read_samples",
     "prepare_samples",
@@ -98,7 +107,15 @@ PLAUSIBLE_MAX_CMOL: dict[str, float] = {
     "h": 30.0,
     "acidity": 40.0,
     "cec": 300.0,
+    "cec_ph7": 300.0,
 }
+#: Plausible buffer pH range (common practice: the buffers start at pH 7.5 to 8.0 and
+#: strongly acid soils bring them down to about 4.5).
+PLAUSIBLE_BUFFER_PH: tuple[float, float] = (3.5, 8.5)
+#: Largest plausible organic carbon, organic matter and clay (%), and pHBC (cmol(+)/kg/pH)
+#: (common practice; generous, to catch a wrong unit such as g/kg read as %).
+PLAUSIBLE_MAX_PROPERTY: dict[str, float] = {"oc": 60.0, "om": 100.0, "clay": 100.0,
+                                           "phbc": 30.0}
 #: Plausible soil pH range (common practice; acid sulfate soils reach below 3).
 PLAUSIBLE_PH: tuple[float, float] = (1.5, 12.5)
 #: Largest plausible SAR (common practice).
@@ -142,13 +159,21 @@ class SampleSettings:
     )
     units: dict[str, str] = setting(
         default_factory=dict,
-        doc="analyte -> unit, overriding the header (" + ", ".join(CATION_UNITS) + ")",
+        doc="analyte -> unit, overriding the header (" + ", ".join(LAB_UNITS) + "; oc, om "
+        "and clay: %, g/kg; phbc: cmol/kg/pH, mmol/kg/pH)",
+    )
+    scoop_density_g_cm3: float = setting(
+        DEFAULT_SCOOP_DENSITY_G_CM3,
+        doc="density of the soil the lab measured by volume (scoop), used to read "
+        + ", ".join(VOLUMETRIC_UNITS) + " as cmol(+)/kg (1 when the lab states none: a "
+        "convention)",
+        unit="g/cm3", minimum=0.3, maximum=2.0,
     )
     default_unit: str = setting(
         "cmol/kg", doc="unit of exchangeable columns whose header names none"
     )
     empty_allowed: tuple[str, ...] = setting(
-        ("al", "h", "acidity", "cec", "sar"),
+        ("al", "h", "acidity", "cec", "sar", *BUFFER_PH),
         doc="analytes whose empty cells mean 'not measured' (elsewhere an empty cell is an error)",
     )
     below_detection: str = setting(
@@ -188,8 +213,15 @@ class SampleSettings:
         for analyte, unit in self.units.items():
             if analyte in UNITLESS:
                 raise SettingsError(f"{analyte} has no unit; remove it", key=f"units.{analyte}")
+            if analyte in PROPERTIES:
+                if unit not in PROPERTIES[analyte]:
+                    raise SettingsError(
+                        f"{analyte} is read in {' or '.join(PROPERTIES[analyte])} (got '{unit}')",
+                        key=f"units.{analyte}",
+                    )
+                continue
             unit = _checked_unit(unit, key=f"units.{analyte}")
-            if unit == "mg/kg" and analyte in ("acidity", "cec"):
+            if unit == "mg/kg" and analyte in ("acidity", "cec", "cec_ph7"):
                 raise SettingsError(
                     f"{analyte} has no mg/kg form; use cmol/kg, meq/100g or mmol/kg",
                     key=f"units.{analyte}",
@@ -762,6 +794,10 @@ def _units(
         if analyte in UNITLESS:
             units[analyte] = None
             continue
+        if analyte in PROPERTIES:
+            units[analyte] = (settings.units.get(analyte) or parse_header(header).unit
+                              or PROPERTIES[analyte][0])
+            continue
         said = parse_header(header).unit
         cell = (unit_cells or {}).get(header)
         below = None
@@ -777,11 +813,11 @@ def _units(
                 f"the header says {said} but the units row says '{cell}'", file=name,
                 row=units_row, column=header,
                 fix=f"correct one of them, or state the unit: [samples.units] {analyte} = "
-                f"'...' ({', '.join(CATION_UNITS)})",
+                f"'...' ({', '.join(LAB_UNITS)})",
             )
         else:
             unit = said or below or normalise_unit(settings.default_unit)
-        if unit == "mg/kg" and analyte in ("acidity", "cec"):
+        if unit == "mg/kg" and analyte in ("acidity", "cec", "cec_ph7"):
             raise InputError(
                 f"{analyte} has no mg/kg form (default_unit is {settings.default_unit})",
                 file=name, row=header_row, column=header,
@@ -833,8 +869,23 @@ def _analyte_values(
         issues.append(_Issue(int(rows[i]), header, f"negative value {texts[i]}",
                              "correct the cell" + skip_fix))
     numbers[negative] = np.nan
+    if analyte in PROPERTIES:
+        assert unit is not None
+        # g/kg -> %, mmol/kg/pH -> cmol/kg/pH: both divide by 10
+        values_c = numbers / 10.0 if unit != PROPERTIES[analyte][0] else numbers
+        top = PLAUSIBLE_MAX_PROPERTY[analyte]
+        for i in np.flatnonzero(values_c > top):
+            issues.append(_Issue(
+                int(rows[i]), header,
+                f"{analyte} = {texts[i]} {unit} is implausibly large (plausible up to {top:g} "
+                f"{PROPERTIES[analyte][0]}, common practice)",
+                f"check the value and the unit ([samples.units] {analyte} = "
+                f"'{' or '.join(PROPERTIES[analyte])}')" + skip_fix,
+            ))
+        return values_c
     if analyte in UNITLESS:
-        low, high = PLAUSIBLE_PH if analyte == "ph" else (0.0, PLAUSIBLE_MAX_SAR)
+        low, high = (PLAUSIBLE_PH if analyte == "ph" else PLAUSIBLE_BUFFER_PH
+                     if analyte in BUFFER_PH else (0.0, PLAUSIBLE_MAX_SAR))
         for i in np.flatnonzero((numbers < low) | (numbers > high)):
             issues.append(_Issue(
                 int(rows[i]), header,
@@ -843,18 +894,19 @@ def _analyte_values(
             ))
         return numbers
     assert unit is not None
-    cmol = to_cmol_kg(numbers, analyte, unit)
+    rho = settings.scoop_density_g_cm3
+    cmol = to_cmol_kg(numbers, analyte, unit, density_g_cm3=rho)
     limit = PLAUSIBLE_MAX_CMOL[analyte]
     too_big = np.flatnonzero(cmol > limit)
     if too_big.size:
-        shown = float(from_cmol_kg(limit, analyte, unit))
+        shown = float(from_cmol_kg(limit, analyte, unit, density_g_cm3=rho))
 
         def problem(i: int) -> str:
             return (f"{texts[i]} {unit} is implausibly large for exchangeable {analyte} "
                     f"(plausible up to {shown:g} {unit}, common practice)")
 
         unit_fix = (f"check the unit: the lab's unit goes in [samples.units] {analyte} = "
-                    f"'...' ({', '.join(CATION_UNITS)})")
+                    f"'...' ({', '.join(LAB_UNITS)})")
         if too_big.size * 2 > np.isfinite(cmol).sum():
             raise InputError(f"most values look wrong for the unit: {problem(int(too_big[0]))}",
                              file=name, row=int(rows[too_big[0]]), column=header, fix=unit_fix)
@@ -1025,6 +1077,14 @@ def read_samples(settings: SampleSettings) -> SampleRead:
     )
     units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
                    units_row=raw.units_row)
+    per_volume = sorted(a for a, u in units.items() if u in VOLUMETRIC_UNITS)
+    if per_volume:
+        warnings.warn(
+            f"{name}: {', '.join(f'{a} ({units[a]})' for a in per_volume)} are per volume of "
+            f"soil; read as cmol(+)/kg with a scoop density of {settings.scoop_density_g_cm3:g} "
+            "g/cm3 (set [samples] scoop_density_g_cm3 to the lab's figure)",
+            DataWarning, stacklevel=2,
+        )
     issues: list[_Issue] = []
 
     ids = [_id_text(v) for v in table[id_header].tolist()]

@@ -84,12 +84,18 @@ __all__ = [
 logger = logging.getLogger(__name__)
 
 #: Variables geosoil interpolates when the samples carry them, in this order.
-INTERPOLATED: tuple[str, ...] = ("ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "esp")
+INTERPOLATED: tuple[str, ...] = (
+    "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "esp",
+    "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
+    "phbc",
+)
 
 _MODELS = ("spherical", "exponential", "gaussian", "matern")
 
 #: Interpolated variables that are exchangeable amounts (never below zero).
-_AMOUNTS = ("ca", "mg", "k", "na", "acidity", "al", "cec")
+_AMOUNTS = (
+    "ca", "mg", "k", "na", "acidity", "al", "cec", "cec_ph7", "oc", "om", "clay", "phbc",
+)
 
 
 @dataclass(frozen=True)

@@ -33,6 +33,10 @@ __all__ = [
     "CHARGE",
     "ANALYTES",
     "CATION_UNITS",
+    "VOLUMETRIC_UNITS",
+    "LAB_UNITS",
+    "DEFAULT_SCOOP_DENSITY_G_CM3",
+    "is_volumetric",
     "MG_CACO3_PER_CMOL",
     "KG_HA_PER_LB_AC",
     "mg_per_cmol",
@@ -82,6 +86,19 @@ ANALYTES: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity")
 #: Units accepted for exchangeable cations, as canonical spellings.
 CATION_UNITS: tuple[str, ...] = ("cmol/kg", "meq/100g", "mmol/kg", "mg/kg")
 
+#: Charge per volume of soil, as labs that measure soil with a scoop report it
+#: (cmolc/dm3 and mmolc/dm3 in Brazil, meq/100 cm3 in North Carolina). Converted to
+#: cmol(+)/kg by the density of the soil in the scoop (``density_g_cm3``).
+VOLUMETRIC_UNITS: tuple[str, ...] = ("cmol/dm3", "mmol/dm3", "meq/100cm3")
+
+#: Every unit a lab column of an exchangeable amount may be in.
+LAB_UNITS: tuple[str, ...] = CATION_UNITS + VOLUMETRIC_UNITS
+
+#: Density of scooped, dried and sieved soil assumed when a lab reports per volume and
+#: states no scoop weight: 1 g/cm3, so that cmolc/dm3 reads as cmol(+)/kg [common practice:
+#: a convention; labs' scoop densities run about 0.8 to 1.4 g/cm3].
+DEFAULT_SCOOP_DENSITY_G_CM3: float = 1.0
+
 #: mg of CaCO3 per kg of soil that carries 1 cmol(+)/kg (100.086 g/mol / 2 x 10).
 MG_CACO3_PER_CMOL: float = (
     ATOMIC_WEIGHT["Ca"] + ATOMIC_WEIGHT["C"] + 3 * ATOMIC_WEIGHT["O"]
@@ -104,6 +121,20 @@ _UNIT_ALIASES: dict[str, str] = {
     "mmolc/kg": "mmol/kg",
     "mmol+/kg": "mmol/kg",
     "mg/kg": "mg/kg",
+    "cmol/dm3": "cmol/dm3",
+    "cmolc/dm3": "cmol/dm3",
+    "cmol(+)/dm3": "cmol/dm3",
+    "cmol+/dm3": "cmol/dm3",
+    "cmolc/l": "cmol/dm3",
+    "mmol/dm3": "mmol/dm3",
+    "mmolc/dm3": "mmol/dm3",
+    "mmol(+)/dm3": "mmol/dm3",
+    "mmol+/dm3": "mmol/dm3",
+    "meq/100cm3": "meq/100cm3",
+    "meq/100 cm3": "meq/100cm3",
+    "me/100cm3": "meq/100cm3",
+    "meq/100cc": "meq/100cm3",
+    "meq/100ml": "meq/100cm3",
     "ppm": "mg/kg",
     "µg/g": "mg/kg",
     "ug/g": "mg/kg",
@@ -184,13 +215,49 @@ def normalise_unit(text: str) -> str:
     if key in _SQUASHED_ALIASES:
         return _SQUASHED_ALIASES[key]
     raise SettingsError(
-        f"unit '{text}' is not known; use one of {', '.join(CATION_UNITS)} "
+        f"unit '{text}' is not known; use one of {', '.join(LAB_UNITS)} "
         "(also understood: meq/100 g, cmol(+)/kg, mmol(+)/kg, ppm)"
     )
 
 
-def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
+def is_volumetric(unit: str) -> bool:
+    """True for a charge-per-volume unit (:data:`VOLUMETRIC_UNITS`).
+
+    Parameters
+    ----------
+    unit : str
+        Any spelling :func:`normalise_unit` reads.
+
+    Returns
+    -------
+    bool
+    """
+    return normalise_unit(unit) in VOLUMETRIC_UNITS
+
+
+def _cmol_dm3_per_unit(u: str) -> float:
+    # meq/100 cm3 x 10 = meq/dm3 = mmol(+)/dm3; / 10 = cmol(+)/dm3
+    return {"cmol/dm3": 1.0, "mmol/dm3": 0.1, "meq/100cm3": 1.0}[u]
+
+
+def _density(density_g_cm3: float | None, unit: str) -> float:
+    if density_g_cm3 is None:
+        raise SettingsError(
+            f"unit '{unit}' is per volume of soil: give the density of the soil the lab "
+            "measured (g/cm3) to turn it into cmol(+)/kg"
+        )
+    if not density_g_cm3 > 0:
+        raise SettingsError(f"density must be more than 0 g/cm3 (got {density_g_cm3:g})")
+    return density_g_cm3
+
+
+def to_cmol_kg(
+    values: ArrayLike, analyte: str, unit: str, *, density_g_cm3: float | None = None
+) -> NDArray[np.float64]:
     """Convert exchangeable ``analyte`` values from ``unit`` to cmol(+)/kg.
+
+    A volumetric unit (:data:`VOLUMETRIC_UNITS`) is divided by the density of
+    the soil the lab measured: ``cmol(+)/kg = cmol(+)/dm3 / (g/cm3)``.
 
     Parameters
     ----------
@@ -200,6 +267,8 @@ def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64
         Canonical cation name (``ca``, ``mg``, ``k``, ``na``, ``al``, ``h``...).
     unit : str
         Their unit, any spelling :func:`normalise_unit` reads.
+    density_g_cm3 : float, optional
+        Density of the measured soil, g/cm3 (volumetric units only).
 
     Returns
     -------
@@ -217,9 +286,13 @@ def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64
     1.0
     >>> float(to_cmol_kg(25.0, "na", "mmol/kg")[()])
     2.5
+    >>> float(to_cmol_kg(36.0, "ca", "mmolc/dm3", density_g_cm3=1.2)[()])   # 3.6 cmolc/dm3
+    3.0
     """
     u = normalise_unit(unit)
     v = np.asarray(values, dtype=float)
+    if u in VOLUMETRIC_UNITS:
+        return v * _cmol_dm3_per_unit(u) / _density(density_g_cm3, unit)
     if u in ("cmol/kg", "meq/100g"):
         return v.copy()
     if u == "mmol/kg":
@@ -227,7 +300,9 @@ def to_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64
     return v / mg_per_cmol(analyte)
 
 
-def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float64]:
+def from_cmol_kg(
+    values: ArrayLike, analyte: str, unit: str, *, density_g_cm3: float | None = None
+) -> NDArray[np.float64]:
     """Convert cmol(+)/kg to ``unit``; the inverse of :func:`to_cmol_kg`.
 
     Parameters
@@ -238,6 +313,8 @@ def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float
         Canonical cation name (``ca``, ``mg``, ``k``, ``na``, ``al``, ``h``...).
     unit : str
         The unit wanted.
+    density_g_cm3 : float, optional
+        Density of the measured soil, g/cm3 (volumetric units only).
 
     Returns
     -------
@@ -251,6 +328,8 @@ def from_cmol_kg(values: ArrayLike, analyte: str, unit: str) -> NDArray[np.float
     """
     u = normalise_unit(unit)
     v = np.asarray(values, dtype=float)
+    if u in VOLUMETRIC_UNITS:
+        return v * _density(density_g_cm3, unit) / _cmol_dm3_per_unit(u)
     if u in ("cmol/kg", "meq/100g"):
         return v.copy()
     if u == "mmol/kg":

@@ -222,3 +222,42 @@ def test_header_with_spaces_or_bom_is_returned_as_written():
     guess = detect_columns(["\ufeffSample", " Ca ", "Lon", "Lat"])
     assert guess.id == "\ufeffSample" and guess.analytes["ca"] == " Ca "
     assert parse_header(" Ca ").header == " Ca " and parse_header(" Ca ").role == "ca"
+
+
+# --------------------------------------------------------------------------- lime analytes
+
+
+@pytest.mark.parametrize(
+    ("header", "role", "unit"),
+    [
+        ("SMP Buffer pH", "bph_smp", None),
+        ("Buffer pH (SMP)", "bph_smp", None),
+        ("Sikora BpH", "bph_sikora", None),
+        ("Mehlich buffer pH", "bph_mehlich", None),
+        ("Adams-Evans buffer pH", "bph_adams_evans", None),
+        ("Organic Carbon (%)", "oc", "%"),
+        ("OC %", "oc", "%"),
+        ("Organic C (Walkley-Black) %", "oc", "%"),
+        ("Organic matter %", "om", "%"),
+        ("Clay %", "clay", "%"),
+        ("Clay (g/kg)", "clay", "g/kg"),
+        ("pHBC (mmol/kg/pH)", "phbc", "mmol/kg/pH"),
+        ("CTC pH 7 (mmolc/dm3)", "cec_ph7", "mmol/dm3"),
+    ],
+)
+def test_lime_analyte_headers(header: str, role: str, unit: str | None) -> None:
+    info = parse_header(header)
+    assert (info.role, info.unit) == (role, unit)
+
+
+@pytest.mark.parametrize("header", ["Buffer pH", "BpH", "pH (buffer)", "Lime index"])
+def test_buffer_ph_without_its_buffer_is_not_guessed(header: str) -> None:
+    info = parse_header(header)
+    assert info.role is None
+    assert "names no buffer" in (info.note or "")
+    assert info.role != "ph"
+
+
+def test_plain_ph_is_still_ph_beside_a_buffer_ph() -> None:
+    g = detect_columns(["ID", "Lon", "Lat", "pH", "SMP buffer pH", "Clay %"])
+    assert g.analytes == {"ph": "pH", "bph_smp": "SMP buffer pH", "clay": "Clay %"}

@@ -1186,3 +1186,30 @@ def test_a_point_without_coordinates_is_named_without_gdal_noise(tmp_path):
         err = error_of(path, crs="EPSG:4326")
     assert not [w for w in caught if issubclass(w.category, RuntimeWarning)]
     assert_names(err, file=path, row=2, column="geometry")
+
+
+# --------------------------------------------------------------------------- lime analytes
+
+
+def test_lime_analytes_and_volumetric_units_are_read(tmp_path: Path) -> None:
+    # invented values; conversions [derived]: mmolc/dm3 / 10 / scoop density; g/kg / 10 -> %
+    path = write(tmp_path, "Sample,Lon,Lat,pH (CaCl2),OC (g/kg),Clay %,SMP buffer pH,"
+                 "CTC pH 7 (mmolc/dm3),Ca (cmolc/dm3)\n"
+                 "A1,146.90,-35.10,4.8,15,20,6.1,54.6,2.4\n"
+                 "A2,146.91,-35.11,5.1,12,25,,60,3.6\n")
+    with pytest.warns(DataWarning, match="scoop density of 1.2 g/cm3"):
+        read = read_samples(SampleSettings(file=path, scoop_density_g_cm3=1.2))
+    s = read.samples
+    assert s["oc"].tolist() == pytest.approx([1.5, 1.2])
+    assert s["clay"].tolist() == [20.0, 25.0]
+    assert s["cec_ph7"].tolist() == pytest.approx([5.46 / 1.2, 6.0 / 1.2])
+    assert s["ca"].tolist() == pytest.approx([2.0, 3.0])
+    assert s["bph_smp"].iloc[0] == 6.1 and np.isnan(s["bph_smp"].iloc[1])  # empty: not measured
+    assert read.units["oc"] == "g/kg" and read.units["cec_ph7"] == "mmol/dm3"
+
+
+def test_implausible_clay_names_the_row(tmp_path: Path) -> None:
+    path = write(tmp_path, "Sample,Lon,Lat,pH,Clay (%)\nA1,146.90,-35.10,5.0,20\n"
+                 "A2,146.91,-35.11,5.1,250\n")
+    with pytest.raises(InputError, match="row 3.*implausibly large"):
+        read_samples(SampleSettings(file=path))

@@ -222,3 +222,28 @@ def test_format_rate_reads_back_within_its_rounding(value, unit):
     step = 0.01 if unit == "t/ha" else 1.0
     assert abs(shown - exact) <= step / 2 + 1e-9 * exact
     assert format_rate(value, unit).endswith(" " + unit)
+
+
+# --------------------------------------------------------------------------- volumetric units
+
+
+@pytest.mark.parametrize(
+    ("unit", "value", "cmol_dm3"),
+    [("cmolc/dm3", 3.6, 3.6), ("mmolc/dm3", 36.0, 3.6), ("meq/100 cm3", 3.6, 3.6)],
+)
+def test_volumetric_units_round_trip(unit: str, value: float, cmol_dm3: float) -> None:
+    # [derived] 1 meq/100 cm3 = 10 meq/dm3 = 10 mmolc/dm3 = 1 cmolc/dm3; per kg by the
+    # density of the measured soil (1.2 g/cm3 = 1.2 kg/dm3)
+    from geosoil.units import from_cmol_kg, is_volumetric, to_cmol_kg
+
+    assert is_volumetric(unit)
+    got = float(to_cmol_kg(value, "ca", unit, density_g_cm3=1.2))
+    assert got == pytest.approx(cmol_dm3 / 1.2)
+    assert float(from_cmol_kg(got, "ca", unit, density_g_cm3=1.2)) == pytest.approx(value)
+
+
+def test_volumetric_unit_needs_a_density() -> None:
+    from geosoil.units import to_cmol_kg
+
+    with pytest.raises(SettingsError, match="per volume"):
+        to_cmol_kg(1.0, "ca", "cmolc/dm3")
