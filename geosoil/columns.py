@@ -427,14 +427,15 @@ def _lime_analyte(
             + ", ".join(BUFFER_PH[1:]) + ")",
         )
     joined = " ".join(words)
-    analyte = next((a for a in PROPERTIES if joined in ANALYTE_SPELLINGS[a]), None)
-    if analyte is None:
+    found = next((a for a in PROPERTIES if joined in ANALYTE_SPELLINGS[a]), None)
+    if found is None:
         return None
-    said = [_PROPERTY_UNIT_TEXT.get(u.lower(), _PROPERTY_UNIT_TEXT.get(u.lower().replace(" ", "")))
-            for u in unit_texts]
+    analyte: str = found
+    squashed = {k.replace(" ", ""): v for k, v in _PROPERTY_UNIT_TEXT.items()}
+    texts = [u.lower().replace(" ", "") for u in unit_texts]
     if tail_unit is not None:
-        said.append(_PROPERTY_UNIT_TEXT.get(tail_unit, "%" if tail_unit == "%" else None))
-    said = [u for u in said if u is not None]
+        texts.append(tail_unit)
+    said = [squashed[t] for t in texts if t in squashed]
     if units:
         return HeaderInfo(given, None, note=f"{analyte} in {units[0]} is not understood; give it "
                           f"in {' or '.join(PROPERTIES[analyte])}")
