@@ -418,9 +418,9 @@ def _lime_analyte(
         w in ("bph", "lime index", "sikora") for w in all_words) or joined_all.startswith(
         "lime index") or joined_all in ("smp", "adams evans")
     if is_buffer and "capacity" not in all_words:
-        for name, analyte in _BUFFER_NAMES.items():
+        for name, buffer_analyte in _BUFFER_NAMES.items():
             if re.search(rf"\b{name}\b", joined_all):
-                return HeaderInfo(given, analyte, method=name)
+                return HeaderInfo(given, buffer_analyte, method=name)
         return HeaderInfo(
             given, None, note="a buffer pH that names no buffer: say which with [samples.columns] "
             + ", ".join(f"{a} = '{given}'" for a in BUFFER_PH[:1]) + " (or "
