@@ -4,7 +4,7 @@
 (kg/ha, NaN outside the paddock mask) into zones a spreader can follow, in one
 of three ways, chosen by :attr:`ZoneSettings.method`:
 
-* **rate classes** -- ``quantiles``, ``equal_interval``, ``natural_breaks``
+* **rate classes** -- ``quantiles``, ``equal_interval`` (numpy), ``natural_breaks``
   (Jenks, computed by :mod:`jenkspy`) or ``kmeans`` (one-dimensional k-means,
   :func:`scipy.cluster.vq.kmeans2`) on the cell rates. Each class is one zone
   (it may have several parts).
@@ -334,7 +334,9 @@ def classify_rates(
     values
         Finite cell rates, kg/ha.
     method
-        ``quantiles``, ``equal_interval`` (both :mod:`mapclassify`),
+        ``quantiles``, ``equal_interval`` (upper class bounds as
+        :func:`_quantile_breaks` and :func:`_equal_interval_breaks` say; a value
+        on a bound is in the lower class),
         ``natural_breaks`` (Jenks, :mod:`jenkspy`; above 5000 values, on 5000
         evenly spaced order statistics of them) or ``kmeans``
         (:func:`scipy.cluster.vq.kmeans2`, started from the class means of
@@ -370,16 +372,9 @@ def classify_rates(
         # one class per distinct rate, whatever the method
         return (np.searchsorted(distinct, values) + 1).astype(np.int64), notes
     if method == "quantiles":
-        import mapclassify
-
-        # mapclassify warns when ties leave fewer classes than asked; we say so in a note
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)
-            yb = mapclassify.Quantiles(values, k=k).yb
+        yb = np.searchsorted(_quantile_breaks(values, k), values, side="left")
     elif method == "equal_interval":
-        import mapclassify
-
-        yb = mapclassify.EqualInterval(values, k=k).yb
+        yb = np.searchsorted(_equal_interval_breaks(values, k), values, side="left")
     elif method == "natural_breaks":
         import jenkspy
 
@@ -408,6 +403,49 @@ def classify_rates(
     if used.size < k:
         notes.append(f"{method} left {k - used.size} of {k} classes empty: {used.size} classes")
     return cls, notes
+
+
+def _quantile_breaks(values: NDArray[np.float64], k: int) -> NDArray[np.float64]:
+    """Upper bounds of ``k`` quantile classes: the ``100 j / k`` th percentiles
+    (j = 1..k, linear between order statistics), repeated bounds once.
+
+    The same bounds as mapclassify's ``Quantiles`` (checked against it in the
+    tests), computed with :func:`numpy.partition` instead of a full sort.
+
+    >>> _quantile_breaks(np.arange(1000.0), 4).tolist()
+    [249.75, 499.5, 749.25, 999.0]
+    """
+    n = values.size
+    step = 100.0 / k
+    pct = np.minimum(np.arange(step, 100.0 + step, step), 100.0)
+    idx = pct / 100.0 * (n - 1)
+    lo = idx.astype(np.int64)
+    hi = np.minimum(lo + 1, n - 1)
+    part = np.partition(values, np.unique(np.concatenate([lo, hi])))
+    frac = idx - lo
+    # interpolate as (a (1 - f) + b f) / ((1 - f) + f), the order of operations of
+    # scipy.stats.scoreatpercentile, so ties land in the same class
+    whole = frac == 0
+    a, b = part[lo], part[hi]
+    w0, w1 = (lo + 1) - idx, idx - lo
+    q = np.where(whole, a, (a * w0 + b * w1) / (w0 + w1))
+    return np.unique(q)
+
+
+def _equal_interval_breaks(values: NDArray[np.float64], k: int) -> NDArray[np.float64]:
+    """Upper bounds of ``k`` classes of equal width from the least to the largest value
+    (mapclassify's ``EqualInterval`` bounds, checked against it in the tests).
+
+    >>> _equal_interval_breaks(np.array([0.0, 3.0, 10.0]), 2).tolist()
+    [5.0, 10.0]
+    """
+    lo, hi = float(values.min()), float(values.max())
+    width = (hi - lo) / k
+    cuts = np.arange(lo + width, hi + width, width)
+    if cuts.size > k:
+        cuts = cuts[:k]
+    cuts[-1] = hi
+    return cuts
 
 
 def _majority_filter(cls: NDArray[np.int64], valid: NDArray[np.bool_]) -> NDArray[np.int64]:
@@ -525,6 +563,9 @@ class _Piece:
     label: str
     order: int
     kind: str = "rate"
+    cls: int | None = None
+    """The class of the class raster this piece is exactly (its cells, clipped to the
+    working area); None once its geometry is anything else."""
 
 
 def _merge_small_pieces(
@@ -550,6 +591,7 @@ def _merge_small_pieces(
         return i
 
     current = {i: p.geom for i, p in enumerate(pieces)}
+    grown = [False] * len(pieces)
     heap = [(g.area, i) for i, g in current.items() if g.area < threshold_m2 or i in force]
     heapq.heapify(heap)
     merged = stuck = 0
@@ -578,13 +620,15 @@ def _merge_small_pieces(
             stuck += 1
             continue
         owner[a] = best
+        grown[best] = True
         current[best] = _polygonal(shapely.union_all([current[best], ga]))
         del current[a]
         merged += 1
         if current[best].area < threshold_m2:
             heapq.heappush(heap, (current[best].area, best))
     out = [
-        _Piece(current[i], pieces[i].label, pieces[i].order, pieces[i].kind)
+        _Piece(current[i], pieces[i].label, pieces[i].order, pieces[i].kind,
+               None if grown[i] else pieces[i].cls)
         for i in sorted(current)
     ]
     return out, merged, stuck
@@ -664,10 +708,11 @@ def _class_zones(
     settings: ZoneSettings,
     spreader: SpreaderSettings,
     notes: list[str],
-) -> list[_Piece]:
+) -> tuple[list[_Piece], NDArray[np.int64] | None]:
+    """Class pieces, and the class raster they were polygonised from (None: no pieces)."""
     has_rate = np.isfinite(rate) & (overlap > 0)
     if not has_rate.any():
-        return []
+        return [], None
     # Cells needing nothing, or less than the spreader can put out, form their own
     # class; the classes asked for are made from the cells that need product.
     min_rate_kg_ha = spreader.min_rate_kg_ha
@@ -717,12 +762,13 @@ def _class_zones(
     for c in sorted(by_class):
         g = _polygonal(shapely.intersection(shapely.union_all(by_class[c]), work))
         if g.area > 0:
-            pieces.append(_Piece(g, NO_PRODUCT if offset and c == 1 else f"class {c}", c))
+            pieces.append(_Piece(g, NO_PRODUCT if offset and c == 1 else f"class {c}", c,
+                                 cls=c))
     # renumber the rate classes that are left 1..n (the no-product class keeps its label)
     rated = [p for p in pieces if p.label != NO_PRODUCT]
     for i, p in enumerate(rated, start=1):
         p.label = f"class {i}"
-    return pieces
+    return pieces, filled
 
 
 def _merge_components(
@@ -832,8 +878,15 @@ def _grid_zones(*, work: BaseGeometry, boundary: BaseGeometry, settings: ZoneSet
     xs = minx + width * np.arange(max(1, math.ceil((maxx - minx) / width)))
     ys = miny + length * np.arange(max(1, math.ceil((maxy - miny) / length)))
     gx, gy = np.meshgrid(xs, ys)  # rows along the travel direction
-    boxes = shapely.box(gx.ravel(), gy.ravel(), gx.ravel() + width, gy.ravel() + length)
-    boxes = np.array([rotate(b, -angle, origin=origin) for b in boxes], dtype=object)
+    # corners of every grid cell, turned back about the same origin (shapely's rotate,
+    # for all cells at once: a positive angle turns anticlockwise)
+    cx = gx.ravel()[:, None] + np.array([0.0, width, width, 0.0, 0.0])[None, :]
+    cy = gy.ravel()[:, None] + np.array([0.0, 0.0, length, length, 0.0])[None, :]
+    theta = math.radians(-angle)
+    cos, sin = math.cos(theta), math.sin(theta)
+    dx, dy = cx - origin.x, cy - origin.y
+    boxes = shapely.polygons(np.stack([origin.x + cos * dx - sin * dy,
+                                       origin.y + sin * dx + cos * dy], axis=-1))
     rows, cols = np.divmod(np.arange(boxes.size), xs.size)
     clipped = shapely.intersection(boxes, work)
     pieces: list[_Piece] = []
@@ -906,8 +959,13 @@ def _dust_m2(work: BaseGeometry) -> float:
 
 
 def _drop_dust(geom: BaseGeometry, dust: float) -> BaseGeometry:
-    """``geom`` without polygon parts smaller than ``dust`` (m²)."""
-    parts = [p for p in _parts(geom) if p.area >= dust]
+    """``geom`` without polygon parts smaller than ``dust`` (m²); ``geom`` itself when
+    nothing is dropped."""
+    all_parts = _parts(geom)
+    parts = [p for p in all_parts if p.area >= dust]
+    if len(parts) == len(all_parts) and geom.is_valid and geom.geom_type in (
+            "Polygon", "MultiPolygon"):
+        return geom
     if not parts:
         return shapely.Polygon()
     if len(parts) == 1:
@@ -970,19 +1028,107 @@ def _weighted_percentile(values: NDArray[np.float64], weights: NDArray[np.float6
     return float(v[min(i, v.size - 1)])
 
 
-def _zone_rate(
-    geom: BaseGeometry, rate: NDArray[np.float64], transform: Affine, percentile: float | None
-) -> tuple[float, int]:
-    """Raw rate (area-weighted mean or weighted percentile) and cell count of one zone."""
-    area, centre = _cell_overlap(geom, transform, rate.shape)
-    ok = np.isfinite(rate) & (area > 0)
-    n_cells = int((ok & centre).sum())
-    if not ok.any():
-        return float("nan"), n_cells
-    w, v = area[ok], rate[ok]
+def _rate_of(values: NDArray[np.float64], weights: NDArray[np.float64],
+             percentile: float | None) -> float:
+    """Area-weighted mean (or weighted percentile) of cell rates; NaN without cells."""
+    if values.size == 0:
+        return float("nan")
     if percentile is None:
-        return float(np.sum(w * v) / np.sum(w)), n_cells
-    return _weighted_percentile(v, w, percentile), n_cells
+        return float(np.sum(weights * values) / np.sum(weights))
+    return _weighted_percentile(values, weights, percentile)
+
+
+def _zone_rates(
+    geoms: list[BaseGeometry],
+    rate: NDArray[np.float64],
+    transform: Affine,
+    percentile: float | None,
+    *,
+    classes: list[int | None] | None = None,
+    class_raster: NDArray[np.int64] | None = None,
+    overlap: NDArray[np.float64] | None = None,
+    centre: NDArray[np.bool_] | None = None,
+) -> list[tuple[float, int]]:
+    """Raw rate (area-weighted mean or weighted percentile) and cell count of each zone.
+
+    A cell weighs in by the exact area of its square inside the zone; ``n_cells``
+    counts the cells with a rate whose centre lies in the zone. A zone that is
+    exactly the cells of one class of ``class_raster`` clipped to the working area
+    (``classes[i]`` not None) takes those cells' shares of the working area
+    (``overlap``, ``centre``) with one bincount; any other zone is overlaid with the
+    squares of the cells with a rate, all zones at once (a spatial index finds the
+    pairs; squares wholly inside a zone are not cut).
+    """
+    out: list[tuple[float, int] | None] = [None] * len(geoms)
+    ok = np.isfinite(rate)
+    if classes is not None and class_raster is not None and overlap is not None:
+        assert centre is not None
+        use = ok & (overlap > 0)
+        lab = class_raster[use]
+        w, v, cen = overlap[use], rate[use], centre[use]
+        n = int(lab.max()) + 1 if lab.size else 1
+        counts = np.bincount(lab, weights=cen.astype(float), minlength=n)
+        if percentile is None:
+            wsum = np.bincount(lab, weights=w, minlength=n)
+            vsum = np.bincount(lab, weights=w * v, minlength=n)
+        order = np.argsort(lab, kind="stable")
+        bounds = np.searchsorted(lab[order], np.arange(n + 1))
+        for i, c in enumerate(classes):
+            if c is None:
+                continue
+            if c >= n or bounds[c] == bounds[c + 1]:
+                out[i] = (float("nan"), 0)
+            elif percentile is None:
+                out[i] = (float(vsum[c] / wsum[c]), int(counts[c]))
+            else:
+                sel = order[bounds[c]:bounds[c + 1]]
+                out[i] = (_weighted_percentile(v[sel], w[sel], percentile), int(counts[c]))
+    todo = [i for i, r in enumerate(out) if r is None]
+    if todo:
+        for i, pair in zip(todo, _overlay_rates([geoms[i] for i in todo], rate, transform,
+                                                percentile), strict=True):
+            out[i] = pair
+    return [r for r in out if r is not None]
+
+
+def _overlay_rates(
+    geoms: list[BaseGeometry], rate: NDArray[np.float64], transform: Affine,
+    percentile: float | None,
+) -> list[tuple[float, int]]:
+    """:func:`_zone_rates` for any zones: cell squares overlaid with the zones."""
+    empty = [(float("nan"), 0)] * len(geoms)
+    rows, cols = np.nonzero(np.isfinite(rate))
+    if rows.size == 0 or not geoms:
+        return empty
+    x0 = transform.c + cols * transform.a
+    y0 = transform.f + rows * transform.e
+    x1, y1 = x0 + transform.a, y0 + transform.e
+    boxes = shapely.box(np.minimum(x0, x1), np.minimum(y0, y1),
+                        np.maximum(x0, x1), np.maximum(y0, y1))
+    zones = np.array([_polygonal(g) for g in geoms], dtype=object)
+    tree = shapely.STRtree(zones)
+    cell_i, zone_i = tree.query(boxes, predicate="intersects")
+    if cell_i.size == 0:
+        return empty
+    shapely.prepare(zones)
+    full = shapely.contains_properly(zones[zone_i], boxes[cell_i])
+    w = np.full(cell_i.size, abs(transform.a * transform.e))
+    cut = ~full
+    if cut.any():
+        w[cut] = shapely.area(shapely.intersection(boxes[cell_i[cut]], zones[zone_i[cut]]))
+    cen = shapely.contains_xy(zones[zone_i], (x0[cell_i] + x1[cell_i]) / 2.0,
+                              (y0[cell_i] + y1[cell_i]) / 2.0)
+    shapely.destroy_prepared(zones)
+    keep = w > 0
+    cell_i, zone_i, w, cen = cell_i[keep], zone_i[keep], w[keep], cen[keep]
+    v = rate[rows[cell_i], cols[cell_i]]
+    order = np.argsort(zone_i, kind="stable")
+    bounds = np.searchsorted(zone_i[order], np.arange(len(geoms) + 1))
+    out = []
+    for j in range(len(geoms)):
+        sel = order[bounds[j]:bounds[j + 1]]
+        out.append((_rate_of(v[sel], w[sel], percentile), int(cen[sel].sum())))
+    return out
 
 
 # --------------------------------------------------------------------------- main entry
@@ -1102,13 +1248,17 @@ def make_zones(
     excluded = shapely.union_all([g for g, _ in excl]) if excl else shapely.Polygon()
     work = _polygonal(shapely.difference(boundary, excluded)) if excl else boundary
 
+    class_raster: NDArray[np.int64] | None = None
+    overlap: NDArray[np.float64] | None = None
+    centre: NDArray[np.bool_] | None = None
     if work.is_empty:
         pieces: list[_Piece] = []
         notes.append(f"paddock '{paddock}' is excluded in full")
     elif settings.method in _CLASS_METHODS:
-        overlap, _ = _cell_overlap(work, transform, rate.shape)
-        pieces = _class_zones(rate, transform=transform, work=work, overlap=overlap,
-                              settings=settings, spreader=sp, notes=notes)
+        overlap, centre = _cell_overlap(work, transform, rate.shape)
+        pieces, class_raster = _class_zones(rate, transform=transform, work=work,
+                                            overlap=overlap, settings=settings, spreader=sp,
+                                            notes=notes)
     elif settings.method == "spreader_grid":
         pieces = _grid_zones(work=work, boundary=boundary, settings=settings, notes=notes)
     else:
@@ -1119,7 +1269,10 @@ def make_zones(
     if not work.is_empty:
         dust = _dust_m2(work)
         for p in pieces:
-            p.geom = _drop_dust(p.geom, dust)
+            kept = _drop_dust(p.geom, dust)
+            if kept is not p.geom:
+                p.cls = None  # no longer exactly its class's cells
+            p.geom = kept
         pieces = [p for p in pieces if not p.geom.is_empty]
         pieces, remainder = _remainder(
             pieces, work=work, min_area_m2=settings.min_zone_area_ha * 1e4,
@@ -1127,14 +1280,21 @@ def make_zones(
         )
 
     rows: list[dict[str, Any]] = []
-    entries = [(p.geom, "rate", p.label) for p in sorted(pieces, key=lambda p: p.order)]
+    ordered = sorted(pieces, key=lambda p: p.order)
+    entries = [(p.geom, "rate", p.label) for p in ordered]
+    classes: list[int | None] = [p.cls for p in ordered]
     if remainder.area > 0:
         entries.append((remainder, "remainder", "remainder"))
+        classes.append(None)
+    stats = _zone_rates([g for g, _, _ in entries], rate, transform, percentile,
+                        classes=classes, class_raster=class_raster, overlap=overlap,
+                        centre=centre)
+    stats += _zone_rates([g for g, _ in excl], rate, transform, None)
     no_rate: list[str] = []
     zeroed: list[str] = []
     split: list[str] = []
     for number, (geom, kind, label) in enumerate(entries, start=1):
-        raw, n_cells = _zone_rate(geom, rate, transform, percentile)
+        raw, n_cells = stats[number - 1]
         if not math.isfinite(raw):
             no_rate.append(label)
         limited = limit_zone_rate(raw, spreader=sp)
@@ -1150,8 +1310,7 @@ def make_zones(
                          rate_raw_kg_ha=raw if math.isfinite(raw) else 0.0, passes=passes,
                          per_pass_kg_ha=limited.per_pass_kg_ha, schedule=limited.schedule,
                          area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
-    for geom, label in excl:
-        _, n_cells = _zone_rate(geom, rate, transform, None)
+    for (geom, label), (_, n_cells) in zip(excl, stats[len(entries):], strict=True):
         rows.append(dict(zone=len(rows) + 1, kind="exclusion", label=label, rate_kg_ha=0.0,
                          rate_raw_kg_ha=0.0, passes=0, per_pass_kg_ha=0.0, schedule="",
                          area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))

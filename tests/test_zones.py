@@ -363,6 +363,89 @@ def test_classify_rates_methods() -> None:
     assert np.bincount(cls)[1:].tolist() == [3000, 4000, 2000]
 
 
+@settings(max_examples=200, deadline=None)
+@given(values=st.lists(st.one_of(st.sampled_from([0.0, 50.0, 120.0, 500.0, 2000.0]),
+                                 st.floats(0.0, 5000.0, allow_nan=False)),
+                       min_size=2, max_size=300),
+       classes=st.integers(2, 12))
+def test_quantile_and_equal_interval_classes_match_mapclassify(values, classes) -> None:
+    """Our numpy class bounds against mapclassify (a general-purpose classification
+    library, test-only oracle): the same bounds and the same class for every value."""
+    import mapclassify  # the test extra installs it
+    v = np.array(values)
+    if np.unique(v).size <= classes:  # handled before either method is asked
+        return
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # mapclassify: ties, fewer classes
+        oracle_q = mapclassify.Quantiles(v, k=classes)
+        oracle_e = mapclassify.EqualInterval(v, k=classes)
+    for method, oracle in (("quantiles", oracle_q), ("equal_interval", oracle_e)):
+        cls, _ = classify_rates(v, method=method, classes=classes)
+        # ours numbers the classes that hold values 1..n; theirs 0..k-1 with gaps
+        used = np.unique(oracle.yb)
+        assert cls.tolist() == (np.searchsorted(used, oracle.yb) + 1).tolist(), method
+
+
+def test_natural_breaks_match_fisher_jenks_of_mapclassify() -> None:
+    """jenkspy's breaks against mapclassify's FisherJenks (the exact Jenks optimum;
+    test-only oracle) on skewed values below the sampling threshold."""
+    import mapclassify  # the test extra installs it
+    rng = np.random.default_rng(7)
+    for k in (3, 4, 5):
+        v = np.round(rng.exponential(300.0, 150), 1)
+        cls, _ = classify_rates(v, method="natural_breaks", classes=k)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)  # its pure-python path without numba
+            oracle = mapclassify.FisherJenks(v, k=k)
+        assert cls.tolist() == (oracle.yb + 1).tolist()
+
+
+def test_kmeans_classes_are_a_fixed_point_of_lloyds_iteration() -> None:
+    """k-means (scipy) [derived: every value is in the class of its nearest class mean,
+    and each class mean is the mean of its values], and the same classes as
+    mapclassify's k-means-based NaturalBreaks on separated clusters (test-only oracle)."""
+    import mapclassify  # the test extra installs it
+    rng = np.random.default_rng(11)
+    v = np.concatenate([rng.normal(m, 30.0, n) for m, n in ((200, 60), (900, 80), (2500, 40))])
+    cls, _ = classify_rates(v, method="kmeans", classes=3)
+    means = np.array([v[cls == c].mean() for c in (1, 2, 3)])
+    assert (np.abs(v[:, None] - means[None, :]).argmin(axis=1) + 1).tolist() == cls.tolist()
+    oracle = mapclassify.NaturalBreaks(v, k=3)
+    assert (np.searchsorted(np.unique(oracle.yb), oracle.yb) + 1).tolist() == cls.tolist()
+
+
+@pytest.mark.parametrize("method, statistic", [("quantiles", "mean"), ("quantiles", "p75"),
+                                               ("spreader_grid", "mean"),
+                                               ("spreader_grid", "p50")])
+def test_zone_rates_match_an_independent_overlay(field, method, statistic) -> None:
+    """Each zone's rate from the cells under it (class raster + bincount, or the cells
+    overlaid all at once) against geopandas' overlay of the cell squares with each zone
+    [derived: area-weighted mean, lower weighted percentile]."""
+    rate = masked(field["rate"], field["transform"], field["boundary"])
+    z = quiet_zones(rate, transform=field["transform"], boundary=field["boundary"],
+                    settings=ZoneSettings(method=method, statistic=statistic,
+                                          min_zone_area_ha=0.2, working_width_m=24,
+                                          grid_length_m=40, travel_direction_deg=35.0)).zones
+    boxes = cell_boxes(rate.shape, field["transform"])
+    boxes["rate"] = rate.ravel()
+    boxes = boxes[np.isfinite(boxes["rate"])]
+    pieces = gpd.overlay(boxes, z[["zone", "geometry"]], how="intersection",
+                         keep_geom_type=True)
+    pieces["w"] = pieces.geometry.area
+    pieces = pieces[pieces["w"] > 0]
+    for zone, grp in pieces.groupby("zone"):
+        got = float(z.loc[z["zone"] == zone, "rate_raw_kg_ha"].iloc[0])
+        if statistic == "mean":
+            want = float((grp["rate"] * grp["w"]).sum() / grp["w"].sum())
+        else:
+            q = float(statistic[1:])
+            grp = grp.sort_values("rate", kind="stable")
+            cum = grp["w"].cumsum().to_numpy()
+            i = int(np.searchsorted(cum, q / 100 * cum[-1] - 1e-12 * cum[-1]))
+            want = float(grp["rate"].iloc[min(i, len(grp) - 1)])
+        assert got == pytest.approx(want, rel=1e-9), zone
+
+
 def test_all_cells_without_rate_give_a_remainder_zone_at_rate_zero() -> None:
     rate = np.full((4, 4), np.nan)
     t = transform_for(4)
