@@ -66,11 +66,13 @@ Examples
 
 from __future__ import annotations
 
+import contextlib
+import functools
 import logging
 import math
 import os
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Literal, overload
@@ -79,14 +81,16 @@ import numpy as np
 import scipy.linalg
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from .errors import InputError, InterpolationWarning, SettingsError
 from .points import COINCIDENT_M, as_points, as_samples
 from .variogram import VariogramModel
 
 __all__ = [
+    "SMALL_SYSTEM",
     "CrossValidation",
+    "small_blas",
     "ordinary_kriging",
     "kriging_weights",
     "loo_cross_validation",
@@ -102,6 +106,43 @@ _EPS2 = COINCIDENT_M * COINCIDENT_M
 _SUB_ROWS = 128  # rows of a block whose covariances are evaluated together (stays in cache)
 _TABLE_BYTES = 256 * 2**20  # largest per-row/per-column distance tables
 _JITTERS = (1e-10, 1e-8, 1e-6)  # extra nugget (share of the sill) for a singular matrix
+
+#: Below this many samples the sample-side matrix work (factorising, inverting,
+#: cross-validation, variogram fits) runs on one BLAS thread: starting threads
+#: costs more than they save on small matrices (measured: the demo's variogram
+#: fits and cross-validation ran about a fifth faster on one thread).
+SMALL_SYSTEM = 1000
+
+
+@functools.cache
+def _controller() -> ThreadpoolController:
+    return ThreadpoolController()  # inspects the loaded BLAS libraries once
+
+
+@contextlib.contextmanager
+def _blas_threads(limit: int | None) -> Iterator[None]:
+    """BLAS held to ``limit`` threads (process-wide) while the block runs; None: as it is."""
+    if limit is None:
+        yield
+        return
+    with _controller().limit(limits=limit, user_api="blas"):
+        yield
+
+
+def small_blas(n: int) -> contextlib.AbstractContextManager[None]:
+    """One BLAS thread while a block works on ``n`` samples, if ``n`` is small.
+
+    Parameters
+    ----------
+    n
+        Number of samples (the side of the matrices).
+
+    Returns
+    -------
+    context manager
+        Holds BLAS to one thread when ``n < SMALL_SYSTEM``; does nothing otherwise.
+    """
+    return _blas_threads(1 if n < SMALL_SYSTEM else None)
 
 
 @dataclass(frozen=True, eq=False)
@@ -125,6 +166,9 @@ class CrossValidation:
         realistic; above 1: it understates the error).
     n
         Number of samples.
+    jitter
+        Nugget added to make the covariance matrix positive definite, as a share
+        of the sill (0: none was needed).
     """
 
     errors: Array
@@ -134,6 +178,7 @@ class CrossValidation:
     rmse: float
     msse: float
     n: int
+    jitter: float = 0.0
 
 
 # ---------------------------------------------------------------- shared pieces
@@ -226,7 +271,7 @@ def _run(tasks: list[tuple[int, int]], job: Callable[[int, int], None], workers:
     # Each thread does its own matrix products: one BLAS thread each keeps
     # the cores busy with the element-wise work too (threadpoolctl changes
     # the BLAS thread count for the whole process while this runs).
-    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(workers) as pool:
+    with _blas_threads(1), ThreadPoolExecutor(workers) as pool:
         for _ in pool.map(lambda t: job(*t), tasks):
             pass
 
@@ -302,8 +347,9 @@ def _global(
     workers: int | None,
 ) -> tuple[Array, Array, Array]:
     n, m = len(z), len(xt)
-    low, model = _factor(xd, model)
-    inv = scipy.linalg.lapack.dtrtri(low, lower=1)[0]  # M = L^-1, lower triangle
+    with small_blas(n):
+        low, model = _factor(xd, model)
+        inv = scipy.linalg.lapack.dtrtri(low, lower=1)[0]  # M = L^-1, lower triangle
     ones = np.ones(n)
     v = inv @ ones
     s = float(v @ v)
@@ -708,12 +754,13 @@ def loo_cross_validation(
     """
     xd, z = as_samples(xy, values, minimum=3)
     n = len(z)
-    low, _ = _factor(xd, model)
-    cinv = scipy.linalg.cho_solve((low, True), np.eye(n), check_finite=False)
-    b = cinv.sum(axis=1)  # C^-1 1
-    s = float(b.sum())
-    diag = np.diag(cinv) - b * b / s  # diagonal of A^-1 (sample block)
-    bz = cinv @ z - b * float(b @ z) / s  # (A^-1 [z; 0]) (sample block)
+    with small_blas(n):
+        low, used = _factor(xd, model)
+        cinv = scipy.linalg.cho_solve((low, True), np.eye(n), check_finite=False)
+        b = cinv.sum(axis=1)  # C^-1 1
+        s = float(b.sum())
+        diag = np.diag(cinv) - b * b / s  # diagonal of A^-1 (sample block)
+        bz = cinv @ z - b * float(b @ z) / s  # (A^-1 [z; 0]) (sample block)
     variance = 1.0 / diag
     errors = -bz / diag  # estimate minus value
     std = errors / np.sqrt(variance)
@@ -725,6 +772,7 @@ def loo_cross_validation(
         rmse=float(np.sqrt(np.mean(errors**2))),
         msse=float(np.mean(std**2)),
         n=n,
+        jitter=(used.nugget - model.nugget) / model.sill,
     )
 
 

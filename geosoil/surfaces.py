@@ -280,6 +280,8 @@ class _Fit:
     candidates: tuple[tuple[str, float, float], ...]
     scope: str
     note: str | None
+    cross_validation: CrossValidation | None = None
+    """The chosen model's cross-validation on the samples it was fitted to."""
 
 
 class _NoFit(Exception):
@@ -317,7 +319,9 @@ def _fit_variogram(
         (c.model.name, float(c.cross_validation.rmse), float(c.cross_validation.msse))
         for c in sel.candidates
     )
-    return _Fit(sel.model, sel.empirical, cands, scope, note)
+    why = f"variogram: {sel.reason}"
+    return _Fit(sel.model, sel.empirical, cands, scope, why if note is None else f"{note}; {why}",
+                sel.chosen.cross_validation)
 
 
 def _flat(grid: PaddockGrid, value: float) -> NDArray[np.float64]:
@@ -482,9 +486,11 @@ def interpolate_farm(
                             "the log-scale variogram")
                 pts, z = pts[keep], np.log(z[keep])
             try:
-                farm_fits[(variable, log)] = _fit_variogram(
-                    _xy(pts), z, variable=variable, settings=settings, scope="farm", note=note
-                )
+                with _where(f"farm-wide variogram of {variable}"):
+                    farm_fits[(variable, log)] = _fit_variogram(
+                        _xy(pts), z, variable=variable, settings=settings, scope="farm",
+                        note=note,
+                    )
             except _NoFit as exc:
                 farm_fits[(variable, log)] = exc
         got = farm_fits[(variable, log)]
@@ -598,9 +604,10 @@ def interpolate_farm(
                             else "variogram fitted on the farm's pooled samples"
                         )
                 else:
-                    fit = _fit_variogram(
-                        xy, zt, variable=variable, settings=settings, scope="paddock"
-                    )
+                    with _where(f"{name}, {variable}"):
+                        fit = _fit_variogram(
+                            xy, zt, variable=variable, settings=settings, scope="paddock"
+                        )
             except _NoFit as exc:
                 out[(name, variable)] = idw_surface(
                     name, variable, grid, xy, z, notes, f"no variogram could be fitted ({exc})"
@@ -611,7 +618,11 @@ def interpolate_farm(
             model = fit.model
             assert model is not None
             with _where(f"{name}, {variable}"):
-                cv = loo_cross_validation(xy, zt, model)
+                # the selection's cross-validation is this one when the variogram was
+                # fitted on these very samples
+                cv = (fit.cross_validation if fit.scope == "paddock"
+                      and fit.cross_validation is not None
+                      else loo_cross_validation(xy, zt, model))
                 est, std = _krige(
                     xy, z, grid, model, log=log, neighbours=settings.neighbours
                 )

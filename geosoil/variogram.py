@@ -118,6 +118,40 @@ def _matern_unit(t: NDArray[np.float64], nu: float) -> NDArray[np.float64]:
     return out
 
 
+def _correlation_sq(
+    name: str, a: float, nu: float | None, d2: ArrayLike, *,
+    out: NDArray[np.float64] | None = None,
+) -> NDArray[np.float64]:
+    """``rho`` of model ``name`` with practical range ``a`` at squared distances ``d2``
+    (see :meth:`VariogramModel.correlation_sq`; no checks, for the fit's inner loop)."""
+    d2 = np.asarray(d2, dtype=np.float64)
+    if out is None:
+        out = np.array(d2, dtype=np.float64, copy=True)
+    elif out is not d2:
+        np.copyto(out, d2)
+    if name == "gaussian":
+        out *= -((_GAUSSIAN_SCALE / a) ** 2)
+        np.exp(out, out=out)
+        return out
+    np.sqrt(out, out=out)
+    if name == "exponential":
+        out *= -3.0 / a
+        np.exp(out, out=out)
+    elif name == "spherical":
+        out *= 1.0 / a
+        np.minimum(out, 1.0, out=out)
+        t = out * out
+        t *= -0.5
+        t += 1.5
+        out *= t
+        np.subtract(1.0, out, out=out)
+    else:  # matern
+        nu_ = float(nu)  # type: ignore[arg-type]
+        out *= _matern_scale(nu_) / a
+        out[...] = _matern_unit(out, nu_)
+    return out
+
+
 @dataclass(frozen=True)
 class VariogramModel:
     """A variogram model: a frozen value the kriging engine takes as it is.
@@ -211,33 +245,7 @@ class VariogramModel:
         >>> np.allclose(m.correlation_sq(d2), np.exp(-np.array([0.0, 100.0]) / (40 * 4 / 7) ** 2))
         True
         """
-        d2 = np.asarray(d2, dtype=np.float64)
-        if out is None:
-            out = np.array(d2, dtype=np.float64, copy=True)
-        elif out is not d2:
-            np.copyto(out, d2)
-        a = self.range
-        if self.name == "gaussian":
-            out *= -((_GAUSSIAN_SCALE / a) ** 2)
-            np.exp(out, out=out)
-            return out
-        np.sqrt(out, out=out)
-        if self.name == "exponential":
-            out *= -3.0 / a
-            np.exp(out, out=out)
-        elif self.name == "spherical":
-            out *= 1.0 / a
-            np.minimum(out, 1.0, out=out)
-            t = out * out
-            t *= -0.5
-            t += 1.5
-            out *= t
-            np.subtract(1.0, out, out=out)
-        else:  # matern
-            nu = float(self.nu)  # type: ignore[arg-type]
-            out *= _matern_scale(nu) / a
-            out[...] = _matern_unit(out, nu)
-        return out
+        return _correlation_sq(self.name, self.range, self.nu, d2, out=out)
 
     def correlation(self, h: ArrayLike) -> NDArray[np.float64]:
         """Correlation ``rho(h)`` of the structured part at distances ``h`` (metres)."""
@@ -479,10 +487,19 @@ def fit(
     upper = np.array([2.0, 3.0, 3.0])
     sqrt_w = np.sqrt(counts / counts.sum())
 
+    lags2 = lags * lags
+    zero = lags <= COINCIDENT_M  # empirical lags are means of pairs apart: never, in practice
+    target = gamma / gmax
+
     def residuals(p: NDArray[np.float64]) -> NDArray[np.float64]:
-        m = _model(model, p * [gmax, gmax, hmax], nu)
-        g = m.semivariance(lags) / gmax
-        r = g - gamma / gmax
+        # the semivariance of _model(model, p * scale, nu), without building (and
+        # checking) a model object at each of the optimiser's evaluations
+        nugget, psill = p[0], p[1]
+        if nugget < 1e-9 * (nugget + psill):
+            nugget = 0.0
+        g = nugget + psill * (1.0 - _correlation_sq(model, p[2] * hmax, nu, lags2))
+        g[zero] = 0.0
+        r = g - target
         if weighting == "cressie":
             r = r / np.maximum(g, 1e-12)
         return sqrt_w * r
