@@ -19,15 +19,12 @@ import argparse
 import dataclasses
 import resource
 import statistics
-import sys
 import tempfile
 import time
 from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-
-from geosoil.job import run  # noqa: E402
-from geosoil.project import load_project  # noqa: E402
+from geosoil.job import run
+from geosoil.project import load_project
 
 GOAL_FULL_S = 10.0
 GOAL_RERUN_S = 2.0

@@ -41,7 +41,6 @@ from __future__ import annotations
 import argparse
 import multiprocessing as mp
 import resource
-import sys
 import time
 import tracemalloc
 from dataclasses import dataclass
@@ -49,10 +48,8 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-
-from geosoil.kriging import ordinary_kriging  # noqa: E402
-from geosoil.variogram import VariogramModel  # noqa: E402
+from geosoil.kriging import ordinary_kriging
+from geosoil.variogram import VariogramModel
 
 CELL_M = 5.0
 LOCAL_NEIGHBOURS = 64

@@ -18,7 +18,7 @@ __all__ = ["demo", "demo_project_file"]
 
 def demo_project_file() -> Path:
     """Path of the demo farm's project file as installed."""
-    return Path(str(resources.files("demo_farm").joinpath("geosoil.toml")))
+    return Path(str(resources.files("geosoil.demo_farm").joinpath("geosoil.toml")))
 
 
 @click.command()

@@ -37,7 +37,7 @@ Rules applied to every file
 Examples
 --------
 >>> from pathlib import Path
->>> import demo_farm
+>>> from geosoil import demo_farm
 >>> folder = Path(demo_farm.__file__).parent
 >>> settings = BoundarySettings(paddocks=folder / "paddocks.geojson",
 ...                             creeks=folder / "creek.geojson")
@@ -584,7 +584,7 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
 
     Examples
     --------
-    >>> import demo_farm
+    >>> from geosoil import demo_farm
     >>> p = read_paddocks(BoundarySettings(paddocks=Path(demo_farm.__file__).parent
     ...                                    / "paddocks.geojson"))
     >>> p.set_index("paddock").geometry.geom_type.to_dict()
@@ -663,7 +663,7 @@ def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame
 
     Examples
     --------
-    >>> import demo_farm
+    >>> from geosoil import demo_farm
     >>> folder = Path(demo_farm.__file__).parent
     >>> ex = read_exclusions(BoundarySettings(paddocks=folder / "paddocks.geojson",
     ...                                       exclusions=folder / "exclusions.geojson"),
@@ -771,7 +771,7 @@ def read_user_zones(
 
     Examples
     --------
-    >>> import demo_farm
+    >>> from geosoil import demo_farm
     >>> z = read_user_zones(Path(demo_farm.__file__).parent / "zones_windmill.geojson",
     ...                     crs="EPSG:32755")
     >>> z["zone"].tolist()

@@ -469,7 +469,7 @@ import traceback  # noqa: E402
 
 from click.testing import CliRunner  # noqa: E402
 
-from cli.main import cli  # noqa: E402
+from geosoil.cli.main import cli  # noqa: E402
 from geosoil.boundaries import read_user_zones as _read_zones  # noqa: E402
 from geosoil.errors import GeosoilError  # noqa: E402
 

@@ -10,7 +10,7 @@ import pytest
 import shapely
 from click.testing import CliRunner
 
-from cli.main import cli
+from geosoil.cli.main import cli
 
 UTM = "EPSG:32755"
 X0, Y0 = 540_000.0, 6_160_000.0

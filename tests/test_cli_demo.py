@@ -9,8 +9,8 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from cli.demo import demo_project_file
-from cli.main import cli
+from geosoil.cli.demo import demo_project_file
+from geosoil.cli.main import cli
 
 
 def _tree(root: Path) -> list[tuple[str, int]]:

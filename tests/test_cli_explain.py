@@ -12,7 +12,7 @@ import pytest
 import tomli_w
 from click.testing import CliRunner
 
-from cli.main import cli
+from geosoil.cli.main import cli
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
 

@@ -15,7 +15,7 @@ import shapely
 from click.testing import CliRunner
 from pyproj import Transformer
 
-from cli.main import cli
+from geosoil.cli.main import cli
 from geosoil.project import NEW_MIN_RATE_KG_HA, load_project
 
 UTM = "EPSG:32755"  # WGS 84 / UTM zone 55S

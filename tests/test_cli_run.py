@@ -18,7 +18,7 @@ import rasterio
 import tomli_w
 from click.testing import CliRunner
 
-from cli.main import cli
+from geosoil.cli.main import cli
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
 

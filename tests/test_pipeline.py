@@ -49,7 +49,7 @@ import pytest
 import rasterio
 import shapely
 
-import demo_farm
+from geosoil import demo_farm
 import geosoil
 from geosoil.job import run
 from geosoil.pipeline import compute
