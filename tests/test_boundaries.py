@@ -468,8 +468,8 @@ def test_user_zones_must_be_polygons(tmp_path):
 import traceback  # noqa: E402
 
 from click.testing import CliRunner  # noqa: E402
-
 from geosoil.cli.main import cli  # noqa: E402
+
 from geosoil.boundaries import read_user_zones as _read_zones  # noqa: E402
 from geosoil.errors import GeosoilError  # noqa: E402
 

@@ -9,7 +9,6 @@ import geopandas as gpd
 import pytest
 import shapely
 from click.testing import CliRunner
-
 from geosoil.cli.main import cli
 
 UTM = "EPSG:32755"

@@ -8,7 +8,6 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
-
 from geosoil.cli.demo import demo_project_file
 from geosoil.cli.main import cli
 

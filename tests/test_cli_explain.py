@@ -11,7 +11,6 @@ from pathlib import Path
 import pytest
 import tomli_w
 from click.testing import CliRunner
-
 from geosoil.cli.main import cli
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"

@@ -13,9 +13,9 @@ import pandas as pd
 import pytest
 import shapely
 from click.testing import CliRunner
+from geosoil.cli.main import cli
 from pyproj import Transformer
 
-from geosoil.cli.main import cli
 from geosoil.project import NEW_MIN_RATE_KG_HA, load_project
 
 UTM = "EPSG:32755"  # WGS 84 / UTM zone 55S

@@ -17,7 +17,6 @@ import pytest
 import rasterio
 import tomli_w
 from click.testing import CliRunner
-
 from geosoil.cli.main import cli
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"

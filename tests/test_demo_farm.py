@@ -16,9 +16,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import shapely
+from geosoil.demo_farm.make_demo_farm import WORKING_CRS, make_demo_farm
 
 from geosoil import demo_farm
-from geosoil.demo_farm.make_demo_farm import WORKING_CRS, make_demo_farm
 from geosoil.boundaries import BoundarySettings, read_exclusions, read_paddocks, read_user_zones
 from geosoil.errors import DataWarning
 

@@ -49,8 +49,8 @@ import pytest
 import rasterio
 import shapely
 
-from geosoil import demo_farm
 import geosoil
+from geosoil import demo_farm
 from geosoil.job import run
 from geosoil.pipeline import compute
 from geosoil.project import load_project

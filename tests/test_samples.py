@@ -817,10 +817,10 @@ import json  # noqa: E402
 import traceback  # noqa: E402
 
 from click.testing import CliRunner  # noqa: E402
+from geosoil.cli.main import cli  # noqa: E402
 from hypothesis import HealthCheck, given, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
-from geosoil.cli.main import cli  # noqa: E402
 from geosoil.errors import GeosoilError  # noqa: E402
 
 _FUZZ = settings(max_examples=60, deadline=None,
