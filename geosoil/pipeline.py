@@ -16,13 +16,12 @@ CLI summary.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import difflib
 import hashlib
 import json
 import logging
-import os
-import pickle
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -35,6 +34,7 @@ import pandas as pd
 import shapely
 
 from . import __version__
+from . import cache as cache_mod
 from . import grids as grids_mod
 from . import kriging as kriging_mod
 from . import model_choice as model_choice_mod
@@ -231,8 +231,7 @@ def _cache_dir(prep: Prepared) -> Path:
     configured = prep.project.settings.output.cache_dir
     if configured is not None:
         return Path(configured)
-    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base) / "geosoil"
+    return cache_mod.default_folder()
 
 
 def surfaces_for(
@@ -242,7 +241,9 @@ def surfaces_for(
 
     The warnings the interpolation raised (fallbacks to inverse-distance
     weighting, zone values...) are kept with the surfaces and recorded again on
-    a cache hit, so a re-run reports what the first run did.
+    a cache hit, so a re-run reports what the first run did. The cache holds
+    arrays and JSON only (:mod:`geosoil.cache`); an entry that fails its checks
+    is not used: the surfaces are computed again and a note says so.
 
     Parameters
     ----------
@@ -261,18 +262,24 @@ def surfaces_for(
         True when the surfaces came from the cache.
     """
     key = _surface_key(prep)
-    path = _cache_dir(prep) / f"surfaces-{key[:32]}.pickle"
-    if use_cache and path.exists():
+    folder = _cache_dir(prep)
+    if use_cache:
+        shapes = {name: g.mask.shape for name, g in prep.grids.items()}
         try:
-            with open(path, "rb") as fh:
-                stored = pickle.load(fh)
-            if stored.get("key") == key and isinstance(stored.get("warnings"), list):
-                progress("surfaces: unchanged inputs, taken from the cache")
-                os.utime(path)  # most recently used: the pruning keeps it longest
-                prep.warnings.extend(w for w in stored["warnings"] if w not in prep.warnings)
-                return stored["surfaces"], True
-        except Exception as exc:  # a damaged cache is rebuilt, never trusted
-            logger.info("surface cache %s unreadable (%s); rebuilding", path, exc)
+            stored = cache_mod.load(folder, key, shapes=shapes)
+        except cache_mod.CacheEntryError as exc:
+            stored = None
+            note = (f"the cached surfaces {cache_mod.entry_paths(folder, key)[1]} failed their "
+                    f"check ({exc}); nothing of them was used, the surfaces were computed "
+                    "again and the entry replaced")
+            progress(note)
+            prep.warnings.append(note)
+            with contextlib.suppress(OSError):
+                cache_mod.discard(folder, key)
+        if stored is not None:
+            progress("surfaces: unchanged inputs, taken from the cache")
+            prep.warnings.extend(w for w in stored[1] if w not in prep.warnings)
+            return stored[0], True
     found: list[str] = []
     with record_warnings(found):
         surfaces = interpolate_farm(
@@ -286,30 +293,15 @@ def surfaces_for(
     prep.warnings.extend(w for w in found if w not in prep.warnings)
     if use_cache:
         try:
-            path.parent.mkdir(parents=True, exist_ok=True)
-            tmp = path.with_suffix(f".tmp{os.getpid()}")
-            with open(tmp, "wb") as fh:
-                pickle.dump(
-                    {"key": key, "surfaces": surfaces, "warnings": found}, fh,
-                    protocol=pickle.HIGHEST_PROTOCOL,
-                )
-            os.replace(tmp, path)
-            _prune_cache(path.parent, keep=CACHE_KEEP)
+            cache_mod.save(folder, key, surfaces, found)
+            cache_mod.prune(folder, keep=CACHE_KEEP)
         except OSError as exc:
-            logger.info("could not write the surface cache %s (%s)", path, exc)
+            logger.info("could not write the surface cache in %s (%s)", folder, exc)
     return surfaces, False
 
 
 #: How many cached surface sets the cache folder keeps (the most recently used).
 CACHE_KEEP = 24
-
-
-def _prune_cache(folder: Path, *, keep: int) -> None:
-    """Delete all but the ``keep`` most recently used surface files in ``folder``."""
-    files = sorted(folder.glob("surfaces-*.pickle"), key=lambda p: p.stat().st_mtime,
-                   reverse=True)
-    for old in files[keep:]:
-        old.unlink(missing_ok=True)
 
 
 # --------------------------------------------------------------------------- stage 5

@@ -686,7 +686,8 @@ def new_project(
     text = template(settings, header=f"written by 'geosoil new' for {samples.name}")
     parse_project(text, base_dir=folder.resolve(), source=str(target))  # it must run as written
     folder.mkdir(parents=True, exist_ok=True)
-    tmp = target.with_suffix(".toml.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    os.replace(tmp, target)
+    from .writers import atomic_write
+
+    with atomic_write(target, mode="w") as fh:
+        fh.write(text)
     return target, notes

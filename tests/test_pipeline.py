@@ -135,7 +135,8 @@ def test_input_files_unchanged_and_nothing_written_into_the_input_folder(demo) -
         assert after[name][0] == data, f"{name} changed"
         assert after[name][1] == mtime, f"{name} was touched"
     assert not demo.out.is_relative_to(demo.farm)
-    assert list(demo.cache.glob("surfaces-*.pickle"))  # the cache went where it was told
+    assert list(demo.cache.glob("surfaces-*.json"))  # the cache went where it was told
+    assert list(demo.cache.glob("surfaces-*.npz"))
 
 
 # --------------------------------------------------------------------------- GeoTIFFs
@@ -547,19 +548,3 @@ def test_seasons_split_reports_this_seasons_tonnes(tmp_path) -> None:
     # the demo's Red Hill lime needs more than one pass (4 t/ha per pass), so this season is less
     assert first["lime"] < float(zones.loc[zones["product"] == "lime", "area_ha"].mul(
         zones.loc[zones["product"] == "lime", "rate_kg_ha"]).sum() / 1000)
-
-
-def test_the_surface_cache_keeps_only_the_most_recently_used(tmp_path) -> None:
-    import os
-    import time
-
-    from geosoil.pipeline import _prune_cache
-
-    for i in range(6):
-        p = tmp_path / f"surfaces-{i}.pickle"
-        p.write_bytes(b"x")
-        os.utime(p, (time.time() - 100 + i, time.time() - 100 + i))
-    (tmp_path / "other.txt").write_text("not ours")
-    _prune_cache(tmp_path, keep=2)
-    assert sorted(p.name for p in tmp_path.iterdir()) == [
-        "other.txt", "surfaces-4.pickle", "surfaces-5.pickle"]

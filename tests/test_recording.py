@@ -23,30 +23,9 @@ from geosoil import job, pipeline
 from geosoil.errors import DataWarning, InputError, InterpolationWarning, RateWarning
 from geosoil.project import load_project
 from geosoil.recording import LIBRARY_WARNINGS_KEPT, record_warnings
+from tests.small_farm import UTM, X0, Y0, make_project
 
-UTM = "EPSG:32755"
-X0, Y0 = 540_000.0, 6_160_000.0
-HEADER = ("Sample,Easting,Northing,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),"
-          "Na (cmol/kg),Exch Acidity (cmol/kg)")
 REPEATS = 500  # each planted warning is raised this many times
-
-
-def make_project(folder: Path) -> Path:
-    folder.mkdir(parents=True, exist_ok=True)
-    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
-                     crs=UTM).to_file(folder / "paddocks.gpkg")
-    rows = []
-    for i in range(12):
-        x, y = X0 + 20 + (i % 4) * 90 + i, Y0 + 30 + (i // 4) * 80 + 2 * i
-        rows.append(f"S{i + 1:02d},{x:.1f},{y:.1f},{5.0 + i / 10:.1f},{6 + i / 5:.2f},2.1,0.5,"
-                    f"{0.3 + i / 8:.2f},0.2")
-    (folder / "lab.csv").write_text(HEADER + "\n" + "\n".join(rows) + "\n")
-    cache = json.dumps(str(folder.parent / "cache"))
-    (folder / "geosoil.toml").write_text(
-        f'[samples]\nfile = "lab.csv"\ncrs = "{UTM}"\n\n[boundaries]\npaddocks = "paddocks.gpkg"\n'
-        f"\n[output]\ncache_dir = {cache}\n"
-    )
-    return folder
 
 
 def noisy(stage: str, func, category: type[Warning] = DataWarning):  # noqa: ANN001, ANN201
