@@ -7,10 +7,6 @@ from pathlib import Path
 
 import click
 
-from geosoil.errors import SettingsError
-from geosoil.pipeline import check as check_project
-from geosoil.project import load_project_problems
-
 from .options import echo_err, handle_errors, project_argument
 
 __all__ = ["check"]
@@ -26,6 +22,10 @@ def check(ctx: click.Context, project: Path) -> None:
     PROJECT is a project folder or its TOML file. Every problem found is
     listed on stderr; nothing is written.
     """
+    from geosoil.errors import SettingsError
+    from geosoil.pipeline import check as check_project
+    from geosoil.project import load_project_problems
+
     proj, problems = load_project_problems(project)
     if proj is None:
         for p in problems:

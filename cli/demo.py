@@ -7,9 +7,6 @@ from pathlib import Path
 
 import click
 
-from geosoil.job import run as run_job
-from geosoil.project import load_project
-
 from .options import Progress, echo_err, handle_errors, out_option, overwrite_option
 from .summary import print_summary
 
@@ -29,6 +26,9 @@ def demo_project_file() -> Path:
 @handle_errors
 def demo(ctx: click.Context, out: Path, overwrite: bool, no_cache: bool) -> None:
     """Run the whole job on the bundled demo farm (an invented farm)."""
+    from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
+    from geosoil.project import load_project
+
     progress = Progress(quiet=ctx.obj["quiet"])
     path = demo_project_file()
     if not ctx.obj["quiet"]:

@@ -6,11 +6,6 @@ from pathlib import Path
 
 import click
 
-from geosoil.errors import InputError
-from geosoil.explain import explain_location, format_explanation, locate, parse_location
-from geosoil.pipeline import compute, prepare
-from geosoil.project import load_project
-
 from .options import Progress, handle_errors, project_argument
 
 __all__ = ["explain"]
@@ -18,6 +13,9 @@ __all__ = ["explain"]
 
 def _location(ctx: click.Context, param: click.Parameter, value: str) -> tuple[float, float]:
     """--at as two numbers; a malformed value is a usage error naming the option."""
+    from geosoil.errors import InputError
+    from geosoil.explain import parse_location
+
     try:
         return parse_location(value)
     except InputError as exc:
@@ -50,6 +48,10 @@ def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: 
     values and the cell's chemistry, to the product rate of each rule and the
     zone rate the spreader applies there.
     """
+    from geosoil.explain import explain_location, format_explanation, locate
+    from geosoil.pipeline import compute, prepare
+    from geosoil.project import load_project
+
     a, b = at
     proj = load_project(project)
     locate(prepare(proj), a, b, coords=coords)  # a point off the farm fails before kriging

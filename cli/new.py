@@ -7,8 +7,6 @@ from pathlib import Path
 
 import click
 
-from geosoil.project import new_project
-
 from .options import echo_err, handle_errors
 
 __all__ = ["new"]
@@ -67,6 +65,8 @@ def new(
     setting at its default, each with a one-line comment. Edit it, then
     'geosoil check FOLDER' and 'geosoil run FOLDER --out DIR'.
     """
+    from geosoil.project import new_project
+
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         path, notes = new_project(folder, samples=samples, paddocks=paddocks, crs=crs,

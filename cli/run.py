@@ -6,9 +6,6 @@ from pathlib import Path
 
 import click
 
-from geosoil.job import run as run_job
-from geosoil.project import load_project
-
 from .options import Progress, handle_errors, out_option, overwrite_option, project_argument
 from .summary import print_summary
 
@@ -24,6 +21,9 @@ __all__ = ["run"]
 @handle_errors
 def run(ctx: click.Context, project: Path, out: Path, overwrite: bool, no_cache: bool) -> None:
     """Run the whole job for PROJECT (a project folder or its geosoil.toml)."""
+    from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
+    from geosoil.project import load_project
+
     progress = Progress(quiet=ctx.obj["quiet"])
     proj = load_project(project)
     result = run_job(proj, out_dir=out, overwrite=overwrite, progress=progress,

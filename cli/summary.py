@@ -2,19 +2,23 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import click
 
-from geosoil.job import RunResult
-from geosoil.report import CAUTIONS
-from geosoil.tonnage import format_summary
-
 from .options import echo_err
+
+if TYPE_CHECKING:
+    from geosoil.job import RunResult
 
 __all__ = ["print_summary"]
 
 
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
+    from geosoil.report import CAUTIONS
+    from geosoil.tonnage import format_summary
+
     rate_unit = result.farm.prep.project.settings.output.rate_unit
     click.echo(format_summary(result.tonnage, rate_unit=rate_unit))
     first = result.record.get("first_season_tonnes")

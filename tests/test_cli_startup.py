@@ -1,0 +1,65 @@
+"""Start-up: the command line loads no heavy library until a command runs.
+
+``geosoil --help``, ``--version`` and every ``COMMAND --help`` should answer at once, so the
+command modules import geopandas, scipy, pandas, folium and the like inside the command
+bodies. Checked in a fresh interpreter through ``sys.modules`` (what got imported), never
+by timing.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from importlib.metadata import entry_points
+
+import pytest
+
+HEAVY = ("geopandas", "scipy", "folium", "pandas", "shapely", "pyproj", "rasterio", "numpy",
+         "jenkspy", "branca", "jinja2", "openpyxl")
+
+
+def _entry() -> tuple[str, str]:
+    """Module and attribute of the installed ``geosoil`` console script."""
+    (ep,) = [e for e in entry_points(group="console_scripts") if e.name == "geosoil"]
+    module, _, attr = ep.value.partition(":")
+    return module, attr
+
+
+def _loaded_after(args: list[str] | None) -> list[str]:
+    """Heavy modules imported by loading the CLI (and running it with ``args``)."""
+    module, attr = _entry()
+    code = (
+        "import importlib, json, sys\n"
+        f"main = getattr(importlib.import_module({module!r}), {attr!r})\n"
+        f"args = {args!r}\n"
+        "if args is not None:\n"
+        "    sys.argv = ['geosoil', *args]\n"
+        "    try:\n"
+        "        main()\n"
+        "    except SystemExit as exc:\n"
+        "        assert exc.code in (0, None), exc.code\n"
+        f"print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def test_importing_the_cli_imports_no_heavy_library() -> None:
+    assert _loaded_after(None) == []
+
+
+@pytest.mark.parametrize("args", [["--help"], ["--version"], ["new", "--help"],
+                                  ["check", "--help"], ["run", "--help"], ["demo", "--help"],
+                                  ["explain", "--help"]])
+def test_help_and_version_import_no_heavy_library(args) -> None:
+    assert _loaded_after(args) == []
+
+
+def test_importing_the_package_imports_no_heavy_library() -> None:
+    code = ("import json, sys, geosoil\n"
+            f"print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    assert json.loads(done.stdout) == []
