@@ -36,8 +36,8 @@ import numpy as np
 import pandas as pd
 import rasterio.features
 
+from . import presentation, webmap
 from . import report as report_mod
-from . import webmap
 from .grids import mosaic
 from .isoxml import MAX_DESIGNATOR, write_taskdata
 from .pipeline import FarmResult
@@ -373,6 +373,159 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
     }
 
 
+def ph_label(farm: FarmResult) -> str:
+    """``"pH (CaCl2)"`` or ``"pH (water)"``: how the lab measured the pH."""
+    method = farm.prep.read.methods.get("ph")
+    return "pH (CaCl2)" if method == "CaCl2" else "pH (water)"
+
+
+def acid_ph_threshold(farm: FarmResult) -> float:
+    """The pH below which a sample counts as acid, for the lab's pH method."""
+    chem = farm.prep.project.settings.chemistry
+    return chem.acid_ph_cacl2 if farm.prep.read.methods.get("ph") == "CaCl2" else chem.acid_ph
+
+
+#: The soil surfaces of the map and report, in the order of the layer panel:
+#: (variable, colour kind of :func:`geosoil.presentation.classes_for`).
+MAP_SURFACES: tuple[tuple[str, str], ...] = (
+    ("esp", "esp"), ("ph", "ph"), ("acid_sat", "acid"), ("al_sat", "acid"),
+    ("ca_sat", "amount"), ("mg_sat", "amount"), ("k_sat", "amount"), ("ecec", "amount"),
+    ("ca", "amount"), ("mg", "amount"), ("k", "amount"), ("na", "amount"),
+    ("acidity", "amount"), ("al", "amount"), ("ec", "ec"),
+)
+
+#: The surface that explains each rule's rate (the map opens on it).
+_EXPLAINS = {"gypsum": "esp", "calcium": "ca", "balance": "ca_sat"}
+_EXPLAINS_LIME = {"kamprath": "al", "cochrane": "al_sat", "acidity_share": "acid_sat"}
+
+
+def farm_layer(farm: FarmResult, var: str, what: str = "estimate"
+               ) -> tuple[np.ndarray, Any] | None:
+    """One variable over the whole farm (the paddocks' grids mosaicked), or None.
+
+    ``what`` is ``"estimate"`` (the interpolated or derived cells), ``"std"`` (the
+    kriging standard deviation) or ``"rate:<product>"`` (the per-cell rate, kg/ha).
+    """
+    parts = []
+    for name, grid in farm.prep.grids.items():
+        pr = farm.paddocks[name]
+        if what.startswith("rate:"):
+            arr = pr.rates.product_rates.get(what[5:])
+        else:
+            sf = farm.surfaces.get((name, var))
+            if what == "std":
+                arr = None if sf is None else sf.std
+            else:
+                arr = pr.cells.get(var)
+                if arr is None and sf is not None:
+                    arr = sf.estimate
+        if arr is not None:
+            parts.append((grid, arr))
+    if not parts:
+        return None
+    arr, transform = mosaic(parts)
+    if not np.isfinite(arr).any():
+        return None
+    return arr, transform
+
+
+def opening_view(farm: FarmResult) -> tuple[str | None, str | None]:
+    """(surface, product) the map opens on: the product with the most tonnes and the
+    surface that explains most of its rate."""
+    totals = farm.tonnage
+    farm_rows = totals[totals["level"].astype(str) == "farm"]
+    if not len(farm_rows) or not (farm_rows["tonnes"].astype(float) > 0).any():
+        return "esp", None
+    product = str(farm_rows.loc[farm_rows["tonnes"].astype(float).idxmax(), "product"])
+    by_rule: dict[str, float] = {}
+    for pr in farm.paddocks.values():
+        for (rule, prod), rate in pr.rates.contributions.items():
+            if prod == product:
+                by_rule[rule] = by_rule.get(rule, 0.0) + float(np.nansum(rate))
+    rule = max(by_rule, key=lambda k: by_rule[k]) if by_rule else ""
+    method = farm.prep.project.settings.rates.lime.method
+    surface = _EXPLAINS_LIME.get(method, "ph") if rule == "lime" else _EXPLAINS.get(rule, "esp")
+    return surface, product
+
+
+def surface_classes(farm: FarmResult, var: str, kind: str, values: np.ndarray) -> Any:
+    """The colour classes of one soil surface (same in the map and the report)."""
+    chem = farm.prep.project.settings.chemistry
+    return presentation.classes_for(
+        kind, values, target=acid_ph_threshold(farm) if kind == "ph" else None,
+        limits=(chem.sodic_esp_percent, chem.strongly_sodic_esp_percent),
+    )
+
+
+def surface_title(farm: FarmResult, var: str) -> str:
+    """A surface's name as the map and report show it."""
+    return ph_label(farm) if var == "ph" else TITLES.get(var, var)
+
+
+def exclusion_zones(farm: FarmResult) -> Any:
+    """The areas not spread, clipped to the paddocks (one row per paddock and name),
+    each with ``kind`` ``"creek buffer"`` or ``"exclusion"`` and its area."""
+    import geopandas as gpd
+
+    zones = farm.zones
+    ez = zones[zones["kind"].astype(str) == "exclusion"]
+    if not len(ez):
+        return None
+    first = ez[ez["product"] == ez["product"].iloc[0]]  # every product has the same ones
+    kinds: dict[str, str] = {}
+    excl = farm.prep.exclusions
+    if len(excl) and "exclusion" in excl.columns and "kind" in excl.columns:
+        kinds = {str(a): str(b) for a, b in zip(excl["exclusion"], excl["kind"], strict=False)}
+    out = gpd.GeoDataFrame(first[["paddock", "label"]].copy(), geometry=first.geometry.values,
+                           crs=zones.crs).dissolve(by=["paddock", "label"], as_index=False)
+    out["kind"] = [
+        "creek buffer" if any(kinds.get(part.strip()) == "creek buffer"
+                              for part in str(lab).split(",")) else "exclusion"
+        for lab in out["label"]
+    ]
+    out["area_ha"] = out.geometry.area / 1e4
+    return out
+
+
+def sample_fields(farm: FarmResult) -> list[Any]:
+    """The lines of a sample's popup: labels, units, the lab's own values and the flags."""
+    read = farm.prep.read
+    cols = set(farm.prep.samples.columns)
+    cmol = "cmol(+)/kg"
+    fields = [webmap.SampleField("paddock", "Paddock")]
+    fields.append(webmap.SampleField("ph", ph_label(farm), "", 1))
+    known = {"sample_id", "source_row", "paddock", "geometry", *read.columns}
+    lab_other = [c for c in farm.prep.samples.columns
+                 if c not in known and c not in _DERIVED_COLUMNS and c in cols]
+    for c in lab_other:  # the lab's other columns, under the lab's own headers
+        fields.append(webmap.SampleField(c, str(c)))
+    for var, label in (("ca", "Exch. Ca"), ("mg", "Exch. Mg"), ("k", "Exch. K"),
+                       ("na", "Exch. Na"), ("al", "Exch. Al"), ("acidity", "Exch. acidity"),
+                       ("ecec", "ECEC"), ("cec", "CEC (lab)")):
+        fields.append(webmap.SampleField(var, label, cmol, 2))
+    for var, label in (("esp", "ESP"), ("ca_sat", "Ca saturation"),
+                       ("mg_sat", "Mg saturation"), ("k_sat", "K saturation"),
+                       ("acid_sat", "Acid saturation"), ("al_sat", "Al saturation")):
+        fields.append(webmap.SampleField(var, label, "%", 1))
+    fields.append(webmap.SampleField("ca_mg_ratio", "Ca:Mg ratio", "", 1))
+    fields.append(webmap.SampleField("source_row", "Row in the lab file"))
+    fields += [
+        webmap.SampleField("sodicity", "", flag=True, ok_values=("non-sodic",)),
+        webmap.SampleField("acid_reason", "acid", flag=True),
+        webmap.SampleField("esp_estimated", "ESP estimated from SAR", flag=True),
+    ]
+    fields += [webmap.SampleField(c, c.replace("_", " "), flag=True)
+               for c in farm.prep.samples.columns
+               if str(c).endswith("_flag") and c != "acid_flag"]
+    return [f for f in fields if f.column in cols]
+
+
+_DERIVED_COLUMNS = {
+    "ecec", "ecec_basis", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "esp_estimated",
+    "acid_sat", "al_sat", "base_sat", "ca_mg_ratio", "sodicity", "acid_flag", "acid_reason",
+}
+
+
 def build_farm_map(farm: FarmResult) -> str:
     """The interactive map of a run.
 
@@ -389,80 +542,56 @@ def build_farm_map(farm: FarmResult) -> str:
     prep = farm.prep
     s = prep.project.settings
     layers = []
-    names = list(prep.grids)
-
-    def farm_layer(getter: Any) -> tuple[np.ndarray, Any] | None:
-        parts = []
-        for n in names:
-            arr = getter(n)
-            if arr is not None:
-                parts.append((prep.grids[n], arr))
-        if not parts:
-            return None
-        return mosaic(parts)
-
-    def surface(var: str, what: str = "estimate") -> Any:
-        def get(n: str) -> Any:
-            sf = farm.surfaces.get((n, var))
-            if sf is None:
-                cells = farm.paddocks[n].cells
-                return cells.get(var) if what == "estimate" else None
-            return getattr(sf, what)
-        return get
-
-    order = [
-        ("esp", "diverging", 6.0, True), ("ca_sat", "sequential", None, False),
-        ("acidity", "sequential", None, False), ("ecec", "sequential", None, False),
-        ("ph", "diverging", 5.5, False), ("mg_sat", "sequential", None, False),
-        ("ca", "sequential", None, False), ("mg", "sequential", None, False),
-        ("na", "sequential", None, False), ("al", "sequential", None, False),
-    ]
-    for var, scheme, centre, show in order:
-        got = farm_layer(surface(var))
+    for var, kind in MAP_SURFACES:
+        got = farm_layer(farm, var)
         if got is None:
             continue
         arr, transform = got
-        if not np.isfinite(arr).any():
-            continue
         layers.append(webmap.RasterLayer(
-            title=TITLES.get(var, var), unit=SURFACE_UNITS.get(var, ""), array=arr,
-            transform=transform, crs=prep.crs, scheme=scheme, centre=centre, show=show,
-            breaks=webmap.SODICITY_BREAKS if var == "esp" else (),
-            class_labels=webmap.SODICITY_LABELS if var == "esp" else (),
+            key=var, title=surface_title(farm, var), unit=SURFACE_UNITS.get(var, ""),
+            array=arr, transform=transform, crs=prep.crs,
+            classes=surface_classes(farm, var, kind, arr),
         ))
-    for var in ("na", "acidity", "ca", "ph"):
-        got = farm_layer(surface(var, "std"))
-        if got is None or not np.isfinite(got[0]).any():
-            continue
-        layers.append(webmap.RasterLayer(
-            title=f"{TITLES.get(var, var)}: kriging standard deviation",
-            unit=SURFACE_UNITS.get(var, ""), array=got[0], transform=got[1], crs=prep.crs,
-            scheme="sequential", centre=None, show=False,
-        ))
-    products = sorted({p for pr in farm.paddocks.values() for p in pr.rates.product_rates})
-    for product in products:
-        got = farm_layer(lambda n, p=product: farm.paddocks[n].rates.product_rates.get(p))
+    kriged = sorted({v for (_, v) in farm.surfaces}, key=lambda v: (
+        [m for m, _ in MAP_SURFACES].index(v) if v in TITLES else 99, v))
+    for var in kriged:
+        got = farm_layer(farm, var, "std")
         if got is None:
             continue
-        arr = np.asarray(rate_from_kg_ha(got[0], s.output.rate_unit), dtype=float)
         layers.append(webmap.RasterLayer(
-            title=f"{product}: per-cell rate", unit=s.output.rate_unit, array=arr,
-            transform=got[1], crs=prep.crs, scheme="sequential", centre=None, show=False,
+            key=f"{var}_sd", title=f"{surface_title(farm, var)}: kriging SD",
+            unit=SURFACE_UNITS.get(var, ""), array=got[0], transform=got[1], crs=prep.crs,
+            classes=presentation.classes_for("error", got[0]), group="error",
         ))
-    popup_cols = [c for c in (
-        "sample_id", "paddock", "ph", "ca", "mg", "k", "na", "acidity", "al", "ecec",
-        "ca_sat", "mg_sat", "k_sat", "esp", "esp_estimated", "acid_sat", "ca_mg_ratio",
-        "sodicity", "acid_flag") if c in prep.samples.columns]
+    products = sorted({p for pr in farm.paddocks.values() for p in pr.rates.product_rates})
+    unit = s.output.rate_unit
+    for prod in products:
+        got = farm_layer(farm, prod, f"rate:{prod}")
+        if got is None:
+            continue
+        arr = np.asarray(rate_from_kg_ha(got[0], unit), dtype=float)
+        layers.append(webmap.RasterLayer(
+            key=f"rate_{slug(prod)}", title=f"{prod} (before spreader limits)",
+            unit=unit, array=arr, transform=got[1], crs=prep.crs,
+            classes=presentation.classes_for("rate", arr), group="rate",
+        ))
+    surface, product = opening_view(farm)
+    keys = [layer.key for layer in layers]
+    if surface not in keys:
+        surface = next((k for k in ("esp", "ph") if k in keys), keys[0] if keys else None)
     return webmap.build_map(
         title=s.farm or "geosoil",
         paddocks=prep.paddocks,
-        samples=prep.samples[[*popup_cols, "geometry"]],
+        samples=prep.samples,
         rasters=layers,
         zones=farm.zones,
-        exclusions=prep.exclusions if not prep.exclusions.empty else None,
+        exclusions=exclusion_zones(farm),
         background_tiles=s.output.background_tiles,
-        rate_unit=s.output.rate_unit,
+        rate_unit=unit,
         notes=_map_notes(farm),
+        sample_fields=sample_fields(farm),
+        open_surface=surface,
+        open_product=product,
     )
 
 

@@ -75,7 +75,7 @@ def versions() -> dict[str, str]:
 
     out = {"geosoil": __version__, "python": platform.python_version()}
     for pkg in ("numpy", "scipy", "pandas", "geopandas", "shapely", "pyproj", "rasterio",
-                "pyogrio", "folium", "jenkspy"):
+                "pyogrio", "jinja2", "django-js-lib-leaflet", "jenkspy"):
         try:
             out[pkg] = md.version(pkg)
         except md.PackageNotFoundError:

@@ -39,8 +39,13 @@ import numpy as np
 import pandas as pd
 
 from .errors import GeosoilError, InputError, SettingsError
+from .presentation import escape_text, label_point
+from .presentation import palette_colour as _pc
 from .units import RATE_UNITS, format_rate
-from .webmap import escape_text, label_point, ramp_colour
+
+
+def ramp_colour(name: str, t: float) -> str:  # temporary: report moves to templates
+    return _pc("rates", t)
 
 __all__ = [
     "CAUTIONS",

@@ -19,6 +19,7 @@ from shapely.geometry import Point, box
 
 from geosoil import report, webmap
 from geosoil.errors import InputError, SettingsError
+from geosoil.presentation import escape_text
 from tests.browser import Chromium, artifact_path, require_chromium
 
 HOSTILE_IMG = "<img src=x onerror=alert(1)>"
@@ -425,8 +426,8 @@ def test_hostile_text_is_escaped_everywhere() -> None:
     for raw in (HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE):
         assert raw not in page
     assert "<img" not in page
-    assert webmap.escape_text("Paddock North " + HOSTILE_IMG) in page
-    assert webmap.escape_text(HOSTILE_TEMPLATE) in page
+    assert escape_text("Paddock North " + HOSTILE_IMG) in page
+    assert escape_text(HOSTILE_TEMPLATE) in page
 
 
 # --------------------------------------------------------------------------- drawings

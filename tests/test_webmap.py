@@ -1,16 +1,15 @@
-"""Tests of geosoil.webmap: offline page, placement of surfaces, colour, escaping,
-and a real headless Chromium with the network cut off."""
+"""Tests of geosoil.webmap: the offline page, its data, placement of surfaces, escaping,
+and a real headless Chromium with the network cut off (desktop and phone sizes)."""
 
 from __future__ import annotations
 
-import html
 import io
 import json
 import math
 import re
+import warnings
 
 import affine
-import folium
 import geopandas as gpd
 import numpy as np
 import pyproj
@@ -18,11 +17,12 @@ import pytest
 import rasterio
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from rasterio.io import MemoryFile
+from rasterio.errors import NotGeoreferencedWarning
 from shapely.geometry import Point, box
 
 from geosoil import webmap
 from geosoil.errors import CRSError, InputError, SettingsError
+from geosoil.presentation import classes_for, escape_text, hex_to_rgb
 from tests.browser import Chromium, artifact_path, require_chromium
 
 # Strings a hostile or careless input file might hold (sample ids, paddock names, columns).
@@ -34,11 +34,33 @@ HOSTILE_FLAG_TEMPLATE = "${window.__pwned=3}"
 HOSTILE_QUOTES = "\"'`\\u0041 {{ 7*6 }} &amp;"
 
 CRS = "EPSG:32755"  # WGS 84 / UTM 55S
-X0, Y0 = (
-    640_000.0,
-    6_190_000.0,
-)  # about 2 degrees east of the central meridian: grid convergence ~1 degree
+X0, Y0 = 640_000.0, 6_190_000.0  # about 2 degrees east of the central meridian
 CELL = 40.0
+ROWS, COLS = 25, 20
+
+
+def surfaces(hostile: bool = False) -> list[webmap.RasterLayer]:
+    """Four invented surfaces over one grid, each in its own colour classes."""
+    transform = affine.Affine(CELL, 0, X0, 0, -CELL, Y0 + 1000)
+    yy, xx = np.mgrid[0:ROWS, 0:COLS]
+    esp = 2.0 + 0.8 * xx + 0.1 * yy
+    esp[0, 0] = np.nan
+    ph = 4.2 + 0.1 * yy
+    ca_sat = 40 + 2 * xx
+    sd = 0.2 + 0.05 * np.hypot(xx - 10, yy - 12)
+    crs = pyproj.CRS.from_user_input(CRS)
+    out = []
+    for key, title, unit, arr, cl in (
+        ("esp", "ESP", "% of ECEC", esp, classes_for("esp", esp)),
+        ("ph", "pH (CaCl2)" + (" " + HOSTILE_TEMPLATE if hostile else ""), "", ph,
+         classes_for("ph", ph, target=4.8)),
+        ("ca_sat", "Ca saturation", "% of ECEC", ca_sat, classes_for("amount", ca_sat)),
+        ("esp_sd", "ESP: kriging SD", "%", sd, classes_for("error", sd)),
+    ):
+        out.append(webmap.RasterLayer(key=key, title=title, unit=unit, array=arr,
+                                      transform=transform, crs=crs, classes=cl,
+                                      group="error" if key.endswith("_sd") else "soil"))
+    return out
 
 
 def farm(*, hostile: bool = False) -> dict:
@@ -54,13 +76,8 @@ def farm(*, hostile: bool = False) -> dict:
     ids = [f"S{i:02d}" for i in range(12)]
     notes = ["ok"] * 12
     if hostile:
-        ids[:5] = [
-            HOSTILE_IMG,
-            HOSTILE_SCRIPT,
-            HOSTILE_TEMPLATE,
-            HOSTILE_FLAG_IMG,
-            HOSTILE_FLAG_TEMPLATE,
-        ]
+        ids[:5] = [HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE, HOSTILE_FLAG_IMG,
+                   HOSTILE_FLAG_TEMPLATE]
         notes[0] = HOSTILE_FLAG_IMG
         notes[1] = HOSTILE_QUOTES
         notes[2] = "fine"  # the "${7*6}" sample: nothing else in its popup may read 42
@@ -70,55 +87,14 @@ def farm(*, hostile: bool = False) -> dict:
             "sample_id": ids,
             "paddock": [north if p.y > Y0 + 500 else south for p in points],
             "esp": np.round(rng.uniform(3, 19, 12), 1),
-            "ca_sat": np.round(rng.uniform(50, 80, 12), 1),
-            "ph": np.round(rng.uniform(5.1, 7.9, 12), 1),
+            "ph": np.round(rng.uniform(4.1, 6.9, 12), 1),
+            "EC 1:5 (dS/m)": np.round(rng.uniform(0.05, 0.4, 12), 2),
             ("note " + HOSTILE_SCRIPT if hostile else "note"): notes,
+            "sodicity": ["sodic"] * 6 + ["non-sodic"] * 6,
         },
         geometry=points,
         crs=CRS,
     )
-    transform = affine.Affine(CELL, 0, X0, 0, -CELL, Y0 + 1000)
-    rows, cols = 25, 20
-    yy, xx = np.mgrid[0:rows, 0:cols]
-    unique = np.arange(rows * cols, dtype=float).reshape(rows, cols)
-    esp = 2.0 + 0.8 * xx + 0.1 * yy
-    esp[0, 0] = np.nan
-    crs = pyproj.CRS.from_user_input(CRS)
-    rasters = [
-        webmap.RasterLayer(
-            title="ESP",
-            unit="%",
-            array=esp,
-            transform=transform,
-            crs=crs,
-            breaks=webmap.SODICITY_BREAKS,
-            class_labels=webmap.SODICITY_LABELS,
-            show=True,
-        ),
-        webmap.RasterLayer(
-            title="Ca saturation",
-            unit="% of ECEC",
-            array=40 + 30 * ((xx + yy) % 2) + unique / 100,
-            transform=transform,
-            crs=crs,
-        ),
-        webmap.RasterLayer(
-            title="pH" + (" " + HOSTILE_TEMPLATE if hostile else ""),
-            unit="pH units",
-            array=5 + 0.1 * yy,
-            transform=transform,
-            crs=crs,
-            scheme="diverging",
-            centre=6.5,
-        ),
-        webmap.RasterLayer(
-            title="ESP kriging SD",
-            unit="%",
-            array=1 + 0.05 * np.hypot(xx - 10, yy - 12),
-            transform=transform,
-            crs=crs,
-        ),
-    ]
     zone_rows = []
     gyp = "gypsum " + HOSTILE_FLAG_IMG if hostile else "gypsum"
     for name, geom in zip(paddocks["paddock"], paddocks.geometry, strict=False):
@@ -126,37 +102,29 @@ def farm(*, hostile: bool = False) -> dict:
         third = (maxx - minx) / 3
         for k, rate in enumerate((0.0, 1500.0, 3000.0)):
             part = box(minx + k * third, miny, minx + (k + 1) * third, maxy)
-            zone_rows.append(
-                dict(
-                    paddock=name,
-                    product=gyp,
-                    zone=k + 1,
-                    kind="rate",
-                    rate_kg_ha=rate,
-                    area_ha=part.area / 1e4,
-                    geometry=part,
-                )
-            )
-        zone_rows.append(
-            dict(
-                paddock=name,
-                product="lime",
-                zone=1,
-                kind="rate",
-                rate_kg_ha=2000.0,
-                area_ha=geom.area / 1e4,
-                geometry=geom,
-            )
-        )
+            zone_rows.append(dict(paddock=name, product=gyp, zone=k + 1, kind="rate",
+                                  rate_kg_ha=rate, area_ha=part.area / 1e4, geometry=part))
+        zone_rows.append(dict(paddock=name, product="lime", zone=1, kind="rate",
+                              rate_kg_ha=2000.0, area_ha=geom.area / 1e4, geometry=geom))
     zones = gpd.GeoDataFrame(zone_rows, crs=CRS)
     exclusions = gpd.GeoDataFrame(
-        {"name": ["dam " + HOSTILE_IMG if hostile else "dam"]},
-        geometry=[Point(X0 + 400, Y0 + 750).buffer(60)],
+        {"label": ["dam " + HOSTILE_IMG if hostile else "dam", "Long Creek"],
+         "kind": ["exclusion", "creek buffer"], "paddock": [north, south],
+         "area_ha": [1.1, 0.5]},
+        geometry=[Point(X0 + 400, Y0 + 750).buffer(60),
+                  box(X0 + 700, Y0 + 100, X0 + 720, Y0 + 400)],
         crs=CRS,
     )
-    return dict(
-        paddocks=paddocks, samples=samples, rasters=rasters, zones=zones, exclusions=exclusions
-    )
+    fields = [
+        webmap.SampleField("paddock", "Paddock"),
+        webmap.SampleField("ph", "pH (CaCl2)", "", 1),
+        webmap.SampleField("EC 1:5 (dS/m)", "EC 1:5 (dS/m)"),
+        webmap.SampleField("esp", "ESP", "%", 1),
+        webmap.SampleField(samples.columns[5], samples.columns[5]),
+        webmap.SampleField("sodicity", "", flag=True, ok_values=("non-sodic",)),
+    ]
+    return dict(paddocks=paddocks, samples=samples, rasters=surfaces(hostile), zones=zones,
+                exclusions=exclusions, sample_fields=fields)
 
 
 def build(*, hostile: bool = False, background_tiles: bool = False, **over) -> str:
@@ -164,6 +132,13 @@ def build(*, hostile: bool = False, background_tiles: bool = False, **over) -> s
     parts.update(over)
     title = "Test farm " + HOSTILE_SCRIPT if hostile else "Test farm"
     return webmap.build_map(title=title, background_tiles=background_tiles, **parts)
+
+
+def data_of(page: str) -> dict:
+    """The JSON block the page draws from."""
+    m = re.search(r'<script type="application/json" id="geosoil-data">(.*?)</script>', page, re.S)
+    assert m
+    return json.loads(m.group(1))
 
 
 @pytest.fixture(scope="module")
@@ -183,8 +158,6 @@ def test_page_loads_nothing_from_the_network(page_text: str) -> None:
     assert webmap.remote_references(page_text) == []
     assert not re.search(r"<script[^>]*\bsrc\s*=", page_text, re.I)
     assert not re.search(r"<link\b", page_text, re.I)
-    for _, url in folium.Map.default_js + folium.Map.default_css:  # folium's CDN defaults
-        assert url not in page_text
     assert webmap.TILE_URL not in page_text  # background tiles are off by default
 
 
@@ -195,57 +168,57 @@ def test_leaflet_is_inlined_from_the_installed_package(page_text: str) -> None:
     body = js.split("//# sourceMappingURL")[0].strip()
     assert body in page_text
     assert "sourceMappingURL" not in page_text
-    # Leaflet's CSS images are carried as data URIs, not relative files.
-    assert "url(images/" not in page_text
+    assert "url(images/" not in page_text  # Leaflet's CSS images are data URIs
     assert page_text.count("url(data:image/png;base64,") >= 3
 
 
-def test_background_tiles_add_only_the_tile_layer() -> None:
+def test_background_tiles_name_only_the_tile_server() -> None:
     text = build(background_tiles=True)
-    assert webmap.TILE_URL in text
+    assert data_of(text)["tiles"]["url"] == webmap.TILE_URL
     assert webmap.remote_references(text) == []  # tiles are requested by Leaflet, not by markup
-    for _, url in folium.Map.default_js + folium.Map.default_css:
-        assert url not in text
     urls = set(re.findall(r"https?://[^\s\"'<>)\\]+", text))
-    leaflet_js = (webmap._leaflet_dir() / "leaflet.js").read_text(encoding="utf-8")
-    leaflet_css = (webmap._leaflet_dir() / "leaflet.css").read_text(encoding="utf-8")
-    known = set(re.findall(r"https?://[^\s\"'<>)\\]+", leaflet_js + leaflet_css))
+    leaflet = (webmap._leaflet_dir() / "leaflet.js").read_text(encoding="utf-8") + (
+        webmap._leaflet_dir() / "leaflet.css").read_text(encoding="utf-8")
+    known = set(re.findall(r"https?://[^\s\"'<>)\\]+", leaflet))
     assert urls - known == {webmap.TILE_URL}
 
 
-# --------------------------------------------------------------------------- layers
+# --------------------------------------------------------------------------- content
 
 
-def test_every_layer_is_in_the_switcher(page_text: str) -> None:
-    match = re.search(r"overlays\s*:\s*\{(.*?)\}", page_text, re.S)
-    assert match
-    names = json.loads("[" + ",".join(re.findall(r'("(?:[^"\\]|\\.)*")\s*:', match.group(1))) + "]")
-    assert names == [
-        "ESP",
-        "Ca saturation",
-        "pH",
-        "ESP kriging SD",
-        "gypsum zones",
-        "lime zones",
-        "Exclusion areas",
-        "Paddocks",
-        "Soil samples",
-    ]
-    assert page_text.count("L.imageOverlay(") == 4
-    assert page_text.count("L.circleMarker(") == 12
+def test_every_surface_is_one_choice_with_its_legend(page_text: str) -> None:
+    data = data_of(page_text)
+    assert [s["id"] for s in data["surfaces"]] == ["esp", "ph", "ca_sat", "esp_sd"]
+    assert [s["group"] for s in data["surfaces"]] == ["soil", "soil", "soil", "error"]
+    esp = data["surfaces"][0]
+    assert [i["label"] for i in esp["legend"]] == [
+        "non-sodic (< 6)", "sodic (6 to 15)", "strongly sodic (≥ 15)"]
+    assert all(s["png"].startswith("data:image/png;base64,") for s in data["surfaces"])
+    assert data["open"] == {"surface": "esp", "product": "gypsum"}
 
 
-def test_legend_has_a_unit_for_every_surface(page_text: str) -> None:
-    legend = page_text[page_text.index('id="geosoil-legend"') :]
-    for title, unit in (
-        ("ESP", "%"),
-        ("Ca saturation", "% of ECEC"),
-        ("pH", "pH units"),
-        ("ESP kriging SD", "%"),
-    ):
-        assert f"{title} ({html.escape(unit)})" in legend
-    for label in webmap.SODICITY_LABELS:
-        assert html.escape(label) in legend
+def test_the_map_opens_on_the_surface_and_product_asked_for() -> None:
+    data = data_of(build(open_surface="ph", open_product="lime"))
+    assert data["open"] == {"surface": "ph", "product": "lime"}
+    with pytest.raises(InputError, match="open_surface 'k'"):
+        build(open_surface="k")
+
+
+def test_one_sample_layer_from_one_array(page_text: str) -> None:
+    samples = data_of(page_text)["samples"]
+    assert [f[0] for f in samples["fields"]] == ["Paddock", "pH (CaCl2)", "EC 1:5 (dS/m)",
+                                                 "ESP", "note"]
+    assert len(samples["rows"]) == 12
+    row = samples["rows"][0]
+    assert row[2] == "S00" and len(row[4]) == 5
+    assert row[5] == ["sodic"] and samples["rows"][11][5] == []  # flags, "non-sodic" is no flag
+    assert page_text.count("L.circleMarker(") == 2  # the page's code, not one per sample
+
+
+def test_exclusions_say_what_they_are(page_text: str) -> None:
+    excl = data_of(page_text)["exclusions"]
+    assert [(e["name"], e["kind"]) for e in excl] == [("dam", "exclusion"),
+                                                      ("Long Creek", "creek buffer")]
 
 
 # 1 lb = 0.45359237 kg and 1 acre = 4046.8564224 m2, exact by definition (NIST SP 811)
@@ -255,27 +228,23 @@ LB_AC_IN_KG_HA = 0.45359237 / 4046.8564224 * 10_000
 @pytest.mark.parametrize(
     ("unit", "shown"),
     [
-        ("kg/ha", ("0 kg/ha", "1,500 kg/ha", "3,000 kg/ha", "2,000 kg/ha")),
-        ("t/ha", ("0 t/ha", "1.5 t/ha", "3.0 t/ha", "2.0 t/ha")),  # 1 t = 1000 kg [derived]
+        ("kg/ha", ("0", "1,500", "3,000", "2,000")),
+        ("t/ha", ("0", "1.5", "3.0", "2.0")),  # 1 t = 1000 kg [derived]
         # exact factor (NIST SP 811): 3000 kg/ha = 2676.5 lb/ac; the rounded 0.892 gives 2,676
-        ("lb/ac", ("0 lb/ac", f"{1500 / LB_AC_IN_KG_HA:,.0f} lb/ac",
-                   f"{3000 / LB_AC_IN_KG_HA:,.0f} lb/ac", f"{2000 / LB_AC_IN_KG_HA:,.0f} lb/ac")),
+        ("lb/ac", ("0", f"{1500 / LB_AC_IN_KG_HA:,.0f}", f"{3000 / LB_AC_IN_KG_HA:,.0f}",
+                   f"{2000 / LB_AC_IN_KG_HA:,.0f}")),
     ],
 )
 def test_zone_labels_popups_and_legend_use_the_rate_unit(unit: str, shown: tuple) -> None:
     if unit == "lb/ac":
-        assert shown[2] == "2,677 lb/ac" and f"{3000 * 0.892:,.0f}" == "2,676"
-    page = build(rate_unit=unit)
-    legend = page[page.index('id="geosoil-legend"') :]
-    for product in ("gypsum", "lime"):
-        assert f"{product} zones (rate, {unit})" in legend
-    labels = re.findall(r'\.setContent\("([^"]*)"\)', page)
-    for text in shown:
-        assert f"</span>{text}</li>" in legend  # one legend item per distinct rate
-        assert text in labels  # the zone's label on the map
-    assert f"rate ({unit})" in page  # popup row
-    if unit != "kg/ha":
-        assert "kg/ha" not in page
+        assert shown[2] == "2,677" and f"{3000 * 0.892:,.0f}" == "2,676"
+    products = data_of(build(rate_unit=unit))["products"]
+    assert [p["product"] for p in products] == ["gypsum", "lime"]
+    assert all(p["unit"] == unit for p in products)
+    gyp, lime = products
+    assert [i["label"] for i in gyp["legend"]] == list(shown[:3])
+    assert [i["label"] for i in lime["legend"]] == [shown[3]]
+    assert [z["r"] for z in gyp["zones"]] == list(shown[:3]) * 2
 
 
 def _grid_zones(n_side: int) -> gpd.GeoDataFrame:
@@ -292,32 +261,22 @@ def _grid_zones(n_side: int) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(rows, crs=CRS)
 
 
-def _zone_labels(page: str) -> list[str]:
-    return re.findall(r'className: "geosoil-zone-label"', page)
-
-
 def test_a_spreader_grid_is_not_buried_under_labels_but_every_zone_tells_its_rate() -> None:
-    few = _grid_zones(3)  # 9 zones: each labelled
-    many = _grid_zones(12)  # 144 zones, more than MAX_ZONE_LABELS: a label each would hide the map
+    few = _grid_zones(3)
+    many = _grid_zones(12)  # more than MAX_ZONE_LABELS: a label each would hide the map
     assert len(few) <= webmap.MAX_ZONE_LABELS < len(many)
-    page_few = build(zones=few, rate_unit="kg/ha")
-    page_many = build(zones=many, rate_unit="kg/ha")
-    assert len(_zone_labels(page_few)) == 9
-    assert _zone_labels(page_many) == []
-    tooltips = re.findall(r'bindTooltip\("(zone [^"]*)"', page_many)
-    assert len(tooltips) == 144  # the rate on hover, zone by zone
-    assert "zone 144: 2,430 kg/ha" in tooltips
-    # the split schedule is in the hover text and the popup
-    assert "zone 1: 1,000 kg/ha (2 seasons of 0.5 t/ha)" in tooltips
-    assert "applied as" in page_many and "2 seasons of 0.5 t/ha" in page_many
+    p_few = data_of(build(zones=few))["products"][0]
+    p_many = data_of(build(zones=many))["products"][0]
+    assert p_few["labelled"] and all("at" in z for z in p_few["zones"])
+    assert not p_many["labelled"] and not any("at" in z for z in p_many["zones"])
+    assert len(p_many["zones"]) == 144 and p_many["zones"][-1]["r"] == "2,430"
+    assert p_many["zones"][0]["s"] == "2 seasons of 0.5 t/ha"
+    assert len(p_many["legend"]) <= 8  # round classes, not one swatch per zone
 
 
-def test_notes_show_under_the_title_escaped() -> None:
-    page = build(notes=["Rates are advisory.", "Cation balance: CONTESTED " + HOSTILE_IMG, " "])
-    title = page[page.index('id="geosoil-title"') : page.index('id="geosoil-legend"')]
-    assert title.count('class="geosoil-note"') == 2  # blank notes are left out
-    assert "Rates are advisory." in title and "CONTESTED" in title
-    assert HOSTILE_IMG not in page and html.escape(HOSTILE_IMG) in title
+def test_notes_travel_as_text() -> None:
+    data = data_of(build(notes=["Rates are advisory.", "CONTESTED " + HOSTILE_IMG, " "]))
+    assert data["notes"] == ["Rates are advisory.", "CONTESTED " + HOSTILE_IMG]
 
 
 def test_unknown_rate_unit_is_refused() -> None:
@@ -340,117 +299,28 @@ def test_missing_columns_and_crs_are_named() -> None:
 
 def test_raster_layer_checks_its_arguments() -> None:
     t, crs = affine.Affine(10, 0, 0, 0, -10, 0), "EPSG:32755"
-    with pytest.raises(InputError, match="centre"):
-        webmap.RasterLayer(
-            title="pH", unit="", array=np.ones((2, 2)), transform=t, crs=crs, scheme="diverging"
-        )
+    cl = classes_for("amount", np.ones(2))
     with pytest.raises(InputError, match="2-D"):
-        webmap.RasterLayer(title="x", unit="", array=np.ones(3), transform=t, crs=crs)
-    with pytest.raises(InputError, match="class labels"):
-        webmap.RasterLayer(
-            title="x",
-            unit="",
-            array=np.ones((2, 2)),
-            transform=t,
-            crs=crs,
-            breaks=(6.0, 15.0),
-            class_labels=("a", "b"),
-        )
-    with pytest.raises(InputError, match="sequential"):
-        webmap.RasterLayer(
-            title="x", unit="", array=np.ones((2, 2)), transform=t, crs=crs, scheme="rainbow"
-        )
-
-
-# --------------------------------------------------------------------------- colour
-
-
-def _lightness(hex_colour: str) -> float:
-    """CIE L* of an sRGB colour."""
-    rgb = [int(hex_colour[i : i + 2], 16) / 255 for i in (1, 3, 5)]
-    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in rgb]
-    y = 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
-    return 116 * y ** (1 / 3) - 16 if y > 216 / 24389 else 24389 / 27 * y
-
-
-@pytest.mark.parametrize("name", ["viridis", "ylorbr", "purples", "greys"])
-def test_sequential_ramps_change_lightness_one_way(name: str) -> None:
-    # Harrower & Brewer 2003: a sequential scheme orders values by lightness.
-    lightness = [_lightness(c) for c in webmap.RAMPS[name]]
-    steps = np.diff(lightness)
-    assert (steps > 0).all() or (steps < 0).all()
-
-
-def test_diverging_ramp_is_lightest_at_its_centre_and_not_red_green() -> None:
-    # Harrower & Brewer 2003: a diverging scheme has a light centre and two dark hues.
-    ramp = webmap.RAMPS["blue-orange"]
-    lightness = [_lightness(c) for c in ramp]
-    mid = len(ramp) // 2
-    assert np.argmax(lightness) == mid
-    assert (np.diff(lightness[: mid + 1]) > 0).all() and (np.diff(lightness[mid:]) < 0).all()
-    low, high = (webmap._hex_to_rgb(c) for c in (ramp[0], ramp[-1]))
-    assert low[2] > low[0]  # blue end
-    assert high[0] > high[2] and high[0] > high[1]  # orange end: red-dominant, not green
-    assert high[1] > high[2]
-
-
-def test_sodicity_classes_take_their_limits_inclusive() -> None:
-    # Northcote & Skene 1972: ESP >= 6 sodic, >= 15 strongly sodic.
-    layer = farm()["rasters"][0]
-    colours = [webmap._hex_to_rgb(c) for c in layer.class_colours()]
-    rgba = webmap.colourise(np.array([[0.0, 5.99, 6.0, 14.99, 15.0, 40.0, np.nan]]), layer)[0]
-    got = [tuple(int(v) for v in px[:3]) for px in rgba[:6]]
-    assert got == [colours[0], colours[0], colours[1], colours[1], colours[2], colours[2]]
-    assert rgba[6, 3] == 0 and (rgba[:6, 3] == 255).all()
-
-
-def test_diverging_surface_is_white_at_the_target() -> None:
-    layer = farm()["rasters"][2]
-    rgba = webmap.colourise(np.array([[6.5, 4.0, 9.0]]), layer)[0]
-    assert tuple(rgba[0, :3]) == webmap._hex_to_rgb(webmap.RAMPS["blue-orange"][3])
-    assert rgba[1, 2] > rgba[1, 0]  # below target: blue
-    assert rgba[2, 0] > rgba[2, 2]  # above target: orange
-
-
-@settings(max_examples=25, deadline=None)
-@given(st.integers(1, 9), st.integers(1, 9), st.randoms(use_true_random=False))
-def test_png_round_trips_through_gdal(h: int, w: int, rnd) -> None:
-    data = np.array([rnd.randrange(256) for _ in range(h * w * 4)], dtype=np.uint8).reshape(h, w, 4)
-    with MemoryFile(webmap.encode_png(data)) as mem, mem.open() as src:
-        assert src.driver == "PNG" and src.count == 4
-        back = src.read()
-    np.testing.assert_array_equal(np.moveaxis(back, 0, -1), data)
-
-
-# --------------------------------------------------------------------------- escaping
-
-
-@settings(max_examples=200, deadline=None)
-@given(st.text())
-def test_escaped_text_is_inert_and_reversible(text: str) -> None:
-    out = webmap.escape_text(text)
-    assert not set(out) & set("<>\"'`$\\{}")
-    assert re.sub(r"&(#\d+|#x[0-9a-f]+|[a-z]+);", "", out).count("&") == 0
-    assert html.unescape(out) == text
+        webmap.RasterLayer(key="x", title="x", unit="", array=np.ones(3), transform=t, crs=crs,
+                           classes=cl)
+    with pytest.raises(InputError, match="group"):
+        webmap.RasterLayer(key="x", title="x", unit="", array=np.ones((2, 2)), transform=t,
+                           crs=crs, classes=cl, group="other")
+    with pytest.raises(InputError, match="unique"):
+        build(rasters=surfaces() + surfaces()[:1])
 
 
 def test_hostile_strings_never_reach_the_page_raw(hostile_text: str) -> None:
-    for raw in (
-        HOSTILE_IMG,
-        HOSTILE_SCRIPT,
-        HOSTILE_TEMPLATE,
-        HOSTILE_FLAG_IMG,
-        HOSTILE_FLAG_TEMPLATE,
-    ):
+    for raw in (HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE, HOSTILE_FLAG_IMG,
+                HOSTILE_FLAG_TEMPLATE):
         assert raw not in hostile_text
-    # The only closing script tags are the page's own: the inlined Leaflet and folium's block.
+    # The only closing script tags are the page's own.
     assert hostile_text.lower().count("</script>") == build().lower().count("</script>")
     assert "${" not in hostile_text
-    # In markup the text is escaped once; inside scripts, that escaped HTML is a JSON string.
-    assert webmap.escape_text("Test farm " + HOSTILE_SCRIPT) in hostile_text
-    assert (
-        webmap._json_for_script(webmap.escape_text("Sample " + HOSTILE_IMG))[1:-1] in hostile_text
-    )
+    assert escape_text("Test farm " + HOSTILE_SCRIPT) in hostile_text  # <title>, autoescaped
+    data = data_of(hostile_text)
+    assert data["title"] == "Test farm " + HOSTILE_SCRIPT  # the JSON holds the text as it is
+    assert data["samples"]["rows"][0][2] == HOSTILE_IMG
 
 
 # --------------------------------------------------------------------------- placement
@@ -490,7 +360,7 @@ def test_cells_land_where_pyproj_puts_them(place, fx, fy, cell, rows, cols, prob
     ox, oy = to_crs.transform(lon0 + fx * (lon1 - lon0), lat0 + fy * (lat1 - lat0))
     transform = affine.Affine(cell, 0, ox, 0, -cell, oy)
     values = np.arange(rows * cols, dtype=float).reshape(rows, cols)  # every cell its own value
-    web = webmap.warp_to_web_mercator(values, transform=transform, crs=crs)
+    web = webmap.warp_to_web_mercator(values, transform=transform, crs=crs, oversample=4)
     to_web = pyproj.Transformer.from_crs(crs, "EPSG:3857", always_xy=True)
 
     def value_at(col: float, row: float) -> float:
@@ -532,6 +402,8 @@ def test_warp_respects_the_pixel_budget() -> None:
     assert np.isfinite(web.array).any()
 
 
+
+
 # --------------------------------------------------------------------------- browser
 
 
@@ -541,42 +413,43 @@ def browser():
         yield chromium
 
 
-@pytest.fixture(scope="module")
-def map_page(browser, tmp_path_factory):
-    folder = tmp_path_factory.mktemp("map")
-    path = folder / "map.html"
-    path.write_text(build(hostile=True), encoding="utf-8")
-    page = browser.new_page()
+def _open(browser, path, *, width: int = 1280, height: int = 900):
+    page = browser.new_page(width=width, height=height)
     page.goto(path)
     browser.drain(0.2)
+    return page
+
+
+@pytest.fixture(scope="module")
+def map_path(tmp_path_factory):
+    path = tmp_path_factory.mktemp("map") / "map.html"
+    path.write_text(build(hostile=True), encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="module")
+def map_page(browser, map_path):
+    page = _open(browser, map_path)
     yield page
     page.close()
 
 
-_LAYER_SWITCH_JS = """
-(() => {
-  const api = window.geosoilMap;
-  const out = [];
-  const labels = Array.from(document.querySelectorAll('.leaflet-control-layers-overlays label'));
-  for (const label of labels) {
-    const input = label.querySelector('input');
-    const name = label.textContent.trim();
-    const entry = api.layers.find(e => e.title === name);
-    if (!entry) { out.push({name, found: false}); continue; }
-    const legend = document.getElementById(entry.legend);
-    const before = {on: api.map.hasLayer(entry.layer), checked: input.checked,
-                    legend: legend.style.display !== 'none'};
-    input.click();
-    const flipped = {on: api.map.hasLayer(entry.layer), checked: input.checked,
-                     legend: legend.style.display !== 'none'};
-    input.click();
-    const back = {on: api.map.hasLayer(entry.layer), checked: input.checked,
-                  legend: legend.style.display !== 'none'};
-    out.push({name, found: true, before, flipped, back});
-  }
-  return out;
-})()
-"""
+def _pixels(page, name: str) -> np.ndarray:
+    shot = page.screenshot(artifact_path(name))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        png = rasterio.open(io.BytesIO(shot.read_bytes()))
+    with png:
+        return png.read()[:3]  # (3, rows, columns)
+
+
+def _rect_overlap(a: dict, b: dict) -> bool:
+    return (a["left"] < b["right"] and b["left"] < a["right"]
+            and a["top"] < b["bottom"] and b["top"] < a["bottom"])
+
+
+_RECT = "(e => { const r = e.getBoundingClientRect(); return {left: r.left, top: r.top, " \
+        "right: r.right, bottom: r.bottom, width: r.width, height: r.height}; })"
 
 
 @pytest.mark.browser
@@ -585,64 +458,109 @@ def test_browser_map_renders_offline_without_errors(map_page) -> None:
     assert map_page.dialogs == []
     remote = [u for u in map_page.requests if not u.startswith(("file:", "data:"))]
     assert remote == []
-    shot = map_page.screenshot(artifact_path("webmap.png"))
-    with rasterio.open(io.BytesIO(shot.read_bytes())) as png:
-        pixels = png.read()
-    colours = {tuple(p) for p in pixels.reshape(pixels.shape[0], -1).T[::37]}
+    pixels = _pixels(map_page, "webmap-desktop.png")
+    colours = {tuple(p) for p in pixels.reshape(3, -1).T[::37]}
     assert len(colours) > 20  # a drawn map, not a blank page
-
-
-@pytest.mark.browser
-def test_browser_every_layer_present_and_switchable(map_page) -> None:
-    results = map_page.evaluate(_LAYER_SWITCH_JS)
-    expected = [
-        "ESP",
-        "Ca saturation",
-        "pH " + HOSTILE_TEMPLATE,
-        "ESP kriging SD",
-        "gypsum " + HOSTILE_FLAG_IMG + " zones",
-        "lime zones",
-        "Exclusion areas",
-        "Paddocks",
-        "Soil samples",
-    ]
-    assert [r["name"] for r in results] == expected
-    for r in results:
-        assert r["found"], r
-        assert r["before"]["on"] == r["before"]["checked"] == r["before"]["legend"], r
-        assert r["flipped"] == {k: not v for k, v in r["before"].items()}, r
-        assert r["back"] == r["before"], r
-    on = {r["name"] for r in results if r["before"]["on"]}
-    assert on == {
-        "ESP",
-        "gypsum " + HOSTILE_FLAG_IMG + " zones",
-        "Exclusion areas",
-        "Paddocks",
-        "Soil samples",
-    }
-    assert map_page.console_errors == []
-
-
-@pytest.mark.browser
-def test_browser_legend_is_visible_with_units(map_page) -> None:
     state = map_page.evaluate(
+        "({images: document.querySelectorAll('img.leaflet-image-layer').length,"
+        " legends: Array.from(document.querySelectorAll('#gs-legend .gs-legend-title'))"
+        ".map(e => e.textContent)})")
+    assert state == {"images": 1,
+                     "legends": ["ESP (% of ECEC)", f"gypsum {HOSTILE_FLAG_IMG} zones (kg/ha)"]}
+
+
+def _probe_cells(layer: webmap.RasterLayer) -> list[tuple[int, int, int]]:
+    """(row, col, class) of one cell per class whose 3 x 3 neighbours share its class, so that
+    a pixel at its centre can only show that class, whatever the resampling."""
+    idx = layer.classes.index(layer.array)
+    found: dict[int, tuple[int, int, int]] = {}
+    for r in range(1, idx.shape[0] - 1):
+        for c in range(1, idx.shape[1] - 1):
+            k = int(idx[r, c])
+            block = idx[r - 1 : r + 2, c - 1 : c + 2]
+            if k >= 0 and k not in found and (block == k).all():
+                found[k] = (r, c, k)
+    return list(found.values())
+
+
+@pytest.mark.browser
+def test_browser_each_surface_alone_shows_its_legend_colours_under_known_cells(
+        browser, map_path) -> None:
+    """Switch each surface on alone; the screen pixel at the centre of known cells (placed by
+    pyproj) has the colour of the legend swatch of that cell's class."""
+    page = _open(browser, map_path)
+    try:
+        for layer in surfaces(hostile=True):
+            probes = _probe_cells(layer)
+            assert len(probes) >= 2, layer.key
+            to_ll = pyproj.Transformer.from_crs(layer.crs, "EPSG:4326", always_xy=True)
+            lonlat = [to_ll.transform(*(layer.transform @ (c + 0.5, r + 0.5)))
+                      for r, c, _ in probes]
+            got = page.evaluate(
+                f"""(async (id, pts) => {{
+                  const api = window.geosoilMap;
+                  api.show({{surface: id, product: null, samples: false, paddocks: false,
+                            exclusions: false}});
+                  await api.surfaces[id].getElement().decode();
+                  await new Promise(r => requestAnimationFrame(() => requestAnimationFrame(r)));
+                  const entries = document.querySelectorAll('#gs-legend .gs-legend-entry');
+                  const items = Array.from(entries[0].querySelectorAll('li')).map(li => ({{
+                    label: li.textContent,
+                    colour: getComputedStyle(li.querySelector('.gs-swatch')).backgroundColor}}));
+                  return {{entries: entries.length, surface: entries[0].dataset.surface,
+                          images: document.querySelectorAll('img.leaflet-image-layer').length,
+                          items: items.reverse(),
+                          points: pts.map(p => api.map.latLngToContainerPoint([p[1], p[0]]))}};
+                }})({json.dumps(layer.key)}, {json.dumps(lonlat)})""")
+            assert got["entries"] == 1 and got["surface"] == layer.key
+            assert got["images"] == 1
+            assert [i["label"] for i in got["items"]] == list(layer.classes.labels)
+            pixels = _pixels(page, f"webmap-surface-{layer.key}.png")
+            for (r, c, k), pt in zip(probes, got["points"], strict=True):
+                x, y = int(round(pt["x"])), int(round(pt["y"]))
+                screen = tuple(int(v) for v in pixels[:, y, x])
+                swatch = tuple(int(v) for v in re.findall(r"\d+", got["items"][k]["colour"])[:3])
+                assert swatch == hex_to_rgb(layer.classes.colours[k])
+                assert max(abs(a - b) for a, b in zip(screen, swatch, strict=True)) <= 3, (
+                    layer.key, r, c, layer.array[r, c], screen, swatch)
+        assert page.console_errors == []
+    finally:
+        page.close()
+
+
+@pytest.mark.browser
+def test_browser_panel_choices_are_exclusive(map_page) -> None:
+    got = map_page.evaluate(
         """(() => {
-          const el = document.getElementById('geosoil-legend');
-          const r = el.getBoundingClientRect();
-          const style = getComputedStyle(el);
-          const entries = Array.from(el.querySelectorAll('.gs-legend-entry'))
-            .filter(e => e.style.display !== 'none').map(e => e.innerText);
-          return {x: r.x, y: r.y, w: r.width, h: r.height, vw: innerWidth, vh: innerHeight,
-                  visibility: style.visibility, display: style.display, entries};
-        })()"""
-    )
-    assert state["visibility"] == "visible" and state["display"] != "none"
-    assert state["w"] > 100 and state["h"] > 100
-    assert state["x"] >= 0 and state["y"] >= 0
-    assert state["x"] + state["w"] <= state["vw"] and state["y"] + state["h"] <= state["vh"]
-    text = "\n".join(state["entries"])
-    assert "ESP (%)" in text and "strongly sodic" in text
-    assert "kg/ha" in text  # zone rates
+          const out = [];
+          const radios = Array.from(document.querySelectorAll('input[name=gs-surface]'));
+          for (const r of radios) {
+            r.click();
+            out.push({value: r.value,
+                      images: document.querySelectorAll('img.leaflet-image-layer').length,
+                      legends: Array.from(document.querySelectorAll(
+                        '#gs-legend .gs-legend-entry[data-surface]')).map(e => e.dataset.surface)});
+          }
+          const zones = [];
+          for (const r of document.querySelectorAll('input[name=gs-product]')) {
+            r.click();
+            zones.push({value: r.value,
+                        shown: Object.keys(window.geosoilMap.prescriptions).filter(
+                          k => window.geosoilMap.map.hasLayer(
+                            window.geosoilMap.prescriptions[k].group))});
+          }
+          return {out, zones};
+        })()""")
+    assert [o["value"] for o in got["out"]] == ["esp", "ph", "ca_sat", "esp_sd", ""]
+    for o in got["out"]:
+        assert o["images"] == (1 if o["value"] else 0)
+        assert o["legends"] == ([o["value"]] if o["value"] else [])
+    assert got["zones"] == [
+        {"value": "gypsum " + HOSTILE_FLAG_IMG, "shown": ["gypsum " + HOSTILE_FLAG_IMG]},
+        {"value": "lime", "shown": ["lime"]},
+        {"value": "", "shown": []},
+    ]
+    map_page.evaluate("window.geosoilMap.show({surface: 'esp', product: 'lime', fill: false})")
 
 
 @pytest.mark.browser
@@ -650,126 +568,174 @@ def test_browser_hostile_text_shows_as_text_and_never_runs(map_page) -> None:
     popups = map_page.evaluate(
         """(() => {
           const texts = [];
-          window.geosoilMap.map.eachLayer(layer => {
-            if (layer instanceof L.CircleMarker && layer.getPopup()) {
-              layer.openPopup();
-              const el = layer.getPopup().getElement().querySelector('.leaflet-popup-content');
-              texts.push({text: el.innerText, imgs: el.querySelectorAll('img').length,
-                          scripts: el.querySelectorAll('script').length});
-              layer.closePopup();
-            }
-          });
+          for (const m of window.geosoilMap.markers) {
+            m.openPopup();
+            const el = m.getPopup().getElement().querySelector('.leaflet-popup-content');
+            texts.push({text: el.innerText, imgs: el.querySelectorAll('img').length,
+                        scripts: el.querySelectorAll('script').length});
+            m.closePopup();
+          }
           return texts;
         })()"""
     )
     assert len(popups) == 12
     assert all(p["imgs"] == 0 and p["scripts"] == 0 for p in popups)
     texts = [p["text"] for p in popups]
-    for raw in (
-        HOSTILE_IMG,
-        HOSTILE_SCRIPT,
-        HOSTILE_TEMPLATE,
-        HOSTILE_FLAG_IMG,
-        HOSTILE_FLAG_TEMPLATE,
-    ):
+    for raw in (HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE, HOSTILE_FLAG_IMG,
+                HOSTILE_FLAG_TEMPLATE):
         assert any("Sample " + raw in t for t in texts), raw
     assert any(HOSTILE_QUOTES in t for t in texts)
     assert any("note " + HOSTILE_SCRIPT in t for t in texts)  # a hostile column name
-    template_popup = next(t for t in texts if "Sample " + HOSTILE_TEMPLATE in t)
-    assert "42" not in template_popup
+    assert "42" not in next(t for t in texts if "Sample " + HOSTILE_TEMPLATE in t)
+    assert any("EC 1:5 (dS/m)" in t and "Flags" in t and "sodic" in t for t in texts)
     labels = map_page.evaluate(
-        "Array.from(document.querySelectorAll('.geosoil-paddock-label')).map(e => e.innerText)"
+        "Array.from(document.querySelectorAll('.gs-paddock-label')).map(e => e.innerText)"
     )
     assert sorted(labels) == sorted(["North " + HOSTILE_IMG, "South " + HOSTILE_SCRIPT])
     checks = map_page.evaluate(
         """({pwned: typeof window.__pwned, title: document.title,
-             heading: document.getElementById('geosoil-title').innerText,
+             heading: document.querySelector('#geosoil-title .gs-title-text').innerText,
              strayImgs: document.querySelectorAll('img:not(.leaflet-image-layer)').length})"""
     )
-    assert checks == {
-        "pwned": "undefined",
-        "title": "Test farm " + HOSTILE_SCRIPT,
-        "heading": "Test farm " + HOSTILE_SCRIPT,
-        "strayImgs": 0,
-    }
+    assert checks == {"pwned": "undefined", "title": "Test farm " + HOSTILE_SCRIPT,
+                      "heading": "Test farm " + HOSTILE_SCRIPT, "strayImgs": 0}
     assert map_page.dialogs == []
     assert map_page.console_errors == []
 
 
+_POPUP_CLEAR = f"""(async () => {{
+  const api = window.geosoilMap;
+  const rect = {_RECT};
+  // the sample nearest the top-right corner: where the layer panel sits
+  const size = api.map.getSize();
+  let best = null, bestD = Infinity;
+  for (const m of api.markers) {{
+    const p = api.map.latLngToContainerPoint(m.getLatLng());
+    const d = Math.hypot(size.x - p.x, p.y);
+    if (d < bestD) {{ bestD = d; best = m; }}
+  }}
+  best.openPopup();
+  await new Promise(r => setTimeout(r, 400));  // the map pans the popup clear
+  const popup = rect(best.getPopup().getElement());
+  const out = {{popup: popup, view: {{left: 0, top: 0, right: innerWidth, bottom: innerHeight}},
+               boxes: {{}}}};
+  for (const id of ['gs-panel', 'gs-legend', 'geosoil-title']) {{
+    out.boxes[id] = rect(document.getElementById(id));
+  }}
+  return out;
+}})()"""
+
+
+def _check_popup_clear(got: dict) -> None:
+    popup, view = got["popup"], got["view"]
+    assert popup["width"] > 100 and popup["height"] > 60
+    assert popup["left"] >= view["left"] and popup["right"] <= view["right"]
+    assert popup["top"] >= view["top"] and popup["bottom"] <= view["bottom"]
+    for name, rect in got["boxes"].items():
+        assert not _rect_overlap(popup, rect), (name, popup, rect)
+
+
 @pytest.mark.browser
-def test_browser_overlay_pixels_sit_where_pyproj_puts_the_cells(map_page) -> None:
-    """Through Leaflet and the PNG: a point 0.3 cell inside each corner of the UTM grid,
-    placed by pyproj, shows that corner cell's colour; 0.3 cell outside is transparent."""
-    layer = farm()["rasters"][1]  # "Ca saturation": every cell a different colour
-    rows, cols = layer.array.shape
-    to_ll = pyproj.Transformer.from_crs(layer.crs, "EPSG:4326", always_xy=True)
-    probes = []
-    for col, row, dc, dr in (
-        (0, 0, 1, 1),
-        (cols, 0, -1, 1),
-        (0, rows, 1, -1),
-        (cols, rows, -1, -1),
-    ):
-        for sign in (1, -1):
-            lon, lat = to_ll.transform(
-                *(layer.transform @ (col + sign * 0.3 * dc, row + sign * 0.3 * dr))
-            )
-            probes.append({"lat": lat, "lon": lon})
-    script = """(async probes => {
-      const api = window.geosoilMap;
-      const entry = api.layers.find(e => e.title === 'Ca saturation');
-      api.map.addLayer(entry.layer);
-      let overlay = null;
-      entry.layer.eachLayer(l => { overlay = l; });
-      const img = overlay.getElement();
-      await img.decode();
-      const canvas = document.createElement('canvas');
-      canvas.width = img.naturalWidth; canvas.height = img.naturalHeight;
-      const ctx = canvas.getContext('2d');
-      ctx.drawImage(img, 0, 0);
-      const box = img.getBoundingClientRect();
-      const mapBox = api.map.getContainer().getBoundingClientRect();
-      const out = probes.map(p => {
-        const pt = api.map.latLngToContainerPoint([p.lat, p.lon]);
-        const fx = (pt.x + mapBox.left - box.left) / box.width;
-        const fy = (pt.y + mapBox.top - box.top) / box.height;
-        const px = Math.floor(fx * img.naturalWidth), py = Math.floor(fy * img.naturalHeight);
-        const inside = px >= 0 && py >= 0 && px < img.naturalWidth && py < img.naturalHeight;
-        return inside ? Array.from(ctx.getImageData(px, py, 1, 1).data) : [0, 0, 0, 0];
-      });
-      api.map.removeLayer(entry.layer);
-      return out;
-    })(__PROBES__)""".replace("__PROBES__", json.dumps(probes))
-    got = map_page.evaluate(script)
-    corner_cells = [
-        layer.array[0, 0],
-        layer.array[0, cols - 1],
-        layer.array[rows - 1, 0],
-        layer.array[rows - 1, cols - 1],
-    ]
-    expected = webmap.colourise(np.array([corner_cells]), layer)[0]
-    for k, want in enumerate(expected):
-        inside, outside = got[2 * k], got[2 * k + 1]
-        assert inside == [int(v) for v in want], (k, inside, want)
-        assert outside[3] == 0, (k, outside)
-    assert map_page.console_errors == []
+def test_browser_popups_are_not_hidden_by_the_panel(browser, map_path) -> None:
+    page = _open(browser, map_path)
+    try:
+        _check_popup_clear(page.evaluate(_POPUP_CLEAR))
+        page.screenshot(artifact_path("webmap-desktop-popup.png"))
+    finally:
+        page.close()
+
+
+@pytest.mark.browser
+def test_browser_phone_size_panel_and_legend_fold_away(browser) -> None:
+    page = _open(browser, _phone_map(), width=390, height=844)
+    try:
+        first = page.evaluate(
+            f"""({{panel: document.getElementById('gs-panel').className,
+                 legend: document.getElementById('gs-legend').className,
+                 panelRect: {_RECT}(document.getElementById('gs-panel')),
+                 legendRect: {_RECT}(document.getElementById('gs-legend'))}})""")
+        assert "gs-collapsed" in first["panel"] and "gs-collapsed" in first["legend"]
+        for box in (first["panelRect"], first["legendRect"]):
+            assert box["width"] * box["height"] < 0.05 * 390 * 844  # small buttons
+        page.screenshot(artifact_path("webmap-phone.png"))
+        opened = page.evaluate(
+            f"""(() => {{
+              document.querySelector('#gs-panel .gs-toggle').click();
+              document.querySelector('#gs-legend .gs-toggle').click();
+              return {{panel: {_RECT}(document.getElementById('gs-panel')),
+                      legend: {_RECT}(document.getElementById('gs-legend')),
+                      radios: document.querySelectorAll('#gs-panel input').length}};
+            }})()""")
+        for box in (opened["panel"], opened["legend"]):
+            assert box["left"] >= 0 and box["right"] <= 390 and box["bottom"] <= 844
+        assert opened["radios"] >= 8
+        page.screenshot(artifact_path("webmap-phone-open.png"))
+        # Tapping a choice works; opening a sample's popup folds the panel and legend away.
+        page.evaluate("document.querySelector('input[name=gs-surface][value=ph]').click()")
+        assert page.evaluate("window.geosoilMap.state.surface") == "ph"
+        got = page.evaluate(_POPUP_CLEAR)
+        _check_popup_clear(got)
+        page.screenshot(artifact_path("webmap-phone-popup.png"))
+        assert page.console_errors == [] and page.dialogs == []
+    finally:
+        page.close()
+
+
+def _phone_map():
+    import tempfile
+    from pathlib import Path
+
+    folder = Path(tempfile.mkdtemp(prefix="geosoil-phone-"))
+    path = folder / "map.html"
+    path.write_text(build(hostile=True), encoding="utf-8")
+    return path
+
+
+@pytest.mark.browser
+def test_browser_where_am_i_uses_the_device_location(browser, map_path) -> None:
+    page = _open(browser, map_path)
+    try:
+        to_ll = pyproj.Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+        lon, lat = to_ll.transform(X0 + 300, Y0 + 300)
+        page.browser.call("Browser.grantPermissions", {"permissions": ["geolocation"]})
+        page.call("Emulation.setGeolocationOverride",
+                  {"latitude": lat, "longitude": lon, "accuracy": 8})
+        got = page.evaluate(
+            """(async () => {
+              document.querySelector('.gs-locate a').click();
+              for (let i = 0; i < 50; i++) {
+                let n = 0, at = null;
+                window.geosoilMap.map.eachLayer(l => {
+                  if (l instanceof L.CircleMarker && l.options.fillColor === '#0b63ce') {
+                    n++; at = l.getLatLng();
+                  }
+                });
+                if (n) { return {n: n, lat: at.lat, lon: at.lng}; }
+                await new Promise(r => setTimeout(r, 100));
+              }
+              return {n: 0, status: document.querySelector('.gs-status').textContent};
+            })()""")
+        assert got["n"] == 1, got
+        assert abs(got["lat"] - lat) < 1e-6 and abs(got["lon"] - lon) < 1e-6
+        remote = [u for u in page.requests if not u.startswith(("file:", "data:"))]
+        assert remote == [] and page.console_errors == []
+    finally:
+        page.close()
 
 
 @pytest.mark.browser
 def test_browser_background_tiles_fail_quietly_offline(browser, tmp_path) -> None:
     path = tmp_path / "tiles.html"
     path.write_text(build(background_tiles=True), encoding="utf-8")
-    tab = browser.new_page()
+    tab = _open(browser, path)
     try:
-        tab.goto(path)
+        tab.evaluate("window.geosoilMap.show({tiles: true})")
         browser.drain(0.5)
         tiles = [u for u in tab.requests if u.startswith("https://tile.openstreetmap.org/")]
         assert tiles  # it tried, and the cut-off network refused
         others = [u for u in tab.requests if not u.startswith(("file:", "data:", "https://tile."))]
         assert others == []
-        # Only the failed tile loads are reported: no script error, the map still works.
         assert all("tile.openstreetmap.org" in e for e in tab.console_errors), tab.console_errors
-        assert tab.evaluate("window.geosoilMap.layers.length") == 9
         assert tab.evaluate("document.querySelectorAll('img.leaflet-image-layer').length") == 1
     finally:
         tab.close()

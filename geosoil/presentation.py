@@ -1,0 +1,616 @@
+"""What the map and the report share: colour classes, escaping, number formats, labels.
+
+One job: turn numbers into what a person sees. The web map (:mod:`geosoil.webmap`)
+and the printable report (:mod:`geosoil.report`) both draw soil surfaces and rate
+zones; they take their colours, class limits, legend labels, text escaping and
+label positions from here, so a class reads the same in both.
+
+Colour (Harrower & Brewer 2003; Brewer 2002, ColorBrewer 2.0; van der Walt &
+Smith 2015, viridis). Every surface is drawn in *classes* with round limits, so
+that a colour on the map is one row of its legend:
+
+* pH: diverging around the acidity threshold in force (red below, blue above,
+  as litmus reads), classes 0.5 pH unit wide (the precision of a field decision);
+* ESP: three classes at the published sodicity limits 6 % and 15 %
+  (Northcote & Skene 1972; Isbell 2016), on a blue-purple scale;
+* amounts and the other saturations: sequential, viridis;
+* acid and Al saturation: sequential red-purple (acid reads red, as on the pH map);
+* kriging standard deviation: sequential greys;
+* rates: sequential yellow-orange-brown, a family no soil surface uses.
+
+All these schemes are listed by their authors as readable with the common forms
+of colour blindness; the tests check that neighbouring classes differ in CIELAB
+lightness, which every reader sees.
+
+Escaping: :func:`escape_text` (HTML, attributes, script-embedded text) and
+:func:`json_for_script` (JSON inside a ``<script>`` element). Templates use
+jinja2 with autoescaping, so these are needed only where text is assembled in
+Python (SVG paths, JSON data blocks).
+
+Rasters become PNG images with GDAL's PNG driver through rasterio (in memory).
+
+This module is pure: nothing here reads or writes files.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+__all__ = [
+    "PALETTES",
+    "SODICITY_BREAKS",
+    "SODICITY_LABELS",
+    "Classes",
+    "class_colour_rgb",
+    "classes_for",
+    "colourise",
+    "escape_text",
+    "fmt_number",
+    "fmt_value",
+    "hex_to_rgb",
+    "json_for_script",
+    "label_point",
+    "lightness",
+    "nice_breaks",
+    "nice_step",
+    "palette_colour",
+    "png_bytes",
+    "png_data_uri",
+    "rate_classes",
+    "rate_colour",
+]
+
+#: ESP class limits (percent): below 6 non-sodic, 6 to 15 sodic, 15 and above strongly
+#: sodic (Northcote & Skene 1972; Isbell 2016, The Australian Soil Classification).
+SODICITY_BREAKS: tuple[float, ...] = (6.0, 15.0)
+#: Labels of the three ESP classes of :data:`SODICITY_BREAKS`.
+SODICITY_LABELS: tuple[str, ...] = (
+    "non-sodic (< 6)", "sodic (6 to 15)", "strongly sodic (≥ 15)",
+)
+
+#: Colour scales, low to high, as hex anchors spaced evenly on [0, 1]. The values
+#: are the published ones: ColorBrewer 2.0 (Brewer 2002; 9- and 11-class schemes) and
+#: viridis (van der Walt & Smith 2015, as sampled at 20 points by branca).
+PALETTES: dict[str, tuple[str, ...]] = {
+    # sequential, perceptually uniform (amounts, other saturations)
+    "viridis": ("#440154", "#481567", "#482677", "#453781", "#404788", "#39568c", "#33638d",
+                "#2d708e", "#287d8e", "#238a8d", "#1f968b", "#20a387", "#29af7f", "#3cbb75",
+                "#55c667", "#73d055", "#95d840", "#b8de29", "#dce319", "#fde725"),
+    # ColorBrewer RdBu (11), reversed so that low (acid) is red and high is blue
+    "red-blue": ("#67001f", "#b2182b", "#d6604d", "#f4a582", "#fddbc7", "#f7f7f7",
+                 "#d1e5f0", "#92c5de", "#4393c3", "#2166ac", "#053061"),
+    # ColorBrewer BuPu (9): sodicity classes
+    "blue-purple": ("#f7fcfd", "#e0ecf4", "#bfd3e6", "#9ebcda", "#8c96c6", "#8c6bb1",
+                    "#88419d", "#810f7c", "#4d004b"),
+    # ColorBrewer RdPu (9): acid and Al saturation
+    "red-purple": ("#fff7f3", "#fde0dd", "#fcc5c0", "#fa9fb5", "#f768a1", "#dd3497",
+                   "#ae017e", "#7a0177", "#49006a"),
+    # ColorBrewer Greys (9): kriging standard deviation
+    "greys": ("#ffffff", "#f0f0f0", "#d9d9d9", "#bdbdbd", "#969696", "#737373",
+              "#525252", "#252525", "#000000"),
+    # ColorBrewer YlGnBu (9): electrical conductivity
+    "yellow-green-blue": ("#ffffd9", "#edf8b1", "#c7e9b4", "#7fcdbb", "#41b6c4", "#1d91c0",
+                          "#225ea8", "#253494", "#081d58"),
+    # ColorBrewer YlOrBr (9): product rates, on the map and in the report
+    "rates": ("#ffffe5", "#fff7bc", "#fee391", "#fec44f", "#fe9929", "#ec7014", "#cc4c02",
+              "#993404", "#662506"),
+}
+
+#: Which palette (and which part of it) each kind of surface uses.
+_SEQUENTIAL_PART = {
+    "viridis": (0.0, 1.0),
+    "red-purple": (0.15, 0.95),
+    "greys": (0.1, 0.85),
+    "yellow-green-blue": (0.1, 0.95),
+    "rates": (0.1, 0.92),
+    "blue-purple": (0.25, 1.0),
+}
+#: ESP class colours (blue-purple at 0.25, 0.65 and 1.0 along the scale).
+_ESP_POSITIONS = (0.25, 0.65, 1.0)
+
+
+# --------------------------------------------------------------------------- text
+
+
+def escape_text(value: object) -> str:
+    """Text made safe to place in HTML, in an attribute or inside a JavaScript string.
+
+    ``&``, ``<``, ``>``, both quotes, the backtick, ``$``, ``\\``, ``{`` and ``}``
+    become character references, so the result can be inserted as HTML content,
+    as a quoted attribute value, or in a template's source without being run.
+
+    Parameters
+    ----------
+    value
+        Anything; it is turned into text with :class:`str` first.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> escape_text("<img src=x onerror=alert(1)>")
+    '&lt;img src=x onerror=alert(1)&gt;'
+    >>> escape_text("${7*6}")
+    '&#36;&#123;7*6&#125;'
+    """
+    text = html.escape(str(value), quote=True)
+    for char, ref in (("`", "&#96;"), ("$", "&#36;"), ("\\", "&#92;"), ("{", "&#123;"),
+                      ("}", "&#125;")):
+        text = text.replace(char, ref)
+    return text
+
+
+def json_for_script(value: Any) -> str:
+    """JSON text that is safe inside an HTML ``<script>`` element.
+
+    Parameters
+    ----------
+    value
+        Anything :func:`json.dumps` takes (no NaN).
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> json_for_script({"id": "</script>"})
+    '{"id": "\\\\u003c/script\\\\u003e"}'
+    """
+    text = json.dumps(value, allow_nan=False)
+    for char, code in (("<", "\\u003c"), (">", "\\u003e"), ("&", "\\u0026"), ("'", "\\u0027"),
+                       ("`", "\\u0060"), ("$", "\\u0024"), ("\u2028", "\\u2028"),
+                       ("\u2029", "\\u2029")):
+        text = text.replace(char, code)
+    return text
+
+
+def fmt_number(value: float, digits: int | None = None) -> str:
+    """A number as people read it: ``digits`` decimals, or about four significant figures.
+
+    Examples
+    --------
+    >>> fmt_number(5.4321, 1), fmt_number(1234.5), fmt_number(0.01234), fmt_number(float("nan"))
+    ('5.4', '1,234', '0.01234', '–')
+    """
+    if value is None or not math.isfinite(value):
+        return "–"
+    if digits is not None:
+        return f"{value:,.{digits}f}"
+    if value != 0 and (abs(value) >= 1e6 or abs(value) < 1e-3):
+        return f"{value:.3g}"
+    if abs(value) >= 100:
+        return f"{value:,.0f}"
+    return f"{value:.4g}"
+
+
+def fmt_value(value: Any, digits: int | None = None) -> str:
+    """A table cell as plain text (not yet escaped): numbers, yes/no, text, ``–`` for none.
+
+    Examples
+    --------
+    >>> fmt_value(True), fmt_value(None), fmt_value(3), fmt_value(2.345, 1), fmt_value("a")
+    ('yes', '–', '3', '2.3', 'a')
+    """
+    if value is None:
+        return "–"
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}" if digits is not None else str(int(value))
+    if isinstance(value, (float, np.floating)):
+        return fmt_number(float(value), digits)
+    try:
+        import pandas as pd
+
+        if pd.isna(value):
+            return "–"
+    except (TypeError, ValueError):
+        pass
+    return str(value)
+
+
+# --------------------------------------------------------------------------- colour
+
+
+def hex_to_rgb(code: str) -> tuple[int, int, int]:
+    """``"#rrggbb"`` -> ``(r, g, b)``.
+
+    Examples
+    --------
+    >>> hex_to_rgb("#2166ac")
+    (33, 102, 172)
+    """
+    code = code.lstrip("#")
+    return int(code[0:2], 16), int(code[2:4], 16), int(code[4:6], 16)
+
+
+def lightness(colour: str) -> float:
+    """CIELAB L* (0 black to 100 white) of an sRGB ``#rrggbb`` colour (CIE 1976; IEC 61966-2-1).
+
+    Examples
+    --------
+    >>> round(lightness("#ffffff"), 6), round(lightness("#000000"), 6)
+    (100.0, 0.0)
+    """
+    rgb = [c / 255 for c in hex_to_rgb(colour)]
+    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in rgb]
+    y = 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+    return 116 * y ** (1 / 3) - 16 if y > 216 / 24389 else 24389 / 27 * y
+
+
+def palette_colour(name: str, t: float) -> str:
+    """The hex colour at position ``t`` (0 to 1, clipped) along palette ``name``
+    (linear in sRGB between its anchors).
+
+    Examples
+    --------
+    >>> palette_colour("red-blue", 0.5), palette_colour("rates", 0.0)
+    ('#f7f7f7', '#ffffe5')
+    """
+    anchors = np.array([hex_to_rgb(c) for c in PALETTES[name]], dtype=float)
+    pos = np.linspace(0.0, 1.0, len(anchors))
+    t = min(max(float(t), 0.0), 1.0)
+    r, g, b = (int(round(float(np.interp(t, pos, anchors[:, k])))) for k in range(3))
+    return f"#{r:02x}{g:02x}{b:02x}"
+
+
+def _sequential(name: str, n: int) -> tuple[str, ...]:
+    lo, hi = _SEQUENTIAL_PART[name]
+    if n == 1:
+        return (palette_colour(name, (lo + hi) / 2),)
+    return tuple(palette_colour(name, t) for t in np.linspace(lo, hi, n))
+
+
+@dataclass(frozen=True)
+class Classes:
+    """How a surface is coloured: class limits, a colour and a legend label per class.
+
+    A value ``v`` falls in class ``i`` where ``breaks[i - 1] <= v < breaks[i]``:
+    a limit belongs to the class above it (ESP 6.0 is sodic).
+
+    Parameters
+    ----------
+    breaks
+        Increasing class limits (``n - 1`` of them for ``n`` classes).
+    colours
+        ``#rrggbb`` of each class, low to high.
+    labels
+        Legend text of each class.
+    note
+        One line under the legend (e.g. what white means).
+
+    Examples
+    --------
+    >>> c = classes_for("esp", np.array([2.0, 20.0]))
+    >>> c.labels[1], c.index(np.array([5.99, 6.0, 15.0])).tolist()
+    ('sodic (6 to 15)', [0, 1, 2])
+    """
+
+    breaks: tuple[float, ...]
+    colours: tuple[str, ...]
+    labels: tuple[str, ...]
+    note: str = ""
+
+    def __post_init__(self) -> None:
+        if len(self.colours) != len(self.breaks) + 1 or len(self.labels) != len(self.colours):
+            raise ValueError(
+                f"{len(self.breaks)} class limits need {len(self.breaks) + 1} colours and "
+                f"labels (got {len(self.colours)} and {len(self.labels)})"
+            )
+        if any(b >= c for b, c in zip(self.breaks, self.breaks[1:], strict=False)):
+            raise ValueError(f"class limits must increase (got {self.breaks})")
+
+    def index(self, values: np.ndarray) -> np.ndarray:
+        """Class of each value (NaN gives -1)."""
+        v = np.asarray(values, dtype=float)
+        out = np.searchsorted(np.asarray(self.breaks, dtype=float), v, side="right")
+        return np.where(np.isfinite(v), out, -1)
+
+    def legend(self) -> list[dict[str, str]]:
+        """``[{"colour", "label"}]`` low to high, for a legend."""
+        return [{"colour": c, "label": lab} for c, lab in zip(self.colours, self.labels,
+                                                                  strict=True)]
+
+
+def nice_step(span: float, target: int = 5) -> float:
+    """A round class width (1, 2, 2.5 or 5 x 10^k) giving about ``target`` classes over ``span``.
+
+    Examples
+    --------
+    >>> nice_step(10.0), nice_step(0.37), nice_step(0.0)
+    (2.0, 0.1, 1.0)
+    """
+    if not (span > 0 and math.isfinite(span)):
+        return 1.0
+    raw = span / target
+    base = 10 ** math.floor(math.log10(raw))
+    for m in (1, 2, 2.5, 5, 10):
+        if raw <= m * base * (1 + 1e-9):
+            return float(m * base)
+    return float(10 * base)
+
+
+def _decimals(step: float) -> int:
+    """Decimals that show a multiple of ``step`` exactly (2.5 -> 1, 0.25 -> 2, 5 -> 0)."""
+    for d in range(0, 7):
+        if abs(round(step * 10**d) - step * 10**d) < 1e-6:
+            return d
+    return 6
+
+
+def nice_breaks(lo: float, hi: float, *, target: int = 5, floor: float | None = None
+                ) -> tuple[float, ...]:
+    """Round class limits strictly inside ``(lo, hi)`` (at most about ``target + 1`` classes).
+
+    Parameters
+    ----------
+    lo, hi
+        The data's range.
+    target
+        About how many classes.
+    floor
+        Limits below it are dropped (0 for amounts).
+
+    Returns
+    -------
+    tuple of float
+
+    Examples
+    --------
+    >>> nice_breaks(0.3, 9.6)
+    (2.0, 4.0, 6.0, 8.0)
+    >>> nice_breaks(5.0, 5.0)
+    ()
+    """
+    if not (math.isfinite(lo) and math.isfinite(hi)) or hi <= lo:
+        return ()
+    step = nice_step(hi - lo, target)
+    d = _decimals(step) + 1
+    first = math.floor(lo / step) + 1
+    out: list[float] = []
+    k = first
+    while k * step < hi - 1e-12 and len(out) < 4 * target:
+        b = round(k * step, d)
+        if b > lo and (floor is None or b >= floor):
+            out.append(b)
+        k += 1
+    return tuple(out)
+
+
+def _range_labels(breaks: Sequence[float], digits: int, unit: str = "") -> tuple[str, ...]:
+    edges = [f"{b:,.{digits}f}" for b in breaks]
+    if not edges:
+        return ("all values",)
+    middle = [f"{a} to {b}" for a, b in zip(edges, edges[1:], strict=False)]
+    return (f"< {edges[0]}", *middle, f"≥ {edges[-1]}")
+
+
+def _finite(values: np.ndarray) -> np.ndarray:
+    v = np.asarray(values, dtype=float)
+    return v[np.isfinite(v)]
+
+
+def classes_for(kind: str, values: np.ndarray, *, target: float | None = None,
+                step: float | None = None,
+                limits: tuple[float, ...] = SODICITY_BREAKS) -> Classes:
+    """The colour classes of one surface, chosen by what it means.
+
+    Parameters
+    ----------
+    kind
+        ``"esp"`` (sodicity classes), ``"ph"`` (diverging around ``target``),
+        ``"acid"`` (acid or Al saturation), ``"ec"``, ``"error"`` (kriging standard
+        deviation), ``"rate"``, or anything else for an amount (sequential).
+    values
+        The surface (NaN = none); sets the range of the round limits.
+    target
+        ``ph``: the value between the red and the blue classes (the acidity threshold).
+    step
+        ``ph``: class width (default 0.5 pH unit).
+    limits
+        ``esp``: the sodic and strongly sodic limits (default :data:`SODICITY_BREAKS`).
+
+    Returns
+    -------
+    Classes
+
+    Examples
+    --------
+    >>> c = classes_for("ph", np.array([4.6, 6.3]), target=5.5)
+    >>> c.breaks
+    (5.0, 5.5, 6.0)
+    >>> c.colours[1], c.colours[2]  # either side of the threshold: light red, light blue
+    ('#fddbc7', '#d1e5f0')
+    """
+    v = _finite(values)
+    lo, hi = (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+    if kind == "esp":
+        colours = tuple(palette_colour("blue-purple", t) for t in _ESP_POSITIONS)
+        if tuple(limits) == SODICITY_BREAKS:
+            return Classes(SODICITY_BREAKS, colours, SODICITY_LABELS)
+        a, b = (fmt_number(float(x)) for x in limits)
+        return Classes(tuple(float(x) for x in limits), colours,
+                       (f"non-sodic (< {a})", f"sodic ({a} to {b})", f"strongly sodic (≥ {b})"))
+    if kind == "ph":
+        if target is None or not math.isfinite(target):
+            raise ValueError("pH classes need the target (acidity threshold)")
+        width = step or 0.5
+        reds = PALETTES["red-blue"][4::-1]  # light to dark red
+        blues = PALETTES["red-blue"][6:]  # light to dark blue
+        below = min(5, max(1, math.ceil((target - lo) / width - 1e-9)))
+        above = min(5, max(1, math.ceil((hi - target) / width + 1e-9)))
+        if lo >= target:
+            below = 0
+        if hi < target:
+            above = 0
+        below_breaks = [round(target - k * width, 3) for k in range(below - 1, 0, -1)]
+        above_breaks = [round(target + k * width, 3) for k in range(1, above)]
+        breaks = tuple([*below_breaks, target, *above_breaks]) if below and above else (
+            tuple(below_breaks) if below else tuple(above_breaks))
+        colours = tuple(reds[:below][::-1]) + tuple(blues[:above])
+        d = _decimals(width)
+        labels = _range_labels(breaks, d)
+        if len(colours) == 1:
+            labels = (f"< {target:.{d}f}",) if below else (f"≥ {target:.{d}f}",)
+        note = f"red: below {target:.{d}f} (acid); blue: at or above it"
+        return Classes(breaks, colours, labels, note)
+    palette = {"acid": "red-purple", "ec": "yellow-green-blue", "error": "greys",
+               "rate": "rates"}.get(kind, "viridis")
+    floor = 0.0 if lo >= 0 else None
+    breaks = nice_breaks(lo, hi, target=5, floor=floor)
+    if kind in ("acid",) and breaks and breaks[-1] > 100:
+        breaks = tuple(b for b in breaks if b <= 100)
+    step_used = (breaks[1] - breaks[0]) if len(breaks) > 1 else nice_step(hi - lo)
+    digits = _decimals(round(step_used, 6))
+    return Classes(breaks, _sequential(palette, len(breaks) + 1), _range_labels(breaks, digits))
+
+
+def rate_colour(rate: float, top: float) -> str:
+    """Colour of a rate on the rate scale that ends at ``top`` (same scale in map and report).
+
+    Examples
+    --------
+    >>> rate_colour(0.0, 1000.0) == palette_colour("rates", 0.1)
+    True
+    """
+    lo, hi = _SEQUENTIAL_PART["rates"]
+    if not math.isfinite(rate):
+        return "#cccccc"
+    return palette_colour("rates", lo + (hi - lo) * (rate / top if top > 0 else 0.0))
+
+
+def rate_classes(rates: Sequence[float], *, fmt: Any = None) -> Classes:
+    """Classes of a product's zone rates: one per distinct rate (up to 10), else round limits.
+
+    ``fmt`` turns a rate (kg/ha) into its label (default: the number).
+
+    Examples
+    --------
+    >>> rate_classes([0.0, 1500.0, 3000.0]).labels
+    ('0', '1,500', '3,000')
+    """
+    fmt = fmt or (lambda r: fmt_number(r))
+    distinct = sorted({round(float(r), 6) for r in rates if math.isfinite(float(r))})
+    if not distinct:
+        return Classes((), ("#cccccc",), ("no rate",))
+    top = distinct[-1]
+    if len(distinct) <= 10:
+        breaks = tuple((a + b) / 2 for a, b in zip(distinct, distinct[1:], strict=False))
+        return Classes(breaks, tuple(rate_colour(r, top) for r in distinct),
+                       tuple(fmt(r) for r in distinct))
+    breaks = nice_breaks(distinct[0], top, target=6, floor=0.0)
+    mids = [breaks[0] / 2] + [(a + b) / 2 for a, b in zip(breaks, breaks[1:], strict=False)] + [
+        (breaks[-1] + top) / 2] if breaks else [top / 2]
+    labels = (f"< {fmt(breaks[0])}",
+              *(f"{fmt(a)} to {fmt(b)}" for a, b in zip(breaks, breaks[1:], strict=False)),
+              f"≥ {fmt(breaks[-1])}") if breaks else (fmt(top),)
+    return Classes(breaks, tuple(rate_colour(m, top) for m in mids), labels)
+
+
+def class_colour_rgb(classes: Classes) -> np.ndarray:
+    """The class colours as an ``(n, 3)`` uint8 array."""
+    return np.array([hex_to_rgb(c) for c in classes.colours], dtype=np.uint8)
+
+
+def colourise(values: np.ndarray, classes: Classes) -> np.ndarray:
+    """RGBA (uint8, shape ``values.shape + (4,)``) of ``values`` in ``classes``; NaN is clear.
+
+    Examples
+    --------
+    >>> c = classes_for("esp", np.array([1.0]))
+    >>> colourise(np.array([[3.0, np.nan]]), c)[0, :, 3].tolist()
+    [255, 0]
+    """
+    v = np.asarray(values, dtype=float)
+    idx = classes.index(v)
+    rgba = np.zeros(v.shape + (4,), dtype=np.uint8)
+    ok = idx >= 0
+    rgba[ok, :3] = class_colour_rgb(classes)[idx[ok]]
+    rgba[ok, 3] = 255
+    return rgba
+
+
+# --------------------------------------------------------------------------- images
+
+
+def png_bytes(rgba: np.ndarray) -> bytes:
+    """An 8-bit RGBA image (rows, columns, 4) as PNG bytes, written by GDAL's PNG driver
+    (through rasterio, in memory).
+
+    Examples
+    --------
+    >>> png_bytes(np.zeros((2, 3, 4), dtype=np.uint8))[:8]
+    b'\\x89PNG\\r\\n\\x1a\\n'
+    """
+    import warnings
+
+    from rasterio.errors import NotGeoreferencedWarning
+    from rasterio.io import MemoryFile
+
+    img = np.ascontiguousarray(rgba, dtype=np.uint8)
+    if img.ndim != 3 or img.shape[2] != 4:
+        raise ValueError(f"an RGBA image needs shape (rows, columns, 4) (got {img.shape})")
+    h, w, _ = img.shape
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with MemoryFile() as mem:
+            with mem.open(driver="PNG", width=w, height=h, count=4, dtype="uint8",
+                          ZLEVEL=9) as dst:
+                dst.write(np.moveaxis(img, -1, 0))
+            data = mem.read()
+    return bytes(data)
+
+
+def png_data_uri(rgba: np.ndarray) -> str:
+    """``data:image/png;base64,...`` of an RGBA image (see :func:`png_bytes`)."""
+    return "data:image/png;base64," + base64.b64encode(png_bytes(rgba)).decode("ascii")
+
+
+# --------------------------------------------------------------------------- labels
+
+
+def label_point(geom: Any) -> Any:
+    """Where a polygon's label goes: the pole of inaccessibility of its largest part
+    (the inside point farthest from the edges), so labels avoid holes and thin arms.
+
+    Parameters
+    ----------
+    geom : shapely geometry
+        A polygon or multipolygon.
+
+    Returns
+    -------
+    shapely.Point
+        The label position, inside the geometry.
+
+    Examples
+    --------
+    >>> from shapely.geometry import Point, box
+    >>> ring = box(0, 0, 100, 100).difference(Point(50, 50).buffer(30))
+    >>> p = label_point(ring)  # clear of the hole and of the edges
+    >>> ring.contains(p), min(ring.exterior.distance(p), ring.interiors[0].distance(p)) > 15
+    (True, True)
+    """
+    from shapely.ops import polylabel
+
+    parts = [
+        g for g in getattr(geom, "geoms", [geom]) if g.geom_type == "Polygon" and not g.is_empty
+    ]
+    if not parts:
+        return geom.representative_point()
+    largest = max(parts, key=lambda g: g.area)
+    minx, miny, maxx, maxy = largest.bounds
+    tolerance = max(maxx - minx, maxy - miny) / 200 or 1e-9
+    point = polylabel(largest, tolerance=tolerance)
+    return point if largest.contains(point) else largest.representative_point()
