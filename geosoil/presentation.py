@@ -78,7 +78,7 @@ SODICITY_LABELS: tuple[str, ...] = (
 
 #: Colour scales, low to high, as hex anchors spaced evenly on [0, 1]. The values
 #: are the published ones: ColorBrewer 2.0 (Brewer 2002; 9- and 11-class schemes) and
-#: viridis (van der Walt & Smith 2015, as sampled at 20 points by branca).
+#: viridis (van der Walt & Smith 2015, sampled at 20 evenly spaced points).
 PALETTES: dict[str, tuple[str, ...]] = {
     # sequential, perceptually uniform (amounts, other saturations)
     "viridis": ("#440154", "#481567", "#482677", "#453781", "#404788", "#39568c", "#33638d",
