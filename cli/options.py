@@ -36,7 +36,8 @@ out_option = click.option(
     help="Output folder (created; must not be an input folder).",
 )
 overwrite_option = click.option(
-    "--overwrite", is_flag=True, help="Replace the contents of an existing output folder."
+    "--overwrite", is_flag=True,
+    help="Replace an existing output folder (one geosoil wrote) whole with this run's.",
 )
 
 

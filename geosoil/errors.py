@@ -18,6 +18,8 @@ __all__ = [
     "SettingsError",
     "CRSError",
     "OutputExistsError",
+    "OutputBusyError",
+    "OutputWriteError",
     "GeosoilWarning",
     "DataWarning",
     "InterpolationWarning",
@@ -99,6 +101,17 @@ class CRSError(GeosoilError, ValueError):
 
 class OutputExistsError(GeosoilError, FileExistsError):
     """An output would overwrite something that exists (or an input)."""
+
+
+class OutputBusyError(GeosoilError, RuntimeError):
+    """Another run is writing the same output folder."""
+
+
+class OutputWriteError(GeosoilError, OSError):
+    """An output could not be written (disk full, no permission, read-only disk...).
+
+    The message names the file, the fix, and what became of the output folder.
+    """
 
 
 class GeosoilWarning(UserWarning):

@@ -1,9 +1,11 @@
 """The whole job in one call: compute a project's farm, then write its output folder.
 
 :func:`run` checks the output folder first (never over an input, never over
-results without ``overwrite``), then calls :func:`geosoil.pipeline.compute`
-and :func:`geosoil.outputs.write_outputs`, recording every warning of the
-writing stage with the run's others.
+results without ``overwrite``), locks it and makes a temporary folder beside it
+(:func:`geosoil.outfolder.output_folder`), then calls
+:func:`geosoil.pipeline.compute` and :func:`geosoil.outputs.write_outputs` into
+that folder, recording every warning of the writing stage with the run's
+others. Only a complete output folder is moved into place.
 """
 
 from __future__ import annotations
@@ -15,11 +17,11 @@ from typing import Any
 
 import pandas as pd
 
+from .outfolder import output_folder
 from .outputs import write_outputs
 from .pipeline import FarmResult, Progress, compute
 from .project import Project
 from .recording import record_warnings
-from .writers import ensure_output_dir
 
 __all__ = ["RunResult", "run"]
 
@@ -65,7 +67,8 @@ def run(
     out_dir : Path
         The output folder (created; see :mod:`geosoil.outputs` for its layout).
     overwrite : bool, optional
-        Replace the contents of a non-empty output folder.
+        Replace a non-empty output folder that geosoil wrote, whole (nothing
+        of the old run is left in it).
     progress : callable, optional
         Called with a short message at each stage.
     use_cache : bool, optional
@@ -80,21 +83,28 @@ def run(
     ------
     OutputExistsError
         ``out_dir`` exists and is not empty, and ``overwrite`` is false; or it
-        is (or holds) an input folder.
+        is (or holds) an input folder; or it holds files its last run did not write.
+    OutputBusyError
+        Another run is writing ``out_dir``.
+    OutputWriteError
+        An output could not be written (the message names the file and the fix);
+        the old output folder is left as it was.
     GeosoilError
         Any input or settings problem.
     """
-    ensure = _ensure_output(project, out_dir, overwrite=overwrite)
-    farm = compute(project, progress=progress, use_cache=use_cache)
-    t0 = time.perf_counter()
-    with record_warnings(farm.prep.warnings):
-        written, record = write_outputs(farm, out_dir=ensure, progress=progress)
-    farm.timings["writing"] = time.perf_counter() - t0
-    return RunResult(out_dir=ensure, written=written, farm=farm, record=record)
-
-
-def _ensure_output(project: Project, out_dir: Path, *, overwrite: bool) -> Path:
     inputs = [p for p in project.input_files() if p is not None]
     if project.path is not None:
         inputs.append(project.path)
-    return ensure_output_dir(Path(out_dir), overwrite=overwrite, inputs=inputs)
+    with output_folder(Path(out_dir), overwrite=overwrite, inputs=inputs) as staging:
+        for note in staging.notes:
+            progress(note)
+        farm = compute(project, progress=progress, use_cache=use_cache)
+        farm.prep.warnings.extend(staging.notes)
+        t0 = time.perf_counter()
+        with record_warnings(farm.prep.warnings):
+            written, record = write_outputs(farm, out_dir=staging.temp, progress=progress)
+        progress(f"moving the complete output folder into place: {staging.final}")
+    farm.timings["writing"] = time.perf_counter() - t0
+    return RunResult(out_dir=staging.final,
+                     written=[staging.final_path(p) for p in written],
+                     farm=farm, record=record)

@@ -21,9 +21,8 @@ Formats
   the ``COG`` driver is missing. Cells outside the mask (NaN) hold ``nodata``.
 * :func:`write_csv`, :func:`write_json` (NaN and infinities become ``null``).
 
-:func:`ensure_output_dir` guards the output folder: it refuses a non-empty
-folder unless asked to overwrite, and any folder that is or holds an input
-file's folder.
+:mod:`geosoil.outfolder` guards the output folder as a whole (lock, temporary
+folder beside it, replaced whole when complete).
 """
 
 from __future__ import annotations
@@ -52,13 +51,12 @@ from shapely.geometry import mapping
 from shapely.geometry.base import BaseGeometry
 from shapely.geometry.polygon import orient
 
-from .errors import CRSError, OutputExistsError
+from .errors import CRSError
 
 __all__ = [
     "SHAPEFILE_FIELDS",
     "atomic_write",
     "atomic_path",
-    "ensure_output_dir",
     "write_geojson",
     "geojson_text",
     "write_shapefile_zip",
@@ -137,9 +135,12 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         if not tmp.exists():
             raise FileNotFoundError(f"nothing was written to {tmp} for {target}")
         os.replace(tmp, target)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(OSError):
             tmp.unlink()
+        if isinstance(exc, OSError) and exc.errno is not None and not exc.filename:
+            # a failed write() names no file: name the one being written
+            raise OSError(exc.errno, exc.strerror, str(target)) from exc
         raise
 
 
@@ -195,76 +196,6 @@ def atomic_write(
             yield fh
             fh.flush()
             os.fsync(fh.fileno())
-
-
-# --------------------------------------------------------------------------- output folder
-
-
-def _is_within(child: Path, parent: Path) -> bool:
-    return child == parent or parent in child.parents
-
-
-def ensure_output_dir(
-    path: str | os.PathLike[str],
-    *,
-    overwrite: bool,
-    inputs: Sequence[str | os.PathLike[str]],
-) -> Path:
-    """Check and create the output folder; return it resolved.
-
-    Parameters
-    ----------
-    path
-        The output folder. It is created (with its parents) when missing.
-    overwrite
-        Allow an existing, non-empty folder. Files the run writes replace
-        those of the same name; nothing else in the folder is touched.
-    inputs
-        Every input file of the run.
-
-    Returns
-    -------
-    Path
-        The folder, resolved.
-
-    Raises
-    ------
-    OutputExistsError
-        ``path`` is a file; it exists, is not empty and ``overwrite`` is
-        false; or it is, or contains, the folder of an input file (outputs
-        never go where the inputs are, even with ``overwrite``).
-
-    Examples
-    --------
-    >>> import tempfile
-    >>> root = Path(tempfile.mkdtemp())
-    >>> (root / "data").mkdir(); _ = (root / "data" / "lab.csv").write_text("x")
-    >>> ensure_output_dir(root / "out", overwrite=False, inputs=[root / "data" / "lab.csv"]).name
-    'out'
-    >>> ensure_output_dir(root, overwrite=True, inputs=[root / "data" / "lab.csv"])
-    Traceback (most recent call last):
-    ...
-    geosoil.errors.OutputExistsError: ...holds the input file ...lab.csv; choose an output folder...
-    """
-    out = Path(path).expanduser().resolve()
-    for item in inputs:
-        inp = Path(item).expanduser().resolve()
-        folder = inp if inp.is_dir() else inp.parent
-        if _is_within(folder, out):
-            raise OutputExistsError(
-                f"the output folder {out} is or holds the input file {inp}; "
-                "choose an output folder outside the input folders"
-            )
-    if out.exists() and not out.is_dir():
-        raise OutputExistsError(f"the output path {out} is a file, not a folder; "
-                                "choose a folder name")
-    if out.is_dir() and any(out.iterdir()) and not overwrite:
-        raise OutputExistsError(
-            f"the output folder {out} exists and is not empty; choose a new folder or "
-            "pass --overwrite to write over what is there"
-        )
-    out.mkdir(parents=True, exist_ok=True)
-    return out
 
 
 # --------------------------------------------------------------------------- JSON

@@ -48,6 +48,9 @@ def copy_demo(dest: Path, cache: Path, **changes: dict[str, object]) -> Path:
     return dest
 
 
+STALE = "prescriptions/red-hill/lime_isoxml_pass9/TASKDATA/TASKDATA.XML"
+
+
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
     """Two runs of the demo copy: as given, then with only a rate setting changed (quiet)."""
@@ -62,9 +65,16 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
     assert data["rates"]["gypsum"]["exchange_efficiency"] == 1.2
     data["rates"]["gypsum"]["exchange_efficiency"] = 1.1
     (farm / "geosoil.toml").write_text(tomli_w.dumps(data))
+    # out2: a copy of the first run's folder with a file an older run wrote and this one
+    # will not (task data for a pass that no longer exists), listed in its run.json
     out2 = root / "out2"
-    out2.mkdir()
-    (out2 / "keep.txt").write_text("not the run's")
+    shutil.copytree(root / "out1", out2)
+    stale = out2 / STALE
+    stale.parent.mkdir(parents=True)
+    stale.write_text("<ISO11783_TaskData/>")
+    record = json.loads((out2 / "run.json").read_text())
+    record["files"].append(STALE)
+    (out2 / "run.json").write_text(json.dumps(record))
     second = invoke("--quiet", "run", farm, "--out", out2, "--overwrite")
     return {"root": root, "farm": farm, "first": first, "second": second,
             "before": before, "after_first": after_first}
@@ -120,10 +130,33 @@ def test_quiet_run_prints_results_but_no_progress(runs) -> None:  # noqa: ANN001
     assert "Cautions:" in r.stdout and "Farm" in r.stdout
 
 
-def test_overwrite_replaces_the_run_files_and_leaves_other_files(runs) -> None:  # noqa: ANN001
+def test_overwrite_replaces_the_folder_whole_so_nothing_stale_survives(runs) -> None:  # noqa: ANN001
     out2 = runs["root"] / "out2"
-    assert (out2 / "keep.txt").read_text() == "not the run's"
-    assert (out2 / "run.json").is_file()
+    assert not (out2 / STALE).exists()
+    assert not (out2 / STALE).parent.exists()
+    record = json.loads((out2 / "run.json").read_text())
+    files = {p.relative_to(out2).as_posix() for p in out2.rglob("*") if p.is_file()}
+    assert set(record["files"]) == files
+    # nothing left beside it but the lock file
+    beside = {p.name for p in runs["root"].iterdir() if p.name.startswith(".out2.")}
+    assert beside <= {".out2.geosoil-lock"}
+
+
+def test_overwrite_refuses_a_folder_holding_files_geosoil_did_not_write(runs) -> None:  # noqa: ANN001
+    root = runs["root"]
+    out3 = root / "out3"
+    shutil.copytree(root / "out1", out3)
+    (out3 / "notes.txt").write_text("my own notes")
+    r = invoke("run", runs["farm"], "--out", out3, "--overwrite")
+    assert r.exit_code == 1
+    assert "notes.txt" in r.stderr and "Move them out" in r.stderr
+    assert (out3 / "notes.txt").read_text() == "my own notes"
+    other = root / "other"
+    other.mkdir()
+    (other / "thesis.docx").write_text("years of work")
+    r = invoke("run", runs["farm"], "--out", other, "--overwrite")
+    assert r.exit_code == 1 and "not a geosoil output folder" in r.stderr
+    assert (other / "thesis.docx").read_text() == "years of work"
 
 
 def test_second_run_takes_surfaces_from_the_cache_and_changes_the_rates(runs) -> None:  # noqa: ANN001

@@ -20,11 +20,10 @@ import shapely
 from affine import Affine
 
 import geosoil.writers as writers
-from geosoil.errors import CRSError, OutputExistsError
+from geosoil.errors import CRSError
 from geosoil.writers import (
     SHAPEFILE_FIELDS,
     atomic_write,
-    ensure_output_dir,
     write_cog,
     write_csv,
     write_geojson,
@@ -256,25 +255,3 @@ def test_failed_raster_write_leaves_nothing(tmp_path: Path) -> None:
 # --------------------------------------------------------------------------- output folder
 
 
-def test_ensure_output_dir(tmp_path: Path) -> None:
-    inputs_dir = tmp_path / "farm"
-    inputs_dir.mkdir()
-    lab = inputs_dir / "lab.csv"
-    lab.write_text("x")
-    # a new folder is created
-    out = ensure_output_dir(tmp_path / "results" / "2024", overwrite=False, inputs=[lab])
-    assert out.is_dir()
-    # an existing non-empty folder needs overwrite
-    (out / "old.txt").write_text("x")
-    with pytest.raises(OutputExistsError, match="not empty"):
-        ensure_output_dir(out, overwrite=False, inputs=[lab])
-    assert ensure_output_dir(out, overwrite=True, inputs=[lab]) == out.resolve()
-    assert (out / "old.txt").exists()  # overwrite does not empty the folder
-    # the inputs' folder, or a folder holding it, is refused even with overwrite
-    for bad in (inputs_dir, tmp_path):
-        with pytest.raises(OutputExistsError, match="input"):
-            ensure_output_dir(bad, overwrite=True, inputs=[lab])
-    # a file is not a folder
-    with pytest.raises(OutputExistsError):
-        ensure_output_dir(lab, overwrite=True, inputs=[])
-    assert lab.read_text() == "x"

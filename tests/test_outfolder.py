@@ -1,0 +1,129 @@
+"""geosoil.outfolder: the output folder is checked, locked, written beside and replaced whole.
+
+Folder contents here are invented; what is checked is which files a person keeps
+and what the errors tell them.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+from pathlib import Path
+
+import filelock
+import pytest
+
+from geosoil.errors import OutputBusyError, OutputExistsError, OutputWriteError
+from geosoil.outfolder import check_target, output_folder, sibling_names
+
+
+def tree(root: Path) -> dict[str, bytes]:
+    return {p.relative_to(root).as_posix(): p.read_bytes()
+            for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def geosoil_folder(path: Path, files: dict[str, str]) -> Path:
+    """A folder as a geosoil run leaves it: the files and a run.json listing them."""
+    for name, text in files.items():
+        (path / name).parent.mkdir(parents=True, exist_ok=True)
+        (path / name).write_text(text)
+    (path / "run.json").write_text(json.dumps({"files": [*files, "run.json"]}))
+    return path
+
+
+def beside(path: Path) -> list[str]:
+    return sorted(p.name for p in path.parent.iterdir() if p.name.startswith(f".{path.name}."))
+
+
+def test_check_target(tmp_path: Path) -> None:
+    inputs_dir = tmp_path / "farm"
+    inputs_dir.mkdir()
+    lab = inputs_dir / "lab.csv"
+    lab.write_text("x")
+    out = check_target(tmp_path / "results" / "2024", overwrite=False, inputs=[lab])
+    assert out == (tmp_path / "results" / "2024").resolve() and not out.exists()
+    out.mkdir(parents=True)
+    (out / "old.txt").write_text("x")
+    with pytest.raises(OutputExistsError, match="not empty"):
+        check_target(out, overwrite=False, inputs=[lab])
+    # the inputs' folder, or a folder holding it, is refused even with overwrite
+    for bad in (inputs_dir, tmp_path):
+        with pytest.raises(OutputExistsError, match="input"):
+            check_target(bad, overwrite=True, inputs=[lab])
+    with pytest.raises(OutputExistsError, match="not a folder"):
+        check_target(lab, overwrite=True, inputs=[])
+    assert lab.read_text() == "x"
+
+
+def test_a_complete_run_replaces_the_old_folder_whole(tmp_path: Path) -> None:
+    out = geosoil_folder(tmp_path / "out", {"a.csv": "old", "stale/TASKDATA.XML": "old"})
+    with output_folder(out, overwrite=True, inputs=[]) as staging:
+        assert staging.temp != out and staging.temp.parent == out.parent
+        assert tree(out)["a.csv"] == b"old"  # untouched while the run writes
+        (staging.temp / "a.csv").write_text("new")
+        (staging.temp / "run.json").write_text(json.dumps({"files": ["a.csv", "run.json"]}))
+    assert tree(out) == {"a.csv": b"new", "run.json": b'{"files": ["a.csv", "run.json"]}'}
+    assert beside(out) == [sibling_names(out)[0]]  # only the lock file
+
+
+def test_a_failed_run_leaves_the_old_folder_and_no_temporary_folder(tmp_path: Path) -> None:
+    out = geosoil_folder(tmp_path / "out", {"a.csv": "old"})
+    before = tree(out)
+    with pytest.raises(RuntimeError, match="model failed"), \
+            output_folder(out, overwrite=True, inputs=[]) as staging:
+        (staging.temp / "a.csv").write_text("half")
+        raise RuntimeError("model failed")
+    assert tree(out) == before
+    assert beside(out) == [sibling_names(out)[0]]
+
+
+@pytest.mark.parametrize("err, words", [
+    (errno.ENOSPC, ["is full", "MB free", "another disk"]),
+    (errno.EACCES, ["may not write", "permissions"]),
+    (errno.EROFS, ["read-only"]),
+])
+def test_a_write_error_names_the_file_and_the_fix(tmp_path: Path, err: int, words) -> None:  # noqa: ANN001
+    out = geosoil_folder(tmp_path / "out", {"a.csv": "old"})
+    before = tree(out)
+    with pytest.raises(OutputWriteError) as info, \
+            output_folder(out, overwrite=True, inputs=[]) as staging:
+        raise OSError(err, "injected", str(staging.temp / "prescriptions" / "x.geojson"))
+    text = str(info.value)
+    assert str(out / "prescriptions" / "x.geojson") in text  # named where it was to be
+    assert all(w in text for w in words), text
+    assert f"{out} was left as it was" in text
+    assert tree(out) == before and beside(out) == [sibling_names(out)[0]]
+
+
+def test_a_second_run_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    lock = filelock.FileLock(str(tmp_path / sibling_names(out)[0]), timeout=0)
+    with lock, pytest.raises(OutputBusyError, match="another geosoil run is writing"), \
+            output_folder(out, overwrite=False, inputs=[]):
+        pass
+    assert not out.exists()
+    with output_folder(out, overwrite=False, inputs=[]) as staging:  # free again
+        (staging.temp / "x").write_text("1")
+    assert tree(out) == {"x": b"1"}
+
+
+def test_what_a_killed_run_left_is_swept_and_an_old_folder_put_back(tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    _, new_prefix, old_prefix = sibling_names(out)
+    # killed while writing: a half-written temporary folder
+    (tmp_path / f"{new_prefix}dead0001" / "prescriptions").mkdir(parents=True)
+    # killed between moving the old folder aside and the new one in
+    geosoil_folder(tmp_path / f"{old_prefix}dead0002", {"a.csv": "previous"})
+    with output_folder(out, overwrite=True, inputs=[]) as staging:
+        assert any("put back" in n for n in staging.notes)
+        assert tree(out)["a.csv"] == b"previous"  # the previous folder is whole again
+        (staging.temp / "run.json").write_text(json.dumps({"files": ["run.json"]}))
+    assert set(tree(out)) == {"run.json"}
+    assert beside(out) == [sibling_names(out)[0]]
+
+
+def test_a_long_folder_name_gets_short_sibling_names(tmp_path: Path) -> None:
+    out = tmp_path / ("paddock-" * 30)[:240]
+    names = sibling_names(out)
+    assert all(len(n.encode()) < 100 for n in names)
+    assert len(set(names)) == 3
