@@ -232,7 +232,9 @@ def explain_location(
     if bd is None or not math.isfinite(bd):
         bd = s.soil.bulk_density_for(name)
     steps = explain_cell(
-        cell, s.rates, prep.products, depth_m=s.soil.depth_m, bulk_density_g_cm3=bd,
+        cell, s.rates.for_paddock(name), prep.products, depth_m=s.soil.depth_m,
+        bulk_density_g_cm3=bd, ph_method=prep.read.methods.get("ph"),
+        scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
     )
     # the zone of the cell (its centre: a point on a zone edge belongs to the cell it is in)
     centre = shapely.Point(*(grid.transform @ (col + 0.5, row + 0.5)))

@@ -170,7 +170,8 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         )
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
-        rule_notes = check_inputs(s.rates, set(variables) | _derivable(variables), products)
+        rule_notes = check_inputs(s.rates, set(variables) | _derivable(variables), products,
+                                  ph_method=read.methods.get("ph"))
         progress("building grids")
         excl_union = None if exclusions.empty else shapely.union_all(exclusions.geometry.values)
         grids = aligned_grids(paddocks, cell_size_m=s.grid.cell_size_m, exclusions=excl_union)
@@ -386,10 +387,12 @@ def compute(
                 cells["bulk_density"] = bd
             rr = compute_rates(
                 cells,
-                s.rates,
+                s.rates.for_paddock(name),
                 prep.products,
                 depth_m=s.soil.depth_m,
                 bulk_density_g_cm3=bd,
+                ph_method=prep.read.methods.get("ph"),
+                scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
             )
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
             excl = None

@@ -543,6 +543,53 @@ def _relative(path: Path, folder: Path) -> Path:
     return rel if rel.parts[:2] != ("..", "..") else path.resolve()
 
 
+def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
+    """The lime method (and target pH method) a new project starts from, with notes."""
+    from .rates import AL_METHODS, LimeRule, _lime_problem, choose_lime_method
+
+    cols = set(read.columns)
+    available = set(cols)
+    if {"ca", "mg", "k", "na"} <= cols or "cec" in cols:
+        available.add("ecec")
+    ph_method = read.methods.get("ph") or "water"
+    lime = LimeRule(method="auto")
+    target_source = ""
+    if ph_method == "CaCl2":
+        # the built-in default target is pH 6.0 in water; a lab reporting CaCl2 gets the
+        # common-practice CaCl2 target, so that pH and target are in one method
+        lime = dataclasses.replace(lime, target_ph=5.5, target_ph_method="CaCl2")
+        target_source = ("common practice for most crops when pH is read in CaCl2 (about pH 6.0 "
+                         "in water)")
+    chosen, reasons = choose_lime_method(RateSettings(lime=lime), available, ph_method=ph_method)
+    order = ", ".join(lime.method_order)
+    notes: list[str] = []
+    if chosen is None:
+        from .rates import _ask_for
+
+        ask = _ask_for(RateSettings(lime=lime), available, ph_method)
+        notes.append(
+            f"lime: no lime method can run on these columns ({'; '.join(reasons)}); acid cells "
+            f"will be flagged 'lime requirement needs a test': ask the lab for {ask}"
+        )
+        return RateSettings(lime=lime), notes
+    lime = dataclasses.replace(lime, method=chosen)
+    why = "its inputs are in the lab file"
+    if reasons:
+        why += "; not " + "; ".join(reasons[:3]) + (" ..." if len(reasons) > 3 else "")
+    target = lime.target()
+    notes.append(
+        f"lime method '{chosen}' chosen, the first of [rates.lime] method_order ({order}) the "
+        f"columns support ({why}); change rates.lime.method to choose another"
+    )
+    if chosen not in AL_METHODS:
+        notes.append(
+            f"lime target: pH {target.ph:g} in {target.ph_method} "
+            f"({target_source or target.source}); set rates.lime.crop or target_ph for your crop"
+        )
+    assert _lime_problem(chosen, lime, available, ph_method) is None
+    return RateSettings(lime=lime), notes
+
+
 def new_project(
     folder: Path | str,
     *,
@@ -671,7 +718,10 @@ def new_project(
         columns=dict(read.columns),
         units={k: v for k, v in read.units.items() if v},
     )
+    rates, rate_notes = _lime_for_columns(read)
+    notes.extend(rate_notes)
     settings = ProjectSettings(
+        rates=rates,
         samples=sample_settings,
         boundaries=dataclasses.replace(boundaries, paddocks=_relative(paddocks_path, folder)),
         farm=folder.resolve().name,

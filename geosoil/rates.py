@@ -62,6 +62,7 @@ array([7.747, 0.   ])
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import logging
 import math
@@ -74,6 +75,28 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError, RateWarning, SettingsError
+from .liming import (
+    CROP_TARGETS,
+    PH_METHODS,
+    SMP_BPH_RANGE,
+    VAN_BEMMELEN,
+    CropTarget,
+    adams_evans_acidity,
+    adams_evans_lime,
+    aitken_outside,
+    base_saturation_lime,
+    below_trigger,
+    caco3_cmol_kg,
+    maintenance_lime,
+    mehlich_acidity,
+    mehlich_lime,
+    phbc_aitken,
+    phbc_lime,
+    smp_lime,
+)
+from .liming import (
+    METHODS as TARGET_METHODS,
+)
 from .products import Product, _check_declared
 from .settings import setting
 from .units import (
@@ -90,6 +113,10 @@ __all__ = [
     "ENABLED_CHOICES",
     "INPUT_NAMES",
     "METHOD_CITATIONS",
+    "AL_METHODS",
+    "LIME_METHOD_ORDER",
+    "DEFAULT_TARGET",
+    "choose_lime_method",
     "GypsumRule",
     "LimeRule",
     "CalciumRule",
@@ -117,7 +144,30 @@ ENABLED_CHOICES: tuple[str, ...] = ("auto", "on", "off")
 #: ECEC in cmol(+)/kg; ``esp`` and saturations in percent of ECEC; ``ph`` as the lab reports it.
 INPUT_NAMES: tuple[str, ...] = (
     "ca", "mg", "k", "na", "al", "h", "acidity", "ecec", "esp", "ca_sat", "mg_sat", "k_sat", "ph",
+    "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
+    "phbc",
 )
+
+#: Lime methods that neutralise exchangeable Al (to about pH 5.5), not to a target pH.
+AL_METHODS: tuple[str, ...] = ("kamprath", "cochrane", "acidity_share")
+
+#: Order in which ``method = "auto"`` (and ``geosoil new``) picks the lime method: the first
+#: whose inputs the samples give. Target-pH methods come first (they lime to the crop's pH);
+#: the Al-based ones only neutralise exchangeable Al. Change it with ``rates.lime.method_order``.
+LIME_METHOD_ORDER: tuple[str, ...] = (
+    "smp", "sikora", "mehlich", "adams_evans", "base_saturation", "phbc",
+    "kamprath", "cochrane", "acidity_share",
+)
+
+#: Target pH when neither a target nor a crop is set: pH 6.0 in water, most field crops on
+#: mineral soils (Tri-State Fertilizer Recommendations 2020, from memory; common practice).
+DEFAULT_TARGET = CropTarget(
+    6.0, "water", "most field crops on mineral soils (Tri-State Fertilizer Recommendations 2020, "
+    "from memory) [common practice]",
+)
+#: Where the target's pH method is not the lab's, the acid cells that need a test are found
+#: against this pH in the lab's method (common practice: pH 6.0 in water is about 5.5 in CaCl2).
+_ACID_BELOW = {"water": 6.0, "CaCl2": 5.5}
 
 #: Citation of each method, as shown in outputs and explanations.
 METHOD_CITATIONS: dict[str, str] = {
@@ -129,6 +179,10 @@ METHOD_CITATIONS: dict[str, str] = {
     "sufficiency": "minimum exchangeable calcium (sufficiency) [common practice]",
     "bcsr": "basic cation saturation ratios (Bear and co-workers, 1940s); CONTESTED: "
     "Kopittke & Menzies 2007, SSSA J 71:259",
+    **{k: f"{m.title}: {m.citation}; calibration: {m.calibration}"
+       for k, m in TARGET_METHODS.items()},
+    "maintenance": "maintenance lime: net acid addition x 50.04 kg CaCO3 per kmol H+ [derived]; "
+    "Helyar & Porter 1989 style [from memory]",
 }
 
 _DERIVED = "[derived] from the definitions and standard atomic weights"
@@ -144,6 +198,14 @@ _SOURCES: dict[str, tuple[tuple[str, ...], ...]] = {
     "ecec": (("ecec",),),
     "al": (("al",),),
     "ph": (("ph",),),
+    "cec_ph7": (("cec_ph7",),),
+    "bph_smp": (("bph_smp",),),
+    "bph_sikora": (("bph_sikora",),),
+    "bph_mehlich": (("bph_mehlich",),),
+    "bph_adams_evans": (("bph_adams_evans",),),
+    "oc": (("oc",), ("om",)),
+    "clay": (("clay",),),
+    "phbc": (("phbc",), ("oc", "clay"), ("om", "clay")),
 }
 
 _DESCRIBE = {
@@ -155,6 +217,23 @@ _DESCRIBE = {
     "ecec": "ECEC (ecec)",
     "al": "exchangeable Al (al)",
     "ph": "pH (ph)",
+    "cec_ph7": "CEC at pH 7 (cec_ph7)",
+    "bph_smp": "SMP buffer pH (bph_smp)",
+    "bph_sikora": "Sikora buffer pH (bph_sikora)",
+    "bph_mehlich": "Mehlich buffer pH (bph_mehlich)",
+    "bph_adams_evans": "Adams-Evans buffer pH (bph_adams_evans)",
+    "oc": "organic carbon (oc, or om)",
+    "clay": "clay % (clay)",
+    "phbc": "pH buffering capacity (phbc, or organic carbon oc or matter om with clay)",
+}
+
+#: What to ask the lab for, per lime method.
+_ASK = {
+    "smp": "an SMP buffer pH", "sikora": "a Sikora buffer pH", "mehlich": "a Mehlich buffer pH",
+    "adams_evans": "an Adams-Evans buffer pH", "phbc": "organic carbon and clay (or a pHBC)",
+    "base_saturation": "CEC at pH 7 with exchangeable Ca, Mg and K",
+    "kamprath": "exchangeable Al", "cochrane": "exchangeable Al, Ca and Mg",
+    "acidity_share": "exchangeable acidity and the cations for ECEC",
 }
 
 _UNIT = {
@@ -208,15 +287,63 @@ class GypsumRule:
 
 @dataclass(frozen=True)
 class LimeRule:
-    """Lime for acidity by one of three published methods."""
+    """Lime for acidity: to a target pH (buffer pH, pHBC, base saturation) or against Al."""
 
     enabled: str = _enabled_setting("auto", "lime for acidity")
     method: str = setting(
         "kamprath",
-        doc="'kamprath' = exchangeable Al x factor (Kamprath 1970); 'cochrane' = target Al "
-        "saturation (Cochrane, Salinas & Sanchez 1980); 'acidity_share' = exchangeable acidity "
-        "to a target share of ECEC",
-        choices=("kamprath", "cochrane", "acidity_share"),
+        doc="to a target pH: 'smp', 'sikora' (SMP's table), 'mehlich', 'adams_evans' (buffer pH), "
+        "'phbc' (pH buffering capacity, measured or from organic carbon and clay), "
+        "'base_saturation' (Raij et al. 1996); against exchangeable Al: 'kamprath' (Kamprath "
+        "1970), 'cochrane' (Cochrane, Salinas & Sanchez 1980), 'acidity_share'; 'auto' = the "
+        "first of method_order the samples can run",
+        choices=("auto", *AL_METHODS, *TARGET_METHODS),
+    )
+    method_order: tuple[str, ...] = setting(
+        LIME_METHOD_ORDER,
+        doc="order in which 'auto' (and 'geosoil new') picks the method: the first whose inputs "
+        "the samples give",
+    )
+    target_ph: float | None = setting(
+        None,
+        doc="pH to lime to, in target_ph_method (default: the crop's, else 6.0 in water, common "
+        "practice)", minimum=3.5, maximum=7.5,
+    )
+    target_ph_method: str = setting(
+        "water", doc="pH method target_ph is stated in", choices=PH_METHODS,
+    )
+    crop: str | None = setting(
+        None,
+        doc="crop whose target pH to use when target_ph is not set (built-in: "
+        + ", ".join(CROP_TARGETS) + ")",
+    )
+    target_ph_by_paddock: dict[str, float] = setting(
+        default_factory=dict, doc="target pH per paddock name (in target_ph_method)",
+    )
+    crop_by_paddock: dict[str, str] = setting(
+        default_factory=dict, doc="crop per paddock name (its target pH and pH method)",
+    )
+    trigger_margin_ph: float = setting(
+        0.2,
+        doc="lime only where pH is more than this below the target (common practice; 0 limes "
+        "any cell below the target)", minimum=0.0, maximum=1.5,
+    )
+    target_base_saturation_percent: float = setting(
+        60.0,
+        doc="V2 of the base-saturation method: base saturation at pH 7 to reach (Raij et al. "
+        "1996 give 50 to 80 % by crop; 60 % for grain crops, from memory)",
+        unit="%", minimum=10.0, maximum=95.0,
+    )
+    om_to_oc_factor: float = setting(
+        VAN_BEMMELEN,
+        doc="organic matter / organic carbon, to read organic matter as carbon for the pHBC "
+        "regression (1.724, van Bemmelen: a convention)", minimum=1.0, maximum=3.0,
+    )
+    maintenance_kmol_h_ha_yr: float = setting(
+        0.0,
+        doc="net acid addition of the farming system, to add maintenance lime (x 50.04 kg CaCO3 "
+        "per kmol H+), shown separately (0: none)",
+        unit="kmol H+/ha/yr", minimum=0.0, maximum=20.0,
     )
     kamprath_factor: float = setting(
         1.5, doc="CaCO3 cmol(+)/kg per cmol(+)/kg of exchangeable Al (Kamprath 1970: 1.5)",
@@ -253,15 +380,71 @@ class LimeRule:
 
     def __post_init__(self) -> None:
         _check_declared(self)
+        allowed = (*AL_METHODS, *TARGET_METHODS)
+        for i, m in enumerate(self.method_order):
+            if m not in allowed:
+                near = difflib.get_close_matches(m, allowed, n=1)
+                hint = f"did you mean '{near[0]}'? " if near else ""
+                raise SettingsError(f"'{m}' is not a lime method; {hint}methods: "
+                                    f"{', '.join(allowed)}", key=f"method_order[{i}]")
+        crops = [("crop", self.crop)] + [(f"crop_by_paddock.{k}", v)
+                                          for k, v in self.crop_by_paddock.items()]
+        for key, crop in crops:
+            if crop is not None and crop not in CROP_TARGETS:
+                near = difflib.get_close_matches(crop, list(CROP_TARGETS), n=1)
+                hint = f"did you mean '{near[0]}'? " if near else ""
+                raise SettingsError(
+                    f"'{crop}' is not a built-in crop; {hint}crops: {', '.join(CROP_TARGETS)}; "
+                    "or set target_ph and target_ph_method instead", key=key)
+        for name, t in self.target_ph_by_paddock.items():
+            if not 3.5 <= t <= 7.5:
+                raise SettingsError(f"must be from 3.5 to 7.5 (got {t:g})",
+                                    key=f"target_ph_by_paddock.{name}")
 
     @property
     def factor(self) -> float:
-        """The factor of the chosen method."""
+        """The factor of the chosen method (1 for the target-pH methods)."""
         return {
             "kamprath": self.kamprath_factor,
             "cochrane": self.cochrane_factor,
             "acidity_share": self.acidity_factor,
-        }[self.method]
+        }.get(self.method, 1.0)
+
+    def target(self) -> CropTarget:
+        """The target pH, its pH method and where it comes from.
+
+        Returns
+        -------
+        CropTarget
+
+        Examples
+        --------
+        >>> LimeRule(crop="alfalfa").target().ph, LimeRule(target_ph=5.8).target().source
+        (6.8, 'rates.lime.target_ph')
+        """
+        if self.target_ph is not None:
+            return CropTarget(self.target_ph, self.target_ph_method, "rates.lime.target_ph")
+        if self.crop is not None:
+            return CROP_TARGETS[self.crop]
+        return DEFAULT_TARGET
+
+    def for_paddock(self, paddock: str) -> LimeRule:
+        """This rule with the paddock's own target or crop, when it has one.
+
+        Parameters
+        ----------
+        paddock : str
+            Paddock name.
+
+        Returns
+        -------
+        LimeRule
+        """
+        if paddock in self.target_ph_by_paddock:
+            return dataclasses.replace(self, target_ph=self.target_ph_by_paddock[paddock])
+        if paddock in self.crop_by_paddock:
+            return dataclasses.replace(self, target_ph=None, crop=self.crop_by_paddock[paddock])
+        return self
 
 
 @dataclass(frozen=True)
@@ -373,6 +556,21 @@ class RateSettings:
         minimum=2.0, maximum=11.0,
     )
 
+    def for_paddock(self, paddock: str) -> RateSettings:
+        """These settings with the paddock's own lime target or crop.
+
+        Parameters
+        ----------
+        paddock : str
+            Paddock name.
+
+        Returns
+        -------
+        RateSettings
+        """
+        lime = self.lime.for_paddock(paddock)
+        return self if lime is self.lime else dataclasses.replace(self, lime=lime)
+
     def __post_init__(self) -> None:
         _check_declared(self)
         if self.ph_guard and self.calcium.lime_below_ph > self.no_lime_above_ph:
@@ -434,6 +632,14 @@ class RateResult:
         Rule -> the published method it used.
     ph_guard_cells
         Cells where the pH guard withheld a liming product.
+    needs_test
+        Acid cells (pH more than the trigger margin below the target) for which
+        no lime method could run: "lime requirement needs a test". None when
+        there is no pH or the lime rule is off.
+    ask_for
+        What to ask the lab for, so that a lime method can run there.
+    target
+        The lime target used: pH and pH method with its source (empty when none).
     """
 
     product_rates: dict[str, NDArray[np.float64]]
@@ -442,6 +648,14 @@ class RateResult:
     notes: list[str]
     methods: dict[str, str] = field(default_factory=dict)
     ph_guard_cells: int = 0
+    needs_test: NDArray[np.bool_] | None = None
+    ask_for: str = ""
+    target: str = ""
+
+    @property
+    def needs_test_cells(self) -> int:
+        """Number of cells flagged "lime requirement needs a test"."""
+        return 0 if self.needs_test is None else int(np.count_nonzero(self.needs_test))
 
 
 # --------------------------------------------------------------------------- planning
@@ -458,21 +672,21 @@ def _needs(rule: str, settings: RateSettings) -> list[str]:
     if rule == "gypsum":
         return ["esp", "ecec"]
     if rule == "lime":
-        return {
-            "kamprath": ["al"],
-            "cochrane": ["al", "ca", "mg"],
-            "acidity_share": ["acidity", "ecec"],
-        }[settings.lime.method]
+        return _method_needs(settings.lime.method)
     if rule == "calcium":
         return ["ca", "ph"]
     if rule == "balance":
         return ["ecec", "ca", "mg"]
     if rule == "balance_k":
         return ["ecec", "k"] if settings.balance.target_k_sat_percent > 0 else ["k"]
+    if rule == "maintenance":
+        return []
     raise ValueError(rule)  # programming error
 
 
 def _rule_settings(rule: str, settings: RateSettings) -> Any:
+    if rule == "maintenance":
+        return settings.lime
     return getattr(settings, "balance" if rule == "balance_k" else rule)
 
 
@@ -484,17 +698,100 @@ def _missing_key(rule: str, settings: RateSettings) -> str:
     return f"{SECTION}.{rule}.enabled"
 
 
-def _possible_methods(available: set[str]) -> str:
-    ok = [
-        m for m in ("kamprath", "cochrane", "acidity_share")
-        if all(_source_of(n, available) is not None
-               for n in _needs("lime", RateSettings(lime=LimeRule(method=m))))
-    ]
+def _method_needs(method: str) -> list[str]:
+    """Quantities a lime method reads (see :data:`_SOURCES`)."""
+    if method == "auto":
+        return []
+    al = {"kamprath": ["al"], "cochrane": ["al", "ca", "mg"], "acidity_share": ["acidity", "ecec"]}
+    if method in al:
+        return al[method]
+    needs = list(TARGET_METHODS[method].needs)
+    return needs if method == "base_saturation" else [*needs, "ph"]
+
+
+#: Buffer methods calibrated on soil pH in one method (the target must be in it too).
+_FIXED_PH = {m: TARGET_METHODS[m].ph_method for m in ("smp", "sikora", "mehlich", "adams_evans")}
+
+
+def _lime_problem(method: str, lime: LimeRule, available: set[str], ph_method: str) -> str | None:
+    """Why ``method`` cannot run here (inputs, pH method, target), or None when it can."""
+    missing = [n for n in _method_needs(method) if _source_of(n, available) is None]
+    if missing:
+        return "needs " + ", ".join(_DESCRIBE[n] for n in missing)
+    if method not in TARGET_METHODS or method == "base_saturation":
+        return None
+    fixed = _FIXED_PH.get(method)
+    if fixed is not None and fixed != ph_method:
+        return (f"is calibrated on pH in {fixed}, but the lab's pH is in {ph_method} (no "
+                "conversion is applied)")
+    target = lime.target()
+    if target.ph_method != ph_method:
+        return (f"the target pH {target.ph:g} is in {target.ph_method} ({target.source}), but "
+                f"the lab's pH is in {ph_method}: set {SECTION}.lime.target_ph and "
+                f"target_ph_method = '{ph_method}'")
+    lo, hi = {"smp": (6.0, 7.0), "sikora": (6.0, 7.0), "mehlich": (0.0, 6.6 - 1e-9),
+              "adams_evans": (0.0, 6.5)}.get(method, (0.0, 99.0))
+    if not lo <= target.ph <= hi:
+        return f"takes targets from pH {lo:g} to {hi:.2g} (the target is {target.ph:g})"
+    return None
+
+
+def choose_lime_method(
+    settings: RateSettings, available: set[str], *, ph_method: str | None = None
+) -> tuple[str | None, list[str]]:
+    """The first lime method of ``method_order`` the samples can run, and why the others cannot.
+
+    Parameters
+    ----------
+    settings : RateSettings
+        The rate settings (its ``lime.method_order`` and target).
+    available : set of str
+        Input surfaces the samples give (see :data:`INPUT_NAMES`).
+    ph_method : str, optional
+        pH method of the lab's pH (``"water"`` or ``"CaCl2"``; default water, the
+        trade's reading of a bare "pH").
+
+    Returns
+    -------
+    method, reasons
+        The method (None when none can run) and, for each method before it in
+        the order, why it cannot.
+
+    Examples
+    --------
+    >>> choose_lime_method(RateSettings(), {"ph", "oc", "clay"}, ph_method="water")[0]
+    'phbc'
+    >>> choose_lime_method(RateSettings(), {"ph", "bph_smp", "al"})[0]
+    'smp'
+    """
+    phm = ph_method or "water"
+    reasons: list[str] = []
+    for m in settings.lime.method_order:
+        why = _lime_problem(m, settings.lime, set(available), phm)
+        if why is None:
+            return m, reasons
+        reasons.append(f"{m} {why}")
+    return None, reasons
+
+
+def _resolve(settings: RateSettings, available: set[str], ph_method: str | None) -> RateSettings:
+    """``settings`` with ``lime.method = 'auto'`` replaced by the method chosen (if any)."""
+    if settings.lime.method != "auto" or settings.lime.enabled == "off":
+        return settings
+    chosen, _ = choose_lime_method(settings, available, ph_method=ph_method)
+    if chosen is None:
+        return settings
+    return dataclasses.replace(settings, lime=dataclasses.replace(settings.lime, method=chosen))
+
+
+def _possible_methods(available: set[str], settings: RateSettings, ph_method: str) -> str:
+    ok = [m for m in (*AL_METHODS, *TARGET_METHODS)
+          if _lime_problem(m, settings.lime, available, ph_method) is None]
     return "possible here: " + ", ".join(ok) if ok else "none is possible with these samples"
 
 
 def plan_rules(
-    settings: RateSettings, available: set[str]
+    settings: RateSettings, available: set[str], *, ph_method: str | None = None
 ) -> tuple[list[str], list[tuple[str, str]]]:
     """Which rules run on the surfaces ``available``, and which are skipped and why.
 
@@ -504,6 +801,8 @@ def plan_rules(
         The rate settings.
     available
         Names of the input surfaces (see :data:`INPUT_NAMES`).
+    ph_method
+        pH method of the ``ph`` surface (``"water"`` or ``"CaCl2"``; default water).
 
     Returns
     -------
@@ -522,6 +821,9 @@ def plan_rules(
     >>> plan_rules(RateSettings(), {"al", "ph", "ca"})
     (['lime', 'calcium'], [('gypsum', 'needs ESP (esp, or na with ecec), ECEC (ecec)')])
     """
+    phm = ph_method or "water"
+    available = set(available)
+    settings = _resolve(settings, available, ph_method)
     runs: list[str] = []
     skipped: list[tuple[str, str]] = []
     for rule in ("gypsum", "lime", "calcium", "balance", "balance_k"):
@@ -530,26 +832,44 @@ def plan_rules(
             continue
         if rule == "balance_k" and ("balance" not in runs or not settings.balance.wants_k):
             continue
+        if rule == "lime":
+            m = settings.lime.method
+            if m == "auto":
+                _, reasons = choose_lime_method(settings, available, ph_method=phm)
+                why: str | None = ("no method of method_order can run (" + "; ".join(reasons)
+                                   + ")")
+            else:
+                why = _lime_problem(m, settings.lime, available, phm)
+            if why is None:
+                runs.append(rule)
+                if settings.lime.maintenance_kmol_h_ha_yr > 0:
+                    runs.append("maintenance")
+                continue
+            reason = (why if m == "auto" else f"method '{m}' ({METHOD_CITATIONS[m]}) {why}")
+            if settings.lime.maintenance_kmol_h_ha_yr > 0:
+                runs.append("maintenance")
+            if rs.enabled == "on":
+                raise SettingsError(
+                    f"the lime rule is switched on but {reason}; available: "
+                    f"{', '.join(sorted(available)) or 'none'}, pH in {phm}. Fix: choose a method "
+                    f"that can run ({_possible_methods(available, settings, phm)}), supply its "
+                    f"inputs, or set {SECTION}.lime.enabled = 'auto'",
+                    key=_missing_key(rule, settings),
+                )
+            skipped.append((rule, reason))
+            continue
         missing = [n for n in _needs(rule, settings) if _source_of(n, available) is None]
         if not missing:
             runs.append(rule)
             continue
         what = ", ".join(_DESCRIBE[n] for n in missing)
-        if rule == "lime":
-            m = settings.lime.method
-            reason = f"method '{m}' ({METHOD_CITATIONS[m]}) needs {what}"
-        elif rule == "balance_k":
+        if rule == "balance_k":
             reason = f"the potassium part needs {what}"
         else:
             reason = f"needs {what}"
         if rs.enabled == "on":
-            fix = (
-                f"choose a method whose inputs the samples give ({_possible_methods(available)}), "
-                f"supply them, or set {SECTION}.lime.enabled = 'auto'"
-                if rule == "lime"
-                else f"supply them or set {SECTION}.{'balance' if rule == 'balance_k' else rule}"
-                ".enabled = 'auto'"
-            )
+            fix = (f"supply them or set {SECTION}.{'balance' if rule == 'balance_k' else rule}"
+                   ".enabled = 'auto'")
             raise SettingsError(
                 f"the {rule} rule is switched on but {reason}, which the samples do not give; "
                 f"available: {', '.join(sorted(available)) or 'none'}. Fix: {fix}",
@@ -559,10 +879,29 @@ def plan_rules(
     return runs, skipped
 
 
+def _ask_for(settings: RateSettings, available: set[str], ph_method: str) -> str:
+    """What to ask the lab for so that a method to a target pH can run here."""
+    buffers = [TARGET_METHODS[m].title.split(",")[0].split(" (")[0].replace(" buffer", "")
+               for m in settings.lime.method_order
+               if _FIXED_PH.get(m) == ph_method]
+    asks = []
+    if buffers:
+        asks.append(f"a buffer pH ({', '.join(buffers)})")
+    if "phbc" in settings.lime.method_order:
+        asks.append("organic carbon and clay (or a measured pHBC)")
+    if "base_saturation" in settings.lime.method_order and "cec_ph7" in available:
+        asks.append("exchangeable Ca, Mg and K")
+    if not asks:
+        asks = [_ASK[m] for m in settings.lime.method_order[:1]]
+    return " or ".join(asks) or "a lime-requirement test"
+
+
 def check_inputs(
     settings: RateSettings,
     available: set[str],
     products: Mapping[str, Product] | None = None,
+    *,
+    ph_method: str | None = None,
 ) -> list[str]:
     """Validate the rules against the surfaces the samples can give, before interpolating.
 
@@ -580,11 +919,14 @@ def check_inputs(
         other names are ignored).
     products
         The run's products (optional).
+    ph_method
+        pH method of the ``ph`` surface (default water).
 
     Returns
     -------
     list of str
-        Notes on skipped rules, e.g. ``"gypsum rule skipped: needs ESP ..."``.
+        Notes on skipped rules, e.g. ``"gypsum rule skipped: needs ESP ..."``; a
+        skipped lime rule also says what to ask the lab for.
 
     Raises
     ------
@@ -604,13 +946,23 @@ def check_inputs(
     ...     print(exc.key)
     rates.lime.method
     """
-    runs, skipped = plan_rules(settings, set(available))
+    avail = set(available)
+    runs, skipped = plan_rules(settings, avail, ph_method=ph_method)
     if products is not None:
-        _validate_products(settings, runs, products)
-    return [f"{rule} rule skipped: {reason}" for rule, reason in skipped]
+        _validate_products(_resolve(settings, avail, ph_method), runs, products)
+    notes = []
+    for rule, reason in skipped:
+        note = f"{rule} rule skipped: {reason}"
+        if rule == "lime" and "ph" in avail:
+            note += (f"; acid cells are flagged 'lime requirement needs a test': ask the lab for "
+                     f"{_ask_for(settings, avail, ph_method or 'water')}")
+        notes.append(note)
+    return notes
 
 
-def inputs_used(settings: RateSettings, available: set[str]) -> list[str]:
+def inputs_used(
+    settings: RateSettings, available: set[str], *, ph_method: str | None = None
+) -> list[str]:
     """The input surfaces the running rules will read (so only those need interpolating).
 
     Parameters
@@ -631,7 +983,8 @@ def inputs_used(settings: RateSettings, available: set[str]) -> list[str]:
     ['al', 'ca', 'ecec', 'esp', 'ph']
     """
     avail = set(available)
-    runs, _ = plan_rules(settings, avail)
+    runs, _ = plan_rules(settings, avail, ph_method=ph_method)
+    settings = _resolve(settings, avail, ph_method)
     used: set[str] = set()
     for rule in runs:
         for n in _needs(rule, settings):
@@ -686,10 +1039,13 @@ _QUIET = _Trace(False)
 class _Cells:
     """Input surfaces, with derived quantities worked out once (and explained)."""
 
-    def __init__(self, arrays: Mapping[str, NDArray[np.float64]], trace: _Trace) -> None:
+    def __init__(self, arrays: Mapping[str, NDArray[np.float64]], trace: _Trace,
+                 om_factor: float = VAN_BEMMELEN) -> None:
         self.arrays = dict(arrays)
         self.trace = trace
         self.cache: dict[str, NDArray[np.float64]] = {}
+        self.om_factor = om_factor
+        self.notes: list[str] = []
 
     def get(self, name: str) -> NDArray[np.float64]:
         if name in self.cache:
@@ -707,6 +1063,29 @@ class _Cells:
             self.trace.add("inputs", "ESP from exchangeable Na and ECEC", "ESP = 100 x Na / ECEC",
                            {"Na": (na, "cmol(+)/kg"), "ECEC": (ecec, "cmol(+)/kg")}, v, "%",
                            _DERIVED)
+        elif name == "oc":
+            om = np.maximum(self.arrays["om"], 0.0)
+            v = om / self.om_factor
+            self.trace.add("inputs", "organic carbon from organic matter",
+                           "OC = OM / factor", {"OM": (om, "%"), "factor": (self.om_factor, "")},
+                           v, "%", "van Bemmelen factor 1.724 [a convention]")
+        elif name == "phbc":
+            oc, clay = self.get("oc"), np.maximum(self.arrays["clay"], 0.0)
+            v = np.asarray(phbc_aitken(oc, clay), dtype=float)
+            self.trace.add("inputs", "pH buffering capacity from organic carbon and clay",
+                           "pHBC = 0.9548 x OC + 0.0111 x clay",
+                           {"OC": (oc, "%"), "clay": (clay, "%")}, v, "cmol(+)/kg/pH",
+                           "Aitken, Moody & McKinley 1990, Aust. J. Soil Res. 28:695 "
+                           "[from memory for the paper]")
+            outside = aitken_outside(oc, clay) & np.isfinite(v)
+            n = int(np.count_nonzero(outside))
+            if n:
+                self.notes.append(
+                    f"pHBC regression (Aitken, Moody & McKinley 1990) used outside the organic "
+                    f"carbon and clay it was fitted on on {n} cell(s): the lime there is less sure"
+                )
+                self.trace.note("inputs", "organic carbon or clay outside the range the pHBC "
+                                "regression was fitted on")
         elif name == "acidity":
             al, h = (np.maximum(self.arrays[a], 0.0) for a in alt)
             v = al + h
@@ -752,6 +1131,8 @@ def _select(
 class _Soil:
     depth_m: Any
     bulk_density_g_cm3: Any
+    ph_method: str = "water"
+    scoop_density_g_cm3: float = 1.0
 
 
 def _chain(
@@ -888,6 +1269,7 @@ class _State:
     ca_added: Any = 0.0
     mg_added: Any = 0.0
     guarded: Any = False
+    lime_unsure: Any = False
 
 
 def _ph_guard(
@@ -985,7 +1367,7 @@ def _rule_lime(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
         trace.add("lime", "lime requirement", "CaCO3 = factor x max(Al - tolerated Al, 0)",
                   {"factor": (lr.cochrane_factor, ""), "Al": (al, "cmol(+)/kg"),
                    "tolerated Al": (allowed, "cmol(+)/kg")}, need, "cmol(+)/kg CaCO3", src)
-    else:
+    elif lr.method == "acidity_share":
         acid, ecec = cells.get("acidity"), cells.get("ecec")
         allowed = lr.target_acidity_share_percent / 100.0 * ecec
         need = lr.acidity_factor * np.maximum(acid - allowed, 0.0)
@@ -994,6 +1376,8 @@ def _rule_lime(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
                   {"factor": (lr.acidity_factor, ""), "acidity": (acid, "cmol(+)/kg"),
                    "share": (lr.target_acidity_share_percent, "%"), "ECEC": (ecec, "cmol(+)/kg")},
                   need, "cmol(+)/kg CaCO3", src)
+    else:
+        need = _target_need(st, trace, cells, lr, soil)
     rate = _chain(trace, "lime", need, substance="CaCO3", product=p, soil=soil)
     rate, withheld = _ph_guard(st, trace, cells, s, "lime", p, rate)
     _add(st, "lime", p.name, rate)
@@ -1002,6 +1386,131 @@ def _rule_lime(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
     st.ca_added = st.ca_added + neutralised * ca_share
     st.mg_added = st.mg_added + neutralised * mg_share
     st.methods["lime"] = src
+
+
+def _target_need(st: _State, trace: _Trace, cells: _Cells, lr: LimeRule,
+                 soil: _Soil) -> NDArray[np.float64]:
+    """CaCO3 (cmol(+)/kg) to the target by a target-pH method, after the lime trigger."""
+    m = lr.method
+    meta = TARGET_METHODS[m]
+    src = METHOD_CITATIONS[m]
+    target = lr.target()
+    published = f"published unit: {meta.calibration}"
+    if m != "base_saturation":
+        trace.add("lime", f"target pH, in {target.ph_method}", "target", {}, target.ph, "",
+                  target.source)
+    ph = cells.arrays.get("ph")
+    if m in ("smp", "sikora"):
+        bph = cells.get(f"bph_{m}")
+        tons = np.asarray(smp_lime(bph, target.ph), dtype=float)
+        trace.add("lime", f"{meta.title}: lime to the target pH",
+                  "table row by buffer pH, column by target (linear between)",
+                  {"buffer pH": (bph, ""), "target": (target.ph, "")}, tons,
+                  "short t CaCO3/ac (8-inch slice, 2.4 M lb/ac)", src)
+        lo, hi = SMP_BPH_RANGE
+        for n, text in ((int(np.count_nonzero(bph < lo)), f"below {lo:g}: held at the "
+                         "table's last row"),
+                        (int(np.count_nonzero(bph > hi)), f"above {hi:g}: tapered linearly to 0 "
+                         "at 7.0 (implementation choice)")):
+            if n:
+                st.notes.append(f"{meta.title}: buffer pH on {n} cell(s) {text}")
+        need = np.asarray(caco3_cmol_kg(tons, m), dtype=float)
+        trace.add("lime", "per kg of soil: the calibration's soil mass",
+                  "cmol(+)/kg = t/ac x 2241.70 kg/ha / 2.690e6 kg/ha x 1e6 / 500.4",
+                  {"t/ac": (tons, "short t/ac")}, need, "cmol(+)/kg CaCO3", published)
+    elif m == "mehlich":
+        bph = cells.get("bph_mehlich")
+        assert ph is not None
+        ac = np.asarray(mehlich_acidity(bph), dtype=float)
+        trace.add("lime", "acidity from the Mehlich buffer", "Ac = 4 x (6.6 - buffer pH)",
+                  {"buffer pH": (bph, "")}, ac, "meq/100 cm3", src)
+        tons = np.asarray(mehlich_lime(bph, ph, target.ph), dtype=float)
+        trace.add("lime", "lime to the target", "LR = Ac x (target - pH) / (6.6 - pH)",
+                  {"Ac": (ac, "meq/100 cm3"), "target": (target.ph, ""), "pH": (ph, "")},
+                  tons, "short t CaCO3/ac", src)
+        need = np.asarray(caco3_cmol_kg(tons, m, bulk_density_g_cm3=soil.bulk_density_g_cm3))
+        trace.add("lime", "per kg of soil: the calibration's 0.20 m of soil by volume",
+                  "cmol(+)/kg = t/ac x 2241.70 / (10 000 x 0.20 m) / (BD x 1000) x 1e6 / 500.4",
+                  {"t/ac": (tons, "short t/ac"), "BD": (soil.bulk_density_g_cm3, "g/cm3")},
+                  need, "cmol(+)/kg CaCO3", published)
+    elif m == "adams_evans":
+        bph = cells.get("bph_adams_evans")
+        assert ph is not None
+        h = np.asarray(adams_evans_acidity(bph), dtype=float)
+        trace.add("lime", "exchangeable acidity from the Adams-Evans buffer",
+                  "H = 8 x (8.00 - buffer pH)", {"buffer pH": (bph, "")}, h, "cmol(+)/kg", src)
+        need = np.asarray(adams_evans_lime(bph, ph, target.ph), dtype=float)
+        trace.add("lime", "share of H to neutralise to the target",
+                  "CaCO3 = H x min((target - pH) / (6.5 - pH), 1)",
+                  {"H": (h, "cmol(+)/kg"), "target": (target.ph, ""), "pH": (ph, "")}, need,
+                  "cmol(+)/kg CaCO3", src)
+    elif m == "phbc":
+        b = cells.get("phbc")
+        assert ph is not None
+        need = np.asarray(phbc_lime(ph, target.ph, b), dtype=float)
+        trace.add("lime", "lime from the pH buffering capacity", "CaCO3 = (target - pH) x pHBC",
+                  {"target": (target.ph, ""), "pH": (ph, ""), "pHBC": (b, "cmol(+)/kg/pH")},
+                  need, "cmol(+)/kg CaCO3", src)
+    else:  # base_saturation
+        t_kg = cells.get("cec_ph7")
+        bases = cells.get("ca") + cells.get("mg") + cells.get("k")
+        if "na" in cells.arrays:
+            bases = bases + np.maximum(cells.arrays["na"], 0.0)
+        v1 = _safe_div(100.0 * bases, t_kg)
+        trace.add("lime", "base saturation at pH 7", "V1 = 100 x (Ca + Mg + K (+ Na)) / T",
+                  {"bases": (bases, "cmol(+)/kg"), "T": (t_kg, "cmol(+)/kg")}, v1, "%", src)
+        t_vol = t_kg * soil.scoop_density_g_cm3
+        tons = np.asarray(base_saturation_lime(t_vol, v1, lr.target_base_saturation_percent),
+                          dtype=float)
+        trace.add("lime", "lime to the target base saturation (as CaCO3, PRNT 100 %)",
+                  "NC = T x (V2 - V1) / 100, T in cmolc/dm3 = cmol(+)/kg x scoop density",
+                  {"T": (t_vol, "cmolc/dm3"), "V2": (lr.target_base_saturation_percent, "%"),
+                   "V1": (v1, "%"), "scoop density": (soil.scoop_density_g_cm3, "g/cm3")},
+                  tons, "t CaCO3/ha for 0-20 cm", src)
+        need = np.asarray(caco3_cmol_kg(tons, m, bulk_density_g_cm3=soil.bulk_density_g_cm3))
+        trace.add("lime", "per kg of soil: the calibration's 0.20 m of soil by volume",
+                  "cmol(+)/kg = t/ha x 1000 / (10 000 x 0.20 m) / (BD x 1000) x 1e6 / 500.4",
+                  {"t/ha": (tons, "t/ha"), "BD": (soil.bulk_density_g_cm3, "g/cm3")},
+                  need, "cmol(+)/kg CaCO3", published)
+        return need
+    assert ph is not None
+    due = below_trigger(ph, target.ph, lr.trigger_margin_ph)
+    unsure = due & ~np.isfinite(need)
+    st.lime_unsure = np.logical_or(st.lime_unsure, unsure)
+    out = np.where(np.isnan(ph), np.nan, np.where(due, np.nan_to_num(need, nan=0.0), 0.0))
+    trace.add("lime", f"lime trigger: only where pH is more than {lr.trigger_margin_ph:g} below "
+              "the target", "CaCO3 where pH < target - margin, else 0",
+              {"pH": (ph, ""), "target": (target.ph, ""), "margin": (lr.trigger_margin_ph, "")},
+              out, "cmol(+)/kg CaCO3", "[common practice]")
+    return np.asarray(out, dtype=float)
+
+
+def _rule_maintenance(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
+                      products: Mapping[str, Product], soil: _Soil) -> None:
+    lr = s.lime
+    p = _product(products, lr.product, f"{SECTION}.lime.product", need="liming")
+    src = METHOD_CITATIONS["maintenance"]
+    kg = float(maintenance_lime(lr.maintenance_kmol_h_ha_yr))
+    trace.add("maintenance", "CaCO3 to offset the net acid addition of a year",
+              "kg CaCO3/ha = kmol H+/ha/yr x 50.04",
+              {"kmol H+/ha/yr": (lr.maintenance_kmol_h_ha_yr, "")}, kg, "kg CaCO3/ha", src)
+    mass = np.asarray(kg_per_ha_of_layer(depth_m=soil.depth_m,
+                                         bulk_density_g_cm3=soil.bulk_density_g_cm3))
+    need = kg * 1e6 / mass / MG_CACO3_PER_CMOL
+    ref = next(iter(cells.arrays.values()), None)
+    if ref is not None:
+        need = np.where(np.isnan(ref), np.nan, need)
+    trace.add("maintenance", "per kg of the treated layer", "cmol(+)/kg = kg/ha x 1e6 / soil mass "
+              "/ 500.4", {"kg/ha": (kg, "kg CaCO3/ha"), "soil mass": (mass, "kg/ha")}, need,
+              "cmol(+)/kg CaCO3", _DERIVED)
+    rate = _chain(trace, "maintenance", need, substance="CaCO3", product=p, soil=soil)
+    rate, _ = _ph_guard(st, trace, cells, s, "maintenance", p, rate)
+    _add(st, "maintenance", p.name, rate)
+    st.methods["maintenance"] = src
+    st.notes.append(
+        f"maintenance lime: {kg:.0f} kg CaCO3/ha a year for a net acid addition of "
+        f"{lr.maintenance_kmol_h_ha_yr:g} kmol H+/ha/yr, shown separately (rule 'maintenance')"
+    )
 
 
 def _rule_calcium(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
@@ -1156,9 +1665,10 @@ def _run(
     soil: _Soil,
     trace: _Trace,
 ) -> RateResult:
-    runs, skipped = plan_rules(settings, set(arrays))
+    runs, skipped = plan_rules(settings, set(arrays), ph_method=soil.ph_method)
+    settings = _resolve(settings, set(arrays), soil.ph_method)
     _validate_products(settings, runs, products)
-    cells = _Cells(arrays, trace)
+    cells = _Cells(arrays, trace, om_factor=settings.lime.om_to_oc_factor)
     st = _State(contributions={}, notes=[], methods={})
     for rule, reason in skipped:
         st.notes.append(f"{rule} rule skipped: {reason}")
@@ -1174,10 +1684,14 @@ def _run(
             _rule_gypsum(st, trace, cells, settings, products, soil)
         elif rule == "lime":
             _rule_lime(st, trace, cells, settings, products, soil)
+        elif rule == "maintenance":
+            _rule_maintenance(st, trace, cells, settings, products, soil)
         elif rule == "calcium":
             _rule_calcium(st, trace, cells, settings, products, soil)
         elif rule == "balance":
             _rule_balance(st, trace, cells, settings, products, soil, with_k="balance_k" in runs)
+    st.notes.extend(cells.notes)
+    needs_test, ask, target_text = _needs_test(st, trace, arrays, settings, soil, runs)
     if "balance" in runs:
         st.notes.append(
             "cation balance targets are CONTESTED (Kopittke & Menzies 2007, SSSA J 71:259): "
@@ -1197,7 +1711,45 @@ def _run(
         notes=st.notes,
         methods=st.methods,
         ph_guard_cells=int(np.count_nonzero(st.guarded)),
+        needs_test=needs_test,
+        ask_for=ask,
+        target=target_text,
     )
+
+
+def _needs_test(
+    st: _State, trace: _Trace, arrays: Mapping[str, NDArray[np.float64]], settings: RateSettings,
+    soil: _Soil, runs: list[str],
+) -> tuple[NDArray[np.bool_] | None, str, str]:
+    """Acid cells no lime method could run on; what to ask the lab for; the target as text."""
+    lr = settings.lime
+    if lr.enabled == "off":
+        return None, "", ""
+    target = lr.target()
+    uses_ph = lr.method in TARGET_METHODS and lr.method != "base_saturation"
+    target_text = (f"pH {target.ph:g} in {target.ph_method} ({target.source})" if uses_ph
+                   else f"base saturation {lr.target_base_saturation_percent:g} % at pH 7"
+                   if lr.method == "base_saturation" else "")
+    if "ph" not in arrays:
+        return None, "", target_text
+    ph = arrays["ph"]
+    threshold = target.ph if target.ph_method == soil.ph_method else _ACID_BELOW[soil.ph_method]
+    acid = below_trigger(ph, threshold, lr.trigger_margin_ph)
+    if "lime" in runs:
+        flag = acid & np.asarray(st.lime_unsure, dtype=bool)
+    else:
+        flag = acid
+    flag = np.asarray(flag, dtype=bool)
+    ask = _ask_for(settings, set(arrays), soil.ph_method)
+    if flag.any():
+        n = int(np.count_nonzero(flag))
+        st.notes.append(
+            f"lime requirement needs a test on {n} acid cell(s) (pH below {threshold:g} in "
+            f"{soil.ph_method} by more than {lr.trigger_margin_ph:g}) where no lime method can "
+            f"run: ask the lab for {ask}"
+        )
+        trace.note("lime", f"lime requirement needs a test: ask the lab for {ask}")
+    return flag, ask, target_text
 
 
 def compute_rates(
@@ -1207,6 +1759,8 @@ def compute_rates(
     *,
     depth_m: float | NDArray[np.float64],
     bulk_density_g_cm3: float | NDArray[np.float64],
+    ph_method: str | None = None,
+    scoop_density_g_cm3: float = 1.0,
 ) -> RateResult:
     """Product rates per cell, kg/ha as spread, before spreader limits.
 
@@ -1225,6 +1779,12 @@ def compute_rates(
         Treated depth, m (scalar or per-cell array).
     bulk_density_g_cm3
         Bulk density of the treated layer, g/cm3 (scalar or per-cell array).
+    ph_method
+        pH method of the ``ph`` surface, ``"water"`` or ``"CaCl2"`` (default
+        water, the trade's reading of a bare "pH").
+    scoop_density_g_cm3
+        Density the lab's volumetric amounts were read with (base-saturation
+        method: its T is per volume).
 
     Returns
     -------
@@ -1280,7 +1840,7 @@ def compute_rates(
                 column=key,
                 fix="pass a scalar or an array of the paddock grid's shape",
             )
-    soil = _Soil(depth_m, bulk_density_g_cm3)
+    soil = _Soil(depth_m, bulk_density_g_cm3, ph_method or "water", scoop_density_g_cm3)
     result = _run(arrays, settings, products, soil, _QUIET)
     if shape is not None:
         for name, rate in result.product_rates.items():
@@ -1291,6 +1851,13 @@ def compute_rates(
         warnings.warn(
             f"pH guard withheld liming products on {result.ph_guard_cells} cell(s) with pH above "
             f"{settings.no_lime_above_ph:g}",
+            RateWarning,
+            stacklevel=2,
+        )
+    if result.needs_test_cells:
+        warnings.warn(
+            f"lime requirement needs a test: {result.needs_test_cells} acid cell(s) where no lime "
+            f"method can run; ask the lab for {result.ask_for}",
             RateWarning,
             stacklevel=2,
         )
@@ -1306,6 +1873,8 @@ def explain_cell(
     *,
     depth_m: float | None = None,
     bulk_density_g_cm3: float | None = None,
+    ph_method: str | None = None,
+    scoop_density_g_cm3: float = 1.0,
 ) -> list[Step]:
     """The arithmetic of :func:`compute_rates` for one cell, step by step.
 
@@ -1348,7 +1917,8 @@ def explain_cell(
         k: np.asarray(float(v)) for k, v in values.items() if k in INPUT_NAMES
     }
     trace = _Trace(True)
-    _run(arrays, settings, products, _Soil(float(d), float(b)), trace)
+    _run(arrays, settings, products,
+         _Soil(float(d), float(b), ph_method or "water", scoop_density_g_cm3), trace)
     return trace.steps
 
 
