@@ -29,7 +29,7 @@ import tomli_w
 from click.testing import CliRunner
 from pyproj import Transformer
 
-from cli.main import cli
+from geosoil.cli.main import cli
 
 UTM = "EPSG:32755"
 X0, Y0 = 540_000.0, 6_160_000.0  # an invented 400 m x 300 m paddock
