@@ -27,9 +27,8 @@ import rasterio
 import shapely
 import tomli_w
 from click.testing import CliRunner
-from pyproj import Transformer
-
 from geosoil.cli.main import cli
+from pyproj import Transformer
 
 UTM = "EPSG:32755"
 X0, Y0 = 540_000.0, 6_160_000.0  # an invented 400 m x 300 m paddock
