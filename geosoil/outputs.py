@@ -392,11 +392,19 @@ MAP_SURFACES: tuple[tuple[str, str], ...] = (
     ("ca_sat", "amount"), ("mg_sat", "amount"), ("k_sat", "amount"), ("ecec", "amount"),
     ("ca", "amount"), ("mg", "amount"), ("k", "amount"), ("na", "amount"),
     ("acidity", "amount"), ("al", "amount"), ("ec", "ec"),
+    ("bph_smp", "amount"), ("bph_sikora", "amount"), ("bph_mehlich", "amount"),
+    ("bph_adams_evans", "amount"),
+    ("oc", "amount"), ("om", "amount"), ("clay", "amount"), ("phbc", "amount"),
+    ("cec_ph7", "amount"),
 )
+
+_MAP_ORDER = [m for m, _ in MAP_SURFACES]
 
 #: The surface that explains each rule's rate (the map opens on it).
 _EXPLAINS = {"gypsum": "esp", "calcium": "ca", "balance": "ca_sat"}
-_EXPLAINS_LIME = {"kamprath": "al", "cochrane": "al_sat", "acidity_share": "acid_sat"}
+_EXPLAINS_LIME = {"kamprath": "al", "cochrane": "al_sat", "acidity_share": "acid_sat",
+                  "smp": "ph", "sikora": "ph", "mehlich": "ph", "adams_evans": "ph", "phbc": "ph",
+                  "base_saturation": "cec_ph7"}
 
 
 def farm_layer(farm: FarmResult, var: str, what: str = "estimate"
@@ -553,7 +561,7 @@ def build_farm_map(farm: FarmResult) -> str:
             classes=surface_classes(farm, var, kind, arr),
         ))
     kriged = sorted({v for (_, v) in farm.surfaces}, key=lambda v: (
-        [m for m, _ in MAP_SURFACES].index(v) if v in TITLES else 99, v))
+        _MAP_ORDER.index(v) if v in _MAP_ORDER else 99, v))
     for var in kriged:
         got = farm_layer(farm, var, "std")
         if got is None:
