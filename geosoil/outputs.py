@@ -16,10 +16,13 @@ Layout (stable; scripts rely on it)::
       rates/<paddock>/<product>__<rule>.tif    each rule's share of that rate, kg/ha
       prescriptions/<paddock>/<product>.geojson       RFC 7946 zones
       prescriptions/<paddock>/<product>_shp.zip       zipped ESRI shapefile of the zones
-      prescriptions/<paddock>/<product>_zones.tif     zone rates as a raster
+                                                      ([output] machine_crs)
+      prescriptions/<paddock>/<product>_zones.tif     zone rates as a raster (machine_crs)
       prescriptions/<paddock>/<product>_isoxml/TASKDATA/
-                                       ISO 11783-10 task data (rate grid, DDI 6); one
-                                       <product>_isoxml_pass<k>/ per pass when rates need several
+                                       ISO 11783-10 task data (rate grid, DDI 6)
+      prescriptions/<paddock>/<product>_pass<k>{.geojson,_shp.zip,_zones.tif,_isoxml/}
+                                       the same, once per pass, in place of the above when a
+                                       zone needs several passes (_season<k> for seasons)
 
 Every file is written to a temporary name and renamed into place.
 """
@@ -41,6 +44,7 @@ from . import report as report_mod
 from .grids import mosaic
 from .isoxml import MAX_DESIGNATOR, write_taskdata
 from .pipeline import FarmResult
+from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
 from .record import input_checksums, now_utc, slug, versions
 from .settings import to_mapping
 from .tonnage import first_season_tonnes
@@ -155,8 +159,10 @@ def write_outputs(
             cog(folder / f"{slug(product)}__{slug(rule)}.tif", contrib, pr.grid.transform,
                 f"{product} for rule {rule}", "kg/ha")
 
-    # prescriptions
+    # prescriptions: one set of machine files per pass (see geosoil.prescriptions)
     progress("writing prescriptions")
+    s = prep.project.settings
+    mcrs = machine_crs(s.output.machine_crs, working=crs, boundaries=prep.boundaries_crs)
     for name, pr in farm.paddocks.items():
         folder = out_dir / "prescriptions" / slug(name)
         folder.mkdir(parents=True, exist_ok=True)
@@ -164,21 +170,27 @@ def write_outputs(
             z = pr.zones[pr.zones["product"] == product]
             if z.empty:
                 continue
-            base = folder / slug(product)
-            p_geo = base.with_suffix(".geojson")
-            write_geojson(p_geo, z)
-            written.append(p_geo)
-            p_zip = folder / f"{slug(product)}_shp.zip"
-            write_shapefile_zip(p_zip, z)
-            written.append(p_zip)
-            shapes = [(g, float(r)) for g, r in zip(z.geometry, z["rate_kg_ha"], strict=True)]
-            zr = rasterio.features.rasterize(
-                shapes, out_shape=pr.grid.mask.shape, transform=pr.grid.transform,
-                fill=np.nan, dtype="float64",
-            )
-            zr[~pr.grid.mask] = np.nan
-            cog(folder / f"{slug(product)}_zones.tif", zr, pr.grid.transform,
-                f"{product} zone rates", "kg/ha")
+            n = n_passes(z)
+            for k, zk in pass_frames(z):
+                stem = slug(product) + pass_suffix(k, n, split_into=s.spreader.split_into)
+                p_geo = folder / f"{stem}.geojson"
+                write_geojson(p_geo, zk)
+                written.append(p_geo)
+                p_zip = folder / f"{stem}_shp.zip"
+                write_shapefile_zip(p_zip, zk, crs=mcrs)
+                written.append(p_zip)
+                if mcrs.equals(crs):
+                    zr, zt = zone_raster(zk, crs=crs, cell_size_m=s.grid.cell_size_m,
+                                         transform=pr.grid.transform, shape=pr.grid.mask.shape)
+                    zr[~pr.grid.mask] = np.nan
+                else:
+                    zr, zt = zone_raster(zk, crs=mcrs, cell_size_m=s.grid.cell_size_m)
+                p_tif = folder / f"{stem}_zones.tif"
+                word = "season" if s.spreader.split_into == "seasons" else "pass"
+                what = f"{product} zone rates" + (f", {word} {k} of {n}" if n > 1 else "")
+                write_cog(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
+                          tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
+                written.append(p_tif)
             written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product))
 
     # tables
@@ -229,8 +241,9 @@ def _write_isoxml(
 
     A controller applies one rate per cell per task, so a zone whose rate
     needs several passes (spreader max per pass) is written as pass 1, pass 2...
-    tasks, each holding the per-pass rate of the zones that still need it (and
-    0 elsewhere). Each task is one pass, so it carries no "needs several passes"
+    task sets (``<product>_pass<k>_isoxml/``, named like the other pass files),
+    each holding the per-pass rate of the zones that still need it (and 0
+    elsewhere). Each task is one pass, so it carries no "needs several passes"
     warning; its product name starts with the pass ("pass 2/3 ...", or "season
     2/3 ..." when rates are split into seasons) so that the terminal tells them
     apart even when the name is cut to the standard's 32 characters.
@@ -241,25 +254,16 @@ def _write_isoxml(
     prep = farm.prep
     boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
     label = prep.products[product].label if product in prep.products else product
-    if "passes" in zones.columns:
-        passes = zones["passes"].fillna(1).astype(int)
-    else:
-        passes = pd.Series(1, index=zones.index)
-    n_tasks = int(passes.max())
+    split_into = prep.project.settings.spreader.split_into
+    n_tasks = n_passes(zones)
     written: list[Path] = []
-    for k in range(1, max(n_tasks, 1) + 1):
-        zk = zones.copy()
+    for k, zk in pass_frames(zones):
+        sub = folder / f"{slug(product)}{pass_suffix(k, n_tasks, split_into=split_into)}_isoxml"
         if n_tasks > 1:
-            per_pass = zones["per_pass_kg_ha"].fillna(zones["rate_kg_ha"])
-            zk["rate_kg_ha"] = np.where(passes >= k, per_pass, 0.0)
-            zk["passes"] = 1  # this task is one pass of each zone
-            zk["per_pass_kg_ha"] = zk["rate_kg_ha"]
-            sub = folder / f"{slug(product)}_isoxml_pass{k}"
-            word = "season" if prep.project.settings.spreader.split_into == "seasons" else "pass"
+            word = "season" if split_into == "seasons" else "pass"
             prefix = f"{word} {k}/{n_tasks} "
             task_label = prefix + str(label)[: MAX_DESIGNATOR - len(prefix)].rstrip()
         else:
-            sub = folder / f"{slug(product)}_isoxml"
             task_label = label
         written.extend(write_taskdata(
             sub, zones=zk, boundary=boundary, crs=zones.crs, product_label=task_label,

@@ -97,6 +97,8 @@ class Prepared:
     products: dict[str, Product]
     rule_notes: list[str]
     warnings: list[str] = field(default_factory=list)
+    boundaries_crs: Any = None
+    """CRS of the paddock boundaries file as read (before the working CRS)."""
 
 
 def _check_paddock_keys(
@@ -153,6 +155,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
                 float(lonlat[0]), float(lonlat[1]), float(lonlat[2]), float(lonlat[3])
             ),
         )
+        boundaries_crs = paddocks.crs
         paddocks = paddocks.to_crs(crs)
         exclusions = read_exclusions(s.boundaries, crs=crs)
         user_zones = None
@@ -179,6 +182,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         project=project, crs=crs, crs_reason=reason, paddocks=paddocks, exclusions=exclusions,
         user_zones=user_zones, read=read, samples=samples, grids=grids, variables=variables,
         products=products, rule_notes=list(rule_notes), warnings=sink,
+        boundaries_crs=boundaries_crs,
     )
 
 

@@ -143,6 +143,13 @@ class OutputSettings:
         None,
         doc="folder for cached surfaces (default: the user's cache folder, ~/.cache/geosoil)",
     )
+    machine_crs: str = setting(
+        "wgs84",
+        doc="CRS of the prescription shapefiles and zone GeoTIFFs: 'wgs84' (longitude/latitude, "
+        "what most in-cab terminals take), 'working' (the run's UTM zone) or 'boundaries' (the "
+        "paddock file's CRS); GeoJSON and task data are always WGS 84",
+        choices=("wgs84", "working", "boundaries"),
+    )
 
 
 def default_products() -> dict[str, ProductSettings]:

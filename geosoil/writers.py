@@ -82,6 +82,9 @@ SHAPEFILE_FIELDS: dict[str, str] = {
     "area_ha": "AREA_HA",
     "n_cells": "N_CELLS",
     "schedule": "SCHEDULE",
+    "pass_no": "PASS",
+    "of_passes": "OF_PASSES",
+    "zone_passes": "ZONE_PASS",
 }
 
 _SHP_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")

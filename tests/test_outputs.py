@@ -69,7 +69,7 @@ def test_each_pass_task_holds_the_per_pass_rate_without_a_several_passes_warning
     # 1 kg/ha = 100 mg/m2 (REFERENCES.md [derived]); cells outside the paddock hold 0.
     expected = {1: {0, 90000, 80000, 70000}, 2: {0, 80000, 70000}, 3: {0, 70000}}
     for k in (1, 2, 3):
-        root, values = _grid_values(tmp_path / f"lime_isoxml_pass{k}")
+        root, values = _grid_values(tmp_path / f"lime_{word}{k}_isoxml")
         assert values == expected[k]
         name = root.find("PDT").get("B")
         assert name.startswith(f"{word} {k}/3 ") and len(name) <= MAX_DESIGNATOR

@@ -166,8 +166,11 @@ def test_geotiffs_crs_nodata_cog_and_physical_bounds(demo, areas) -> None:
     seen_sd = False
     for path in tifs:
         name = by_slug[path.parent.name]
+        machine = path.parent.parent.name == "prescriptions"
         with rasterio.open(path) as src:
-            assert src.crs is not None and src.crs.to_epsg() == WORKING_EPSG, path
+            # prescriptions follow [output] machine_crs: WGS 84 lon/lat by default
+            assert src.crs is not None, path
+            assert src.crs.to_epsg() == (4326 if machine else WORKING_EPSG), path
             structure = src.tags(ns="IMAGE_STRUCTURE")
             assert structure.get("LAYOUT") == "COG", path
             assert structure.get("COMPRESSION") == "DEFLATE", path
@@ -176,6 +179,8 @@ def test_geotiffs_crs_nodata_cog_and_physical_bounds(demo, areas) -> None:
             t = src.transform
             rows, cols = np.indices(data.shape)
             x, y = t.c + (cols + 0.5) * t.a, t.f + (rows + 0.5) * t.e
+        if machine:
+            x, y = pyproj.Transformer.from_crs(4326, WORKING_EPSG, always_xy=True).transform(x, y)
         pts = shapely.points(x, y)
         paddock = areas.paddock[name]
         treated = areas.treated[name]
@@ -212,14 +217,23 @@ def prescriptions(demo):
     return out
 
 
+def product_of(stem: str) -> str:
+    """The product of a prescription file's stem: ``lime_pass2`` -> ``lime``."""
+    return re.sub(r"_(pass|season)[0-9]+$", "", stem)
+
+
 def test_every_paddock_and_product_has_a_prescription(demo, prescriptions) -> None:
     products = set(demo.project.settings.products)
-    assert set(prescriptions) == {(n, p) for n in PADDOCK_NAMES for p in products}
+    assert {(n, product_of(p)) for n, p in prescriptions} == {
+        (n, p) for n in PADDOCK_NAMES for p in products}
+    # the demo's Red Hill lime needs two passes of a 4 t/ha spreader (passes.csv): one file each
+    assert ("Red Hill", "lime_pass1") in prescriptions and ("Red Hill", "lime") not in prescriptions
 
 
 def test_zones_tile_each_paddock(prescriptions, areas) -> None:
-    for (name, product), (zones, _doc, lonlat) in prescriptions.items():
-        where = f"{name}, {product}"
+    for (name, stem), (zones, _doc, lonlat) in prescriptions.items():
+        product = product_of(stem)
+        where = f"{name}, {stem}"
         assert shapely.is_valid(lonlat.geometry.values).all(), where
         assert set(zones["paddock"]) == {name} and set(zones["product"]) == {product}
         paddock = areas.paddock[name]
@@ -240,7 +254,8 @@ def test_farm_tonnage_is_area_times_rate_from_the_geojson(demo, prescriptions) -
     farm = table[table["level"] == "farm"].set_index("product")
     assert set(farm.index) == set(demo.project.settings.products)
     by_hand: dict[str, float] = {}
-    for (_name, product), (zones, _doc, _ll) in prescriptions.items():
+    for (_name, stem), (zones, _doc, _ll) in prescriptions.items():
+        product = product_of(stem)  # the passes add up to the prescription
         t = float((zones.geometry.area / 1e4 * zones["rate_kg_ha"]).sum() / 1000.0)
         by_hand[product] = by_hand.get(product, 0.0) + t
     for product, tonnes in by_hand.items():
@@ -298,7 +313,7 @@ def test_shapefile_zips(demo, prescriptions) -> None:
         names = dbf_field_names(dbf)
         assert names and all(0 < len(n) <= 10 for n in names), names
         shp = gpd.read_file(path)
-        assert shp.crs.to_epsg() == WORKING_EPSG
+        assert shp.crs.to_epsg() == 4326  # [output] machine_crs = "wgs84", the default
         assert set(shp.columns) - {"geometry"} == set(names)
         zones = prescriptions[(by_slug[path.parent.name], path.name.removesuffix("_shp.zip"))][0]
         assert len(shp) == len(zones)
@@ -376,11 +391,11 @@ def test_run_record_variograms_and_cross_validation(demo) -> None:
 
 def test_run_record_zones_totals_warnings_cautions(demo, prescriptions) -> None:
     rec = demo.record
-    from_files = {
-        (name, product, int(z)): float(r)
-        for (name, product), (zones, _d, _l) in prescriptions.items()
-        for z, r in zip(zones["zone"], zones["rate_kg_ha"], strict=True)
-    }
+    from_files: dict[tuple[str, str, int], float] = {}
+    for (name, stem), (zones, _d, _l) in prescriptions.items():
+        for z, r in zip(zones["zone"], zones["rate_kg_ha"], strict=True):
+            key = (name, product_of(stem), int(z))  # the passes add up to the zone's rate
+            from_files[key] = from_files.get(key, 0.0) + float(r)
     from_record = {(z["paddock"], z["product"], int(z["zone"])): float(z["rate_kg_ha"])
                    for z in rec["zones"]}
     assert from_record == pytest.approx(from_files)
