@@ -37,7 +37,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import rasterio.features
 
 from . import presentation, webmap
 from . import report as report_mod

@@ -19,7 +19,7 @@ from geosoil.prescriptions import (
     pass_suffix,
     zone_raster,
 )
-from geosoil.rates import SpreaderSettings
+from geosoil.spreader import SpreaderSettings
 from geosoil.zones import limit_zone_rate
 
 CRS = "EPSG:32755"
