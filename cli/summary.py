@@ -17,17 +17,23 @@ __all__ = ["print_summary"]
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
     from geosoil.report import CAUTIONS
-    from geosoil.tonnage import format_summary
+    from geosoil.tonnage import KG_PER_SHORT_TON, format_summary, mass_unit_for
 
-    rate_unit = result.farm.prep.project.settings.output.rate_unit
-    click.echo(format_summary(result.tonnage, rate_unit=rate_unit))
+    settings = result.farm.prep.project.settings
+    rate_unit = settings.output.rate_unit
+    click.echo(format_summary(result.tonnage, rate_unit=rate_unit,
+                              currency=settings.tonnage.currency))
     first = result.record.get("first_season_tonnes")
     if first:
         click.echo("")
         click.echo("Rates are split into seasons; the totals above cover every season.")
         click.echo("To spread this season (then re-test before the next):")
+        short = mass_unit_for(rate_unit) == "short ton"
         for product, tonnes in sorted(first.items()):
-            click.echo(f"  {product}: {tonnes:,.2f} t")
+            if short:
+                click.echo(f"  {product}: {tonnes * 1000 / KG_PER_SHORT_TON:,.2f} short tons")
+            else:
+                click.echo(f"  {product}: {tonnes:,.2f} t")
     click.echo("")
     click.echo(f"Output folder: {result.out_dir}")
     for name in ("tonnage.csv", "map.html", "report.html", "run.json"):

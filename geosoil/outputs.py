@@ -46,7 +46,7 @@ from .pipeline import FarmResult
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
 from .record import input_checksums, now_utc, slug, versions
 from .settings import to_mapping
-from .tonnage import first_season_tonnes
+from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
 from .units import rate_from_kg_ha
 from .writers import (
     atomic_write,
@@ -194,7 +194,8 @@ def write_outputs(
 
     # tables
     p = out_dir / "tonnage.csv"
-    write_csv(p, farm.tonnage)
+    write_csv(p, tonnage_csv(farm.tonnage, mass_unit=mass_unit_for(s.output.rate_unit),
+                             currency=s.tonnage.currency))
     written.append(p)
     passes = farm.zones[farm.zones.get("passes", pd.Series(1, index=farm.zones.index)) > 1] \
         if "passes" in farm.zones.columns else farm.zones.iloc[0:0]
@@ -742,6 +743,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
             versions=versions(),
         ),
         rate_unit=s.output.rate_unit,
+        currency=s.tonnage.currency,
     )
 
 

@@ -120,8 +120,17 @@ class TonnageSettings:
     price_per_t: dict[str, float] = setting(
         default_factory=dict, doc="price of each product per tonne, delivered", unit="per t"
     )
+    currency: str = setting(
+        "", doc="ISO 4217 code of the prices' currency (e.g. AUD), shown with every cost; "
+        "empty: none named"
+    )
 
     def __post_init__(self) -> None:
+        if self.currency and not (len(self.currency) == 3 and self.currency.isascii()
+                                  and self.currency.isalpha() and self.currency.isupper()):
+            raise SettingsError(
+                f"'{self.currency}' is not a currency code: write the three capital letters of "
+                "ISO 4217 (AUD, NZD, USD, EUR, ...)", key="currency")
         for name, price in self.price_per_t.items():
             if not (price >= 0 and math.isfinite(price)):
                 raise SettingsError(f"must be 0 or more (got {price:g})", key=f"price_per_t.{name}")

@@ -280,6 +280,9 @@ class ReportInput:
     rate_unit
         Unit of the rates shown (tonnage tables, zone-map labels): one of
         :data:`geosoil.units.RATE_UNITS`. ``tonnage`` and ``zones`` stay in kg/ha.
+        With lb/ac the amounts are shown in short tons (column ``short_tons``).
+    currency
+        Currency code shown in the cost headers ("" for none).
     """
 
     title: str
@@ -296,6 +299,7 @@ class ReportInput:
     provenance: Provenance = field(default_factory=Provenance)
     cautions: Sequence[str] = CAUTIONS
     rate_unit: str = "kg/ha"
+    currency: str = ""
 
     def __post_init__(self) -> None:
         if self.rate_unit not in RATE_UNITS:
@@ -812,15 +816,25 @@ def _table(
     return f"<table{klass}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-def _tonnage_headers(unit: str, *, schedule: bool = False) -> tuple[tuple[str, bool], ...]:
+def _mass(unit: str) -> tuple[str, str]:
+    """The tonnage column and its header label for a rate unit: short tons with lb/ac."""
+    return ("short_tons", "short tons") if unit == "lb/ac" else ("tonnes", "t")
+
+
+def _cost_header(currency: str) -> str:
+    return f"cost ({_t(currency)})" if currency else "cost"
+
+
+def _tonnage_headers(unit: str, *, schedule: bool = False,
+                     currency: str = "") -> tuple[tuple[str, bool], ...]:
     return (
         ("zone", False),
         ("area (ha)", True),
         (f"rate ({_t(unit)})", True),
         *((("applied as", False),) if schedule else ()),
-        ("product (t)", True),
+        (f"product ({_mass(unit)[1]})", True),
         ("truckloads", True),
-        ("cost", True),
+        (_cost_header(currency), True),
     )
 
 
@@ -853,8 +867,8 @@ def _tonnage_rows(
                 _num(r["area_ha"], 2),
                 _t(_rate_text(r["rate_kg_ha"], unit, with_unit=False)) if is_zone else "",
                 *split,
-                _num(r["tonnes"], 2),
-                _num(r["truckloads"], 1),
+                _num(r[_mass(unit)[0]] if _mass(unit)[0] in r else r["tonnes"], 2),
+                _num(r["truckloads"], 0),
                 _num(r["cost"], 2),
             ]
         )
@@ -970,14 +984,15 @@ def build_report(data: ReportInput) -> str:
 
     # Farm totals
     farm = tonnage[tonnage["level"] == "farm"]
+    mass_col, mass_label = _mass(data.rate_unit)
     out.append('<section id="summary"><h2>Farm totals</h2>')
     if len(farm):
         rows = [
             [
                 _t(r["product"]),
                 _num(r["area_ha"], 2),
-                _num(r["tonnes"], 2),
-                _num(r["truckloads"], 1),
+                _num(r[mass_col] if mass_col in r else r["tonnes"], 2),
+                _num(r["truckloads"], 0),
                 _num(r["cost"], 2),
             ]
             for _, r in farm.iterrows()
@@ -987,9 +1002,9 @@ def build_report(data: ReportInput) -> str:
                 [
                     ("product", False),
                     ("area (ha)", True),
-                    ("product (t)", True),
+                    (f"product ({mass_label})", True),
                     ("truckloads", True),
-                    ("cost", True),
+                    (_cost_header(data.currency), True),
                 ],
                 rows,
                 css="farm-totals",
@@ -1047,7 +1062,8 @@ def build_report(data: ReportInput) -> str:
                 rows, classes = _tonnage_rows(order, colour_of, unit=data.rate_unit,
                                               schedules=schedules)
                 out.append(_table(_tonnage_headers(data.rate_unit,
-                                                   schedule=schedules is not None),
+                                                   schedule=schedules is not None,
+                                                   currency=data.currency),
                                   rows, css="tonnage", row_classes=classes))
             else:
                 out.append('<p class="note">No tonnage for this product here.</p>')

@@ -1,4 +1,4 @@
-"""Tonnes of product per zone, paddock and farm; truckloads; cost.
+"""Tonnes of product per zone, paddock and farm; truckloads; cost; rounded as a farmer reads.
 
 Pure arithmetic on the zones table (:func:`geosoil.zones.make_zones`):
 tonnes = area (ha) x rate (kg/ha) / 1000.
@@ -12,22 +12,29 @@ tonnes = area (ha) x rate (kg/ha) / 1000.
     Where the row belongs (``zone`` and ``kind`` are empty on total rows,
     ``paddock`` on farm rows).
 ``area_ha``
-    Zone area; on total rows the area of all zones summed, exclusions included.
+    Zone area, 0.01 ha; on total rows the area of all zones, exclusions included.
 ``spread_area_ha``
-    Area with a rate above 0.
+    Area with a rate above 0, 0.01 ha.
 ``rate_kg_ha``
-    The zone's rate; on total rows the mean over ``spread_area_ha``
+    The zone's rate (whole kg/ha); on total rows the mean over the spread area
     (tonnes x 1000 / spread area), empty when nothing is spread.
-``tonnes``
-    Product to spread, t.
-``loads``
-    ``tonnes / capacity``: how many loads' worth, as a fraction.
+``tonnes``, ``short_tons``
+    Product to spread, 0.01 t and 0.01 short ton (2 000 lb).
 ``truckloads``
-    Whole loads to carry the row's tonnes on their own (``ceil(loads)``); a
-    paddock's truckloads can be fewer than the sum over its zones, because one
-    load serves several zones.
+    Whole loads of ``capacity_t``. **Loads are counted per paddock**: a paddock
+    needs ``ceil(tonnes / capacity)`` loads and its zones share them in
+    proportion to their tonnes (largest remainder), so the zone rows add up to
+    the paddock row. The farm row is the sum of its paddocks' loads.
 ``price_per_t``, ``cost``
-    Price and ``tonnes x price``, empty where no price was given.
+    Price per tonne and ``tonnes x price`` to the cent, empty where no price
+    was given.
+
+**Rounding.** Each paddock figure is its exact total rounded (areas and
+tonnes to 0.01, cost to 0.01 of the currency, from the rounded tonnes); the
+zones share the rounded paddock figure by the largest-remainder method, so
+every zone is its exact figure rounded up or down and the zone rows add up
+to the paddock row exactly. Farm rows are the sums of the paddock rows, so a
+farm figure can differ from its exact total by a few hundredths.
 
 Examples
 --------
@@ -40,6 +47,8 @@ Examples
 >>> farm = t[t["level"] == "farm"].iloc[0]
 >>> float(farm["tonnes"]), int(farm["truckloads"]), float(farm["cost"])
 (26.0, 3, 1300.0)
+>>> t["truckloads"].tolist()   # 8 t and 18 t share the paddock's 3 loads
+[1, 2, 3, 3]
 >>> t["level"].tolist()
 ['zone', 'zone', 'paddock', 'farm']
 """
@@ -56,7 +65,18 @@ import pandas as pd
 from .errors import InputError, SettingsError
 from .units import RATE_UNITS, format_rate
 
-__all__ = ["TONNAGE_COLUMNS", "LEVELS", "tonnage_table", "format_summary", "first_season_tonnes"]
+__all__ = [
+    "TONNAGE_COLUMNS",
+    "LEVELS",
+    "KG_PER_SHORT_TON",
+    "MASS_UNITS",
+    "apportion",
+    "mass_unit_for",
+    "tonnage_table",
+    "tonnage_csv",
+    "format_summary",
+    "first_season_tonnes",
+]
 
 logger = logging.getLogger(__name__)
 
@@ -71,7 +91,7 @@ TONNAGE_COLUMNS: tuple[str, ...] = (
     "spread_area_ha",
     "rate_kg_ha",
     "tonnes",
-    "loads",
+    "short_tons",
     "truckloads",
     "price_per_t",
     "cost",
@@ -80,7 +100,65 @@ TONNAGE_COLUMNS: tuple[str, ...] = (
 #: Values of the ``level`` column.
 LEVELS: tuple[str, ...] = ("zone", "paddock", "farm")
 
+#: A short ton is 2 000 lb of 0.45359237 kg (the international pound, 1959; NIST SP 811).
+KG_PER_SHORT_TON: float = 2000 * 0.45359237
+
+#: Mass units of the tonnage: metric tonnes, or US short tons.
+MASS_UNITS: tuple[str, ...] = ("t", "short ton")
+
 _NEEDED = ("paddock", "product", "zone", "rate_kg_ha", "area_ha")
+
+
+def mass_unit_for(rate_unit: str) -> str:
+    """The mass unit that goes with a rate unit: short tons with lb/ac, tonnes otherwise.
+
+    Examples
+    --------
+    >>> mass_unit_for("lb/ac"), mass_unit_for("t/ha")
+    ('short ton', 't')
+    """
+    return "short ton" if rate_unit == "lb/ac" else "t"
+
+
+def apportion(total: int, weights: np.ndarray) -> np.ndarray:
+    """Share a whole number among weights by the largest-remainder method.
+
+    Each share is the floor or the ceiling of ``total x weight / sum(weights)``;
+    the shares add up to ``total``. Ties go to the earlier weight. With no
+    weight above 0, the whole goes to the first (there is nothing to share).
+
+    Parameters
+    ----------
+    total : int
+        The whole number to share (0 or more).
+    weights : array of float
+        One weight of 0 or more per share.
+
+    Returns
+    -------
+    ndarray of int64
+
+    Examples
+    --------
+    >>> apportion(3, np.array([8.0, 18.0])).tolist()
+    [1, 2]
+    >>> apportion(100, np.array([1.0, 1.0, 1.0])).tolist()
+    [34, 33, 33]
+    """
+    w = np.asarray(weights, dtype=float)
+    out = np.zeros(w.shape, dtype="int64")
+    if total <= 0 or w.size == 0:
+        return out
+    s = float(w.sum())
+    if not s > 0:
+        out[0] = total
+        return out
+    quota = total * w / s
+    base = np.floor(quota).astype("int64")  # adds up to total or less
+    rest = total - int(base.sum())
+    order = np.argsort(-(quota - base), kind="stable")
+    base[order[:rest]] += 1
+    return base
 
 
 def _per_product(
@@ -103,16 +181,9 @@ def _per_product(
     return v
 
 
-def _totals(rows: pd.DataFrame) -> dict[str, float]:
-    area = float(rows["area_ha"].sum())
-    spread = float(rows.loc[rows["rate_kg_ha"] > 0, "area_ha"].sum())
-    tonnes = float(rows["tonnes"].sum())
-    return {
-        "area_ha": area,
-        "spread_area_ha": spread,
-        "rate_kg_ha": tonnes * 1000.0 / spread if spread > 0 else math.nan,
-        "tonnes": tonnes,
-    }
+def _cents(x: float) -> int:
+    """``x`` in hundredths, rounded half away from zero (as a person rounds)."""
+    return int(math.floor(abs(x) * 100 + 0.5 + 1e-9)) * (1 if x >= 0 else -1)
 
 
 def tonnage_table(
@@ -121,7 +192,7 @@ def tonnage_table(
     capacity_t: Mapping[str, float] | float | None = None,
     price_per_t: Mapping[str, float] | None = None,
 ) -> pd.DataFrame:
-    """Tonnes, loads and cost per zone, with paddock subtotals and farm totals.
+    """Tonnes, truckloads and cost per zone, with paddock subtotals and farm totals, rounded.
 
     Parameters
     ----------
@@ -132,7 +203,7 @@ def tonnage_table(
     capacity_t
         Load one truck or spreader carries, t: one figure for every product or
         one per product. ``None`` (or a product missing from the mapping)
-        leaves ``loads`` and ``truckloads`` empty.
+        leaves ``truckloads`` empty.
     price_per_t
         Price per tonne per product; products without a price get no cost.
 
@@ -140,7 +211,9 @@ def tonnage_table(
     -------
     pandas.DataFrame
         Columns :data:`TONNAGE_COLUMNS`, rows ordered by paddock and product
-        (zones, then their subtotal), then one farm row per product.
+        (zones, then their subtotal), then one farm row per product; figures
+        rounded as the module docstring says, zone rows adding up to paddock
+        rows and paddock rows to farm rows.
 
     Raises
     ------
@@ -183,32 +256,124 @@ def tonnage_table(
               for p in z["product"].unique()}
 
     records: list[dict[str, object]] = []
+    farm: dict[str, dict[str, int | None]] = {}
     for (paddock, product), rows in z.groupby(["paddock", "product"], sort=True):
-        for r in rows.itertuples(index=False):
-            records.append({
-                "level": "zone", "paddock": paddock, "product": product,
-                "zone": int(r.zone), "kind": str(r.kind), "area_ha": float(r.area_ha),
-                "spread_area_ha": float(r.spread_area_ha), "rate_kg_ha": float(r.rate_kg_ha),
-                "tonnes": float(r.tonnes),
-            })
-        records.append({"level": "paddock", "paddock": paddock, "product": product,
-                        **_totals(rows)})
-    for product, rows in z.groupby("product", sort=True):
-        records.append({"level": "farm", "product": product, **_totals(rows)})
+        cap, price = caps[product], prices[product]
+        t_exact = rows["tonnes"].to_numpy(dtype=float)
+        sums: dict[str, int | None] = {}
+        shares: dict[str, np.ndarray | None] = {}
+        for col, exact in (("area_ha", rows["area_ha"].to_numpy(dtype=float)),
+                           ("spread_area_ha", rows["spread_area_ha"].to_numpy(dtype=float)),
+                           ("tonnes", t_exact),
+                           ("short_tons", t_exact * 1000.0 / KG_PER_SHORT_TON)):
+            total = _cents(float(exact.sum()))
+            sums[col] = total
+            shares[col] = apportion(total, exact)
+        tonnes = sums["tonnes"] or 0
+        if math.isfinite(cap):
+            loads = math.ceil(tonnes / 100 / cap - 1e-9) if tonnes > 0 else 0
+            sums["truckloads"] = loads
+            shares["truckloads"] = apportion(loads, t_exact)
+        else:
+            sums["truckloads"] = shares["truckloads"] = None
+        if math.isfinite(price):
+            cost = _cents(tonnes / 100 * price)
+            sums["cost"] = cost
+            shares["cost"] = apportion(cost, shares["tonnes"].astype(float))
+        else:
+            sums["cost"] = shares["cost"] = None
+        for i, r in enumerate(rows.itertuples(index=False)):
+            rec: dict[str, object] = {
+                "level": "zone", "paddock": paddock, "product": product, "zone": int(r.zone),
+                "kind": str(r.kind), "rate_kg_ha": float(round(r.rate_kg_ha)),
+            }
+            for col, share in shares.items():
+                rec[col] = None if share is None else int(share[i])
+            records.append(rec)
+        records.append({"level": "paddock", "paddock": paddock, "product": product, **sums})
+        acc = farm.setdefault(product, {})
+        for col, v in sums.items():
+            if v is None:
+                acc[col] = acc.get(col)  # stays None unless another paddock has it
+            else:
+                acc[col] = (acc.get(col) or 0) + v
+    for product in sorted(farm):
+        records.append({"level": "farm", "product": product, **farm[product]})
 
     table = pd.DataFrame.from_records(records, columns=list(TONNAGE_COLUMNS))
-    cap = table["product"].map(caps).astype(float)
-    table["loads"] = table["tonnes"] / cap
-    whole = np.ceil(np.round(table["loads"].to_numpy(dtype=float), 9))
+    for col in ("area_ha", "spread_area_ha", "tonnes", "short_tons", "cost"):
+        table[col] = pd.to_numeric(table[col], errors="coerce").astype(float) / 100.0
+    totals = table["level"] != "zone"
+    spread = table["spread_area_ha"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(spread > 0, table["tonnes"].to_numpy(dtype=float) * 1000.0 / spread,
+                        np.nan)
+    table.loc[totals, "rate_kg_ha"] = np.round(mean[totals.to_numpy()])
+    table["rate_kg_ha"] = table["rate_kg_ha"].astype(float)
     table["truckloads"] = pd.array(
-        [pd.NA if not math.isfinite(v) else int(v) for v in whole], dtype="Int64"
+        [pd.NA if v is None or (isinstance(v, float) and math.isnan(v)) else int(v)
+         for v in table["truckloads"]], dtype="Int64",
     )
     table["price_per_t"] = table["product"].map(prices).astype(float)
-    table["cost"] = table["tonnes"] * table["price_per_t"]
     table["zone"] = table["zone"].astype("Int64")
     table["paddock"] = table["paddock"].astype(object).where(table["paddock"].notna(), None)
     table["kind"] = table["kind"].astype(object).where(table["kind"].notna(), None)
     return table.reset_index(drop=True)
+
+
+def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = "") -> pd.DataFrame:
+    """The tonnage table as ``tonnage.csv`` shows it: one mass unit, the currency named,
+    every figure as text with its rounding (``12.30``, not ``12.299999999``).
+
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`tonnage_table`.
+    mass_unit : str
+        ``"t"`` (column ``tonnes``) or ``"short ton"`` (column ``short_tons``).
+    currency : str
+        Currency code for the price and cost columns (``cost_AUD``); "" for none.
+
+    Returns
+    -------
+    DataFrame
+        Text cells; missing figures are empty.
+
+    Examples
+    --------
+    >>> zones = pd.DataFrame({"paddock": ["North"], "product": ["gypsum"], "zone": [1],
+    ...                       "rate_kg_ha": [2500.0], "area_ha": [4.0]})
+    >>> t = tonnage_csv(tonnage_table(zones, price_per_t={"gypsum": 95.0}), currency="AUD")
+    >>> list(t.columns)[-4:], t["cost_AUD"].tolist()
+    (['tonnes', 'truckloads', 'price_per_t_AUD', 'cost_AUD'], ['950.00', '950.00', '950.00'])
+    """
+    if mass_unit not in MASS_UNITS:
+        raise SettingsError(f"mass unit {mass_unit!r} is not one of {', '.join(MASS_UNITS)}",
+                            key="mass_unit")
+    metric = mass_unit == "t"
+    per = "t" if metric else "short_ton"
+    cur = f"_{currency}" if currency else ""
+
+    def fixed(col: str, digits: int, factor: float = 1.0) -> pd.Series:
+        vals = pd.to_numeric(table[col], errors="coerce").astype(float) * factor
+        return vals.map(lambda v: "" if not math.isfinite(v) else f"{v:.{digits}f}")
+
+    out = pd.DataFrame({
+        "level": table["level"],
+        "paddock": table["paddock"].map(lambda v: "" if v is None else str(v)),
+        "product": table["product"],
+        "zone": table["zone"].map(lambda v: "" if v is pd.NA else str(int(v))),
+        "kind": table["kind"].map(lambda v: "" if v is None else str(v)),
+        "area_ha": fixed("area_ha", 2),
+        "spread_area_ha": fixed("spread_area_ha", 2),
+        "rate_kg_ha": fixed("rate_kg_ha", 0),
+    })
+    out["tonnes" if metric else "short_tons"] = fixed("tonnes" if metric else "short_tons", 2)
+    out["truckloads"] = table["truckloads"].map(lambda v: "" if v is pd.NA else str(int(v)))
+    out[f"price_per_{per}{cur}"] = fixed(
+        "price_per_t", 2, 1.0 if metric else KG_PER_SHORT_TON / 1000.0)
+    out[f"cost{cur}"] = fixed("cost", 2)
+    return out
 
 
 def _num(value: object, digits: int) -> str:
@@ -226,7 +391,7 @@ def _rate(value: object, unit: str) -> str:
     return format_rate(float(value), unit, with_unit=False, missing="-")  # type: ignore[arg-type]
 
 
-def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
+def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha", currency: str = "") -> str:
     """A plain-text summary of a tonnage table for the terminal.
 
     Lists each paddock's subtotal per product and the farm totals, then the
@@ -237,7 +402,10 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
     table
         From :func:`tonnage_table` (rates in kg/ha).
     rate_unit
-        Unit of the mean rates shown: one of :data:`geosoil.units.RATE_UNITS`.
+        Unit of the mean rates shown: one of :data:`geosoil.units.RATE_UNITS`;
+        with lb/ac the amounts are in short tons, otherwise in tonnes.
+    currency
+        Currency code shown with the cost ("" for none).
 
     Returns
     -------
@@ -272,12 +440,13 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
     rows = table[table["level"].isin(["paddock", "farm"])]
     show_loads = rows["truckloads"].notna().any()
     show_cost = rows["cost"].notna().any()
+    metric = mass_unit_for(rate_unit) == "t"
     header = ["Paddock", "Product", "Area (ha)", "Spread (ha)", f"Mean rate ({rate_unit})",
-              "Tonnes"]
+              "Tonnes" if metric else "Short tons"]
     if show_loads:
         header.append("Loads")
     if show_cost:
-        header.append("Cost")
+        header.append(f"Cost ({currency})" if currency else "Cost")
     body: list[list[str]] = []
     for r in rows.itertuples(index=False):
         line = [
@@ -286,7 +455,7 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
             _num(r.area_ha, 2),
             _num(r.spread_area_ha, 2),
             _rate(r.rate_kg_ha, rate_unit),
-            _num(r.tonnes, 2),
+            _num(r.tonnes if metric else r.short_tons, 2),
         ]
         if show_loads:
             line.append("-" if r.truckloads is pd.NA else str(int(r.truckloads)))
@@ -304,7 +473,8 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha") -> str:
     if show_cost:
         farm_cost = table.loc[table["level"] == "farm", "cost"]
         lines.append("")
-        lines.append(f"Total cost, products with a price: {_num(farm_cost.sum(min_count=1), 2)}")
+        total = _num(farm_cost.sum(min_count=1), 2) + (f" {currency}" if currency else "")
+        lines.append(f"Total cost, products with a price: {total}")
     lines.append("")
     lines.append(
         "Rates are advisory: have them checked by a qualified agronomist before spreading."

@@ -5,8 +5,6 @@ Figures are [derived] from the definitions (1 t = 1000 kg; loads = ceil(tonnes /
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pandas as pd
 import pytest
@@ -14,7 +12,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from geosoil.errors import InputError, SettingsError
-from geosoil.tonnage import LEVELS, TONNAGE_COLUMNS, format_summary, tonnage_table
+from geosoil.tonnage import (
+    LEVELS,
+    TONNAGE_COLUMNS,
+    apportion,
+    format_summary,
+    tonnage_csv,
+    tonnage_table,
+)
 
 
 def zones_frame() -> pd.DataFrame:
@@ -70,16 +75,17 @@ def test_truckloads_and_cost() -> None:
     farm = t[t["level"] == "farm"].set_index("product")
     # gypsum: 8 + 21 + 10 = 39 t; 39 / 12 = 3.25 -> 4 loads; cost 39 x 50 = 1950 [derived]
     assert farm.loc["gypsum", "tonnes"] == pytest.approx(39.0)
-    assert farm.loc["gypsum", "loads"] == pytest.approx(3.25)
+    # loads per paddock: North 29 t -> ceil(29 / 12) = 3, South 10 t -> 1; farm 3 + 1 = 4
     assert farm.loc["gypsum", "truckloads"] == 4
     assert farm.loc["gypsum", "cost"] == pytest.approx(1950.0)
     # lime has a price but no capacity: cost but no loads
-    assert pd.isna(farm.loc["lime", "truckloads"]) and math.isnan(farm.loc["lime", "loads"])
+    assert pd.isna(farm.loc["lime", "truckloads"]) and "loads" not in t.columns
     assert farm.loc["lime", "cost"] == pytest.approx((20.0 + 12.6) * 40.0)
-    # a paddock's loads can be fewer than the sum of its zones' loads (one load serves zones)
+    # the zones share their paddock's 3 loads by tonnes (8, 21, 0 t: quotas 0.83, 2.17, 0;
+    # largest remainder gives 1, 2, 0), so the zone rows add up to the paddock row
     z = t[(t["level"] == "zone") & (t["paddock"] == "North") & (t["product"] == "gypsum")]
     sub = t[(t["level"] == "paddock") & (t["paddock"] == "North") & (t["product"] == "gypsum")]
-    assert z["truckloads"].sum() == 1 + 2 + 0 and int(sub["truckloads"].iloc[0]) == 3
+    assert z["truckloads"].tolist() == [1, 2, 0] and int(sub["truckloads"].iloc[0]) == 3
 
 
 def test_exact_whole_loads_are_not_rounded_up() -> None:
@@ -160,20 +166,76 @@ def test_format_summary_shows_rates_in_the_chosen_unit() -> None:
         min_size=1, max_size=25,
     ),
     capacity=st.floats(0.5, 40, allow_nan=False),
+    price=st.floats(0, 500, allow_nan=False),
 )
-def test_property_totals_add_up(rows, capacity) -> None:
+def test_property_rounded_rows_add_up(rows, capacity, price) -> None:
+    """After rounding, zone rows add up to paddock rows and paddock rows to farm rows
+    exactly (in hundredths); each figure is within its rounding of the exact one."""
     zones = pd.DataFrame(rows, columns=["paddock", "product", "rate_kg_ha", "area_ha"])
     zones["zone"] = zones.groupby(["paddock", "product"]).cumcount() + 1
-    t = tonnage_table(zones, capacity_t=capacity)
+    t = tonnage_table(zones, capacity_t=capacity, price_per_t={"gypsum": price, "lime": price})
     z = t[t["level"] == "zone"]
-    assert np.allclose(z["tonnes"], z["area_ha"] * z["rate_kg_ha"] / 1000)
-    for level in ("paddock", "farm"):
-        assert t.loc[t["level"] == level, "tonnes"].sum() == pytest.approx(z["tonnes"].sum())
-    assert t.loc[t["level"] == "farm", "tonnes"].sum() == pytest.approx(
-        (zones["area_ha"] * zones["rate_kg_ha"]).sum() / 1000)
-    loads = t["truckloads"].astype(float)
-    assert (loads * capacity >= t["tonnes"] - 1e-6).all()
-    assert ((loads - 1) * capacity < t["tonnes"] + 1e-6).all()
+    exact = (zones.sort_values(["paddock", "product", "zone"])["area_ha"]
+             * zones.sort_values(["paddock", "product", "zone"])["rate_kg_ha"] / 1000).to_numpy()
+    assert np.all(np.abs(z["tonnes"].to_numpy() - exact) < 0.01 + 1e-9)
+    hundredths = ("area_ha", "spread_area_ha", "tonnes", "short_tons", "cost")
+    for col in (*hundredths, "truckloads"):
+        scale = 100 if col in hundredths else 1
+        v = t[col].astype(float).to_numpy()
+        assert np.allclose(v * scale, np.round(v * scale)), col  # whole hundredths / loads
+        for (paddock, product), rows_ in z.groupby(["paddock", "product"]):
+            sub = t[(t["level"] == "paddock") & (t["paddock"] == paddock)
+                    & (t["product"] == product)]
+            assert round(rows_[col].astype(float).sum() * scale) == round(
+                float(sub[col].iloc[0]) * scale), (col, paddock, product)
+        for product in t["product"].unique():
+            pads = t[(t["level"] == "paddock") & (t["product"] == product)]
+            farm = t[(t["level"] == "farm") & (t["product"] == product)]
+            assert round(pads[col].astype(float).sum() * scale) == round(
+                float(farm[col].iloc[0]) * scale), (col, product)
+    pads = t[t["level"] == "paddock"]
+    loads = pads["truckloads"].astype(float)
+    assert (loads * capacity >= pads["tonnes"] - 1e-6).all()
+    assert ((loads - 1) * capacity < pads["tonnes"] + 1e-6).all()
+    # cost to the cent from the rounded tonnes a farmer sees
+    assert np.allclose(pads["cost"], np.round(pads["tonnes"] * price + 1e-9, 2), atol=0.0051)
+
+
+def test_apportion_matches_the_largest_remainder_worked_example() -> None:
+    """Largest remainder (Hamilton) method: 10 seats for 47 000, 16 000, 15 800, 12 000,
+    6 100 and 3 100 votes give 5, 2, 1, 1, 1, 0 (the standard textbook example of the
+    method; figures from memory)."""
+    votes = np.array([47000, 16000, 15800, 12000, 6100, 3100], dtype=float)
+    assert apportion(10, votes).tolist() == [5, 2, 1, 1, 1, 0]
+    assert apportion(0, votes).tolist() == [0] * 6
+    assert apportion(2, np.zeros(3)).tolist() == [2, 0, 0]
+
+
+def test_csv_view_follows_the_unit_system_and_names_the_currency() -> None:
+    table = tonnage_table(zones_frame(), capacity_t=12.0, price_per_t={"gypsum": 50.0})
+    metric = tonnage_csv(table, currency="AUD")
+    assert {"tonnes", "truckloads", "price_per_t_AUD", "cost_AUD"} <= set(metric.columns)
+    assert "short_tons" not in metric.columns and "loads" not in metric.columns
+    farm = metric[metric["level"] == "farm"].set_index("product")
+    assert farm.loc["gypsum", "tonnes"] == "39.00" and farm.loc["gypsum", "cost_AUD"] == "1950.00"
+    assert farm.loc["lime", "cost_AUD"] == ""  # no price, no cost
+    us = tonnage_csv(table, mass_unit="short ton")
+    # 1 short ton = 2000 lb x 0.45359237 kg (NIST SP 811): 39 t = 42.99 short tons;
+    # 50 per t = 45.36 per short ton [derived]
+    farm = us[us["level"] == "farm"].set_index("product")
+    assert farm.loc["gypsum", "short_tons"] == f"{39000 / 907.18474:.2f}" == "42.99"
+    assert farm.loc["gypsum", "price_per_short_ton"] == "45.36"
+    assert "tonnes" not in us.columns and "cost" in us.columns
+    with pytest.raises(SettingsError):
+        tonnage_csv(table, mass_unit="lb")
+
+
+def test_summary_in_short_tons_with_the_currency() -> None:
+    table = tonnage_table(zones_frame(), capacity_t=12.0, price_per_t={"gypsum": 50.0})
+    text = format_summary(table, rate_unit="lb/ac", currency="AUD")
+    assert "Short tons" in text.splitlines()[0] and "Cost (AUD)" in text.splitlines()[0]
+    assert any(line.startswith("Farm") and "42.99" in line for line in text.splitlines())
+    assert "1,950.00 AUD" in text
 
 
 def test_first_season_tonnes_take_one_pass_of_split_zones() -> None:
