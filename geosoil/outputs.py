@@ -370,6 +370,14 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "tonnage": json.loads(totals.to_json(orient="records")),
         "timings_s": {k: round(v, 3) for k, v in farm.timings.items()},
         "warnings": list(farm.warnings),
+        "lime": {
+            "method": s.rates.lime.method,
+            "targets": {name: pr.rates.target for name, pr in farm.paddocks.items()
+                        if pr.rates.target},
+            "trigger_margin_ph": s.rates.lime.trigger_margin_ph,
+            "lab_ph_method": prep.read.methods.get("ph") or "water (a bare pH is read so)",
+            "needs_test": lime_needs_test(farm),
+        },
         "first_season_tonnes": (
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
@@ -409,6 +417,46 @@ _EXPLAINS = {"gypsum": "esp", "calcium": "ca", "balance": "ca_sat"}
 _EXPLAINS_LIME = {"kamprath": "al", "cochrane": "al_sat", "acidity_share": "acid_sat",
                   "smp": "ph", "sikora": "ph", "mehlich": "ph", "adams_evans": "ph", "phbc": "ph",
                   "base_saturation": "cec_ph7"}
+
+
+#: Colours of the "lime requirement needs a test" layer: cells with advice (or not acid),
+#: and acid cells no lime method could run on.
+_NEEDS_TEST_CLASSES = presentation.Classes(
+    (0.5,), ("#f0f0f0", "#d95f02"),
+    ("lime advice given, or not acid", "acid: lime requirement needs a test"),
+)
+
+
+def lime_needs_test(farm: FarmResult) -> list[dict[str, Any]]:
+    """Per paddock, the acid area no lime method could run on and what to ask the lab for.
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm.
+
+    Returns
+    -------
+    list of dict
+        ``paddock``, ``cells``, ``area_ha``, ``ask_for`` for each paddock with such cells.
+    """
+    out = []
+    for name, g in farm.prep.grids.items():
+        rr = farm.paddocks[name].rates
+        n = rr.needs_test_cells
+        if n:
+            out.append({"paddock": name, "cells": n, "area_ha": float(n * g.cell_area_ha),
+                        "ask_for": rr.ask_for})
+    return out
+
+
+def _needs_test_layer(farm: FarmResult) -> tuple[np.ndarray, Any] | None:
+    parts = []
+    for name, grid in farm.prep.grids.items():
+        nt = farm.paddocks[name].rates.needs_test
+        if nt is not None and nt.any():
+            parts.append((grid, np.where(grid.mask, nt.astype(float), np.nan)))
+    return mosaic(parts) if parts else None
 
 
 def farm_layer(farm: FarmResult, var: str, what: str = "estimate"
@@ -554,6 +602,12 @@ def build_farm_map(farm: FarmResult) -> str:
     prep = farm.prep
     s = prep.project.settings
     layers = []
+    flag = _needs_test_layer(farm)
+    if flag is not None:
+        layers.append(webmap.RasterLayer(
+            key="lime_needs_test", title="Lime requirement needs a test", unit="",
+            array=flag[0], transform=flag[1], crs=prep.crs, classes=_NEEDS_TEST_CLASSES,
+        ))
     for var, kind in MAP_SURFACES:
         got = farm_layer(farm, var)
         if got is None:
@@ -710,6 +764,16 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
     }
     for key, prod in prep.products.items():
         assumptions[f"Product '{key}'"] = product_text(prod)
+    targets = sorted({f"{name}: {pr.rates.target}" for name, pr in farm.paddocks.items()
+                      if pr.rates.target})
+    if targets:
+        assumptions["Lime target"] = "; ".join(targets) + (
+            f"; lime only where pH is more than {s.rates.lime.trigger_margin_ph:g} below it")
+    needs = lime_needs_test(farm)
+    if needs:
+        assumptions["Lime requirement needs a test"] = "; ".join(
+            f"{n['paddock']}: {n['area_ha']:.2f} ha of acid soil with no lime advice, ask the "
+            f"lab for {n['ask_for']}" for n in needs)
     methods: dict[str, str] = {}
     for pr in farm.paddocks.values():
         for rule, method in pr.rates.methods.items():

@@ -171,3 +171,18 @@ def test_real_field_ph_oc_clay_gives_hand_arithmetic_lime(tmp_path: Path) -> Non
     by_hand = float((zones["rate_kg_ha"] * zones.geometry.area / 10_000).sum()) / 1000
     table = pd.read_csv(out / "tonnage.csv")
     assert table[table["level"] == "farm"]["tonnes"].iloc[0] == pytest.approx(by_hand, rel=1e-3)
+
+
+def test_needs_test_flag_reaches_the_map_and_run_json(tmp_path: Path) -> None:
+    lab, pads = _flat_inputs(tmp_path / "in", with_oc_clay=False)
+    data, new, check, run, out = _new_check_run(
+        tmp_path, lab, pads, edit=lambda d: _cache(d, tmp_path))
+    record = json.loads((out / "run.json").read_text())
+    flagged = record["lime"]["needs_test"]
+    assert flagged and flagged[0]["paddock"] == "Home"
+    assert flagged[0]["area_ha"] == pytest.approx(12.0)  # every cell is acid (pH 4.9 CaCl2)
+    assert "organic carbon and clay" in flagged[0]["ask_for"]
+    page = (out / "map.html").read_text()
+    assert "Lime requirement needs a test" in page
+    report = (out / "report.html").read_text()
+    assert "12.00 ha of acid soil with no lime advice" in report
