@@ -98,8 +98,9 @@ def test_ph_oc_clay_only_gives_lime_equal_to_hand_arithmetic(tmp_path: Path) -> 
     rate = caco3 / (data["products"]["lime"]["purity_percent"] / 100)
     table = pd.read_csv(out / "tonnage.csv")
     farm = table[table["level"] == "farm"].iloc[0]
-    assert farm["rate_kg_ha"] == pytest.approx(rate, rel=1e-6)
-    assert farm["tonnes"] == pytest.approx(rate * 12.0 / 1000, rel=1e-6)  # 400 m x 300 m
+    # the table is rounded as a farmer reads it (0.01 t; its mean rate whole kg/ha of those)
+    assert farm["rate_kg_ha"] == pytest.approx(rate, abs=1.0)
+    assert farm["tonnes"] == pytest.approx(rate * 12.0 / 1000, abs=0.005)  # 400 m x 300 m
     zones = gpd.read_file(out / "prescriptions" / "home" / "lime.geojson")
     assert zones["rate_kg_ha"].max() == pytest.approx(rate, rel=1e-6)
     assert "needs a test" not in run.output
@@ -170,7 +171,7 @@ def test_real_field_ph_oc_clay_gives_hand_arithmetic_lime(tmp_path: Path) -> Non
     zones = gpd.read_file(out / "prescriptions" / "field" / "lime.geojson").to_crs("EPSG:25833")
     by_hand = float((zones["rate_kg_ha"] * zones.geometry.area / 10_000).sum()) / 1000
     table = pd.read_csv(out / "tonnage.csv")
-    assert table[table["level"] == "farm"]["tonnes"].iloc[0] == pytest.approx(by_hand, rel=1e-3)
+    assert table[table["level"] == "farm"]["tonnes"].iloc[0] == pytest.approx(by_hand, abs=0.01)
 
 
 def test_needs_test_flag_reaches_the_map_and_run_json(tmp_path: Path) -> None:
