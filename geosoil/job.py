@@ -19,7 +19,7 @@ import pandas as pd
 
 from .outfolder import output_folder
 from .outputs import write_outputs
-from .pipeline import FarmResult, Progress, compute
+from .pipeline import FarmResult, Interpolator, Prepared, Progress, compute
 from .project import Project
 from .recording import record_warnings
 
@@ -57,6 +57,8 @@ def run(
     overwrite: bool = False,
     progress: Progress = _quiet,
     use_cache: bool = True,
+    prepared: Prepared | None = None,
+    interpolate: Interpolator | None = None,
 ) -> RunResult:
     """The whole job into ``out_dir``.
 
@@ -73,6 +75,12 @@ def run(
         Called with a short message at each stage.
     use_cache : bool, optional
         False interpolates again even when the inputs are unchanged.
+    prepared : Prepared, optional
+        The result of :func:`geosoil.pipeline.prepare` for ``project`` when the
+        caller has it already.
+    interpolate : callable, optional
+        What makes the surfaces on a cache miss (see
+        :func:`geosoil.pipeline.surfaces_for`); default ordinary interpolation.
 
     Returns
     -------
@@ -98,7 +106,8 @@ def run(
     with output_folder(Path(out_dir), overwrite=overwrite, inputs=inputs) as staging:
         for note in staging.notes:
             progress(note)
-        farm = compute(project, progress=progress, use_cache=use_cache)
+        farm = compute(project, progress=progress, use_cache=use_cache, prepared=prepared,
+                       interpolate=interpolate)
         farm.prep.warnings.extend(staging.notes)
         t0 = time.perf_counter()
         with record_warnings(farm.prep.warnings):

@@ -66,11 +66,16 @@ __all__ = [
     "CACHE_KEEP",
     "PaddockResult",
     "surfaces_for",
+    "Interpolator",
 ]
 
 logger = logging.getLogger(__name__)
 
 Progress = Callable[[str], None]
+
+#: Makes the surfaces on a cache miss; :func:`geosoil.surfaces.interpolate_farm` has this
+#: signature, and a batch passes one that spreads the paddocks over a cluster.
+Interpolator = Callable[..., dict[tuple[str, str], Surface]]
 
 
 def _quiet(_: str) -> None:
@@ -240,7 +245,11 @@ def _cache_dir(prep: Prepared) -> Path:
 
 
 def surfaces_for(
-    prep: Prepared, *, progress: Progress = _quiet, use_cache: bool = True
+    prep: Prepared,
+    *,
+    progress: Progress = _quiet,
+    use_cache: bool = True,
+    interpolate: Interpolator = interpolate_farm,
 ) -> tuple[dict[tuple[str, str], Surface], bool]:
     """Interpolated surfaces, from the cache when their inputs are unchanged.
 
@@ -258,6 +267,9 @@ def surfaces_for(
         Called with a short message at each stage.
     use_cache : bool, optional
         False interpolates again even when the inputs are unchanged.
+    interpolate : callable, optional
+        What makes the surfaces on a cache miss, called like
+        :func:`geosoil.surfaces.interpolate_farm` (the default).
 
     Returns
     -------
@@ -287,7 +299,7 @@ def surfaces_for(
             return stored[0], True
     found: list[str] = []
     with record_warnings(found):
-        surfaces = interpolate_farm(
+        surfaces = interpolate(
             prep.samples,
             prep.grids,
             variables=prep.variables,
@@ -344,7 +356,12 @@ class FarmResult:
 
 
 def compute(
-    project: Project, *, progress: Progress = _quiet, use_cache: bool = True
+    project: Project,
+    *,
+    progress: Progress = _quiet,
+    use_cache: bool = True,
+    prepared: Prepared | None = None,
+    interpolate: Interpolator = interpolate_farm,
 ) -> FarmResult:
     """Stages 1-5: read, interpolate, compute rates, zones and tonnage.
 
@@ -356,6 +373,10 @@ def compute(
         Called with a short message at each stage.
     use_cache : bool, optional
         False interpolates again even when the inputs are unchanged.
+    prepared : Prepared, optional
+        The result of :func:`prepare` for ``project`` when the caller has it already.
+    interpolate : callable, optional
+        What makes the surfaces on a cache miss (see :func:`surfaces_for`).
 
     Returns
     -------
@@ -369,10 +390,11 @@ def compute(
     """
     timings: dict[str, float] = {}
     t0 = time.perf_counter()
-    prep = prepare(project, progress=progress)
+    prep = prepare(project, progress=progress) if prepared is None else prepared
     timings["read and check"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    surfaces, hit = surfaces_for(prep, progress=progress, use_cache=use_cache)
+    surfaces, hit = surfaces_for(prep, progress=progress, use_cache=use_cache,
+                                 interpolate=interpolate)
     timings["surfaces"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     s = project.settings
