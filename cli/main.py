@@ -6,7 +6,7 @@ import click
 
 from geosoil import __version__
 
-from . import check, demo, explain, new, run
+from . import batch, check, demo, explain, new, run
 from .options import set_verbosity
 
 __all__ = ["main", "cli"]
@@ -36,6 +36,7 @@ cli.add_command(check.check)
 cli.add_command(run.run)
 cli.add_command(demo.demo)
 cli.add_command(explain.explain)
+cli.add_command(batch.batch)
 
 
 def main() -> None:
