@@ -249,7 +249,7 @@ def surfaces_for(
     *,
     progress: Progress = _quiet,
     use_cache: bool = True,
-    interpolate: Interpolator = interpolate_farm,
+    interpolate: Interpolator | None = None,
 ) -> tuple[dict[tuple[str, str], Surface], bool]:
     """Interpolated surfaces, from the cache when their inputs are unchanged.
 
@@ -269,7 +269,7 @@ def surfaces_for(
         False interpolates again even when the inputs are unchanged.
     interpolate : callable, optional
         What makes the surfaces on a cache miss, called like
-        :func:`geosoil.surfaces.interpolate_farm` (the default).
+        :func:`geosoil.surfaces.interpolate_farm` (None, the default, calls it).
 
     Returns
     -------
@@ -299,7 +299,7 @@ def surfaces_for(
             return stored[0], True
     found: list[str] = []
     with record_warnings(found):
-        surfaces = interpolate(
+        surfaces = (interpolate or interpolate_farm)(
             prep.samples,
             prep.grids,
             variables=prep.variables,
@@ -361,7 +361,7 @@ def compute(
     progress: Progress = _quiet,
     use_cache: bool = True,
     prepared: Prepared | None = None,
-    interpolate: Interpolator = interpolate_farm,
+    interpolate: Interpolator | None = None,
 ) -> FarmResult:
     """Stages 1-5: read, interpolate, compute rates, zones and tonnage.
 
