@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo_err, handle_errors, overwrite_option
+from .options import echo_err, handle_errors
 
 __all__ = ["batch"]
 
@@ -66,7 +66,9 @@ def _table(outcomes: list, products: list[str]) -> str:  # type: ignore[type-arg
 @click.option("--memory-limit", default="auto", show_default=True, callback=_memory_limit,
               help="Memory limit of each worker on this computer, such as 4GiB; 'auto' shares "
               "the computer's memory equally, 0 sets none.")
-@overwrite_option
+@click.option("--overwrite", is_flag=True,
+              help="Write the batch into a non-empty folder that holds no earlier batch (its "
+              "other files are left as they are).")
 @click.option("--no-cache", is_flag=True,
               help="Run every farm again (even unchanged ones) and interpolate again.")
 @click.pass_context

@@ -521,9 +521,9 @@ def _write_key(out_dir: Path, job: FarmJob, outcome: FarmOutcome) -> Path:
 
 
 def _check_batch_folder(out_dir: Path, projects: Sequence[Path], *, overwrite: bool) -> Path:
-    """The batch folder: new, empty, an earlier batch's, or replaced with ``overwrite``;
-    never one that is or holds an input folder."""
-    from .writers import ensure_output_dir
+    """The batch folder, created: new, empty, an earlier batch's, or any with ``overwrite``
+    (its other files are left alone); never one that is, or holds, an input folder."""
+    from .outfolder import check_target
 
     inputs: list[Path] = list(projects)
     for p in projects:
@@ -532,13 +532,24 @@ def _check_batch_folder(out_dir: Path, projects: Sequence[Path], *, overwrite: b
         except GeosoilError:
             pass  # reported with the farm
     out = Path(out_dir).expanduser().resolve()
-    earlier = (out / BATCH_RECORD).is_file()
-    if out.is_dir() and any(out.iterdir()) and not (earlier or overwrite):
-        raise OutputExistsError(
-            f"the batch folder {out} exists, is not empty and holds no earlier batch "
-            f"({BATCH_RECORD}); choose a new folder or pass --overwrite to write over it"
-        )
-    return ensure_output_dir(out, overwrite=True, inputs=inputs)
+    if out.is_dir() and any(out.iterdir()):
+        if not ((out / BATCH_RECORD).is_file() or overwrite):
+            raise OutputExistsError(
+                f"the batch folder {out} exists, is not empty and holds no earlier batch "
+                f"({BATCH_RECORD}); choose a new folder or pass --overwrite to write the "
+                "batch into it (its other files are left as they are)"
+            )
+        for item in inputs:
+            inp = Path(item).expanduser().resolve()
+            if out == inp.parent or out in inp.parents:
+                raise OutputExistsError(
+                    f"the batch folder {out} is or holds the input file {inp}; "
+                    "choose a folder outside the input folders"
+                )
+    else:
+        check_target(out, overwrite=False, inputs=inputs)  # a file in the way, an input folder
+    out.mkdir(parents=True, exist_ok=True)
+    return out
 
 
 # --------------------------------------------------------------------------- the cluster

@@ -209,6 +209,12 @@ def test_a_batch_refuses_a_full_folder_that_is_not_a_batch(tmp_path) -> None:
     with pytest.raises(OutputExistsError, match="--overwrite"):
         batch.run_batch([], out_dir=out)
     assert (out / "notes.txt").read_text() == "mine"
+    farm = tmp_path / "farm"
+    shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    for where in (farm, tmp_path):  # a farm's own folder, and the folder that holds it
+        with pytest.raises(OutputExistsError, match="input file"):
+            batch.run_batch([farm / "geosoil.toml"], out_dir=where, overwrite=True)
+    assert not (farm / batch.SUMMARY_CSV).exists() and not (tmp_path / batch.KEYS_FOLDER).exists()
 
 
 def test_the_summary_page_escapes_what_it_shows() -> None:
