@@ -42,9 +42,10 @@ from . import presentation, webmap
 from . import report as report_mod
 from .grids import mosaic
 from .isoxml import MAX_DESIGNATOR, write_taskdata
+from .names import slug
 from .pipeline import FarmResult
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
-from .record import input_checksums, now_utc, slug, versions
+from .record import input_checksums, now_utc, versions
 from .settings import to_mapping
 from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
 from .units import rate_from_kg_ha
@@ -133,7 +134,7 @@ def write_outputs(
     progress("writing surfaces")
     for (paddock, variable), surf in farm.surfaces.items():
         grid = prep.grids[paddock]
-        folder = out_dir / "surfaces" / slug(paddock)
+        folder = out_dir / "surfaces" / prep.paddock_files[paddock]
         unit = SURFACE_UNITS.get(variable, "")
         cog(folder / f"{variable}.tif", surf.estimate, grid.transform,
             f"{TITLES.get(variable, variable)} ({surf.method})", unit)
@@ -141,7 +142,7 @@ def write_outputs(
             cog(folder / f"{variable}_sd.tif", surf.std, grid.transform,
                 f"{TITLES.get(variable, variable)}: kriging standard deviation", unit)
     for name, pr in farm.paddocks.items():
-        folder = out_dir / "surfaces" / slug(name)
+        folder = out_dir / "surfaces" / prep.paddock_files[name]
         for q in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat"):
             if q in pr.cells and (name, q) not in farm.surfaces:
                 cog(folder / f"{q}.tif", pr.cells[q], pr.grid.transform,
@@ -150,20 +151,20 @@ def write_outputs(
     # per-cell rates and each rule's contribution
     progress("writing rates")
     for name, pr in farm.paddocks.items():
-        folder = out_dir / "rates" / slug(name)
+        folder = out_dir / "rates" / prep.paddock_files[name]
         for product, rate in pr.rates.product_rates.items():
-            cog(folder / f"{slug(product)}.tif", rate, pr.grid.transform,
+            cog(folder / f"{prep.product_files[product]}.tif", rate, pr.grid.transform,
                 f"{product} rate before spreader limits", "kg/ha")
         for (rule, product), contrib in pr.rates.contributions.items():
-            cog(folder / f"{slug(product)}__{slug(rule)}.tif", contrib, pr.grid.transform,
-                f"{product} for rule {rule}", "kg/ha")
+            cog(folder / f"{prep.product_files[product]}__{slug(rule)}.tif", contrib,
+                pr.grid.transform, f"{product} for rule {rule}", "kg/ha")
 
     # prescriptions: one set of machine files per pass (see geosoil.prescriptions)
     progress("writing prescriptions")
     s = prep.project.settings
     mcrs = machine_crs(s.output.machine_crs, working=crs, boundaries=prep.boundaries_crs)
     for name, pr in farm.paddocks.items():
-        folder = out_dir / "prescriptions" / slug(name)
+        folder = out_dir / "prescriptions" / prep.paddock_files[name]
         folder.mkdir(parents=True, exist_ok=True)
         for product in pr.rates.product_rates:
             z = pr.zones[pr.zones["product"] == product]
@@ -171,7 +172,8 @@ def write_outputs(
                 continue
             n = n_passes(z)
             for k, zk in pass_frames(z):
-                stem = slug(product) + pass_suffix(k, n, split_into=s.spreader.split_into)
+                stem = prep.product_files[product] + pass_suffix(
+                    k, n, split_into=s.spreader.split_into)
                 p_geo = folder / f"{stem}.geojson"
                 write_geojson(p_geo, zk)
                 written.append(p_geo)
@@ -258,7 +260,8 @@ def _write_isoxml(
     n_tasks = n_passes(zones)
     written: list[Path] = []
     for k, zk in pass_frames(zones):
-        sub = folder / f"{slug(product)}{pass_suffix(k, n_tasks, split_into=split_into)}_isoxml"
+        sub = folder / (f"{prep.product_files[product]}"
+                        f"{pass_suffix(k, n_tasks, split_into=split_into)}_isoxml")
         if n_tasks > 1:
             word = "season" if split_into == "seasons" else "pass"
             prefix = f"{word} {k}/{n_tasks} "

@@ -23,6 +23,7 @@ import hashlib
 import json
 import logging
 import time
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -45,8 +46,9 @@ from .boundaries import read_exclusions, read_paddocks, read_user_zones
 from .chemistry import derive
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
-from .errors import GeosoilError, SettingsError
+from .errors import DataWarning, GeosoilError, InputError, SettingsError
 from .grids import PaddockGrid, aligned_grids
+from .names import MAX_NAME_CHARS, assign, slug
 from .products import Product, resolve_products
 from .project import Project
 from .rates import RateResult, check_inputs, compute_rates
@@ -104,6 +106,9 @@ class Prepared:
     warnings: list[str] = field(default_factory=list)
     boundaries_crs: Any = None
     """CRS of the paddock boundaries file as read (before the working CRS)."""
+    #: the file (folder) name of each paddock and product: distinct, see :mod:`geosoil.names`
+    paddock_files: dict[str, str] = field(default_factory=dict)
+    product_files: dict[str, str] = field(default_factory=dict)
 
 
 def _check_paddock_keys(
@@ -147,7 +152,17 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     sink: list[str] = []
     with record_warnings(sink):
         progress("reading boundaries")
+        product_files = _file_names(
+            list(s.products), what="product", mode=s.output.name_clashes,
+            refuse=lambda msg: SettingsError(msg, key="products"),
+            rename="rename the product's table in the project file",
+        )
         paddocks = read_paddocks(s.boundaries)
+        paddock_files = _file_names(
+            [str(n) for n in paddocks["paddock"]], what="paddock", mode=s.output.name_clashes,
+            refuse=lambda msg: InputError(msg, file=s.boundaries.paddocks),
+            rename=f"rename the paddock in {s.boundaries.paddocks}",
+        )
         _check_paddock_keys(s.soil.bulk_density_by_paddock, paddocks,
                             key="soil.bulk_density_by_paddock", file=s.boundaries.paddocks)
         progress("reading samples")
@@ -188,7 +203,49 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         user_zones=user_zones, read=read, samples=samples, grids=grids, variables=variables,
         products=products, rule_notes=list(rule_notes), warnings=sink,
         boundaries_crs=boundaries_crs,
+        paddock_files=paddock_files, product_files=product_files,
     )
+
+
+def _file_names(names: list[str], *, what: str, mode: str,
+                refuse: Callable[[str], GeosoilError], rename: str) -> dict[str, str]:
+    """Distinct file names for ``names`` (paddocks or products), checked before anything is
+    computed: names too long, names making the same file name and names without a letter or
+    digit are refused (or, with ``[output] name_clashes = "suffix"``, given the distinct
+    names :func:`geosoil.names.assign` chose, with a warning saying which went where)."""
+    too_long = [n for n in names if len(n) > MAX_NAME_CHARS]
+    if too_long:
+        shown = ", ".join(f"'{n[:40]}...' ({len(n)} characters)" for n in too_long[:3])
+        raise refuse(
+            f"{what} name(s) longer than {MAX_NAME_CHARS} characters: {shown}; a {what} name "
+            f"names folders, files and shapefile fields. Fix: {rename} (at most "
+            f"{MAX_NAME_CHARS} characters)"
+        )
+    got = assign(names, fallback=what)
+    if got.ok:
+        return got.files
+    problems = []
+    for file_name, members in got.clashes:
+        quoted = ", ".join(repr(m) for m in members[:-1]) + f" and {members[-1]!r}"
+        problems.append(f"{what}s {quoted} would all be written as '{file_name}' (file names "
+                        "ignore case, spaces and signs)")
+    for name in got.empty:
+        problems.append(f"{what} {name!r} has no letter or digit to name its files")
+    if mode == "refuse":
+        suffixed = ", ".join(f"{n!r} as '{got.files[n]}'" for n in names
+                             if got.files[n] != slug(n))
+        raise refuse(
+            "; ".join(problems) + f". Fix: {rename} so that each {what} has its own name, "
+            f'or set [output] name_clashes = "suffix" to write {suffixed}'
+        )
+    for n in names:
+        if got.files[n] != slug(n):
+            warnings.warn(
+                f"{what} {n!r} is written as '{got.files[n]}' ([output] name_clashes = "
+                f'"suffix"): ' + "; ".join(p for p in problems if repr(n) in p),
+                DataWarning, stacklevel=2,
+            )
+    return got.files
 
 
 def _derivable(variables: list[str]) -> set[str]:

@@ -159,6 +159,12 @@ class OutputSettings:
         "paddock file's CRS); GeoJSON and task data are always WGS 84",
         choices=("wgs84", "working", "boundaries"),
     )
+    name_clashes: str = setting(
+        "refuse",
+        doc="paddock or product names that make the same file name (case, spaces, signs) or "
+            "none: refuse them, or suffix them (red-hill, red-hill-2)",
+        choices=("refuse", "suffix"),
+    )
 
 
 def default_products() -> dict[str, ProductSettings]:

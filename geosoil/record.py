@@ -1,4 +1,4 @@
-"""Facts for the run record: file-name slugs, input checksums, versions, the time.
+"""Facts for the run record: input checksums, versions, the time.
 
 Small helpers that both the pipeline and the output folder use; they know
 nothing of surfaces or rates.
@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import hashlib
 import platform
-import re
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -18,29 +17,7 @@ from . import __version__
 if TYPE_CHECKING:
     from .project import Project
 
-__all__ = ["slug", "sha256_file", "versions", "now_utc", "input_checksums"]
-
-
-def slug(name: str) -> str:
-    """A file-name-safe form of a paddock or product name.
-
-    Parameters
-    ----------
-    name : str
-        A paddock or product name as the user wrote it.
-
-    Returns
-    -------
-    str
-        Lower case letters, digits and dashes.
-
-    Examples
-    --------
-    >>> slug("North Flat / Dam side")
-    'north-flat-dam-side'
-    """
-    s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
-    return s or "unnamed"
+__all__ = ["sha256_file", "versions", "now_utc", "input_checksums"]
 
 
 def sha256_file(path: Path) -> str:
