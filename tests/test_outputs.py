@@ -27,7 +27,7 @@ def _farm(paddock: shapely.Polygon, *, split_into: str, label: str) -> SimpleNam
     )
     prep = SimpleNamespace(
         paddocks=gpd.GeoDataFrame({"paddock": ["Home"]}, geometry=[paddock], crs=CRS),
-        products={"lime": SimpleNamespace(label=label)},
+        products={"lime": SimpleNamespace(label=label)}, product_files={"lime": "lime"},
         project=SimpleNamespace(settings=settings),
     )
     return SimpleNamespace(prep=prep)
