@@ -292,11 +292,14 @@ class LimeRule:
     enabled: str = _enabled_setting("auto", "lime for acidity")
     method: str = setting(
         "kamprath",
-        doc="to a target pH: 'smp', 'sikora' (SMP's table), 'mehlich', 'adams_evans' (buffer pH), "
-        "'phbc' (pH buffering capacity, measured or from organic carbon and clay), "
-        "'base_saturation' (Raij et al. 1996); against exchangeable Al: 'kamprath' (Kamprath "
-        "1970), 'cochrane' (Cochrane, Salinas & Sanchez 1980), 'acidity_share'; 'auto' = the "
-        "first of method_order the samples can run",
+        doc="to a target pH: 'smp', 'sikora' (buffer pH on SMP's table: pH in water, short t/ac "
+        "of a 2.4 M lb/ac slice), 'mehlich' (buffer pH as North Carolina applies it: pH in "
+        "water, t/ac of 0.20 m by volume), 'adams_evans' (buffer pH, low-CEC soils: pH in water, "
+        "per kg), 'phbc' (pH buffering capacity, measured or from organic carbon and clay: pH "
+        "and target in one method, per kg), 'base_saturation' (Raij et al. 1996: t/ha of 0.20 m "
+        "by volume, T in cmolc/dm3); converted to depth_m and the bulk density; against "
+        "exchangeable Al: 'kamprath' (Kamprath 1970), 'cochrane' (Cochrane, Salinas & Sanchez "
+        "1980), 'acidity_share'; 'auto' = the first of method_order the samples can run",
         choices=("auto", *AL_METHODS, *TARGET_METHODS),
     )
     method_order: tuple[str, ...] = setting(

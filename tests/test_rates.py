@@ -806,3 +806,15 @@ def test_target_methods_grow_as_ph_falls_and_with_depth(
 
     assert rate(ph - drop, depth) >= rate(ph, depth) - 1e-9
     assert rate(ph, depth * k) == pytest.approx(rate(ph, depth) * k, rel=1e-9, abs=1e-9)
+
+
+def test_explain_shows_the_calibration_and_its_conversion() -> None:
+    # SMP (Western Region table, row [from memory]): buffer pH 6.0 to pH 6.5 -> 8.3 short t/ac
+    steps = explain_cell({"ph": 5.4, "bph_smp": 6.0}, _lime(method="smp", target_ph=6.5),
+                         PRODUCTS, depth_m=0.15, bulk_density_g_cm3=1.3)
+    text = format_steps(steps)
+    assert "8.3 short t CaCO3/ac (8-inch slice, 2.4 M lb/ac)" in text
+    assert "calibration" in text and "pH in water" in text
+    slice_kg_ha = 2.4e6 * KG_HA_PER_LB_AC
+    want = 8.3 * TON_AC * (0.15 * 1.3 * 1e7) / slice_kg_ha
+    assert steps[-1].result == pytest.approx(want, rel=1e-9)
