@@ -186,6 +186,13 @@ def _cents(x: float) -> int:
     return int(math.floor(abs(x) * 100 + 0.5 + 1e-9)) * (1 if x >= 0 else -1)
 
 
+def _mean_rate(tonnes: float, spread_ha: float) -> float:
+    """Mean rate over the spread area, whole kg/ha (from the exact totals); NaN when none."""
+    if not spread_ha > 0:
+        return math.nan
+    return float(_cents(tonnes * 1000.0 / spread_ha / 100.0))
+
+
 def tonnage_table(
     zones: pd.DataFrame,
     *,
@@ -257,6 +264,7 @@ def tonnage_table(
 
     records: list[dict[str, object]] = []
     farm: dict[str, dict[str, int | None]] = {}
+    exact_farm: dict[str, list[float]] = {}
     for (paddock, product), rows in z.groupby(["paddock", "product"], sort=True):
         cap, price = caps[product], prices[product]
         t_exact = rows["tonnes"].to_numpy(dtype=float)
@@ -285,12 +293,18 @@ def tonnage_table(
         for i, r in enumerate(rows.itertuples(index=False)):
             rec: dict[str, object] = {
                 "level": "zone", "paddock": paddock, "product": product, "zone": int(r.zone),
-                "kind": str(r.kind), "rate_kg_ha": float(round(r.rate_kg_ha)),
+                "kind": str(r.kind), "rate_kg_ha": _cents(r.rate_kg_ha / 100.0),
             }
             for col, share in shares.items():
                 rec[col] = None if share is None else int(share[i])
             records.append(rec)
-        records.append({"level": "paddock", "paddock": paddock, "product": product, **sums})
+        spread_exact = float(rows["spread_area_ha"].sum())
+        t_sum = float(t_exact.sum())
+        records.append({"level": "paddock", "paddock": paddock, "product": product, **sums,
+                        "rate_kg_ha": _mean_rate(t_sum, spread_exact)})
+        ex = exact_farm.setdefault(product, [0.0, 0.0])
+        ex[0] += t_sum
+        ex[1] += spread_exact
         acc = farm.setdefault(product, {})
         for col, v in sums.items():
             if v is None:
@@ -298,18 +312,13 @@ def tonnage_table(
             else:
                 acc[col] = (acc.get(col) or 0) + v
     for product in sorted(farm):
-        records.append({"level": "farm", "product": product, **farm[product]})
+        records.append({"level": "farm", "product": product, **farm[product],
+                        "rate_kg_ha": _mean_rate(*exact_farm[product])})
 
     table = pd.DataFrame.from_records(records, columns=list(TONNAGE_COLUMNS))
     for col in ("area_ha", "spread_area_ha", "tonnes", "short_tons", "cost"):
         table[col] = pd.to_numeric(table[col], errors="coerce").astype(float) / 100.0
-    totals = table["level"] != "zone"
-    spread = table["spread_area_ha"].to_numpy(dtype=float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mean = np.where(spread > 0, table["tonnes"].to_numpy(dtype=float) * 1000.0 / spread,
-                        np.nan)
-    table.loc[totals, "rate_kg_ha"] = np.round(mean[totals.to_numpy()])
-    table["rate_kg_ha"] = table["rate_kg_ha"].astype(float)
+    table["rate_kg_ha"] = pd.to_numeric(table["rate_kg_ha"], errors="coerce").astype(float)
     table["truckloads"] = pd.array(
         [pd.NA if v is None or (isinstance(v, float) and math.isnan(v)) else int(v)
          for v in table["truckloads"]], dtype="Int64",
