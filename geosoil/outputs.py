@@ -520,6 +520,11 @@ def surface_classes(farm: FarmResult, var: str, kind: str, values: np.ndarray) -
     )
 
 
+def surface_unit(var: str) -> str:
+    """A surface's unit as its legend shows it (none for pH: its title names the method)."""
+    return "" if var == "ph" else SURFACE_UNITS.get(var, "")
+
+
 def surface_title(farm: FarmResult, var: str) -> str:
     """A surface's name as the map and report show it."""
     return ph_label(farm) if var == "ph" else TITLES.get(var, var)
@@ -547,6 +552,84 @@ def exclusion_zones(farm: FarmResult) -> Any:
         for lab in out["label"]
     ]
     out["area_ha"] = out.geometry.area / 1e4
+    return out
+
+
+def exclusion_kinds(farm: FarmResult) -> dict[str, str]:
+    """Exclusion name -> ``"creek buffer"`` or ``"exclusion"`` (from the boundaries read)."""
+    excl = farm.prep.exclusions
+    if not len(excl) or "exclusion" not in excl.columns or "kind" not in excl.columns:
+        return {}
+    return {str(a): ("creek buffer" if str(b) == "creek buffer" else "exclusion")
+            for a, b in zip(excl["exclusion"], excl["kind"], strict=False)}
+
+
+def paddock_areas(farm: FarmResult) -> dict[str, float]:
+    """Each paddock's area (ha): the area of its zones, exclusions included, as in the
+    tonnage table. The one figure the report uses for a paddock everywhere."""
+    zones = farm.zones
+    out: dict[str, float] = {}
+    if not len(zones):
+        return out
+    for (paddock, _product), rows in zones.groupby(["paddock", "product"], sort=False):
+        out.setdefault(str(paddock), float(rows["area_ha"].sum()))
+    return out
+
+
+def paddock_glance(farm: FarmResult) -> list[Any]:
+    """Per paddock: area, area excluded by kind, sodic / strongly sodic / acid area (from the
+    grid cells) and the area and tonnes of each product (from the zones and tonnage)."""
+    chem = farm.prep.project.settings.chemistry
+    areas = paddock_areas(farm)
+    kinds = exclusion_kinds(farm)
+    limit = acid_ph_threshold(farm)
+    totals = farm.tonnage[farm.tonnage["level"].astype(str) == "paddock"]
+    zones = farm.zones
+    out = []
+    for name, grid in farm.prep.grids.items():
+        cells = farm.paddocks[name].cells
+        cell_ha = grid.cell_area_ha
+
+        def area_where(var: str, test: Any, cells: Any = cells, cell_ha: float = cell_ha
+                       ) -> float | None:
+            arr = cells.get(var)
+            if arr is None:
+                return None
+            ok = np.isfinite(arr)
+            return float(np.count_nonzero(test(np.where(ok, arr, np.nan)) & ok) * cell_ha)
+
+        excluded: dict[str, float] = {}
+        pz = zones[(zones["paddock"] == name) & (zones["kind"].astype(str) == "exclusion")]
+        if len(pz):
+            first = pz[pz["product"] == pz["product"].iloc[0]]
+            for label, area in zip(first["label"], first["area_ha"], strict=False):
+                kind = report_mod.exclusion_kind(str(label), kinds)
+                excluded[kind] = excluded.get(kind, 0.0) + float(area)
+        rows = totals[totals["paddock"].astype(str) == name]
+        out.append(report_mod.PaddockGlance(
+            paddock=name,
+            area_ha=areas.get(name, float(grid.mask.sum() * cell_ha)),
+            excluded_ha=excluded,
+            sodic_ha=area_where("esp", lambda a: a >= chem.sodic_esp_percent),
+            strongly_sodic_ha=area_where("esp", lambda a: a >= chem.strongly_sodic_esp_percent),
+            acid_ha=area_where("ph", lambda a: a < limit),
+            product_ha={str(r["product"]): float(r["spread_area_ha"]) for _, r in rows.iterrows()},
+            product_t={str(r["product"]): float(r["tonnes"]) for _, r in rows.iterrows()},
+        ))
+    return out
+
+
+def soil_maps(farm: FarmResult) -> list[Any]:
+    """ESP, pH and acid saturation over the farm, in the map's colour classes."""
+    out = []
+    for var, kind in (("esp", "esp"), ("ph", "ph"), ("acid_sat", "acid")):
+        got = farm_layer(farm, var)
+        if got is None:
+            continue
+        arr, transform = got
+        out.append(report_mod.SoilMap(
+            title=surface_title(farm, var), unit=surface_unit(var), array=arr,
+            transform=transform, classes=surface_classes(farm, var, kind, arr)))
     return out
 
 
@@ -617,7 +700,7 @@ def build_farm_map(farm: FarmResult) -> str:
             continue
         arr, transform = got
         layers.append(webmap.RasterLayer(
-            key=var, title=surface_title(farm, var), unit=SURFACE_UNITS.get(var, ""),
+            key=var, title=surface_title(farm, var), unit=surface_unit(var),
             array=arr, transform=transform, crs=prep.crs,
             classes=surface_classes(farm, var, kind, arr),
         ))
@@ -746,10 +829,11 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
                     share_above=float((sd > thr).mean()), sd_max=float(sd.max()),
                     sd_mean=float(sd.mean()),
                 ))
+    areas = paddock_areas(farm)
     density = [
         report_mod.SampleDensity(
             paddock=name, samples=int((prep.samples["paddock"] == name).sum()),
-            area_ha=float(g.mask.sum() * g.cell_area_ha),
+            area_ha=areas.get(name, float(g.mask.sum() * g.cell_area_ha)),
         )
         for name, g in prep.grids.items()
     ]
@@ -786,8 +870,11 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         "ordinary kriging with variograms fitted by weighted least squares (Cressie 1985) "
         "and chosen by leave-one-out cross-validation (closed form, Dubrule 1983)",
     )
-    methods.setdefault("Sodicity classes", "ESP >= 6 % sodic, >= 15 % strongly sodic "
-                       "(Northcote & Skene 1972)")
+    chem = s.chemistry
+    methods.setdefault("Sodicity classes",
+                       f"ESP >= {chem.sodic_esp_percent:g} % sodic, >= "
+                       f"{chem.strongly_sodic_esp_percent:g} % strongly sodic "
+                       "(Northcote & Skene 1972 at the defaults 6 and 15)")
     settings_toml = prep.project.text
     return report_mod.ReportInput(
         title=f"{s.farm or 'Farm'}: gypsum and lime prescriptions",
@@ -800,10 +887,18 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         density=tuple(density),
         assumptions=assumptions,
         methods=tuple(methods.items()),
-        warnings=tuple(farm.warnings) + tuple(
+        warnings=tuple(farm.warnings),
+        notes=tuple(
             f"{name}: {n}" for name, pr in farm.paddocks.items()
             for n in (*pr.cell_notes, *pr.rates.notes, *pr.zone_notes)
         ),
+        glance=tuple(paddock_glance(farm)),
+        soil_maps=tuple(soil_maps(farm)),
+        samples=prep.samples[["sample_id", "geometry"]],
+        exclusion_kinds=exclusion_kinds(farm),
+        acid_label=f"{ph_label(farm)} below {acid_ph_threshold(farm):g}",
+        sodic_labels=(f"ESP ≥ {chem.sodic_esp_percent:g} %",
+                      f"ESP ≥ {chem.strongly_sodic_esp_percent:g} %"),
         provenance=report_mod.Provenance(
             inputs=tuple(input_checksums(prep.project)),
             settings_toml=settings_toml,

@@ -1,25 +1,29 @@
 """The printable report of a run: one static HTML page that prints cleanly to PDF.
 
-The page carries no script and loads nothing: its zone maps and variogram
-plots are SVG drawn here from shapely geometries and numbers, and its print
-CSS sets A4 pages, page breaks before each paddock and the larger sections,
-repeated table headers and page numbers. Open it in any browser and print to
-PDF.
+The page is rendered from the package's jinja2 templates (``templates/report.html``,
+one macro per section in ``templates/report_sections.html``) with autoescaping, so
+every value from the user's files or settings is escaped where it lands. It carries
+no script and loads nothing: its maps are SVG drawn here from shapely geometries
+(zone maps, with exclusions and creek buffers hatched and named) or a PNG of the
+surface's colour classes with the samples and outlines over it (soil maps), and its
+print CSS sets A4 pages, page breaks before each paddock and the larger sections,
+repeated table headers and page numbers.
 
-It holds, in order: cautions; farm totals; per paddock and product, the zone
-map and the tonnage table (with the paddock's sample density); per surface,
-the variogram plot (empirical points and fitted model) and a cross-validation
-table for all surfaces; where the interpolation is least certain; sample
-density; assumptions, and the methods with their citations; the warnings the
-run raised; provenance (input files with SHA-256 checksums, settings, software
-versions).
+It holds, in order: cautions; farm totals; the at-a-glance table (per paddock: its
+area, the area excluded, sodic, strongly sodic and acid, and the area needing each
+product); soil maps (ESP, pH, acid saturation) with the samples; per paddock and
+product, the zone map and tonnage table; per surface, the variogram plot and a
+cross-validation table; where the interpolation is least certain; sample density;
+assumptions, and the methods with their citations; the warnings the run raised (the
+same list as the command's summary and ``run.json``) and notes on the rates;
+provenance.
 
-Rates are shown in :attr:`ReportInput.rate_unit` (kg/ha, t/ha or lb/ac) in
-the tonnage tables and the zone-map labels; the tables it is given stay in
-kg/ha.
+A paddock's area is one figure everywhere (:attr:`ReportInput.paddock_area_ha`, the
+area of its zones, exclusions included, as in the tonnage table).
 
-Every string from the user's files or settings is escaped with
-:func:`geosoil.webmap.escape_text`.
+Rates are shown in :attr:`ReportInput.rate_unit` (kg/ha, t/ha or lb/ac); the tables
+it is given stay in kg/ha. Colours, escaping and label positions come from
+:mod:`geosoil.presentation`, shared with the web map.
 
 This module is pure: :func:`build_report` returns the page as a string; the
 pipeline writes it.
@@ -39,22 +43,27 @@ import numpy as np
 import pandas as pd
 
 from .errors import GeosoilError, InputError, SettingsError
-from .presentation import escape_text, label_point
-from .presentation import palette_colour as _pc
+from .presentation import (
+    Classes,
+    colourise,
+    escape_text,
+    label_point,
+    png_data_uri,
+    rate_colour,
+)
 from .units import RATE_UNITS, format_rate
-
-
-def ramp_colour(name: str, t: float) -> str:  # temporary: report moves to templates
-    return _pc("rates", t)
 
 __all__ = [
     "CAUTIONS",
+    "PaddockGlance",
     "Provenance",
     "ReportInput",
     "SampleDensity",
+    "SoilMap",
     "UncertaintySummary",
     "VariogramInfo",
     "build_report",
+    "surface_map_svg",
     "variogram_svg",
     "zone_map_svg",
 ]
@@ -88,7 +97,6 @@ _TONNAGE_COLUMNS = (
     "truckloads",
     "cost",
 )
-_ZONE_RAMP = "ylorbr"  # the same ramp the web map uses for zones
 
 
 # --------------------------------------------------------------------------- inputs
@@ -240,6 +248,59 @@ class Provenance:
 
 
 @dataclass(frozen=True, eq=False)
+class SoilMap:
+    """One soil surface drawn over the whole farm, in its colour classes.
+
+    Parameters
+    ----------
+    title, unit
+        What it is (``"ESP"``, ``"% of ECEC"``).
+    array
+        2-D float array, north-up, NaN outside the paddocks.
+    transform
+        ``affine.Affine`` of ``array`` (same CRS as the paddocks).
+    classes
+        Colour classes (:func:`geosoil.presentation.classes_for`), as on the web map.
+    """
+
+    title: str
+    unit: str
+    array: np.ndarray
+    transform: Any
+    classes: Classes
+
+
+@dataclass(frozen=True)
+class PaddockGlance:
+    """One paddock at a glance (areas in ha).
+
+    Parameters
+    ----------
+    paddock
+        Its name.
+    area_ha
+        Its area (the same figure as in the tonnage table).
+    excluded_ha
+        Kind (``"creek buffer"``, ``"exclusion"``) -> area not spread.
+    sodic_ha, strongly_sodic_ha, acid_ha
+        Area whose cells are sodic (ESP at or above the sodic limit, strongly sodic
+        included), strongly sodic, and acid (pH below the acid threshold); None when
+        the surface is missing.
+    product_ha, product_t
+        Product -> area needing it (rate above 0) and tonnes.
+    """
+
+    paddock: str
+    area_ha: float
+    excluded_ha: Mapping[str, float] = field(default_factory=dict)
+    sodic_ha: float | None = None
+    strongly_sodic_ha: float | None = None
+    acid_ha: float | None = None
+    product_ha: Mapping[str, float] = field(default_factory=dict)
+    product_t: Mapping[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True, eq=False)
 class ReportInput:
     """Everything the report shows.
 
@@ -272,7 +333,23 @@ class ReportInput:
     methods
         ``((rule or method, citation), ...)``.
     warnings
-        Every warning the run raised, as text.
+        Every warning the run raised, as text (the list the command's summary prints).
+    notes
+        Notes on the rates per paddock (rules that did not apply, merged zones...).
+    glance
+        One :class:`PaddockGlance` per paddock (the at-a-glance table).
+    soil_maps
+        :class:`SoilMap` of ESP, pH and acid saturation (or what there is).
+    samples
+        Optional sample points (``sample_id``, geometry in the paddocks' CRS), drawn
+        on the soil maps.
+    exclusion_kinds
+        Exclusion label -> ``"creek buffer"`` or ``"exclusion"``: how exclusion zones
+        are named in maps and tables.
+    acid_label
+        What "acid" means in the at-a-glance table (e.g. ``"pH (CaCl2) below 4.8"``).
+    sodic_labels
+        Column heads of the sodic and strongly sodic areas.
     provenance
         :class:`Provenance`.
     cautions
@@ -297,6 +374,13 @@ class ReportInput:
     methods: Sequence[tuple[str, str]] = ()
     warnings: Sequence[str] = ()
     provenance: Provenance = field(default_factory=Provenance)
+    notes: Sequence[str] = ()
+    glance: Sequence[PaddockGlance] = ()
+    soil_maps: Sequence[SoilMap] = ()
+    samples: Any = None
+    exclusion_kinds: Mapping[str, str] = field(default_factory=dict)
+    acid_label: str = "acid"
+    sodic_labels: tuple[str, str] = ("ESP ≥ 6 %", "ESP ≥ 15 %")
     cautions: Sequence[str] = CAUTIONS
     rate_unit: str = "kg/ha"
     currency: str = ""
@@ -583,11 +667,13 @@ def zone_map_svg(
     width: int = 560,
     max_height: int = 300,
     uid: str = "z",
+    exclusion_kinds: Mapping[str, str] | None = None,
 ) -> str:
     """Static SVG map of one paddock's zones for one product.
 
-    Zones are filled by rate on the same sequential ramp as the web map
-    (exclusions hatched grey), labelled with zone number and rate where they
+    Zones are filled by rate on the same rate scale as the web map
+    (exclusions hatched grey, creek buffers hatched blue), labelled with zone number and
+    rate where they
     are big enough, with the paddock outline, a scale bar and a grid-north arrow.
 
     Parameters
@@ -605,6 +691,9 @@ def zone_map_svg(
         Largest size in CSS pixels (the drawing keeps the paddock's shape).
     uid
         Text unique in the page, for the SVG's pattern id.
+    exclusion_kinds
+        Exclusion label -> ``"creek buffer"`` or ``"exclusion"``: creek buffers are
+        hatched blue and labelled "creek buffer", other exclusions grey "excluded".
 
     Returns
     -------
@@ -658,7 +747,10 @@ def zone_map_svg(
         f'width="{width}" height="{height}" role="img" aria-label="Zone map">',
         f'<defs><pattern id="{pid}" width="6" height="6" patternUnits="userSpaceOnUse" '
         f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ddd"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#666" stroke-width="2"/></pattern></defs>',
+        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#666" stroke-width="2"/></pattern>'
+        f'<pattern id="{pid}-creek" width="6" height="6" patternUnits="userSpaceOnUse" '
+        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#d6e6f5"/>'
+        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#1f4e79" stroke-width="2"/></pattern></defs>',
     ]
     labels = []
     placed: list[tuple[float, float, float, float]] = []  # label boxes drawn so far (px)
@@ -678,15 +770,16 @@ def zone_map_svg(
             continue
         excluded = str(z["kind"]) == "exclusion"
         rate = float(z["rate_kg_ha"]) if not _isnan(z["rate_kg_ha"]) else math.nan
+        name = str(z["label"]) if "label" in zones.columns and not _isnan(z["label"]) else ""
+        what = exclusion_kind(name, exclusion_kinds)
         if excluded:
-            fill = f"url(#{pid})"
-        elif math.isfinite(rate):
-            fill = ramp_colour(_ZONE_RAMP, 0.08 + 0.84 * (rate / top if top > 0 else 0.0))
+            fill = f"url(#{pid}-creek)" if what == "creek buffer" else f"url(#{pid})"
         else:
-            fill = "#cccccc"
+            fill = rate_colour(rate, top)
         zone_txt = _zone_label(z["zone"])
         rate_txt = _rate_text(rate, rate_unit)
-        tip = "exclusion (not spread)" if excluded else f"zone {zone_txt}: {rate_txt}"
+        tip = (f"{what}: {name} (not spread)" if name else f"{what} (not spread)") if excluded \
+            else f"zone {zone_txt}: {rate_txt}"
         parts.append(
             f'<path class="zone" d="{d}" fill="{fill}" fill-rule="evenodd" stroke="#333" '
             f'stroke-width="0.8"><title>{_t(tip)}</title></path>'
@@ -694,7 +787,8 @@ def zone_map_svg(
         area_px = z.geometry.area * scale * scale
         if area_px >= 900:
             anchor = label_point(z.geometry)
-            text = "excluded" if excluded else f"{zone_txt} · {rate_txt}"
+            text = ("creek buffer" if what == "creek buffer" else "excluded") if excluded \
+                else f"{zone_txt} · {rate_txt}"
             if area_px < 3500 and not excluded:
                 text = zone_txt
             ink = (
@@ -738,82 +832,166 @@ def zone_map_svg(
     return "".join(parts)
 
 
+def exclusion_kind(label: str, kinds: Mapping[str, str] | None) -> str:
+    """``"creek buffer"`` when any name in ``label`` (names joined by commas) is a creek
+    buffer in ``kinds``, else ``"exclusion"``.
+
+    Examples
+    --------
+    >>> exclusion_kind("Bellbird Creek", {"Bellbird Creek": "creek buffer"})
+    'creek buffer'
+    >>> exclusion_kind("Tree clump", {"Bellbird Creek": "creek buffer"})
+    'exclusion'
+    """
+    kinds = kinds or {}
+    parts = [p.strip() for p in str(label).split(",")]
+    return "creek buffer" if any(kinds.get(p) == "creek buffer" for p in parts) else "exclusion"
+
+
+def surface_map_svg(
+    soil: SoilMap,
+    *,
+    paddocks: gpd.GeoDataFrame,
+    samples: gpd.GeoDataFrame | None = None,
+    exclusions: gpd.GeoDataFrame | None = None,
+    exclusion_kinds: Mapping[str, str] | None = None,
+    width: int = 640,
+    max_height: int = 440,
+    uid: str = "s",
+) -> str:
+    """Static map of one soil surface over the farm: the surface in its colour classes
+    (a PNG inside the SVG), exclusions hatched, paddock outlines and the samples on top.
+
+    Parameters
+    ----------
+    soil
+        The surface and its classes.
+    paddocks
+        ``paddock`` and polygons, in the surface's CRS (projected, metres).
+    samples
+        Optional points (same CRS).
+    exclusions
+        Optional zones of kind ``exclusion`` (``label``, polygons).
+    exclusion_kinds
+        Label -> ``"creek buffer"`` or ``"exclusion"``.
+    width, max_height
+        Largest size in CSS pixels.
+    uid
+        Text unique in the page, for pattern ids.
+
+    Returns
+    -------
+    str
+        The SVG markup.
+
+    Examples
+    --------
+    >>> import affine, geopandas as gpd
+    >>> from shapely.geometry import box
+    >>> from geosoil.presentation import classes_for
+    >>> arr = np.array([[2.0, 8.0], [16.0, np.nan]])
+    >>> soil = SoilMap("ESP", "%", arr, affine.Affine(100, 0, 0, 0, -100, 200),
+    ...                classes_for("esp", arr))
+    >>> pads = gpd.GeoDataFrame({"paddock": ["A"]}, geometry=[box(0, 0, 200, 200)],
+    ...                         crs="EPSG:32755")
+    >>> svg = surface_map_svg(soil, paddocks=pads)
+    >>> svg.startswith("<svg"), "data:image/png;base64," in svg
+    (True, True)
+    """
+    geoms = [g for g in paddocks.geometry if g is not None and not g.is_empty]
+    h, w = soil.array.shape
+    t = soil.transform
+    rx0, ry0 = t.c, t.f
+    rx1, ry1 = t.c + t.a * w, t.f + t.e * h
+    minx = min([g.bounds[0] for g in geoms] + [min(rx0, rx1)])
+    miny = min([g.bounds[1] for g in geoms] + [min(ry0, ry1)])
+    maxx = max([g.bounds[2] for g in geoms] + [max(rx0, rx1)])
+    maxy = max([g.bounds[3] for g in geoms] + [max(ry0, ry1)])
+    dx, dy = max(maxx - minx, 1e-9), max(maxy - miny, 1e-9)
+    pad = 10
+    scale = min((width - 2 * pad) / dx, (max_height - 2 * pad - 24) / dy)
+    height = int(math.ceil(dy * scale + 2 * pad + 24))
+    width = int(math.ceil(dx * scale + 2 * pad))
+
+    def fx(x: float) -> float:
+        return pad + (x - minx) * scale
+
+    def fy(y: float) -> float:
+        return pad + (maxy - y) * scale
+
+    png = png_data_uri(colourise(soil.array, soil.classes))
+    pid = f"shatch-{escape_text(uid)}"
+    parts = [
+        f'<svg class="soil-map" xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} '
+        f'{height}" width="{width}" height="{height}" role="img" '
+        f'aria-label="Map of {escape_text(soil.title)}">',
+        f'<defs><pattern id="{pid}" width="6" height="6" patternUnits="userSpaceOnUse" '
+        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ddd"/>'
+        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#555" stroke-width="2"/></pattern>'
+        f'<pattern id="{pid}-creek" width="6" height="6" patternUnits="userSpaceOnUse" '
+        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#d6e6f5"/>'
+        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#1f4e79" stroke-width="2"/></pattern>'
+        "</defs>",
+        f'<image x="{fx(min(rx0, rx1)):.1f}" y="{fy(max(ry0, ry1)):.1f}" '
+        f'width="{abs(rx1 - rx0) * scale:.1f}" height="{abs(ry1 - ry0) * scale:.1f}" '
+        f'preserveAspectRatio="none" href="{png}"/>',
+    ]
+    if exclusions is not None and len(exclusions):
+        for _, z in exclusions.iterrows():
+            name = str(z["label"]) if "label" in exclusions.columns else ""
+            creek = exclusion_kind(name, exclusion_kinds) == "creek buffer"
+            fill = f"url(#{pid}-creek)" if creek else f"url(#{pid})"
+            parts.append(
+                f'<path class="exclusion" d="{_geom_path(z.geometry, fx, fy)}" fill="{fill}" '
+                f'fill-rule="evenodd" stroke="#333" stroke-width="0.6"><title>'
+                f'{"creek buffer" if creek else "exclusion"}: {escape_text(name)}</title></path>'
+            )
+    for g in geoms:
+        parts.append(f'<path class="outline" d="{_geom_path(g, fx, fy)}" fill="none" '
+                     'stroke="#111" stroke-width="1.8" fill-rule="evenodd"/>')
+    if samples is not None and len(samples):
+        for _, p in samples.iterrows():
+            pt = p.geometry
+            if pt.geom_type != "Point":
+                pt = pt.representative_point()
+            sid = escape_text(p["sample_id"]) if "sample_id" in samples.columns else ""
+            parts.append(f'<circle class="sample" cx="{fx(pt.x):.1f}" cy="{fy(pt.y):.1f}" r="3" '
+                         f'fill="#fff" stroke="#000" stroke-width="1.3"><title>{sid}</title>'
+                         "</circle>")
+    bar_m = _nice_step(dx / 4, 1)
+    y0 = height - 8
+    bar_label = f"{bar_m / 1000:g} km" if bar_m >= 1000 else f"{bar_m:g} m"
+    parts.append(
+        f'<g class="scale-bar"><rect x="{pad}" y="{y0 - 5}" width="{bar_m * scale:.1f}" '
+        f'height="5" fill="#111"/><text x="{pad + bar_m * scale + 6:.1f}" y="{y0}" '
+        f'class="tick">{bar_label}</text></g>'
+    )
+    parts.append("</svg>")
+    return "".join(parts)
+
+
 # --------------------------------------------------------------------------- page
 
 
-_CSS = """
-:root { --ink: #1b1b1b; --muted: #555; --rule: #ccc; --accent: #2166ac; }
-* { box-sizing: border-box; }
-body { font: 14px/1.45 "DejaVu Sans", system-ui, sans-serif; color: var(--ink); margin: 0 auto;
-  max-width: 980px; padding: 24px; }
-h1 { font-size: 24px; margin: 0 0 4px; }
-h2 { font-size: 19px; margin: 28px 0 8px; border-bottom: 2px solid var(--accent);
-  padding-bottom: 3px; }
-h3 { font-size: 15px; margin: 18px 0 6px; }
-.meta { color: var(--muted); margin: 0 0 12px; }
-nav ol { columns: 2; margin: 6px 0 0; }
-table { border-collapse: collapse; margin: 6px 0 12px; width: 100%; font-size: 13px; }
-th, td { border-bottom: 1px solid var(--rule); padding: 3px 6px; text-align: left;
-  vertical-align: top; }
-th { background: #f1f3f6; }
-td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-tr.total td { font-weight: 700; border-top: 1.5px solid var(--ink); }
-.cautions { border: 2px solid #b35806; background: #fff7ec; padding: 8px 14px; margin: 14px 0; }
-.cautions h2 { border: none; margin-top: 4px; color: #8a4204; }
-.cautions li { margin: 3px 0; }
-figure { margin: 8px 0 12px; }
-figcaption { color: var(--muted); font-size: 12px; }
-.swatch { display: inline-block; width: 14px; height: 10px; border: 1px solid #555;
-  margin-right: 5px; }
-.swatch.hatch { background: repeating-linear-gradient(45deg, #666 0 2px, #ddd 2px 5px); }
-.variograms { display: grid; grid-template-columns: repeat(auto-fill, minmax(440px, 1fr));
-  gap: 8px 18px; }
-.variograms figure { break-inside: avoid; }
-svg text.tick { font-size: 11px; fill: #333; }
-svg text.axis { font-size: 12px; fill: #111; }
-svg text.zone-label { font-size: 12px; font-weight: 700; }
-code, pre { font: 12px/1.35 "DejaVu Sans Mono", monospace; }
-pre.settings { background: #f6f6f6; border: 1px solid var(--rule); padding: 8px;
-  white-space: pre-wrap; overflow-wrap: anywhere; }
-td.hash code { overflow-wrap: anywhere; word-break: break-all; }
-.warnings li { margin: 2px 0; }
-.note { color: var(--muted); font-size: 12px; }
-@page { size: A4; margin: 14mm 12mm 16mm;
-  @bottom-right { content: "page " counter(page) " of " counter(pages); font-size: 9pt;
-    color: #555; } }
-@media print {
-  body { max-width: none; padding: 0; font-size: 10pt; }
-  nav { display: none; }
-  h2 { break-after: avoid; }
-  h3 { break-after: avoid; }
-  .page-break, section.paddock, section.major { break-before: page; }
-  table, figure, .cautions, tr, pre { break-inside: avoid; }
-  thead { display: table-header-group; }
-  .variograms { display: block; }
-  a { color: inherit; text-decoration: none; }
-}
-"""
+def _templates() -> Any:
+    import jinja2
+
+    return jinja2.Environment(
+        loader=jinja2.PackageLoader("geosoil", "templates"),
+        autoescape=jinja2.select_autoescape(["html"]),
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
 
 
-def _table(
-    headers: Sequence[tuple[str, bool]],
-    rows: Sequence[Sequence[str]],
-    *,
-    css: str = "",
-    row_classes: Sequence[str] | None = None,
-) -> str:
-    """A table of already-escaped cells; headers are (text, numeric)."""
-    head = "".join(f'<th class="num">{h}</th>' if num else f"<th>{h}</th>" for h, num in headers)
-    body = []
-    for i, row in enumerate(rows):
-        cls = f' class="{row_classes[i]}"' if row_classes and row_classes[i] else ""
-        cells = "".join(
-            f'<td class="num">{c}</td>' if headers[j][1] else f"<td>{c}</td>"
-            for j, c in enumerate(row)
-        )
-        body.append(f"<tr{cls}>{cells}</tr>")
-    klass = f' class="{css}"' if css else ""
-    return f"<table{klass}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+def _css() -> Any:
+    import importlib.resources
+
+    from markupsafe import Markup
+
+    text = (importlib.resources.files("geosoil") / "templates" / "report.css").read_text(
+        encoding="utf-8")
+    return Markup(text.replace("</", "<\\/"))
 
 
 def _mass(unit: str) -> tuple[str, str]:
@@ -822,58 +1000,74 @@ def _mass(unit: str) -> tuple[str, str]:
 
 
 def _cost_header(currency: str) -> str:
-    return f"cost ({_t(currency)})" if currency else "cost"
+    return f"cost ({currency})" if currency else "cost"
 
 
-def _tonnage_headers(unit: str, *, schedule: bool = False,
-                     currency: str = "") -> tuple[tuple[str, bool], ...]:
-    return (
-        ("zone", False),
-        ("area (ha)", True),
-        (f"rate ({_t(unit)})", True),
-        *((("applied as", False),) if schedule else ()),
-        (f"product ({_mass(unit)[1]})", True),
-        ("truckloads", True),
-        (_cost_header(currency), True),
-    )
+def _mass_of(row: Any, unit: str) -> Any:
+    col = _mass(unit)[0]
+    return row[col] if col in row else row["tonnes"]
 
 
-def _tonnage_rows(
-    df: pd.DataFrame, colour_of: Any = None, *, unit: str = "kg/ha",
-    schedules: Mapping[Any, str] | None = None,
-) -> tuple[list[list[str]], list[str]]:
-    """Rows of a tonnage table; with ``schedules`` (zone -> "2 seasons of 1.0 t/ha", "" for
-    one pass) an "applied as" column after the rate."""
-    rows, classes = [], []
-    for _, r in df.iterrows():
+def _cell(text: str, *, swatch: str | None = None, cls: str = "") -> dict[str, Any]:
+    return {"text": text, "swatch": swatch, "cls": cls}
+
+
+def _tonnage_table(
+    df: pd.DataFrame, zones: gpd.GeoDataFrame, *, top: float, unit: str,
+    kinds: Mapping[str, str] | None, currency: str = "",
+) -> dict[str, Any]:
+    """Headers and rows of one paddock's tonnage table for one product."""
+    schedules: dict[Any, str] = {}
+    names: dict[Any, tuple[str, str]] = {}
+    if len(zones):
+        if "schedule" in zones.columns:
+            schedules = {z: str(t) for z, t in zip(zones["zone"], zones["schedule"], strict=True)
+                         if isinstance(t, str) and t}
+        for _, z in zones.iterrows():
+            if str(z["kind"]) == "exclusion":
+                label = str(z["label"]) if "label" in zones.columns and not _isnan(z["label"]) \
+                    else ""
+                names[z["zone"]] = (exclusion_kind(label, kinds), label)
+    split = bool(schedules)
+    headers = [("zone", False), ("area (ha)", True), (f"rate ({unit})", True)]
+    if split:
+        headers.append(("applied as", False))
+    headers += [(f"product ({_mass(unit)[1]})", True), ("truckloads", True),
+                (_cost_header(currency), True)]
+    rows = []
+    order = df.assign(_o=(df["level"] != "zone").astype(int)).sort_values("_o", kind="stable")
+    for _, r in order.iterrows():
         level = str(r["level"]).lower()
         is_zone = level == "zone"
-        if is_zone:
-            sw = ""
-            if colour_of is not None and not _isnan(r["rate_kg_ha"]):
-                colour = colour_of(float(r["rate_kg_ha"]))
-                sw = f'<span class="swatch" style="background:{colour}"></span>'
-            label = sw + _t(_zone_label(r["zone"]))
+        if is_zone and r["zone"] in names:
+            what, label = names[r["zone"]]
+            first = _cell(f"{_zone_label(r['zone'])} · {what}" + (f": {label}" if label else "")
+                          + " (not spread)", swatch="hatch-creek" if what == "creek buffer"
+                          else "hatch")
+        elif is_zone:
+            rate = r["rate_kg_ha"]
+            colour = rate_colour(float(rate), top) if not _isnan(rate) else None
+            first = _cell(_zone_label(r["zone"]), swatch=colour)
         else:
-            label = "total" if level in ("paddock", "farm") else _t(level)
-        split = []
-        if schedules is not None:
+            first = _cell("total" if level in ("paddock", "farm") else level)
+        cells = [first, _cell(_num(r["area_ha"], 2), cls="num"),
+                 _cell(_rate_text(r["rate_kg_ha"], unit, with_unit=False) if is_zone else "",
+                       cls="num")]
+        if split:
             spread = is_zone and not _isnan(r["rate_kg_ha"]) and float(r["rate_kg_ha"]) > 0
             text = schedules.get(r["zone"], "") if is_zone else ""
-            split = [_t(text or ("one pass" if spread else ""))]
-        rows.append(
-            [
-                label,
-                _num(r["area_ha"], 2),
-                _t(_rate_text(r["rate_kg_ha"], unit, with_unit=False)) if is_zone else "",
-                *split,
-                _num(r[_mass(unit)[0]] if _mass(unit)[0] in r else r["tonnes"], 2),
-                _num(r["truckloads"], 0),
-                _num(r["cost"], 2),
-            ]
-        )
-        classes.append("" if is_zone else "total")
-    return rows, classes
+            cells.append(_cell(text or ("one pass" if spread else "")))
+        cells += [_cell(_num(_mass_of(r, unit), 2), cls="num"),
+                  _cell(_num(r["truckloads"], 0), cls="num"), _cell(_num(r["cost"], 2), cls="num")]
+        rows.append({"cells": cells, "cls": "" if is_zone else "total"})
+    return {"headers": headers, "rows": rows, "css": "tonnage"}
+
+
+def _simple_table(headers: Sequence[tuple[str, bool]], rows: Sequence[Sequence[str]],
+                  css: str) -> dict[str, Any]:
+    return {"headers": list(headers), "css": css, "rows": [
+        {"cells": [_cell(str(c), cls="num" if headers[j][1] else "") for j, c in enumerate(row)],
+         "cls": ""} for row in rows]}
 
 
 def _ordered_unique(values: Any) -> list[Any]:
@@ -882,6 +1076,29 @@ def _ordered_unique(values: Any) -> list[Any]:
         if not _isnan(v):
             seen.setdefault(v, None)
     return list(seen)
+
+
+def _glance_table(data: ReportInput, products: Sequence[str]) -> dict[str, Any] | None:
+    if not data.glance:
+        return None
+    kinds = sorted({k for g in data.glance for k in g.excluded_ha})
+    headers = [("paddock", False), ("area (ha)", True)]
+    headers += [(f"{k} (ha)", True) for k in kinds]
+    headers += [(f"sodic, {data.sodic_labels[0]} (ha)", True),
+                (f"strongly sodic, {data.sodic_labels[1]} (ha)", True),
+                (f"acid, {data.acid_label} (ha)", True)]
+    headers += [(f"needs {p} (ha)", True) for p in products]
+    rows = []
+    mass = _mass(data.rate_unit)[1]
+    for g in data.glance:
+        row = [g.paddock, _num(g.area_ha, 2)]
+        row += [_num(g.excluded_ha.get(k, 0.0), 2) for k in kinds]
+        row += [_num(v, 2) if v is not None else "–"
+                for v in (g.sodic_ha, g.strongly_sodic_ha, g.acid_ha)]
+        row += [(_num(g.product_ha[p], 2) + f" ({_num(g.product_t.get(p, 0.0), 1)} {mass})")
+                if p in g.product_ha else "–" for p in products]
+        rows.append(row)
+    return _simple_table(headers, rows, "glance")
 
 
 def build_report(data: ReportInput) -> str:
@@ -916,6 +1133,8 @@ def build_report(data: ReportInput) -> str:
     >>> "<script" in page, page.count('class="zone-map"')
     (False, 1)
     """
+    from markupsafe import Markup
+
     tonnage = data.tonnage.copy()
     tonnage["level"] = tonnage["level"].astype(str).str.lower()
     zones = data.zones
@@ -935,333 +1154,122 @@ def build_report(data: ReportInput) -> str:
             "rate_kg_ha",
         ].astype(float)
         top_rate[product] = float(np.nanmax(r)) if r.notna().any() else 0.0
-
-    def colour_for(product: str) -> Any:
-        top = top_rate.get(product, 0.0)
-        return lambda rate: ramp_colour(_ZONE_RAMP, 0.08 + 0.84 * (rate / top if top > 0 else 0.0))
-
     density = {d.paddock: d for d in data.density}
-    created = (
-        data.created.isoformat(timespec="minutes")
-        if isinstance(data.created, datetime)
-        else str(data.created)
-    )
-    version = data.provenance.versions.get("geosoil", "")
-    out: list[str] = [
-        "<!DOCTYPE html>",
-        '<html lang="en"><head><meta charset="utf-8">',
-        '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{_t(data.title)}</title>",
-        f"<style>{_CSS}</style></head><body>",
-        f'<header><h1 id="report-title">{_t(data.title)}</h1>',
-        f'<p class="meta">Created {_t(created)}'
-        + (f" by geosoil {_t(version)}" if version else "")
-        + f" · {len(paddock_names)} paddock(s) · {len(products)} product(s)</p></header>",
-    ]
-    nav = [
-        ("cautions", "Cautions"),
-        ("summary", "Farm totals"),
-        *((f"paddock-{i}", f"Paddock {p}") for i, p in enumerate(paddock_names)),
-        ("surfaces", "Surfaces and variograms"),
-        ("uncertainty", "Where the maps are least certain"),
-        ("density", "Sample density"),
-        ("assumptions", "Assumptions and methods"),
-        ("warnings", "Warnings"),
-        ("provenance", "Provenance"),
-    ]
-    out.append(
-        "<nav><strong>Contents</strong><ol>"
-        + "".join(f'<li><a href="#{a}">{_t(label)}</a></li>' for a, label in nav)
-        + "</ol></nav>"
-    )
+    kinds = data.exclusion_kinds
+    created = (data.created.isoformat(timespec="minutes") if isinstance(data.created, datetime)
+               else str(data.created))
 
-    # Cautions
-    out.append(
-        '<section id="cautions" class="cautions"><h2>Cautions</h2><ul>'
-        + "".join(f"<li>{_t(c)}</li>" for c in data.cautions)
-        + "</ul></section>"
-    )
-
-    # Farm totals
     farm = tonnage[tonnage["level"] == "farm"]
-    mass_col, mass_label = _mass(data.rate_unit)
-    out.append('<section id="summary"><h2>Farm totals</h2>')
-    if len(farm):
-        rows = [
-            [
-                _t(r["product"]),
-                _num(r["area_ha"], 2),
-                _num(r[mass_col] if mass_col in r else r["tonnes"], 2),
-                _num(r["truckloads"], 0),
-                _num(r["cost"], 2),
-            ]
-            for _, r in farm.iterrows()
-        ]
-        out.append(
-            _table(
-                [
-                    ("product", False),
-                    ("area (ha)", True),
-                    (f"product ({mass_label})", True),
-                    ("truckloads", True),
-                    (_cost_header(data.currency), True),
-                ],
-                rows,
-                css="farm-totals",
-            )
-        )
-    else:
-        out.append('<p class="note">The run gave no farm totals.</p>')
-    out.append("</section>")
+    farm_table = _simple_table(
+        [("product", False), ("area (ha)", True), (f"product ({_mass(data.rate_unit)[1]})", True),
+         ("truckloads", True), (_cost_header(data.currency), True)],
+        [[str(r["product"]), _num(r["area_ha"], 2), _num(_mass_of(r, data.rate_unit), 2),
+          _num(r["truckloads"], 0), _num(r["cost"], 2)] for _, r in farm.iterrows()],
+        "farm-totals") if len(farm) else None
 
-    # Per paddock
+    excl_zones = zones[zones["kind"].astype(str) == "exclusion"]
+    if len(excl_zones):
+        excl_zones = excl_zones[excl_zones["product"] == excl_zones["product"].iloc[0]]
+    soil_maps = []
+    for k, soil in enumerate(data.soil_maps):
+        svg = surface_map_svg(soil, paddocks=_metric(data.paddocks),
+                              samples=data.samples, exclusions=excl_zones,
+                              exclusion_kinds=kinds, uid=str(k))
+        soil_maps.append({"title": soil.title, "unit": soil.unit, "svg": Markup(svg),
+                          "legend": soil.classes.legend(), "note": soil.classes.note})
+    has_creek = any(exclusion_kind(str(lab), kinds) == "creek buffer"
+                    for lab in (excl_zones["label"] if "label" in excl_zones.columns else []))
+
+    paddocks = []
     for i, paddock in enumerate(paddock_names):
-        out.append(f'<section class="paddock" id="paddock-{i}"><h2>Paddock {_t(paddock)}</h2>')
         d = density.get(paddock)
-        if d is not None:
-            out.append(
-                f'<p class="density-line">{_num(d.area_ha, 2)} ha · {d.samples} sample(s) · '
-                f"{_num(d.per_ha, 2)} samples per ha ({_num(d.ha_per_sample, 1)} ha per sample)</p>"
-            )
         pz = zones[zones["paddock"].astype(str) == paddock]
         pt = tonnage[(tonnage["paddock"].astype(str) == paddock) & (tonnage["level"] != "farm")]
         prods = _ordered_unique([str(p) for p in pz["product"]] + [str(p) for p in pt["product"]])
-        if not prods:
-            out.append('<p class="note">No product is prescribed for this paddock.</p>')
+        blocks = []
         for j, product in enumerate(prods):
-            colour_of = colour_for(product)
-            out.append(f'<div class="product-block"><h3>{_t(product)}</h3>')
             zp = pz[pz["product"].astype(str) == product]
+            svg: Any = None
+            notes = []
             if len(zp):
-                svg = zone_map_svg(
-                    zp,
-                    outline=paddock_geoms.get(paddock),
-                    top_rate=top_rate.get(product),
-                    rate_unit=data.rate_unit,
-                    uid=f"{i}-{j}",
-                )
-                excl_note = (
-                    " Hatched: excluded from spreading."
-                    if (zp["kind"].astype(str) == "exclusion").any()
-                    else ""
-                )
-                out.append(
-                    f"<figure>{svg}<figcaption>Zones of {_t(product)} in paddock {_t(paddock)}, "
-                    "labelled zone · rate; darker is more product."
-                    f"{excl_note}</figcaption></figure>"
-                )
+                svg = Markup(zone_map_svg(zp, outline=paddock_geoms.get(paddock),
+                                          top_rate=top_rate.get(product),
+                                          rate_unit=data.rate_unit, uid=f"{i}-{j}",
+                                          exclusion_kinds=kinds))
+                ex = zp[zp["kind"].astype(str) == "exclusion"]
+                labels = [str(x) for x in ex["label"]] if "label" in ex.columns else [""] * len(ex)
+                if any(exclusion_kind(lab, kinds) == "creek buffer" for lab in labels):
+                    notes.append("Hatched blue: creek buffer, not spread.")
+                if any(exclusion_kind(lab, kinds) != "creek buffer" for lab in labels):
+                    notes.append("Hatched grey: excluded from spreading.")
             tp = pt[pt["product"].astype(str) == product]
-            if len(tp):
-                order = tp.assign(_o=(tp["level"] != "zone").astype(int))
-                order = order.sort_values(["_o"], kind="stable").drop(columns="_o")
-                schedules = None
-                if "schedule" in zp.columns:
-                    split = {z: str(t) for z, t in zip(zp["zone"], zp["schedule"], strict=True)
-                             if isinstance(t, str) and t}
-                    schedules = split or None  # the column only when a zone is split
-                rows, classes = _tonnage_rows(order, colour_of, unit=data.rate_unit,
-                                              schedules=schedules)
-                out.append(_table(_tonnage_headers(data.rate_unit,
-                                                   schedule=schedules is not None,
-                                                   currency=data.currency),
-                                  rows, css="tonnage", row_classes=classes))
-            else:
-                out.append('<p class="note">No tonnage for this product here.</p>')
-            out.append("</div>")
-        out.append("</section>")
+            table = (_tonnage_table(tp, zp, top=top_rate.get(product, 0.0),
+                                    unit=data.rate_unit, kinds=kinds, currency=data.currency)
+                     if len(tp) else None)
+            blocks.append({"product": product, "svg": svg, "notes": " ".join(notes),
+                           "table": table})
+        paddocks.append({
+            "anchor": f"paddock-{i}", "name": paddock, "blocks": blocks,
+            "density": None if d is None else (
+                f"{_num(d.area_ha, 2)} ha · {d.samples} sample(s) · {_num(d.per_ha, 2)} samples "
+                f"per ha ({_num(d.ha_per_sample, 1)} ha per sample)"),
+        })
 
-    # Surfaces: variograms and cross-validation
-    out.append('<section id="surfaces" class="major"><h2>Surfaces and variograms</h2>')
-    if data.variograms:
-        out.append(
-            '<h3>Cross-validation (leave one out)</h3><p class="note">Mean error near 0 means no '
-            "bias; RMSE is the typical error of a predicted value; the mean squared standardised "
-            "error (MSSE) near 1 means the kriging standard deviation is realistic.</p>"
-        )
-        rows = [
-            [
-                _t(v.variable),
-                _t(v.paddock),
-                _t(v.method),
-                _t(v.model or "–"),
-                _t(v.n_samples if v.n_samples is not None else "–"),
-                _sig(v.cv_mean_error),
-                _sig(v.cv_rmse),
-                _sig(v.cv_msse),
-            ]
-            for v in data.variograms
-        ]
-        out.append(
-            _table(
-                [
-                    ("surface", False),
-                    ("paddock", False),
-                    ("method", False),
-                    ("model", False),
-                    ("samples", True),
-                    ("mean error", True),
-                    ("RMSE", True),
-                    ("MSSE", True),
-                ],
-                rows,
-                css="cross-validation",
-            )
-        )
-        out.append('<h3>Variograms</h3><div class="variograms">')
-        for v in data.variograms:
-            params = (
-                f"{_t(v.model)}: nugget {_sig(v.nugget)}, partial sill {_sig(v.psill)}, "
-                f"range {_sig(v.range_m)} m"
-                if v.model
-                else _t(v.method)
-            )
-            note = f" {_t(v.note)}." if v.note else ""
-            unit = f" ({_t(v.unit)})" if v.unit else ""
-            out.append(
-                f'<figure class="variogram-figure">{variogram_svg(v)}<figcaption><strong>'
-                f"{_t(v.variable)}{unit}, {_t(v.paddock)}</strong> — {params}. Points: empirical "
-                f"semivariance (larger = more pairs); line: fitted model; dashed: range.{note}"
-                f"</figcaption></figure>"
-            )
-        out.append("</div>")
-    else:
-        out.append('<p class="note">No surfaces were interpolated.</p>')
-    out.append("</section>")
+    cv_table = _simple_table(
+        [("surface", False), ("paddock", False), ("method", False), ("model", False),
+         ("samples", True), ("mean error", True), ("RMSE", True), ("MSSE", True)],
+        [[v.variable, v.paddock, v.method, v.model or "–",
+          str(v.n_samples) if v.n_samples is not None else "–", _sig(v.cv_mean_error),
+          _sig(v.cv_rmse), _sig(v.cv_msse)] for v in data.variograms],
+        "cross-validation") if data.variograms else None
+    variograms = []
+    for v in data.variograms:
+        params = (f"{v.model}: nugget {_sig(v.nugget)}, partial sill {_sig(v.psill)}, "
+                  f"range {_sig(v.range_m)} m" if v.model else v.method)
+        variograms.append({"svg": Markup(variogram_svg(v)), "variable": v.variable,
+                           "unit": v.unit, "paddock": v.paddock, "params": params,
+                           "note": v.note})
+    uncertainty = _simple_table(
+        [("surface", False), ("paddock", False), ("SD threshold", True),
+         ("area above threshold", True), ("largest SD", True), ("mean SD", True)],
+        [[u.variable, u.paddock, f"{_sig(u.sd_threshold)} {u.unit}".strip(),
+          _num(100.0 * u.share_above, 1, thousands=False) + " %",
+          f"{_sig(u.sd_max)} {u.unit}".strip(),
+          f"{_sig(u.sd_mean)} {u.unit}".strip() if u.sd_mean is not None else "–"]
+         for u in data.uncertainty], "uncertainty") if data.uncertainty else None
+    density_table = _simple_table(
+        [("paddock", False), ("samples", True), ("area (ha)", True), ("samples per ha", True),
+         ("ha per sample", True)],
+        [[d.paddock, str(d.samples), _num(d.area_ha, 2), _num(d.per_ha, 2),
+          _num(d.ha_per_sample, 1)] for d in data.density], "density") if data.density else None
 
-    # Uncertainty
-    out.append(
-        '<section id="uncertainty"><h2>Where the maps are least certain</h2>'
-        '<p class="note">The kriging standard deviation (SD) measures how far an interpolated '
-        "value may be from the truth; it grows away from the samples. Where a large share of a "
-        "paddock is above the threshold, more samples would firm up the rates.</p>"
-    )
-    if data.uncertainty:
-        rows = [
-            [
-                _t(u.variable),
-                _t(u.paddock),
-                f"{_sig(u.sd_threshold)} {_t(u.unit)}".strip(),
-                _num(100.0 * u.share_above, 1, thousands=False) + " %",
-                f"{_sig(u.sd_max)} {_t(u.unit)}".strip(),
-                f"{_sig(u.sd_mean)} {_t(u.unit)}".strip() if u.sd_mean is not None else "–",
-            ]
-            for u in data.uncertainty
-        ]
-        out.append(
-            _table(
-                [
-                    ("surface", False),
-                    ("paddock", False),
-                    ("SD threshold", True),
-                    ("area above threshold", True),
-                    ("largest SD", True),
-                    ("mean SD", True),
-                ],
-                rows,
-                css="uncertainty",
-            )
-        )
-    else:
-        out.append('<p class="note">No kriging standard deviation was computed.</p>')
-    out.append("</section>")
-
-    # Sample density
-    out.append('<section id="density"><h2>Sample density</h2>')
-    if data.density:
-        rows = [
-            [
-                _t(d.paddock),
-                _t(d.samples),
-                _num(d.area_ha, 2),
-                _num(d.per_ha, 2),
-                _num(d.ha_per_sample, 1),
-            ]
-            for d in data.density
-        ]
-        out.append(
-            _table(
-                [
-                    ("paddock", False),
-                    ("samples", True),
-                    ("area (ha)", True),
-                    ("samples per ha", True),
-                    ("ha per sample", True),
-                ],
-                rows,
-                css="density",
-            )
-        )
-    else:
-        out.append('<p class="note">No sample counts were given.</p>')
-    out.append("</section>")
-
-    # Assumptions and methods
-    out.append('<section id="assumptions" class="major"><h2>Assumptions and methods</h2>')
-    if data.assumptions:
-        out.append(
-            _table(
-                [("assumption", False), ("value", False)],
-                [[_t(k), _t(v)] for k, v in data.assumptions.items()],
-                css="assumptions",
-            )
-        )
-    if data.methods:
-        out.append(
-            "<h3>Methods and sources</h3>"
-            + _table(
-                [("rule or method", False), ("source", False)],
-                [[_t(rule), _t(cite)] for rule, cite in data.methods],
-                css="methods",
-            )
-        )
-    if not data.assumptions and not data.methods:
-        out.append('<p class="note">None recorded.</p>')
-    out.append("</section>")
-
-    # Warnings
-    out.append('<section id="warnings"><h2>Warnings</h2>')
-    if data.warnings:
-        out.append(
-            '<ul class="warnings">' + "".join(f"<li>{_t(w)}</li>" for w in data.warnings) + "</ul>"
-        )
-    else:
-        out.append('<p class="note">The run raised no warnings.</p>')
-    out.append("</section>")
-
-    # Provenance
-    prov = data.provenance
-    out.append('<section id="provenance" class="major"><h2>Provenance</h2><h3>Input files</h3>')
-    if prov.inputs:
-        out.append(
-            '<table class="inputs"><thead><tr><th>file</th><th>SHA-256</th></tr></thead><tbody>'
-            + "".join(
-                f"<tr><td><code>{_t(path)}</code></td>"
-                f'<td class="hash"><code>{_t(digest)}</code></td></tr>'
-                for path, digest in prov.inputs
-            )
-            + "</tbody></table>"
-        )
-    else:
-        out.append('<p class="note">No input files recorded.</p>')
-    out.append("<h3>Software</h3>")
-    if prov.versions:
-        out.append(
-            _table(
-                [("software", False), ("version", False)],
-                [[_t(k), _t(v)] for k, v in prov.versions.items()],
-                css="versions",
-            )
-        )
-    out.append("<h3>Settings</h3>")
-    out.append(
-        f'<pre class="settings">{_t(prov.settings_toml)}</pre>'
-        if prov.settings_toml.strip()
-        else '<p class="note">No settings recorded.</p>'
-    )
-    out.append("</section>")
-    out.append(
-        '<footer class="note"><p>Rates are advisory; confirm them with a qualified agronomist '
-        "and follow local regulations.</p></footer></body></html>"
+    nav = [("cautions", "Cautions"), ("summary", "Farm totals")]
+    if data.glance:
+        nav.append(("glance", "Paddocks at a glance"))
+    if soil_maps:
+        nav.append(("soil-maps", "Soil maps"))
+    nav += [(p["anchor"], f"Paddock {p['name']}") for p in paddocks]
+    nav += [("surfaces", "Surfaces and variograms"),
+            ("uncertainty", "Where the maps are least certain"), ("density", "Sample density"),
+            ("assumptions", "Assumptions and methods"), ("warnings", "Warnings and notes"),
+            ("provenance", "Provenance")]
+    page = _templates().get_template("report.html").render(
+        css=_css(), data=data, created=created,
+        version=data.provenance.versions.get("geosoil", ""), nav=nav,
+        n_paddocks=len(paddock_names), n_products=len(products),
+        farm_table=farm_table, glance=_glance_table(data, products),
+        soil_maps=soil_maps, has_creek=has_creek, has_exclusion=len(excl_zones) > 0,
+        paddocks=paddocks, cv_table=cv_table, variograms=variograms,
+        uncertainty=uncertainty, density_table=density_table,
+        assumptions=_simple_table([("assumption", False), ("value", False)],
+                                  [[k, v] for k, v in data.assumptions.items()], "assumptions")
+        if data.assumptions else None,
+        methods=_simple_table([("rule or method", False), ("source", False)],
+                              [[a, b] for a, b in data.methods], "methods")
+        if data.methods else None,
+        versions=_simple_table([("software", False), ("version", False)],
+                               [[k, v] for k, v in data.provenance.versions.items()], "versions")
+        if data.provenance.versions else None,
     )
     logger.debug("report: %d paddocks, %d surfaces", len(paddock_names), len(data.variograms))
-    return "\n".join(out)
+    return page

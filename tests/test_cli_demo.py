@@ -86,3 +86,101 @@ def test_demo_refuses_its_own_folder_and_a_used_folder(demo_run, tmp_path: Path)
     r = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path / "used")])
     assert r.exit_code == 1 and "--overwrite" in r.stderr
     assert [p.name for p in (tmp_path / "used").iterdir()] == ["notes.txt"]
+
+
+# --------------------------------------------------------------------------- map and report
+
+
+def _map_data(out: Path) -> dict:
+    page = (out / "map.html").read_text(encoding="utf-8")
+    m = re.search(r'<script type="application/json" id="geosoil-data">(.*?)</script>', page, re.S)
+    assert m
+    return json.loads(m.group(1))
+
+
+def _report_table(page: str, css: str) -> list[list[str]]:
+    """Rows of the report's table of class ``css`` as text."""
+    import html as html_mod
+
+    table = page[page.index(f'<table class="{css}">'):]
+    table = table[: table.index("</table>")]
+    rows = re.findall(r"<tr[^>]*>(.*?)</tr>", table, re.S)
+    return [[html_mod.unescape(re.sub(r"<[^>]+>", "", c)).strip()
+             for c in re.findall(r"<t[dh][^>]*>(.*?)</t[dh]>", r, re.S)] for r in rows]
+
+
+def test_demo_map_has_every_written_surface_and_opens_on_the_largest_prescription(
+        demo_run) -> None:  # noqa: ANN001
+    out: Path = demo_run["out"]
+    data = _map_data(out)
+    ids = [s["id"] for s in data["surfaces"]]
+    written = {p.stem for p in (out / "surfaces").rglob("*.tif")}
+    for var in ("esp", "ph", "acid_sat", "al_sat", "k", "k_sat", "ca_sat", "ecec"):
+        assert var in ids and var in written
+    assert {f"{v}_sd" for v in ("ca", "mg", "k", "na", "acidity", "al", "ph")} <= set(ids)
+    ph = next(s for s in data["surfaces"] if s["id"] == "ph")
+    assert ph["title"] == "pH (CaCl2)"  # the demo's lab measured pH in CaCl2
+    # the largest prescription by tonnes (tonnage.csv farm rows), with the surface behind it
+    farm_rows = [r.split(",") for r in (out / "tonnage.csv").read_text().splitlines()
+                 if r.startswith("farm,")]
+    header = (out / "tonnage.csv").read_text().splitlines()[0].split(",")
+    tonnes = {r[header.index("product")]: float(r[header.index("tonnes")]) for r in farm_rows}
+    largest = max(tonnes, key=lambda k: tonnes[k])
+    assert data["open"]["product"] == largest
+    assert data["open"]["surface"] == ("al" if largest == "lime" else "esp")  # Kamprath: Al
+    creek = [e for e in data["exclusions"] if e["name"] == "Bellbird Creek"]
+    assert creek and all(e["kind"] == "creek buffer" for e in creek)
+    fields = [f[0] for f in data["samples"]["fields"]]
+    assert "pH (CaCl2)" in fields and "EC 1:5 (dS/m)" in fields  # the lab's own columns
+
+
+def test_demo_report_uses_one_area_per_paddock_and_counts_cells_for_the_glance(
+        demo_run) -> None:  # noqa: ANN001
+    import rasterio
+
+    out: Path = demo_run["out"]
+    page = (out / "report.html").read_text(encoding="utf-8")
+    lines = (out / "tonnage.csv").read_text().splitlines()
+    header = lines[0].split(",")
+    paddock_area = {}
+    for line in lines[1:]:
+        row = line.split(",")
+        if row[0] == "paddock":
+            paddock_area[row[header.index("paddock")]] = float(row[header.index("area_ha")])
+    glance = _report_table(page, "glance")
+    head = glance[0]
+    density = {r[0]: r for r in _report_table(page, "density")[1:]}
+    for row in glance[1:]:
+        name = row[0]
+        assert row[1] == f"{paddock_area[name]:,.2f}"  # the tonnage table's figure
+        assert density[name][2] == row[1]  # the density table's figure
+        assert f"{row[1]} ha · " in page  # the paddock's own section
+        # sodic area = cells of the written ESP surface at or above 6 % x cell area
+        slug = name.lower().replace(" ", "-")
+        with rasterio.open(out / "surfaces" / slug / "esp.tif") as src:
+            esp = src.read(1, masked=True)
+            cell_ha = abs(src.transform.a * src.transform.e) / 1e4
+        sodic = float(((esp >= 6).filled(False)).sum() * cell_ha)
+        strongly = float(((esp >= 15).filled(False)).sum() * cell_ha)
+        assert row[head.index("sodic, ESP ≥ 6 % (ha)")] == f"{sodic:,.2f}"
+        assert row[head.index("strongly sodic, ESP ≥ 15 % (ha)")] == f"{strongly:,.2f}"
+    creek = [r for r in glance[1:] if r[0] == "Creek Flat"][0]
+    assert float(creek[head.index("creek buffer (ha)")]) > 0
+    assert "creek buffer: Bellbird Creek (not spread)" in page
+    for title in ("ESP (exchangeable sodium)", "pH (CaCl2)", "Acid saturation"):
+        assert f"aria-label=\"Map of {title}\"" in page
+
+
+def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  # noqa: ANN001
+    import html as html_mod
+
+    out: Path = demo_run["out"]
+    page = (out / "report.html").read_text(encoding="utf-8")
+    section = page[page.index('<ul class="warnings">'):]
+    listed = [html_mod.unescape(w) for w in
+              re.findall(r"<li>(.*?)</li>", section[: section.index("</ul>")], re.S)]
+    record = json.loads((out / "run.json").read_text())
+    assert listed == record["warnings"]
+    summary = [line[4:] for line in demo_run["result"].stderr.splitlines()
+               if line.startswith("  - ")]
+    assert summary == listed

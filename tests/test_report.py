@@ -279,7 +279,7 @@ def test_cross_validation_table_has_every_surface(page: str) -> None:
         assert text in table
     assert sec.count('class="variogram"') == 2
     assert "No variogram: this surface was made by inverse-distance weighting." in sec
-    assert "fitted on the farm&#x27;s samples" in sec
+    assert "fitted on the farm's samples" in html.unescape(sec)
 
 
 def test_uncertainty_shows_the_share_as_percent(page: str) -> None:
@@ -423,11 +423,12 @@ def test_unknown_rate_unit_is_refused() -> None:
 def test_hostile_text_is_escaped_everywhere() -> None:
     page = report.build_report(report_input(hostile=True))
     assert "<script" not in page.lower()
-    for raw in (HOSTILE_IMG, HOSTILE_SCRIPT, HOSTILE_TEMPLATE):
+    for raw in (HOSTILE_IMG, HOSTILE_SCRIPT):
         assert raw not in page
     assert "<img" not in page
-    assert escape_text("Paddock North " + HOSTILE_IMG) in page
-    assert escape_text(HOSTILE_TEMPLATE) in page
+    assert html.escape("Paddock North " + HOSTILE_IMG) in page
+    # The page runs no script, so "${7*6}" is plain text: it is there as written, never 42.
+    assert "gypsum " + HOSTILE_TEMPLATE in page and "gypsum 42" not in page
 
 
 # --------------------------------------------------------------------------- drawings
@@ -651,3 +652,61 @@ def test_zone_labels_never_overlap_on_concentric_ring_zones() -> None:
     for i, a in enumerate(boxes):
         for b in boxes[i + 1:]:
             assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (a, b)
+
+
+# --------------------------------------------------------------------------- at a glance, soil maps
+
+
+def _with_glance(hostile: bool = False) -> report.ReportInput:
+    import affine
+
+    from geosoil.presentation import classes_for
+
+    base = report_input(hostile=hostile)
+    names = list(base.paddocks["paddock"])
+    esp = np.full((25, 20), 3.0)
+    esp[:10, :10] = 9.0
+    esp[:4, :4] = 20.0
+    esp[24, :] = np.nan
+    soil = report.SoilMap(title="ESP", unit="% of ECEC", array=esp,
+                          transform=affine.Affine(40, 0, X0, 0, -40, Y0 + 1000),
+                          classes=classes_for("esp", esp))
+    samples = gpd.GeoDataFrame({"sample_id": ["S1 " + HOSTILE_IMG if hostile else "S1"]},
+                               geometry=[Point(X0 + 100, Y0 + 700)], crs=CRS)
+    glance = (
+        report.PaddockGlance(paddock=names[0], area_ha=40.0, excluded_ha={"creek buffer": 0.5},
+                             sodic_ha=6.4, strongly_sodic_ha=1.2, acid_ha=None,
+                             product_ha={"lime": 40.0}, product_t={"lime": 100.0}),
+        report.PaddockGlance(paddock=names[1], area_ha=28.8, excluded_ha={},
+                             sodic_ha=0.0, strongly_sodic_ha=0.0, acid_ha=3.3),
+    )
+    return dataclasses.replace(base, glance=glance, soil_maps=(soil,), samples=samples,
+                               notes=("North: zones under 0.5 ha merged",),
+                               exclusion_kinds={"dam": "exclusion"})
+
+
+def test_glance_table_and_soil_maps_come_after_the_farm_totals() -> None:
+    page = report.build_report(_with_glance())
+    ids = re.findall(r'<section[^>]* id="([^"]+)"', page)
+    assert ids[:4] == ["cautions", "summary", "glance", "soil-maps"]
+    glance = _section(page, "glance")
+    assert "creek buffer (ha)" in glance and "needs lime (ha)" in glance
+    assert "40.00 (100.0 t)" in glance and "6.40" in glance and "–" in glance  # no pH: a dash
+    maps = _section(page, "soil-maps")
+    assert maps.count('class="soil-map"') == 1 and "data:image/png;base64," in maps
+    for label in ("non-sodic (&lt; 6)", "sodic (6 to 15)", "strongly sodic (≥ 15)"):
+        assert label in maps
+    assert maps.count('class="sample"') == 1
+    assert webmap.remote_references(page) == []
+
+
+def test_notes_on_the_rates_are_apart_from_the_warnings() -> None:
+    sec = _section(report.build_report(_with_glance()), "warnings")
+    assert "The run raised no warnings." in sec
+    assert "Notes on the rates" in sec and "zones under 0.5 ha merged" in sec
+
+
+def test_hostile_text_in_glance_and_soil_maps_is_escaped() -> None:
+    page = report.build_report(_with_glance(hostile=True))
+    assert "<img" not in page and "<script" not in page.lower()
+    assert escape_text("S1 " + HOSTILE_IMG) in page  # the sample's tooltip in the SVG
