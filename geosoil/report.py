@@ -1172,10 +1172,10 @@ def build_report(data: ReportInput) -> str:
         excl_zones = excl_zones[excl_zones["product"] == excl_zones["product"].iloc[0]]
     soil_maps = []
     for k, soil in enumerate(data.soil_maps):
-        svg = surface_map_svg(soil, paddocks=_metric(data.paddocks),
-                              samples=data.samples, exclusions=excl_zones,
-                              exclusion_kinds=kinds, uid=str(k))
-        soil_maps.append({"title": soil.title, "unit": soil.unit, "svg": Markup(svg),
+        map_svg = surface_map_svg(soil, paddocks=_metric(data.paddocks),
+                                  samples=data.samples, exclusions=excl_zones,
+                                  exclusion_kinds=kinds, uid=str(k))
+        soil_maps.append({"title": soil.title, "unit": soil.unit, "svg": Markup(map_svg),
                           "legend": soil.classes.legend(), "note": soil.classes.note})
     has_creek = any(exclusion_kind(str(lab), kinds) == "creek buffer"
                     for lab in (excl_zones["label"] if "label" in excl_zones.columns else []))
@@ -1189,7 +1189,7 @@ def build_report(data: ReportInput) -> str:
         blocks = []
         for j, product in enumerate(prods):
             zp = pz[pz["product"].astype(str) == product]
-            svg: Any = None
+            svg = None
             notes = []
             if len(zp):
                 svg = Markup(zone_map_svg(zp, outline=paddock_geoms.get(paddock),
