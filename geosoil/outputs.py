@@ -584,6 +584,8 @@ def paddock_glance(farm: FarmResult) -> list[Any]:
     kinds = exclusion_kinds(farm)
     limit = acid_ph_threshold(farm)
     totals = farm.tonnage[farm.tonnage["level"].astype(str) == "paddock"]
+    lb_ac = farm.prep.project.settings.output.rate_unit == "lb/ac"
+    mass = "short_tons" if lb_ac and "short_tons" in totals.columns else "tonnes"
     zones = farm.zones
     out = []
     for name, grid in farm.prep.grids.items():
@@ -614,7 +616,7 @@ def paddock_glance(farm: FarmResult) -> list[Any]:
             strongly_sodic_ha=area_where("esp", lambda a: a >= chem.strongly_sodic_esp_percent),
             acid_ha=area_where("ph", lambda a: a < limit),
             product_ha={str(r["product"]): float(r["spread_area_ha"]) for _, r in rows.iterrows()},
-            product_t={str(r["product"]): float(r["tonnes"]) for _, r in rows.iterrows()},
+            product_t={str(r["product"]): float(r[mass]) for _, r in rows.iterrows()},
         ))
     return out
 

@@ -287,7 +287,7 @@ class PaddockGlance:
         included), strongly sodic, and acid (pH below the acid threshold); None when
         the surface is missing.
     product_ha, product_t
-        Product -> area needing it (rate above 0) and tonnes.
+        Product -> area needing it (rate above 0) and tonnes (short tons with lb/ac).
     """
 
     paddock: str
