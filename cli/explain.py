@@ -54,8 +54,10 @@ def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: 
 
     a, b = at
     proj = load_project(project)
-    locate(prepare(proj), a, b, coords=coords)  # a point off the farm fails before kriging
+    prep = prepare(proj)
+    # a point off the farm fails before kriging; only its paddock's rates and zones are made
+    where = locate(prep, a, b, coords=coords)
     progress = Progress(quiet=ctx.obj["quiet"])
-    farm = compute(proj, progress=progress)
+    farm = compute(proj, progress=progress, prepared=prep, paddocks={where.paddock})
     progress.done()
     click.echo(format_explanation(explain_location(farm, a, b, coords=coords)))

@@ -24,7 +24,7 @@ import json
 import logging
 import time
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Collection
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -419,6 +419,7 @@ def compute(
     use_cache: bool = True,
     prepared: Prepared | None = None,
     interpolate: Interpolator | None = None,
+    paddocks: Collection[str] | None = None,
 ) -> FarmResult:
     """Stages 1-5: read, interpolate, compute rates, zones and tonnage.
 
@@ -434,11 +435,16 @@ def compute(
         The result of :func:`prepare` for ``project`` when the caller has it already.
     interpolate : callable, optional
         What makes the surfaces on a cache miss (see :func:`surfaces_for`).
+    paddocks : collection of str, optional
+        Compute rates, zones and tonnage for these paddocks only (``explain``
+        needs one); default every paddock. Surfaces are always made (or taken
+        from the cache) for the whole farm.
 
     Returns
     -------
     FarmResult
-        Surfaces, rates, zones and tonnage of every paddock, with the warnings.
+        Surfaces, rates, zones and tonnage of every paddock asked for, with the
+        warnings.
 
     Raises
     ------
@@ -459,6 +465,8 @@ def compute(
     all_zones: list[gpd.GeoDataFrame] = []
     with record_warnings(prep.warnings):
         for name, grid in prep.grids.items():
+            if paddocks is not None and name not in paddocks:
+                continue
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
             cells, cell_notes = derive_cells(est)

@@ -445,6 +445,20 @@ def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(
     assert third.cache_hit is False
 
 
+def test_compute_for_one_paddock_gives_that_paddocks_zones_unchanged(demo) -> None:
+    """explain computes rates and zones for its point's paddock only: the same zones as
+    the whole farm's run [derived: each paddock's rates and zones depend on its own cells]."""
+    name = PADDOCK_NAMES[-1]
+    one = compute(demo.project, paddocks={name})
+    assert set(one.paddocks) == {name} and one.cache_hit
+    whole = demo.result.farm.paddocks[name].zones
+    part = one.paddocks[name].zones
+    cols = ["product", "zone", "kind", "label", "rate_kg_ha", "rate_raw_kg_ha", "n_cells"]
+    assert part[cols].reset_index(drop=True).equals(whole[cols].reset_index(drop=True))
+    assert shapely.equals(part.geometry.to_numpy(), whole.geometry.to_numpy()).all()
+    assert set(one.zones["paddock"]) == {name}
+
+
 def test_a_cache_hit_records_the_interpolation_warnings_again(demo) -> None:
     # a re-run must report what the first run did: here Creek Flat's 39 samples fall short
     # of min_samples_kriging and its surfaces come from inverse-distance weighting
