@@ -40,6 +40,9 @@ from .zones import ZoneSettings
 __all__ = [
     "PROJECT_FILE_NAME",
     "NEW_MIN_RATE_KG_HA",
+    "NEW_CELL_SIZES_M",
+    "NEW_MAX_CELLS",
+    "cell_size_for",
     "SoilSettings",
     "GridSettings",
     "TonnageSettings",
@@ -60,6 +63,38 @@ PROJECT_FILE_NAME = "geosoil.toml"
 #: Smallest rate a new project's spreader meters, kg/ha: spinner spreaders rarely put out less
 #: lime or gypsum (common practice). The library's own default is 0 (no limit).
 NEW_MIN_RATE_KG_HA = 100.0
+
+#: ``new`` picks the smallest of these cell sizes (metres) that keeps the farm within
+#: NEW_MAX_CELLS cells.
+NEW_CELL_SIZES_M = (10.0, 15.0, 20.0, 25.0, 30.0, 40.0, 50.0, 75.0, 100.0)
+#: About this many cells keep a whole run of a farm within a minute on a small machine
+#: (see benchmarks/bench_scale.py); finer grids cost time and memory in proportion.
+NEW_MAX_CELLS = 250_000
+
+
+def cell_size_for(area_ha: float) -> float:
+    """The cell size ``new`` writes for a farm of ``area_ha``: the smallest of
+    :data:`NEW_CELL_SIZES_M` that keeps it within :data:`NEW_MAX_CELLS` cells.
+
+    Parameters
+    ----------
+    area_ha
+        Area of all paddocks together, hectares.
+
+    Returns
+    -------
+    float
+        Cell side, metres.
+
+    Examples
+    --------
+    >>> cell_size_for(250.0), cell_size_for(2000.0), cell_size_for(5000.0)
+    (10.0, 10.0, 15.0)
+    """
+    for size in NEW_CELL_SIZES_M:
+        if area_ha * 1e4 / (size * size) <= NEW_MAX_CELLS:
+            return size
+    return NEW_CELL_SIZES_M[-1]
 
 
 @dataclass(frozen=True)
@@ -742,9 +777,21 @@ def new_project(
     )
     rates, rate_notes = _lime_for_columns(read)
     notes.extend(rate_notes)
+    metric = pads if pads.crs is None or not pads.crs.is_geographic else pads.to_crs(
+        pads.estimate_utm_crs())
+    area_ha = float(metric.geometry.area.sum()) / 1e4
+    cell = cell_size_for(area_ha)
+    notes.append(
+        f"grid cell size {cell:g} m: about {area_ha * 1e4 / cell**2:,.0f} cells over the "
+        f"{area_ha:,.0f} ha of paddocks (new picks the finest of "
+        f"{', '.join(f'{c:g}' for c in NEW_CELL_SIZES_M)} m that stays within "
+        f"{NEW_MAX_CELLS:,} cells, so a run takes about a minute or less); set [grid] "
+        "cell_size_m to change it"
+    )
     settings = ProjectSettings(
         rates=rates,
         samples=sample_settings,
+        grid=GridSettings(cell_size_m=cell),
         boundaries=dataclasses.replace(boundaries, paddocks=_relative(paddocks_path, folder)),
         farm=folder.resolve().name,
         # a new project starts from a spreader that meters no less than NEW_MIN_RATE_KG_HA:

@@ -131,6 +131,29 @@ def test_lonlat_columns_are_recognised_and_written(
     assert project.settings.boundaries.paddocks == inputs["paddocks_utm"].resolve()
 
 
+def test_new_picks_the_cell_size_for_the_farms_size_and_says_so(lonlat_project) -> None:  # noqa: ANN001
+    """A 12 ha paddock (400 m x 300 m) keeps 10 m cells, with a note naming the size."""
+    folder, r = lonlat_project
+    data = tomllib.loads((folder / "geosoil.toml").read_text())
+    assert data["grid"]["cell_size_m"] == 10.0
+    # [derived] 12 ha / 100 m2 per cell
+    assert "grid cell size 10 m" in r.stderr and "1,200 cells" in r.stderr
+
+
+def test_cell_size_for_keeps_the_farm_within_the_cell_budget() -> None:
+    """[derived] the size picked keeps area / size^2 within the budget, and the next finer
+    size on the list would not."""
+    from geosoil.project import NEW_CELL_SIZES_M, NEW_MAX_CELLS, cell_size_for
+
+    for ha in (1.0, 250.0, 2500.0, 2501.0, 5000.0, 20_000.0, 100_000.0):
+        size = cell_size_for(ha)
+        assert ha * 1e4 / size**2 <= NEW_MAX_CELLS
+        i = NEW_CELL_SIZES_M.index(size)
+        if i:
+            assert ha * 1e4 / NEW_CELL_SIZES_M[i - 1] ** 2 > NEW_MAX_CELLS
+    assert cell_size_for(5000.0) == 15.0  # [derived] 5e7 m2 / 225 m2 = 222 222 cells
+
+
 def test_every_setting_is_written_with_a_comment(lonlat_project) -> None:  # noqa: ANN001
     folder, _ = lonlat_project
     text = (folder / "geosoil.toml").read_text()
