@@ -78,6 +78,7 @@ Examples
 
 from __future__ import annotations
 
+import functools
 import heapq
 import logging
 import math
@@ -534,6 +535,18 @@ def _cell_overlap(
     area[win] = sub
     centre[win] = shapely.contains_xy(geom, (x0 + x1) / 2.0, (y0 + y1) / 2.0)
     shapely.destroy_prepared(geom)
+    return area, centre
+
+
+@functools.lru_cache(maxsize=4)
+def _work_overlap(
+    work_wkb: bytes, transform: tuple[float, ...], shape: tuple[int, int]
+) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """:func:`_cell_overlap` of a working area, kept for the next product of the same
+    paddock (the same area on the same grid); the arrays are read-only."""
+    area, centre = _cell_overlap(shapely.from_wkb(work_wkb), Affine(*transform[:6]), shape)
+    area.flags.writeable = False
+    centre.flags.writeable = False
     return area, centre
 
 
@@ -1255,7 +1268,7 @@ def make_zones(
         pieces: list[_Piece] = []
         notes.append(f"paddock '{paddock}' is excluded in full")
     elif settings.method in _CLASS_METHODS:
-        overlap, centre = _cell_overlap(work, transform, rate.shape)
+        overlap, centre = _work_overlap(shapely.to_wkb(work), tuple(transform), rate.shape)
         pieces, class_raster = _class_zones(rate, transform=transform, work=work,
                                             overlap=overlap, settings=settings, spreader=sp,
                                             notes=notes)
