@@ -31,7 +31,12 @@ Printed per case:
   only builds the data and runs the engine (includes Python, numpy, BLAS and
   the data themselves; its size before kriging is shown beside it);
 * the largest difference between geosoil and pykrige on the cells both ran,
-  relative to the largest magnitude (``max |a - b| / max |b|``).
+  relative to the largest magnitude (``max |a - b| / max |b|``);
+* how close the global engine's matrix work runs to this machine's matrix
+  multiply: the floating-point operations of its products (``2 m c1 (c1 - c0)``
+  summed over the column blocks of the triangular factor, plus the two
+  right-hand sides) per second of the whole kriging call, against the best
+  rate of a square float64 ``matmul`` of the same inner size, measured here.
 
 This is not a test: it prints numbers, it asserts nothing about speed.
 """
@@ -48,7 +53,7 @@ from pathlib import Path
 
 import numpy as np
 
-from geosoil.kriging import ordinary_kriging
+from geosoil.kriging import _column_edges, ordinary_kriging
 from geosoil.variogram import VariogramModel
 
 CELL_M = 5.0
@@ -144,6 +149,25 @@ def mib(x: float) -> str:
     return f"{x / 2**20:,.0f} MiB"
 
 
+def gemm_gflops(n: int, repeats: int = 3) -> float:
+    """Best float64 matrix-multiply rate of this machine (all cores), GFLOP/s, for an
+    ``n x n`` by ``n x n`` product (at least 1 000)."""
+    n = max(n, 1000)
+    rng = np.random.default_rng(0)
+    a, b = rng.normal(size=(n, n)), rng.normal(size=(n, n))
+    t, _ = best_time(lambda: a @ b, repeats)
+    return 2.0 * n**3 / t / 1e9
+
+
+def kriging_flops(n: int, m: int) -> float:
+    """Floating-point operations of the global engine's products for n samples, m cells."""
+    flops, c0 = 0.0, 0
+    for c1 in _column_edges(n):
+        flops += 2.0 * m * c1 * (c1 - c0) + 2.0 * m * (c1 - c0) * 3  # K M^T block, w.w, w.uv
+        c0 = c1
+    return flops
+
+
 def run_case(case: Case, *, pykrige_cells: int | None, repeats: int) -> None:
     xy, z, target, model = make_data(case)
     m = len(target)
@@ -175,6 +199,10 @@ def run_case(case: Case, *, pykrige_cells: int | None, repeats: int) -> None:
     print(f"  geosoil local ({LOCAL_NEIGHBOURS} neighbours):    {t_local:9.2f} s   ratio "
           f"{t_pk / t_local:6.1f}x   peak numpy {mib(mem_l[0])}, peak RSS {mib(mem_l[1])} "
           f"({mib(mem_l[2])} before)")
+    gemm = gemm_gflops(case.n_samples)
+    engine = kriging_flops(case.n_samples, m) / t_ours / 1e9
+    print(f"  matrix work: {engine:.1f} GFLOP/s over the whole call, against {gemm:.1f} GFLOP/s "
+          f"for a {max(case.n_samples, 1000)}-square matmul here ({engine / gemm:.0%})")
     print(f"  global vs pykrige ({len(subset):,} cells): estimate {rel(est[subset], pk_est):.1e}, "
           f"variance {rel(var[subset], pk_var):.1e}  (max |a-b| / max |b|)")
     print(f"  local vs global (all cells):     estimate {rel(est_l, est):.1e}, "
