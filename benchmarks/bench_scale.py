@@ -155,9 +155,8 @@ def one_farm(ha: float, paddocks: int, samples: int, *, keep: Path | None) -> di
         wall2, peak2, _ = timed(["-q", "run", str(tmp / "project"), "--out", str(tmp / "out2")],
                                 env=env)
         rec2 = json.loads((tmp / "out2" / "run.json").read_text(encoding="utf-8"))
-        out.update(rerun_s=wall2, rerun_cpu_s=LAST_CPU_S[0], rerun_mib=peak2, rerun_stages=rec2.get("timings_s", {}),
-                   cells=sum(p.get("cells", 0) for p in rec.get("paddocks", {}).values())
-                   if isinstance(rec.get("paddocks"), dict) else None,
+        out.update(rerun_s=wall2, rerun_cpu_s=LAST_CPU_S[0], rerun_mib=peak2,
+                   rerun_stages=rec2.get("timings_s", {}),
                    cell_size_m=rec.get("settings", {}).get("grid", {}).get("cell_size_m"))
         if keep is not None:
             shutil.copytree(tmp, keep, dirs_exist_ok=True)
