@@ -50,7 +50,7 @@ from shapely.geometry.base import BaseGeometry
 from .errors import CRSError, DataWarning, InputError
 from .settings import check_range
 
-__all__ = ["PaddockGrid", "aligned_grids", "mosaic"]
+__all__ = ["MAX_GRID_CELLS", "PaddockGrid", "aligned_grids", "mosaic"]
 
 logger = logging.getLogger(__name__)
 
@@ -289,6 +289,11 @@ def aligned_grids(
     return grids
 
 
+#: Largest grid of one paddock (cells of its bounding box): 50 million cells are 400 MB
+#: per float64 surface, far beyond any paddock at a sensible cell size.
+MAX_GRID_CELLS = 50_000_000
+
+
 def _polygonal_or_empty(geom: BaseGeometry) -> BaseGeometry:
     return shapely.Polygon() if geom is None or geom.is_empty else _polygonal(geom)
 
@@ -300,6 +305,15 @@ def _grid(
     i0, i1 = math.floor(minx / cs), math.ceil(maxx / cs)
     j0, j1 = math.floor(miny / cs), math.ceil(maxy / cs)
     width, height = max(1, i1 - i0), max(1, j1 - j0)
+    if width * height > MAX_GRID_CELLS:
+        raise InputError(
+            f"paddock '{name}' spans {maxx - minx:.4g} m x {maxy - miny:.4g} m: its grid of "
+            f"{cs:g} m cells would hold more than the {MAX_GRID_CELLS:,} cells one paddock's "
+            "grid may hold",
+            column="geometry",
+            fix="check the boundary's coordinates and CRS (metres, not degrees or "
+            "millimetres), or set a larger [grid] cell_size_m",
+        )
     transform = Affine(cs, 0.0, i0 * cs, 0.0, -cs, j1 * cs)
     shape = (height, width)
     mask = geometry_mask([geom], out_shape=shape, transform=transform, invert=True)

@@ -250,3 +250,12 @@ def test_mosaic_copies_only_masked_cells() -> None:
     assert t == Affine(10, 0, 20, 0, -10, 100)
     np.testing.assert_array_equal(np.isnan(farm), ~mask)
     assert math.isclose(np.nansum(farm), 6.0)
+
+
+def test_a_paddock_too_large_for_any_grid_is_an_input_error_naming_it() -> None:
+    """A boundary in the wrong units (here 10 000 km across) is refused before any array is
+    made, naming the paddock and the settings that fix it."""
+    huge = gpd.GeoDataFrame({"paddock": ["Far"]}, geometry=[shapely.box(0, 0, 1e7, 1e7)],
+                            crs="EPSG:32755")
+    with pytest.raises(InputError, match=r"paddock 'Far'.*cell_size_m"):
+        aligned_grids(huge, cell_size_m=10.0)
