@@ -270,9 +270,12 @@ def _rate_at(
     out = np.zeros(x.shape, dtype="int32")
     if not keep or x.size == 0:
         return out
-    tree = shapely.STRtree([geoms[i] for i in keep])
+    # the tree holds the points and the zones are the queries: shapely prepares each query
+    # geometry, so every zone is prepared once instead of testing points one by one
     points = shapely.points(x.ravel(), y.ravel())
-    pt_idx, tree_idx = tree.query(points, predicate="intersects")
+    tree = shapely.STRtree(points)
+    tree_idx, pt_idx = tree.query(np.array([geoms[i] for i in keep], dtype=object),
+                                  predicate="intersects")
     flat = np.full(x.size, _INT32_MAX, dtype="int64")
     np.minimum.at(flat, pt_idx, rates_mg[np.asarray(keep)[tree_idx]])
     flat[flat == _INT32_MAX] = 0
