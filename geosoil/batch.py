@@ -66,6 +66,7 @@ from . import job as job_mod
 from . import record as record_mod
 from . import report as report_mod
 from .errors import GeosoilError, GeosoilWarning, InputError, OutputExistsError
+from .names import fold, slug
 from .project import PROJECT_FILE_NAME, load_project
 
 __all__ = [
@@ -228,11 +229,11 @@ def _farm_names(projects: Sequence[Path]) -> list[str]:
     names: list[str] = []
     used: set[str] = set()
     for p in projects:
-        base = record_mod.slug(p.parent.name if p.name == PROJECT_FILE_NAME else p.stem)
+        base = slug(p.parent.name if p.name == PROJECT_FILE_NAME else p.stem) or "farm"
         name, k = base, 2
-        while name in used or name == KEYS_FOLDER:
+        while fold(name) in used or fold(name) == fold(KEYS_FOLDER):
             name, k = f"{base}-{k}", k + 1
-        used.add(name)
+        used.add(fold(name))
         names.append(name)
     return names
 
