@@ -50,7 +50,9 @@ __all__ = [
     "SODICITY_LABELS",
     "Classes",
     "class_colour_rgb",
+    "classes_data_uri",
     "classes_for",
+    "classes_png",
     "colourise",
     "escape_text",
     "fmt_number",
@@ -570,6 +572,47 @@ def png_bytes(rgba: np.ndarray) -> bytes:
                 dst.write(np.moveaxis(img, -1, 0))
             data = mem.read()
     return bytes(data)
+
+
+def classes_png(values: np.ndarray, classes: Classes) -> bytes:
+    """A surface drawn in its classes as a paletted PNG (one byte a pixel, a colour per
+    class, no data transparent), written by GDAL's PNG driver in memory.
+
+    Examples
+    --------
+    >>> c = classes_for("esp", np.array([1.0]))
+    >>> classes_png(np.array([[3.0, np.nan]]), c)[:8]
+    b'\\x89PNG\\r\\n\\x1a\\n'
+    """
+    import warnings
+
+    from rasterio.errors import NotGeoreferencedWarning
+    from rasterio.io import MemoryFile
+
+    idx = classes.index(np.asarray(values, dtype=float))
+    if idx.ndim != 2:
+        raise ValueError(f"a surface needs shape (rows, columns) (got {idx.shape})")
+    if len(classes.colours) > 254:
+        raise ValueError("at most 254 classes fit a paletted PNG")
+    band = (idx + 1).astype(np.uint8)  # 0 = no data
+    colormap = {0: (0, 0, 0, 0)}
+    colormap.update({k + 1: (*hex_to_rgb(c), 255) for k, c in enumerate(classes.colours)})
+    h, w = band.shape
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with MemoryFile() as mem:
+            with mem.open(driver="PNG", width=w, height=h, count=1, dtype="uint8", nodata=0,
+                          ZLEVEL=6) as dst:
+                dst.write(band, 1)
+                dst.write_colormap(1, colormap)
+            data = mem.read()
+    return bytes(data)
+
+
+def classes_data_uri(values: np.ndarray, classes: Classes) -> str:
+    """``data:image/png;base64,...`` of :func:`classes_png`."""
+    return "data:image/png;base64," + base64.b64encode(classes_png(values, classes)).decode(
+        "ascii")
 
 
 def png_data_uri(rgba: np.ndarray) -> str:

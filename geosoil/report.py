@@ -45,10 +45,9 @@ import pandas as pd
 from .errors import GeosoilError, InputError, SettingsError
 from .presentation import (
     Classes,
-    colourise,
+    classes_data_uri,
     escape_text,
     label_point,
-    png_data_uri,
     rate_colour,
 )
 from .units import RATE_UNITS, format_rate
@@ -919,7 +918,7 @@ def surface_map_svg(
     def fy(y: float) -> float:
         return pad + (maxy - y) * scale
 
-    png = png_data_uri(colourise(soil.array, soil.classes))
+    png = classes_data_uri(soil.array, soil.classes)
     pid = f"shatch-{escape_text(uid)}"
     parts = [
         f'<svg class="soil-map" xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} '

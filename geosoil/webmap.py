@@ -56,12 +56,11 @@ from rasterio.enums import Resampling
 from .errors import CRSError, GeosoilError, InputError, SettingsError
 from .presentation import (
     Classes,
-    colourise,
+    classes_data_uri,
     fmt_number,
     fmt_value,
     json_for_script,
     label_point,
-    png_data_uri,
     rate_classes,
     rate_colour,
 )
@@ -394,7 +393,7 @@ def _surface_json(layer: RasterLayer) -> dict[str, Any]:
         "title": layer.title,
         "unit": layer.unit,
         "group": layer.group,
-        "png": png_data_uri(colourise(web.array, layer.classes)),
+        "png": classes_data_uri(web.array, layer.classes),
         "bounds": _round_coords(web.leaflet_bounds, 7),
         "legend": layer.classes.legend(),
         "note": layer.classes.note,

@@ -146,3 +146,17 @@ def test_json_for_script_never_closes_its_script(text: str) -> None:
     out = pr.json_for_script({"t": text})
     assert "<" not in out and ">" not in out and "&" not in out
     assert json.loads(out) == {"t": text}
+
+
+def test_classes_png_is_one_palette_entry_per_class_with_no_data_clear() -> None:
+    c = pr.classes_for("esp", np.array([1.0]))
+    values = np.array([[3.0, 8.0, 20.0, np.nan]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with MemoryFile(pr.classes_png(values, c)) as mem, mem.open() as src:
+            assert src.driver == "PNG" and src.count == 1
+            band = src.read(1)
+            cmap = src.colormap(1)
+    got = [cmap[int(v)] for v in band[0]]
+    assert got[:3] == [(*pr.hex_to_rgb(x), 255) for x in c.colours]
+    assert got[3][3] == 0  # transparent

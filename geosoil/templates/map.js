@@ -152,7 +152,7 @@
   var markers = [];
   D.samples.rows.forEach(function (r, i) {
     var m = L.circleMarker([r[0], r[1]], {renderer: sampleRenderer, pane: "gs-samples",
-                                          radius: 5, color: "#000000", weight: 2,
+                                          radius: SMALL ? 4 : 5, color: "#000000", weight: 2,
                                           fillColor: "#ffffff", fillOpacity: 1});
     m.bindPopup(function () { return samplePopup(i); },
                 L.extend({className: "gs-sample-popup"}, popupOptions));
@@ -374,6 +374,7 @@
   }
 
   var legendBody = null;
+  var symbolsOpen = false;
   function swatchList(items) {
     var ul = el("ul", "gs-classes");
     items.forEach(function (it) {
@@ -422,7 +423,14 @@
         other.push({cls: "gs-hatch", label: "exclusion: not spread"});
       }
     }
-    if (other.length) { legendBody.appendChild(swatchList(other)); }
+    if (other.length) {  // the symbols: folded away on a phone, where room is short
+      var det = el("details", "gs-symbols");
+      det.open = !SMALL || symbolsOpen;
+      det.addEventListener("toggle", function () { symbolsOpen = det.open; updatePadding(); });
+      det.appendChild(el("summary", null, "Symbols"));
+      det.appendChild(swatchList(other));
+      legendBody.appendChild(det);
+    }
     updatePadding();
   }
 
