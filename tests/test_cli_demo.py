@@ -184,3 +184,39 @@ def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  #
     summary = [line[4:] for line in demo_run["result"].stderr.splitlines()
                if line.startswith("  - ")]
     assert summary == listed
+
+
+@pytest.mark.browser
+def test_demo_map_every_layer_on_a_phone_offline(demo_run) -> None:  # noqa: ANN001
+    from tests.browser import Chromium, artifact_path, require_chromium
+
+    out: Path = demo_run["out"]
+    with Chromium(require_chromium()) as browser:
+        page = browser.new_page(width=390, height=844)
+        page.goto(out / "map.html")
+        got = page.evaluate(
+            """(async () => {
+              const g = window.geosoilMap, out = [];
+              document.querySelector('#gs-panel .gs-toggle').click();
+              for (const r of document.querySelectorAll('input[name=gs-surface]')) {
+                r.click();
+                if (r.value) { await g.surfaces[r.value].getElement().decode(); }
+                const panel = document.getElementById('gs-panel').getBoundingClientRect();
+                out.push({value: r.value,
+                          images: document.querySelectorAll('img.leaflet-image-layer').length,
+                          legend: Array.from(document.querySelectorAll(
+                            '#gs-legend .gs-legend-entry[data-surface]'))
+                            .map(e => e.dataset.surface),
+                          inside: panel.left >= 0 && panel.right <= innerWidth
+                                  && panel.bottom <= innerHeight});
+              }
+              return out;
+            })()""")
+        page.screenshot(artifact_path("demo-map-phone.png"))
+        assert len(got) >= 20
+        for g in got:
+            assert g["images"] == (1 if g["value"] else 0), g
+            assert g["legend"] == ([g["value"]] if g["value"] else []), g
+            assert g["inside"], g
+        assert page.console_errors == [] and page.dialogs == []
+        assert [u for u in page.requests if not u.startswith(("file:", "data:"))] == []
