@@ -564,6 +564,36 @@ def test_browser_panel_choices_are_exclusive(map_page) -> None:
 
 
 @pytest.mark.browser
+def test_browser_zones_as_outlines_or_filled_with_the_rate_legend(map_page) -> None:
+    got = map_page.evaluate(
+        """(() => {
+          const g = window.geosoilMap, out = {};
+          g.show({product: 'lime', fill: false});
+          const zoneFills = () => {
+            const fills = [];
+            g.prescriptions['lime'].shapes.eachLayer(l => fills.push(
+              [l.options.fillOpacity, l.options.fillColor || null, l.options.dashArray]));
+            return fills;
+          };
+          out.outline = zoneFills();
+          out.outlineLegend = document.querySelector('#gs-legend [data-product]').innerText;
+          document.querySelector('input[data-key=fill]').click();
+          out.filled = zoneFills();
+          out.swatches = Array.from(document.querySelectorAll(
+            '#gs-legend [data-product] .gs-swatch')).map(e => getComputedStyle(e).backgroundColor);
+          out.labels = Array.from(document.querySelectorAll(
+            '#gs-legend [data-product] .gs-class-label')).map(e => e.textContent);
+          document.querySelector('input[data-key=fill]').click();
+          return out;
+        })()""")
+    assert all(f[0] == 0 and f[2] == "6 4" for f in got["outline"])  # see-through, dashed
+    assert "labelled with its rate" in got["outlineLegend"]
+    assert got["labels"] == ["2,000"]
+    (r, g_, b), = [tuple(int(v) for v in re.findall(r"\d+", c)[:3]) for c in got["swatches"]]
+    assert all(f[0] == 1 and hex_to_rgb(f[1]) == (r, g_, b) for f in got["filled"])
+
+
+@pytest.mark.browser
 def test_browser_hostile_text_shows_as_text_and_never_runs(map_page) -> None:
     popups = map_page.evaluate(
         """(() => {
