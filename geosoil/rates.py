@@ -1736,7 +1736,8 @@ def _needs_test(
     if "ph" not in arrays:
         return None, "", target_text
     ph = arrays["ph"]
-    threshold = target.ph if target.ph_method == soil.ph_method else _ACID_BELOW[soil.ph_method]
+    threshold = (target.ph if target.ph_method == soil.ph_method
+                 else _ACID_BELOW.get(soil.ph_method, _ACID_BELOW["water"]))
     acid = below_trigger(ph, threshold, lr.trigger_margin_ph)
     if "lime" in runs:
         flag = acid & np.asarray(st.lime_unsure, dtype=bool)
@@ -1857,6 +1858,9 @@ def compute_rates(
             RateWarning,
             stacklevel=2,
         )
+    for note in result.notes:
+        if note.startswith("pHBC regression"):
+            warnings.warn(note, RateWarning, stacklevel=2)
     if result.needs_test_cells:
         warnings.warn(
             f"lime requirement needs a test: {result.needs_test_cells} acid cell(s) where no lime "
