@@ -1084,8 +1084,9 @@ class _Cells:
             n = int(np.count_nonzero(outside))
             if n:
                 self.notes.append(
-                    f"pHBC regression (Aitken, Moody & McKinley 1990) used outside the organic "
-                    f"carbon and clay it was fitted on on {n} cell(s): the lime there is less sure"
+                    f"pHBC regression (Aitken, Moody & McKinley 1990) used on {n} cell(s) whose "
+                    "organic carbon or clay lies outside the soils it was fitted on: the lime "
+                    "there is less sure"
                 )
                 self.trace.note("inputs", "organic carbon or clay outside the range the pHBC "
                                 "regression was fitted on")
