@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo_err, handle_errors
+from .options import echo, echo_err, handle_errors
 
 __all__ = ["batch"]
 
@@ -101,15 +101,15 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
     result = run_batch(found, out_dir=out, scheduler=scheduler, workers=workers,
                        memory_limit=mem, use_cache=not no_cache, overwrite=overwrite,
                        progress=progress)
-    click.echo(_table(result.outcomes, products_of(result.outcomes)))
-    click.echo("")
-    click.echo(f"Batch folder: {result.out_dir}")
+    echo(_table(result.outcomes, products_of(result.outcomes)))
+    echo("")
+    echo(f"Batch folder: {result.out_dir}")
     for name in (SUMMARY_CSV, SUMMARY_HTML):
-        click.echo(f"  {result.out_dir / name}")
-    click.echo("")
-    click.echo("Cautions:")
+        echo(f"  {result.out_dir / name}")
+    echo("")
+    echo("Cautions:")
     for c in CAUTIONS:
-        click.echo(f"  * {c}")
+        echo(f"  * {c}")
     if result.failed:
         echo_err(f"{len(result.failed)} of {len(result.outcomes)} farm(s) failed:")
         for o in result.failed:

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo_err, handle_errors, project_argument
+from .options import echo, echo_err, handle_errors, project_argument
 
 __all__ = ["check"]
 
@@ -45,4 +45,4 @@ def check(ctx: click.Context, project: Path) -> None:
     if found:
         echo_err(f"{len(found)} problem(s) found in {proj.path}")
         sys.exit(1)
-    click.echo(f"ok: {proj.path} is ready to run ({len(warnings)} warning(s))")
+    echo(f"ok: {proj.path} is ready to run ({len(warnings)} warning(s))")

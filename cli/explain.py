@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .options import Progress, handle_errors, project_argument
+from .options import Progress, echo, handle_errors, project_argument
 
 __all__ = ["explain"]
 
@@ -60,4 +60,4 @@ def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: 
     progress = Progress(quiet=ctx.obj["quiet"])
     farm = compute(proj, progress=progress, prepared=prep, paddocks={where.paddock})
     progress.done()
-    click.echo(format_explanation(explain_location(farm, a, b, coords=coords)))
+    echo(format_explanation(explain_location(farm, a, b, coords=coords)))

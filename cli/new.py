@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo_err, handle_errors
+from .options import echo, echo_err, handle_errors
 
 __all__ = ["new"]
 
@@ -77,4 +77,4 @@ def new(
         # what reading the files warned about, once each, as 'check' and 'run' show it
         for message in dict.fromkeys(str(w.message) for w in caught):
             echo_err(f"warning: {message}")
-    click.echo(str(path))
+    echo(str(path))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import logging
+import re
 import sys
 from collections.abc import Callable
 from pathlib import Path
@@ -20,6 +21,8 @@ __all__ = [
     "handle_errors",
     "Progress",
     "echo_err",
+    "echo",
+    "clean",
     "set_verbosity",
 ]
 
@@ -41,9 +44,26 @@ overwrite_option = click.option(
 )
 
 
+# control characters (C0 but newline and tab, DEL, C1) and the bidirectional overrides that
+# could rewrite what a terminal shows (Unicode TR #36 / CVE-2021-42574 "Trojan Source")
+_UNSAFE = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+
+
+def clean(message: str) -> str:
+    """``message`` with every control character shown as an escape (``\\x1b``), never sent
+    to the terminal: a sample ID or paddock name cannot retitle or redraw the terminal."""
+    return _UNSAFE.sub(lambda m: m.group().encode("unicode_escape").decode("ascii"),
+                       str(message))
+
+
+def echo(message: str = "", *, err: bool = False) -> None:
+    """Print a line for the person at the terminal, control characters made visible."""
+    click.echo(clean(message), err=err)
+
+
 def echo_err(message: str) -> None:
     """A message for the person at the terminal: to stderr, never to stdout."""
-    click.echo(message, err=True)
+    echo(message, err=True)
 
 
 def handle_errors(func: F) -> F:
@@ -59,6 +79,18 @@ def handle_errors(func: F) -> F:
         except OSError as exc:  # a folder that cannot be made, a disk that is full...
             where = f": {exc.filename}" if getattr(exc, "filename", None) else ""
             echo_err(f"error: {exc.strerror or exc}{where}")
+            sys.exit(1)
+        except (click.exceptions.Exit, click.ClickException, click.Abort):
+            raise
+        except MemoryError:
+            echo_err("error: the job needs more memory than this machine has; run fewer "
+                     "paddocks at once, a coarser [grid] cell_size_m, or on a larger machine")
+            sys.exit(1)
+        except Exception as exc:  # a fault of geosoil's: said in one line, never a traceback
+            logging.getLogger("geosoil").debug("unexpected error", exc_info=True)
+            echo_err(f"error: geosoil stopped on an unexpected {type(exc).__name__}: {exc}. "
+                     "Nothing was written over your outputs. Please report this with the "
+                     "command you ran; run again with -vv to see where it happened")
             sys.exit(1)
 
     return wrapper  # type: ignore[return-value]
@@ -81,11 +113,11 @@ class Progress:
             return
         if self.tty:
             pad = max(self._last_len - len(message), 0)
-            sys.stderr.write("\r" + message + " " * pad)
+            sys.stderr.write("\r" + clean(message) + " " * pad)
             sys.stderr.flush()
             self._last_len = len(message)
         else:
-            sys.stderr.write(message + "\n")
+            sys.stderr.write(clean(message) + "\n")
 
     def done(self) -> None:
         if self.tty and not self.quiet and self._last_len:

@@ -4,9 +4,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-import click
-
-from .options import echo_err
+from .options import echo, echo_err
 
 if TYPE_CHECKING:
     from geosoil.job import RunResult
@@ -21,30 +19,30 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
 
     settings = result.farm.prep.project.settings
     rate_unit = settings.output.rate_unit
-    click.echo(format_summary(result.tonnage, rate_unit=rate_unit,
+    echo(format_summary(result.tonnage, rate_unit=rate_unit,
                               currency=settings.tonnage.currency))
     first = result.record.get("first_season_tonnes")
     if first:
-        click.echo("")
-        click.echo("Rates are split into seasons; the totals above cover every season.")
-        click.echo("To spread this season (then re-test before the next):")
+        echo("")
+        echo("Rates are split into seasons; the totals above cover every season.")
+        echo("To spread this season (then re-test before the next):")
         short = mass_unit_for(rate_unit) == "short ton"
         for product, tonnes in sorted(first.items()):
             if short:
-                click.echo(f"  {product}: {tonnes * 1000 / KG_PER_SHORT_TON:,.2f} short tons")
+                echo(f"  {product}: {tonnes * 1000 / KG_PER_SHORT_TON:,.2f} short tons")
             else:
-                click.echo(f"  {product}: {tonnes:,.2f} t")
-    click.echo("")
-    click.echo(f"Output folder: {result.out_dir}")
+                echo(f"  {product}: {tonnes:,.2f} t")
+    echo("")
+    echo(f"Output folder: {result.out_dir}")
     for name in ("tonnage.csv", "map.html", "report.html", "run.json"):
-        click.echo(f"  {result.out_dir / name}")
+        echo(f"  {result.out_dir / name}")
     n_presc = sum(1 for p in result.written if "prescriptions" in p.parts)
-    click.echo(f"  {result.out_dir / 'prescriptions'}  ({n_presc} files)")
+    echo(f"  {result.out_dir / 'prescriptions'}  ({n_presc} files)")
     if result.warnings and not quiet:
         echo_err(f"{len(result.warnings)} warning(s) recorded in run.json and the report:")
         for w in result.warnings:
             echo_err(f"  - {w}")
-    click.echo("")
-    click.echo("Cautions:")
+    echo("")
+    echo("Cautions:")
     for c in CAUTIONS:
-        click.echo(f"  * {c}")
+        echo(f"  * {c}")

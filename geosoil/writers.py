@@ -30,11 +30,14 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import datetime as _dt
+import errno
 import json
 import logging
 import math
 import os
+import re
 import secrets
+import shutil
 import tempfile
 import zipfile
 from collections.abc import Iterator, Mapping, Sequence
@@ -62,6 +65,8 @@ __all__ = [
     "write_shapefile_zip",
     "write_cog",
     "write_csv",
+    "inert_cell",
+    "FORMULA_STARTS",
     "write_json",
     "jsonable",
 ]
@@ -144,7 +149,26 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         if isinstance(exc, OSError) and exc.errno is not None and not exc.filename:
             # a failed write() names no file: name the one being written
             raise OSError(exc.errno, exc.strerror, str(target)) from exc
+        if isinstance(exc, Exception) and not isinstance(exc, OSError) and _gdal_io(exc):
+            # GDAL reports a full disk as its own error ("IO error writing tag data")
+            code = errno.ENOSPC if _nearly_full(target.parent) else errno.EIO
+            raise OSError(code, f"{os.strerror(code)} ({exc})", str(target)) from exc
         raise
+
+
+def _gdal_io(exc: Exception) -> bool:
+    """An input/output failure reported by GDAL through rasterio or pyogrio."""
+    module = type(exc).__module__ or ""
+    text = str(exc).lower()
+    return module.startswith(("rasterio", "pyogrio")) and any(
+        w in text for w in ("io error", "i/o error", "no space", "write", "disk"))
+
+
+def _nearly_full(folder: Path) -> bool:
+    try:
+        return shutil.disk_usage(folder).free < 1 << 20
+    except OSError:
+        return False
 
 
 @contextlib.contextmanager
@@ -287,9 +311,47 @@ def write_json(path: str | os.PathLike[str], obj: Any, *, indent: int = 2) -> Pa
     return Path(path)
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+_NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+
+
+def inert_cell(value: Any) -> Any:
+    """A text cell a spreadsheet will show as text, never run as a formula.
+
+    Text starting with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return
+    gets a leading apostrophe (the rule OWASP gives for CSV injection), unless
+    it is a plain number such as ``-3.2`` or ``+1e-3``. Anything that is not
+    text is returned as it is.
+
+    Parameters
+    ----------
+    value : object
+        A cell.
+
+    Returns
+    -------
+    object
+        The cell, neutralised when it is text that would start a formula.
+
+    Examples
+    --------
+    >>> inert_cell("=1+2"), inert_cell("-3.2"), inert_cell("@SUM(A1)")
+    ("'=1+2", '-3.2', "'@SUM(A1)")
+    >>> inert_cell("Red Hill"), inert_cell(-3.2)
+    ('Red Hill', -3.2)
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_STARTS) and not _NUMBER.fullmatch(
+        value
+    ):
+        return "'" + value
+    return value
+
+
 def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool = False) -> Path:
     """Write a table as UTF-8 CSV, atomically. Missing values are empty cells;
-    a geometry column is left out.
+    a geometry column is left out; text cells and headers that a spreadsheet would
+    take for a formula are neutralised (:func:`inert_cell`).
 
     Parameters
     ----------
@@ -317,6 +379,14 @@ def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool 
         lambda g: isinstance(g, BaseGeometry)
     ).any():
         frame = frame.drop(columns="geometry")
+    frame = frame.rename(columns=lambda c: inert_cell(str(c)) if isinstance(c, str) else c)
+    if index:
+        frame.index = frame.index.map(inert_cell)
+    for i in range(frame.shape[1]):
+        column = frame.iloc[:, i]
+        if not (pd.api.types.is_numeric_dtype(column) or pd.api.types.is_bool_dtype(column)
+                or pd.api.types.is_datetime64_any_dtype(column)):
+            frame.iloc[:, i] = column.map(inert_cell).astype(object)
     with atomic_write(path, mode="w") as fh:
         frame.to_csv(fh, index=index, lineterminator="\n")
     return Path(path)

@@ -1,0 +1,283 @@
+"""Reliability: what a person keeps, and what they are told, when things go wrong.
+
+Each test sets up a fault a real user meets (a run killed half way, a full disk, two
+runs into one folder, a cache folder received with a project, text cells that a
+spreadsheet would run as formulas, control characters in IDs) and checks two things:
+the files left behind (the old output folder whole, nothing half-written or stale, no
+temporary folder once the next run has swept) and the message (a named error or
+warning, no traceback).
+
+The farm is the small invented one of ``tests/small_farm``. Runs that must be killed
+or held run in a child process that stops at a named progress stage and waits for a
+"go" file, so the stage is known and nothing depends on timing.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import errno
+import json
+import os
+import pickle
+import signal
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+from geosoil.cli.main import cli
+
+from geosoil import cache, writers
+from geosoil.job import run
+from geosoil.outfolder import sibling_names
+from geosoil.pipeline import _surface_key, prepare
+from geosoil.project import load_project
+from tests.small_farm import HEADER, X0, Y0, make_project
+
+STAGE = "writing prescriptions"  # a progress message of geosoil.outputs.write_outputs
+
+HELD_RUN = textwrap.dedent("""
+    import pathlib, sys, time
+    from geosoil.job import run
+    from geosoil.project import load_project
+    stage, flag, go, farm, out = sys.argv[1:6]
+    def progress(message):
+        if message.startswith(stage):
+            pathlib.Path(flag).write_text(message)
+            while not pathlib.Path(go).exists():
+                time.sleep(0.05)
+    run(load_project(farm), out_dir=pathlib.Path(out), overwrite=True, progress=progress)
+    print("finished")
+""")
+
+
+def tree(root: Path) -> dict[str, bytes]:
+    return {p.relative_to(root).as_posix(): p.read_bytes()
+            for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def beside(out: Path) -> set[str]:
+    return {p.name for p in out.parent.iterdir() if p.name.startswith(f".{out.name}.")}
+
+
+def start_held_run(farm: Path, out: Path, tmp: Path) -> tuple[subprocess.Popen[str], Path, Path]:
+    flag, go = tmp / "reached", tmp / "go"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", HELD_RUN, STAGE, str(flag), str(go), str(farm), str(out)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        cwd=Path(__file__).resolve().parents[1],
+    )
+    for _ in range(12_000):  # wait for the stage (a bound against a hang, not a timing check)
+        if flag.exists() or proc.poll() is not None:
+            break
+        time.sleep(0.05)
+    assert flag.exists(), proc.communicate()[1][-3000:]
+    return proc, flag, go
+
+
+@pytest.fixture(scope="module")
+def farm(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    return make_project(tmp_path_factory.mktemp("reliable") / "farm")
+
+
+@pytest.fixture
+def previous(farm: Path, tmp_path: Path) -> tuple[Path, dict[str, bytes]]:
+    """An output folder a first run wrote, and its files."""
+    out = tmp_path / "out"
+    run(load_project(farm), out_dir=out)
+    return out, tree(out)
+
+
+# --------------------------------------------------------------------------- kill -9
+
+
+@pytest.mark.slow
+def test_a_run_killed_while_writing_leaves_the_old_folder_whole(farm, previous, tmp_path) -> None:  # noqa: ANN001
+    out, before = previous
+    proc, _flag, _go = start_held_run(farm, out, tmp_path)
+    try:
+        # half way through writing: the new files are only in the folder beside
+        temp = [p for p in out.parent.iterdir() if p.name.startswith(sibling_names(out)[1])]
+        assert len(temp) == 1 and any(temp[0].rglob("*.tif"))
+        assert tree(out) == before
+    finally:
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+    assert proc.returncode == -signal.SIGKILL
+    assert tree(out) == before  # the user keeps the previous run, whole
+    # the next run sweeps what the killed one left and replaces the folder whole
+    result = run(load_project(farm), out_dir=out, overwrite=True)
+    assert beside(out) == {sibling_names(out)[0]}
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    assert set(record["files"]) == set(tree(out))
+    assert result.out_dir == out.resolve()
+
+
+# --------------------------------------------------------------------------- two runs at once
+
+
+@pytest.mark.slow
+def test_a_second_run_into_a_folder_being_written_is_refused(farm, previous, tmp_path) -> None:  # noqa: ANN001
+    out, before = previous
+    proc, _flag, go = start_held_run(farm, out, tmp_path)
+    try:
+        r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(out), "--overwrite"])
+        assert r.exit_code == 1
+        assert "another geosoil run is writing" in r.stderr and "Traceback" not in r.stderr
+        assert tree(out) == before  # neither run has touched it yet
+    finally:
+        go.write_text("go")
+        stdout, stderr = proc.communicate(timeout=600)
+    assert proc.returncode == 0, stderr[-3000:]
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    assert set(record["files"]) == set(tree(out))  # one run's files, whole
+    assert beside(out) == {sibling_names(out)[0]}
+
+
+# --------------------------------------------------------------------------- a full disk
+
+
+def test_an_injected_full_disk_names_the_file_and_keeps_the_old_folder(
+    farm, previous, monkeypatch: pytest.MonkeyPatch  # noqa: ANN001
+) -> None:
+    out, before = previous
+    real = writers.atomic_write
+
+    @contextlib.contextmanager
+    def failing(path, *args, **kwargs):  # noqa: ANN001, ANN002, ANN003, ANN202
+        with real(path, *args, **kwargs) as fh:
+            if Path(path).name == "tonnage.csv":  # the disk fills while this file is written
+                raise OSError(errno.ENOSPC, "No space left on device")
+            yield fh
+
+    monkeypatch.setattr(writers, "atomic_write", failing)
+    r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(out), "--overwrite"])
+    assert r.exit_code == 1, r.stderr
+    assert "Traceback" not in r.stderr
+    assert f"could not write {out / 'tonnage.csv'}" in r.stderr
+    assert "is full" in r.stderr and "another disk" in r.stderr
+    assert f"{out} was left as it was" in r.stderr
+    assert tree(out) == before
+    assert beside(out) == {sibling_names(out)[0]}
+
+
+def _mount_small_disk(where: Path, size_kb: int) -> bool:
+    where.mkdir()
+    if os.geteuid() != 0:
+        return False
+    done = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size_kb}k", "tmpfs",
+                           str(where)], capture_output=True, check=False)
+    return done.returncode == 0
+
+
+@pytest.mark.slow
+def test_a_real_full_disk_names_a_file_and_keeps_the_old_folder(farm, tmp_path) -> None:  # noqa: ANN001
+    disk = tmp_path / "disk"
+    if not _mount_small_disk(disk, 200):  # the run writes about 500 kB
+        pytest.skip("no small file system can be mounted here (needs root); the injected "
+                    "failure above covers the message")
+    try:
+        out = disk / "out"
+        (out / "prescriptions").mkdir(parents=True)
+        (out / "prescriptions" / "old.geojson").write_text("{}")
+        (out / "run.json").write_text(json.dumps({"files": ["prescriptions/old.geojson",
+                                                            "run.json"]}))
+        before = tree(out)
+        r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(out), "--overwrite"])
+        assert r.exit_code == 1
+        assert "Traceback" not in r.stderr
+        assert "could not write " + str(out) in r.stderr and "is full" in r.stderr
+        assert tree(out) == before
+        assert beside(out) == {sibling_names(out)[0]}
+    finally:
+        subprocess.run(["umount", str(disk)], check=False)
+
+
+def test_an_unwritable_place_is_found_before_computing(farm, tmp_path, monkeypatch) -> None:  # noqa: ANN001
+    import geosoil.job as job
+
+    def no_compute(*_a, **_k):  # noqa: ANN002, ANN003, ANN202
+        raise AssertionError("computed before the output folder was found unwritable")
+
+    real_mkdir = Path.mkdir
+
+    def mkdir(self, *args, **kwargs):  # noqa: ANN001, ANN002, ANN003, ANN202
+        if ".geosoil-new-" in self.name:
+            raise PermissionError(errno.EACCES, "Permission denied", str(self))
+        return real_mkdir(self, *args, **kwargs)
+
+    monkeypatch.setattr(job, "compute", no_compute)
+    monkeypatch.setattr(Path, "mkdir", mkdir)
+    r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(tmp_path / "out")])
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    assert "may not write" in r.stderr and "--out" in r.stderr
+
+
+# --------------------------------------------------------------------------- crafted cache
+
+
+def test_a_crafted_cache_received_with_a_project_runs_nothing(tmp_path: Path) -> None:
+    folder = make_project(tmp_path / "farm", cache=tmp_path / "farm" / "cache")
+    key = _surface_key(prepare(load_project(folder)))
+    marker = tmp_path / "ran"
+
+    class Payload:
+        def __reduce__(self):  # noqa: ANN204
+            return (Path.touch, (marker,))
+
+    cache_dir = folder / "cache"
+    cache_dir.mkdir()
+    with open(cache_dir / f"surfaces-{key[:32]}.pickle", "wb") as fh:
+        pickle.dump(Payload(), fh)
+    npz, jsn = cache.entry_paths(cache_dir, key)
+    npz.write_bytes(pickle.dumps(Payload()))
+    jsn.write_text(json.dumps({"format": cache.FORMAT, "key": key, "sha256": "0" * 64,
+                               "surfaces": [], "warnings": []}))
+    r = CliRunner().invoke(cli, ["run", str(folder), "--out", str(tmp_path / "out")])
+    assert r.exit_code == 0, r.stderr
+    assert not marker.exists()
+    assert "failed their check" in r.stderr and "computed again" in r.stderr
+
+
+# --------------------------------------------------------------------------- formula cells
+
+
+HOSTILE_IDS = ["=HYPERLINK(\"http://example.invalid\",\"x\")", "+SUM(1,2)", "@cmd", "-2+3",
+               "\tTAB", "\rCR", "-3.2", "ok\x1b]0;owned\x07"]
+
+
+def test_formula_cells_are_inert_and_control_characters_never_reach_the_terminal(
+    tmp_path: Path,
+) -> None:
+    """OWASP "CSV Injection": cells starting with = + - @ tab or CR get a leading
+    apostrophe; plain numbers such as -3.2 stay numbers."""
+    folder = make_project(tmp_path / "farm")
+    lab = folder / "lab.csv"
+    rows = lab.read_text().splitlines()
+    header = HEADER + ",=Note()"
+    body = []
+    for i, row in enumerate(rows[1:]):
+        cells = row.split(",")
+        if i < len(HOSTILE_IDS):
+            cells[0] = '"' + HOSTILE_IDS[i].replace('"', '""') + '"'
+        body.append(",".join(cells) + ",=1+1")
+    lab.write_text(header + "\n" + "\n".join(body) + "\n")
+    assert X0 and Y0  # the samples stay where the farm put them
+    r = CliRunner().invoke(cli, ["run", str(folder), "--out", str(tmp_path / "out")])
+    assert r.exit_code == 0, r.stderr
+    assert "\x1b" not in r.stdout + r.stderr and "\x07" not in r.stdout + r.stderr
+    with open(tmp_path / "out" / "samples.csv", newline="", encoding="utf-8") as fh:
+        table = list(csv.reader(fh))
+    for row in table:
+        for cell in row:
+            if cell[:1] in ("=", "+", "@", "\t", "\r"):
+                raise AssertionError(f"formula cell left live: {cell!r}")
+            if cell.startswith("-"):
+                float(cell)  # only plain negative numbers may start with a minus
+    cells = {c for row in table for c in row}
+    assert "'=HYPERLINK(\"http://example.invalid\",\"x\")" in cells
+    assert "'-2+3" in cells and "-3.2" in cells and "'=1+1" in cells and "'=Note()" in cells
