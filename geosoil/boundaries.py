@@ -1,8 +1,9 @@
 """Reading paddock, exclusion, creek and management-zone files.
 
 This is one of the few modules that touch paths. It reads any vector format
-GDAL reads through pyogrio (GeoJSON, GeoPackage, shapefile, zipped shapefile,
-and more), in any coordinate reference system, and hands back clean
+GDAL reads (GeoJSON, GeoPackage, shapefile, zipped shapefile, and more; the
+one vector reader is :func:`geosoil.vectors.read_layer`), in any coordinate
+reference system, and hands back clean
 GeoDataFrames:
 
 * :func:`read_paddocks` -- one row per paddock: ``paddock`` (str, unique) and a
@@ -66,13 +67,13 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyogrio
 import pyproj
 import shapely
 from shapely.geometry.base import BaseGeometry
 
 from .errors import CRSError, DataWarning, InputError, SettingsError
 from .settings import setting
+from .vectors import read_layer
 
 __all__ = [
     "BoundarySettings",
@@ -143,8 +144,6 @@ _CREEK_LABELS: tuple[str, ...] = (
 
 _POLYGONAL = ("Polygon", "MultiPolygon")
 _LINEAR = ("LineString", "MultiLineString", "LinearRing")
-
-_FORMAT_FIX = "save it as GeoJSON, GeoPackage or a (zipped) shapefile"
 
 
 @dataclass(frozen=True)
@@ -234,44 +233,14 @@ def _squash(name: str) -> str:
 
 
 def _read_vector(path: Path | str, *, layer: str | None, key: str) -> gpd.GeoDataFrame:
-    """Read one layer of a vector file, with clear errors. ``key`` is the setting."""
+    """Read one layer of a boundary file (:func:`geosoil.vectors.read_layer`) and check that it
+    holds shapes with a CRS. ``key`` is the setting that names the file."""
     path = Path(path)
     if not path.exists():
         raise InputError(
             "file not found", file=path, fix=f"check the path given for [boundaries] {key}"
         )
-    try:
-        layers = [str(name) for name, _gtype in pyogrio.list_layers(path)]
-    except Exception as exc:  # pyogrio raises DataSourceError and friends
-        raise InputError(
-            f"cannot read this file as a vector file ({_first_line(exc)})",
-            file=path,
-            fix=_FORMAT_FIX,
-        ) from None
-    if not layers:
-        raise InputError("the file holds no layers", file=path, fix=_FORMAT_FIX)
-    if layer is None and len(layers) > 1:
-        raise InputError(
-            f"the file holds {len(layers)} layers ({', '.join(layers)}) and none was chosen",
-            file=path,
-            fix=f"set [boundaries] layer to one of: {', '.join(layers)}",
-        )
-    if layer is not None and layer not in layers:
-        raise InputError(
-            f"the file has no layer '{layer}'; it has: {', '.join(layers)}",
-            file=path,
-            fix="set [boundaries] layer to one of those",
-        )
-    try:
-        with warnings.catch_warnings():
-            # pyogrio/GDAL notes (e.g. about JSON-like columns) are not the user's concern
-            warnings.simplefilter("ignore", UserWarning)
-            warnings.simplefilter("ignore", RuntimeWarning)
-            frame = pyogrio.read_dataframe(path, layer=layer)
-    except Exception as exc:
-        raise InputError(
-            f"cannot read this file ({_first_line(exc)})", file=path, fix=_FORMAT_FIX
-        ) from None
+    frame = read_layer(path, layer=layer, layer_setting="[boundaries] layer")
     if not isinstance(frame, gpd.GeoDataFrame) or frame.geometry.name not in frame.columns:
         raise InputError(
             "the file holds a table without geometry",
@@ -304,11 +273,6 @@ def _read_vector(path: Path | str, *, layer: str | None, key: str) -> gpd.GeoDat
     frame = frame.reset_index(drop=True)
     logger.debug("read %d features from %s (CRS %s)", len(frame), path, crs.name)
     return frame
-
-
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__
 
 
 def _find_column(

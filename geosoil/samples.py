@@ -59,7 +59,6 @@ from xml.etree import ElementTree
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyogrio
 import pyproj
 import shapely
 from scipy.sparse import coo_matrix
@@ -79,6 +78,7 @@ from .units import (
     normalise_unit,
     to_cmol_kg,
 )
+from .vectors import read_layer
 
 __all__ = [
     "SampleSettings",
@@ -564,27 +564,9 @@ def _read_excel(path: Path, name: str, settings: SampleSettings) -> _Raw:
 
 
 def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
-    fix = "check that the file opens in a GIS, or export it again as GeoJSON or GeoPackage"
-    try:
-        layers = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
-        if layer is None and len(layers) > 1:
-            raise InputError(
-                f"the file has {len(layers)} layers ({', '.join(layers)})", file=name,
-                fix="choose one with [samples] sheet_or_layer",
-            )
-        if layer is not None and layer not in layers:
-            raise InputError(
-                f"there is no layer '{layer}'; the layers are {', '.join(layers)}", file=name,
-                fix="set [samples] sheet_or_layer to one of them",
-            )
-        with warnings.catch_warnings():
-            # GDAL's notes on odd features (e.g. a point with no coordinates) are reported
-            # by the checks below, row by row
-            warnings.simplefilter("ignore", RuntimeWarning)
-            warnings.simplefilter("ignore", UserWarning)
-            frame = gpd.read_file(path, layer=layer, engine="pyogrio")
-    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError) as exc:
-        raise InputError(f"the file cannot be read ({exc})", file=name, fix=fix) from None
+    # GDAL's notes on odd features (e.g. a point with no coordinates) are silenced by
+    # read_layer: the checks below report them row by row
+    frame = read_layer(path, layer=layer, layer_setting="[samples] sheet_or_layer", file=name)
     rows = np.arange(1, len(frame) + 1)
     geometry = None
     crs = None
