@@ -25,7 +25,7 @@ from geosoil.settings import from_mapping
 from geosoil.units import to_cmol_kg
 
 # USDA Handbook 60 (Richards 1954, pp. 25-26): ESR = -0.0126 + 0.01475 SAR, ESP = 100 ESR/(1+ESR);
-# the pairs as listed in REFERENCES.md [derived from the relation].
+# the pairs as listed in docs/SOURCES.md [derived from the relation].
 HANDBOOK_60_SAR_ESP = [(5.0, 5.763), (10.0, 11.887), (13.0, 15.193), (20.0, 22.021), (30.0, 30.065)]
 
 

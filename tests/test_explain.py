@@ -29,7 +29,7 @@ from geosoil.project import load_project
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
 
-# IUPAC standard atomic weight of Ca; gypsum CaSO4.2H2O is 23.28 % Ca (REFERENCES.md [derived])
+# IUPAC standard atomic weight of Ca; gypsum CaSO4.2H2O is 23.28 % Ca (docs/SOURCES.md [derived])
 CA_ATOMIC_WEIGHT = 40.078
 CA_IN_GYPSUM = 0.2328
 

@@ -5,9 +5,9 @@ Sources beside the checks:
   letters and value codes: ISO 11783-10, as implemented by public open-source ISOXML
   libraries (confirmed there); where a check rests on memory only it says "from memory".
 - DDI 6 = setpoint mass per area application rate in mg/m2: ISO 11783-11 data dictionary
-  (REFERENCES.md, "Output formats").
-- 1 kg/ha = 100 mg/m2: [derived] (REFERENCES.md, "Units and conversions").
-- Binary rows start at the south edge, little-endian 32-bit integers: REFERENCES.md
+  (docs/SOURCES.md, "Output formats").
+- 1 kg/ha = 100 mg/m2: [derived] (docs/SOURCES.md, "Units and conversions").
+- Binary rows start at the south edge, little-endian 32-bit integers: docs/SOURCES.md
   ("binary rows start at the south edge"); int32 little-endian from ISO 11783-10.
 Every expected rate below is the fixture's own rate x 100 (derived), never a figure taken
 from a run of the code under test.
@@ -260,7 +260,7 @@ def test_every_cell_holds_its_zone_rate_in_mg_m2(
 
 
 def test_first_row_in_the_file_is_the_southernmost(tmp_path: Path) -> None:
-    # REFERENCES.md: binary rows start at the south edge
+    # docs/SOURCES.md: binary rows start at the south edge
     zones, boundary = band_zones(X0, Y0, 300, 300, [1000.0, 3000.0], crs=UTM55S)
     paths = write(tmp_path, zones, boundary)
     grd = ET.parse(paths[0]).getroot().find("TSK/GRD")

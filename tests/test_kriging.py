@@ -4,7 +4,7 @@ Outside references:
 
 * Isaaks & Srivastava (1989), An Introduction to Applied Geostatistics, ch. 12:
   the seven-sample example and its variants, as listed in
-  /work/shared/REFERENCES.md ("values as reproduced by several public
+  docs/SOURCES.md ("values as reproduced by several public
   implementations"). Tolerances follow the printed precision.
 * pykrige ``OrdinaryKriging`` (backends "C" and "vectorized", and
   ``n_closest_points``) and GSTools ``krige.Ordinary`` with the same variogram:
@@ -38,7 +38,7 @@ from geosoil.variogram import VariogramModel
 gs = pytest.importorskip("gstools")
 pykrige_ok = pytest.importorskip("pykrige.ok")
 
-# Isaaks & Srivastava (1989), ch. 12 (REFERENCES.md): samples (E, N) and values, target.
+# Isaaks & Srivastava (1989), ch. 12 (docs/SOURCES.md): samples (E, N) and values, target.
 IS_XY = np.array(
     [(61, 139), (63, 140), (64, 129), (68, 128), (71, 140), (73, 141), (75, 128)], dtype=float
 )
@@ -69,7 +69,7 @@ def test_isaaks_srivastava_ch12_base_case() -> None:
 @pytest.mark.parametrize(
     ("model", "estimate", "variance", "variance_tol"),
     [
-        # Isaaks & Srivastava (1989) ch. 12 variants (REFERENCES.md), printed to 0 / 2 decimals
+        # Isaaks & Srivastava (1989) ch. 12 variants (docs/SOURCES.md), printed to 0 / 2 decimals
         (exponential_cov(20.0, 0.3), 593.0, 17.91, 0.005),
         (VariogramModel(name="gaussian", nugget=0.0, psill=10.0,
                         range=7.0 / (4.0 * math.sqrt(0.03))), 559.0, 4.78, 0.005),

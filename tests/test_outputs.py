@@ -66,7 +66,7 @@ def test_each_pass_task_holds_the_per_pass_rate_without_a_several_passes_warning
     assert not [w for w in caught if issubclass(w.category, RateWarning)]
     assert len(written) == 6  # XML and grid for each of 3 passes
     names = []
-    # 1 kg/ha = 100 mg/m2 (REFERENCES.md [derived]); cells outside the paddock hold 0.
+    # 1 kg/ha = 100 mg/m2 (docs/SOURCES.md [derived]); cells outside the paddock hold 0.
     expected = {1: {0, 90000, 80000, 70000}, 2: {0, 80000, 70000}, 3: {0, 70000}}
     for k in (1, 2, 3):
         root, values = _grid_values(tmp_path / f"lime_{word}{k}_isoxml")
@@ -102,6 +102,6 @@ def test_map_notes_say_rates_are_advisory_and_name_a_contested_rule_that_added_p
     notes = _map_notes(_rated({("gypsum", "gypsum"): cells, ("balance", "gypsum"): cells,
                                ("balance", "dolomite"): none}))
     assert len(notes) == 2
-    # Kopittke & Menzies 2007 (REFERENCES.md): cation balance targets are contested
+    # Kopittke & Menzies 2007 (docs/SOURCES.md): cation balance targets are contested
     assert "CONTESTED" in notes[1] and "Kopittke & Menzies 2007" in notes[1]
     assert "gypsum" in notes[1] and "dolomite" not in notes[1]

@@ -1,6 +1,6 @@
 """Tests for geosoil.products: stoichiometric table, certificate overrides, fineness and ENV.
 
-Reference values come from /work/shared/REFERENCES.md ("Amendment chemistry"); the source of
+Reference values come from docs/SOURCES.md ("Amendment chemistry"); the source of
 each is named beside the check.
 """
 
@@ -27,7 +27,7 @@ from geosoil.settings import from_mapping
 
 # --------------------------------------------------------------------------- stoichiometry
 
-# [derived] REFERENCES.md "Amendment chemistry": mass fractions (%) and CCE (%) of pure materials.
+# [derived] docs/SOURCES.md "Amendment chemistry": mass fractions (%) and CCE (%) of pure materials.
 TABLE = {
     # key: (Ca %, Mg %, CCE %)
     "gypsum": (23.28, 0.0, 0.0),
@@ -40,7 +40,7 @@ TABLE = {
 
 @pytest.mark.parametrize("key", sorted(TABLE))
 def test_stoichiometric_fractions_match_reference_table(key: str) -> None:
-    # [derived] REFERENCES.md "Amendment chemistry" (stoichiometry, IUPAC atomic weights)
+    # [derived] docs/SOURCES.md "Amendment chemistry" (stoichiometry, IUPAC atomic weights)
     ca, mg, cce = TABLE[key]
     p = default_products()[key]
     assert p.ca_fraction * 100 == pytest.approx(ca, abs=0.005)
@@ -49,13 +49,13 @@ def test_stoichiometric_fractions_match_reference_table(key: str) -> None:
 
 
 def test_gypsum_sulfur_and_molar_mass() -> None:
-    # [derived] REFERENCES.md: gypsum CaSO4·2H2O, M 172.17, S 18.62 %
+    # [derived] docs/SOURCES.md: gypsum CaSO4·2H2O, M 172.17, S 18.62 %
     assert MATERIALS["gypsum"].molar_mass == pytest.approx(172.17, abs=0.01)
     assert default_products()["gypsum"].s_fraction * 100 == pytest.approx(18.62, abs=0.005)
 
 
 def test_mgco3_cce_is_not_dolomites() -> None:
-    # [derived] REFERENCES.md: MgCO3 CCE 118.71 % (108.5 % printed on some pages is dolomite's)
+    # [derived] docs/SOURCES.md: MgCO3 CCE 118.71 % (108.5 % printed on some pages is dolomite's)
     mgco3 = Material("mgco3", "magnesite", "MgCO3", {"Mg": 1, "C": 1, "O": 3}, 2)
     assert mgco3.cce * 100 == pytest.approx(118.71, abs=0.005)
 
@@ -88,7 +88,7 @@ def test_potassium_sulfate_k_from_stoichiometry() -> None:
 
 
 def test_molar_mass_of_caco3_matches_units_constant() -> None:
-    # [derived] REFERENCES.md: CaCO3 per 1 cmol(+)/kg = 500.4 mg/kg (M / 2 x 10)
+    # [derived] docs/SOURCES.md: CaCO3 per 1 cmol(+)/kg = 500.4 mg/kg (M / 2 x 10)
     from geosoil.units import MG_CACO3_PER_CMOL
 
     assert molar_mass({"Ca": 1, "C": 1, "O": 3}) / 2 * 10 == pytest.approx(MG_CACO3_PER_CMOL)
@@ -109,7 +109,7 @@ def test_default_products_keys_and_liming_flags() -> None:
 
 
 def test_cornell_fineness_worked_example() -> None:
-    # Cornell Cooperative Extension scheme (REFERENCES.md): 100/70/50 % passing 20/60/100 mesh
+    # Cornell Cooperative Extension scheme (docs/SOURCES.md): 100/70/50 % passing 20/60/100 mesh
     # -> FF 78; with CCE 95 % -> ENV 74.1
     assert fineness_factor(percent_passing=(100, 70, 50)) == pytest.approx(0.78)
     p = resolve_products(

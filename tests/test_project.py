@@ -65,7 +65,7 @@ def test_relative_paths_resolve_from_the_project_folder_not_the_working_folder(
     _write(
         project,
         '[samples]\nfile = "data/lab.csv"\n'
-        '[boundaries]\npaddocks = "../shared/paddocks.geojson"\n'
+        '[boundaries]\npaddocks = "../common/paddocks.geojson"\n'
         f'exclusions = "{(tmp_path / "abs" / "dams.geojson").as_posix()}"\n',
     )
     elsewhere = tmp_path / "elsewhere"
@@ -74,7 +74,7 @@ def test_relative_paths_resolve_from_the_project_folder_not_the_working_folder(
     for given_as in (project, project / PROJECT_FILE_NAME, Path("../farm/2024")):
         p = load_project(given_as)
         assert p.settings.samples.file == (project / "data" / "lab.csv").resolve()
-        assert p.settings.boundaries.paddocks == (tmp_path / "farm" / "shared" / "paddocks.geojson")
+        assert p.settings.boundaries.paddocks == (tmp_path / "farm" / "common" / "paddocks.geojson")
         assert p.settings.boundaries.exclusions == tmp_path / "abs" / "dams.geojson"
         assert p.path == (project / PROJECT_FILE_NAME).resolve()
         assert p.folder == project.resolve()

@@ -1,6 +1,6 @@
 """Tests for geosoil.rates: the rules, the unit chain, explanations.
 
-Published values come from /work/shared/REFERENCES.md; each check names its source beside it.
+Published values come from docs/SOURCES.md; each check names its source beside it.
 Rules of the trade are marked "common practice". Other checks are properties.
 """
 
@@ -62,7 +62,7 @@ def rate_of(cells: dict, s: RateSettings, product: str, *, depth: float = 0.2,
 
 
 def test_oster_1999_metric_gypsum_example() -> None:
-    # Oster et al. 1999 (as quoted by NDSU Extension), REFERENCES.md "Sodicity and gypsum":
+    # Oster et al. 1999 (as quoted by NDSU Extension), docs/SOURCES.md "Sodicity and gypsum":
     # CEC 20, ESP 25 -> 5, 0.15 m, BD 1.5, F 1, 100 % gypsum -> 7.74 t/ha
     # (GR = 8.6 x F x depth x BD x CEC x dESP / purity); first principles 7.747 t/ha.
     s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.0))
@@ -72,14 +72,14 @@ def test_oster_1999_metric_gypsum_example() -> None:
 
 
 def test_oster_1999_with_exchange_efficiency_1_2() -> None:
-    # Oster et al. 1999: F 1.2 -> 9.30 t/ha for the same soil (REFERENCES.md / issue text)
+    # Oster et al. 1999: F 1.2 -> 9.30 t/ha for the same soil (docs/SOURCES.md / issue text)
     s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.2))
     t_ha = rate_of({"esp": 25, "ecec": 20}, s, "gypsum", depth=0.15, bd=1.5)[0] / 1000
     assert round(t_ha, 2) == 9.30
 
 
 def test_one_meq_per_100g_over_an_acre_foot_is_1_72_short_tons_of_gypsum() -> None:
-    # [derived] REFERENCES.md: 1 meq/100 g over an acre-foot (4e6 lb of soil) ~ 1.72 short tons
+    # [derived] docs/SOURCES.md: 1 meq/100 g over an acre-foot (4e6 lb of soil) ~ 1.72 short tons
     # of gypsum (the "1.7 t" rule of thumb). Soil mass of 4e6 lb/ac, expressed as kg/ha, from a
     # 1 ft layer with the matching bulk density.
     depth = 0.3048
@@ -152,7 +152,7 @@ def test_rates_are_linear_in_depth_and_bulk_density(esp: float, ecec: float, dep
 
 
 def test_kamprath_worked_example() -> None:
-    # Kamprath 1970 (factor 1.5 as widely quoted), example [derived] in REFERENCES.md:
+    # Kamprath 1970 (factor 1.5 as widely quoted), example [derived] in docs/SOURCES.md:
     # Al 2.0 -> 3.0 cmol(+)/kg CaCO3 -> 1501 mg CaCO3/kg -> 3.60 t/ha at 0-20 cm, BD 1.2
     s = only(lime=LimeRule(method="kamprath"))
     steps = explain_cell({"al": 2.0}, s, PRODUCTS, depth_m=0.2, bulk_density_g_cm3=1.2)
@@ -164,7 +164,7 @@ def test_kamprath_worked_example() -> None:
 
 
 def test_cochrane_salinas_sanchez_worked_example() -> None:
-    # Cochrane, Salinas & Sanchez 1980 (REFERENCES.md): Al 2.0, Ca 0.8, Mg 0.2, RAS 20 %
+    # Cochrane, Salinas & Sanchez 1980 (docs/SOURCES.md): Al 2.0, Ca 0.8, Mg 0.2, RAS 20 %
     # -> 1.5 x [2.0 - 0.2 x 3.0] = 2.10 cmol(+)/kg -> 2.52 t/ha for 0-20 cm, BD 1.2
     s = only(lime=LimeRule(method="cochrane", target_al_saturation_percent=20))
     steps = explain_cell({"al": 2.0, "ca": 0.8, "mg": 0.2}, s, PRODUCTS,
@@ -176,7 +176,7 @@ def test_cochrane_salinas_sanchez_worked_example() -> None:
 
 
 def test_general_conversion_t_caco3_per_ha() -> None:
-    # [derived] REFERENCES.md: t CaCO3/ha = cmol(+)/kg x 0.05004 x depth(cm) x BD
+    # [derived] docs/SOURCES.md: t CaCO3/ha = cmol(+)/kg x 0.05004 x depth(cm) x BD
     s = only(lime=LimeRule(method="acidity_share", acidity_factor=1.0,
                            target_acidity_share_percent=0))
     t_ha = rate_of({"acidity": 1.7, "ecec": 8.0}, s, "lime", depth=0.15, bd=1.35)[0] / 1000
@@ -251,7 +251,7 @@ def test_kamprath_zero_without_al() -> None:
 
 
 def test_ph_guard_withholds_lime_above_7() -> None:
-    # common practice (REFERENCES.md): no lime on alkaline soil (pH above about 7)
+    # common practice (docs/SOURCES.md): no lime on alkaline soil (pH above about 7)
     s = only(lime=LimeRule())
     cells = {"al": np.array([1.0, 1.0, 1.0]), "ph": np.array([6.5, 7.0, 7.4])}
     with pytest.warns(RateWarning, match="1 cell"):
@@ -378,7 +378,7 @@ def test_balance_rule_is_off_by_default() -> None:
 
 
 def test_balance_rule_is_labelled_contested() -> None:
-    # Kopittke & Menzies 2007, SSSA J 71:259 (REFERENCES.md)
+    # Kopittke & Menzies 2007, SSSA J 71:259 (docs/SOURCES.md)
     s = only(balance=BalanceRule(enabled="on"))
     cells = {"ca": np.array([4.0]), "mg": np.array([3.0]), "k": np.array([0.1]),
              "ecec": np.array([10.0]), "ph": np.array([6.5])}

@@ -129,7 +129,7 @@ def test_excel_dates_and_tick_boxes_are_not_numbers(tmp_path):
 
 
 def test_units_from_headers_are_converted(tmp_path):
-    # REFERENCES.md: 200.39 mg Ca, 121.53 mg Mg, 390.98 mg K per cmol(+)/kg [derived];
+    # docs/SOURCES.md: 200.39 mg Ca, 121.53 mg Mg, 390.98 mg K per cmol(+)/kg [derived];
     # 10 mmol(+)/kg = 1 cmol(+)/kg by definition.
     header = "Sample,Lon,Lat,Ca (mg/kg),Mg ppm,K_mg_kg,Na (mmol(+)/kg),pH"
     path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,200.39,121.53,390.98,25,6.1"])
@@ -148,7 +148,7 @@ def test_settings_override_columns_units_and_default_unit(tmp_path):
     got = read(path, id_column="Site", x_column="E", y_column="N", crs="EPSG:32755",
                columns={"ca": "Calc"}, units={"ca": "ppm"}, default_unit="meq/100 g")
     row = got.samples.iloc[0]
-    assert row.ca == pytest.approx(2.0, rel=1e-4)  # 400.78 mg/kg / 200.39 (REFERENCES.md)
+    assert row.ca == pytest.approx(2.0, rel=1e-4)  # 400.78 mg/kg / 200.39 (docs/SOURCES.md)
     assert got.units["ca"] == "mg/kg" and got.units["mg"] == "meq/100g"
     assert got.crs.to_epsg() == 32755 and row.geometry.x == 500100
 
@@ -258,7 +258,7 @@ def test_excel_title_rows_above_the_header_are_passed_over(tmp_path):
 
 
 def test_excel_units_row_under_the_header_gives_the_units(tmp_path):
-    # 1 cmol(+)/kg of Ca = 200.39 mg/kg; of K = 390.98 mg/kg (REFERENCES.md [derived]);
+    # 1 cmol(+)/kg of Ca = 200.39 mg/kg; of K = 390.98 mg/kg (docs/SOURCES.md [derived]);
     # 1 meq/100 g = 1 cmol(+)/kg; 10 mmol(+)/kg = 1 cmol(+)/kg [derived].
     path = _lab_workbook(
         tmp_path / "lab.xlsx",
@@ -430,7 +430,7 @@ def test_input_files_are_never_modified(tmp_path):
 
 
 def test_same_soil_in_mg_kg_and_meq_per_100g_files_gives_the_same_saturations(tmp_path):
-    # Ca 5, Mg 2, K 0.5, Na 0.8 cmol(+)/kg written in mg/kg with REFERENCES.md factors
+    # Ca 5, Mg 2, K 0.5, Na 0.8 cmol(+)/kg written in mg/kg with docs/SOURCES.md factors
     # (200.39, 121.53, 390.98, 229.90 mg/kg per cmol(+)/kg [derived]).
     meq = lab(tmp_path, header="ID,Lon,Lat,Ca (meq/100g),Mg (meq/100g),K (meq/100g),"
               "Na (meq/100g),Acidity (meq/100g)", rows=["S1,147.001,-35.001,5,2,0.5,0.8,0.4"],

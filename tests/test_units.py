@@ -32,7 +32,7 @@ from geosoil.units import (
     to_cmol_kg,
 )
 
-# REFERENCES.md, "Units and conversions": mg/kg per 1 cmol(+)/kg = 10 x IUPAC standard atomic
+# docs/SOURCES.md, "Units and conversions": mg/kg per 1 cmol(+)/kg = 10 x IUPAC standard atomic
 # weight (abridged) / charge [derived].
 MG_PER_CMOL_PUBLISHED = {
     "ca": 200.39,
@@ -55,29 +55,29 @@ def test_mg_per_cmol_against_iupac_atomic_weights_via_periodictable(analyte):
 
 @pytest.mark.parametrize("analyte", sorted(MG_PER_CMOL_PUBLISHED))
 def test_mg_per_cmol_matches_references_table(analyte):
-    # REFERENCES.md table (IUPAC abridged standard atomic weights), two decimals as printed.
+    # docs/SOURCES.md table (IUPAC abridged standard atomic weights), two decimals as printed.
     assert round(mg_per_cmol(analyte), 2) == pytest.approx(MG_PER_CMOL_PUBLISHED[analyte])
 
 
 def test_about_200_mg_ca_per_cmol_rule_of_thumb():
-    # "about 200 mg Ca per cmol(+)/kg": common practice (REFERENCES.md).
+    # "about 200 mg Ca per cmol(+)/kg": common practice (docs/SOURCES.md).
     assert mg_per_cmol("ca") == pytest.approx(200.0, rel=0.01)
 
 
 def test_caco3_per_cmol_is_500_4_mg_kg():
-    # REFERENCES.md: CaCO3 per 1 cmol(+)/kg = 500.4 mg/kg [derived].
+    # docs/SOURCES.md: CaCO3 per 1 cmol(+)/kg = 500.4 mg/kg [derived].
     assert MG_CACO3_PER_CMOL == pytest.approx(500.4, abs=0.05)
 
 
 def test_meq_per_100g_equals_cmol_per_kg_and_a_tenth_of_mmol_per_kg():
-    # REFERENCES.md: 1 meq/100 g = 1 cmol(+)/kg = 10 mmol(+)/kg, by definition.
+    # docs/SOURCES.md: 1 meq/100 g = 1 cmol(+)/kg = 10 mmol(+)/kg, by definition.
     assert float(to_cmol_kg(1.0, "ca", "meq/100g")) == 1.0
     assert float(to_cmol_kg(10.0, "ca", "mmol/kg")) == 1.0
     assert float(from_cmol_kg(1.0, "na", "mmol(+)/kg")) == 10.0
 
 
 def test_lb_per_acre_factor_is_the_exact_ratio():
-    # REFERENCES.md: 1 lb/ac = 515445875/459870048 kg/ha exactly, from 1 lb = 0.45359237 kg and
+    # docs/SOURCES.md: 1 lb/ac = 515445875/459870048 kg/ha exactly, from 1 lb = 0.45359237 kg and
     # 1 acre = 4046.8564224 m2 (NIST SP 811).
     exact = Fraction(515445875, 459870048)
     assert Fraction("0.45359237") / (Fraction("4046.8564224") / 10_000) == exact
@@ -87,18 +87,18 @@ def test_lb_per_acre_factor_is_the_exact_ratio():
 
 
 def test_rule_of_thumb_260_kg_ha():
-    # REFERENCES.md: kg/ha = mg/kg x BD (g/cm3) x depth (dm); 100 mg/kg x 1.3 x 2 dm = 260 kg/ha
+    # docs/SOURCES.md: kg/ha = mg/kg x BD (g/cm3) x depth (dm); 100 mg/kg x 1.3 x 2 dm = 260 kg/ha
     # [derived]; [common practice].
     assert float(mg_kg_to_kg_ha(100.0, depth_m=0.2, bulk_density_g_cm3=1.3)) == pytest.approx(260.0)
 
 
 def test_soil_mass_of_a_layer():
-    # REFERENCES.md: kg/ha = 10 000 m2 x depth (m) x BD (kg/m3) [derived]: 0.1 m at 1.4 g/cm3.
+    # docs/SOURCES.md: kg/ha = 10 000 m2 x depth (m) x BD (kg/m3) [derived]: 0.1 m at 1.4 g/cm3.
     assert float(kg_per_ha_of_layer(depth_m=0.1, bulk_density_g_cm3=1.4)) == pytest.approx(1.4e6)
 
 
 def test_cmol_to_kg_ha_of_caco3():
-    # REFERENCES.md, acidity and lime: t CaCO3/ha = cmol(+)/kg x 0.05004 x depth (cm) x BD
+    # docs/SOURCES.md, acidity and lime: t CaCO3/ha = cmol(+)/kg x 0.05004 x depth (cm) x BD
     # [derived]; 3.0 cmol(+)/kg, 20 cm, BD 1.2 -> 3.60 t/ha (Kamprath example).
     kg_ha = cmol_kg_to_kg_ha(3.0, mg_per_cmol_c=MG_CACO3_PER_CMOL, depth_m=0.2,
                              bulk_density_g_cm3=1.2)
@@ -107,7 +107,7 @@ def test_cmol_to_kg_ha_of_caco3():
 
 
 def test_kg_ha_to_mg_m2():
-    # REFERENCES.md: 1 kg/ha = 100 mg/m2; 1 t/ha = 100 000 mg/m2 [derived].
+    # docs/SOURCES.md: 1 kg/ha = 100 mg/m2; 1 t/ha = 100 000 mg/m2 [derived].
     assert float(kg_ha_to_mg_m2(1.0)) == 100.0
     assert float(kg_ha_to_mg_m2(rate_to_kg_ha(1.0, "t/ha"))) == 100_000.0
 
@@ -187,7 +187,7 @@ def test_lb_ac_round_trip(value):
 
 
 def test_conversions_are_vectorised():
-    values = np.array([200.39, 400.78])  # mg/kg of Ca: REFERENCES.md factor 200.39 [derived]
+    values = np.array([200.39, 400.78])  # mg/kg of Ca: docs/SOURCES.md factor 200.39 [derived]
     assert to_cmol_kg(values, "ca", "ppm") == pytest.approx([1.0, 2.0], rel=1e-5)
 
 
