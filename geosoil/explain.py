@@ -311,33 +311,11 @@ def format_explanation(e: Explanation) -> str:
         out.append(f"   {var}: {v:.4g}{sd_txt}  [{method}]")
     out.append("")
     out.append("3. Cell chemistry (amounts in cmol(+)/kg; shares in % of the cell's ECEC)")
-    if e.ecec_parts:
-        terms = " + ".join(f"{_LABEL[k]} {v:.4g}" for k, v in e.ecec_parts.items())
-        out.append(f"   ECEC = {terms} = {e.cell['ecec']:.4g}")
-    elif "ecec" in e.cell and math.isfinite(e.cell["ecec"]):
-        out.append(f"   ECEC = {e.cell['ecec']:.4g} (the lab's CEC: the exchangeable parts are "
-                   "incomplete here)")
-    for k, part in (("esp", "na"), ("ca_sat", "ca"), ("mg_sat", "mg"), ("k_sat", "k"),
-                    ("acid_sat", "acidity"), ("al_sat", "al")):
-        if k in e.cell and math.isfinite(e.cell[k]):
-            how = "interpolated" if k in e.interpolated else f"100 x {_LABEL[part]} / ECEC"
-            out.append(f"   {_LABEL[k]} = {how} = {e.cell[k]:.4g} %")
-    if "ph" in e.cell and math.isfinite(e.cell["ph"]):
-        out.append(f"   pH = {e.cell['ph']:.3g}")
+    out.extend(_chemistry_lines(e))
     out.append("")
     out.append("4. Rules, step by step")
     for st in e.steps:
-        out.append(f"   [{st.rule}] {st.description}")
-        if not st.formula and math.isnan(st.result):  # a note, not a computation
-            continue
-        if st.formula:
-            out.append(f"      formula: {st.formula}")
-        if st.inputs:
-            ins = ", ".join(f"{k} = {_fmt(v)}" for k, v in st.inputs.items())
-            out.append(f"      inputs: {ins}")
-        out.append(f"      result: {_fmt((st.result, st.unit))}")
-        if st.source:
-            out.append(f"      source: {st.source}")
+        out.extend(_step_lines(st))
     out.append("")
     out.append("5. Zone rates the spreader applies here")
     if not e.zones:
@@ -351,6 +329,41 @@ def format_explanation(e: Explanation) -> str:
     for n in e.notes:
         out.append(f"   note: {n}")
     return "\n".join(out)
+
+
+def _chemistry_lines(e: Explanation) -> list[str]:
+    """Section 3 of :func:`format_explanation`: the cell's ECEC and shares."""
+    out: list[str] = []
+    if e.ecec_parts:
+        terms = " + ".join(f"{_LABEL[k]} {v:.4g}" for k, v in e.ecec_parts.items())
+        out.append(f"   ECEC = {terms} = {e.cell['ecec']:.4g}")
+    elif "ecec" in e.cell and math.isfinite(e.cell["ecec"]):
+        out.append(f"   ECEC = {e.cell['ecec']:.4g} (the lab's CEC: the exchangeable parts are "
+                   "incomplete here)")
+    for k, part in (("esp", "na"), ("ca_sat", "ca"), ("mg_sat", "mg"), ("k_sat", "k"),
+                    ("acid_sat", "acidity"), ("al_sat", "al")):
+        if k in e.cell and math.isfinite(e.cell[k]):
+            how = "interpolated" if k in e.interpolated else f"100 x {_LABEL[part]} / ECEC"
+            out.append(f"   {_LABEL[k]} = {how} = {e.cell[k]:.4g} %")
+    if "ph" in e.cell and math.isfinite(e.cell["ph"]):
+        out.append(f"   pH = {e.cell['ph']:.3g}")
+    return out
+
+
+def _step_lines(st: Step) -> list[str]:
+    """One rule step of section 4 of :func:`format_explanation`."""
+    out = [f"   [{st.rule}] {st.description}"]
+    if not st.formula and math.isnan(st.result):  # a note, not a computation
+        return out
+    if st.formula:
+        out.append(f"      formula: {st.formula}")
+    if st.inputs:
+        ins = ", ".join(f"{k} = {_fmt(v)}" for k, v in st.inputs.items())
+        out.append(f"      inputs: {ins}")
+    out.append(f"      result: {_fmt((st.result, st.unit))}")
+    if st.source:
+        out.append(f"      source: {st.source}")
+    return out
 
 
 _LABEL = {

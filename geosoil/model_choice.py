@@ -167,7 +167,7 @@ def select_model(
     if not candidates:
         raise SettingsError("name at least one variogram model to try", key="candidates")
     emp = empirical(xy, z, n_lags=n_lags, max_lag=max_lag)
-    tried = []
+    tried: list[Candidate] = []
     caught: dict[int, list[warnings.WarningMessage]] = {}
     with small_blas(len(z)):
         for name in candidates:
