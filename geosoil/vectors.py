@@ -26,6 +26,7 @@ import geopandas as gpd
 import pandas as pd
 import pyogrio
 import pyogrio.errors
+import shapely.errors
 
 from .errors import InputError
 
@@ -45,6 +46,7 @@ _READ_ERRORS = (
     pyogrio.errors.FieldError,
     pyogrio.errors.GeometryError,
     pyogrio.errors.CRSError,
+    shapely.errors.ShapelyError,  # a broken shape in the file (an unclosed ring)
     OSError,
     ValueError,
 )
