@@ -374,7 +374,7 @@ def _polygonal_part(geom: BaseGeometry) -> BaseGeometry:
     return shapely.union_all(parts)
 
 
-def _check_finite(geom: BaseGeometry, *, path: Path, row: int, where: str) -> None:
+def _check_finite(geom: BaseGeometry, *, path: Path, row: int | None, where: str) -> None:
     """Refuse a vertex whose coordinate is not a number (NaN, infinite): no repair can
     place it, and the geometry libraries only warn about it."""
     xy = shapely.get_coordinates(geom)
@@ -386,6 +386,15 @@ def _check_finite(geom: BaseGeometry, *, path: Path, row: int, where: str) -> No
             f"(the first is vertex {i + 1}: {float(xy[i, 0])}, {float(xy[i, 1])})",
             file=path, row=row, fix="correct or delete those vertices in a GIS",
         )
+
+
+def _check_projected(geoms: gpd.GeoSeries, names: Sequence[str], *, path: Path,
+                     what: str) -> None:
+    """Refuse a shape that leaves the working CRS's numbers (a vertex that projects to
+    infinity), naming its row."""
+    for row, (name, g) in enumerate(zip(names, geoms.tolist(), strict=True), start=1):
+        _check_finite(g, path=path, row=row,
+                      where=f"{what} '{name}', projected to the working CRS,")
 
 
 def _clean_polygon(
@@ -653,6 +662,7 @@ def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame
             for i, g in enumerate(frame.geometry.tolist(), start=1)
         ]
         projected = gpd.GeoSeries(cleaned, crs=frame.crs).to_crs(target)
+        _check_projected(projected, names, path=path, what="exclusion")
         for name, g in zip(names, projected.tolist(), strict=True):
             labels.append(name)
             kinds.append("area")
@@ -688,6 +698,7 @@ def read_exclusions(settings: BoundarySettings, *, crs: Any) -> gpd.GeoDataFrame
             _check_finite(g, path=path, row=i, where=f"creek '{names[i - 1]}'")
             lines.append(g)
         projected = gpd.GeoSeries(lines, crs=frame.crs).to_crs(target)
+        _check_projected(projected, names, path=path, what="creek")
         for name, g in zip(names, projected.tolist(), strict=True):
             labels.append(name)
             kinds.append("creek buffer")
@@ -761,6 +772,9 @@ def read_user_zones(
         frame, column, path=path, what="zone", prefix="Zone",
         fix_type="a zones file holds polygons only", duplicate_names=duplicate_names,
     ).to_crs(target)
+    for name, g in zip(out["zone"].tolist(), out.geometry.tolist(), strict=True):
+        # rows may have been merged by name: the zone's name says which
+        _check_finite(g, path=path, row=None, where=f"zone '{name}', projected to the working CRS,")
     out["geometry"] = [g if g.is_valid else _polygonal_part(shapely.make_valid(g))
                        for g in out.geometry]
     logger.info("read %d zones from %s", len(out), path)
