@@ -287,7 +287,9 @@ def tonnage_table(
         if math.isfinite(price):
             cost = _cents(tonnes / 100 * price)
             sums["cost"] = cost
-            shares["cost"] = apportion(cost, shares["tonnes"].astype(float))
+            tonnes_shares = shares["tonnes"]
+            assert tonnes_shares is not None  # set in the loop above
+            shares["cost"] = apportion(cost, tonnes_shares.astype(float))
         else:
             sums["cost"] = shares["cost"] = None
         for i, r in enumerate(rows.itertuples(index=False)):
