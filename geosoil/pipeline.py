@@ -169,6 +169,14 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         read = read_samples(s.samples)
         samples = read.samples
         lonlat = paddocks.geometry.to_crs("EPSG:4326").total_bounds
+        if lonlat[2] - lonlat[0] > 180.0:
+            raise InputError(
+                f"the paddocks straddle the antimeridian (180 degrees longitude: they reach "
+                f"from {lonlat[0]:.4f} to {lonlat[2]:.4f}); geosoil cannot place one farm "
+                "across it on one map grid",
+                file=s.boundaries.paddocks,
+                fix="split the project in two: the paddocks east of 180 degrees and those west",
+            )
         crs, reason = choose_working_crs(
             candidates=[c for c in (paddocks.crs, samples.crs) if c is not None],
             lonlat_bounds=(
@@ -191,6 +199,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
             samples, s.chemistry, file=read.file, headers=read.columns,
             ph_method=read.methods.get("ph"), on_bad_row=s.samples.on_bad_row,
         )
+        _warn_single_samples(samples, paddocks)
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
         rule_notes = check_inputs(s.rates, set(variables) | _derivable(variables), products,
@@ -205,6 +214,19 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         boundaries_crs=boundaries_crs,
         paddock_files=paddock_files, product_files=product_files,
     )
+
+
+def _warn_single_samples(samples: gpd.GeoDataFrame, paddocks: gpd.GeoDataFrame) -> None:
+    """Say, where check and run show it, that a paddock with one sample gets one flat value."""
+    counts = samples["paddock"].value_counts() if "paddock" in samples.columns else {}
+    for name in paddocks["paddock"]:
+        if int(counts.get(name, 0)) == 1:
+            warnings.warn(
+                f"paddock '{name}' has one sample: every surface there is flat at that "
+                "sample's values, so the whole paddock gets one rate; sample it more densely "
+                "for a map of its variation",
+                DataWarning, stacklevel=3,
+            )
 
 
 def _file_names(names: list[str], *, what: str, mode: str,

@@ -286,6 +286,11 @@ def _read_toml(text: str, *, source: str) -> dict[str, Any]:
         raise InputError(
             f"not valid TOML ({exc})", file=source, fix="correct the line the parser names"
         ) from None
+    except RecursionError:
+        raise InputError(
+            "arrays or tables are nested too deeply to read (no setting nests more than a "
+            "few levels)", file=source, fix="remove the extra brackets",
+        ) from None
 
 
 def _split_key(data: Mapping[str, Any], parts: list[str]) -> list[str] | None:

@@ -27,6 +27,7 @@ from .settings import setting
 from .units import RATE_UNITS, format_rate, rate_from_kg_ha, rate_to_kg_ha
 
 __all__ = [
+    "SPREADER_CEILING_KG_HA",
     "SpreaderSettings",
     "split_passes",
     "spreader_passes",
@@ -38,6 +39,12 @@ __all__ = [
 def _kg_ha(value: float, unit: str) -> float:
     """A scalar rate in ``unit`` as kg/ha."""
     return float(np.asarray(rate_to_kg_ha(value, unit)))
+
+
+#: Largest spreader rate accepted for any setting: 100 t/ha. Field spreaders of lime and
+#: gypsum are set in single t/ha to tens of t/ha (common practice); a figure above this is
+#: a typo or a unit mix-up, refused before anything is computed.
+SPREADER_CEILING_KG_HA = 100_000.0
 
 
 @dataclass(frozen=True)
@@ -74,6 +81,15 @@ class SpreaderSettings:
 
     def __post_init__(self) -> None:
         _check_declared(self)
+        for key in ("min_rate", "max_per_pass", "rate_step"):
+            kg_ha = _kg_ha(getattr(self, key), self.unit)
+            if kg_ha > SPREADER_CEILING_KG_HA:
+                raise SettingsError(
+                    f"{getattr(self, key):g} {self.unit} is beyond what any spreader puts out "
+                    f"(at most {SPREADER_CEILING_KG_HA / 1000:g} t/ha in one pass); give the "
+                    "machine's figure in [spreader] unit",
+                    key=key,
+                )
         if self.max_per_pass > 0:
             if self.min_rate > self.max_per_pass:
                 raise SettingsError(

@@ -281,3 +281,46 @@ def test_formula_cells_are_inert_and_control_characters_never_reach_the_terminal
     cells = {c for row in table for c in row}
     assert "'=HYPERLINK(\"http://example.invalid\",\"x\")" in cells
     assert "'-2+3" in cells and "-3.2" in cells and "'=1+1" in cells and "'=Note()" in cells
+
+
+# ------------------------------------------------------------ checked before computed
+
+
+def _check(folder: Path):  # noqa: ANN202
+    return CliRunner().invoke(cli, ["check", str(folder)])
+
+
+def test_settings_beyond_any_physical_range_are_named_problems(tmp_path: Path) -> None:
+    folder = make_project(tmp_path / "a", extra="[spreader]\nmax_per_pass = 1e308\n")
+    r = _check(folder)
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    assert "'spreader.max_per_pass'" in r.stderr and "100 t/ha" in r.stderr
+    deep = "[zones]\nclasses = " + "[" * 5000 + "]" * 5000 + "\n"
+    r = _check(make_project(tmp_path / "b", extra=deep))
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    assert "nested too deeply" in r.stderr and "geosoil.toml" in r.stderr
+
+
+def test_a_paddock_with_one_sample_is_a_warning_on_screen(tmp_path: Path) -> None:
+    folder = make_project(tmp_path / "farm")
+    lab = folder / "lab.csv"
+    lines = lab.read_text().splitlines()
+    lab.write_text("\n".join(lines[:2]) + "\n")
+    r = _check(folder)
+    assert r.exit_code == 0, r.stderr
+    assert "warning: paddock 'Home' has one sample" in r.stderr
+
+
+def test_a_farm_across_the_antimeridian_is_refused_by_check(tmp_path: Path) -> None:
+    import geopandas as gpd
+    import shapely
+
+    folder = make_project(tmp_path / "farm")
+    east = shapely.box(179.990, -16.80, 179.998, -16.79)  # Fiji lies across 180 degrees
+    west = shapely.box(-179.998, -16.80, -179.990, -16.79)
+    (folder / "paddocks.gpkg").unlink()
+    gpd.GeoDataFrame({"name": ["East", "West"]}, geometry=[east, west],
+                     crs="EPSG:4326").to_file(folder / "paddocks.gpkg")
+    r = _check(folder)
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    assert "antimeridian" in r.stderr and "paddocks.gpkg" in r.stderr
