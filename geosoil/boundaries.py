@@ -1,4 +1,4 @@
-"""Reading paddock, exclusion, creek and management-zone files.
+"""Reading paddock, exclusion, creek and management-zone files into clean GeoDataFrames. [I/O]
 
 This is one of the few modules that touch paths. It reads any vector format
 GDAL reads (GeoJSON, GeoPackage, shapefile, zipped shapefile, and more; the
