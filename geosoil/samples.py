@@ -1270,6 +1270,9 @@ def _assign_paddocks(
     return pts.drop(index=pts.index[outside]).reset_index(drop=True)
 
 
+_GROUPS_LISTED = 50  # merged groups named one by one in the warning
+
+
 def _near_duplicates(
     pts: gpd.GeoDataFrame, settings: SampleSettings, file: str, location: str | None
 ) -> gpd.GeoDataFrame:
@@ -1282,8 +1285,6 @@ def _near_duplicates(
     n = len(pts)
     graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
     _count, label = connected_components(graph, directed=False)
-    groups = [np.flatnonzero(label == g) for g in np.unique(label)]
-    groups = [g for g in groups if g.size > 1]
     if settings.duplicates == "stop":
         a, b = pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))][0]
         gap = float(np.hypot(*(xy[a] - xy[b])))
@@ -1294,23 +1295,31 @@ def _near_duplicates(
             fix="correct the location, or set [samples] duplicates = 'average' to merge samples "
             f"closer than duplicate_distance_m = {settings.duplicate_distance_m:g} m",
         )
+    # every group at once (one pass of groupby, not a loop over groups): the first sample of
+    # a group keeps the group's mean values at its mean place; the others are dropped
+    idx = np.flatnonzero(np.bincount(label)[label] > 1)
+    members = pd.DataFrame({"g": label[idx], "i": idx, "x": xy[idx, 0], "y": xy[idx, 1],
+                            "id": ids[idx], "row": rows[idx]})
+    grouped = members.groupby("g", sort=True)
+    keep = grouped["i"].min().to_numpy()
     analytes = [a for a in CANONICAL if a in pts.columns]
-    drop: list[int] = []
-    merged = []
-    geoms = pts.geometry.to_numpy().copy()
-    for g in groups:
-        keep, rest = g[0], g[1:]
+    if analytes:
+        means = pts.iloc[idx][analytes].astype(float).groupby(label[idx], sort=True).mean()
         for a in analytes:
-            vals = pts[a].to_numpy(dtype=float)[g]
-            pts.loc[keep, a] = np.nanmean(vals) if np.isfinite(vals).any() else np.nan
-        geoms[keep] = shapely.Point(*xy[g].mean(axis=0))
-        pts.loc[keep, "sample_id"] = "+".join(ids[g])
-        drop.extend(rest.tolist())
-        merged.append(f"{' + '.join(f'{ids[i]} (row {rows[i]})' for i in g)}")
+            pts.loc[pts.index[keep], a] = means[a].to_numpy()
+    geoms = pts.geometry.to_numpy().copy()
+    geoms[keep] = shapely.points(grouped["x"].mean().to_numpy(), grouped["y"].mean().to_numpy())
+    pts.loc[pts.index[keep], "sample_id"] = grouped["id"].agg("+".join).to_numpy()
+    labels = (members["id"] + " (row " + members["row"].astype(str) + ")").groupby(
+        members["g"], sort=True).agg(" + ".join).tolist()
+    shown = "; ".join(labels[:_GROUPS_LISTED]) + (
+        f"; and {len(labels) - _GROUPS_LISTED} more group(s)"
+        if len(labels) > _GROUPS_LISTED else "")
     pts = pts.set_geometry(gpd.GeoSeries(geoms, crs=pts.crs, index=pts.index))
     warnings.warn(
         f"{file}: samples closer than {settings.duplicate_distance_m:g} m merged by averaging: "
-        + "; ".join(merged),
+        + shown,
         DataWarning, stacklevel=3,
     )
+    drop = np.setdiff1d(idx, keep)
     return pts.drop(index=pts.index[drop]).reset_index(drop=True)

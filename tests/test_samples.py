@@ -1213,3 +1213,49 @@ def test_implausible_clay_names_the_row(tmp_path: Path) -> None:
                  "A2,146.91,-35.11,5.1,250\n")
     with pytest.raises(InputError, match="row 3.*implausibly large"):
         read_samples(SampleSettings(file=path))
+
+
+def test_averaged_near_duplicates_match_a_group_by_group_mean() -> None:
+    """The grouped (vectorised) averaging against a plain loop over the groups that
+    scipy's connected components give (invented points: pairs, a chain of three, loners)."""
+    import warnings as _w
+
+    import geopandas as gpd
+    import shapely
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+    from scipy.spatial import cKDTree
+
+    from geosoil.samples import SampleSettings, _near_duplicates
+
+    rng = np.random.default_rng(7)
+    n = 300
+    x, y = rng.uniform(0, 2000, n), rng.uniform(0, 2000, n)
+    x[1::7], y[1::7] = x[0::7][: len(x[1::7])] + 0.4, y[0::7][: len(y[1::7])]
+    x[2::7], y[2::7] = x[0::7][: len(x[2::7])] + 0.8, y[0::7][: len(y[2::7])]  # chains of 3
+    ca = rng.uniform(1, 10, n)
+    ca[::11] = np.nan
+    pts = gpd.GeoDataFrame({"sample_id": [f"S{i}" for i in range(n)],
+                            "source_row": np.arange(2, n + 2), "ca": ca},
+                           geometry=shapely.points(x, y), crs="EPSG:32755")
+    settings = SampleSettings(file=Path("x.csv"), duplicates="average", duplicate_distance_m=0.5)
+    with _w.catch_warnings():
+        _w.simplefilter("ignore")
+        got = _near_duplicates(pts.copy(), settings, "x.csv", None)
+    pairs = cKDTree(np.column_stack([x, y])).query_pairs(r=0.5, output_type="ndarray")
+    _, label = connected_components(
+        coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n)),
+        directed=False)
+    expected = {}
+    for g in np.unique(label):
+        members = np.flatnonzero(label == g)
+        vals = ca[members]
+        expected["+".join(f"S{i}" for i in members)] = (
+            np.nanmean(vals) if np.isfinite(vals).any() else np.nan,
+            x[members].mean(), y[members].mean())
+    assert len(got) == len(expected) < n
+    for sid, value, gx, gy in zip(got["sample_id"], got["ca"], got.geometry.x, got.geometry.y,
+                                  strict=True):
+        ev, ex, ey = expected[sid]
+        assert (np.isnan(ev) and np.isnan(value)) or value == pytest.approx(ev)
+        assert (gx, gy) == pytest.approx((ex, ey))
