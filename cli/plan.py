@@ -1,0 +1,62 @@
+"""``geosoil plan PROJECT --points N --out DIR``: where to take the next samples."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from .options import echo, echo_err, handle_errors, out_option, overwrite_option, project_argument
+
+__all__ = ["plan"]
+
+
+@click.command()
+@project_argument
+@click.option("--points", "n_points", required=True, type=click.IntRange(min=1),
+              help="New sample locations per paddock.")
+@out_option
+@click.option("--min-distance", "min_distance", type=click.FloatRange(min=0.0), default=None,
+              help="Least distance (m) between new points and from existing samples "
+                   "[default: half the spacing of a square grid of all samples].")
+@click.option("--weight", "weighting", type=click.Choice(["rate", "uniform"]), default="rate",
+              show_default=True,
+              help="Where lower variance matters most: by the prescribed rate, or alike.")
+@click.option("--variable", default=None,
+              help="Whose variogram to use (na, esp, ph, acidity, ca, mg, k) "
+                   "[default: the first of them kriged in the paddock].")
+@overwrite_option
+@click.pass_context
+@handle_errors
+def plan(ctx: click.Context, project: Path, n_points: int, out: Path, min_distance: float | None,
+         weighting: str, variable: str | None, overwrite: bool) -> None:
+    """Propose new sample locations for PROJECT that most lower the kriging variance."""
+    from geosoil.plan import run_plan  # the stack loads when a command runs, not at --help
+    from geosoil.project import load_project
+    from geosoil.report import CAUTIONS
+
+    proj = load_project(project)
+    result = run_plan(proj, out_dir=out, n_points=n_points, min_distance_m=min_distance,
+                      weighting=weighting, variable=variable, overwrite=overwrite)
+    echo("Sampling plan: expected reduction in mean kriging variance")
+    echo(f"{'paddock':<24} {'variable':<9} {'points':>6} {'before':>10} {'after':>10} "
+         f"{'cut %':>6} {'weighted cut %':>14}")
+    for row in result.record["paddocks"]:
+        var = row["variable"] + (" (log)" if row["scale"] == "log" else "")
+        echo(f"{row['paddock'][:24]:<24} {var:<9} {row['new_points']:>6} "
+             f"{row['mean_kriging_variance_before']:>10.4g} "
+             f"{row['mean_kriging_variance_after']:>10.4g} "
+             f"{row['mean_variance_reduction_pct']:>6.1f} "
+             f"{row['weighted_variance_reduction_pct']:>14.1f}")
+    echo("")
+    echo(f"Output folder: {result.out_dir}")
+    for p in result.written:
+        echo(f"  {p}")
+    if result.warnings and not ctx.obj["quiet"]:
+        echo_err(f"{len(result.warnings)} warning(s) recorded in run.json:")
+        for w in result.warnings:
+            echo_err(f"  - {w}")
+    echo("")
+    echo("Cautions:")
+    for c in CAUTIONS:
+        echo(f"  * {c}")

@@ -1,0 +1,104 @@
+"""``geosoil plan``: the sampling plan's files, reread by an outside reader (GDAL's GPX and
+GeoJSON drivers through pyogrio), its distances, its record and the output-folder guards.
+
+The project is the small invented farm of ``tests/small_farm`` (properties only).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+from click.testing import CliRunner
+from geosoil.cli.main import cli
+from scipy.spatial.distance import cdist, pdist
+
+from tests.small_farm import UTM, make_project
+
+
+def invoke(*args: object):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+@pytest.fixture(scope="module")
+def planned(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
+    root = tmp_path_factory.mktemp("plan")
+    farm = make_project(root / "farm", names=("Home", "Back Paddock"))
+    out = root / "plan"
+    result = invoke("plan", farm, "--points", 4, "--out", out)
+    return {"farm": farm, "out": out, "result": result}
+
+
+def test_plan_writes_the_documented_files(planned: dict[str, object]) -> None:
+    result, out = planned["result"], planned["out"]
+    assert result.exit_code == 0, result.output
+    assert "expected reduction in mean kriging variance" in result.output
+    assert "Rates are advisory" in result.output
+    names = {p.name for p in Path(out).iterdir()}
+    assert names == {"plan_points.geojson", "plan_points.gpx", "plan_points.csv", "run.json"}
+    record = json.loads((Path(out) / "run.json").read_text())
+    assert sorted(record["files"]) == sorted(names)
+    assert "van Groenigen" in record["method"]
+    rows = {r["paddock"]: r for r in record["paddocks"]}
+    assert set(rows) == {"Home", "Back Paddock"}
+    for r in rows.values():
+        assert r["new_points"] == 4
+        assert r["mean_kriging_variance_after"] < r["mean_kriging_variance_before"]
+        assert r["mean_variance_reduction_pct"] > 0
+
+
+def test_gpx_and_geojson_reread_by_gdal(planned: dict[str, object]) -> None:
+    """GPX 1.1 (topografix.com/GPX/1/1) and RFC 7946 GeoJSON, read back by GDAL's drivers."""
+    out = Path(planned["out"])
+    table = pd.read_csv(out / "plan_points.csv")
+    assert len(table) == 8 and table["sample_id"].is_unique
+    wpt = pyogrio.read_dataframe(out / "plan_points.gpx", layer="waypoints")
+    assert wpt.crs.to_epsg() == 4326
+    assert wpt["name"].tolist() == table["sample_id"].tolist()
+    np.testing.assert_allclose(wpt.geometry.x, table["longitude"], atol=1e-7)
+    np.testing.assert_allclose(wpt.geometry.y, table["latitude"], atol=1e-7)
+    gj = pyogrio.read_dataframe(out / "plan_points.geojson")
+    assert gj.crs.to_epsg() == 4326
+    assert gj["sample_id"].tolist() == table["sample_id"].tolist()
+    np.testing.assert_allclose(gj.geometry.x, table["longitude"], atol=1e-7)
+    utm = gj.to_crs(UTM)
+    np.testing.assert_allclose(utm.geometry.x, table["easting_m"], atol=0.05)
+
+
+def test_points_inside_paddocks_and_apart(planned: dict[str, object]) -> None:
+    farm, out = Path(planned["farm"]), Path(planned["out"])
+    record = json.loads((out / "run.json").read_text())
+    table = pd.read_csv(out / "plan_points.csv")
+    paddocks = gpd.read_file(farm / "paddocks.gpkg").set_index("name")
+    lab = pd.read_csv(farm / "lab.csv")
+    existing = lab[["Easting", "Northing"]].to_numpy()
+    for r in record["paddocks"]:
+        mine = table[table["paddock"] == r["paddock"]]
+        xy = mine[["easting_m", "northing_m"]].to_numpy()
+        poly = paddocks.loc[r["paddock"], "geometry"]
+        assert gpd.points_from_xy(xy[:, 0], xy[:, 1]).within(poly).all()
+        dmin = r["min_distance_m"] - 0.05  # recorded to 0.1 m
+        assert pdist(xy).min() >= dmin
+        assert cdist(xy, existing).min() >= dmin
+
+
+def test_plan_refuses_a_full_folder_and_replaces_its_own(planned: dict[str, object]) -> None:
+    farm, out = planned["farm"], planned["out"]
+    again = invoke("plan", farm, "--points", 2, "--out", out)
+    assert again.exit_code == 1 and "--overwrite" in again.output
+    replaced = invoke("plan", farm, "--points", 2, "--out", out, "--overwrite",
+                      "--weight", "uniform")
+    assert replaced.exit_code == 0, replaced.output
+    assert len(pd.read_csv(Path(out) / "plan_points.csv")) == 4
+
+
+def test_plan_bad_options(planned: dict[str, object], tmp_path: Path) -> None:
+    farm = planned["farm"]
+    assert invoke("plan", farm, "--points", 0, "--out", tmp_path / "x").exit_code == 2
+    bad = invoke("plan", farm, "--points", 2, "--out", tmp_path / "y", "--variable", "zinc")
+    assert bad.exit_code == 1 and "--variable" in bad.output
