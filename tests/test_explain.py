@@ -1,12 +1,11 @@
 """The explanation of one location: placement, the arithmetic by hand, the pH guard.
 
-The farm is the demo farm computed once for the module, its surface cache in the
-session's temporary folder.
+The farm is the demo farm as the session's one demo run computed it (``demo_run`` in
+``tests/conftest.py``).
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
 import tomllib
 from pathlib import Path
@@ -24,8 +23,7 @@ from geosoil.explain import (
     locate,
     parse_location,
 )
-from geosoil.pipeline import FarmResult, compute
-from geosoil.project import load_project
+from geosoil.pipeline import FarmResult
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
 
@@ -54,14 +52,9 @@ def test_parse_location_rejects_what_is_not_two_finite_numbers(text: str) -> Non
 
 
 @pytest.fixture(scope="module")
-def farm(tmp_path_factory: pytest.TempPathFactory) -> FarmResult:
-    project = load_project(DEMO)
-    s = project.settings
-    cache = tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil"
-    project = dataclasses.replace(
-        project, settings=dataclasses.replace(
-            s, output=dataclasses.replace(s.output, cache_dir=cache)))
-    return compute(project)
+def farm(demo_run) -> FarmResult:
+    """The demo farm as computed by the session's one demo run (``tests/conftest.py``)."""
+    return demo_run.result.farm
 
 
 @pytest.fixture(scope="module")

@@ -1,7 +1,8 @@
 """Tests of geosoil.pipeline (and the output folder it writes): the whole job on the demo farm.
 
-The demo farm (``demo_farm/``, invented) is run once per module into ``tmp_path``
-with the surface cache in ``tmp_path`` too. Everything read back is checked
+The demo farm (``demo_farm/``, invented) is run once per test session into a temporary
+folder, with its surface cache there too (``demo_run`` in ``tests/conftest.py``).
+Everything read back is checked
 with tools other than the writers: rasterio for the GeoTIFFs, geopandas/pyogrio
 and :mod:`json` for the GeoJSON, :mod:`zipfile` and the dBASE header for the
 shapefile, :mod:`hashlib` for the checksums. The paddock areas to compare with
@@ -34,7 +35,6 @@ import html
 import json
 import platform
 import re
-import shutil
 import struct
 import tomllib
 import zipfile
@@ -55,6 +55,7 @@ from geosoil.job import run
 from geosoil.pipeline import compute
 from geosoil.project import load_project
 from geosoil.variogram import MODELS
+from tests.demofarm import copy_demo, snapshot
 
 DEMO = Path(demo_farm.__file__).parent
 WORKING_EPSG = 32755  # WGS 84 / UTM zone 55S ([derived], see the module notes)
@@ -65,39 +66,10 @@ HOSTILE_PADDOCK = "</script><script>alert(1)</script>"
 HOSTILE_FARM = "<img src=x onerror=alert(2)> & </script><script>alert(2)</script>"
 
 
-def copy_demo(base: Path) -> tuple[Path, Path]:
-    """The demo farm copied into ``base/farm``; its cache folder ``base/cache`` (outside it)."""
-    farm = base / "farm"
-    shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
-    cache = base / "cache"
-    toml = farm / "geosoil.toml"
-    text = toml.read_text(encoding="utf-8")
-    line = f"cache_dir = {json.dumps(str(cache))}\n"
-    if re.search(r"^\[output\]\s*$", text, flags=re.M):
-        text = re.sub(r"^\[output\]\s*$\n?", "[output]\n" + line, text, count=1, flags=re.M)
-    else:
-        text += "\n[output]\n" + line
-    toml.write_text(text, encoding="utf-8")
-    return farm, cache
-
-
-def snapshot(folder: Path) -> dict[str, tuple[bytes, int]]:
-    return {
-        str(p.relative_to(folder)): (p.read_bytes(), p.stat().st_mtime_ns)
-        for p in sorted(folder.rglob("*")) if p.is_file()
-    }
-
-
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    base = tmp_path_factory.mktemp("pipeline")
-    farm, cache = copy_demo(base)
-    before = snapshot(farm)
-    project = load_project(farm)
-    result = run(project, out_dir=base / "out")
-    record = json.loads((base / "out" / "run.json").read_text(encoding="utf-8"))
-    return SimpleNamespace(base=base, farm=farm, cache=cache, out=base / "out", project=project,
-                           result=result, record=record, before=before)
+def demo(demo_run):
+    """The demo farm run once per test session (``demo_run`` in ``tests/conftest.py``)."""
+    return demo_run
 
 
 def slug_of(name: str) -> str:
