@@ -38,6 +38,13 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
         echo(f"  {result.out_dir / name}")
     n_presc = sum(1 for p in result.written if "prescriptions" in p.parts)
     echo(f"  {result.out_dir / 'prescriptions'}  ({n_presc} files)")
+    shortened = result.record.get("names_shortened") or []
+    if shortened:
+        echo("")
+        echo("Names shortened in the files (original -> as written):")
+        for item in shortened:
+            echo(f"  {item['what']}: {item['original']!r} -> {item['short']!r}"
+                 f" ({item['format']})")
     if result.warnings and not quiet:
         echo_err(f"{len(result.warnings)} warning(s) recorded in run.json and the report:")
         for w in result.warnings:

@@ -1,4 +1,4 @@
-"""ISO 11783-10 task data (ISOXML) for one paddock and one product.  [I/O: write_taskdata]
+"""ISO 11783-10 task data (ISOXML): one paddock's task, or a farm's task set.  [I/O: write_*]
 
 A task controller on a tractor terminal loads a ``TASKDATA`` folder: the
 ``TASKDATA.XML`` file and the binary grid files it names. This module builds
@@ -10,8 +10,13 @@ both from a paddock's spreader zones:
 * :func:`grid_bytes` -- the grid as the binary file of a type 2 grid.
 * :func:`taskdata_xml` -- the ``TASKDATA.XML`` text.
 * :func:`write_taskdata` -- writes ``TASKDATA/TASKDATA.XML`` and
-  ``TASKDATA/GRD00001.bin`` atomically (the only function here that touches
-  a path).
+  ``TASKDATA/GRD00001.bin`` atomically.
+* :func:`taskset_xml`, :func:`write_taskset` -- several partfields
+  (:class:`Partfield`: a paddock with its exclusions) and tasks
+  (:class:`Task`: one grid each, ``GRD00001.bin``, ``GRD00002.bin``...) in one
+  ``TASKDATA``; :func:`designators` makes names distinct within 32 characters.
+  Exclusions are written inside their partfield as ``PLN`` type 6 (obstacle)
+  and creek buffers as type 3 (water surface).
 
 What is written (ISO 11783-10, version 4)
 -----------------------------------------
@@ -109,8 +114,16 @@ __all__ = [
     "MAX_CELLS",
     "MAX_DESIGNATOR",
     "ZONE_COLUMNS",
+    "PLN_BOUNDARY",
+    "PLN_OBSTACLE",
+    "PLN_WATER",
+    "Partfield",
+    "Task",
     "TaskGrid",
+    "designators",
     "grid_from_zones",
+    "taskset_xml",
+    "write_taskset",
     "grid_bytes",
     "taskdata_xml",
     "write_taskdata",
@@ -139,6 +152,16 @@ _WGS84 = "EPSG:4326"
 # Rings of the boundary smaller than this (m2) are slivers left by geometry
 # operations, not holes a spreader could miss; they are not written.
 _MIN_RING_M2 = 0.01
+
+#: Polygon types (ISO 11783-10 ``PLN`` attribute ``A``; checked against the schema
+#: bindings of the open-source ``isoxml`` package on PyPI): 1 partfield boundary,
+#: 3 water surface, 6 obstacle.
+PLN_BOUNDARY: str = "1"
+PLN_WATER: str = "3"
+PLN_OBSTACLE: str = "6"
+
+# exclusion kinds (geosoil.boundaries.read_exclusions) -> polygon type
+_EXCLUSION_PLN = {"area": PLN_OBSTACLE, "creek buffer": PLN_WATER}
 
 # Treatment-zone codes (0..254) used in the task.
 _TZN_OUTSIDE = 0
@@ -448,6 +471,50 @@ def _designator(text: Any, *, what: str, fallback: str) -> str:
     return clean
 
 
+def designators(names: Sequence[str]) -> tuple[list[str], list[tuple[str, str]]]:
+    """Designators for ``names``: XML-safe, at most 32 characters, and distinct.
+
+    A name too long for the standard is cut; when two names would then read
+    alike, the later ones end in ``~2``, ``~3``... (cut further to fit).
+
+    Parameters
+    ----------
+    names : sequence of str
+        The names as the user wrote them (equal names stay equal).
+
+    Returns
+    -------
+    (list of str, list of (str, str))
+        The designators, in order, and each changed name as (original, designator).
+
+    Examples
+    --------
+    >>> short, changed = designators(["Lower creek flat below the shearing shed",
+    ...                               "Lower creek flat below the shearing shed 2", "Home"])
+    >>> short
+    ['Lower creek flat below the shear', 'Lower creek flat below the she~2', 'Home']
+    >>> len(changed)
+    2
+    """
+    out: list[str] = []
+    changed: list[tuple[str, str]] = []
+    taken: dict[str, str] = {}
+    for raw in names:
+        text = "" if raw is None else str(raw)
+        clean = _SPACES.sub(" ", _NOT_XML.sub("", text)).strip() or "unnamed"
+        short = clean[:MAX_DESIGNATOR].rstrip()
+        n = 1
+        while short in taken and taken[short] != text:
+            n += 1
+            tail = f"~{n}"
+            short = clean[: MAX_DESIGNATOR - len(tail)].rstrip() + tail
+        taken.setdefault(short, text)
+        out.append(short)
+        if short != text and (text, short) not in changed:
+            changed.append((text, short))
+    return out, changed
+
+
 def _sub(parent: ET.Element, tag: str, attrs: dict[str, str]) -> ET.Element:
     return ET.SubElement(parent, tag, attrs)
 
@@ -484,6 +551,186 @@ def _ring(parent: ET.Element, ring: Any, kind: str) -> None:
         _sub(lsg, "PNT", {"A": "2", "C": f"{lat:.9f}", "D": f"{lon:.9f}"})
 
 
+@dataclass(frozen=True)
+class Partfield:
+    """A paddock as a task set's partfield.
+
+    Attributes
+    ----------
+    name
+        Its designator (at most 32 characters; see :func:`designators`).
+    boundary
+        The paddock (polygon or multipolygon) in ``crs``.
+    crs
+        CRS of ``boundary`` and ``exclusions``.
+    exclusions
+        Optional GeoDataFrame of areas left untreated (``exclusion`` label,
+        ``kind``: ``"area"`` or ``"creek buffer"``), written inside the
+        paddock as obstacle (6) or water-surface (3) polygons.
+    """
+
+    name: str
+    boundary: BaseGeometry
+    crs: Any
+    exclusions: Any = None
+
+
+@dataclass(frozen=True)
+class Task:
+    """One task of a task set: a rate grid of one product on one partfield.
+
+    Attributes
+    ----------
+    name
+        Its designator.
+    partfield
+        Index of its :class:`Partfield` in the set.
+    product
+        Designator of its product (tasks with the same product share one ``PDT``).
+    grid
+        The rate grid (:func:`grid_from_zones`).
+    """
+
+    name: str
+    partfield: int
+    product: str
+    grid: TaskGrid
+
+
+def _polygons(parent: ET.Element, parts: list[shapely.Polygon], kind: str, name: str) -> None:
+    geod = pyproj.Geod(ellps="WGS84")
+    for part in parts:
+        area = abs(geod.geometry_area_perimeter(part)[0])
+        pln = _sub(parent, "PLN", {"A": kind, "B": name, "C": str(round(area))})
+        _ring(pln, part.exterior, "1")
+        for hole in part.interiors:
+            _ring(pln, hole, "2")
+
+
+def _grid_name(j: int) -> str:
+    return f"GRD{j:05d}"
+
+
+def taskset_xml(
+    partfields: Sequence[Partfield],
+    tasks: Sequence[Task],
+    *,
+    farm: str,
+    software_version: str = __version__,
+) -> str:
+    """The ``TASKDATA.XML`` text of a task set: partfields, products and tasks.
+
+    One ``PFD`` per partfield (its boundary, ``PLN`` type 1, and its
+    exclusions as obstacle or water-surface polygons), one ``PDT`` per
+    product, one ``TSK`` per task with its own type 2 grid file
+    ``GRD<nnnnn>.bin`` (numbered from 1 in task order). Designators must
+    be distinct (partfields, products, tasks); see :func:`designators`.
+
+    Parameters
+    ----------
+    partfields, tasks
+        The paddocks and the tasks on them.
+    farm
+        The farm (and customer) name.
+    software_version
+        Written as ``ManagementSoftwareVersion``.
+
+    Returns
+    -------
+    str
+        The XML text.
+
+    Raises
+    ------
+    ValueError
+        Two partfields or tasks share a designator, or a task names no partfield.
+    """
+    pf_names = [_designator(p.name, what="paddock", fallback="paddock") for p in partfields]
+    task_names = [_designator(t.name, what="task", fallback="task") for t in tasks]
+    for what, names in (("paddock", pf_names), ("task", task_names)):
+        if len(set(names)) != len(names):
+            dup = next(n for n in names if names.count(n) > 1)
+            raise ValueError(f"two {what}s are named {dup!r} in one task set; "
+                             "make their names distinct (geosoil.isoxml.designators)")
+    farm_name = _designator(farm, what="farm", fallback="farm")
+    ddi = f"{DDI_SETPOINT_MASS_PER_AREA:04X}"
+
+    root = ET.Element("ISO11783_TaskData", {
+        "VersionMajor": "4",
+        "VersionMinor": "0",
+        "ManagementSoftwareManufacturer": "geosoil",
+        "ManagementSoftwareVersion": str(software_version),
+        "DataTransferOrigin": "1",
+    })
+    _sub(root, "CTR", {"A": "CTR1", "B": farm_name})
+    _sub(root, "FRM", {"A": "FRM1", "B": farm_name, "I": "CTR1"})
+
+    geod = pyproj.Geod(ellps="WGS84")
+    for i, (pf, pad) in enumerate(zip(partfields, pf_names, strict=True), start=1):
+        wcrs = pyproj.CRS.from_user_input(pf.crs)
+        parts = _lonlat_parts(pf.boundary, wcrs)
+        areas = [abs(geod.geometry_area_perimeter(p)[0]) for p in parts]
+        pfd = _sub(root, "PFD", {"A": f"PFD{i}", "C": pad, "D": str(round(sum(areas))),
+                                 "E": "CTR1", "F": "FRM1"})
+        for part, area in zip(parts, areas, strict=True):
+            pln = _sub(pfd, "PLN", {"A": PLN_BOUNDARY, "B": pad, "C": str(round(area))})
+            _ring(pln, part.exterior, "1")
+            for hole in part.interiors:
+                _ring(pln, hole, "2")
+        ex = pf.exclusions
+        if ex is not None and len(ex):
+            for label, kind, geom in zip(ex.get("exclusion", pd.Series("", index=ex.index)),
+                                         ex.get("kind", pd.Series("area", index=ex.index)),
+                                         ex.geometry, strict=True):
+                if geom is None or geom.is_empty:
+                    continue
+                inside = shapely.intersection(geom, pf.boundary)
+                polys = [g for g in getattr(inside, "geoms", [inside])
+                         if g.geom_type in ("Polygon", "MultiPolygon") and not g.is_empty]
+                if not polys:
+                    continue
+                parts_ex = _lonlat_parts(shapely.union_all(polys), wcrs)
+                name = _designator(label, what="exclusion", fallback="exclusion")
+                _polygons(pfd, parts_ex, _EXCLUSION_PLN.get(str(kind), PLN_OBSTACLE), name)
+
+    products: dict[str, str] = {}
+    for t in tasks:
+        if t.product not in products:
+            products[t.product] = f"PDT{len(products) + 1}"
+            _sub(root, "PDT", {"A": products[t.product],
+                               "B": _designator(t.product, what="product", fallback="product")})
+    for j, (t, name) in enumerate(zip(tasks, task_names, strict=True), start=1):
+        if not 0 <= t.partfield < len(partfields):
+            raise ValueError(
+                f"task {name!r} names partfield {t.partfield}, which is not in the set")
+        pdt = products[t.product]
+        tsk = _sub(root, "TSK", {"A": f"TSK{j}", "B": name, "C": "CTR1", "D": "FRM1",
+                                 "E": f"PFD{t.partfield + 1}", "G": "1",
+                                 "I": str(_TZN_OUTSIDE), "J": str(_TZN_OUTSIDE)})
+        prod = _designator(t.product, what="product", fallback="product")
+        for code, label in ((_TZN_OUTSIDE, "outside paddock"), (_TZN_GRID, f"{prod} rate grid")):
+            tzn = _sub(tsk, "TZN", {"A": str(code), "B": label[:MAX_DESIGNATOR].rstrip()})
+            _sub(tzn, "PDV", {"A": ddi, "B": "0", "C": pdt, "E": "VPN1"})
+        g = t.grid
+        _sub(tsk, "GRD", {
+            "A": f"{g.min_north:.9f}",
+            "B": f"{g.min_east:.9f}",
+            "C": f"{g.cell_north:.12f}",
+            "D": f"{g.cell_east:.12f}",
+            "E": str(g.columns),
+            "F": str(g.rows),
+            "G": _grid_name(j),
+            "H": str(g.rows * g.columns * 4),
+            "I": "2",
+            "J": str(_TZN_GRID),
+        })
+    _sub(root, "VPN", {"A": "VPN1", "B": "0", "C": "0.01", "D": "0", "E": "kg/ha"})
+
+    ET.indent(root, space=" ")
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(
+        root, encoding="unicode") + "\n"
+
+
 def taskdata_xml(
     grid: TaskGrid,
     *,
@@ -493,6 +740,7 @@ def taskdata_xml(
     product_label: str,
     farm: str,
     software_version: str = __version__,
+    exclusions: Any = None,
 ) -> str:
     """The ``TASKDATA.XML`` text of one paddock's task (see the module docstring).
 
@@ -509,6 +757,8 @@ def taskdata_xml(
         :class:`~geosoil.errors.DataWarning`).
     software_version
         Written as ``ManagementSoftwareVersion``.
+    exclusions
+        Optional areas left untreated, as for :class:`Partfield`.
 
     Returns
     -------
@@ -525,59 +775,14 @@ def taskdata_xml(
     >>> root.tag, root.find("FRM").get("B"), root.find("TSK/GRD").get("I")
     ('ISO11783_TaskData', 'Hill & Dale', '2')
     """
-    wcrs = pyproj.CRS.from_user_input(crs)
     pad = _designator(paddock, what="paddock", fallback="paddock")
     prod = _designator(product_label, what="product", fallback="product")
-    farm_name = _designator(farm, what="farm", fallback="farm")
     task_name = f"{prod} {pad}"[:MAX_DESIGNATOR].rstrip()  # made of cleaned names
-    ddi = f"{DDI_SETPOINT_MASS_PER_AREA:04X}"
-    n_bytes = grid.rows * grid.columns * 4
-
-    root = ET.Element("ISO11783_TaskData", {
-        "VersionMajor": "4",
-        "VersionMinor": "0",
-        "ManagementSoftwareManufacturer": "geosoil",
-        "ManagementSoftwareVersion": str(software_version),
-        "DataTransferOrigin": "1",
-    })
-    _sub(root, "CTR", {"A": "CTR1", "B": farm_name})
-    _sub(root, "FRM", {"A": "FRM1", "B": farm_name, "I": "CTR1"})
-
-    parts = _lonlat_parts(boundary, wcrs)
-    geod = pyproj.Geod(ellps="WGS84")
-    areas = [abs(geod.geometry_area_perimeter(p)[0]) for p in parts]
-    pfd = _sub(root, "PFD", {"A": "PFD1", "C": pad, "D": str(round(sum(areas))),
-                             "E": "CTR1", "F": "FRM1"})
-    for part, area in zip(parts, areas, strict=True):
-        pln = _sub(pfd, "PLN", {"A": "1", "B": pad, "C": str(round(area))})
-        _ring(pln, part.exterior, "1")
-        for hole in part.interiors:
-            _ring(pln, hole, "2")
-
-    _sub(root, "PDT", {"A": "PDT1", "B": prod})
-    tsk = _sub(root, "TSK", {"A": "TSK1", "B": task_name, "C": "CTR1", "D": "FRM1",
-                             "E": "PFD1", "G": "1", "I": str(_TZN_OUTSIDE),
-                             "J": str(_TZN_OUTSIDE)})
-    for code, label in ((_TZN_OUTSIDE, "outside paddock"), (_TZN_GRID, f"{prod} rate grid")):
-        tzn = _sub(tsk, "TZN", {"A": str(code), "B": label[:MAX_DESIGNATOR].rstrip()})
-        _sub(tzn, "PDV", {"A": ddi, "B": "0", "C": "PDT1", "E": "VPN1"})
-    _sub(tsk, "GRD", {
-        "A": f"{grid.min_north:.9f}",
-        "B": f"{grid.min_east:.9f}",
-        "C": f"{grid.cell_north:.12f}",
-        "D": f"{grid.cell_east:.12f}",
-        "E": str(grid.columns),
-        "F": str(grid.rows),
-        "G": GRID_FILE_NAME,
-        "H": str(n_bytes),
-        "I": "2",
-        "J": str(_TZN_GRID),
-    })
-    _sub(root, "VPN", {"A": "VPN1", "B": "0", "C": "0.01", "D": "0", "E": "kg/ha"})
-
-    ET.indent(root, space=" ")
-    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(
-        root, encoding="unicode") + "\n"
+    return taskset_xml(
+        [Partfield(name=pad, boundary=boundary, crs=crs, exclusions=exclusions)],
+        [Task(name=task_name, partfield=0, product=prod, grid=grid)],
+        farm=farm, software_version=software_version,
+    )
 
 
 # --------------------------------------------------------------------------- writing
@@ -592,6 +797,8 @@ def write_taskdata(
     product_label: str,
     farm: str,
     cell_size_m: float = 10.0,
+    paddock: str | None = None,
+    exclusions: Any = None,
 ) -> list[Path]:
     """Write ``folder/TASKDATA/TASKDATA.XML`` and ``folder/TASKDATA/GRD00001.bin``.
 
@@ -607,7 +814,11 @@ def write_taskdata(
     zones, boundary, crs, cell_size_m
         As for :func:`grid_from_zones` (one paddock, one product).
     product_label, farm
-        Names shown on the terminal; the paddock's name comes from the zones.
+        Names shown on the terminal.
+    paddock
+        The paddock's name on the terminal (default: from the zones).
+    exclusions
+        Optional areas left untreated, as for :class:`Partfield`.
 
     Returns
     -------
@@ -636,8 +847,8 @@ def write_taskdata(
     grid = grid_from_zones(zones, boundary=boundary, crs=crs, cell_size_m=cell_size_m)
     data = grid_bytes(grid)
     text = taskdata_xml(grid, boundary=boundary, crs=_to_crs(crs, zones),
-                        paddock=str(zones["paddock"].iloc[0]), product_label=product_label,
-                        farm=farm)
+                        paddock=str(zones["paddock"].iloc[0]) if paddock is None else paddock,
+                        product_label=product_label, farm=farm, exclusions=exclusions)
     out = Path(folder) / "TASKDATA"
     if out.exists() and not out.is_dir():
         raise OutputExistsError(f"{out} is a file, not a folder; move it or choose another "
@@ -651,3 +862,54 @@ def write_taskdata(
         fh.write(text.encode("utf-8"))
     logger.info("task data: %s (%d x %d grid)", out, grid.rows, grid.columns)
     return [p_xml, p_bin]
+
+
+def write_taskset(
+    folder: Path,
+    *,
+    partfields: Sequence[Partfield],
+    tasks: Sequence[Task],
+    farm: str,
+) -> list[Path]:
+    """Write a task set of several partfields and tasks: ``folder/TASKDATA/``.
+
+    The grid files ``GRD00001.bin``, ``GRD00002.bin``... (one per task, in
+    order) are written first, then ``TASKDATA.XML`` (:func:`taskset_xml`);
+    each atomically.
+
+    Parameters
+    ----------
+    folder
+        Folder to hold ``TASKDATA`` (created when missing).
+    partfields, tasks, farm
+        As for :func:`taskset_xml`.
+
+    Returns
+    -------
+    list of Path
+        The XML file, then the grid files.
+
+    Raises
+    ------
+    OutputExistsError
+        ``folder/TASKDATA`` exists and is not a folder.
+    ValueError
+        As for :func:`taskset_xml`.
+    """
+    text = taskset_xml(partfields, tasks, farm=farm)
+    out = Path(folder) / "TASKDATA"
+    if out.exists() and not out.is_dir():
+        raise OutputExistsError(f"{out} is a file, not a folder; move it or choose another "
+                                "output folder")
+    out.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for j, t in enumerate(tasks, start=1):
+        p = out / f"{_grid_name(j)}.bin"
+        with atomic_write(p) as fh:
+            fh.write(grid_bytes(t.grid))
+        paths.append(p)
+    p_xml = out / "TASKDATA.XML"
+    with atomic_write(p_xml) as fh:
+        fh.write(text.encode("utf-8"))
+    logger.info("task set: %s (%d partfields, %d tasks)", out, len(partfields), len(tasks))
+    return [p_xml, *paths]

@@ -23,12 +23,17 @@ Layout (stable; scripts rely on it)::
       prescriptions/<paddock>/<product>_pass<k>{.geojson,_shp.zip,_zones.tif,_isoxml/}
                                        the same, once per pass, in place of the above when a
                                        zone needs several passes (_season<k> for seasons)
+      prescriptions/farm_isoxml/TASKDATA/  the farm's task set: a partfield per paddock, a task
+                                       per paddock x product x pass
+      farm.gpkg                        GeoPackage: paddocks, exclusions, samples, zones per
+                                       product (all passes) and per pass, with layer styles
 
 Every file is written to a temporary name and renamed into place.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 from datetime import UTC, datetime
@@ -40,8 +45,16 @@ import pandas as pd
 
 from . import presentation, webmap
 from . import report as report_mod
+from .gpkg import plain_style, write_gpkg, zone_styles
 from .grids import mosaic
-from .isoxml import MAX_DESIGNATOR, write_taskdata
+from .isoxml import (
+    MAX_DESIGNATOR,
+    Partfield,
+    Task,
+    designators,
+    grid_from_zones,
+    write_taskset,
+)
 from .names import slug
 from .pipeline import FarmResult
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
@@ -70,6 +83,13 @@ __all__ = [
 ]
 
 logger = logging.getLogger(__name__)
+
+#: Folder (under ``prescriptions/``) of the farm's ISO 11783-10 task set; a paddock's
+#: folder name has no underscore, so it never meets this one.
+FARM_TASKSET = "farm_isoxml"
+
+#: The farm's GeoPackage, at the top of the output folder.
+FARM_GPKG = "farm.gpkg"
 
 #: Units of every surface and derived quantity, for files, map and report.
 SURFACE_UNITS: dict[str, str] = {
@@ -163,6 +183,9 @@ def write_outputs(
     progress("writing prescriptions")
     s = prep.project.settings
     mcrs = machine_crs(s.output.machine_crs, working=crs, boundaries=prep.boundaries_crs)
+    iso_names = _IsoNames(farm)
+    iso_tasks: list[Task] = []
+    iso_partfields: dict[str, int] = {}
     for name, pr in farm.paddocks.items():
         folder = out_dir / "prescriptions" / prep.paddock_files[name]
         folder.mkdir(parents=True, exist_ok=True)
@@ -192,7 +215,15 @@ def write_outputs(
                 write_cog(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
                           tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
                 written.append(p_tif)
-            written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product))
+            written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product,
+                                         names=iso_names, tasks=iso_tasks,
+                                         partfields=iso_partfields))
+    written.extend(_write_farm_taskset(out_dir, farm=farm, names=iso_names, tasks=iso_tasks,
+                                       partfields=iso_partfields))
+
+    # the farm's GeoPackage (all passes and each pass; GIS, no machine)
+    progress("writing the GeoPackage")
+    written.append(_write_farm_gpkg(out_dir / FARM_GPKG, farm))
 
     # tables
     p = out_dir / "tonnage.csv"
@@ -214,6 +245,7 @@ def write_outputs(
     written.append(p)
 
     record = build_record(farm, out_dir=out_dir)
+    record["names_shortened"] = list(iso_names.changed)
 
     # map and report
     progress("drawing the map")
@@ -236,10 +268,59 @@ def write_outputs(
     return written, record
 
 
+class _IsoNames:
+    """Every ISO 11783-10 designator of a run: distinct, cut to the standard's 32
+    characters, each change kept (original, short) for run.json and the summary."""
+
+    def __init__(self, farm: FarmResult) -> None:
+        prep = farm.prep
+        s = prep.project.settings
+        self.changed: list[dict[str, str]] = []
+        word = "season" if s.spreader.split_into == "seasons" else "pass"
+        self.farm = self._short("farm", [s.farm or "farm"])[s.farm or "farm"]
+        self.paddock = self._short("paddock", list(prep.grids))
+        labels: list[str] = []
+        tasks: list[str] = []
+        self.keys: list[tuple[str, str, int, int]] = []
+        for name, pr in farm.paddocks.items():
+            for product in pr.rates.product_rates:
+                z = pr.zones[pr.zones["product"] == product]
+                if z.empty:
+                    continue
+                label = str(prep.products[product].label if product in prep.products
+                            else product)
+                n = n_passes(z)
+                for k in range(1, n + 1):
+                    lab = f"{word} {k}/{n} {label}" if n > 1 else label
+                    labels.append(lab)
+                    tasks.append(f"{name} {lab}")
+                    self.keys.append((name, product, k, n))
+        self._labels = dict(zip(self.keys, labels, strict=True))
+        self._tasks = dict(zip(self.keys, tasks, strict=True))
+        self.product = self._short("product", labels)
+        self.task = self._short("task", tasks)
+
+    def _short(self, what: str, names: list[str]) -> dict[str, str]:
+        unique = list(dict.fromkeys(names))
+        short, changed = designators(unique)
+        for original, new in changed:
+            self.changed.append({"what": what, "original": original, "short": new,
+                                 "format": f"ISO 11783-10 designator ({MAX_DESIGNATOR} "
+                                           "characters)"})
+        return dict(zip(unique, short, strict=True))
+
+    def label(self, key: tuple[str, str, int, int]) -> str:
+        return self.product[self._labels[key]]
+
+    def task_name(self, key: tuple[str, str, int, int]) -> str:
+        return self.task[self._tasks[key]]
+
+
 def _write_isoxml(
-    folder: Path, zones: Any, *, farm: FarmResult, paddock: str, product: str
+    folder: Path, zones: Any, *, farm: FarmResult, paddock: str, product: str,
+    names: _IsoNames, tasks: list[Task], partfields: dict[str, int],
 ) -> list[Path]:
-    """ISO 11783-10 task data for one paddock and product: one task per pass.
+    """ISO 11783-10 task data for one paddock and product: one task set per pass.
 
     A controller applies one rate per cell per task, so a zone whose rate
     needs several passes (spreader max per pass) is written as pass 1, pass 2...
@@ -249,31 +330,98 @@ def _write_isoxml(
     warning; its product name starts with the pass ("pass 2/3 ...", or "season
     2/3 ..." when rates are split into seasons) so that the terminal tells them
     apart even when the name is cut to the standard's 32 characters.
-    Nothing is written when no zone gets product.
+    Nothing is written when no zone gets product. Each task is also added to
+    ``tasks`` (and its paddock to ``partfields``) for the farm's task set.
     """
     if not (zones["rate_kg_ha"] > 0).any():
         return []
     prep = farm.prep
+    s = prep.project.settings
     boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
-    label = prep.products[product].label if product in prep.products else product
-    split_into = prep.project.settings.spreader.split_into
+    excl = None
+    if not prep.exclusions.empty:
+        near = prep.exclusions[prep.exclusions.intersects(boundary)]
+        excl = near if not near.empty else None
+    pf = Partfield(name=names.paddock[paddock], boundary=boundary, crs=zones.crs,
+                   exclusions=excl)
     n_tasks = n_passes(zones)
     written: list[Path] = []
     for k, zk in pass_frames(zones):
+        key = (paddock, product, k, n_tasks)
         sub = folder / (f"{prep.product_files[product]}"
-                        f"{pass_suffix(k, n_tasks, split_into=split_into)}_isoxml")
-        if n_tasks > 1:
-            word = "season" if split_into == "seasons" else "pass"
-            prefix = f"{word} {k}/{n_tasks} "
-            task_label = prefix + str(label)[: MAX_DESIGNATOR - len(prefix)].rstrip()
-        else:
-            task_label = label
-        written.extend(write_taskdata(
-            sub, zones=zk, boundary=boundary, crs=zones.crs, product_label=task_label,
-            farm=prep.project.settings.farm or "farm",
-            cell_size_m=prep.project.settings.grid.cell_size_m,
-        ))
+                        f"{pass_suffix(k, n_tasks, split_into=s.spreader.split_into)}_isoxml")
+        grid = grid_from_zones(zk, boundary=boundary, crs=zones.crs,
+                               cell_size_m=s.grid.cell_size_m)
+        task = Task(name=names.task_name(key), partfield=0, product=names.label(key), grid=grid)
+        written.extend(write_taskset(sub, partfields=[pf], tasks=[task], farm=names.farm))
+        index = partfields.setdefault(paddock, len(partfields))
+        tasks.append(dataclasses.replace(task, partfield=index))
     return written
+
+
+def gpkg_layers(farm: FarmResult) -> dict[str, Any]:
+    """The layers of ``farm.gpkg``, in the working CRS: paddocks, exclusions, samples,
+    ``zones_<product>`` (all passes) and ``zones_<product>_pass<k>`` (``_season<k>``) for
+    a product some zone needs in several passes (the paddocks that have that pass)."""
+    import geopandas as gpd
+
+    prep = farm.prep
+    s = prep.project.settings
+    pads = prep.paddocks[["paddock", "geometry"]].copy()
+    pads["area_ha"] = pads.geometry.area / 10_000.0
+    layers: dict[str, Any] = {"paddocks": pads}
+    if not prep.exclusions.empty:
+        layers["exclusions"] = prep.exclusions
+    layers["samples"] = prep.samples
+    for product, files in prep.product_files.items():
+        z = farm.zones[farm.zones["product"] == product]
+        if z.empty:
+            continue
+        base = "zones_" + files.replace("-", "_")
+        layers[base] = z
+        per_pass: dict[int, list[Any]] = {}
+        for name in z["paddock"].unique():
+            zp = z[z["paddock"] == name]
+            for k, zk in pass_frames(zp):
+                per_pass.setdefault(k, []).append(zk)
+        if len(per_pass) > 1:
+            for k, frames in per_pass.items():
+                layer = base + pass_suffix(k, len(per_pass), split_into=s.spreader.split_into)
+                layers[layer] = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True),
+                                                 crs=z.crs)
+    return layers
+
+
+def _write_farm_gpkg(path: Path, farm: FarmResult) -> Path:
+    layers = gpkg_layers(farm)
+    styles = {"paddocks": plain_style("paddocks", "outline"),
+              "exclusions": plain_style("exclusions", "exclusion"),
+              "samples": plain_style("samples", "point")}
+    for name, layer in layers.items():
+        if name.startswith("zones_"):
+            styles[name] = zone_styles(name, layer["rate_kg_ha"].astype(float).tolist())
+    return write_gpkg(path, layers, styles=styles)
+
+
+def _write_farm_taskset(
+    out_dir: Path, *, farm: FarmResult, names: _IsoNames, tasks: list[Task],
+    partfields: dict[str, int],
+) -> list[Path]:
+    """The farm's task set: one partfield per paddock with a task, every task of the run."""
+    if not tasks:
+        return []
+    prep = farm.prep
+    pfs = []
+    for paddock in sorted(partfields, key=partfields.__getitem__):
+        boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
+        excl = None
+        if not prep.exclusions.empty:
+            near = prep.exclusions[prep.exclusions.intersects(boundary)]
+            excl = near if not near.empty else None
+        pfs.append(Partfield(name=names.paddock[paddock], boundary=boundary, crs=prep.crs,
+                             exclusions=excl))
+    return write_taskset(out_dir / "prescriptions" / FARM_TASKSET, partfields=pfs, tasks=tasks,
+                         farm=names.farm)
 
 
 def _surface_record(surf: Any) -> dict[str, Any]:

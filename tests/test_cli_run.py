@@ -90,8 +90,12 @@ def test_the_documented_layout(runs) -> None:  # noqa: ANN001
     out = runs["root"] / "out1"
     assert TOP_FILES <= {p.name for p in out.iterdir() if p.is_file()}
     assert {p.name for p in out.iterdir() if p.is_dir()} == {"surfaces", "rates", "prescriptions"}
-    for sub in ("surfaces", "rates", "prescriptions"):
+    for sub in ("surfaces", "rates"):
         assert {p.name for p in (out / sub).iterdir()} == PADDOCKS
+    # the farm's task set beside the paddocks' folders (README)
+    assert {p.name for p in (out / "prescriptions").iterdir()} == PADDOCKS | {"farm_isoxml"}
+    assert (out / "prescriptions" / "farm_isoxml" / "TASKDATA" / "TASKDATA.XML").is_file()
+    assert (out / "farm.gpkg").is_file()
     for pad in PADDOCKS:
         surfaces = {p.name for p in (out / "surfaces" / pad).iterdir()}
         assert {"ca.tif", "esp.tif", "ecec.tif"} <= surfaces

@@ -510,3 +510,29 @@ def test_zones_reaching_past_the_boundary_spread_nothing_outside_it(tmp_path: Pa
     assert np.any(clear & ~inside & shapely.contains_xy(zones.geometry.iloc[0], x, y))
     assert np.all(raw[clear & ~inside] == 0)
     assert np.all(raw[clear & inside] == 150_000)  # 1500 kg/ha x 100 [derived]
+
+
+def test_designators_are_cut_to_32_characters_and_kept_distinct() -> None:
+    # ISO 11783-10 designators hold at most 32 characters
+    names = ["Lower creek flat below the shearing shed", "Lower creek flat below the shearing "
+             "shed 2", "Home", "Home"]
+    short, changed = isoxml.designators(names)
+    assert all(len(n) <= 32 for n in short)
+    assert len(set(short[:3])) == 3 and short[3] == short[2] == "Home"
+    assert [o for o, _ in changed] == names[:2]
+
+
+def test_a_task_set_refuses_two_tasks_of_one_name() -> None:
+    g = isoxml.TaskGrid(min_north=-35.0, min_east=148.0, cell_north=1e-4, cell_east=1e-4,
+                        values=np.zeros((2, 2), dtype="int32"))
+    pf = isoxml.Partfield(name="North", boundary=shapely.box(148, -35, 148.0002, -34.9998),
+                          crs="EPSG:4326")
+    t = isoxml.Task(name="lime North", partfield=0, product="lime", grid=g)
+    with pytest.raises(ValueError, match="lime North"):
+        isoxml.taskset_xml([pf], [t, t], farm="Demo")
+    root = ET.fromstring(isoxml.taskset_xml(
+        [pf], [t, isoxml.Task(name="lime North 2", partfield=0, product="lime", grid=g)],
+        farm="Demo"))
+    # one product, two tasks, each with its own grid file
+    assert len(root.findall("PDT")) == 1
+    assert [e.get("G") for e in root.findall("TSK/GRD")] == ["GRD00001", "GRD00002"]

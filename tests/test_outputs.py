@@ -14,12 +14,13 @@ import shapely
 
 from geosoil.errors import RateWarning
 from geosoil.isoxml import MAX_DESIGNATOR
-from geosoil.outputs import _map_notes, _write_isoxml
+from geosoil.outputs import _IsoNames, _map_notes, _write_isoxml
 
 CRS = "EPSG:32755"
 
 
-def _farm(paddock: shapely.Polygon, *, split_into: str, label: str) -> SimpleNamespace:
+def _farm(paddock: shapely.Polygon, *, split_into: str, label: str,
+          zones: gpd.GeoDataFrame | None = None) -> SimpleNamespace:
     """The few parts of a FarmResult that the task-data writer reads."""
     settings = SimpleNamespace(
         farm="Test farm", grid=SimpleNamespace(cell_size_m=10.0),
@@ -28,9 +29,18 @@ def _farm(paddock: shapely.Polygon, *, split_into: str, label: str) -> SimpleNam
     prep = SimpleNamespace(
         paddocks=gpd.GeoDataFrame({"paddock": ["Home"]}, geometry=[paddock], crs=CRS),
         products={"lime": SimpleNamespace(label=label)}, product_files={"lime": "lime"},
-        project=SimpleNamespace(settings=settings),
+        project=SimpleNamespace(settings=settings), grids={"Home": None},
+        exclusions=gpd.GeoDataFrame({"exclusion": [], "kind": []}, geometry=[], crs=CRS),
     )
-    return SimpleNamespace(prep=prep)
+    zones = _zones(paddock) if zones is None else zones
+    paddocks = {"Home": SimpleNamespace(rates=SimpleNamespace(product_rates={"lime": None}),
+                                        zones=zones)}
+    return SimpleNamespace(prep=prep, paddocks=paddocks)
+
+
+def _write(folder: Path, zones: gpd.GeoDataFrame, farm: SimpleNamespace) -> list[Path]:
+    return _write_isoxml(folder, zones, farm=farm, paddock="Home", product="lime",
+                         names=_IsoNames(farm), tasks=[], partfields={})
 
 
 def _zones(paddock: shapely.Polygon) -> gpd.GeoDataFrame:
@@ -60,8 +70,8 @@ def test_each_pass_task_holds_the_per_pass_rate_without_a_several_passes_warning
     label = "agricultural lime (calcite) from the north quarry"  # longer than 32 characters
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        written = _write_isoxml(tmp_path, _zones(paddock), farm=_farm(
-            paddock, split_into=split_into, label=label), paddock="Home", product="lime")
+        written = _write(tmp_path, _zones(paddock), _farm(
+            paddock, split_into=split_into, label=label))
     # Each task is one pass: nothing in it "needs several passes" (a false alarm before).
     assert not [w for w in caught if issubclass(w.category, RateWarning)]
     assert len(written) == 6  # XML and grid for each of 3 passes
@@ -82,8 +92,7 @@ def test_one_pass_zones_write_one_task_named_by_the_product(tmp_path: Path) -> N
     zones = _zones(paddock).assign(passes=1, per_pass_kg_ha=lambda z: z["rate_kg_ha"])
     with warnings.catch_warnings():
         warnings.simplefilter("error", RateWarning)
-        _write_isoxml(tmp_path, zones, farm=_farm(paddock, split_into="passes", label="Lime"),
-                      paddock="Home", product="lime")
+        _write(tmp_path, zones, _farm(paddock, split_into="passes", label="Lime", zones=zones))
     root, values = _grid_values(tmp_path / "lime_isoxml")
     assert root.find("PDT").get("B") == "Lime"
     assert values == {0, 90000, 160000, 210000}

@@ -1,0 +1,294 @@
+"""One GeoPackage of the farm for GIS users, with layer styles.  [I/O: write_gpkg]
+
+A GeoPackage (OGC 12-128r18) holds every layer in one file: paddocks,
+exclusions, samples with their chemistry, the zones of each product (all
+passes, with ``rate_kg_ha`` the total and ``passes``, ``per_pass_kg_ha`` and
+``schedule`` beside it) and, where a product needs several passes, one layer
+per pass. GDAL (through pyogrio) writes the layers.
+
+Layer styles go in the ``layer_styles`` table, the convention that QGIS reads
+when it opens a layer of a GeoPackage (the table's columns are QGIS's; the
+styles in it are our own): each row holds a style as QGIS's QML and as OGC
+Symbology Encoding 1.1 (SLD), and ``useAsDefault`` marks it as the one to use.
+Zones are coloured by rate in five equal steps from the smallest rate above 0
+to the largest (rate 0 light grey); exclusions are a light red fill, paddocks
+an outline, samples a white dot.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import os
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+from xml.sax.saxutils import escape, quoteattr
+
+import numpy as np
+import pandas as pd
+
+from .writers import atomic_path
+
+__all__ = ["RATE_COLOURS", "ZERO_COLOUR", "rate_classes", "zone_styles", "plain_style",
+           "write_gpkg"]
+
+logger = logging.getLogger(__name__)
+
+#: Colours of the five rate classes, lightest (least product) first; our own ramp.
+RATE_COLOURS: tuple[str, ...] = ("#f7f0c8", "#e3cf7a", "#c9a13f", "#96692a", "#5a3c1c")
+
+#: Colour of zones with rate 0 (nothing spread).
+ZERO_COLOUR = "#dcdcdc"
+
+_QML_HEAD = "<!DOCTYPE qgis PUBLIC 'http://mrcc.com/qgis.dtd' 'SYSTEM'>\n"
+
+
+def rate_classes(rates: Sequence[float], n: int = 5) -> list[tuple[float, float]]:
+    """Equal-step classes from the smallest rate above 0 to the largest.
+
+    Parameters
+    ----------
+    rates : sequence of float
+        The zones' rates, kg/ha.
+    n : int
+        Number of classes (fewer when the rates take fewer values).
+
+    Returns
+    -------
+    list of (float, float)
+        (lower, upper) of each class; empty when no rate is above 0.
+
+    Examples
+    --------
+    >>> rate_classes([0.0, 1000.0, 3000.0], n=2)
+    [(1000.0, 2000.0), (2000.0, 3000.0)]
+    """
+    pos = np.asarray([r for r in rates if r is not None and math.isfinite(r) and r > 0], float)
+    if pos.size == 0:
+        return []
+    lo, hi = float(pos.min()), float(pos.max())
+    k = max(1, min(n, len(np.unique(pos))))
+    if hi == lo:
+        return [(lo, hi)]
+    step = (hi - lo) / k
+    edges = [lo + i * step for i in range(k)] + [hi]
+    return [(edges[i], edges[i + 1]) for i in range(k)]
+
+
+def _rgb(hex_colour: str) -> str:
+    h = hex_colour.lstrip("#")
+    return ",".join(str(int(h[i:i + 2], 16)) for i in (0, 2, 4)) + ",255"
+
+
+def _qml_fill(name: str, colour: str, outline: str, width: float, style: str = "solid") -> str:
+    return (
+        f'<symbol type="fill" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
+        '<layer class="SimpleFill" enabled="1" locked="0" pass="0"><Option type="Map">'
+        f'<Option name="color" type="QString" value="{_rgb(colour)}"/>'
+        f'<Option name="outline_color" type="QString" value="{_rgb(outline)}"/>'
+        f'<Option name="outline_width" type="QString" value="{width}"/>'
+        '<Option name="outline_width_unit" type="QString" value="MM"/>'
+        f'<Option name="style" type="QString" value="{style}"/>'
+        '</Option></layer></symbol>'
+    )
+
+
+def _qml_marker(name: str, colour: str, outline: str, size: float) -> str:
+    return (
+        f'<symbol type="marker" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
+        '<layer class="SimpleMarker" enabled="1" locked="0" pass="0"><Option type="Map">'
+        '<Option name="name" type="QString" value="circle"/>'
+        f'<Option name="color" type="QString" value="{_rgb(colour)}"/>'
+        f'<Option name="outline_color" type="QString" value="{_rgb(outline)}"/>'
+        f'<Option name="size" type="QString" value="{size}"/>'
+        '<Option name="size_unit" type="QString" value="MM"/>'
+        '</Option></layer></symbol>'
+    )
+
+
+def _sld(layer: str, rules: str) -> str:
+    return (
+        '<?xml version="1.0" encoding="UTF-8"?>\n'
+        '<StyledLayerDescriptor version="1.1.0" xmlns="http://www.opengis.net/sld" '
+        'xmlns:se="http://www.opengis.net/se" xmlns:ogc="http://www.opengis.net/ogc" '
+        'xmlns:xsi="http://www.w3.org/2001/XMLSchema-instance" '
+        'xsi:schemaLocation="http://www.opengis.net/sld '
+        'http://schemas.opengis.net/sld/1.1.0/StyledLayerDescriptor.xsd">'
+        f'<NamedLayer><se:Name>{escape(layer)}</se:Name><UserStyle>'
+        f'<se:Name>{escape(layer)}</se:Name><se:FeatureTypeStyle>{rules}'
+        '</se:FeatureTypeStyle></UserStyle></NamedLayer></StyledLayerDescriptor>\n'
+    )
+
+
+def _sld_polygon(fill: str | None, stroke: str, width: float, opacity: float = 1.0) -> str:
+    f = (f'<se:Fill><se:SvgParameter name="fill">{fill}</se:SvgParameter>'
+         f'<se:SvgParameter name="fill-opacity">{opacity:g}</se:SvgParameter></se:Fill>'
+         if fill else "")
+    return (f'<se:PolygonSymbolizer>{f}<se:Stroke>'
+            f'<se:SvgParameter name="stroke">{stroke}</se:SvgParameter>'
+            f'<se:SvgParameter name="stroke-width">{width:g}</se:SvgParameter>'
+            '</se:Stroke></se:PolygonSymbolizer>')
+
+
+def _rule(name: str, body: str, flt: str = "") -> str:
+    return f"<se:Rule><se:Name>{escape(name)}</se:Name>{flt}{body}</se:Rule>"
+
+
+def _between(field: str, lo: float, hi: float, *, first: bool) -> str:
+    low = "PropertyIsGreaterThanOrEqualTo" if first else "PropertyIsGreaterThan"
+    return (f'<ogc:Filter><ogc:And><ogc:{low}><ogc:PropertyName>{field}</ogc:PropertyName>'
+            f'<ogc:Literal>{lo:.6g}</ogc:Literal></ogc:{low}>'
+            f'<ogc:PropertyIsLessThanOrEqualTo><ogc:PropertyName>{field}</ogc:PropertyName>'
+            f'<ogc:Literal>{hi:.6g}</ogc:Literal></ogc:PropertyIsLessThanOrEqualTo>'
+            '</ogc:And></ogc:Filter>')
+
+
+def zone_styles(layer: str, rates: Sequence[float], *, unit_note: str = "kg/ha"
+                ) -> tuple[str, str]:
+    """QML and SLD of a zone layer: rate 0 grey, then five equal rate classes.
+
+    Parameters
+    ----------
+    layer : str
+        The layer's name (written in the SLD).
+    rates : sequence of float
+        The layer's rates (kg/ha), to place the class limits.
+    unit_note : str
+        Unit written in the class labels.
+
+    Returns
+    -------
+    (str, str)
+        The QML text and the SLD text.
+    """
+    classes = rate_classes(rates)
+    ranges = ['<range lower="0" upper="0" symbol="0" label="0 (nothing spread)" render="true"/>']
+    symbols = [_qml_fill("0", ZERO_COLOUR, "#505050", 0.2)]
+    rules = [_rule("0 (nothing spread)", _sld_polygon(ZERO_COLOUR, "#505050", 0.5),
+                   '<ogc:Filter><ogc:PropertyIsEqualTo><ogc:PropertyName>rate_kg_ha'
+                   '</ogc:PropertyName><ogc:Literal>0</ogc:Literal></ogc:PropertyIsEqualTo>'
+                   '</ogc:Filter>')]
+    colours = RATE_COLOURS if len(classes) == len(RATE_COLOURS) else \
+        tuple(RATE_COLOURS[round(i * (len(RATE_COLOURS) - 1) / max(1, len(classes) - 1))]
+              for i in range(len(classes)))
+    for i, ((lo, hi), colour) in enumerate(zip(classes, colours, strict=True), start=1):
+        label = f"{lo:,.0f} - {hi:,.0f} {unit_note}"
+        ranges.append(f'<range lower="{lo:.6f}" upper="{hi:.6f}" symbol="{i}" '
+                      f'label={quoteattr(label)} render="true"/>')
+        symbols.append(_qml_fill(str(i), colour, "#505050", 0.2))
+        rules.append(_rule(label, _sld_polygon(colour, "#505050", 0.5),
+                           _between("rate_kg_ha", lo, hi, first=i == 1)))
+    qml = (
+        _QML_HEAD + '<qgis version="3.28.0" styleCategories="Symbology">'
+        '<renderer-v2 type="graduatedSymbol" attr="rate_kg_ha" graduatedMethod="GraduatedColor" '
+        'symbollevels="0" enableorderby="0" forceraster="0">'
+        f'<ranges>{"".join(ranges)}</ranges><symbols>{"".join(symbols)}</symbols>'
+        '</renderer-v2></qgis>\n'
+    )
+    return qml, _sld(layer, "".join(rules))
+
+
+def plain_style(layer: str, kind: str) -> tuple[str, str]:
+    """QML and SLD of a paddock (``"outline"``), exclusion (``"exclusion"``) or sample
+    (``"point"``) layer.
+
+    Examples
+    --------
+    >>> qml, sld = plain_style("paddocks", "outline")
+    >>> "singleSymbol" in qml and "se:PolygonSymbolizer" in sld
+    True
+    """
+    if kind == "point":
+        symbol = _qml_marker("0", "#ffffff", "#202020", 2.4)
+        rule = _rule(layer, '<se:PointSymbolizer><se:Graphic><se:Mark>'
+                     '<se:WellKnownName>circle</se:WellKnownName><se:Fill>'
+                     '<se:SvgParameter name="fill">#ffffff</se:SvgParameter></se:Fill>'
+                     '<se:Stroke><se:SvgParameter name="stroke">#202020</se:SvgParameter>'
+                     '</se:Stroke></se:Mark><se:Size>9</se:Size></se:Graphic>'
+                     '</se:PointSymbolizer>')
+    elif kind == "exclusion":
+        symbol = _qml_fill("0", "#e8a0a0", "#8b1a1a", 0.4)
+        rule = _rule(layer, _sld_polygon("#e8a0a0", "#8b1a1a", 1.0, 0.8))
+    elif kind == "outline":
+        symbol = _qml_fill("0", "#000000", "#1e1e1e", 0.6, style="no")
+        rule = _rule(layer, _sld_polygon(None, "#1e1e1e", 2.0))
+    else:
+        raise ValueError(f"style kind {kind!r} is not one of point, exclusion, outline")
+    qml = (_QML_HEAD + '<qgis version="3.28.0" styleCategories="Symbology">'
+           '<renderer-v2 type="singleSymbol" symbollevels="0" enableorderby="0" forceraster="0">'
+           f'<symbols>{symbol}</symbols></renderer-v2></qgis>\n')
+    return qml, _sld(layer, rule)
+
+
+def _plain_columns(frame: Any) -> Any:
+    """Columns GDAL can write: objects that are not text become text."""
+    out = frame.copy()
+    for col in out.columns:
+        if col == out.geometry.name:
+            continue
+        s = out[col]
+        if s.dtype == object:
+            out[col] = s.map(lambda v: None if v is None or (isinstance(v, float) and
+                                                               math.isnan(v)) else str(v))
+        elif isinstance(s.dtype, pd.BooleanDtype) or s.dtype == bool:
+            out[col] = s.astype("Int64" if s.isna().any() else "int64")
+    return out
+
+
+def write_gpkg(
+    path: str | os.PathLike[str],
+    layers: Mapping[str, Any],
+    *,
+    styles: Mapping[str, tuple[str, str]] | None = None,
+) -> Path:
+    """Write GeoDataFrames as the layers of one GeoPackage, with styles, atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        The ``.gpkg`` file (replaced when it exists).
+    layers : mapping of str to GeoDataFrame
+        Layer name -> layer, written in order; empty layers are left out.
+    styles : mapping of str to (str, str), optional
+        Layer name -> (QML, SLD) written to ``layer_styles`` as its default.
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Examples
+    --------
+    >>> import tempfile, geopandas as gpd, shapely, pyogrio
+    >>> g = gpd.GeoDataFrame({"paddock": ["North"]}, geometry=[shapely.box(0, 0, 10, 10)],
+    ...                      crs="EPSG:32755")
+    >>> p = write_gpkg(Path(tempfile.mkdtemp()) / "farm.gpkg", {"paddocks": g},
+    ...                styles={"paddocks": plain_style("paddocks", "outline")})
+    >>> sorted(name for name, _ in pyogrio.list_layers(p))
+    ['layer_styles', 'paddocks']
+    """
+    import pyogrio
+
+    styles = dict(styles or {})
+    with atomic_path(path) as tmp:
+        written = []
+        for name, frame in layers.items():
+            if frame is None or len(frame) == 0:
+                continue
+            pyogrio.write_dataframe(_plain_columns(frame), tmp, layer=name, driver="GPKG",
+                                    append=bool(written), promote_to_multi=None)
+            written.append(name)
+        rows = [
+            {"f_table_catalog": "", "f_table_schema": "", "f_table_name": name,
+             "f_geometry_column": "geom", "styleName": f"{name} (geosoil)",
+             "styleQML": qml, "styleSLD": sld, "useAsDefault": True,
+             "description": "geosoil's style for this layer", "owner": "", "ui": "",
+             "update_time": pd.Timestamp.now(tz="UTC").strftime("%Y-%m-%dT%H:%M:%S.000Z")}
+            for name, (qml, sld) in styles.items() if name in written
+        ]
+        if rows:
+            pyogrio.write_dataframe(pd.DataFrame(rows), tmp, layer="layer_styles",
+                                    driver="GPKG", append=True, layer_options={"FID": "id"})
+    logger.info("GeoPackage: %s (%d layers)", path, len(written))
+    return Path(path)

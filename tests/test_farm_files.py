@@ -1,0 +1,237 @@
+"""The files a spreader and a GIS take, reopened with outside readers, zone by zone.
+
+A copy of the demo farm with a 1.5 t/ha per-pass spreader (so lime and gypsum need
+split passes) and rates shown in lb/ac (so the tonnage is in short tons) is run as a
+technician would (``geosoil run``). Every machine file is read back by GDAL (pyogrio,
+rasterio) and the ISO 11783-10 task data by ``isoxml``, an open-source reader on PyPI
+used here only as an oracle; values are compared with the zones in the GeoPackage.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import shutil
+import tomllib
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import pytest
+import rasterio
+import tomli_w
+from click.testing import CliRunner
+from isoxml.converter.np_grid import to_numpy_array
+from isoxml.util.isoxml_io import isoxml_from_path
+
+from cli.main import cli
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+MAX_PASS_KG_HA = 1500.0  # the copy's spreader: 1.5 t/ha per pass
+PASS_FILE = re.compile(r"^(?P<product>.+?)(_(?P<word>pass|season)(?P<k>[0-9]+))?"
+                       r"(?P<kind>\.geojson|_shp\.zip|_zones\.tif|_isoxml)$")
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory: pytest.TempPathFactory) -> dict:
+    root = tmp_path_factory.mktemp("farmfiles")
+    farm = root / "farm"
+    shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    data = tomllib.loads((farm / "geosoil.toml").read_text())
+    data["spreader"]["max_per_pass"] = MAX_PASS_KG_HA / 1000.0  # t/ha, the file's unit
+    data["output"]["rate_unit"] = "lb/ac"
+    data["output"]["cache_dir"] = str(tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil")
+    (farm / "geosoil.toml").write_text(tomli_w.dumps(data))
+    result = CliRunner().invoke(cli, ["run", str(farm), "--out", str(root / "out")])
+    assert result.exit_code == 0, result.output
+    out = root / "out"
+    gpkg = out / "farm.gpkg"
+    return {"out": out, "stdout": result.stdout, "gpkg": gpkg,
+            "record": json.loads((out / "run.json").read_text())}
+
+
+def _zones(run: dict, product: str):  # noqa: ANN202 - GeoDataFrame
+    return pyogrio.read_dataframe(run["gpkg"], layer=f"zones_{product}")
+
+
+def _inner_points(zones) -> dict[tuple[str, int], tuple[float, float]]:  # noqa: ANN001
+    """A point of each zone at least 15 m (1.5 cells) from its edge, in the zones' CRS."""
+    pts = {}
+    for paddock, zone, kind, geom in zip(zones["paddock"], zones["zone"], zones["kind"],
+                                         zones.geometry, strict=True):
+        inner = geom.buffer(-15.0)
+        if kind != "exclusion" and not inner.is_empty:
+            p = inner.representative_point()
+            pts[(paddock, int(zone))] = (p.x, p.y)
+    return pts
+
+
+def _pass_files(out: Path) -> dict[tuple[str, str, int, str], Path]:
+    """(paddock folder, product, pass (0: one pass), kind) -> path."""
+    found = {}
+    for folder in (out / "prescriptions").iterdir():
+        if folder.name == "farm_isoxml":
+            continue
+        for path in folder.iterdir():
+            m = PASS_FILE.match(path.name)
+            assert m, path
+            found[(folder.name, m["product"], int(m["k"] or 0), m["kind"])] = path
+    return found
+
+
+def test_every_pass_file_adds_up_to_the_prescription_and_none_exceeds_the_limit(run) -> None:
+    files = _pass_files(run["out"])
+    split = {(f, p) for f, p, k, _ in files if k > 0}
+    assert split, "the copy's 1.5 t/ha spreader splits some zones into passes"
+    for product in ("gypsum", "lime"):
+        zones = _zones(run, product)
+        for folder in {f for f, p, _, _ in files if p == product}:
+            paddock = next(n for n in zones["paddock"].unique()
+                           if n.lower().replace(" ", "-") == folder)
+            want = zones[zones["paddock"] == paddock].set_index("zone")["rate_kg_ha"]
+            passes = sorted(k for f, p, k, kind in files
+                            if f == folder and p == product and kind == ".geojson")
+            if (folder, product) in split:
+                assert 0 not in passes  # no all-passes machine file beside the passes
+                assert passes == list(range(1, len(passes) + 1))
+            total = pd.Series(0.0, index=want.index)
+            for k in passes:
+                for kind in (".geojson", "_shp.zip"):
+                    frame = pyogrio.read_dataframe(files[(folder, product, k, kind)])
+                    rate = "rate_kg_ha" if kind == ".geojson" else "RATE_KGHA"
+                    zone = "zone" if kind == ".geojson" else "ZONE"
+                    per = frame.set_index(zone)[rate]
+                    assert (per <= MAX_PASS_KG_HA + 1e-6).all(), (folder, product, k, kind)
+                    if kind == ".geojson":
+                        total = total.add(per, fill_value=0.0)
+            np.testing.assert_allclose(total.loc[want.index], want, atol=1e-6)
+
+
+def test_zone_geotiffs_and_shapefiles_are_lonlat_and_hold_each_zones_pass_rate(run) -> None:
+    files = _pass_files(run["out"])
+    to_ll = None
+    for product in ("gypsum", "lime"):
+        zones = _zones(run, product)
+        to_ll = pyproj.Transformer.from_crs(zones.crs, 4326, always_xy=True)
+        inner = _inner_points(zones)
+        for (folder, prod, k, kind), path in files.items():
+            if prod != product or kind not in ("_zones.tif", "_shp.zip"):
+                continue
+            if kind == "_shp.zip":
+                assert pyogrio.read_info(path)["crs"] == "EPSG:4326"  # [output] machine_crs
+                continue
+            geo = pyogrio.read_dataframe(files[(folder, prod, k, ".geojson")]).set_index("zone")
+            paddock = geo["paddock"].iloc[0]
+            with rasterio.open(path) as src:
+                assert src.crs.to_epsg() == 4326
+                band = src.read(1, masked=True)
+                for (pad, zone), (x, y) in inner.items():
+                    if pad != paddock:
+                        continue
+                    lon, lat = to_ll.transform(x, y)
+                    row, col = src.index(lon, lat)
+                    assert band[row, col] == pytest.approx(geo.loc[zone, "rate_kg_ha"]), \
+                        (path.name, zone)
+
+
+def _grid_value(grid, values: np.ndarray, lon: float, lat: float) -> int:  # noqa: ANN001
+    row = math.floor((lat - float(grid.minimum_north_position)) / float(grid.cell_north_size))
+    col = math.floor((lon - float(grid.minimum_east_position)) / float(grid.cell_east_size))
+    return int(values[row, col])
+
+
+def test_task_data_read_by_an_outside_reader_matches_the_zones_per_pass(run) -> None:
+    out = run["out"]
+    farm_td, farm_bins = isoxml_from_path(out / "prescriptions" / "farm_isoxml" / "TASKDATA")
+    farm_tasks = {t.designator: t for t in farm_td.tasks}
+    pfd = {p.id: p for p in farm_td.partfields}
+    names = {p.designator for p in farm_td.partfields}
+    assert len(names) == len(farm_td.partfields) and len(farm_tasks) == len(farm_td.tasks)
+    n_tasks = 0
+    for product in ("gypsum", "lime"):
+        zones = _zones(run, product)
+        to_ll = pyproj.Transformer.from_crs(zones.crs, 4326, always_xy=True)
+        inner = _inner_points(zones)
+        for paddock in zones["paddock"].unique():
+            z = zones[zones["paddock"] == paddock].set_index("zone")
+            if not (z["rate_kg_ha"] > 0).any():
+                continue
+            n = int(z["passes"].max())
+            folder = out / "prescriptions" / paddock.lower().replace(" ", "-")
+            for k in range(1, n + 1):
+                n_tasks += 1
+                sub = f"{product}_pass{k}_isoxml" if n > 1 else f"{product}_isoxml"
+                td, bins = isoxml_from_path(folder / sub / "TASKDATA")
+                [task] = td.tasks
+                grid = task.grids[0]
+                values = to_numpy_array(bins[grid.filename], grid)
+                farm_task = farm_tasks[task.designator]  # the same task in the farm's set
+                assert pfd[farm_task.partfield_id_ref].designator == paddock
+                fg = farm_task.grids[0]
+                np.testing.assert_array_equal(to_numpy_array(farm_bins[fg.filename], fg), values)
+                for (pad, zone), (x, y) in inner.items():
+                    if pad != paddock:
+                        continue
+                    per_pass = z.loc[zone, "per_pass_kg_ha"] if z.loc[zone, "passes"] >= k else 0
+                    # 1 kg/ha = 100 mg/m2 (DDI 6 is mg/m2, ISO 11783-11)
+                    lon, lat = to_ll.transform(x, y)
+                    assert _grid_value(grid, values, lon, lat) == round(per_pass * 100), \
+                        (paddock, product, k, zone)
+    assert n_tasks == len(farm_td.tasks)
+
+
+def test_exclusions_are_obstacle_and_water_polygons_in_the_task_data(run) -> None:
+    td, _ = isoxml_from_path(run["out"] / "prescriptions" / "farm_isoxml" / "TASKDATA")
+    kinds = {(pl.type.value, pl.designator) for p in td.partfields for pl in p.polygons}
+    # the demo's tree clump is an obstacle (6), its creek a water surface (3): ISO 11783-10
+    # polygon types as the isoxml package's schema bindings give them
+    assert ("6", "Tree clump") in kinds and ("3", "Bellbird Creek") in kinds
+    assert {k for k, _ in kinds} <= {"1", "3", "6"}
+
+
+def test_geopackage_layers_crs_and_styles(run) -> None:
+    layers = dict(pyogrio.list_layers(run["gpkg"]))
+    assert {"paddocks", "exclusions", "samples", "zones_gypsum", "zones_lime",
+            "zones_lime_pass1", "zones_lime_pass2", "layer_styles"} <= set(layers)
+    working = run["record"]["working_crs"]["epsg"]
+    for name, geom in layers.items():
+        if geom is not None:
+            assert pyogrio.read_info(run["gpkg"], layer=name)["crs"] == f"EPSG:{working}", name
+    samples = pyogrio.read_dataframe(run["gpkg"], layer="samples")
+    assert {"sample_id", "ph", "ecec", "esp"} <= set(samples.columns) and len(samples) > 50
+    styles = pyogrio.read_dataframe(run["gpkg"], layer="layer_styles")
+    spatial = {n for n, g in layers.items() if g is not None}
+    assert set(styles["f_table_name"]) == spatial
+    assert styles["useAsDefault"].astype(bool).all()
+    for qml, sld in zip(styles["styleQML"], styles["styleSLD"], strict=True):
+        assert ET.fromstring(qml.split("\n", 1)[1]).tag == "qgis"
+        assert ET.fromstring(sld.encode()).tag.endswith("StyledLayerDescriptor")
+
+
+def test_tonnage_in_short_tons_adds_up_after_rounding(run) -> None:
+    t = pd.read_csv(run["out"] / "tonnage.csv", dtype=str, keep_default_na=False)
+    assert "short_tons" in t.columns and "tonnes" not in t.columns  # lb/ac -> short tons
+    assert "cost_AUD" in t.columns and "truckloads" in t.columns and "loads" not in t.columns
+    assert all(re.fullmatch(r"[0-9]+\.[0-9]{2}", v) for v in t["short_tons"])
+
+    def hundredths(rows: pd.DataFrame, col: str) -> int:
+        return sum(round(float(v) * 100) for v in rows[col] if v != "")
+
+    for col in ("area_ha", "short_tons", "cost_AUD", "truckloads"):
+        for (pad, prod), rows in t[t["level"] == "zone"].groupby(["paddock", "product"]):
+            sub = t[(t["level"] == "paddock") & (t["paddock"] == pad) & (t["product"] == prod)]
+            assert hundredths(rows, col) == hundredths(sub, col), (col, pad, prod)
+        for prod, rows in t[t["level"] == "paddock"].groupby("product"):
+            farm = t[(t["level"] == "farm") & (t["product"] == prod)]
+            assert hundredths(rows, col) == hundredths(farm, col), (col, prod)
+
+
+def test_shortened_names_are_reported_with_their_original(run) -> None:
+    shortened = run["record"]["names_shortened"]
+    farm = next(s for s in shortened if s["what"] == "farm")
+    assert farm["original"] == "Bellbird Rise (invented demo farm)" and len(farm["short"]) <= 32
+    assert "Names shortened" in run["stdout"] and repr(farm["short"]) in run["stdout"]
