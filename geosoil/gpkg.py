@@ -272,7 +272,7 @@ def write_gpkg(
 
     styles = dict(styles or {})
     with atomic_path(path) as tmp:
-        written = []
+        written: list[str] = []
         for name, frame in layers.items():
             if frame is None or len(frame) == 0:
                 continue
