@@ -39,6 +39,9 @@ point is never taken.
 
 Weights: the prescribed rate of each cell (kg/ha, all products together),
 so that the map becomes trustworthy where money is spread; or uniform.
+
+The design uses global kriging (every sample at every cell), whatever
+neighbourhood the project's surfaces were kriged with.
 """
 
 from __future__ import annotations
@@ -51,6 +54,7 @@ import numpy as np
 import scipy.linalg
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
+from scipy.spatial.distance import cdist
 
 from .errors import DataWarning, SettingsError
 from .grids import PaddockGrid
@@ -157,7 +161,7 @@ def default_min_distance(area_m2: float, n_total: int) -> float:
 
 def _covariance(a: Array, b: Array, model: VariogramModel) -> Array:
     """Covariances between points (the nugget where two points coincide: exact kriging)."""
-    d2 = ((a[:, None, :] - b[None, :, :]) ** 2).sum(axis=2)
+    d2 = cdist(a, b, "sqeuclidean")
     c = model.correlation_sq(d2) * model.psill
     c[d2 <= COINCIDENT_M * COINCIDENT_M] += model.nugget
     return c
