@@ -324,3 +324,23 @@ def test_a_farm_across_the_antimeridian_is_refused_by_check(tmp_path: Path) -> N
     r = _check(folder)
     assert r.exit_code == 1 and "Traceback" not in r.stderr
     assert "antimeridian" in r.stderr and "paddocks.gpkg" in r.stderr
+
+
+def test_above_the_global_kriging_ceiling_the_local_neighbourhood_is_used_and_said(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The ceiling is lowered below the small farm's 12 samples, so the rule runs here."""
+    from geosoil import surfaces
+    from geosoil.pipeline import compute
+
+    folder = make_project(tmp_path / "farm", extra=(
+        "[interpolation]\nmin_samples_kriging = 5\n\n[interpolation.fixed.ca]\n"
+        'model = "spherical"\nnugget = 0.1\npsill = 1.0\nrange_m = 300.0\n'))
+    monkeypatch.setattr(surfaces, "GLOBAL_KRIGING_MAX_SAMPLES", 10)
+    monkeypatch.setattr(surfaces, "AUTO_NEIGHBOURS", 6)
+    farm = compute(load_project(folder), use_cache=False)
+    kriged = [s for s in farm.surfaces.values() if s.method == "ordinary kriging"]
+    assert kriged
+    assert all(any("nearest 6 samples" in n for n in s.notes) for s in kriged)
+    told = [w for w in farm.warnings if "more than the 10 global kriging" in w]
+    assert len(told) == 1 and told[0].startswith("Home, ca: 12 samples")
