@@ -31,6 +31,8 @@ from isoxml.util.isoxml_io import isoxml_from_path
 from cli.main import cli
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+pytestmark = pytest.mark.slow  # one whole run of the demo copy (tens of seconds)
+
 MAX_PASS_KG_HA = 1500.0  # the copy's spreader: 1.5 t/ha per pass
 PASS_FILE = re.compile(r"^(?P<product>.+?)(_(?P<word>pass|season)(?P<k>[0-9]+))?"
                        r"(?P<kind>\.geojson|_shp\.zip|_zones\.tif|_isoxml)$")
