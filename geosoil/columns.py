@@ -60,6 +60,8 @@ PROPERTIES: dict[str, tuple[str, ...]] = {
     "om": ("%", "g/kg"),
     "clay": ("%", "g/kg"),
     "phbc": ("cmol/kg/pH", "mmol/kg/pH"),
+    "ec_1_5": ("dS/m", "mS/cm", "uS/cm", "mS/m"),
+    "ece": ("dS/m", "mS/cm", "uS/cm", "mS/m"),
 }
 
 #: Canonical analytes, in the order they are reported.
@@ -114,6 +116,12 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
     "clay": ("clay", "clay content", "clay fraction"),
     "phbc": ("phbc", "ph bc", "ph buffering capacity", "ph buffer capacity",
              "buffering capacity"),
+    # "EC 1:5", "EC1:5", "EC (1:5 water)": the words once ":" and brackets are split off
+    "ec_1_5": ("ec 1 5", "ec1 5", "ec 1 5 water", "ec 1 5 h2o", "ec1 5 water",
+               "electrical conductivity 1 5", "conductivity 1 5", "ec 1 5 soil water"),
+    "ece": ("ece", "ec e", "ecse", "ec se", "ec sat", "ec paste", "ec sat paste",
+            "ec saturation extract", "ec saturated paste", "saturated paste ec",
+            "electrical conductivity saturation extract", "ec saturation paste"),
 }
 
 #: Names of a sample ID column, most specific first.
@@ -383,6 +391,8 @@ _PROPERTY_UNIT_TEXT: dict[str, str] = {
     "cmol/kg/ph": "cmol/kg/pH", "cmol+/kg/ph": "cmol/kg/pH", "cmolc/kg/ph": "cmol/kg/pH",
     "meq/100g/ph": "cmol/kg/pH", "mmol/kg/ph": "mmol/kg/pH", "mmol+/kg/ph": "mmol/kg/pH",
     "mmolc/kg/ph": "mmol/kg/pH",
+    "ds/m": "dS/m", "ms/cm": "mS/cm", "us/cm": "uS/cm", "\u00b5s/cm": "uS/cm",
+    "\u03bcs/cm": "uS/cm", "ms/m": "mS/m",
 }
 
 
@@ -428,6 +438,10 @@ def _lime_analyte(
         )
     joined = " ".join(words)
     found = next((a for a in PROPERTIES if joined in ANALYTE_SPELLINGS[a]), None)
+    if found is None and joined in ("ec", "electrical conductivity") and not extra:
+        return HeaderInfo(given, None, note="an EC that names no extract: map it with "
+                          f"[samples.columns] ec_1_5 = '{given}' (1:5 water) or ece = "
+                          f"'{given}' (saturation extract)")
     if found is None:
         return None
     analyte: str = found

@@ -99,7 +99,9 @@ SURFACE_UNITS: dict[str, str] = {
     "k_sat": "% of ECEC", "na_sat": "% of ECEC", "acid_sat": "% of ECEC", "al_sat": "% of ECEC",
     "cec_ph7": "cmol(+)/kg", "bph_smp": "pH units", "bph_sikora": "pH units",
     "bph_mehlich": "pH units", "bph_adams_evans": "pH units", "oc": "%", "om": "%", "clay": "%",
-    "phbc": "cmol(+)/kg per pH unit",
+    "phbc": "cmol(+)/kg per pH unit", "ec_1_5": "dS/m", "ece": "dS/m",
+    "salinity_class": "class code: 0 normal, 1 saline, 2 sodic, 3 saline-sodic",
+    "dispersion_class": "class code: 0 flocculated, 1 potentially dispersive, 2 dispersive",
 }
 
 #: Readable names of variables.
@@ -112,6 +114,9 @@ TITLES: dict[str, str] = {
     "cec_ph7": "CEC at pH 7", "bph_smp": "SMP buffer pH", "bph_sikora": "Sikora buffer pH",
     "bph_mehlich": "Mehlich buffer pH", "bph_adams_evans": "Adams-Evans buffer pH",
     "oc": "Organic carbon", "om": "Organic matter", "clay": "Clay", "phbc": "pH buffering capacity",
+    "ec_1_5": "EC 1:5", "ece": "ECe (saturation extract EC)",
+    "salinity_class": "Salinity class (USDA Handbook 60)",
+    "dispersion_class": "Dispersion risk class",
 }
 
 
@@ -163,7 +168,8 @@ def write_outputs(
                 f"{TITLES.get(variable, variable)}: kriging standard deviation", unit)
     for name, pr in farm.paddocks.items():
         folder = out_dir / "surfaces" / prep.paddock_files[name]
-        for q in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat"):
+        for q in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ece",
+                  "salinity_class", "dispersion_class"):
             if q in pr.cells and (name, q) not in farm.surfaces:
                 cog(folder / f"{q}.tif", pr.cells[q], pr.grid.transform,
                     f"{TITLES[q]} (derived from the interpolated amounts)", SURFACE_UNITS[q])
@@ -558,6 +564,7 @@ MAP_SURFACES: tuple[tuple[str, str], ...] = (
     ("bph_smp", "amount"), ("bph_sikora", "amount"), ("bph_mehlich", "amount"),
     ("bph_adams_evans", "amount"),
     ("oc", "amount"), ("om", "amount"), ("clay", "amount"), ("phbc", "amount"),
+    ("ece", "ec"), ("ec_1_5", "ec"),
     ("cec_ph7", "amount"),
 )
 

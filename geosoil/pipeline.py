@@ -53,6 +53,8 @@ from .products import Product, resolve_products
 from .project import Project
 from .rates import RateResult, check_inputs, compute_rates
 from .recording import record_warnings
+from .salinity import derive_cells as salinity_cells
+from .salinity import derive_samples as derive_salinity
 from .samples import SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
@@ -199,6 +201,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
             samples, s.chemistry, file=read.file, headers=read.columns,
             ph_method=read.methods.get("ph"), on_bad_row=s.samples.on_bad_row,
         )
+        samples = derive_salinity(samples, s.salinity)
         _warn_single_samples(samples, paddocks)
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
@@ -492,6 +495,7 @@ def compute(
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
             cells, cell_notes = derive_cells(est)
+            cells.update(salinity_cells(cells, s.salinity))
             bd: float | np.ndarray = s.soil.bulk_density_for(name)
             if s.soil.bulk_density_raster is not None:
                 bd = bulk_density_on_grid(

@@ -31,6 +31,7 @@ from .chemistry import ChemistrySettings
 from .errors import GeosoilError, InputError, SettingsError
 from .products import ProductSettings
 from .rates import RateSettings
+from .salinity import SalinitySettings
 from .samples import SampleSettings
 from .settings import describe, from_mapping, setting, to_mapping
 from .spreader import SpreaderSettings
@@ -222,6 +223,10 @@ class ProjectSettings:
     farm: str = setting("", doc="farm name shown on the map and the report")
     chemistry: ChemistrySettings = setting(
         default_factory=ChemistrySettings, doc="thresholds for sodicity and acidity classes"
+    )
+    salinity: SalinitySettings = setting(
+        default_factory=SalinitySettings,
+        doc="EC 1:5 -> ECe, salinity and dispersion classes, gypsum dissolving water",
     )
     soil: SoilSettings = setting(default_factory=SoilSettings, doc="the treated layer")
     grid: GridSettings = setting(default_factory=GridSettings, doc="the computation grid")

@@ -64,11 +64,14 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import warnings
 
 import numpy as np
+import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from .errors import SettingsError
+from .errors import DataWarning, SettingsError
+from .settings import setting
 
 __all__ = [
     "EC_UNITS",
@@ -81,6 +84,11 @@ __all__ = [
     "PRETREATMENT_EC15_DS_M",
     "CA_MG_LOW",
     "DispersionLimits",
+    "SalinitySettings",
+    "SAMPLE_COLUMNS",
+    "derive_samples",
+    "derive_cells",
+    "CELL_LAYERS",
     "to_ds_m",
     "ece_factor",
     "ece_factor_error",
@@ -466,3 +474,210 @@ def needs_pretreatment(
     """
     ec = _arr(ec15_ds_m)
     return np.isfinite(ec) & (ec > threshold_ds_m)
+
+
+@dataclasses.dataclass(frozen=True)
+class SalinitySettings:
+    """How EC is turned into ECe and the limits of the salinity and dispersion classes."""
+
+    texture: str | None = setting(
+        None,
+        doc="texture class for EC 1:5 -> ECe (Slavich & Petterson 1993 multipliers, from "
+        "memory): " + ", ".join(TEXTURE_MULTIPLIERS) + "; unset: ECe only where measured",
+        choices=tuple(TEXTURE_MULTIPLIERS),
+    )
+    theta_sp: float | None = setting(
+        None,
+        doc="saturation water content for EC 1:5 -> ECe, f = 2.46 + 3.03 / theta_sp "
+        "(Slavich & Petterson 1993); used instead of texture when set",
+        unit="kg/kg",
+        minimum=0.1,
+        maximum=1.5,
+    )
+    saline_ece_ds_m: float = setting(
+        SALINE_ECE_DS_M, doc="ECe at or above which a soil is saline (USDA Handbook 60)",
+        unit="dS/m", minimum=0.0,
+    )
+    sodic_esp_percent: float = setting(
+        SODIC_ESP_PERCENT, doc="ESP at or above which a soil is sodic in the salinity classes "
+        "(USDA Handbook 60)", unit="%", minimum=0.0, maximum=100.0,
+    )
+    pretreatment_ec_1_5_ds_m: float = setting(
+        PRETREATMENT_EC15_DS_M, doc="EC 1:5 above which the lab should have washed out soluble "
+        "salts before measuring exchangeable Na (from memory)", unit="dS/m", minimum=0.0,
+    )
+    ca_mg_low: float = setting(
+        CA_MG_LOW, doc="exchangeable Ca:Mg below which Mg is flagged high (common practice)",
+        minimum=0.0,
+    )
+    gypsum_solubility_g_l: float = setting(
+        GYPSUM_SOLUBILITY_G_L, doc="solubility of gypsum (CaSO4.2H2O) at 25 degrees C "
+        "(common practice)", unit="g/L", minimum=0.1, maximum=10.0,
+    )
+
+    def ece_factor(self) -> float | None:
+        """The EC 1:5 -> ECe factor these settings give, or None when neither is set."""
+        if self.theta_sp is not None:
+            return float(ece_factor(theta_sp=self.theta_sp))
+        if self.texture is not None:
+            return float(ece_factor(texture=self.texture))
+        return None
+
+    def ece_basis_text(self) -> str:
+        """How ECe is estimated from EC 1:5, in words."""
+        if self.theta_sp is not None:
+            f = float(ece_factor(theta_sp=self.theta_sp))
+            return (f"ECe = {f:.2f} x EC 1:5 (Slavich & Petterson 1993, saturation water "
+                    f"content {self.theta_sp:g} kg/kg)")
+        if self.texture is not None:
+            f = float(ece_factor(texture=self.texture))
+            return (f"ECe = {f:g} x EC 1:5 (Slavich & Petterson 1993 multiplier for "
+                    f"{self.texture}, from memory)")
+        return "no EC 1:5 -> ECe conversion (set [salinity] texture or theta_sp)"
+
+
+#: Columns :func:`derive_samples` adds to the samples table (where it can).
+SAMPLE_COLUMNS: tuple[str, ...] = (
+    "ece", "ece_estimated", "salinity_class", "dispersion_class", "ca_mg", "high_mg",
+    "pretreatment_needed",
+)
+
+
+def _col(table: pd.DataFrame, name: str) -> NDArray[np.float64]:
+    if name not in table.columns:
+        return np.full(len(table), np.nan)
+    return pd.to_numeric(table[name], errors="coerce").to_numpy(dtype=float)
+
+
+def _names(codes: NDArray[np.int8], names: tuple[str, ...]) -> list[str | None]:
+    return [names[c] if c >= 0 else None for c in codes.tolist()]
+
+
+def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None) -> pd.DataFrame:
+    """The samples table with ECe, salinity and dispersion classes and the Mg and salt flags.
+
+    Reads ``ec_1_5`` and ``ece`` (dS/m), ``esp`` (%), ``ca`` and ``mg``
+    (cmol(+)/kg). A measured ECe is kept; otherwise ECe is estimated from EC 1:5
+    when ``settings`` give a texture or theta_SP (``ece_estimated`` True), and
+    a :class:`~geosoil.errors.DataWarning` says so when they do not. Samples
+    above the pretreatment threshold are named in a warning: their exchangeable
+    Na (and ESP) may include soluble Na.
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"sample_id": ["A"], "ec_1_5": [0.8], "esp": [20.0],
+    ...                   "ca": [3.0], "mg": [2.0]})
+    >>> with warnings.catch_warnings(record=True):  # ECe estimated; EC above 0.3 dS/m
+    ...     out = derive_samples(t, SalinitySettings(texture="loam"))
+    >>> round(float(out.ece[0]), 3), out.salinity_class[0], out.dispersion_class[0]
+    (7.6, 'saline-sodic', 'potentially dispersive')
+    >>> float(out.ca_mg[0]), bool(out.high_mg[0]), bool(out.pretreatment_needed[0])
+    (1.5, True, True)
+    """
+    s = settings or SalinitySettings()
+    out = table.copy()
+    ec15 = _col(out, "ec_1_5")
+    ece = _col(out, "ece")
+    esp = _col(out, "esp")
+    ids = out["sample_id"].astype(str).tolist() if "sample_id" in out.columns else [
+        str(i) for i in range(len(out))]
+    has_ec15 = bool(np.isfinite(ec15).any())
+    has_ece = bool(np.isfinite(ece).any())
+    factor = s.ece_factor()
+    estimated = np.zeros(len(out), dtype=bool)
+    if has_ec15:
+        gap = ~np.isfinite(ece) & np.isfinite(ec15)
+        if factor is not None:
+            ece = np.where(gap, ec15 * factor, ece)
+            estimated = gap
+        elif gap.any():
+            warnings.warn(
+                f"{int(gap.sum())} samples have EC 1:5 but no ECe: no salinity class for them "
+                "(ECe from EC 1:5 needs the soil's texture: set [salinity] texture = '"
+                + "' | '".join(TEXTURE_MULTIPLIERS) + "', or theta_sp)",
+                DataWarning, stacklevel=2,
+            )
+        if factor is not None and estimated.any():
+            warnings.warn(
+                f"ECe of {int(estimated.sum())} samples is estimated, not measured: "
+                + s.ece_basis_text() + "; the factor is uncertain (see docs/SOURCES.md)",
+                DataWarning, stacklevel=2,
+            )
+        high = needs_pretreatment(ec15, threshold_ds_m=s.pretreatment_ec_1_5_ds_m)
+        out["pretreatment_needed"] = high
+        if high.any():
+            named = ", ".join(ids[i] for i in np.flatnonzero(high)[:10])
+            more = "" if high.sum() <= 10 else f" and {int(high.sum()) - 10} more"
+            warnings.warn(
+                f"EC 1:5 above {s.pretreatment_ec_1_5_ds_m:g} dS/m at samples {named}{more}: "
+                "ask whether the lab washed out soluble salts before measuring exchangeable "
+                "cations; if not, their exchangeable Na and ESP are overstated (geosoil cannot "
+                "correct them)",
+                DataWarning, stacklevel=2,
+            )
+    if has_ec15 or has_ece:
+        out["ece"] = ece
+        out["ece_estimated"] = estimated
+        codes = salinity_classes(ece, esp, saline_ece=s.saline_ece_ds_m,
+                                 sodic_esp=s.sodic_esp_percent)
+        out["salinity_class"] = _names(codes, SALINITY_CLASSES)
+        ec15_all = ec15.copy()
+        if factor is not None:
+            back = ~np.isfinite(ec15_all) & np.isfinite(ece)
+            ec15_all[back] = ece[back] / factor
+        out["dispersion_class"] = _names(dispersion_classes(esp, ec15_all), DISPERSION_CLASSES)
+    if "ca" in out.columns and "mg" in out.columns:
+        ca, mg = _col(out, "ca"), _col(out, "mg")
+        out["ca_mg"] = ca_mg_ratio(ca, mg)
+        out["high_mg"] = high_mg(ca, mg, ca_mg_low=s.ca_mg_low)
+    return out
+
+
+#: Cell layers :func:`derive_cells` adds (class layers hold the class code, NaN unknown).
+CELL_LAYERS: tuple[str, ...] = ("ece", "salinity_class", "dispersion_class")
+
+
+def derive_cells(
+    cells: dict[str, NDArray[np.float64]], settings: SalinitySettings | None = None
+) -> dict[str, NDArray[np.float64]]:
+    """ECe, salinity class and dispersion class of each cell of a paddock.
+
+    ``cells`` are a paddock's derived cells (:func:`geosoil.surfaces.derive_cells`,
+    whose ``esp`` is each cell's Na over that cell's ECEC): ECe is the kriged
+    ECe where the lab measured it, else the kriged EC 1:5 times the factor of
+    ``settings`` (the factor is one number for the farm, so scaling the kriged
+    EC 1:5 is the same as kriging the scaled values). Class layers hold the code
+    (index into :data:`SALINITY_CLASSES` / :data:`DISPERSION_CLASSES`) as a
+    float, NaN where a value is missing. Layers that cannot be made are left out.
+
+    Examples
+    --------
+    >>> out = derive_cells({"ec_1_5": np.array([0.5, 0.1]), "esp": np.array([20.0, 3.0])},
+    ...                    SalinitySettings(texture="loam"))
+    >>> out["ece"].round(3).tolist(), out["salinity_class"].tolist()
+    ([4.75, 0.95], [3.0, 0.0])
+    >>> out["dispersion_class"].tolist()  # low EC: even ESP 3 may disperse when worked
+    [1.0, 1.0]
+    """
+    s = settings or SalinitySettings()
+    factor = s.ece_factor()
+    out: dict[str, NDArray[np.float64]] = {}
+    ec15 = cells.get("ec_1_5")
+    ece = cells.get("ece")
+    if ece is None and ec15 is not None and factor is not None:
+        ece = ec15 * factor
+    if ec15 is None and ece is not None and factor is not None:
+        ec15 = ece / factor
+    esp = cells.get("esp")
+    if ece is not None:
+        out["ece"] = np.asarray(ece, dtype=float)
+        if esp is not None:
+            code = salinity_classes(ece, esp, saline_ece=s.saline_ece_ds_m,
+                                    sodic_esp=s.sodic_esp_percent).astype(float)
+            code[code < 0] = np.nan
+            out["salinity_class"] = code
+    if ec15 is not None and esp is not None:
+        code = dispersion_classes(esp, ec15).astype(float)
+        code[code < 0] = np.nan
+        out["dispersion_class"] = code
+    return out

@@ -69,6 +69,7 @@ from .chemistry import DERIVED
 from .columns import BUFFER_PH, CANONICAL, PROPERTIES, UNITLESS, detect_columns, parse_header
 from .crs import describe_crs, parse_crs
 from .errors import CRSError, DataWarning, InputError, SettingsError
+from .salinity import to_ds_m
 from .settings import setting
 from .units import (
     DEFAULT_SCOOP_DENSITY_G_CM3,
@@ -115,7 +116,7 @@ PLAUSIBLE_BUFFER_PH: tuple[float, float] = (3.5, 8.5)
 #: Largest plausible organic carbon, organic matter and clay (%), and pHBC (cmol(+)/kg/pH)
 #: (common practice; generous, to catch a wrong unit such as g/kg read as %).
 PLAUSIBLE_MAX_PROPERTY: dict[str, float] = {"oc": 60.0, "om": 100.0, "clay": 100.0,
-                                           "phbc": 30.0}
+                                           "phbc": 30.0, "ec_1_5": 30.0, "ece": 300.0}
 #: Plausible soil pH range (common practice; acid sulfate soils reach below 3).
 PLAUSIBLE_PH: tuple[float, float] = (1.5, 12.5)
 #: Largest plausible SAR (common practice).
@@ -160,7 +161,8 @@ class SampleSettings:
     units: dict[str, str] = setting(
         default_factory=dict,
         doc="analyte -> unit, overriding the header (" + ", ".join(LAB_UNITS) + "; oc, om "
-        "and clay: %, g/kg; phbc: cmol/kg/pH, mmol/kg/pH)",
+        "and clay: %, g/kg; phbc: cmol/kg/pH, mmol/kg/pH; ec_1_5 and ece: dS/m, mS/cm, uS/cm, "
+        "mS/m)",
     )
     scoop_density_g_cm3: float = setting(
         DEFAULT_SCOOP_DENSITY_G_CM3,
@@ -853,8 +855,11 @@ def _analyte_values(
     numbers[negative] = np.nan
     if analyte in PROPERTIES:
         assert unit is not None
-        # g/kg -> %, mmol/kg/pH -> cmol/kg/pH: both divide by 10
-        values_c = numbers / 10.0 if unit != PROPERTIES[analyte][0] else numbers
+        if analyte in ("ec_1_5", "ece"):
+            values_c = to_ds_m(numbers, unit)
+        else:
+            # g/kg -> %, mmol/kg/pH -> cmol/kg/pH: both divide by 10
+            values_c = numbers / 10.0 if unit != PROPERTIES[analyte][0] else numbers
         top = PLAUSIBLE_MAX_PROPERTY[analyte]
         for i in np.flatnonzero(values_c > top):
             issues.append(_Issue(

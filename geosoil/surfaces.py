@@ -89,7 +89,7 @@ logger = logging.getLogger(__name__)
 INTERPOLATED: tuple[str, ...] = (
     "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "esp",
     "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
-    "phbc",
+    "phbc", "ec_1_5", "ece",
 )
 
 _MODELS = ("spherical", "exponential", "gaussian", "matern")

@@ -149,3 +149,68 @@ def test_gypsum_water_per_t_ha() -> None:
 def test_pretreatment_threshold() -> None:
     # 0.3 dS/m EC 1:5 (from memory); at the threshold no warning, above it one
     assert sal.needs_pretreatment([0.06, 0.3, 0.31, np.nan]).tolist() == [False, False, True, False]
+
+
+# --- reading EC and the samples table ------------------------------------------------------
+
+def test_ec_headers_and_units_are_read() -> None:
+    from geosoil.columns import parse_header
+
+    assert (parse_header("EC 1:5 (dS/m)").role, parse_header("EC 1:5 (dS/m)").unit) == (
+        "ec_1_5", "dS/m")
+    assert (parse_header("EC1:5 (uS/cm)").role, parse_header("EC1:5 (uS/cm)").unit) == (
+        "ec_1_5", "uS/cm")
+    assert parse_header("ECe (mS/cm)").role == "ece"
+    # an EC that names no extract is left alone, with a note saying how to map it
+    bare = parse_header("EC (dS/m)")
+    assert bare.role is None and "ec_1_5" in (bare.note or "")
+
+
+def test_samples_in_us_cm_are_carried_in_ds_m(tmp_path) -> None:
+    from geosoil.samples import SampleSettings, read_samples
+
+    p = tmp_path / "lab.csv"
+    p.write_text("Sample,Lon,Lat,Ca,Mg,K,Na,EC1:5 (uS/cm),ECe (mS/cm)\n"
+                 "S1,147.001,-35.001,5,2,0.5,0.3,450,3.9\n"
+                 "S2,147.002,-35.002,5,2,0.5,0.3,60,\n")
+    got = read_samples(SampleSettings(file=p, empty_allowed=("ece",)))
+    assert got.samples.ec_1_5.tolist() == pytest.approx([0.45, 0.06])
+    assert got.samples.ece.tolist()[0] == pytest.approx(3.9)
+
+
+def test_derive_samples_measured_ece_kept_estimated_marked() -> None:
+    import pandas as pd
+
+    table = pd.DataFrame({"sample_id": ["A", "B", "C"], "ec_1_5": [0.5, 0.05, 0.35],
+                          "ece": [6.0, np.nan, np.nan], "esp": [10.0, 20.0, 5.0],
+                          "ca": [6.0, 3.0, 5.0], "mg": [2.0, 2.0, 1.0]})
+    with pytest.warns(Warning) as rec:
+        out = sal.derive_samples(table, sal.SalinitySettings(texture="medium clay"))
+    # A: measured ECe 6 (saline); B: 0.05 x 7.5 = 0.375 with ESP 20 (sodic);
+    # C: 0.35 x 7.5 = 2.625 (normal) and above the 0.3 dS/m pretreatment threshold
+    assert out.ece.tolist() == pytest.approx([6.0, 0.375, 2.625])
+    assert out.ece_estimated.tolist() == [False, True, True]
+    assert out.salinity_class.tolist() == ["saline", "sodic", "normal"]
+    assert out.pretreatment_needed.tolist() == [True, False, True]
+    assert out.high_mg.tolist() == [False, True, False]
+    texts = " ".join(str(w.message) for w in rec)
+    assert "samples A, C" in texts and "washed out soluble salts" in texts
+    assert "estimated, not measured" in texts
+
+
+def test_derive_samples_without_texture_says_so() -> None:
+    import pandas as pd
+
+    table = pd.DataFrame({"sample_id": ["A"], "ec_1_5": [0.1], "esp": [10.0]})
+    with pytest.warns(Warning, match=r"\[salinity\] texture"):
+        out = sal.derive_samples(table, sal.SalinitySettings())
+    assert out.salinity_class.tolist() == [None]
+
+
+def test_cell_classes_from_kriged_ec_and_cell_esp() -> None:
+    cells = {"ec_1_5": np.array([0.6, 0.6, np.nan]), "esp": np.array([10.0, 16.0, 20.0])}
+    out = sal.derive_cells(cells, sal.SalinitySettings(theta_sp=0.60))
+    # f = 7.51 at theta_SP 0.60: ECe 4.5 -> saline, saline-sodic; no EC -> unknown
+    assert out["ece"][:2] == pytest.approx([0.6 * (2.46 + 3.03 / 0.6)] * 2)
+    assert out["salinity_class"][:2].tolist() == [1.0, 3.0]
+    assert np.isnan(out["salinity_class"][2])
