@@ -58,7 +58,15 @@ from .isoxml import (
 from .names import slug
 from .pipeline import FarmResult
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
+from .products import MATERIALS
 from .record import input_checksums, now_utc, versions
+from .salinity import (
+    DISPERSION_CLASSES,
+    SALINITY_CLASSES,
+    SAMPLE_COLUMNS,
+    DispersionLimits,
+    gypsum_water_mm,
+)
 from .settings import to_mapping
 from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
 from .units import rate_from_kg_ha
@@ -467,6 +475,84 @@ def _surface_record(surf: Any) -> dict[str, Any]:
     return rec
 
 
+def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
+    """Per zone of a gypsum product: the water (mm) that only dissolves its rate.
+
+    The product's share of CaSO4.2H2O is its Ca over pure gypsum's Ca; the
+    solubility is ``[salinity] gypsum_solubility_g_l`` (see
+    :func:`geosoil.salinity.gypsum_water_mm`).
+    """
+    prep = farm.prep
+    sal = prep.project.settings.salinity
+    pure_ca = MATERIALS["gypsum"].fraction("Ca")
+    out: list[dict[str, Any]] = []
+    zones = farm.zones
+    if zones.empty or "rate_kg_ha" not in zones.columns:
+        return out
+    for _, z in zones.iterrows():
+        product = prep.products.get(str(z.get("product")))
+        if product is None or product.material != "gypsum":
+            continue
+        rate = float(z["rate_kg_ha"]) if np.isfinite(z["rate_kg_ha"]) else 0.0
+        if rate <= 0:
+            continue
+        fraction = min(1.0, product.ca_fraction / pure_ca) if product.ca_fraction > 0 else 1.0
+        mm = float(gypsum_water_mm(rate / 1000.0, gypsum_fraction=fraction,
+                                   solubility_g_l=sal.gypsum_solubility_g_l))
+        out.append({"paddock": str(z["paddock"]), "zone": str(z.get("zone", "")),
+                    "product": str(z["product"]), "rate_kg_ha": rate,
+                    "gypsum_fraction": fraction, "water_mm": mm})
+    return out
+
+
+#: What the gypsum water figure means, for run.json and the report.
+GYPSUM_WATER_NOTE = (
+    "water that only dissolves the gypsum (about 2.5 g/L at 25 degrees C, common practice; "
+    "about 40 mm per t/ha of pure gypsum): leaching the displaced sodium below the root zone "
+    "needs more, and only where the soil drains; where it does not, drainage comes first"
+)
+
+
+def gypsum_water_cautions(farm: FarmResult) -> list[str]:
+    """One caution line per paddock with gypsum: the range of dissolving water over its zones."""
+    rows = gypsum_water(farm)
+    lines = []
+    for paddock in dict.fromkeys(r["paddock"] for r in rows):
+        mm = [r["water_mm"] for r in rows if r["paddock"] == paddock]
+        span = f"{min(mm):.0f} mm" if round(min(mm)) == round(max(mm)) else (
+            f"{min(mm):.0f}-{max(mm):.0f} mm by zone")
+        lines.append(f"Gypsum on {paddock}: about {span} of rain or irrigation is "
+                     f"{GYPSUM_WATER_NOTE}.")
+    return lines
+
+
+def salinity_record(farm: FarmResult) -> dict[str, Any]:
+    """run.json's salinity block: the ECe basis, class areas per paddock, gypsum water."""
+    prep = farm.prep
+    sal = prep.project.settings.salinity
+    areas = []
+    for name, g in prep.grids.items():
+        cells = farm.paddocks[name].cells if name in farm.paddocks else {}
+        row: dict[str, Any] = {"paddock": name}
+        for layer, names in (("salinity_class", SALINITY_CLASSES),
+                             ("dispersion_class", DISPERSION_CLASSES)):
+            arr = cells.get(layer)
+            if arr is None:
+                continue
+            row[layer + "_ha"] = {n: float(np.count_nonzero(arr == i) * g.cell_area_ha)
+                                  for i, n in enumerate(names)}
+        areas.append(row)
+    return {
+        "ece_from_ec_1_5": sal.ece_basis_text(),
+        "classes": "USDA Handbook 60: saline at ECe >= "
+        f"{sal.saline_ece_ds_m:g} dS/m, sodic at ESP >= {sal.sodic_esp_percent:g} %",
+        "dispersion_limits": dataclasses.asdict(DispersionLimits()),
+        "paddocks": areas,
+        "gypsum_water": gypsum_water(farm),
+        "gypsum_water_note": GYPSUM_WATER_NOTE,
+    }
+
+
 def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
     """The machine-readable record of a run (``run.json``).
 
@@ -538,7 +624,8 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "first_season_tonnes": (
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
-        "cautions": list(report_mod.CAUTIONS),
+        "salinity": salinity_record(farm),
+        "cautions": list(report_mod.CAUTIONS) + gypsum_water_cautions(farm),
     }
 
 
@@ -797,6 +884,8 @@ def sample_fields(farm: FarmResult) -> list[Any]:
     cmol = "cmol(+)/kg"
     fields = [webmap.SampleField("paddock", "Paddock")]
     fields.append(webmap.SampleField("ph", ph_label(farm), "", 1))
+    fields.append(webmap.SampleField("ec_1_5", "EC 1:5", "dS/m", 2))
+    fields.append(webmap.SampleField("ece", "ECe", "dS/m", 1))
     known = {"sample_id", "source_row", "paddock", "geometry", *read.columns}
     lab_other = [c for c in farm.prep.samples.columns
                  if c not in known and c not in _DERIVED_COLUMNS and c in cols]
@@ -816,6 +905,11 @@ def sample_fields(farm: FarmResult) -> list[Any]:
         webmap.SampleField("sodicity", "", flag=True, ok_values=("non-sodic",)),
         webmap.SampleField("acid_reason", "acid", flag=True),
         webmap.SampleField("esp_estimated", "ESP estimated from SAR", flag=True),
+        webmap.SampleField("salinity_class", "", flag=True, ok_values=("normal",)),
+        webmap.SampleField("dispersion_class", "", flag=True, ok_values=("flocculated",)),
+        webmap.SampleField("high_mg", "Mg high (Ca:Mg low)", flag=True),
+        webmap.SampleField("pretreatment_needed", "EC high: was Na measured after washing out "
+                           "soluble salts?", flag=True),
     ]
     fields += [webmap.SampleField(c, c.replace("_", " "), flag=True)
                for c in farm.prep.samples.columns
@@ -826,6 +920,7 @@ def sample_fields(farm: FarmResult) -> list[Any]:
 _DERIVED_COLUMNS = {
     "ecec", "ecec_basis", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "esp_estimated",
     "acid_sat", "al_sat", "base_sat", "ca_mg_ratio", "sodicity", "acid_flag", "acid_reason",
+    *SAMPLE_COLUMNS,
 }
 
 
@@ -1045,6 +1140,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         assumptions=assumptions,
         methods=tuple(methods.items()),
         warnings=tuple(farm.warnings),
+        cautions=(*report_mod.CAUTIONS, *gypsum_water_cautions(farm)),
         notes=tuple(
             f"{name}: {n}" for name, pr in farm.paddocks.items()
             for n in (*pr.cell_notes, *pr.rates.notes, *pr.zone_notes)

@@ -538,7 +538,7 @@ class SalinitySettings:
 
 #: Columns :func:`derive_samples` adds to the samples table (where it can).
 SAMPLE_COLUMNS: tuple[str, ...] = (
-    "ece", "ece_estimated", "salinity_class", "dispersion_class", "ca_mg", "high_mg",
+    "ece", "ece_estimated", "salinity_class", "dispersion_class", "high_mg",
     "pretreatment_needed",
 )
 
@@ -571,8 +571,8 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
     ...     out = derive_samples(t, SalinitySettings(texture="loam"))
     >>> round(float(out.ece[0]), 3), out.salinity_class[0], out.dispersion_class[0]
     (7.6, 'saline-sodic', 'potentially dispersive')
-    >>> float(out.ca_mg[0]), bool(out.high_mg[0]), bool(out.pretreatment_needed[0])
-    (1.5, True, True)
+    >>> bool(out.high_mg[0]), bool(out.pretreatment_needed[0])
+    (True, True)
     """
     s = settings or SalinitySettings()
     out = table.copy()
@@ -626,10 +626,12 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
             back = ~np.isfinite(ec15_all) & np.isfinite(ece)
             ec15_all[back] = ece[back] / factor
         out["dispersion_class"] = _names(dispersion_classes(esp, ec15_all), DISPERSION_CLASSES)
-    if "ca" in out.columns and "mg" in out.columns:
-        ca, mg = _col(out, "ca"), _col(out, "mg")
-        out["ca_mg"] = ca_mg_ratio(ca, mg)
-        out["high_mg"] = high_mg(ca, mg, ca_mg_low=s.ca_mg_low)
+    # the ratio chemistry.derive made where it ran (one quantity, one function)
+    if "ca_mg_ratio" in out.columns:
+        ratio = _col(out, "ca_mg_ratio")
+        out["high_mg"] = np.isfinite(ratio) & (ratio < s.ca_mg_low)
+    elif "ca" in out.columns and "mg" in out.columns:
+        out["high_mg"] = high_mg(_col(out, "ca"), _col(out, "mg"), ca_mg_low=s.ca_mg_low)
     return out
 
 

@@ -245,7 +245,9 @@ def variables_to_interpolate(samples: gpd.GeoDataFrame) -> list[str]:
     """The variables the samples can give surfaces for, in :data:`INTERPOLATED` order.
 
     ``esp`` is interpolated directly only when there is no exchangeable Na (ESP
-    estimated from SAR); ``cec`` only when the parts of an ECEC are incomplete.
+    estimated from SAR); ``cec`` only when the parts of an ECEC are incomplete;
+    ``ece`` only when some sample's ECe was measured (an ECe estimated from EC
+    1:5 everywhere is the EC 1:5 surface times one factor, made per cell).
 
     Parameters
     ----------
@@ -267,6 +269,9 @@ def variables_to_interpolate(samples: gpd.GeoDataFrame) -> list[str]:
         have.remove("esp")
     if parts <= set(have) and "cec" in have:
         have.remove("cec")
+    if "ece" in have and "ec_1_5" in have and "ece_estimated" in samples.columns and bool(
+            samples["ece_estimated"].astype(bool).all()):
+        have.remove("ece")  # every ECe is EC 1:5 x one factor: the cells scale the EC 1:5
     return have
 
 

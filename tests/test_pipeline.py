@@ -124,6 +124,12 @@ def bounds_for(path: Path) -> tuple[float, float] | None:
         return (0.0, 100.0)  # [derived] percent of the ECEC
     if stem in {"ca", "mg", "k", "na", "acidity", "al", "cec", "ecec"}:
         return (0.0, np.inf)  # [derived] amounts
+    if stem in {"ec_1_5", "ece"}:
+        return (0.0, np.inf)  # [derived] a conductivity is not negative
+    if stem == "salinity_class":
+        return (0.0, 3.0)  # codes of geosoil.salinity.SALINITY_CLASSES
+    if stem == "dispersion_class":
+        return (0.0, 2.0)  # codes of geosoil.salinity.DISPERSION_CLASSES
     if path.parent.parent.name in ("rates", "prescriptions"):
         return (0.0, np.inf)  # kg/ha of product
     return None

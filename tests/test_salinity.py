@@ -214,3 +214,36 @@ def test_cell_classes_from_kriged_ec_and_cell_esp() -> None:
     assert out["ece"][:2] == pytest.approx([0.6 * (2.46 + 3.03 / 0.6)] * 2)
     assert out["salinity_class"][:2].tolist() == [1.0, 3.0]
     assert np.isnan(out["salinity_class"][2])
+
+
+# --- a whole run of the demo farm (the session's demo_run) ---------------------------------
+
+def test_demo_run_samples_surfaces_and_record(demo_run) -> None:
+    import pandas as pd
+
+    samples = pd.read_csv(demo_run.out / "samples.csv")
+    for column in ("ec_1_5", "ece", "salinity_class", "dispersion_class", "high_mg"):
+        assert column in samples.columns
+    # the demo states clay loam: ECe = 8.6 x EC 1:5 (multiplier from memory)
+    est = samples["ece_estimated"].astype(bool)
+    np.testing.assert_allclose(samples.loc[est, "ece"], 8.6 * samples.loc[est, "ec_1_5"])
+    # each sample's class follows Handbook 60 from its own ECe and ESP
+    want = [sal.salinity_class(e, p) for e, p in zip(samples.ece, samples.esp, strict=True)]
+    assert samples.salinity_class.where(samples.salinity_class.notna(), None).tolist() == want
+    rec = demo_run.record["salinity"]
+    assert "8.6" in rec["ece_from_ec_1_5"]
+    farm = demo_run.result.farm
+    for row in rec["paddocks"]:
+        cells = farm.paddocks[row["paddock"]].cells
+        grid = farm.prep.grids[row["paddock"]]
+        codes = sal.salinity_classes(cells["ece"], cells["esp"])
+        for i, name in enumerate(sal.SALINITY_CLASSES):
+            assert row["salinity_class_ha"][name] == pytest.approx(
+                np.count_nonzero(codes == i) * grid.cell_area_ha)
+    for w in rec["gypsum_water"]:
+        # [derived] mm = t/ha x 100 x gypsum share / 2.5 g/L
+        assert w["water_mm"] == pytest.approx(
+            w["rate_kg_ha"] / 1000 * 100 * w["gypsum_fraction"] / 2.5)
+    report = (demo_run.out / "report.html").read_text(encoding="utf-8")
+    if rec["gypsum_water"]:
+        assert "of rain or irrigation is water that only dissolves the gypsum" in report
