@@ -39,6 +39,7 @@ import logging
 import os
 import warnings
 from collections.abc import Mapping
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -51,6 +52,11 @@ __all__ = [
     "ChemistrySettings",
     "DERIVED",
     "ecec_from_parts",
+    "exchange_chemistry",
+    "ACIDITY_BASES",
+    "ECEC_BASES",
+    "ph_for_rules",
+    "rule_ph",
     "saturation",
     "esp_from_sar",
     "sodicity_class",
@@ -61,6 +67,7 @@ logger = logging.getLogger(__name__)
 
 #: Columns :func:`derive` adds (plus ``acid_reason``, why ``acid_flag`` is set).
 DERIVED: tuple[str, ...] = (
+    "acidity_basis",
     "ecec",
     "ecec_basis",
     "ca_sat",
@@ -128,9 +135,16 @@ class ChemistrySettings:
     )
     neutral_ph: float = setting(
         7.0,
-        doc="pH at or above which unmeasured exchangeable acidity counts as 0 in the ECEC "
-        "(common practice; compared with whichever pH the lab gave)",
+        doc="pH in water at or above which unmeasured exchangeable acidity counts as 0 in the "
+        "ECEC (common practice)",
         minimum=5.0,
+        maximum=9.0,
+    )
+    neutral_ph_cacl2: float = setting(
+        6.4,
+        doc="the same when the lab gave pH in CaCl2 only (common practice: pH in CaCl2 reads "
+        "about 0.5-0.8 below pH in water)",
+        minimum=4.5,
         maximum=9.0,
     )
 
@@ -144,6 +158,77 @@ class ChemistrySettings:
             raise SettingsError(
                 f"must be below neutral_ph ({self.neutral_ph:g})", key="acid_ph"
             )
+        if self.acid_ph_cacl2 >= self.neutral_ph_cacl2:
+            raise SettingsError(
+                f"must be below neutral_ph_cacl2 ({self.neutral_ph_cacl2:g})",
+                key="acid_ph_cacl2",
+            )
+
+
+def ph_for_rules(
+    ph_water: ArrayLike | None, ph_cacl2: ArrayLike | None
+) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """The pH a threshold is compared with, and where it is the CaCl2 reading.
+
+    pH in water where the lab gave it, else pH in CaCl2: every pH threshold has
+    a water and a CaCl2 value, and the one of the pH used applies (no
+    conversion between the two). pH in KCl is never used.
+
+    Parameters
+    ----------
+    ph_water, ph_cacl2 : array_like or None
+        pH in water and in CaCl2 (None: not measured).
+
+    Returns
+    -------
+    ph, cacl2
+        The pH used (NaN where neither was given) and a mask that is True where
+        it is the CaCl2 reading.
+
+    Examples
+    --------
+    >>> ph, cacl2 = ph_for_rules([6.1, float("nan")], [5.5, 4.7])
+    >>> ph.tolist(), cacl2.tolist()
+    ([6.1, 4.7], [False, True])
+    """
+    if ph_water is None and ph_cacl2 is None:
+        return np.asarray(np.nan), np.asarray(False)
+    w = np.asarray(np.nan if ph_water is None else ph_water, dtype=float)
+    c = np.asarray(np.nan if ph_cacl2 is None else ph_cacl2, dtype=float)
+    w, c = np.broadcast_arrays(w, c)
+    use_c = ~np.isfinite(w) & np.isfinite(c)
+    return np.where(use_c, c, w), use_c
+
+
+def rule_ph(values: Mapping[str, Any]) -> tuple[str | None, Any]:
+    """The pH a set of surfaces (or columns) gives the rate rules, and its method.
+
+    pH in water (``ph``) where given, else pH in CaCl2 (``ph_cacl2``); the rate
+    rules read it as ``ph`` with ``ph_method`` "water" or "CaCl2" and take each
+    threshold's value for that method. pH in KCl gives none.
+
+    Parameters
+    ----------
+    values : mapping
+        Variable -> values (or any container keyed by variable).
+
+    Returns
+    -------
+    method, ph
+        "water", "CaCl2" or None, and the values (None when there are none).
+
+    Examples
+    --------
+    >>> rule_ph({"ph_cacl2": 4.9, "ca": 3.0})
+    ('CaCl2', 4.9)
+    >>> rule_ph({"ph": 5.6, "ph_cacl2": 4.9})
+    ('water', 5.6)
+    """
+    if "ph" in values:
+        return "water", values["ph"]
+    if "ph_cacl2" in values:
+        return "CaCl2", values["ph_cacl2"]
+    return None, None
 
 
 def ecec_from_parts(
@@ -258,20 +343,126 @@ def sodicity_class(
     )
 
 
+#: ``acidity_basis``: how each exchangeable acidity was had (index = code).
+ACIDITY_BASES: tuple[str, ...] = (
+    "measured", "Al + H", "Al (H not measured)", "H (Al not measured)",
+    "0 (neutral pH, not measured)", "none",
+)
+#: ``ecec_basis``: what each ECEC is (index = code).
+ECEC_BASES: tuple[str, ...] = ("sum of cations", "lab CEC", "none")
+
+
+def exchange_chemistry(
+    parts: Mapping[str, ArrayLike | None], settings: ChemistrySettings | None = None
+) -> dict[str, NDArray[Any]]:
+    """ECEC, saturations, ESP and the exchangeable acidity used, from exchangeable amounts.
+
+    The one home of these rules: :func:`derive` (each sample) and
+    :func:`geosoil.surfaces.derive_cells` (each cell of a paddock) both call it,
+    so a cell and a sample with the same amounts get the same chemistry.
+
+    Exchangeable acidity
+        The lab's ``acidity`` where given; else Al + H where the lab gave them
+        apart (Al alone, or H alone, where only one was measured); else 0 where
+        pH is at or above ``neutral_ph`` (``neutral_ph_cacl2`` for pH in CaCl2;
+        common practice: exchangeable acidity is negligible in neutral and
+        alkaline soils); else missing. ``acidity_basis`` says which.
+    ECEC
+        Ca + Mg + K + Na + acidity where all are given and the sum is above 0
+        ("sum of cations"); else the lab's CEC where above 0 ("lab CEC"); else
+        missing ("none").
+    Saturations
+        Each part as percent of the ECEC; missing where the ECEC is (an ECEC of
+        0 is no ECEC). Not clipped: with the lab's CEC as the ECEC the shares
+        need not add up to 100 %.
+    ESP
+        ``na_sat``; where Na is missing, ESP from saturation-extract SAR
+        (:func:`esp_from_sar`), else a given ``esp`` (an interpolated estimate);
+        ``esp_estimated`` marks both.
+
+    Parameters
+    ----------
+    parts
+        Any of ``ca``, ``mg``, ``k``, ``na``, ``acidity``, ``al``, ``h``, ``cec``
+        (cmol(+)/kg), ``ph``, ``ph_cacl2``, ``sar``, ``esp`` (%): arrays of one
+        shape, NaN where not measured; absent or None keys count as not measured.
+    settings
+        ``neutral_ph`` and ``neutral_ph_cacl2``; defaults when None.
+
+    Returns
+    -------
+    dict of str to ndarray
+        ``acidity`` (the acidity used), ``acidity_basis`` (int8 codes: index into
+        :data:`ACIDITY_BASES`), ``ecec``, ``ecec_basis`` (int8 codes: index into
+        :data:`ECEC_BASES`), ``ca_sat``, ``mg_sat``,
+        ``k_sat``, ``na_sat``, ``esp``, ``esp_estimated``, ``acid_sat``,
+        ``al_sat``, ``base_sat`` and ``ca_mg_ratio`` (charge basis; NaN where Mg
+        is 0).
+
+    Examples
+    --------
+    Exchangeable Al and H given apart make the acidity (and the ECEC):
+
+    >>> out = exchange_chemistry({"ca": [2.0], "mg": [1.0], "k": [0.2], "na": [0.3],
+    ...                           "al": [1.0], "h": [0.5]})
+    >>> float(out["acidity"][0]), ACIDITY_BASES[out["acidity_basis"][0]], float(out["ecec"][0])
+    (1.5, 'Al + H', 5.0)
+    >>> float(out["acid_sat"][0]), float(out["esp"][0])
+    (30.0, 6.0)
+    """
+    s = settings or ChemistrySettings()
+    shape = np.broadcast_shapes(*(np.shape(v) for v in parts.values() if v is not None))
+
+    def get(name: str) -> NDArray[np.float64]:
+        v = parts.get(name)
+        if v is None:
+            return np.broadcast_to(np.float64(np.nan), shape)  # no memory per cell
+        return np.broadcast_to(np.asarray(v, dtype=float), shape)
+
+    ca, mg, k, na = get("ca"), get("mg"), get("k"), get("na")
+    acidity, al, h = get("acidity"), get("al"), get("h")
+    ph, cacl2 = ph_for_rules(get("ph"), get("ph_cacl2"))
+    neutral = np.isfinite(ph) & (ph >= np.where(cacl2, s.neutral_ph_cacl2, s.neutral_ph))
+    has_a, has_al, has_h = np.isfinite(acidity), np.isfinite(al), np.isfinite(h)
+    from_parts = np.where(has_al, al, 0.0) + np.where(has_h, h, 0.0)
+    used = np.where(has_a, acidity, np.where(has_al | has_h, from_parts,
+                                              np.where(neutral, 0.0, np.nan)))
+    basis = np.select(
+        [has_a, has_al & has_h, has_al, has_h, neutral], [0, 1, 2, 3, 4], 5,
+    ).astype(np.int8)
+    lab_cec = get("cec")
+    summed = ecec_from_parts(ca, mg, k, na, used)
+    use_sum = np.isfinite(summed) & (summed > 0)
+    use_lab = ~use_sum & np.isfinite(lab_cec) & (lab_cec > 0)
+    ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.nan))
+    out: dict[str, NDArray[Any]] = {
+        "acidity": used,
+        "acidity_basis": basis,
+        "ecec": ecec,
+        "ecec_basis": np.select([use_sum, use_lab], [0, 1], 2).astype(np.int8),
+    }
+    for name, part in (("ca", ca), ("mg", mg), ("k", k), ("na", na)):
+        out[f"{name}_sat"] = saturation(part, ecec)
+    measured = out["na_sat"]
+    estimate = esp_from_sar(get("sar"))
+    given = get("esp")
+    estimate = np.where(np.isfinite(estimate), estimate, given)
+    out["esp"] = np.where(np.isfinite(measured), measured, estimate)
+    out["esp_estimated"] = ~np.isfinite(measured) & np.isfinite(estimate)
+    out["acid_sat"] = saturation(used, ecec)
+    out["al_sat"] = saturation(al, ecec)
+    out["base_sat"] = saturation(ca + mg + k + na, ecec)
+    ratio = np.full(shape, np.nan)
+    with np.errstate(over="ignore"):
+        np.divide(ca, mg, out=ratio, where=np.isfinite(mg) & (mg > 0))
+    out["ca_mg_ratio"] = ratio
+    return out
+
+
 def _column(samples: pd.DataFrame, name: str) -> NDArray[np.float64]:
     if name in samples.columns:
         return pd.to_numeric(samples[name], errors="coerce").to_numpy(dtype=float)
     return np.full(len(samples), np.nan)
-
-
-def _acidity(samples: pd.DataFrame) -> NDArray[np.float64]:
-    """Exchangeable acidity: the ``acidity`` column, else Al + H (whichever were measured)."""
-    acidity = _column(samples, "acidity")
-    al = _column(samples, "al")
-    h = _column(samples, "h")
-    parts = np.where(np.isfinite(al), al, 0.0) + np.where(np.isfinite(h), h, 0.0)
-    from_parts = np.where(np.isfinite(al) | np.isfinite(h), parts, np.nan)
-    return np.where(np.isfinite(acidity), acidity, from_parts)
 
 
 def derive(
@@ -280,7 +471,6 @@ def derive(
     *,
     file: str | os.PathLike[str] | None = None,
     headers: Mapping[str, str] | None = None,
-    ph_method: str | None = None,
     on_bad_row: str = "stop",
 ) -> pd.DataFrame:
     """Add ECEC, saturations, ESP, sodicity and the acidity flag to each sample.
@@ -294,9 +484,6 @@ def derive(
         Thresholds; defaults when None.
     file, headers
         The samples file and analyte -> lab header, to name them in messages.
-    ph_method
-        How the ``ph`` column was measured: "water" (or None) compares it with
-        ``acid_ph``; "CaCl2" with ``acid_ph_cacl2``.
     on_bad_row
         "stop": a sample whose ECEC cannot be formed raises :class:`InputError`.
         "skip": its ECEC and saturations are left empty (``ecec_basis`` "none")
@@ -305,14 +492,19 @@ def derive(
     Returns
     -------
     DataFrame
-        A copy of ``samples`` with the columns in :data:`DERIVED`:
-        ``ecec`` (cmol(+)/kg), ``ecec_basis`` ("sum of cations" | "lab CEC"),
+        A copy of ``samples`` with the columns in :data:`DERIVED`, worked out by
+        :func:`exchange_chemistry`: ``acidity`` (the exchangeable acidity the ECEC
+        counts: the lab's, else Al + H, else 0 at neutral pH) with ``acidity_basis``,
+        ``ecec`` (cmol(+)/kg), ``ecec_basis`` ("sum of cations" | "lab CEC" | "none"),
         ``ca_sat``, ``mg_sat``, ``k_sat``, ``na_sat``, ``acid_sat`` (Al + H),
         ``al_sat``, ``base_sat`` (Ca + Mg + K + Na), all percent of ECEC;
         ``esp`` (``na_sat``, or from SAR), ``esp_estimated`` (bool),
         ``ca_mg_ratio`` (charge basis; NaN where Mg is 0), ``sodicity``
         (see :func:`sodicity_class`), ``acid_flag`` (bool) and ``acid_reason``
         (text, "" when not flagged). A NaN pH or acid saturation does not set the flag.
+        pH thresholds compare pH in water (``ph``) with the water value and, where only
+        pH in CaCl2 (``ph_cacl2``) was given, that with the CaCl2 value
+        (see :func:`ph_for_rules`).
         ``attrs["ecec_gaps"]`` lists the (row, problem) of the samples whose ECEC was
         left empty (``on_bad_row="skip"``), so a caller can report them as problems.
 
@@ -332,29 +524,20 @@ def derive(
     (5.0, 30.0, True, 'pH 4.6 below 5.5; acid saturation 30.0 % above 15 %')
     """
     s = settings or ChemistrySettings()
-    if ph_method not in (None, "water", "CaCl2"):
-        raise SettingsError(
-            f"'{ph_method}' is not allowed; use 'water' or 'CaCl2'", key="ph_method"
-        )
     if on_bad_row not in ("stop", "skip"):
         raise SettingsError(
             f"'{on_bad_row}' is not allowed; use 'stop' or 'skip'", key="on_bad_row"
         )
     headers = headers or {}
     ca, mg, k, na = (_column(samples, a) for a in _BASES)
-    al = _column(samples, "al")
-    ph = _column(samples, "ph")
+    ph, cacl2 = ph_for_rules(_column(samples, "ph"), _column(samples, "ph_cacl2"))
     sar = _column(samples, "sar")
     lab_cec = _column(samples, "cec")
-    acidity = _acidity(samples)
-    neutral = np.isfinite(ph) & (ph >= s.neutral_ph)
-    acidity_used = np.where(np.isfinite(acidity), acidity, np.where(neutral, 0.0, np.nan))
-
-    summed = ecec_from_parts(ca, mg, k, na, acidity_used)
-    use_sum = np.isfinite(summed) & (summed > 0)
-    use_lab = ~use_sum & np.isfinite(lab_cec) & (lab_cec > 0)
-    ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.nan))
-    bad = ~use_sum & ~use_lab
+    chem = exchange_chemistry(
+        {a: _column(samples, a) for a in (*_BASES, "acidity", "al", "h", "cec", "ph",
+                                          "ph_cacl2", "sar")}, s)
+    acidity_used = chem["acidity"]
+    bad = chem["ecec_basis"] == ECEC_BASES.index("none")
     no_cations = not any(np.isfinite(v).any() for v in (ca, mg, k, na, lab_cec))
     if no_cations and len(samples):
         # a file of pH (or Al) alone: it still gives surfaces for what it has
@@ -368,42 +551,50 @@ def derive(
     if not no_cations and bad.any():
         gaps = _report_ecec_gaps(
             samples, bad, parts={"ca": ca, "mg": mg, "k": k, "na": na, "acidity": acidity_used},
-            neutral_ph=s.neutral_ph, file=file, headers=headers,
+            neutral_ph=f"{s.neutral_ph:g} in water ({s.neutral_ph_cacl2:g} in CaCl2)",
+            file=file, headers=headers,
             on_bad_row=on_bad_row,
         )
 
+    sar15 = _column(samples, "sar_1to5")
+    unused = np.isfinite(sar15) & ~np.isfinite(na) & ~np.isfinite(sar)
+    if unused.any():
+        warnings.warn(
+            f"{file or 'samples'}: {int(unused.sum())} sample(s) give SAR of a 1:5 extract "
+            f"('{headers.get('sar_1to5', 'sar_1to5')}') but no exchangeable Na: ESP is not "
+            "estimated from it, because the USDA Handbook 60 relation is for saturation-extract "
+            "SAR and geosoil applies no 1:5 to saturation-extract conversion (none with a "
+            "stated error for these soils); give exchangeable Na or saturation-extract SAR",
+            DataWarning,
+            stacklevel=2,
+        )
     out = samples.copy()
     out.attrs["ecec_gaps"] = gaps
-    out["ecec"] = ecec
-    out["ecec_basis"] = np.select([use_sum, use_lab], ["sum of cations", "lab CEC"], "none")
-    for name, part in (("ca", ca), ("mg", mg), ("k", k), ("na", na)):
-        out[f"{name}_sat"] = saturation(part, ecec)
-    esp_measured = out["na_sat"].to_numpy()
-    esp_sar = esp_from_sar(sar)
-    estimated = ~np.isfinite(esp_measured) & np.isfinite(esp_sar)
-    esp = np.where(np.isfinite(esp_measured), esp_measured, esp_sar)
-    out["esp"] = esp
-    out["esp_estimated"] = estimated
-    acid_sat = saturation(acidity_used, ecec)
-    out["acid_sat"] = acid_sat
-    out["al_sat"] = saturation(al, ecec)
-    out["base_sat"] = saturation(ca + mg + k + na, ecec)
-    ratio = np.full(len(out), np.nan)
-    with np.errstate(over="ignore"):
-        np.divide(ca, mg, out=ratio, where=np.isfinite(mg) & (mg > 0))
-    out["ca_mg_ratio"] = ratio
+    # the exchangeable acidity each sample's ECEC counts (Al + H where the lab gave them
+    # apart; 0 at neutral pH) is the acidity that is interpolated: the lab's own values stay
+    # where it gave them, and acidity_basis says how each was had
+    out["acidity"] = acidity_used
+    for name in DERIVED:
+        if name in chem:
+            out[name] = chem[name]
+    out["acidity_basis"] = np.asarray(ACIDITY_BASES, dtype=object)[chem["acidity_basis"]]
+    out["ecec_basis"] = np.asarray(ECEC_BASES, dtype=object)[chem["ecec_basis"]]
+    esp, estimated = chem["esp"], chem["esp_estimated"]
+    acid_sat = chem["acid_sat"]
     out["sodicity"] = sodicity_class(esp, s)
 
-    ph_limit = s.acid_ph_cacl2 if ph_method == "CaCl2" else s.acid_ph
+    ph_limit = np.where(cacl2, s.acid_ph_cacl2, s.acid_ph)
     low_ph = np.isfinite(ph) & (ph < ph_limit)
     high_acid = np.isfinite(acid_sat) & (acid_sat > s.acid_saturation_percent)
     out["acid_flag"] = low_ph | high_acid
-    method = " (CaCl2)" if ph_method == "CaCl2" else ""
     reasons = []
-    for p, a, lp, ha in zip(ph, acid_sat, low_ph, high_acid, strict=True):
+    for p, lim, c, a, lp, ha in zip(np.broadcast_to(ph, low_ph.shape),
+                                    np.broadcast_to(ph_limit, low_ph.shape),
+                                    np.broadcast_to(cacl2, low_ph.shape), acid_sat, low_ph,
+                                    high_acid, strict=True):
         why = []
         if lp:
-            why.append(f"pH{method} {p:g} below {ph_limit:g}")
+            why.append(f"pH{' (CaCl2)' if c else ''} {p:g} below {lim:g}")
         if ha:
             why.append(f"acid saturation {a:.1f} % above {s.acid_saturation_percent:g} %")
         reasons.append("; ".join(why))
@@ -426,7 +617,7 @@ def _report_ecec_gaps(
     bad: NDArray[np.bool_],
     *,
     parts: Mapping[str, NDArray[np.float64]],
-    neutral_ph: float,
+    neutral_ph: str,
     file: str | os.PathLike[str] | None,
     headers: Mapping[str, str],
     on_bad_row: str,
@@ -444,7 +635,7 @@ def _report_ecec_gaps(
             names = ", ".join(_NAMES[a] for a in missing)
             problem = f"the ECEC needs exchangeable {names}, which this sample lacks"
             if "acidity" in missing:
-                problem += f" (acidity counts as 0 only at pH {neutral_ph:g} or above)"
+                problem += f" (acidity counts as 0 only at pH {neutral_ph} or above)"
             problem += ", and there is no lab CEC to use instead"
         else:
             problem = "the ECEC is 0 and there is no lab CEC to use instead"

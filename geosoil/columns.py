@@ -12,15 +12,29 @@ one of the spellings below, so ``Ca:Mg``, ``Ca %`` (a saturation),
 ``Colwell K`` (not exchangeable) and ``Na (meq/L)`` (a solution concentration)
 are left alone and kept as the lab's own columns.
 
+Header meaning is never guessed across methods. pH in water (``ph``), in
+CaCl2 (``ph_cacl2``) and in KCl (``ph_kcl``) are distinct analytes, as are
+exchangeable (KCl) acidity (``acidity``) and potential acidity at pH 7 by a
+buffer or acetate method (``acidity_potential``), and saturation-extract SAR
+(``sar``) and 1:5 SAR (``sar_1to5``). A header that names no method gets the
+trade's usual reading only where the readings are close: a bare "pH" is pH in
+water and a bare "SAR" the saturation-extract SAR, each with a note in
+:attr:`ColumnGuess.readings` naming the setting that changes it. Where the
+readings differ several-fold -- "H+Al", "Acidity", "Total acidity",
+"Titratable acidity" without "exchangeable", "KCl", "pH 7", "buffer" or
+"acetate" -- the header is left in :attr:`ColumnGuess.undecided` until the
+project maps it (potential acidity at pH 7 is often several times the
+exchangeable acidity).
+
 Examples
 --------
 >>> guess = detect_columns(["Sample ID", "Easting", "Northing", "Exch. Ca (meq/100g)",
 ...                         "Mg_ppm", "pH (CaCl2)", "Ca %"])
 >>> guess.analytes
-{'ca': 'Exch. Ca (meq/100g)', 'mg': 'Mg_ppm', 'ph': 'pH (CaCl2)'}
+{'ca': 'Exch. Ca (meq/100g)', 'mg': 'Mg_ppm', 'ph_cacl2': 'pH (CaCl2)'}
 >>> guess.units
-{'ca': 'meq/100g', 'mg': 'mg/kg', 'ph': None}
->>> guess.methods["ph"], guess.id, guess.x, guess.y, guess.geographic
+{'ca': 'meq/100g', 'mg': 'mg/kg', 'ph_cacl2': None}
+>>> guess.methods["ph_cacl2"], guess.id, guess.x, guess.y, guess.geographic
 ('CaCl2', 'Sample ID', 'Easting', 'Northing', False)
 >>> guess.notes["Ca %"]
 'a percentage (saturation), not an amount'
@@ -43,6 +57,7 @@ __all__ = [
     "UNITLESS",
     "ANALYTE_SPELLINGS",
     "ID_SPELLINGS",
+    "PH_METHODS",
     "HeaderInfo",
     "ColumnGuess",
     "parse_header",
@@ -66,15 +81,22 @@ PROPERTIES: dict[str, tuple[str, ...]] = {
 
 #: Canonical analytes, in the order they are reported.
 CANONICAL: tuple[str, ...] = (
-    "ca", "mg", "k", "na", "al", "h", "acidity", "cec", "ph", "sar",
+    "ca", "mg", "k", "na", "al", "h", "acidity", "acidity_potential", "cec",
+    "ph", "ph_cacl2", "ph_kcl", "sar", "sar_1to5",
     "cec_ph7", *BUFFER_PH, *PROPERTIES,
 )
 
-#: Analytes that are exchangeable amounts, carried in cmol(+)/kg.
-EXCHANGEABLE: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity", "cec", "cec_ph7")
+#: Analytes that are exchangeable amounts, carried in cmol(+)/kg
+#: (``acidity_potential``, H + Al at pH 7, is carried in the same unit).
+EXCHANGEABLE: tuple[str, ...] = (
+    "ca", "mg", "k", "na", "al", "h", "acidity", "acidity_potential", "cec", "cec_ph7",
+)
 
 #: Analytes without a unit.
-UNITLESS: tuple[str, ...] = ("ph", "sar", *BUFFER_PH)
+UNITLESS: tuple[str, ...] = ("ph", "ph_cacl2", "ph_kcl", "sar", "sar_1to5", *BUFFER_PH)
+
+#: pH analytes and the solution each is measured in.
+PH_METHODS: dict[str, str] = {"ph": "water", "ph_cacl2": "CaCl2", "ph_kcl": "KCl"}
 
 #: Names (lower case, qualifier, charge and unit removed) that mean each analyte.
 #: The first spellings of ``cec`` name an effective CEC and are preferred over a plain CEC.
@@ -86,6 +108,7 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
     "al": ("al", "aluminium", "aluminum"),
     "h": ("h", "hydrogen"),
     "acidity": ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity"),
+    "acidity_potential": ("potential acidity", "acidity potential"),
     "cec": (
         "ecec",
         "effective cec",
@@ -94,7 +117,10 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
         "cation exchange capacity",
     ),
     "ph": ("ph",),
-    "sar": ("sar", "sodium adsorption ratio"),
+    "ph_cacl2": (),
+    "ph_kcl": (),
+    "sar": ("sar", "sodium adsorption ratio", "sare"),
+    "sar_1to5": (),
     "cec_ph7": (
         "cec ph7", "cec ph 7", "cec at ph 7", "cec ph 7 0", "ctc", "ctc ph 7", "ctc ph7",
         "ctc a ph 7", "cec nh4oac ph 7", "potential cec",
@@ -123,6 +149,16 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
             "ec saturation extract", "ec saturated paste", "saturated paste ec",
             "electrical conductivity saturation extract", "ec saturation paste"),
 }
+
+#: Acidity names whose method must be stated (exchangeable or potential).
+_ACIDITY_NAMES = ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity")
+#: Words that say an acidity is the exchangeable (1 M KCl) one.
+_EXCHANGEABLE_WORDS = ("exch", "exchangeable", "ex", "exc", "kcl")
+#: Words that say an acidity is potential acidity (pH 7 buffer or acetate methods).
+_POTENTIAL_WORDS = ("ph 7", "ph7", "ph 7.0", "ph7.0", "smp", "buffer", "acetate", "oac",
+                    "ca(oac)2", "potential", "sikora", "mehlich", "bacl2", "tea", "ph 8.2")
+#: Words that say an SAR is from a saturation extract (or paste).
+_SATURATION_WORDS = ("saturation", "sat", "paste", "extract", "se", "e", "sat. extract")
 
 #: Names of a sample ID column, most specific first.
 ID_SPELLINGS: tuple[str, ...] = (
@@ -197,6 +233,13 @@ class HeaderInfo:
     note
         Why a header that names an analyte was not taken (a saturation, another
         extract, a unit that is not an exchangeable amount); None otherwise.
+    reading
+        For a header that names no method: the usual reading taken and the
+        setting that changes it; None otherwise.
+    undecided
+        For a header whose method decides between readings several-fold apart
+        (exchangeable or potential acidity): why it is not taken and the
+        settings that decide it (``role`` is then None); None otherwise.
     """
 
     header: str
@@ -204,6 +247,8 @@ class HeaderInfo:
     unit: str | None = None
     method: str | None = None
     note: str | None = None
+    reading: str | None = None
+    undecided: str | None = None
 
 
 @dataclasses.dataclass(frozen=True)
@@ -218,7 +263,7 @@ class ColumnGuess:
         Canonical analyte -> unit written in its header (canonical spelling), or None.
     methods
         Canonical analyte -> method written in its header, or None
-        (``methods["ph"]`` is ``"water"``, ``"CaCl2"`` or None).
+        (for pH, ``"water"``, ``"CaCl2"``, ``"KCl"`` or None for a bare "pH").
     ambiguous
         Analyte -> headers, for analytes that two or more headers match equally
         well; such analytes are left out of ``analytes``.
@@ -232,6 +277,13 @@ class ColumnGuess:
     notes
         Header -> why it was not taken, for headers that name an analyte but
         hold something else.
+    readings
+        Header -> the usual reading taken for a header that names no method
+        (a bare "pH" read as pH in water), with the setting that changes it.
+    undecided
+        Header -> why its meaning cannot be read from it (an acidity that names
+        neither the exchangeable nor the potential method), with the settings
+        that decide it. Such headers are in no analyte.
     """
 
     analytes: dict[str, str]
@@ -243,6 +295,8 @@ class ColumnGuess:
     y: str | None
     geographic: bool | None
     notes: dict[str, str]
+    readings: dict[str, str] = dataclasses.field(default_factory=dict)
+    undecided: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 def _unit_of(text: str) -> str | None:
@@ -292,24 +346,34 @@ def parse_header(header: str) -> HeaderInfo:
     >>> info = parse_header("Exchangeable Calcium (cmol(+)/kg)")
     >>> info.role, info.unit, info.method, info.note
     ('ca', 'cmol/kg', None, None)
-    >>> parse_header("pHw").method, parse_header("pH_CaCl2").method
-    ('water', 'CaCl2')
+    >>> parse_header("pHw").role, parse_header("pH_CaCl2").role, parse_header("pH (KCl)").role
+    ('ph', 'ph_cacl2', 'ph_kcl')
     >>> parse_header("K (Colwell)").role is None
     True
     >>> parse_header("Na mg kg-1").unit
     'mg/kg'
+    >>> parse_header("H+Al (pH 7)").role, parse_header("SAR (1:5)").role
+    ('acidity_potential', 'sar_1to5')
+    >>> parse_header("H+Al").role is None and parse_header("H+Al").undecided is not None
+    True
     """
     given = str(header)  # returned as written, so it still finds its column
     text = given.replace("\ufeff", "").strip()
     plain = re.sub(r"\((\+|c)\)", r"\1", text)  # cmol(+)/kg -> cmol+/kg
+    # an extract ratio ("1:5", "1:2.5") is a method, wherever it is written
+    ratios = [f"1:{m}" for m in _RATIO.findall(plain)]
+    plain = _RATIO.sub(" ", plain)
     units: list[str] = []
     methods: list[str] = []
     note: str | None = None
     for inner in (i.strip() for i in _BRACKETS.findall(plain)):
         unit = _unit_of(inner) if inner else None
+        low = inner.lower()
         if unit:
             units.append(unit)
-        elif any(w in inner.lower() for w in ("%", "sat")):
+        elif "extract" in low or "paste" in low:
+            methods.append(inner)
+        elif any(w in low for w in ("%", "sat")):
             note = "a percentage (saturation), not an amount"
         elif "/" in inner:
             note = f"unit '{inner}' is not an exchangeable amount"
@@ -330,27 +394,25 @@ def parse_header(header: str) -> HeaderInfo:
     name = " ".join(tokens).replace(".", " ").replace("-", " ").replace("%", " % ")
     name = re.sub(r"\s*\+\s*", "+", name)
     words = [_CHARGE.sub("", w) for w in name.split()]
+    qualified = False
     while words and words[0] in _QUALIFIERS:
+        qualified = qualified or words[0] in _EXCHANGEABLE_WORDS
         words = words[1:]
     while words and words[-1] in _QUALIFIERS:
+        qualified = qualified or words[-1] in _EXCHANGEABLE_WORDS
         words = words[:-1]
     if not words:
         return HeaderInfo(given, None)
     # pH, with its method in the name ("pHw", "pH CaCl2") or in brackets.
     if words[0].startswith("ph") and (words[0] == "ph" or _ph_method(words[0][2:])):
-        method_text = " ".join([words[0][2:], *words[1:], *methods]).lower()
-        method = _ph_method(method_text)
-        if method == "KCl":
-            return HeaderInfo(given, None, method="KCl", note="pH in KCl is not used; give pH in "
-                              "water or CaCl2")
-        extra_words = any(c.isalpha() for c in " ".join(words[1:]))
-        if note is not None or (extra_words and method is None):
-            return HeaderInfo(given, None, note=note)
-        return HeaderInfo(given, "ph", method=method)
+        return _ph_header(given, words, methods, note)
     joined = " ".join(words)
     role = _ROLE_NAMES.get(joined)
     if role is not None:
         return HeaderInfo(given, role)
+    acid = _acidity_header(given, joined, methods, units, qualified, note)
+    if acid is not None:
+        return acid
     analyte = _ANALYTE_OF.get(joined)
     if analyte is None:
         # "Colwell K", "Total Ca", "Ca %", "Ca sat": name an analyte, hold something else.
@@ -365,20 +427,129 @@ def parse_header(header: str) -> HeaderInfo:
     method = " ".join(methods) or None
     if note is not None:
         return HeaderInfo(given, None, method=method, note=note)
+    if analyte == "sar":
+        return _sar_header(given, joined, methods, ratios, units)
+    if analyte in EXCHANGEABLE and ratios:
+        return HeaderInfo(given, None, method=ratios[0],
+                          note=f"a {ratios[0]} extract, not the exchangeable amount")
     if analyte in EXCHANGEABLE and method is not None:
         if any(w in method.lower() for w in _NOT_EXCHANGEABLE):
             return HeaderInfo(given, None, method=method,
                               note=f"a {method} extract, not the exchangeable amount")
+    return _with_unit(given, analyte, units, method)
+
+
+_RATIO = re.compile(r"(?<![\d.])1\s*:\s*(\d+(?:\.\d+)?)")
+
+
+def _with_unit(
+    given: str, analyte: str, units: list[str], method: str | None,
+    reading: str | None = None,
+) -> HeaderInfo:
+    """The header as ``analyte``, unless its unit cannot hold it."""
     if len(set(units)) > 1:
         return HeaderInfo(given, None, note=f"two units in one header: {', '.join(units)}")
     unit = units[0] if units else None
     if analyte in UNITLESS and unit is not None:
         return HeaderInfo(given, None, note=f"{analyte} has no unit, but the header says {unit}")
-    if analyte in ("acidity", "cec") and unit == "mg/kg":
+    if analyte in ("acidity", "acidity_potential", "cec") and unit == "mg/kg":
         return HeaderInfo(
             given, None, note=f"{analyte} in mg/kg is not defined; give it in cmol(+)/kg"
         )
-    return HeaderInfo(given, analyte, unit=unit, method=method)
+    return HeaderInfo(given, analyte, unit=unit, method=method, reading=reading)
+
+
+def _ph_header(given: str, words: list[str], methods: list[str], note: str | None) -> HeaderInfo:
+    """A pH header: water, CaCl2 or KCl (distinct analytes); a bare "pH" is read as water."""
+    method_text = " ".join([words[0][2:], *words[1:], *methods]).lower()
+    method = _ph_method(method_text)
+    extra_words = any(c.isalpha() for c in " ".join(words[1:]))
+    if note is not None or (extra_words and method is None):
+        return HeaderInfo(given, None, note=note)
+    if method is None:
+        return HeaderInfo(
+            given, "ph", reading=(
+                f"'{given}' names no method: read as pH in water (the usual reading); if the "
+                f"lab measured it in CaCl2, set [samples.columns] ph_cacl2 = '{given}' (in KCl: "
+                f"ph_kcl = '{given}')"
+            ),
+        )
+    role = {"water": "ph", "CaCl2": "ph_cacl2", "KCl": "ph_kcl"}[method]
+    return HeaderInfo(given, role, method=method)
+
+
+def _acidity_header(
+    given: str, joined: str, methods: list[str], units: list[str], qualified: bool,
+    note: str | None,
+) -> HeaderInfo | None:
+    """An acidity header: exchangeable, potential, or undecided (None: not an acidity)."""
+    extra: str | None = None
+    if joined in ANALYTE_SPELLINGS["acidity_potential"]:
+        extra, potential_name = "", True
+    else:
+        potential_name = False
+        for name in sorted(_ACIDITY_NAMES, key=len, reverse=True):
+            if joined == name:
+                extra = ""
+            elif joined.startswith(name + " "):
+                extra = joined[len(name) + 1:]
+            elif joined.endswith(" " + name):
+                extra = joined[: -len(name) - 1]
+            if extra is not None:
+                break
+    if extra is None:
+        return None
+    method = " ".join(methods) or None
+    if note is not None:
+        return HeaderInfo(given, None, method=method, note=note)
+    said = f"{extra} {' '.join(methods)}".lower()
+    potential = potential_name or any(
+        re.search(rf"(?<![a-z0-9]){re.escape(w)}(?![a-z0-9])", said) for w in _POTENTIAL_WORDS
+    )
+    exchangeable = qualified or "kcl" in said
+    leftover = [w for w in extra.split() if w not in _EXCHANGEABLE_WORDS and w != "kcl"
+                and not any(w in p.split() for p in _POTENTIAL_WORDS)]
+    if leftover:
+        if all(w in _PERCENT_WORDS for w in leftover):
+            return HeaderInfo(given, None, method=method,
+                              note="a percentage (saturation), not an amount")
+        return HeaderInfo(given, None, method=method)
+    if potential and not exchangeable:
+        return _with_unit(given, "acidity_potential", units, method)
+    if exchangeable and not potential:
+        return _with_unit(given, "acidity", units, method)
+    why = ("names both the exchangeable and a pH 7 method" if potential
+           else "names no method")
+    return HeaderInfo(
+        given, None, method=method, undecided=(
+            f"acidity column '{given}' {why}: exchangeable acidity (1 M KCl, Al + H) and "
+            "potential acidity (H + Al at pH 7, buffer or acetate methods) often differ "
+            f"several-fold; set [samples.columns] acidity = '{given}' if it is exchangeable, "
+            f"or acidity_potential = '{given}' if it is potential acidity"
+        ),
+    )
+
+
+def _sar_header(
+    given: str, joined: str, methods: list[str], ratios: list[str], units: list[str]
+) -> HeaderInfo:
+    """An SAR header: saturation extract (``sar``) or 1:5 (``sar_1to5``)."""
+    method = " ".join([*ratios, *methods]) or None
+    if ratios:
+        if ratios[0] != "1:5":
+            return HeaderInfo(given, None, method=method, note=(
+                f"SAR of a {ratios[0]} extract: geosoil reads saturation-extract and 1:5 SAR "
+                "only"))
+        return _with_unit(given, "sar_1to5", units, method)
+    said = " ".join(methods).lower()
+    if joined == "sare" or any(w in said.split() or w in said for w in
+                               ("saturation", "paste", "extract")):
+        return _with_unit(given, "sar", units, method)
+    return _with_unit(given, "sar", units, method, reading=(
+        f"'{given}' names no extract: read as saturation-extract SAR (the usual reading, USDA "
+        f"Handbook 60); if the lab measured it in a 1:5 extract, set [samples.columns] "
+        f"sar_1to5 = '{given}'"
+    ))
 
 
 _BUFFER_NAMES: dict[str, str] = {
@@ -463,7 +634,9 @@ def _lime_analyte(
 def _preference(info: HeaderInfo) -> int:
     """Lower is preferred when two headers name the same analyte."""
     if info.role == "ph":
-        return {"water": 0, None: 1, "CaCl2": 2}.get(info.method, 3)
+        return 0 if info.method == "water" else 1
+    if info.role == "sar":
+        return 0 if info.reading is None else 1
     if info.role == "cec":
         name = info.header.lower()
         return 0 if ("ecec" in name or "effective" in name) else 1
@@ -489,17 +662,22 @@ def detect_columns(headers: Sequence[str]) -> ColumnGuess:
     Examples
     --------
     >>> g = detect_columns(["ID", "Lon", "Lat", "Ca", "pH (water)", "pH (CaCl2)", "ECEC", "CEC"])
-    >>> g.analytes["ph"], g.analytes["cec"], g.geographic
-    ('pH (water)', 'ECEC', True)
+    >>> g.analytes["ph"], g.analytes["ph_cacl2"], g.analytes["cec"], g.geographic
+    ('pH (water)', 'pH (CaCl2)', 'ECEC', True)
+    >>> detect_columns(["ID", "pH", "H+Al"]).undecided["H+Al"][:39]
+    "acidity column 'H+Al' names no method: "
     >>> detect_columns(["Ca (mg/kg)", "Calcium (meq/100g)"]).ambiguous
     {'ca': ('Ca (mg/kg)', 'Calcium (meq/100g)')}
     """
     infos = [parse_header(h) for h in headers]
     by_role: dict[str, list[HeaderInfo]] = {}
     notes: dict[str, str] = {}
+    undecided: dict[str, str] = {}
     for info in infos:
         if info.role is not None:
             by_role.setdefault(info.role, []).append(info)
+        elif info.undecided is not None:
+            undecided[info.header] = info.undecided
         elif info.note is not None:
             notes[info.header] = info.note
 
@@ -516,6 +694,7 @@ def detect_columns(headers: Sequence[str]) -> ColumnGuess:
     units: dict[str, str | None] = {}
     methods: dict[str, str | None] = {}
     ambiguous: dict[str, tuple[str, ...]] = {}
+    readings: dict[str, str] = {}
     for analyte in CANONICAL:
         chosen, tied = best(analyte)
         if tied:
@@ -524,6 +703,8 @@ def detect_columns(headers: Sequence[str]) -> ColumnGuess:
             analytes[analyte] = chosen.header
             units[analyte] = chosen.unit
             methods[analyte] = chosen.method
+            if chosen.reading is not None:
+                readings[chosen.header] = chosen.reading
     id_info, _ = best("id")
     x = y = None
     geographic: bool | None = None
@@ -543,4 +724,6 @@ def detect_columns(headers: Sequence[str]) -> ColumnGuess:
         y=y,
         geographic=geographic,
         notes=notes,
+        readings=readings,
+        undecided=undecided,
     )

@@ -20,6 +20,7 @@ import numpy as np
 import pyproj
 import shapely
 
+from .chemistry import rule_ph
 from .errors import InputError
 from .pipeline import FarmResult, Prepared
 from .rates import Step, explain_cell
@@ -53,6 +54,7 @@ class Explanation:
     zones: list[dict[str, Any]]
     notes: list[str] = field(default_factory=list)
     ecec_parts: dict[str, float] = field(default_factory=dict)
+    acidity_source: str = ""
 
 
 def parse_location(text: str) -> tuple[float, float]:
@@ -208,8 +210,8 @@ def explain_location(
     pts = prep.samples[prep.samples["paddock"] == name]
     d = np.hypot(pts.geometry.x.to_numpy() - x, pts.geometry.y.to_numpy() - y)
     order = np.argsort(d)[:n_samples]
-    lab_cols = [c for c in ("ph", "ca", "mg", "k", "na", "acidity", "al", "cec", "sar", "ecec",
-                            "esp") if c in pts.columns]
+    lab_cols = [c for c in ("ph", "ph_cacl2", "ca", "mg", "k", "na", "acidity", "al", "h",
+                            "cec", "sar", "ecec", "esp") if c in pts.columns]
     nearest = []
     for i in order:
         r = pts.iloc[int(i)]
@@ -231,9 +233,10 @@ def explain_location(
     bd = cell.pop("bulk_density", None)  # a bulk-density raster, where the project gives one
     if bd is None or not math.isfinite(bd):
         bd = s.soil.bulk_density_for(name)
+    method, ph = rule_ph(cell)  # the rules read pH in water, else pH in CaCl2
     steps = explain_cell(
-        cell, s.rates.for_paddock(name), prep.products, depth_m=s.soil.depth_m,
-        bulk_density_g_cm3=bd, ph_method=prep.read.methods.get("ph"),
+        {**cell, "ph": ph} if method is not None else cell, s.rates.for_paddock(name),
+        prep.products, depth_m=s.soil.depth_m, bulk_density_g_cm3=bd, ph_method=method,
         scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
     )
     # the zone of the cell (its centre: a point on a zone edge belongs to the cell it is in)
@@ -257,7 +260,22 @@ def explain_location(
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
         zones=zones, notes=notes, ecec_parts=_ecec_parts(cell),
+        acidity_source=_acidity_source(prep.read.columns),
     )
+
+
+def _acidity_source(columns: dict[str, str]) -> str:
+    """How the lab gave the exchangeable acidity, when not as one column."""
+    if "acidity" in columns:
+        return ""
+    given = [a for a in ("al", "h") if a in columns]
+    if given == ["al", "h"]:
+        return (f"Al + H (the lab gives them apart, '{columns['al']}' and '{columns['h']}'; "
+                "each sample's sum is interpolated)")
+    if given:
+        el = given[0].capitalize()
+        return f"{el} alone (the lab gives no {'H' if el == 'Al' else 'Al'}; '{columns[given[0]]}')"
+    return ""
 
 
 def _ecec_parts(cell: dict[str, float]) -> dict[str, float]:
@@ -334,6 +352,8 @@ def format_explanation(e: Explanation) -> str:
 def _chemistry_lines(e: Explanation) -> list[str]:
     """Section 3 of :func:`format_explanation`: the cell's ECEC and shares."""
     out: list[str] = []
+    if e.acidity_source and math.isfinite(e.cell.get("acidity", math.nan)):
+        out.append(f"   exchangeable acidity = {e.acidity_source} = {e.cell['acidity']:.4g}")
     if e.ecec_parts:
         terms = " + ".join(f"{_LABEL[k]} {v:.4g}" for k, v in e.ecec_parts.items())
         out.append(f"   ECEC = {terms} = {e.cell['ecec']:.4g}")
@@ -345,8 +365,9 @@ def _chemistry_lines(e: Explanation) -> list[str]:
         if k in e.cell and math.isfinite(e.cell[k]):
             how = "interpolated" if k in e.interpolated else f"100 x {_LABEL[part]} / ECEC"
             out.append(f"   {_LABEL[k]} = {how} = {e.cell[k]:.4g} %")
-    if "ph" in e.cell and math.isfinite(e.cell["ph"]):
-        out.append(f"   pH = {e.cell['ph']:.3g}")
+    for k, label in (("ph", "pH (water)"), ("ph_cacl2", "pH (CaCl2)")):
+        if k in e.cell and math.isfinite(e.cell[k]):
+            out.append(f"   {label} = {e.cell[k]:.3g}")
     return out
 
 

@@ -45,6 +45,7 @@ import pandas as pd
 
 from . import presentation, webmap
 from . import report as report_mod
+from .chemistry import rule_ph
 from .gpkg import plain_style, write_gpkg, zone_styles
 from .grids import mosaic
 from .isoxml import (
@@ -103,7 +104,8 @@ FARM_GPKG = "farm.gpkg"
 SURFACE_UNITS: dict[str, str] = {
     "ca": "cmol(+)/kg", "mg": "cmol(+)/kg", "k": "cmol(+)/kg", "na": "cmol(+)/kg",
     "acidity": "cmol(+)/kg", "al": "cmol(+)/kg", "cec": "cmol(+)/kg", "ecec": "cmol(+)/kg",
-    "ph": "pH units", "esp": "% of ECEC", "ca_sat": "% of ECEC", "mg_sat": "% of ECEC",
+    "ph": "pH units", "ph_cacl2": "pH units", "esp": "% of ECEC", "ca_sat": "% of ECEC",
+    "mg_sat": "% of ECEC",
     "k_sat": "% of ECEC", "na_sat": "% of ECEC", "acid_sat": "% of ECEC", "al_sat": "% of ECEC",
     "cec_ph7": "cmol(+)/kg", "bph_smp": "pH units", "bph_sikora": "pH units",
     "bph_mehlich": "pH units", "bph_adams_evans": "pH units", "oc": "%", "om": "%", "clay": "%",
@@ -116,7 +118,8 @@ SURFACE_UNITS: dict[str, str] = {
 TITLES: dict[str, str] = {
     "ca": "Exchangeable Ca", "mg": "Exchangeable Mg", "k": "Exchangeable K",
     "na": "Exchangeable Na", "acidity": "Exchangeable acidity", "al": "Exchangeable Al",
-    "cec": "CEC (lab)", "ecec": "ECEC", "ph": "pH", "esp": "ESP (exchangeable sodium)",
+    "cec": "CEC (lab)", "ecec": "ECEC", "ph": "pH (water)", "ph_cacl2": "pH (CaCl2)",
+    "esp": "ESP (exchangeable sodium)",
     "ca_sat": "Ca saturation", "mg_sat": "Mg saturation", "k_sat": "K saturation",
     "na_sat": "Na saturation", "acid_sat": "Acid saturation", "al_sat": "Al saturation",
     "cec_ph7": "CEC at pH 7", "bph_smp": "SMP buffer pH", "bph_sikora": "Sikora buffer pH",
@@ -276,6 +279,9 @@ def write_outputs(
     written.append(p)
 
     record["files"] = sorted(_rel(w, out_dir) for w in written) + ["run.json"]
+    # the one list of warnings, as the report and the CLI summary show it (the map and the
+    # report may have added to it since the record was begun)
+    record["warnings"] = list(farm.warnings)
     p = out_dir / "run.json"
     write_json(p, record)
     written.append(p)
@@ -603,7 +609,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "surfaces": [_surface_record(sf) for sf in farm.surfaces.values()],
         "surfaces_from_cache": farm.cache_hit,
         "rules": {
-            "notes": prep.rule_notes,
+            "notes": farm.rule_notes,
             "skipped": sorted({f"{r}: {why}" for pr in farm.paddocks.values()
                                for r, why in pr.rates.skipped}),
             "cell_notes": {name: pr.cell_notes + list(pr.rates.notes)
@@ -629,22 +635,30 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
     }
 
 
-def ph_label(farm: FarmResult) -> str:
+def _ph_method(farm: FarmResult, var: str | None = None) -> str:
+    """The method of the ``ph`` variable (pH in water), of ``ph_cacl2``, or (no ``var``) of the
+    pH the rules read: water where the lab gave it, else CaCl2."""
+    if var is not None:
+        return "CaCl2" if var == "ph_cacl2" else "water"
+    method, _ = rule_ph(farm.prep.read.columns)
+    return method or "water"
+
+
+def ph_label(farm: FarmResult, var: str | None = None) -> str:
     """``"pH (CaCl2)"`` or ``"pH (water)"``: how the lab measured the pH."""
-    method = farm.prep.read.methods.get("ph")
-    return "pH (CaCl2)" if method == "CaCl2" else "pH (water)"
+    return "pH (CaCl2)" if _ph_method(farm, var) == "CaCl2" else "pH (water)"
 
 
-def acid_ph_threshold(farm: FarmResult) -> float:
-    """The pH below which a sample counts as acid, for the lab's pH method."""
+def acid_ph_threshold(farm: FarmResult, var: str | None = None) -> float:
+    """The pH below which a sample counts as acid, for the pH method."""
     chem = farm.prep.project.settings.chemistry
-    return chem.acid_ph_cacl2 if farm.prep.read.methods.get("ph") == "CaCl2" else chem.acid_ph
+    return chem.acid_ph_cacl2 if _ph_method(farm, var) == "CaCl2" else chem.acid_ph
 
 
 #: The soil surfaces of the map and report, in the order of the layer panel:
 #: (variable, colour kind of :func:`geosoil.presentation.classes_for`).
 MAP_SURFACES: tuple[tuple[str, str], ...] = (
-    ("esp", "esp"), ("ph", "ph"), ("acid_sat", "acid"), ("al_sat", "acid"),
+    ("esp", "esp"), ("ph", "ph"), ("ph_cacl2", "ph"), ("acid_sat", "acid"), ("al_sat", "acid"),
     ("ca_sat", "amount"), ("mg_sat", "amount"), ("k_sat", "amount"), ("ecec", "amount"),
     ("ca", "amount"), ("mg", "amount"), ("k", "amount"), ("na", "amount"),
     ("acidity", "amount"), ("al", "amount"), ("ec", "ec"),
@@ -749,7 +763,9 @@ def opening_view(farm: FarmResult) -> tuple[str | None, str | None]:
                 by_rule[rule] = by_rule.get(rule, 0.0) + float(np.nansum(rate))
     rule = max(by_rule, key=lambda k: by_rule[k]) if by_rule else ""
     method = farm.prep.project.settings.rates.lime.method
+    ph = "ph_cacl2" if _ph_method(farm) == "CaCl2" else "ph"
     surface = _EXPLAINS_LIME.get(method, "ph") if rule == "lime" else _EXPLAINS.get(rule, "esp")
+    surface = ph if surface == "ph" else surface
     return surface, product
 
 
@@ -757,7 +773,7 @@ def surface_classes(farm: FarmResult, var: str, kind: str, values: np.ndarray) -
     """The colour classes of one soil surface (same in the map and the report)."""
     chem = farm.prep.project.settings.chemistry
     return presentation.classes_for(
-        kind, values, target=acid_ph_threshold(farm) if kind == "ph" else None,
+        kind, values, target=acid_ph_threshold(farm, var) if kind == "ph" else None,
         limits=(chem.sodic_esp_percent, chem.strongly_sodic_esp_percent),
     )
 
@@ -769,7 +785,7 @@ def surface_unit(var: str) -> str:
 
 def surface_title(farm: FarmResult, var: str) -> str:
     """A surface's name as the map and report show it."""
-    return ph_label(farm) if var == "ph" else TITLES.get(var, var)
+    return ph_label(farm, var) if var in ("ph", "ph_cacl2") else TITLES.get(var, var)
 
 
 def exclusion_zones(farm: FarmResult) -> Any:
@@ -883,7 +899,9 @@ def sample_fields(farm: FarmResult) -> list[Any]:
     cols = set(farm.prep.samples.columns)
     cmol = "cmol(+)/kg"
     fields = [webmap.SampleField("paddock", "Paddock")]
-    fields.append(webmap.SampleField("ph", ph_label(farm), "", 1))
+    for var in ("ph", "ph_cacl2"):
+        if var in cols:
+            fields.append(webmap.SampleField(var, ph_label(farm, var), "", 1))
     fields.append(webmap.SampleField("ec_1_5", "EC 1:5", "dS/m", 2))
     fields.append(webmap.SampleField("ece", "ECe", "dS/m", 1))
     known = {"sample_id", "source_row", "paddock", "geometry", *read.columns}
@@ -982,7 +1000,8 @@ def build_farm_map(farm: FarmResult) -> str:
     surface, product = opening_view(farm)
     keys = [layer.key for layer in layers]
     if surface not in keys:
-        surface = next((k for k in ("esp", "ph") if k in keys), keys[0] if keys else None)
+        surface = next((k for k in ("esp", "ph", "ph_cacl2") if k in keys),
+                       keys[0] if keys else None)
     return webmap.build_map(
         title=s.farm or "geosoil",
         paddocks=prep.paddocks,
@@ -1024,7 +1043,7 @@ def _map_notes(farm: FarmResult) -> list[str]:
 #: the difference that would change a rate class.
 UNCERTAIN_SD: dict[str, float] = {
     "ca": 1.0, "mg": 0.5, "k": 0.1, "na": 0.3, "acidity": 0.3, "al": 0.3, "cec": 2.0,
-    "ph": 0.3, "esp": 2.0,
+    "ph": 0.3, "ph_cacl2": 0.3, "esp": 2.0,
 }
 
 

@@ -43,15 +43,15 @@ from . import points as points_mod
 from . import surfaces as surfaces_mod
 from . import variogram as variogram_mod
 from .boundaries import read_exclusions, read_paddocks, read_user_zones
-from .chemistry import derive
+from .chemistry import derive, rule_ph
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
-from .errors import DataWarning, GeosoilError, InputError, SettingsError
+from .errors import DataWarning, GeosoilError, InputError, RateWarning, SettingsError
 from .grids import PaddockGrid, aligned_grids
 from .names import MAX_NAME_CHARS, assign, slug
-from .products import Product, resolve_products
+from .products import Product, ProductSettings, resolve_products, uncertified
 from .project import Project
-from .rates import RateResult, check_inputs, compute_rates
+from .rates import RateResult, check_inputs, compute_rates, plan_rules
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
@@ -71,6 +71,7 @@ __all__ = [
     "PaddockResult",
     "surfaces_for",
     "Interpolator",
+    "rule_warnings",
 ]
 
 logger = logging.getLogger(__name__)
@@ -111,6 +112,7 @@ class Prepared:
     #: the file (folder) name of each paddock and product: distinct, see :mod:`geosoil.names`
     paddock_files: dict[str, str] = field(default_factory=dict)
     product_files: dict[str, str] = field(default_factory=dict)
+    problems: list[str] = field(default_factory=list)
 
 
 def _check_paddock_keys(
@@ -130,7 +132,10 @@ def _check_paddock_keys(
             )
 
 
-def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
+def prepare(
+    project: Project, *, progress: Progress = _quiet, undecided: str = "stop",
+    listing: bool = False,
+) -> Prepared:
     """Stages 1-4 without interpolation: read, check and place everything.
 
     Parameters
@@ -139,6 +144,16 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         The loaded project.
     progress : callable, optional
         Called with a short message at each stage.
+    undecided : {"stop", "keep"}, optional
+        A lab column whose meaning its header leaves open (see
+        :func:`geosoil.samples.read_samples`): "stop" raises, "keep" lists it in
+        ``prep.read.undecided`` (what ``check`` does, to list every problem).
+    listing : bool, optional
+        True (``check``): a problem that does not stop the other checks (an
+        exclusion, zone or covariate file that cannot be used, samples closer than
+        the duplicate distance, a rule or product setting that does not fit the
+        data) goes into ``prep.problems`` and the checks go on; False (a run):
+        the first one raises.
 
     Returns
     -------
@@ -152,6 +167,17 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
     """
     s = project.settings
     sink: list[str] = []
+    problems: list[str] = []
+
+    def attempt(fn: Callable[..., Any], *args: Any, fallback: Any = None, **kw: Any) -> Any:
+        if not listing:
+            return fn(*args, **kw)
+        try:
+            return fn(*args, **kw)
+        except GeosoilError as exc:
+            problems.append(str(exc))
+            return fallback
+
     with record_warnings(sink):
         progress("reading boundaries")
         product_files = _file_names(
@@ -168,7 +194,7 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         _check_paddock_keys(s.soil.bulk_density_by_paddock, paddocks,
                             key="soil.bulk_density_by_paddock", file=s.boundaries.paddocks)
         progress("reading samples")
-        read = read_samples(s.samples)
+        read = read_samples(s.samples, undecided=undecided)
         samples = read.samples
         lonlat = paddocks.geometry.to_crs("EPSG:4326").total_bounds
         if lonlat[2] - lonlat[0] > 180.0:
@@ -187,33 +213,59 @@ def prepare(project: Project, *, progress: Progress = _quiet) -> Prepared:
         )
         boundaries_crs = paddocks.crs
         paddocks = paddocks.to_crs(crs)
-        exclusions = read_exclusions(s.boundaries, crs=crs)
+        exclusions = attempt(read_exclusions, s.boundaries, crs=crs,
+                             fallback=gpd.GeoDataFrame(geometry=[], crs=crs))
         user_zones = None
         if s.boundaries.zones is not None:
-            user_zones = read_user_zones(
-                s.boundaries.zones, crs=crs, id_column=s.boundaries.zone_id_column,
+            user_zones = attempt(
+                read_user_zones, s.boundaries.zones, crs=crs,
+                id_column=s.boundaries.zone_id_column,
                 duplicate_names=s.boundaries.duplicate_names,
             )
         samples = prepare_samples(
-            samples, paddocks=paddocks, working_crs=crs, settings=s.samples, file=str(read.file)
+            samples, paddocks=paddocks, working_crs=crs, settings=s.samples, file=str(read.file),
+            duplicates_found=problems if listing else None,
         )
         samples = derive(
             samples, s.chemistry, file=read.file, headers=read.columns,
-            ph_method=read.methods.get("ph"), on_bad_row=s.samples.on_bad_row,
+            on_bad_row=s.samples.on_bad_row,
         )
         samples = derive_salinity(samples, s.salinity)
         _warn_single_samples(samples, paddocks)
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
-        rule_notes = check_inputs(s.rates, set(variables) | _derivable(variables), products,
-                                  ph_method=read.methods.get("ph"))
         progress("building grids")
         excl_union = None if exclusions.empty else shapely.union_all(exclusions.geometry.values)
         grids = aligned_grids(paddocks, cell_size_m=s.grid.cell_size_m, exclusions=excl_union)
+        # which rules each paddock's samples let run: a rule that is enabled but cannot run
+        # on a paddock is a warning here (check) as in the run (the same words); a rule
+        # switched on that cannot run, or a product that does not fit, is a problem
+        skipped: dict[str, list[tuple[str, str]]] = {}
+        for name in grids:
+            have = _paddock_variables(samples, name, variables,
+                                      borrow=s.interpolation.borrow_farm_surface)
+            have |= _derivable(sorted(have))
+            method, _ = rule_ph({v: v for v in have})
+            if method is not None:
+                have = (have - {"ph_cacl2"}) | {"ph"}
+            rates = s.rates.for_paddock(name)
+            if attempt(check_inputs, rates, have, products, ph_method=method,
+                       fallback=False) is False:
+                break  # the same setting would fail on every paddock: named once
+            skipped[name] = plan_rules(rates, have, ph_method=method)[1]
+        rule_notes = rule_warnings(skipped, s.rates)
+        # a covariate raster is opened and checked against every paddock before kriging
+        if s.soil.bulk_density_raster is not None:
+            for name, grid in grids.items():
+                got = attempt(bulk_density_on_grid, s.soil.bulk_density_raster, grid,
+                              fallback_g_cm3=float(s.soil.bulk_density_for(name)),
+                              fallback=False)
+                if got is False:
+                    break
     return Prepared(
         project=project, crs=crs, crs_reason=reason, paddocks=paddocks, exclusions=exclusions,
         user_zones=user_zones, read=read, samples=samples, grids=grids, variables=variables,
-        products=products, rule_notes=list(rule_notes), warnings=sink,
+        products=products, rule_notes=list(rule_notes), warnings=sink, problems=problems,
         boundaries_crs=boundaries_crs,
         paddock_files=paddock_files, product_files=product_files,
     )
@@ -271,6 +323,46 @@ def _file_names(names: list[str], *, what: str, mode: str,
                 DataWarning, stacklevel=2,
             )
     return got.files
+def _paddock_variables(
+    samples: gpd.GeoDataFrame, name: str, variables: list[str], *, borrow: bool
+) -> set[str]:
+    """The variables a paddock's surfaces will hold (the farm's for a borrowed paddock)."""
+    pts = samples[samples["paddock"] == name] if "paddock" in samples.columns else samples
+    if pts.empty and borrow:
+        pts = samples
+    return {v for v in variables if v in pts.columns and pts[v].notna().any()}
+
+
+def rule_warnings(
+    skipped: dict[str, list[tuple[str, str]]], settings: Any
+) -> list[str]:
+    """One warning per rule that is enabled but cannot run, naming the paddocks and why.
+
+    Parameters
+    ----------
+    skipped : dict
+        Paddock -> ``(rule, reason)`` of each rule skipped there (from
+        :func:`geosoil.rates.plan_rules` or a :class:`~geosoil.rates.RateResult`).
+    settings : RateSettings
+        The rate settings (for the lime methods the data would allow).
+
+    Returns
+    -------
+    list of str
+        Warnings, in rule order.
+    """
+    by_reason: dict[tuple[str, str], list[str]] = {}
+    for name, pairs in skipped.items():
+        for rule, reason in pairs:
+            by_reason.setdefault((rule, reason), []).append(name)
+    out = []
+    for (rule, reason), names in by_reason.items():
+        where = ("every paddock" if len(names) == len(skipped) and len(names) > 1
+                 else "paddock " + ", ".join(f"'{n}'" for n in names))
+        key = "rates.lime.method" if rule == "lime" else f"rates.{rule}.enabled"
+        out.append(f"{rule} rule is enabled but cannot run on {where}: {reason} (set {key}, "
+                   "or give the samples it needs)")
+    return out
 
 
 def _derivable(variables: list[str]) -> set[str]:
@@ -430,11 +522,16 @@ class FarmResult:
     zones: gpd.GeoDataFrame
     tonnage: pd.DataFrame
     timings: dict[str, float]
+    rule_notes: list[str] = field(default_factory=list)
 
     @property
     def warnings(self) -> list[str]:
-        """Every warning recorded while reading, interpolating and computing."""
-        return self.prep.warnings
+        """The run's one list of warnings: what reading, interpolating, computing and
+        writing raised (the pure-material product defaults among them) and each enabled rule
+        that could not run on a paddock. The CLI summary, ``run.json`` and the report all
+        show this list (the report shows each paddock's notes on its cells, rates and zones
+        apart)."""
+        return list(dict.fromkeys([*self.prep.warnings, *self.rule_notes]))
 
 
 def compute(
@@ -494,7 +591,7 @@ def compute(
                 continue
             progress(f"rates and zones: {name}")
             est = {v: surfaces[(name, v)].estimate for v in prep.variables if (name, v) in surfaces}
-            cells, cell_notes = derive_cells(est)
+            cells, cell_notes = derive_cells(est, s.chemistry)
             cells.update(salinity_cells(cells, s.salinity))
             bd: float | np.ndarray = s.soil.bulk_density_for(name)
             if s.soil.bulk_density_raster is not None:
@@ -502,13 +599,15 @@ def compute(
                     s.soil.bulk_density_raster, grid, fallback_g_cm3=float(bd)
                 )
                 cells["bulk_density"] = bd
+            # the rules read pH in water where the lab gave it, else pH in CaCl2
+            method, ph = rule_ph(cells)
             rr = compute_rates(
-                cells,
+                {**cells, "ph": ph} if method is not None else cells,
                 s.rates.for_paddock(name),
                 prep.products,
                 depth_m=s.soil.depth_m,
                 bulk_density_g_cm3=bd,
-                ph_method=prep.read.methods.get("ph"),
+                ph_method=method,
                 scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
             )
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
@@ -555,13 +654,32 @@ def compute(
         zones_all = gpd.GeoDataFrame(
             pd.concat(all_zones, ignore_index=True), crs=prep.crs
         ) if all_zones else _no_zones(prep.crs)
+        _warn_uncertified(results, s.products)
         table = tonnage_table(
             zones_all,
             capacity_t=s.tonnage.truck_capacity_t,
             price_per_t=s.tonnage.price_per_t or None,
         )
     timings["rates, zones and tonnage"] = time.perf_counter() - t0
-    return FarmResult(prep, surfaces, hit, results, zones_all, table, timings)
+    notes = rule_warnings({n: list(pr.rates.skipped) for n, pr in results.items()}, s.rates)
+    return FarmResult(prep, surfaces, hit, results, zones_all, table, timings, notes)
+
+
+def _warn_uncertified(results: dict[str, PaddockResult], products: Any) -> None:
+    """Once per product a run applies that still carries the pure-material defaults."""
+    used = sorted({p for pr in results.values() for p, r in pr.rates.product_rates.items()
+                   if np.nansum(r) > 0})
+    for name in used:
+        keys = uncertified(name, products.get(name) or ProductSettings())
+        if keys:
+            warnings.warn(
+                f"product '{name}' still carries the pure-material defaults (100 % pure, dry"
+                + (", fully fine" if any("percent_passing" in k for k in keys) else "")
+                + "): real products are commonly 70-90 % pure with 5-15 % moisture, so its "
+                "rates may be 10-40 % short (common practice); put the certificate's figures "
+                "in " + ", ".join(keys),
+                RateWarning, stacklevel=2,
+            )
 
 
 def _no_zones(crs: Any) -> gpd.GeoDataFrame:
@@ -601,7 +719,10 @@ def check(project: Project) -> tuple[list[str], list[str]]:
 
     try:
         with record_warnings(raised):
-            prep = prepare(trial)
+            prep = prepare(trial, undecided="keep", listing=True)
+        for header, why in prep.read.undecided.items():
+            problems.append(f"{prep.read.file}, column '{header}': {why}")
+        problems.extend(prep.problems)
         if strict:
             # rows a run with on_bad_row = "stop" would stop at: skipped here only to list
             # them all

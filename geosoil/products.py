@@ -33,7 +33,11 @@ sieves) or ENV directly, and moisture. Rules used, in this order:
 2. Purity scales every pure-material value (Ca, Mg, K, S and CCE).
 3. A certificate Ca, Mg, K, S or CCE value replaces the purity-scaled value
    (a certificate figure already describes the product, so purity is not
-   applied to it again).
+   applied to it again). A neutralising value on a CaO basis
+   (``nv_cao_percent``) is converted, CCE = NV x M(CaCO3)/M(CaO) = NV x 1.7848.
+   A liming material's Ca (and Mg) follow a certificate CCE (Ca = Ca of the
+   pure material x CCE / CCE of the pure material) unless the certificate
+   states them.
 4. Fineness factor: from the percent passing each sieve with the configured
    factors (default: the Cornell Cooperative Extension scheme, factor 0 for
    the part retained on 20 mesh, 0.40 for 20-60 mesh, 0.80 for 60-100 mesh,
@@ -78,6 +82,9 @@ __all__ = [
     "CORNELL_SIEVES_MESH",
     "CORNELL_FACTORS",
     "molar_mass",
+    "CCE_PER_NV_CAO",
+    "cce_from_nv_cao",
+    "uncertified",
     "fineness_factor",
     "resolve_products",
     "default_products",
@@ -106,6 +113,35 @@ def molar_mass(formula: Mapping[str, int]) -> float:
     172.16
     """
     return sum(ATOMIC_WEIGHT[el] * n for el, n in formula.items())
+
+
+#: CCE (CaCO3 basis) per unit of neutralising value on a CaO basis: M(CaCO3) / M(CaO),
+#: about 100.09 / 56.08 = 1.7848 ([derived]: both neutralise 2 mol of H+ per mol).
+CCE_PER_NV_CAO: float = molar_mass({"Ca": 1, "C": 1, "O": 3}) / molar_mass({"Ca": 1, "O": 1})
+
+
+def cce_from_nv_cao(nv_cao_percent: float) -> float:
+    """Calcium carbonate equivalent (%) from a neutralising value on a CaO basis (%).
+
+    Certificates in several countries state the neutralising value as CaO
+    (pure CaCO3 = 56.0); entered as a CCE it would over-apply lime 1.78-fold.
+
+    Parameters
+    ----------
+    nv_cao_percent
+        Neutralising value, % CaO.
+
+    Returns
+    -------
+    float
+        CCE, % CaCO3.
+
+    Examples
+    --------
+    >>> round(cce_from_nv_cao(56.0), 1), round(cce_from_nv_cao(54.0), 1)  # [derived]
+    (99.9, 96.4)
+    """
+    return nv_cao_percent * CCE_PER_NV_CAO
 
 
 @dataclass(frozen=True)
@@ -302,8 +338,13 @@ class ProductSettings:
         None, doc="sulfur on the certificate", unit="%", minimum=0.0, maximum=100.0
     )
     cce_percent: float | None = setting(
-        None, doc="calcium carbonate equivalent (neutralising value) on the certificate",
-        unit="%", minimum=0.0, maximum=250.0,
+        None, doc="neutralising value on a CaCO3 basis (calcium carbonate equivalent, CCE; pure "
+        "CaCO3 = 100) on the certificate", unit="%", minimum=0.0, maximum=250.0,
+    )
+    nv_cao_percent: float | None = setting(
+        None, doc="neutralising value on a CaO basis (pure CaCO3 = 56) on the certificate, "
+        "instead of cce_percent; CCE = NV x 100.09 / 56.08", unit="%", minimum=0.0,
+        maximum=140.0,
     )
     percent_passing: tuple[float, ...] = setting(
         default_factory=tuple,
@@ -333,6 +374,11 @@ class ProductSettings:
 
     def __post_init__(self) -> None:
         _check_declared(self)
+        if self.cce_percent is not None and self.nv_cao_percent is not None:
+            raise SettingsError(
+                "give the neutralising value once: cce_percent (CaCO3 basis) or nv_cao_percent "
+                "(CaO basis), not both", key="nv_cao_percent",
+            )
         if self.percent_passing:
             fineness_factor(
                 percent_passing=self.percent_passing,
@@ -440,7 +486,14 @@ def _resolve_one(name: str, ps: ProductSettings) -> Product:
                     f"{element} {pure * 100:.2f} % in pure {mat.formula} (stoichiometry) "
                     f"x purity {ps.purity_percent:g} %"
                 )
-    if ps.cce_percent is not None:
+    if ps.nv_cao_percent is not None:
+        cce = cce_from_nv_cao(ps.nv_cao_percent) / 100.0
+        prov.append(
+            f"CCE {cce * 100:.2f} % from the certificate's neutralising value "
+            f"{ps.nv_cao_percent:g} % CaO x {CCE_PER_NV_CAO:.4f} (M(CaCO3) / M(CaO), [derived]; "
+            f"{ps.analysis_basis} basis)"
+        )
+    elif ps.cce_percent is not None:
         cce = ps.cce_percent / 100.0
         prov.append(f"CCE {ps.cce_percent:g} % from the certificate ({ps.analysis_basis} basis)")
     else:
@@ -450,6 +503,20 @@ def _resolve_one(name: str, ps: ProductSettings) -> Product:
                 f"CCE {mat.cce * 100:.2f} % for pure {mat.formula} (stoichiometry) "
                 f"x purity {ps.purity_percent:g} %"
             )
+    certified_cce = ps.cce_percent is not None or ps.nv_cao_percent is not None
+    if certified_cce and mat.cce > 0:
+        # the neutralising value says how much of the pure material the product holds: a
+        # liming material's Ca and Mg follow it unless the certificate states them
+        share = cce / mat.cce
+        for element, cert in (("Ca", ps.ca_percent), ("Mg", ps.mg_percent)):
+            pure = mat.fraction(element)
+            if cert is None and pure > 0:
+                values[element] = pure * share
+                prov = [ln for ln in prov if not ln.startswith(f"{element} ")]
+                prov.append(
+                    f"{element} {pure * 100:.2f} % in pure {mat.formula} (stoichiometry) x "
+                    f"CCE {cce * 100:.2f} % / {mat.cce * 100:.2f} % of the pure material"
+                )
     if ps.env_percent is not None:
         env = ps.env_percent / 100.0
         if env > cce + 1e-12:
@@ -550,3 +617,46 @@ def default_products() -> dict[str, Product]:
     ['dolomite', 'gypsum', 'hydrated_lime', 'lime', 'potassium_sulfate', 'quicklime']
     """
     return resolve_products({k: ProductSettings() for k in MATERIALS if k != "custom"})
+
+
+def uncertified(name: str, ps: ProductSettings) -> list[str]:
+    """The certificate keys of a product left at the pure-material defaults.
+
+    Empty when the product carries any certificate figure or a purity or
+    moisture below the pure, dry material's. Real products are commonly 70-90 %
+    pure with 5-15 % moisture (common practice), so rates from the pure-material
+    defaults can be 10-40 % short.
+
+    Parameters
+    ----------
+    name
+        The product's key.
+    ps
+        Its settings.
+
+    Returns
+    -------
+    list of str
+        Dotted keys to set (``products.<name>.purity_percent`` ...); empty when
+        the certificate was given.
+
+    Examples
+    --------
+    >>> uncertified("lime", ProductSettings())[:2]
+    ['products.lime.purity_percent', 'products.lime.moisture_percent']
+    >>> uncertified("lime", ProductSettings(cce_percent=92.0))
+    []
+    """
+    given = (
+        ps.purity_percent != 100.0, ps.moisture_percent != 0.0, ps.ca_percent is not None,
+        ps.mg_percent is not None, ps.k_percent is not None, ps.s_percent is not None,
+        ps.cce_percent is not None, ps.nv_cao_percent is not None, ps.env_percent is not None,
+        bool(ps.percent_passing),
+    )
+    if any(given):
+        return []
+    material = MATERIALS.get(ps.material if ps.material is not None else name)
+    keys = ["purity_percent", "moisture_percent"]
+    if material is not None and material.cce > 0:
+        keys += ["cce_percent (or nv_cao_percent)", "percent_passing (or env_percent)"]
+    return [f"products.{name}.{k}" for k in keys]

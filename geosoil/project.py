@@ -614,11 +614,18 @@ def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
     """The lime method (and target pH method) a new project starts from, with notes."""
     from .rates import AL_METHODS, LimeRule, _lime_problem, choose_lime_method
 
+    from .chemistry import rule_ph
+
     cols = set(read.columns)
     available = set(cols)
     if {"ca", "mg", "k", "na"} <= cols or "cec" in cols:
         available.add("ecec")
-    ph_method = read.methods.get("ph") or "water"
+    if cols & {"al", "h"}:
+        available.add("acidity")  # Al + H given apart make the exchangeable acidity
+    method, _ = rule_ph({c: c for c in cols})
+    if method is not None:
+        available = (available - {"ph_cacl2"}) | {"ph"}
+    ph_method = method or "water"
     lime = LimeRule(method="auto")
     target_source = ""
     if ph_method == "CaCl2":
@@ -718,7 +725,7 @@ def new_project(
     pads = read_paddocks(boundaries)
     trial = SampleSettings(file=samples, crs=crs)
     try:
-        read = read_samples(trial)
+        read = read_samples(trial, undecided="keep")
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
@@ -731,7 +738,7 @@ def new_project(
                 f"{ask}: the boundaries are in longitude/latitude ({pads.crs.name})"
             ) from None
         guess = pads.crs.to_string()
-        read = read_samples(dataclasses.replace(trial, crs=guess))
+        read = read_samples(dataclasses.replace(trial, crs=guess), undecided="keep")
         area = pads.geometry.union_all()
         pts = read.samples.geometry
         inside = float(np.mean(shapely.contains_xy(area, pts.x.to_numpy(), pts.y.to_numpy())))
@@ -778,6 +785,9 @@ def new_project(
     notes.append(
         "units: " + ", ".join(f"{k} {v}" for k, v in read.units.items() if v)
     )
+    notes.extend(read.readings.values())
+    for why in read.undecided.values():
+        notes.append(f"{why}; 'check' and 'run' stop at this column until then")
     sample_settings = dataclasses.replace(
         trial,
         file=_relative(samples, folder),

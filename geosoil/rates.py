@@ -42,6 +42,14 @@ Guard (common practice): no liming product on cells whose pH is above
 ``lime_below_ph`` may not exceed the guard limit); the balance rule puts the
 calcium of withheld dolomite on as its (non-liming) calcium product.
 
+Every pH threshold has a value for pH in water and one for pH in CaCl2
+(``no_lime_above_ph`` / ``no_lime_above_ph_cacl2``, ``lime_below_ph`` /
+``lime_below_ph_cacl2``); the ``ph`` surface is pH in water or, where the lab
+gave pH in CaCl2 only, pH in CaCl2 (``compute_rates(..., ph_method=)``; see
+:func:`geosoil.chemistry.rule_ph`), and each threshold takes its own value (common
+practice: pH in CaCl2 reads about 0.5-0.8 below pH in water). pH is never
+converted from one method to the other, and pH in KCl has no thresholds.
+
 Negative interpolated amounts are read as 0. NaN in gives NaN out.
 
 Rates are advisory: have them checked by a qualified agronomist before
@@ -237,7 +245,7 @@ _ASK = {
 }
 
 _UNIT = {
-    "esp": "%", "ca_sat": "%", "mg_sat": "%", "k_sat": "%", "ph": "",
+    "esp": "%", "ca_sat": "%", "mg_sat": "%", "k_sat": "%", "ph": "", "ph_cacl2": "",
 }
 
 
@@ -470,8 +478,14 @@ class CalciumRule:
     )
     lime_below_ph: float = setting(
         6.0,
-        doc="calcium goes on as the lime product below this pH and as the gypsum product at or "
-        "above it (same pH method as the lab's)",
+        doc="calcium goes on as the lime product below this pH in water and as the gypsum "
+        "product at or above it (common practice)",
+        minimum=2.0, maximum=11.0,
+    )
+    lime_below_ph_cacl2: float = setting(
+        5.4,
+        doc="the same switch when the lab gave pH in CaCl2 only (common practice: pH in CaCl2 "
+        "reads about 0.5-0.8 below pH in water)",
         minimum=2.0, maximum=11.0,
     )
     lime_product: str = setting("lime", doc="liming product key used on acid cells")
@@ -555,7 +569,12 @@ class RateSettings:
         True, doc="withhold liming products where pH is above no_lime_above_ph (common practice)"
     )
     no_lime_above_ph: float = setting(
-        7.0, doc="pH above which no liming product goes on (common practice: about 7)",
+        7.0, doc="pH in water above which no liming product goes on (common practice: about 7)",
+        minimum=2.0, maximum=11.0,
+    )
+    no_lime_above_ph_cacl2: float = setting(
+        6.4, doc="the same limit when the lab gave pH in CaCl2 only (common practice: pH in "
+        "CaCl2 reads about 0.5-0.8 below pH in water)",
         minimum=2.0, maximum=11.0,
     )
 
@@ -576,12 +595,33 @@ class RateSettings:
 
     def __post_init__(self) -> None:
         _check_declared(self)
-        if self.ph_guard and self.calcium.lime_below_ph > self.no_lime_above_ph:
-            raise SettingsError(
-                f"lime_below_ph {self.calcium.lime_below_ph:g} is above the pH guard "
-                f"no_lime_above_ph {self.no_lime_above_ph:g}; lower it or raise the guard",
-                key="calcium.lime_below_ph",
-            )
+        for switch, guard, suffix in (
+            (self.calcium.lime_below_ph, self.no_lime_above_ph, ""),
+            (self.calcium.lime_below_ph_cacl2, self.no_lime_above_ph_cacl2, "_cacl2"),
+        ):
+            if self.ph_guard and switch > guard:
+                raise SettingsError(
+                    f"lime_below_ph{suffix} {switch:g} is above the pH guard "
+                    f"no_lime_above_ph{suffix} {guard:g}; lower it or raise the guard",
+                    key=f"calcium.lime_below_ph{suffix}",
+                )
+
+    def ph_limits(self, method: str) -> tuple[float, float]:
+        """(no-lime guard, calcium rule's lime/gypsum switch) for pH in ``method``.
+
+        Parameters
+        ----------
+        method : str
+            "water" or "CaCl2".
+
+        Returns
+        -------
+        tuple of float
+            The guard limit and the switch.
+        """
+        if method == "CaCl2":
+            return self.no_lime_above_ph_cacl2, self.calcium.lime_below_ph_cacl2
+        return self.no_lime_above_ph, self.calcium.lime_below_ph
 
 
 # --------------------------------------------------------------------------- results
@@ -992,8 +1032,8 @@ def inputs_used(
     for rule in runs:
         for n in _needs(rule, settings):
             used.update(_source_of(n, avail) or ())
-    if "ph" in avail and settings.ph_guard and runs:
-        used.add("ph")
+    if settings.ph_guard and runs:
+        used.update(_source_of("ph", avail) or ())
     return sorted(used)
 
 
@@ -1048,6 +1088,7 @@ class _Cells:
         self.trace = trace
         self.cache: dict[str, NDArray[np.float64]] = {}
         self.om_factor = om_factor
+        self.ph_method = "water"  # the method of the "ph" surface: "water" or "CaCl2"
         self.notes: list[str] = []
 
     def get(self, name: str) -> NDArray[np.float64]:
@@ -1106,6 +1147,17 @@ class _Cells:
                            v, "cmol(+)/kg", _DERIVED)
         self.cache[name] = v
         return v
+
+
+def _ph_method(cells: _Cells) -> str | None:
+    """Which pH the rules compare with their thresholds: "water", "CaCl2" or None (no pH)."""
+    if "ph" not in cells.arrays:
+        return None
+    return "CaCl2" if getattr(cells, "ph_method", "water") == "CaCl2" else "water"
+
+
+def _ph_label(method: str) -> str:
+    return "pH" if method == "water" else "pH (CaCl2)"
 
 
 def _safe_div(a: ArrayLike, b: ArrayLike) -> NDArray[np.float64]:
@@ -1283,26 +1335,29 @@ def _ph_guard(
     """Withhold a liming product where pH is above the limit. Returns (rate, withheld)."""
     if not (settings.ph_guard and product.liming):
         return rate, np.zeros(np.shape(rate), dtype=bool)
-    if "ph" not in cells.arrays:
+    method = _ph_method(cells)
+    if method is None:
         st.notes.append(
-            f"pH guard not applied to the {rule} rule's {product.name}: no pH surface "
-            "(common practice is no lime above pH about 7)"
+            f"pH guard not applied to the {rule} rule's {product.name}: no pH in water or CaCl2 "
+            "(common practice is no lime above pH about 7 in water)"
         )
-        trace.note(rule, "pH guard not applied: no pH given")
+        trace.note(rule, "pH guard not applied: no pH in water or CaCl2 given")
         return rate, np.zeros(np.shape(rate), dtype=bool)
-    ph = cells.arrays["ph"]
-    withheld = (ph > settings.no_lime_above_ph) & (np.asarray(rate) > 0)
-    out = _select(ph > settings.no_lime_above_ph, 0.0, rate, ph)
-    trace.add(rule, "pH guard: no liming product above the pH limit",
+    ph = cells.get("ph")
+    limit, _ = settings.ph_limits(method)
+    label = _ph_label(method)
+    withheld = (ph > limit) & (np.asarray(rate) > 0)
+    out = _select(ph > limit, 0.0, rate, ph)
+    trace.add(rule, f"pH guard: no liming product above the {label} limit",
               "rate = 0 where pH > limit",
-              {"pH": (ph, ""), "limit": (settings.no_lime_above_ph, ""),
+              {label: (ph, ""), "limit": (limit, ""),
                "rate before": (rate, "kg/ha")},
               out, "kg/ha", _GUARD_SOURCE)
     n = int(np.count_nonzero(withheld))
     if n:
         st.notes.append(
-            f"pH guard: {rule} rule's {product.name} withheld on {n} cell(s) with pH above "
-            f"{settings.no_lime_above_ph:g} (common practice)"
+            f"pH guard: {rule} rule's {product.name} withheld on {n} cell(s) with {label} above "
+            f"{limit:g} (common practice)"
         )
     st.guarded = np.logical_or(st.guarded, withheld)
     return out, withheld
@@ -1533,14 +1588,18 @@ def _rule_calcium(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
               "max(minimum - Ca - Ca from earlier rules, 0)",
               {"minimum": (minimum, "cmol(+)/kg"), "Ca": (ca, "cmol(+)/kg"),
                "Ca from earlier rules": (counted, "cmol(+)/kg")}, deficit, "cmol(+)/kg", src)
-    acid = ph < cr.lime_below_ph
+    method = _ph_method(cells) or "water"
+    guard, switch = s.ph_limits(method)
+    label = _ph_label(method)
+    acid = ph < switch
     if s.ph_guard:
-        acid = acid & (ph <= s.no_lime_above_ph)
+        acid = acid & (ph <= guard)
     lime_amt = _select(acid, deficit, 0.0, ph)
     gyp_amt = _select(acid, 0.0, deficit, ph)
-    trace.add("calcium", f"product by pH: {lime_p.name} below pH {cr.lime_below_ph:g}, "
-              f"{gyp_p.name} otherwise", "acid = pH < lime_below_ph",
-              {"pH": (ph, ""), "lime_below_ph": (cr.lime_below_ph, "")}, acid, "(1 = acid)",
+    key = "lime_below_ph" if method == "water" else "lime_below_ph_cacl2"
+    trace.add("calcium", f"product by pH: {lime_p.name} below {label} {switch:g}, "
+              f"{gyp_p.name} otherwise", f"acid = pH < {key}",
+              {label: (ph, ""), key: (switch, "")}, acid, "(1 = acid)",
               "[common practice]")
     for p, amt in ((lime_p, lime_amt), (gyp_p, gyp_amt)):
         t = trace if (not trace.enabled or float(np.asarray(amt)) != 0.0) else _QUIET
@@ -1588,16 +1647,18 @@ def _rule_balance(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
               mg_def - mg_exc, "cmol(+)/kg", src)
     both = (ca_def > 0) & (mg_def > 0)
     blocked = np.zeros(np.shape(both), dtype=bool)
-    if s.ph_guard and "ph" in cells.arrays:
-        ph = cells.arrays["ph"]
-        blocked = both & (ph > s.no_lime_above_ph)
+    method = _ph_method(cells)
+    if s.ph_guard and method is not None:
+        ph = cells.get("ph")
+        limit, _ = s.ph_limits(method)
+        blocked = both & (ph > limit)
         dol_amt = _select(both & ~blocked, mg_def, 0.0, ph)
         n = int(np.count_nonzero(blocked))
         if n:
             st.notes.append(
-                f"pH guard: balance rule's {dol_p.name} withheld on {n} cell(s) with pH above "
-                f"{s.no_lime_above_ph:g} (common practice); their Ca goes on as {ca_p.name}, their "
-                "Mg shortfall is not met"
+                f"pH guard: balance rule's {dol_p.name} withheld on {n} cell(s) with "
+                f"{_ph_label(method)} above {limit:g} (common practice); their Ca goes on as "
+                f"{ca_p.name}, their Mg shortfall is not met"
             )
         st.guarded = np.logical_or(st.guarded, blocked)
     else:
@@ -1673,6 +1734,7 @@ def _run(
     settings = _resolve(settings, set(arrays), soil.ph_method)
     _validate_products(settings, runs, products)
     cells = _Cells(arrays, trace, om_factor=settings.lime.om_to_oc_factor)
+    cells.ph_method = soil.ph_method
     st = _State(contributions={}, notes=[], methods={})
     for rule, reason in skipped:
         st.notes.append(f"{rule} rule skipped: {reason}")
@@ -1853,9 +1915,10 @@ def compute_rates(
         for pair, rate in result.contributions.items():
             result.contributions[pair] = _full(rate, shape)
     if result.ph_guard_cells:
+        method = "CaCl2" if ph_method == "CaCl2" else "water"
         warnings.warn(
-            f"pH guard withheld liming products on {result.ph_guard_cells} cell(s) with pH above "
-            f"{settings.no_lime_above_ph:g}",
+            f"pH guard withheld liming products on {result.ph_guard_cells} cell(s) with "
+            f"{_ph_label(method)} above {settings.ph_limits(method)[0]:g}",
             RateWarning,
             stacklevel=2,
         )

@@ -66,7 +66,15 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from .chemistry import DERIVED
-from .columns import BUFFER_PH, CANONICAL, PROPERTIES, UNITLESS, detect_columns, parse_header
+from .columns import (
+    BUFFER_PH,
+    CANONICAL,
+    PH_METHODS,
+    PROPERTIES,
+    UNITLESS,
+    detect_columns,
+    parse_header,
+)
 from .crs import describe_crs, parse_crs
 from .errors import CRSError, DataWarning, InputError, SettingsError
 from .salinity import to_ds_m
@@ -107,6 +115,7 @@ PLAUSIBLE_MAX_CMOL: dict[str, float] = {
     "al": 30.0,
     "h": 30.0,
     "acidity": 40.0,
+    "acidity_potential": 60.0,
     "cec": 300.0,
     "cec_ph7": 300.0,
 }
@@ -175,7 +184,7 @@ class SampleSettings:
         "cmol/kg", doc="unit of exchangeable columns whose header names none"
     )
     empty_allowed: tuple[str, ...] = setting(
-        ("al", "h", "acidity", "cec", "sar", *BUFFER_PH),
+        ("al", "h", "acidity", "acidity_potential", "cec", "sar", "sar_1to5", *BUFFER_PH),
         doc="analytes whose empty cells mean 'not measured' (elsewhere an empty cell is an error)",
     )
     below_detection: str = setting(
@@ -223,7 +232,7 @@ class SampleSettings:
                     )
                 continue
             unit = _checked_unit(unit, key=f"units.{analyte}")
-            if unit == "mg/kg" and analyte in ("acidity", "cec", "cec_ph7"):
+            if unit == "mg/kg" and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
                 raise SettingsError(
                     f"{analyte} has no mg/kg form; use cmol/kg, meq/100g or mmol/kg",
                     key=f"units.{analyte}",
@@ -260,6 +269,12 @@ class SampleRead:
         "water", "CaCl2" or None; pass it to :func:`geosoil.chemistry.derive`).
     skipped
         (row, reason) of each row passed over (``on_bad_row = "skip"``).
+    readings
+        Header -> the usual reading taken for a detected header that names no
+        method (a bare "pH" read as pH in water), with the setting that changes it.
+    undecided
+        Header -> why it was not read (an acidity that names neither the
+        exchangeable nor the potential method); only with ``undecided="keep"``.
     crs
         CRS of ``samples``.
     file
@@ -273,6 +288,8 @@ class SampleRead:
     skipped: list[tuple[int, str]]
     crs: pyproj.CRS
     file: Path
+    readings: dict[str, str] = dataclasses.field(default_factory=dict)
+    undecided: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 class CRSInputError(InputError, CRSError):
@@ -662,8 +679,10 @@ def _nearest(header: str, headers: Sequence[str]) -> str:
 def _map_columns(
     headers: list[str], settings: SampleSettings, name: str, header_row: int | None,
     *, need_xy: bool, described: Mapping[str, str] | None = None,
-) -> tuple[dict[str, str], str, tuple[str, str] | None, bool | None, dict[str, str | None]]:
-    """Analyte -> header, ID header, coordinate headers, lon/lat or not, methods.
+) -> tuple[dict[str, str], str, tuple[str, str] | None, bool | None, dict[str, str | None],
+           dict[str, str], dict[str, str]]:
+    """Analyte -> header, ID header, coordinate headers, lon/lat or not, methods,
+    readings and undecided headers (see :class:`SampleRead`).
 
     ``described`` gives a header with the unit from the units row under it
     ("Exch Ca" -> "Exch Ca (meq/100g)"): detection reads that; the header is returned.
@@ -744,7 +763,12 @@ def _map_columns(
             False if roles == ("east", "north") else None)
         xy = (x, y)
     _check_roles(columns, id_header, xy, name, header_row)
-    return columns, id_header, xy, geographic, methods
+    chosen = set(columns.values()) - set(settings.columns.values())
+    readings = {back.get(h, h): r for h, r in raw_guess.readings.items()
+                if back.get(h, h) in chosen}
+    undecided = {back.get(h, h): why for h, why in raw_guess.undecided.items()
+                 if back.get(h, h) not in taken}
+    return columns, id_header, xy, geographic, methods, readings, undecided
 
 
 def _check_roles(
@@ -801,7 +825,7 @@ def _units(
             )
         else:
             unit = said or below or normalise_unit(settings.default_unit)
-        if unit == "mg/kg" and analyte in ("acidity", "cec", "cec_ph7"):
+        if unit == "mg/kg" and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
             raise InputError(
                 f"{analyte} has no mg/kg form (default_unit is {settings.default_unit})",
                 file=name, row=header_row, column=header,
@@ -871,7 +895,7 @@ def _analyte_values(
             ))
         return values_c
     if analyte in UNITLESS:
-        low, high = (PLAUSIBLE_PH if analyte == "ph" else PLAUSIBLE_BUFFER_PH
+        low, high = (PLAUSIBLE_PH if analyte in PH_METHODS else PLAUSIBLE_BUFFER_PH
                      if analyte in BUFFER_PH else (0.0, PLAUSIBLE_MAX_SAR))
         for i in np.flatnonzero((numbers < low) | (numbers > high)):
             issues.append(_Issue(
@@ -1025,13 +1049,18 @@ def _vector_points(
 # --------------------------------------------------------------------------- public
 
 
-def read_samples(settings: SampleSettings) -> SampleRead:
+def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> SampleRead:
     """Read and check the lab results named in ``settings``.
 
     Parameters
     ----------
     settings
         Where the file is and how to read it.
+    undecided
+        A column whose meaning cannot be read from its header (an acidity that
+        names neither the exchangeable nor the potential method): "stop" raises
+        :class:`InputError` naming it and the settings that decide it; "keep"
+        reads the rest and lists it in :attr:`SampleRead.undecided`.
 
     Returns
     -------
@@ -1058,10 +1087,19 @@ def read_samples(settings: SampleSettings) -> SampleRead:
     headers = list(table.columns)
     described = {h: f"{h} ({raw.unit_cells[h]})" for h in headers
                  if h in raw.unit_cells and parse_header(h).unit is None}
-    columns, id_header, xy, geographic, methods = _map_columns(
+    columns, id_header, xy, geographic, methods, readings, unsure = _map_columns(
         headers, settings, name, raw.header_row, need_xy=raw.geometry is None,
         described=described,
     )
+    if unsure and undecided == "stop":
+        header, why = next(iter(unsure.items()))
+        more = len(unsure) - 1
+        raise InputError(
+            why.split("; set ")[0] + (f" ({more} more such column(s): "
+                                     + ", ".join(repr(h) for h in list(unsure)[1:]) + ")"
+                                     if more else ""),
+            file=name, row=raw.header_row, column=header, fix="set " + why.split("; set ")[1],
+        )
     units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
                    units_row=raw.units_row)
     per_volume = sorted(a for a, u in units.items() if u in VOLUMETRIC_UNITS)
@@ -1153,7 +1191,7 @@ def read_samples(settings: SampleSettings) -> SampleRead:
     )
     return SampleRead(
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
-        crs=crs, file=Path(settings.file),
+        crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
     )
 
 
@@ -1164,6 +1202,7 @@ def prepare_samples(
     working_crs: pyproj.CRS,
     settings: SampleSettings,
     file: str,
+    duplicates_found: list[str] | None = None,
 ) -> gpd.GeoDataFrame:
     """Reproject samples, name each one's paddock and merge (or refuse) near-duplicates.
 
@@ -1179,6 +1218,11 @@ def prepare_samples(
         ``on_bad_row``, ``duplicates`` and ``duplicate_distance_m`` are used.
     file
         The samples file, named in messages.
+    duplicates_found
+        With ``duplicates = "stop"``: None raises at the first pair of samples
+        closer than ``duplicate_distance_m``; a list gets one problem per pair
+        (and the later sample of each pair is left out), so that ``check`` can
+        name them all beside every other problem.
 
     Returns
     -------
@@ -1207,7 +1251,7 @@ def prepare_samples(
     outside: list[tuple[int, str]] = []
     pts = _assign_paddocks(pts, pads, samples, source_geographic, settings, file, location,
                            outside)
-    pts = _near_duplicates(pts, settings, file, location)
+    pts = _near_duplicates(pts, settings, file, location, duplicates_found)
     pts.attrs["location_column"] = location
     pts.attrs["outside"] = outside
     return pts
@@ -1279,7 +1323,8 @@ _GROUPS_LISTED = 50  # merged groups named one by one in the warning
 
 
 def _near_duplicates(
-    pts: gpd.GeoDataFrame, settings: SampleSettings, file: str, location: str | None
+    pts: gpd.GeoDataFrame, settings: SampleSettings, file: str, location: str | None,
+    found: list[str] | None = None,
 ) -> gpd.GeoDataFrame:
     xy = np.column_stack([pts.geometry.x.to_numpy(), pts.geometry.y.to_numpy()])
     pairs = cKDTree(xy).query_pairs(r=settings.duplicate_distance_m, output_type="ndarray")
@@ -1291,15 +1336,22 @@ def _near_duplicates(
     graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
     _count, label = connected_components(graph, directed=False)
     if settings.duplicates == "stop":
-        a, b = pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))][0]
-        gap = float(np.hypot(*(xy[a] - xy[b])))
-        raise InputError(
-            f"samples '{ids[a]}' (row {rows[a]}) and '{ids[b]}' (row {rows[b]}) are "
-            f"{gap:.2f} m apart; kriging needs distinct points", file=file, row=int(rows[b]),
-            column=location,
-            fix="correct the location, or set [samples] duplicates = 'average' to merge samples "
-            f"closer than duplicate_distance_m = {settings.duplicate_distance_m:g} m",
-        )
+        errors = []
+        for a, b in pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))]:
+            gap = float(np.hypot(*(xy[a] - xy[b])))
+            errors.append(InputError(
+                f"samples '{ids[a]}' (row {rows[a]}) and '{ids[b]}' (row {rows[b]}) are "
+                f"{gap:.2f} m apart; kriging needs distinct points", file=file,
+                row=int(rows[b]), column=location,
+                fix="correct the location, or set [samples] duplicates = 'average' to merge "
+                f"samples closer than duplicate_distance_m = {settings.duplicate_distance_m:g} m",
+            ))
+            if found is None:
+                raise errors[0]
+        assert found is not None
+        found.extend(str(e) for e in errors)
+        later = sorted({int(max(a, b)) for a, b in pairs})
+        return pts.drop(index=pts.index[later]).reset_index(drop=True)
     # every group at once (one pass of groupby, not a loop over groups): the first sample of
     # a group keeps the group's mean values at its mean place; the others are dropped
     idx = np.flatnonzero(np.bincount(label)[label] > 1)

@@ -58,6 +58,7 @@ from numpy.typing import NDArray
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 from scipy.spatial.distance import pdist
 
+from .chemistry import ACIDITY_BASES, ECEC_BASES, ChemistrySettings, exchange_chemistry
 from .errors import InputError, InterpolationWarning, SettingsError
 from .grids import PaddockGrid
 from .kriging import (
@@ -87,7 +88,7 @@ logger = logging.getLogger(__name__)
 
 #: Variables geosoil interpolates when the samples carry them, in this order.
 INTERPOLATED: tuple[str, ...] = (
-    "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "esp",
+    "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "ph_cacl2", "esp",
     "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
     "phbc", "ec_1_5", "ece",
 )
@@ -245,7 +246,8 @@ def variables_to_interpolate(samples: gpd.GeoDataFrame) -> list[str]:
     """The variables the samples can give surfaces for, in :data:`INTERPOLATED` order.
 
     ``esp`` is interpolated directly only when there is no exchangeable Na (ESP
-    estimated from SAR); ``cec`` only when the parts of an ECEC are incomplete;
+    estimated from SAR); ``cec`` only when the parts of an ECEC are incomplete
+    (a part is absent, or a sample's ECEC is the lab's CEC: ``ecec_basis``);
     ``ece`` only when some sample's ECe was measured (an ECe estimated from EC
     1:5 everywhere is the EC 1:5 surface times one factor, made per cell).
 
@@ -267,7 +269,11 @@ def variables_to_interpolate(samples: gpd.GeoDataFrame) -> list[str]:
     parts = {"ca", "mg", "k", "na"}
     if "na" in have and "esp" in have:
         have.remove("esp")
-    if parts <= set(have) and "cec" in have:
+    # the lab's CEC is interpolated while any sample's ECEC rests on it (a part is missing
+    # there), so that cells take their ECEC as those samples do
+    on_lab = ("ecec_basis" in samples.columns
+              and bool((samples["ecec_basis"] == "lab CEC").any()))
+    if parts <= set(have) and "cec" in have and not on_lab:
         have.remove("cec")
     if "ece" in have and "ec_1_5" in have and "ece_estimated" in samples.columns and bool(
             samples["ece_estimated"].astype(bool).all()):
@@ -668,31 +674,36 @@ def interpolate_farm(
 
 def derive_cells(
     surfaces: Mapping[str, NDArray[np.float64]],
+    settings: ChemistrySettings | None = None,
 ) -> tuple[dict[str, NDArray[np.float64]], list[str]]:
     """The cell chemistry of one paddock from its interpolated amounts.
 
-    Each cell's ECEC is the sum of its parts (Ca, Mg, K, Na and exchangeable
-    acidity; exchangeable Al stands in for the acidity where only Al was
-    measured); each saturation is that part's share of the cell's ECEC, so
-    the saturations of the parts add up to 100 %. Where the parts are
-    incomplete the lab's CEC is used as the ECEC (and the shares need not add
-    up). Amounts below zero are set to zero and Al above the exchangeable
-    acidity is lowered to it, with a note each; a surface without any value
-    (a variable the paddock has no samples of) is left out, with a note.
+    The chemistry is :func:`geosoil.chemistry.exchange_chemistry`, the same
+    function that gives each sample its ECEC, saturations and ESP, so a cell
+    and a sample with the same amounts agree (a flat field's cells equal its
+    samples). Before it, interpolation artefacts are cleared: amounts below
+    zero are set to zero, ESP is kept within 0-100 % and Al above the
+    exchangeable acidity is lowered to it, with a note each; a surface without
+    any value (a variable the paddock has no samples of) is left out, with a
+    note.
 
     Parameters
     ----------
     surfaces
         Variable -> estimate array (cmol(+)/kg; ``esp`` percent; pH unitless),
         NaN outside.
+    settings
+        The chemistry settings (``neutral_ph``, ``neutral_ph_cacl2``); defaults when None.
 
     Returns
     -------
     cells, notes
         ``cells`` holds the amounts, ``ecec`` and the saturations ``ca_sat``,
         ``mg_sat``, ``k_sat``, ``na_sat``, ``esp``, ``acid_sat``, ``al_sat``
-        (percent of the cell's ECEC) and ``ph`` where given. A cell with an
-        ECEC of 0 has saturations of 0.
+        (percent of the cell's ECEC), the exchangeable ``acidity`` the ECEC
+        counts, and ``ph`` / ``ph_cacl2`` where given. A derived quantity that
+        no cell has is left out (so a rule that needs it is reported as unable
+        to run).
 
     Examples
     --------
@@ -728,36 +739,33 @@ def derive_cells(
                 f"al: {int(above.sum())} cells above the exchangeable acidity were lowered to it"
             )
             cells["al"] = np.where(above, cells["acidity"], cells["al"])
-    acid = "acidity" if "acidity" in cells else ("al" if "al" in cells else None)
-    bases = ("ca", "mg", "k", "na")
-    if set(bases) <= set(cells):
-        ecec = cells["ca"] + cells["mg"] + cells["k"] + cells["na"]
-        if acid is None:
-            notes.append("no exchangeable acidity: ECEC is the sum of Ca, Mg, K and Na")
-        else:
-            ecec = ecec + cells[acid]
-            if acid == "al":
-                notes.append(
-                    "no exchangeable acidity: ECEC is the sum of Ca, Mg, K, Na and Al "
-                    "(exchangeable H unknown)"
-                )
-        cells["ecec"] = ecec
-    elif "cec" in cells:
-        cells["ecec"] = cells["cec"]
-        notes.append("ECEC taken from the lab's CEC (its parts are incomplete)")
-    if "ecec" in cells:
-        ecec = cells["ecec"]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            for p, sat in (("ca", "ca_sat"), ("mg", "mg_sat"), ("k", "k_sat"),
-                           ("na", "na_sat"), (acid, "acid_sat"), ("al", "al_sat")):
-                if p is not None and p in cells:
-                    share = np.clip(np.where(ecec > 0, 100.0 * cells[p] / ecec, 0.0), 0, 100)
-                    share[np.isnan(ecec) | np.isnan(cells[p])] = np.nan
-                    cells[sat] = share
-        if "na_sat" in cells:
-            cells["esp"] = cells["na_sat"]
-        elif "esp" in cells:
-            cells["na"] = cells["esp"] / 100.0 * ecec
-            cells["na_sat"] = cells["esp"]
-            notes.append("ESP interpolated from SAR-based estimates (Na not measured)")
+    if not cells:
+        return cells, notes
+    chem = exchange_chemistry(
+        {k: cells.get(k) for k in ("ca", "mg", "k", "na", "acidity", "al", "h", "cec", "ph",
+                                   "ph_cacl2", "esp")},
+        settings,
+    )
+    inside = np.zeros(np.shape(next(iter(cells.values()))), dtype=bool)
+    for a in cells.values():
+        inside |= np.isfinite(a)
+    basis = chem["ecec_basis"]
+    n_lab = int(np.count_nonzero((basis == ECEC_BASES.index("lab CEC")) & inside))
+    if n_lab:
+        notes.append(f"ECEC taken from the lab's CEC on {n_lab} cell(s) (its parts are "
+                     "incomplete there)")
+    for how in ("Al + H", "Al (H not measured)", "H (Al not measured)",
+                "0 (neutral pH, not measured)"):
+        n = int(np.count_nonzero((chem["acidity_basis"] == ACIDITY_BASES.index(how)) & inside))
+        if n:
+            notes.append(f"exchangeable acidity on {n} cell(s): {how}")
+    for key in ("acidity", "ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "acid_sat",
+                "al_sat"):
+        value = np.asarray(chem[key], dtype=float)
+        if np.isfinite(value).any():
+            cells[key] = value
+    if "na" not in cells and "esp" in cells and "ecec" in cells:
+        # an estimate for the maps; the Na saturation stays empty, as for the samples
+        cells["na"] = cells["esp"] / 100.0 * cells["ecec"]
+        notes.append("ESP interpolated from SAR-based estimates (Na not measured)")
     return cells, notes

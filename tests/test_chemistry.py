@@ -225,10 +225,18 @@ def test_acid_ph_threshold_for_cacl2_and_settings():
     soil = pd.DataFrame({"ca": [8.0], "mg": [2.0], "k": [0.5], "na": [0.5], "acidity": [0.0],
                          "ph": [5.0]})
     assert bool(derive(soil).acid_flag[0])  # 5.0 < 5.5 in water
-    assert not bool(derive(soil, ph_method="CaCl2").acid_flag[0])  # not below 4.8 in CaCl2
+    in_cacl2 = soil.rename(columns={"ph": "ph_cacl2"})
+    assert not bool(derive(in_cacl2).acid_flag[0])  # not below 4.8 in CaCl2
     assert not bool(derive(soil, ChemistrySettings(acid_ph=4.5)).acid_flag[0])
-    with pytest.raises(SettingsError, match="ph_method"):
-        derive(soil, ph_method="KCl")
+    # pH in KCl has no threshold: it flags nothing
+    assert not bool(derive(soil.rename(columns={"ph": "ph_kcl"})).acid_flag[0])
+    # water where the lab gave it, CaCl2 on the rows that lack it
+    both = pd.concat([soil, soil], ignore_index=True).assign(
+        ph=[5.2, np.nan], ph_cacl2=[4.9, 4.7])
+    got = derive(both)
+    assert got.acid_flag.tolist() == [True, True]
+    assert got.acid_reason.tolist()[0].startswith("pH 5.2 below 5.5")
+    assert got.acid_reason.tolist()[1].startswith("pH (CaCl2) 4.7 below 4.8")
 
 
 def test_derive_adds_the_contract_columns_and_leaves_input_alone():
@@ -242,3 +250,16 @@ def test_derive_adds_the_contract_columns_and_leaves_input_alone():
     assert set(DERIVED) <= set(out.columns)
     assert out.Notes[0] == "wet"
     assert out.esp_estimated.dtype == bool and out.acid_flag.dtype == bool
+
+
+def test_sar_of_a_1to5_extract_is_not_put_into_the_handbook_60_relation():
+    """USDA Handbook 60's ESP-SAR regression is for saturation-extract SAR; a 1:5 SAR is not
+    converted (no relation with a stated error is used), and the user is told why."""
+    soil = pd.DataFrame({"ca": [8.0], "mg": [3.0], "k": [0.5], "acidity": [0.0],
+                         "cec": [12.0], "sar_1to5": [10.0]})
+    with pytest.warns(DataWarning, match="1:5 extract.*not estimated"):
+        out = derive(soil)
+    assert np.isnan(out.esp.iloc[0])
+    # the same number as saturation-extract SAR gives Handbook 60's 11.887 (REFERENCES [derived])
+    out = derive(soil.rename(columns={"sar_1to5": "sar"}))
+    assert out.esp.iloc[0] == pytest.approx(11.887, abs=1e-3)

@@ -253,3 +253,45 @@ def test_verbose_logs_to_stderr_quiet_keeps_only_the_result(tmp_path: Path) -> N
     assert r.exit_code == 0 and r.stderr == "" and r.stdout.startswith("ok: ")
     r = check(project)
     assert "INFO" not in r.stderr
+
+
+# --------------------------------------------------------------------------- every problem at once
+
+
+def test_check_names_a_duplicate_an_outside_sample_and_a_bad_cell_in_one_pass(
+    tmp_path: Path,
+) -> None:
+    """Issue: 'check' on a file with a near-duplicate sample and a sample outside every paddock
+    named only the duplicate. Every kind of problem is listed in one pass."""
+    rows = _rows()
+    dup = rows[3].split(",")
+    dup[0], dup[1] = "S99", f"{float(dup[1]) + 0.3:.1f}"  # 0.3 m from S04
+    out = rows[5].split(",")
+    out[1] = f"{X0 + 900:.1f}"  # 500 m east of the paddock
+    bad = rows[7].split(",")
+    bad[4] = "n.d.x"
+    rows[5], rows[7] = ",".join(out), ",".join(bad)
+    project = make_project(tmp_path / "farm", rows=[*rows, ",".join(dup)])
+    r = check(project)
+    assert r.exit_code == 1
+    found = _problems(r.stderr)
+    assert any("'S04'" in p and "'S99'" in p and "apart" in p for p in found), found
+    assert any("row 7" in p and "outside" in p for p in found), found
+    assert any("row 9" in p and "not a number" in p for p in found), found
+
+
+def test_check_opens_every_referenced_file_before_kriging(tmp_path: Path) -> None:
+    """Issue: 'check' said 'ready to run' for a project whose bulk-density raster was missing;
+    'run' then failed after kriging. Zone and exclusion files are opened too, and all are
+    named in one pass."""
+    project = make_project(tmp_path / "farm")
+    text = (project / "geosoil.toml").read_text().replace(
+        '[boundaries]\npaddocks = "paddocks.gpkg"\n',
+        '[boundaries]\npaddocks = "paddocks.gpkg"\nexclusions = "no_such_exclusions.geojson"\n'
+        'zones = "no_such_zones.geojson"\n') + '\n[soil]\nbulk_density_raster = "bd_missing.tif"\n'
+    (project / "geosoil.toml").write_text(text)
+    r = check(project)
+    assert r.exit_code == 1, r.stderr
+    found = "\n".join(_problems(r.stderr))
+    for name in ("bd_missing.tif", "no_such_exclusions.geojson", "no_such_zones.geojson"):
+        assert name in found, r.stderr

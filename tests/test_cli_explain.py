@@ -90,7 +90,7 @@ def test_explain_at_lonlat_prints_every_stage(at_lonlat) -> None:  # noqa: ANN00
                     "3. Cell chemistry",
                     "4. Rules, step by step", "5. Zone rates the spreader applies here"):
         assert heading in out
-    assert re.search(r"^   CF-\d+ \(\d+ m away, file row \d+\): ph ", out, re.M)
+    assert re.search(r"^   CF-\d+ \(\d+ m away, file row \d+\): ph_cacl2 ", out, re.M)
     assert re.search(r"^   na: [\d.]+ \+/- [\d.]+ \(kriging s\.d\.\)", out, re.M)
     assert "source: USDA Handbook 60" in out
     assert "source: [common practice]" in out
@@ -126,10 +126,12 @@ def test_gypsum_by_hand_from_the_printed_values(at_lonlat) -> None:  # noqa: ANN
 
 
 def test_ph_above_the_limit_gets_no_lime(at_lonlat) -> None:  # noqa: ANN001
-    """No lime on alkaline soil (common practice: pH above about 7)."""
+    """No lime on alkaline soil (common practice: pH above about 7 in water; the demo's lab
+    gives pH in CaCl2, which meets its own limit)."""
     out = at_lonlat.stdout
-    limit = tomllib.loads((DEMO / "geosoil.toml").read_text())["rates"]["no_lime_above_ph"]
-    ph = _number(r"^   pH = ([\d.]+)$", out)
+    rates = tomllib.loads((DEMO / "geosoil.toml").read_text())["rates"]
+    limit = rates["no_lime_above_ph_cacl2"]
+    ph = _number(r"^   pH \(CaCl2\) = ([\d.]+)$", out)
     lime = _number(r"^   \[total\] lime: .*\n.*\n.*\n      result: ([\d.e+]+) kg/ha", out)
     assert ph > limit  # the demo's sodic patch is alkaline
     assert lime == 0

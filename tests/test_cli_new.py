@@ -50,7 +50,7 @@ def make_inputs(folder: Path, *, n: int = 16, seed: int = 3) -> dict[str, Path]:
         vals = ",".join(f"{v:.3f}" for v in (ph[i], ca[i], mg[i], k[i], na[i], al[i], al[i] + 0.1))
         rows.append((f"S{i + 1:02d}", lon[i], lat[i], x[i], y[i], vals))
     head = ("pH (CaCl2),Exch Ca (meq/100g),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),Al (cmol/kg),"
-            "Acidity (cmol/kg)")
+            "Exch. Acidity (cmol/kg)")
     paths["lab_ll"] = folder / "lab_lonlat.csv"
     paths["lab_ll"].write_text(
         f"Sample ID,Longitude,Latitude,{head}\n"
@@ -122,7 +122,7 @@ def test_lonlat_columns_are_recognised_and_written(
     data = tomllib.loads(path.read_text())
     assert data["samples"]["crs"] == "EPSG:4326"
     assert data["samples"]["columns"]["ca"] == "Exch Ca (meq/100g)"
-    assert data["samples"]["columns"]["ph"] == "pH (CaCl2)"
+    assert data["samples"]["columns"]["ph_cacl2"] == "pH (CaCl2)"
     assert data["samples"]["units"]["ca"] == "meq/100g"
     assert data["samples"]["units"]["mg"] == "cmol/kg"
     # the paths written lead back to the inputs
@@ -329,3 +329,33 @@ def test_inputs_near_the_project_are_written_as_relative_paths(
         (tmp_path / name).rename(tmp_path / "moved" / name)
     monkeypatch.chdir(tmp_path / "moved" / "project")
     assert invoke("check", ".").exit_code == 0
+
+
+# --------------------------------------------------------------------------- header meaning
+
+
+def test_acidity_without_a_method_is_asked_for_and_bare_ph_is_noted(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    """A bare "pH" is read as pH in water with a note naming column, reading and setting; an
+    "H+Al" that names no method (exchangeable or pH 7 potential acidity, often several-fold
+    apart) is not guessed: 'new' says so, 'check' refuses until the setting answers."""
+    text = inputs["lab_ll"].read_text().replace("pH (CaCl2)", "pH").replace(
+        "Exch. Acidity (cmol/kg)", "H+Al (cmol/kg)")
+    lab = tmp_path / "lab.csv"
+    lab.write_text(text)
+    folder = tmp_path / "farm"
+    r = invoke("new", folder, "--samples", lab, "--paddocks", inputs["paddocks_utm"])
+    assert r.exit_code == 0, r.stderr
+    assert "'pH' names no method: read as pH in water" in r.stderr
+    assert "ph_cacl2 = 'pH'" in r.stderr
+    assert "acidity column 'H+Al (cmol/kg)' names no method" in r.stderr
+    assert "acidity_potential = 'H+Al (cmol/kg)'" in r.stderr
+    c = invoke("check", folder)
+    assert c.exit_code == 1
+    assert "column 'H+Al (cmol/kg)'" in c.stderr and "several-fold" in c.stderr
+    path = folder / "geosoil.toml"
+    path.write_text(path.read_text().replace(
+        "columns = { ", "columns = { acidity = 'H+Al (cmol/kg)', ", 1))
+    c = invoke("check", folder)
+    assert c.exit_code == 0, c.stderr

@@ -239,3 +239,26 @@ def test_a_settings_error_exits_1_with_the_message_on_stderr(tmp_path: Path) -> 
     assert r.stderr.startswith("error: setting 'grid.cell_size_m'")
     assert "from 1 to 200 m" in r.stderr
     assert not (tmp_path / "out").exists()
+
+
+def test_one_list_of_warnings_in_the_summary_run_json_and_the_report(runs) -> None:  # noqa: ANN001
+    """Issue: 'run' printed 3 of the 15 warnings the report listed and run.json left some out.
+    The summary, run.json and the report show the same list, with the same count."""
+    import html
+    import re
+
+    r = runs["first"]
+    out = runs["root"] / "out1"
+    record = json.loads((out / "run.json").read_text())
+    listed = record["warnings"]
+    assert listed, "the demo raises warnings (interpolation fallbacks, guards...)"
+    m = re.search(r"^(\d+) warning\(s\) recorded in run.json and the report:$", r.stderr, re.M)
+    assert m is not None, r.stderr
+    assert int(m.group(1)) == len(listed)
+    printed = [ln[4:] for ln in r.stderr.splitlines() if ln.startswith("  - ")]
+    assert printed == listed
+    page = (out / "report.html").read_text()
+    section = page[page.index('<section id="warnings">'):]
+    section = section[:section.index("</section>")]
+    items = [html.unescape(i) for i in re.findall(r"<li>(.*?)</li>", section, re.S)]
+    assert items == listed

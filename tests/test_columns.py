@@ -41,22 +41,33 @@ from geosoil.columns import ANALYTE_SPELLINGS, detect_columns, parse_header
         ("H", "h", None, None),
         ("Exch. Acidity", "acidity", None, None),
         ("Exchangeable acidity (cmol/kg)", "acidity", "cmol/kg", None),
-        ("Al+H", "acidity", None, None),
+        ("Exch. Al+H", "acidity", None, None),
+        ("Acidity (KCl)", "acidity", None, "KCl"),
+        ("H+Al (pH 7)", "acidity_potential", None, "pH 7"),
+        ("Potential acidity (cmol/kg)", "acidity_potential", "cmol/kg", None),
+        ("H+Al (Ca acetate)", "acidity_potential", None, "Ca acetate"),
+        ("Acidity (SMP buffer)", "acidity_potential", None, "SMP buffer"),
         ("Exch Al + H (meq/100g)", "acidity", "meq/100g", None),
         ("ECEC", "cec", None, None),
         ("ECEC (cmol(+)/kg)", "cec", "cmol/kg", None),
         ("CEC", "cec", None, None),
         ("Cation exchange capacity", "cec", None, None),
         ("pH", "ph", None, None),
-        ("pH (CaCl2)", "ph", None, "CaCl2"),
+        ("pH (CaCl2)", "ph_cacl2", None, "CaCl2"),
         ("pH (water)", "ph", None, "water"),
         ("pH (1:5 water)", "ph", None, "water"),
+        ("pH 1:5 (CaCl2)", "ph_cacl2", None, "CaCl2"),
         ("pH_H2O", "ph", None, "water"),
         ("pHw", "ph", None, "water"),
-        ("pHCa", "ph", None, "CaCl2"),
-        ("pH CaCl2", "ph", None, "CaCl2"),
+        ("pHCa", "ph_cacl2", None, "CaCl2"),
+        ("pH CaCl2", "ph_cacl2", None, "CaCl2"),
+        ("pH (KCl)", "ph_kcl", None, "KCl"),
         ("SAR", "sar", None, None),
+        ("SARe", "sar", None, None),
+        ("SAR (saturation extract)", "sar", None, "saturation extract"),
         ("Sodium adsorption ratio", "sar", None, None),
+        ("SAR (1:5)", "sar_1to5", None, "1:5"),
+        ("SAR1:5", "sar_1to5", None, "1:5"),
         ("Sample", "id", None, None),
         ("Sample ID", "id", None, None),
         ("Sample_ID", "id", None, None),
@@ -93,7 +104,8 @@ def test_parse_header_common_lab_spellings(header, role, unit, method):
         ("Na (meq/L)", "not an exchangeable amount"),
         ("Ca (mg/kg) (meq/100g)", "two units"),
         ("CEC (mg/kg)", "mg/kg is not defined"),
-        ("pH (KCl)", "KCl"),
+        ("Na (1:5)", "not the exchangeable amount"),
+        ("SAR (1:2.5)", "saturation-extract and 1:5 SAR only"),
     ],
 )
 def test_headers_that_name_an_analyte_but_hold_something_else(header, note):
@@ -109,19 +121,21 @@ def test_other_headers_are_left_alone(header):
     assert parse_header(header).role is None
 
 
-def test_detect_prefers_ph_in_water_and_ecec():
+def test_detect_reads_each_ph_method_and_prefers_ecec():
     guess = detect_columns(
         ["ID", "Lon", "Lat", "pH (CaCl2)", "pH (water)", "CEC", "ECEC", "Ca", "Ca %"]
     )
-    assert guess.analytes == {"ca": "Ca", "cec": "ECEC", "ph": "pH (water)"}
+    assert guess.analytes == {"ca": "Ca", "cec": "ECEC", "ph": "pH (water)",
+                              "ph_cacl2": "pH (CaCl2)"}
     assert guess.methods["ph"] == "water"
     assert guess.ambiguous == {}
     assert guess.notes == {"Ca %": "a percentage (saturation), not an amount"}
 
 
-def test_detect_falls_back_to_ph_in_cacl2():
+def test_detect_reads_ph_in_cacl2_as_its_own_analyte():
     guess = detect_columns(["Sample", "X", "Y", "pH (CaCl2)"])
-    assert guess.analytes["ph"] == "pH (CaCl2)" and guess.methods["ph"] == "CaCl2"
+    assert "ph" not in guess.analytes
+    assert guess.analytes["ph_cacl2"] == "pH (CaCl2)" and guess.methods["ph_cacl2"] == "CaCl2"
 
 
 def test_two_equal_candidates_are_reported_not_guessed():
@@ -261,3 +275,39 @@ def test_buffer_ph_without_its_buffer_is_not_guessed(header: str) -> None:
 def test_plain_ph_is_still_ph_beside_a_buffer_ph() -> None:
     g = detect_columns(["ID", "Lon", "Lat", "pH", "SMP buffer pH", "Clay %"])
     assert g.analytes == {"ph": "pH", "bph_smp": "SMP buffer pH", "clay": "Clay %"}
+
+
+# --------------------------------------------------------------------------- header meaning
+
+
+@pytest.mark.parametrize(
+    "header",
+    ["H+Al", "Al+H", "Acidity", "Acidity (cmol/kg)", "Total acidity", "Titratable acidity",
+     "Extractable acidity"],
+)
+def test_acidity_that_names_no_method_is_left_undecided(header):
+    """Exchangeable (KCl) and potential (pH 7) acidity differ several-fold, so a header that
+    names neither is read as neither; the note names both settings that decide it."""
+    info = parse_header(header)
+    assert info.role is None
+    assert f"acidity = '{header}'" in info.undecided
+    assert f"acidity_potential = '{header}'" in info.undecided
+    guess = detect_columns(["ID", "Lon", "Lat", "Ca", header])
+    assert "acidity" not in guess.analytes and header in guess.undecided
+
+
+def test_bare_ph_and_sar_take_the_usual_reading_with_a_note_naming_the_setting():
+    guess = detect_columns(["ID", "Lon", "Lat", "pH", "SAR", "pH (CaCl2)"])
+    assert guess.analytes["ph"] == "pH" and guess.analytes["ph_cacl2"] == "pH (CaCl2)"
+    assert guess.analytes["sar"] == "SAR"
+    assert "pH in water" in guess.readings["pH"]
+    assert "ph_cacl2 = 'pH'" in guess.readings["pH"]
+    assert "sar_1to5 = 'SAR'" in guess.readings["SAR"]
+    assert "pH (CaCl2)" not in guess.readings
+
+
+def test_ph_methods_and_sar_extracts_are_distinct_analytes():
+    guess = detect_columns(["ID", "pH (water)", "pH (CaCl2)", "pH (KCl)", "SAR (1:5)", "SARe"])
+    assert guess.analytes == {"ph": "pH (water)", "ph_cacl2": "pH (CaCl2)",
+                              "ph_kcl": "pH (KCl)", "sar": "SARe", "sar_1to5": "SAR (1:5)"}
+    assert guess.readings == {}

@@ -170,11 +170,12 @@ def test_a_point_in_an_exclusion_is_on_no_cell(farm: FarmResult) -> None:
 
 
 def test_no_lime_above_the_ph_limit(farm: FarmResult, demo_toml: dict) -> None:
-    """No liming product on cells with pH above the limit (common practice: about 7)."""
-    limit = demo_toml["rates"]["no_lime_above_ph"]
+    """No liming product on cells with pH above the limit (common practice: about 7 in water;
+    the demo's lab gives pH in CaCl2, which meets its own limit)."""
+    limit = demo_toml["rates"]["no_lime_above_ph_cacl2"]
     n_alkaline = 0
     for name, pr in farm.paddocks.items():
-        ph = pr.cells["ph"]
+        ph = pr.cells["ph_cacl2"]
         lime = pr.rates.product_rates["lime"]
         alkaline = np.isfinite(ph) & (ph > limit)
         n_alkaline += int(alkaline.sum())
@@ -182,10 +183,10 @@ def test_no_lime_above_the_ph_limit(farm: FarmResult, demo_toml: dict) -> None:
     assert n_alkaline > 10  # the demo's sodic patch is alkaline
     # the explanation of the most alkaline cell says so, and its zone gets no lime
     pr = farm.paddocks["Creek Flat"]
-    ph = pr.cells["ph"]
+    ph = pr.cells["ph_cacl2"]
     row, col = (int(v) for v in np.unravel_index(np.nanargmax(ph), ph.shape))
     e = explain_location(farm, *_cell_centre(farm, "Creek Flat", row, col), coords="xy")
-    assert e.cell["ph"] > limit
+    assert e.cell["ph_cacl2"] > limit
     assert _total(e, "lime") == 0
     guard = [s for s in e.steps if s.rule == "lime" and s.description.startswith("pH guard")]
     assert guard and guard[0].result == 0 and guard[0].source.startswith("[common practice]")

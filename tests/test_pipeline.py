@@ -118,7 +118,7 @@ def bounds_for(path: Path) -> tuple[float, float] | None:
     stem = path.stem
     if stem.endswith("_sd"):
         return (0.0, np.inf)
-    if stem == "ph":
+    if stem in ("ph", "ph_cacl2"):
         return (3.0, 10.0)  # [common practice] agricultural soils
     if stem == "esp" or stem.endswith("_sat"):
         return (0.0, 100.0)  # [derived] percent of the ECEC
@@ -346,7 +346,7 @@ def test_run_record_variograms_and_cross_validation(demo) -> None:
     kriged = [s for s in surfaces if s["method"] == "ordinary kriging"]
     # the two grid-sampled paddocks are kriged (README: about one sample per hectare)
     assert {(s["paddock"], s["variable"]) for s in kriged} >= {
-        (p, v) for p in counts for v in ("ca", "mg", "k", "na", "ph")}
+        (p, v) for p in counts for v in ("ca", "mg", "k", "na", "ph_cacl2")}
     for s in kriged:
         where = (s["paddock"], s["variable"])
         vg = s["variogram"]
@@ -524,8 +524,9 @@ def test_a_ph_only_file_gives_ph_surfaces_and_skips_the_rules(tmp_path) -> None:
     project = load_project(farm)
     result = run(project, out_dir=tmp_path / "out")
     variables = {v for (_p, v) in result.farm.surfaces}
-    assert variables == {"ph"}
-    ph = rasterio.open(tmp_path / "out" / "surfaces" / "red-hill" / "ph.tif").read(1, masked=True)
+    assert variables == {"ph_cacl2"}
+    tif = tmp_path / "out" / "surfaces" / "red-hill" / "ph_cacl2.tif"
+    ph = rasterio.open(tif).read(1, masked=True)
     assert 3 < ph.min() and ph.max() < 10
     assert not any((tmp_path / "out" / "surfaces" / "red-hill").glob("ecec.tif"))
     skipped = " ".join(result.record["rules"]["skipped"])
@@ -555,3 +556,92 @@ def test_seasons_split_reports_this_seasons_tonnes(tmp_path) -> None:
     # the demo's Red Hill lime needs more than one pass (4 t/ha per pass), so this season is less
     assert first["lime"] < float(zones.loc[zones["product"] == "lime", "area_ha"].mul(
         zones.loc[zones["product"] == "lime", "rate_kg_ha"]).sum() / 1000)
+
+
+# --------------------------------------------------------------------------- lab column shapes
+
+#: One invented soil, sent in the column shapes labs use. Exchangeable acidity 2.5 cmol(+)/kg in
+#: every shape: as one column, as Al 1.8 + H 0.7, or as Al alone.
+_SOIL = "5.0,1.2,0.3,0.9"
+_LAB_SHAPES = {
+    "acidity alone": ("Exch. Acidity (cmol/kg)", "2.5", "acidity_share"),
+    "Al and H apart": ("Exch Al (cmol/kg),Exch H (cmol/kg)", "1.8,0.7", "kamprath"),
+    "Al alone": ("Exch Al (cmol/kg)", "2.5", "kamprath"),
+}
+
+
+def _flat_lab_project(folder: Path, acid_header: str, acid_values: str, ph: str) -> Path:
+    """A 300 m square paddock and nine samples of one soil, through 'new' as a user would."""
+    from geosoil.project import new_project
+
+    folder.mkdir(parents=True)
+    x0, y0 = 540_000.0, 6_160_000.0
+    gpd.GeoDataFrame({"name": ["Flat"]}, geometry=[shapely.box(x0, y0, x0 + 300, y0 + 300)],
+                     crs="EPSG:32755").to_file(folder / "paddocks.gpkg")
+    rows = [f"S{i}{j},{x0 + 50 + 100 * i:.1f},{y0 + 50 + 100 * j:.1f},{ph},{_SOIL},{acid_values}"
+            for i in range(3) for j in range(3)]
+    (folder / "lab.csv").write_text(
+        "Sample ID,Easting,Northing,pH (water),Exch Ca (cmol/kg),Exch Mg (cmol/kg),"
+        f"Exch K (cmol/kg),Exch Na (cmol/kg),{acid_header}\n" + "\n".join(rows) + "\n")
+    path, _notes = new_project(folder / "project", samples=folder / "lab.csv",
+                               paddocks=folder / "paddocks.gpkg", crs="EPSG:32755")
+    return path
+
+
+@pytest.mark.parametrize("shape", list(_LAB_SHAPES))
+def test_each_lab_column_shape_gives_the_rates_of_hand_arithmetic(shape, tmp_path) -> None:
+    """Flat field: every cell's gypsum and lime rate equals the hand arithmetic from the
+    project's own settings. Gypsum: USDA Handbook 60 (Richards 1954) with Oster et al. (1999)'s
+    F, Ca in CaSO4.2H2O from its formula mass (periodictable, an outside library); lime:
+    Kamprath (1970) 1.5 x Al, or exchangeable acidity brought to a share of the ECEC, as
+    CaCO3 (50.04 g per mol of charge, [derived]). The ECEC counts H wherever the lab gave it
+    (issue: H given apart was left out of the cells' ECEC, raising ESP and gypsum)."""
+    import periodictable
+
+    header, values, method = _LAB_SHAPES[shape]
+    path = _flat_lab_project(tmp_path / "farm", header, values, ph="4.8")
+    project = load_project(path)
+    s = project.settings
+    assert s.rates.lime.method == method  # 'new' chose the method the columns can run
+    farm = compute(project, use_cache=False)
+    pr = farm.paddocks["Flat"]
+    mask = pr.grid.mask
+    ca, mg, k, na, acidity = 5.0, 1.2, 0.3, 0.9, 2.5
+    ecec = ca + mg + k + na + acidity  # 9.9 in every shape
+    soil_kg_ha = 10_000 * s.soil.depth_m * s.soil.bulk_density_g_cm3 * 1000
+    ca_mg_per_cmol = periodictable.Ca.mass / 2 * 10
+    caco3_mg_per_cmol = periodictable.formula("CaCO3").mass / 2 * 10
+    gypsum_ca = periodictable.Ca.mass / periodictable.formula("CaSO4(H2O)2").mass
+    g = s.rates.gypsum
+    esp = 100 * na / ecec
+    gyp_cmol = (esp - g.target_esp_percent) / 100 * ecec * g.exchange_efficiency
+    gypsum = gyp_cmol * ca_mg_per_cmol * 1e-6 * soil_kg_ha / gypsum_ca
+    lr = s.rates.lime
+    if method == "kamprath":
+        al = 1.8 if shape == "Al and H apart" else 2.5
+        lime_cmol = lr.kamprath_factor * al
+    else:
+        lime_cmol = lr.acidity_factor * max(acidity - lr.target_acidity_share_percent / 100
+                                            * ecec, 0.0)
+    lime = lime_cmol * caco3_mg_per_cmol * 1e-6 * soil_kg_ha / 1.0  # pure calcite by default
+    np.testing.assert_allclose(pr.cells["ecec"][mask], ecec, rtol=1e-9)
+    np.testing.assert_allclose(pr.rates.product_rates["gypsum"][mask], gypsum, rtol=1e-4)
+    np.testing.assert_allclose(pr.rates.product_rates["lime"][mask], lime, rtol=1e-4)
+    assert lime > 0 and gypsum > 0
+    # the pure-material defaults are named once per product, with the keys to set
+    said = [w for w in farm.warnings if "pure-material defaults" in w]
+    assert len(said) == 2 and any("products.lime.cce_percent" in w for w in said)
+
+
+def test_ph_in_cacl2_meets_its_own_no_lime_limit(tmp_path) -> None:
+    """pH 6.6 is below the no-lime limit in water (7.0) but above the one in CaCl2 (6.4):
+    the same soil gets lime when the lab reports pH in water and none when it reports pH in
+    CaCl2 (common practice: pH in CaCl2 reads about 0.5-0.8 below pH in water)."""
+    path = _flat_lab_project(tmp_path / "water", "Exch Al (cmol/kg)", "2.5", ph="6.6")
+    water = compute(load_project(path), use_cache=False).paddocks["Flat"]
+    assert np.nanmin(water.rates.product_rates["lime"]) > 0
+    text = path.read_text().replace('ph = "pH (water)"', 'ph_cacl2 = "pH (water)"')
+    path.write_text(text)
+    cacl2 = compute(load_project(path), use_cache=False).paddocks["Flat"]
+    assert np.nanmax(cacl2.rates.product_rates["lime"]) == 0
+    assert any("pH (CaCl2) above 6.4" in n for n in cacl2.rates.notes)

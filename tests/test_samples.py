@@ -278,8 +278,8 @@ def test_excel_units_row_under_the_header_gives_the_units(tmp_path):
     assert s.k.tolist() == pytest.approx([0.5, 1.0], rel=1e-4)
     assert s.na.tolist() == pytest.approx([0.8, 0.4])
     assert got.units == {"ca": "mg/kg", "mg": "meq/100g", "k": "mg/kg", "na": "mmol/kg",
-                         "ph": None}
-    assert got.columns["ca"] == "Exch Ca" and got.methods["ph"] == "CaCl2"
+                         "ph_cacl2": None}
+    assert got.columns["ca"] == "Exch Ca" and got.methods["ph_cacl2"] == "CaCl2"
 
 
 def test_units_row_that_contradicts_the_header_is_an_error(tmp_path):
@@ -433,10 +433,11 @@ def test_same_soil_in_mg_kg_and_meq_per_100g_files_gives_the_same_saturations(tm
     # Ca 5, Mg 2, K 0.5, Na 0.8 cmol(+)/kg written in mg/kg with docs/SOURCES.md factors
     # (200.39, 121.53, 390.98, 229.90 mg/kg per cmol(+)/kg [derived]).
     meq = lab(tmp_path, header="ID,Lon,Lat,Ca (meq/100g),Mg (meq/100g),K (meq/100g),"
-              "Na (meq/100g),Acidity (meq/100g)", rows=["S1,147.001,-35.001,5,2,0.5,0.8,0.4"],
+              "Na (meq/100g),Exch Acidity (meq/100g)", rows=["S1,147.001,-35.001,5,2,0.5,0.8,0.4"],
               name="meq.csv")
     mg = lab(tmp_path, header="ID,Lon,Lat,Ca (mg/kg),Mg (mg/kg),K (mg/kg),Na (mg/kg),"
-             "Acidity (meq/100g)", rows=["S1,147.001,-35.001,1001.95,243.06,195.49,183.92,0.4"],
+             "Exch Acidity (meq/100g)",
+             rows=["S1,147.001,-35.001,1001.95,243.06,195.49,183.92,0.4"],
              name="mg.csv")
     a = derive(read(meq).samples).iloc[0]
     b = derive(read(mg).samples).iloc[0]
@@ -658,8 +659,7 @@ def test_ecec_lacking_a_component_names_file_row_and_column(tmp_path):
     path = lab(tmp_path, header=header, rows=["A1,147.001,-35.001,6,2,0.5,6.1"])
     got = read(path)
     with pytest.raises(InputError) as info:
-        derive(got.samples, file=str(got.file), headers=got.columns,
-               ph_method=got.methods.get("ph"))
+        derive(got.samples, file=str(got.file), headers=got.columns)
     assert_names(info.value, file=path, row=2, column="na, acidity")
     assert "Na" in info.value.problem and "lab CEC" in info.value.fix
 

@@ -509,16 +509,24 @@ def test_derive_cells_physical_validity(rows) -> None:
     a[outside] = np.nan
     parts = dict(zip(("ca", "mg", "k", "na", "acidity"), a.T, strict=True))
     cells, _ = derive_cells(parts)
-    ecec = cells["ecec"]
     total = sum(parts.values())
-    np.testing.assert_allclose(ecec, total, rtol=1e-12, equal_nan=True)
+    ecec = cells.get("ecec", np.full(len(total), np.nan))
+    # an ECEC of 0 is no ECEC (chemistry.exchange_chemistry): NaN, as for a sample
+    np.testing.assert_allclose(ecec, np.where(total > 0, total, np.nan), rtol=1e-12,
+                               equal_nan=True)
     sats = ("ca_sat", "mg_sat", "k_sat", "na_sat", "acid_sat")
-    for sat in (*sats, "esp"):
-        assert np.isnan(cells[sat][outside]).all()  # outside stays NaN
-        inside = cells[sat][~outside]
-        assert ((inside >= 0) & (inside <= 100)).all()
-    np.testing.assert_array_equal(cells["esp"], cells["na_sat"], strict=True)
     positive = ~outside & (ecec > 0)
+    for sat in (*sats, "esp"):
+        if sat not in cells:  # every cell outside or of ECEC 0: no saturation anywhere
+            assert not positive.any()
+            continue
+        assert np.isnan(cells[sat][outside]).all()  # outside stays NaN
+        assert np.isnan(cells[sat][~positive]).all()  # an ECEC of 0 is no ECEC
+        inside = cells[sat][positive]
+        assert ((inside >= 0) & (inside <= 100)).all()
+    if not positive.any():
+        return
+    np.testing.assert_array_equal(cells["esp"], cells["na_sat"], strict=True)
     np.testing.assert_allclose(sum(cells[s][positive] for s in sats), 100.0, rtol=1e-9)
     np.testing.assert_allclose(cells["esp"][positive],
                                100 * parts["na"][positive] / ecec[positive], rtol=1e-12)
@@ -530,11 +538,16 @@ def test_derive_cells_with_al_but_no_acidity_counts_al_in_the_ecec(rows) -> None
     a = np.array(rows, dtype=float)
     parts = dict(zip(("ca", "mg", "k", "na", "al"), a.T, strict=True))
     cells, notes = derive_cells(parts)
-    np.testing.assert_allclose(cells["ecec"], a.sum(axis=1), rtol=1e-12)
-    positive = cells["ecec"] > 0
+    total = a.sum(axis=1)
+    if not (total > 0).any():
+        assert "ecec" not in cells
+        return
+    np.testing.assert_allclose(cells["ecec"], np.where(total > 0, total, np.nan), rtol=1e-12)
+    positive = total > 0
     sats = ("ca_sat", "mg_sat", "k_sat", "na_sat", "acid_sat")
     np.testing.assert_allclose(sum(cells[s][positive] for s in sats), 100.0, rtol=1e-9)
-    assert any("Al" in n and "H unknown" in n for n in notes)
+    assert any("Al (H not measured)" in n for n in notes)
+    assert cells["acidity"][positive] == pytest.approx(a[positive, 4])
 
 
 def test_derive_cells_sets_negative_amounts_to_zero_with_a_note() -> None:
@@ -583,3 +596,45 @@ def test_engine_warnings_name_the_paddock_and_variable() -> None:
     with pytest.warns(InterpolationWarning) as record:
         interpolate_farm(pts, grids, variables=["ph"], settings=s)
     assert any(str(w.message).startswith("North, ph: ") for w in record)
+
+
+# --------------------------------------------------------------------------- cells == samples
+
+#: Column shapes labs send (invented values, one soil): the cell chemistry of a flat field must
+#: equal its samples' chemistry for each ([derived]: one set of functions does both).
+_SHAPES = {
+    "acidity alone": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "acidity": 1.1, "ph": 5.0},
+    "Al and H": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "al": 0.7, "h": 0.4, "ph": 5.0},
+    "Al alone": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "al": 0.7, "ph_cacl2": 4.4},
+    "H alone": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "h": 0.4, "ph": 5.2},
+    "acidity and Al": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "acidity": 1.1, "al": 0.7},
+    "CEC, Na missing, SAR": {"ca": 4.0, "mg": 1.5, "k": 0.3, "cec": 8.0, "sar": 12.0,
+                             "acidity": 0.2, "ph": 6.0},
+    "CEC, acidity missing": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "cec": 7.0, "ph": 5.6},
+    "neutral pH, no acidity": {"ca": 9.0, "mg": 3.0, "k": 0.6, "na": 1.4, "ph": 7.6},
+    "neutral pH in CaCl2": {"ca": 9.0, "mg": 3.0, "k": 0.6, "na": 1.4, "ph_cacl2": 6.8},
+}
+_CHEMISTRY = ("acidity", "ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "acid_sat",
+              "al_sat")
+
+
+@pytest.mark.parametrize("shape", list(_SHAPES))
+def test_cell_chemistry_of_a_flat_field_equals_its_samples_chemistry(shape, grid_a) -> None:
+    from geosoil.chemistry import derive
+
+    values = _SHAPES[shape]
+    xy = np.array([[30.0, 40.0], [120.0, 150.0], [170.0, 60.0]])
+    pts = samples("A", xy, **{k: np.full(3, v) for k, v in values.items()})
+    checked = derive(pts)
+    variables = variables_to_interpolate(checked)
+    out, _ = quiet(samples=checked, grids=grid_a, variables=variables,
+                   settings=InterpolationSettings())
+    cells, _ = derive_cells({v: out[("A", v)].estimate for v in variables})
+    mask = grid_a["A"].mask
+    for key in _CHEMISTRY:
+        expected = float(checked[key].iloc[0])
+        if np.isnan(expected):
+            assert key not in cells or np.isnan(cells[key][mask]).all(), key
+            continue
+        assert key in cells, key
+        np.testing.assert_allclose(cells[key][mask], expected, rtol=1e-12, err_msg=key)
