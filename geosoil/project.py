@@ -612,9 +612,8 @@ def _relative(path: Path, folder: Path) -> Path:
 
 def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
     """The lime method (and target pH method) a new project starts from, with notes."""
-    from .rates import AL_METHODS, LimeRule, _lime_problem, choose_lime_method
-
     from .chemistry import rule_ph
+    from .rates import AL_METHODS, LimeRule, _lime_problem, choose_lime_method
 
     cols = set(read.columns)
     available = set(cols)
