@@ -573,7 +573,8 @@ def derive(
     # the exchangeable acidity each sample's ECEC counts (Al + H where the lab gave them
     # apart; 0 at neutral pH) is the acidity that is interpolated: the lab's own values stay
     # where it gave them, and acidity_basis says how each was had
-    out["acidity"] = acidity_used
+    if any(c in samples.columns and samples[c].notna().any() for c in ("acidity", "al", "h")):
+        out["acidity"] = acidity_used  # a file without any acidity gives no acidity surface
     for name in DERIVED:
         if name in chem:
             out[name] = chem[name]

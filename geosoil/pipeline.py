@@ -51,7 +51,7 @@ from .grids import PaddockGrid, aligned_grids
 from .names import MAX_NAME_CHARS, assign, slug
 from .products import Product, ProductSettings, resolve_products, uncertified
 from .project import Project
-from .rates import RateResult, check_inputs, compute_rates, plan_rules
+from .rates import RateResult, check_inputs, compute_rates
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
@@ -241,6 +241,7 @@ def prepare(
         # on a paddock is a warning here (check) as in the run (the same words); a rule
         # switched on that cannot run, or a product that does not fit, is a problem
         skipped: dict[str, list[tuple[str, str]]] = {}
+        other: list[str] = []
         for name in grids:
             have = _paddock_variables(samples, name, variables,
                                       borrow=s.interpolation.borrow_farm_surface)
@@ -249,11 +250,16 @@ def prepare(
             if method is not None:
                 have = (have - {"ph_cacl2"}) | {"ph"}
             rates = s.rates.for_paddock(name)
-            if attempt(check_inputs, rates, have, products, ph_method=method,
-                       fallback=False) is False:
+            said = attempt(check_inputs, rates, have, products, ph_method=method,
+                           fallback=False)
+            if said is False:
                 break  # the same setting would fail on every paddock: named once
-            skipped[name] = plan_rules(rates, have, ph_method=method)[1]
-        rule_notes = rule_warnings(skipped, s.rates)
+            # check_inputs' reasons (with what to ask the lab for where no lime method can
+            # run); other notes once each
+            skipped[name] = [tuple(n.split(" rule skipped: ", 1)) for n in said  # type: ignore
+                             if " rule skipped: " in n]
+            other.extend(n for n in said if " rule skipped: " not in n and n not in other)
+        rule_notes = rule_warnings(skipped, s.rates) + other
         # a covariate raster is opened and checked against every paddock before kriging
         if s.soil.bulk_density_raster is not None:
             for name, grid in grids.items():

@@ -239,7 +239,9 @@ def test_a_rule_switched_on_without_its_data_names_the_key(tmp_path: Path) -> No
 def test_the_same_rule_on_auto_is_skipped_with_a_note(tmp_path: Path) -> None:
     r = check(make_project(tmp_path / "farm", extra='[rates.lime]\nmethod = "kamprath"\n'))
     assert r.exit_code == 0, r.stderr
-    assert "lime rule skipped" in r.stderr
+    # the same words as the run's summary, run.json and report (one list of warnings)
+    assert "warning: lime rule is enabled but cannot run on paddock 'Home'" in r.stderr
+    assert "exchangeable Al" in r.stderr and "rates.lime.method" in r.stderr
     assert "warning" in r.stdout  # the count of warnings
 
 

@@ -154,7 +154,7 @@ def test_real_field_ph_oc_clay_gives_hand_arithmetic_lime(tmp_path: Path) -> Non
         tmp_path, folder / "lab.csv", folder / "field.gpkg", "--crs", "EPSG:25833", edit=edit)
     assert data["rates"]["lime"]["method"] == "phbc"
     surf, rates = out / "surfaces" / "field", out / "rates" / "field"
-    with rasterio.open(surf / "ph.tif") as a, rasterio.open(surf / "oc.tif") as b, \
+    with rasterio.open(surf / "ph_cacl2.tif") as a, rasterio.open(surf / "oc.tif") as b, \
             rasterio.open(surf / "clay.tif") as c, rasterio.open(rates / "lime.tif") as r:
         ph, oc, clay, got = (x.read(1, masked=True).filled(np.nan) for x in (a, b, c, r))
     inside = np.isfinite(got)

@@ -632,6 +632,8 @@ def test_cell_chemistry_of_a_flat_field_equals_its_samples_chemistry(shape, grid
     cells, _ = derive_cells({v: out[("A", v)].estimate for v in variables})
     mask = grid_a["A"].mask
     for key in _CHEMISTRY:
+        if key not in checked:  # no acidity in the file: ECEC and acid_sat say what was used
+            continue
         expected = float(checked[key].iloc[0])
         if np.isnan(expected):
             assert key not in cells or np.isnan(cells[key][mask]).all(), key
