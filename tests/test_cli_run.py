@@ -258,7 +258,7 @@ def test_one_list_of_warnings_in_the_summary_run_json_and_the_report(runs) -> No
     printed = [ln[4:] for ln in r.stderr.splitlines() if ln.startswith("  - ")]
     assert printed == listed
     page = (out / "report.html").read_text()
-    section = page[page.index('<section id="warnings">'):]
-    section = section[:section.index("</section>")]
+    section = page[page.index('<ul class="warnings">'):]
+    section = section[:section.index("</ul>")]
     items = [html.unescape(i) for i in re.findall(r"<li>(.*?)</li>", section, re.S)]
     assert items == listed
