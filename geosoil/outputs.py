@@ -624,7 +624,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
             "targets": {name: pr.rates.target for name, pr in farm.paddocks.items()
                         if pr.rates.target},
             "trigger_margin_ph": s.rates.lime.trigger_margin_ph,
-            "lab_ph_method": prep.read.methods.get("ph") or "water (a bare pH is read so)",
+            "lab_ph_method": _ph_method(farm),
             "needs_test": lime_needs_test(farm),
         },
         "first_season_tonnes": (
@@ -642,6 +642,11 @@ def _ph_method(farm: FarmResult, var: str | None = None) -> str:
         return "CaCl2" if var == "ph_cacl2" else "water"
     method, _ = rule_ph(farm.prep.read.columns)
     return method or "water"
+
+
+def _ph_var(farm: FarmResult) -> str:
+    """The pH variable the rules read: ``ph`` (water) where the lab gave it, else ``ph_cacl2``."""
+    return "ph_cacl2" if _ph_method(farm) == "CaCl2" else "ph"
 
 
 def ph_label(farm: FarmResult, var: str | None = None) -> str:
@@ -763,7 +768,7 @@ def opening_view(farm: FarmResult) -> tuple[str | None, str | None]:
                 by_rule[rule] = by_rule.get(rule, 0.0) + float(np.nansum(rate))
     rule = max(by_rule, key=lambda k: by_rule[k]) if by_rule else ""
     method = farm.prep.project.settings.rates.lime.method
-    ph = "ph_cacl2" if _ph_method(farm) == "CaCl2" else "ph"
+    ph = _ph_var(farm)
     surface = _EXPLAINS_LIME.get(method, "ph") if rule == "lime" else _EXPLAINS.get(rule, "esp")
     surface = ph if surface == "ph" else surface
     return surface, product
@@ -780,7 +785,7 @@ def surface_classes(farm: FarmResult, var: str, kind: str, values: np.ndarray) -
 
 def surface_unit(var: str) -> str:
     """A surface's unit as its legend shows it (none for pH: its title names the method)."""
-    return "" if var == "ph" else SURFACE_UNITS.get(var, "")
+    return "" if var in ("ph", "ph_cacl2") else SURFACE_UNITS.get(var, "")
 
 
 def surface_title(farm: FarmResult, var: str) -> str:
@@ -872,7 +877,7 @@ def paddock_glance(farm: FarmResult) -> list[Any]:
             excluded_ha=excluded,
             sodic_ha=area_where("esp", lambda a: a >= chem.sodic_esp_percent),
             strongly_sodic_ha=area_where("esp", lambda a: a >= chem.strongly_sodic_esp_percent),
-            acid_ha=area_where("ph", lambda a: a < limit),
+            acid_ha=area_where(_ph_var(farm), lambda a: a < limit),
             product_ha={str(r["product"]): float(r["spread_area_ha"]) for _, r in rows.iterrows()},
             product_t={str(r["product"]): float(r[mass]) for _, r in rows.iterrows()},
         ))
@@ -882,7 +887,7 @@ def paddock_glance(farm: FarmResult) -> list[Any]:
 def soil_maps(farm: FarmResult) -> list[Any]:
     """ESP, pH and acid saturation over the farm, in the map's colour classes."""
     out = []
-    for var, kind in (("esp", "esp"), ("ph", "ph"), ("acid_sat", "acid")):
+    for var, kind in (("esp", "esp"), (_ph_var(farm), "ph"), ("acid_sat", "acid")):
         got = farm_layer(farm, var)
         if got is None:
             continue

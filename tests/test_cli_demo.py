@@ -115,10 +115,10 @@ def test_demo_map_has_every_written_surface_and_opens_on_the_largest_prescriptio
     data = _map_data(out)
     ids = [s["id"] for s in data["surfaces"]]
     written = {p.stem for p in (out / "surfaces").rglob("*.tif")}
-    for var in ("esp", "ph", "acid_sat", "al_sat", "k", "k_sat", "ca_sat", "ecec"):
+    for var in ("esp", "ph_cacl2", "acid_sat", "al_sat", "k", "k_sat", "ca_sat", "ecec"):
         assert var in ids and var in written
-    assert {f"{v}_sd" for v in ("ca", "mg", "k", "na", "acidity", "al", "ph")} <= set(ids)
-    ph = next(s for s in data["surfaces"] if s["id"] == "ph")
+    assert {f"{v}_sd" for v in ("ca", "mg", "k", "na", "acidity", "al", "ph_cacl2")} <= set(ids)
+    ph = next(s for s in data["surfaces"] if s["id"] == "ph_cacl2")
     assert ph["title"] == "pH (CaCl2)"  # the demo's lab measured pH in CaCl2
     # the largest prescription by tonnes (tonnage.csv farm rows), with the surface behind it
     farm_rows = [r.split(",") for r in (out / "tonnage.csv").read_text().splitlines()
