@@ -282,8 +282,10 @@ def saturation(part: ArrayLike, ecec: ArrayLike) -> NDArray[np.float64]:
     p, e = np.broadcast_arrays(p, e)
     ok = np.isfinite(e) & (e > 0)
     out = np.full(p.shape, np.nan)
-    np.divide(100.0 * p, e, out=out, where=ok)
-    return out
+    # 100 x (part / ECEC), not (100 x part) / ECEC: a part equal to its ECEC gives exactly
+    # 100 %, and (IEEE division being monotone) a part of a sum never exceeds 100 %
+    np.divide(p, e, out=out, where=ok)
+    return np.where(ok, 100.0 * out, np.nan)
 
 
 def esp_from_sar(sar: ArrayLike) -> NDArray[np.float64]:

@@ -529,7 +529,8 @@ def test_derive_cells_physical_validity(rows) -> None:
     np.testing.assert_array_equal(cells["esp"], cells["na_sat"], strict=True)
     np.testing.assert_allclose(sum(cells[s][positive] for s in sats), 100.0, rtol=1e-9)
     np.testing.assert_allclose(cells["esp"][positive],
-                               100 * parts["na"][positive] / ecec[positive], rtol=1e-12)
+                               100 * parts["na"][positive] / ecec[positive], rtol=1e-12,
+                               atol=1e-300)  # subnormal parts may round to 0 either way
 
 
 @settings(max_examples=40, deadline=None)
