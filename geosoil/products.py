@@ -455,6 +455,27 @@ class Product:
         }[element]
 
 
+def _follow_cce(
+    ps: ProductSettings, mat: Material, cce: float, values: dict[str, float], prov: list[str]
+) -> list[str]:
+    """A liming material's Ca and Mg follow a certificate CCE unless the certificate states
+    them: the neutralising value says how much of the pure material the product holds.
+    Updates ``values`` in place; returns the provenance lines."""
+    if (ps.cce_percent is None and ps.nv_cao_percent is None) or mat.cce <= 0:
+        return prov
+    share = cce / mat.cce
+    for element, cert in (("Ca", ps.ca_percent), ("Mg", ps.mg_percent)):
+        pure = mat.fraction(element)
+        if cert is None and pure > 0:
+            values[element] = pure * share
+            prov = [ln for ln in prov if not ln.startswith(f"{element} ")]
+            prov.append(
+                f"{element} {pure * 100:.2f} % in pure {mat.formula} (stoichiometry) x "
+                f"CCE {cce * 100:.2f} % / {mat.cce * 100:.2f} % of the pure material"
+            )
+    return prov
+
+
 def _resolve_one(name: str, ps: ProductSettings) -> Product:
     key = f"products.{name}"
     material_key = ps.material if ps.material is not None else name
@@ -503,20 +524,7 @@ def _resolve_one(name: str, ps: ProductSettings) -> Product:
                 f"CCE {mat.cce * 100:.2f} % for pure {mat.formula} (stoichiometry) "
                 f"x purity {ps.purity_percent:g} %"
             )
-    certified_cce = ps.cce_percent is not None or ps.nv_cao_percent is not None
-    if certified_cce and mat.cce > 0:
-        # the neutralising value says how much of the pure material the product holds: a
-        # liming material's Ca and Mg follow it unless the certificate states them
-        share = cce / mat.cce
-        for element, cert in (("Ca", ps.ca_percent), ("Mg", ps.mg_percent)):
-            pure = mat.fraction(element)
-            if cert is None and pure > 0:
-                values[element] = pure * share
-                prov = [ln for ln in prov if not ln.startswith(f"{element} ")]
-                prov.append(
-                    f"{element} {pure * 100:.2f} % in pure {mat.formula} (stoichiometry) x "
-                    f"CCE {cce * 100:.2f} % / {mat.cce * 100:.2f} % of the pure material"
-                )
+    prov = _follow_cce(ps, mat, cce, values, prov)
     if ps.env_percent is not None:
         env = ps.env_percent / 100.0
         if env > cce + 1e-12:
