@@ -204,7 +204,7 @@ def test_geopackage_layers_crs_and_styles(run) -> None:
         if geom is not None:
             assert pyogrio.read_info(run["gpkg"], layer=name)["crs"] == f"EPSG:{working}", name
     samples = pyogrio.read_dataframe(run["gpkg"], layer="samples")
-    assert {"sample_id", "ph", "ecec", "esp"} <= set(samples.columns) and len(samples) > 50
+    assert {"sample_id", "ph_cacl2", "ecec", "esp"} <= set(samples.columns) and len(samples) > 50
     styles = pyogrio.read_dataframe(run["gpkg"], layer="layer_styles")
     spatial = {n for n, g in layers.items() if g is not None}
     assert set(styles["f_table_name"]) == spatial
