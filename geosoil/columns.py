@@ -362,6 +362,7 @@ def parse_header(header: str) -> HeaderInfo:
     plain = re.sub(r"\((\+|c)\)", r"\1", text)  # cmol(+)/kg -> cmol+/kg
     # an extract ratio ("1:5", "1:2.5") is a method, wherever it is written
     ratios = [f"1:{m}" for m in _RATIO.findall(plain)]
+    with_ratio = plain  # EC 1:5 names its extract by the ratio
     plain = _RATIO.sub(" ", plain)
     units: list[str] = []
     methods: list[str] = []
@@ -379,7 +380,7 @@ def parse_header(header: str) -> HeaderInfo:
             note = f"unit '{inner}' is not an exchangeable amount"
         elif inner:
             methods.append(inner)
-    other = _lime_analyte(given, plain, methods, units)
+    other = _lime_analyte(given, with_ratio, methods, units)
     if other is not None:
         return other
     rest = _BRACKETS.sub(" ", plain).lower().replace("_", " ")
