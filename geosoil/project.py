@@ -648,7 +648,8 @@ def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
     lime = dataclasses.replace(lime, method=chosen)
     why = "its inputs are in the lab file"
     if reasons:
-        why += "; not " + "; ".join(reasons[:3]) + (" ..." if len(reasons) > 3 else "")
+        why += "; the methods before it cannot run: " + "; ".join(reasons[:3]) + (
+            " ..." if len(reasons) > 3 else "")
     target = lime.target()
     notes.append(
         f"lime method '{chosen}' chosen, the first of [rates.lime] method_order ({order}) the "
