@@ -941,7 +941,8 @@ def sample_fields(farm: FarmResult) -> list[Any]:
 
 
 _DERIVED_COLUMNS = {
-    "ecec", "ecec_basis", "acidity_basis", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "esp_estimated",
+    "ecec", "ecec_basis", "acidity_basis", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp",
+    "esp_estimated",
     "acid_sat", "al_sat", "base_sat", "ca_mg_ratio", "sodicity", "acid_flag", "acid_reason",
     *SAMPLE_COLUMNS,
 }

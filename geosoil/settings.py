@@ -269,7 +269,8 @@ def from_mapping(
             near = difflib.get_close_matches(str(key), list(fields), n=1, cutoff=0.5)
             hint = f"; did you mean '{near[0]}'?" if near else ""
             raise SettingsError(
-                f"unknown key{hint or '.'} Valid keys: {', '.join(fields)}", key=_join(section, str(key))
+                f"unknown key{hint or '.'} Valid keys: {', '.join(fields)}",
+                key=_join(section, str(key)),
             )
     kwargs: dict[str, Any] = {}
     for name, f in fields.items():
