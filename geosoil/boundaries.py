@@ -29,6 +29,12 @@ Rules applied to every file
 * Missing or empty geometry, a wrong geometry type, a missing file or an
   unreadable format raise :class:`~geosoil.errors.InputError` naming the file
   and the feature (features are numbered from 1 in file order).
+* Paddocks that overlap (by more than :data:`OVERLAP_TOLERANCE_M2`, so edges
+  that touch and digitising slivers do not count) are settled by
+  :func:`settle_overlaps` once they are in the working CRS, as
+  ``[boundaries] overlaps`` says: ``"refuse"`` (the default) names every
+  overlapping pair with its area; ``"first"`` gives each overlap to the
+  paddock listed first in the file, so every square metre is counted once.
 * Several features with the same paddock name (or zone id) are, by default,
   parts of one paddock: they are merged into one (multipart) paddock and a
   DataWarning names the features. With ``duplicate_names = "error"`` they are
@@ -80,6 +86,9 @@ __all__ = [
     "read_paddocks",
     "read_exclusions",
     "read_user_zones",
+    "settle_overlaps",
+    "overlapping_pairs",
+    "OVERLAP_TOLERANCE_M2",
     "NAME_COLUMNS",
     "ZONE_COLUMNS",
 ]
@@ -164,6 +173,11 @@ class BoundarySettings:
     duplicate_names
         What to do when several features carry the same name: ``"merge"``
         them into one multipart paddock (with a warning), or ``"error"``.
+    overlaps
+        What to do when paddocks overlap (by more than
+        :data:`OVERLAP_TOLERANCE_M2`): ``"refuse"`` them, naming each pair and
+        its area, or give each overlap to the paddock listed ``"first"`` in the
+        file (with a warning), so that no area is counted twice.
     exclusions
         Optional polygons to leave untreated: dams, sheds, yards, tree clumps.
     creeks
@@ -209,6 +223,12 @@ class BoundarySettings:
         minimum=0.0,
         maximum=1000.0,
         exclusive_minimum=True,
+    )
+    overlaps: str = setting(
+        "refuse",
+        doc="paddocks that overlap: refuse (name each pair), or give the overlap to the "
+        "paddock listed first in the file",
+        choices=("refuse", "first"),
     )
     zones: Path | None = setting(None, doc="your own management zones (polygons)")
     zone_id_column: str | None = setting(
@@ -553,7 +573,8 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
     -----
     DataWarning
         A boundary was repaired; features sharing a name were merged;
-        paddocks overlap; no name column was found and paddocks were numbered.
+        no name column was found and paddocks were numbered. (Overlaps are
+        settled in the working CRS by :func:`settle_overlaps`.)
 
     Examples
     --------
@@ -579,7 +600,7 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
     out = _labelled_polygons(
         frame, column, path=path, what="paddock", prefix="Paddock",
         fix_type="a paddock file holds polygons only; convert boundary lines to polygons in a GIS",
-        duplicate_names=settings.duplicate_names,
+        duplicate_names=settings.duplicate_names, warn_overlaps=False,
     )
     logger.info("read %d paddocks from %s", len(out), path)
     return out
@@ -587,10 +608,10 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
 
 def _labelled_polygons(
     frame: gpd.GeoDataFrame, column: str | None, *, path: Path, what: str, prefix: str,
-    fix_type: str, duplicate_names: str,
+    fix_type: str, duplicate_names: str, warn_overlaps: bool = True,
 ) -> gpd.GeoDataFrame:
     """One cleaned polygon per label (a ``what`` column), shared features merged or refused,
-    overlaps warned about; in the file's CRS."""
+    overlaps warned about (``warn_overlaps``); in the file's CRS."""
     labels = _labels(frame, column, path=path, prefix=prefix, required=True)
     geoms = [
         _clean_polygon(g, path=path, row=i, label=labels[i - 1], what=what, fix_type=fix_type)
@@ -600,7 +621,8 @@ def _labelled_polygons(
         labels, geoms, path=path, what=what, column=column, mode=duplicate_names,
         key="duplicate_names",
     )
-    _warn_overlaps(labels, geoms, path=path, what=what)
+    if warn_overlaps:
+        _warn_overlaps(labels, geoms, path=path, what=what)
     return gpd.GeoDataFrame({what: pd.Series(labels, dtype=object)}, geometry=geoms,
                             crs=frame.crs)
 
@@ -778,4 +800,125 @@ def read_user_zones(
     out["geometry"] = [g if g.is_valid else _polygonal_part(shapely.make_valid(g))
                        for g in out.geometry]
     logger.info("read %d zones from %s", len(out), path)
+    return out
+
+
+# --------------------------------------------------------------------------- overlaps
+
+#: Paddocks sharing less than this area (square metres) do not overlap: edges that touch
+#: share none, and two boundaries digitised along one fence line share slivers far
+#: smaller than a square metre.
+OVERLAP_TOLERANCE_M2: float = 1.0
+
+
+def _area_text(m2: float) -> str:
+    """An overlap's area in hectares, with square metres where hectares would read 0.00."""
+    ha = m2 / 10_000.0
+    return f"{ha:.2f} ha" if ha >= 0.01 else f"{ha:.4f} ha ({m2:.0f} m\u00b2)"
+
+
+def overlapping_pairs(paddocks: gpd.GeoDataFrame) -> list[tuple[int, int, float]]:
+    """Pairs of paddocks (row positions, first < second) that share more than
+    :data:`OVERLAP_TOLERANCE_M2`, with the shared area in square metres; ``paddocks`` in a
+    projected CRS."""
+    crs = pyproj.CRS.from_user_input(paddocks.crs)
+    if not crs.is_projected:
+        raise CRSError(f"overlap areas need a projected CRS, not {crs.name}")
+    unit = crs.axis_info[0].unit_conversion_factor
+    geoms = paddocks.geometry.to_numpy()
+    if len(geoms) < 2:
+        return []
+    left, right = shapely.STRtree(geoms).query(geoms, predicate="intersects")
+    keep = left < right
+    left, right = left[keep], right[keep]
+    shared = shapely.area(shapely.intersection(geoms[left], geoms[right])) * unit * unit
+    big = shared > OVERLAP_TOLERANCE_M2
+    return sorted(zip(left[big].tolist(), right[big].tolist(), shared[big].tolist(),
+                      strict=True))
+
+
+def settle_overlaps(
+    paddocks: gpd.GeoDataFrame, *, mode: str, file: str | os.PathLike[str],
+) -> gpd.GeoDataFrame:
+    """Refuse overlapping paddocks, or give each overlap to the paddock listed first.
+
+    Parameters
+    ----------
+    paddocks
+        From :func:`read_paddocks`, in the projected working CRS (areas in
+        square metres), in file order.
+    mode
+        ``"refuse"``: raise naming every pair that shares more than
+        :data:`OVERLAP_TOLERANCE_M2`, with the shared area. ``"first"``: each
+        paddock loses what it shares with the paddocks listed before it, so
+        every part of the farm belongs to one paddock (a warning per pair
+        says where each overlap went).
+    file
+        The paddocks file, named in the messages.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        ``paddocks`` (a copy with the overlaps taken out of the later paddocks
+        when ``mode="first"``).
+
+    Raises
+    ------
+    InputError
+        Overlaps with ``mode="refuse"``; with ``mode="first"``, a paddock that
+        lies wholly inside the paddocks listed before it.
+
+    Examples
+    --------
+    >>> a, b = shapely.box(0, 0, 200, 100), shapely.box(100, 0, 300, 100)
+    >>> pads = gpd.GeoDataFrame({"paddock": ["A", "B"]}, geometry=[a, b], crs="EPSG:32755")
+    >>> with warnings.catch_warnings(record=True) as said:
+    ...     out = settle_overlaps(pads, mode="first", file="p.gpkg")
+    >>> out.area.round().tolist()
+    [20000.0, 10000.0]
+    >>> print(said[0].message)  # doctest: +ELLIPSIS
+    paddocks 'A' and 'B' overlap by 1.00 ha; the overlap belongs to 'A', listed first in p.gpkg...
+    """
+    pairs = overlapping_pairs(paddocks)
+    if not pairs:
+        return paddocks
+    names = [str(n) for n in paddocks["paddock"]]
+    if mode == "refuse":
+        listing = "; ".join(f"'{names[i]}' and '{names[j]}' share {_area_text(m2)}"
+                            for i, j, m2 in pairs)
+        raise InputError(
+            f"{len(pairs)} pair(s) of paddocks overlap, so their overlap would be counted "
+            f"twice: {listing}",
+            file=file,
+            fix="redraw the boundaries so that they do not overlap, or set [boundaries] "
+            'overlaps = "first" to give each overlap to the paddock listed first in the file',
+        )
+    geoms = list(paddocks.geometry)
+    earlier: dict[int, list[int]] = {}
+    for i, j, _ in pairs:
+        earlier.setdefault(j, []).append(i)
+    unit = pyproj.CRS.from_user_input(paddocks.crs).axis_info[0].unit_conversion_factor
+    for j, before in sorted(earlier.items()):
+        # the original boundaries of the earlier paddocks: what they claimed first
+        cut = shapely.difference(paddocks.geometry.iloc[j],
+                                 shapely.union_all([paddocks.geometry.iloc[i] for i in before]))
+        cut = _single_if_one(_polygonal_part(shapely.make_valid(cut)))
+        if cut.is_empty or cut.area * unit * unit <= OVERLAP_TOLERANCE_M2:
+            raise InputError(
+                f"paddock '{names[j]}' lies wholly inside "
+                + ", ".join(f"'{names[i]}'" for i in before)
+                + ' (listed before it), so [boundaries] overlaps = "first" leaves nothing of it',
+                file=file,
+                fix="delete that paddock from the file, or redraw the boundaries",
+            )
+        geoms[j] = cut
+    for i, j, m2 in pairs:
+        warnings.warn(
+            f"paddocks '{names[i]}' and '{names[j]}' overlap by {_area_text(m2)}; the overlap "
+            f"belongs to '{names[i]}', listed first in {os.fspath(file)} ([boundaries] "
+            'overlaps = "first"), and is counted once',
+            DataWarning, stacklevel=2,
+        )
+    out = paddocks.copy()
+    out["geometry"] = gpd.GeoSeries(geoms, index=paddocks.index, crs=paddocks.crs)
     return out

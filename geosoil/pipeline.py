@@ -42,7 +42,7 @@ from . import model_choice as model_choice_mod
 from . import points as points_mod
 from . import surfaces as surfaces_mod
 from . import variogram as variogram_mod
-from .boundaries import read_exclusions, read_paddocks, read_user_zones
+from .boundaries import read_exclusions, read_paddocks, read_user_zones, settle_overlaps
 from .chemistry import derive, rule_ph
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
@@ -213,6 +213,9 @@ def prepare(
         )
         boundaries_crs = paddocks.crs
         paddocks = paddocks.to_crs(crs)
+        # overlaps in square metres of the working CRS: refused, or each counted once
+        paddocks = attempt(settle_overlaps, paddocks, mode=s.boundaries.overlaps,
+                           file=s.boundaries.paddocks, fallback=paddocks)
         exclusions = attempt(read_exclusions, s.boundaries, crs=crs,
                              fallback=gpd.GeoDataFrame(geometry=[], crs=crs))
         user_zones = None

@@ -22,10 +22,12 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from geosoil.boundaries import (
+    OVERLAP_TOLERANCE_M2,
     BoundarySettings,
     read_exclusions,
     read_paddocks,
     read_user_zones,
+    settle_overlaps,
 )
 from geosoil.errors import CRSError, DataWarning, InputError, SettingsError
 from geosoil.settings import from_mapping
@@ -220,11 +222,86 @@ def test_bow_tie_is_repaired_with_a_warning_naming_the_feature(tmp_path):
     assert fixed.area == pytest.approx(2 * 100 * 50 / 2)
 
 
-def test_overlapping_paddocks_are_reported(tmp_path):
-    path = write_projected(tmp_path / "p.gpkg", {"name": ["A", "B"]},
+def pads(*geoms: shapely.Polygon, names: str = "ABCD") -> gpd.GeoDataFrame:
+    return gpd.GeoDataFrame({"paddock": list(names[:len(geoms)])}, geometry=list(geoms),
+                            crs=UTM55S)
+
+
+def test_overlapping_paddocks_are_refused_naming_each_pair_and_its_area():
+    # [derived] squares of 100 m offset by 50 m share 50 m x 100 m = 5 000 m2 = 0.50 ha;
+    # C, 30 m further east of B, shares 70 m x 100 m = 0.70 ha with B and 2 000 m2 with A
+    three = pads(square(E0, N0, 100), square(E0 + 50, N0, 100), square(E0 + 80, N0, 100))
+    with pytest.raises(InputError) as err:
+        settle_overlaps(three, mode="refuse", file="p.gpkg")
+    text = str(err.value)
+    assert text.startswith("p.gpkg: 3 pair(s) of paddocks overlap")
+    assert "'A' and 'B' share 0.50 ha" in text and "'B' and 'C' share 0.70 ha" in text
+    assert "'A' and 'C' share 0.20 ha" in text
+    assert 'overlaps = "first"' in text
+
+
+def test_touching_edges_and_slivers_below_the_tolerance_are_not_overlaps():
+    assert OVERLAP_TOLERANCE_M2 == 1.0
+    touching = pads(square(E0, N0, 100), square(E0 + 100, N0, 100))
+    # a fence line digitised twice: 0.004 m x 100 m = 0.4 m2
+    sliver = pads(square(E0, N0, 100), square(E0 + 99.996, N0, 100))
+    with no_warnings():
+        for frame in (touching, sliver):
+            for mode in ("refuse", "first"):
+                out = settle_overlaps(frame, mode=mode, file="p.gpkg")
+                assert out.geometry.area.tolist() == frame.geometry.area.tolist()
+    # 2 m2 is above it
+    with pytest.raises(InputError, match="share 0.0002 ha"):
+        settle_overlaps(pads(square(E0, N0, 100), square(E0 + 99.98, N0, 100)),
+                        mode="refuse", file="p.gpkg")
+
+
+def test_first_gives_each_overlap_to_the_paddock_listed_first():
+    a, b, c = square(E0, N0, 100), square(E0 + 50, N0, 100), square(E0 + 80, N0 + 50, 100)
+    with pytest.warns(DataWarning) as caught:
+        out = settle_overlaps(pads(a, b, c), mode="first", file="p.gpkg")
+    said = [str(w.message) for w in caught]
+    assert any("'A' and 'B' overlap by 0.50 ha; the overlap belongs to 'A'" in m for m in said)
+    got = out.set_index("paddock").geometry
+    # the oracle is shapely's own set algebra on the boundaries drawn
+    assert got["A"].equals(a)
+    assert got["B"].area == pytest.approx(b.difference(a).area)
+    assert got["C"].area == pytest.approx(c.difference(shapely.union_all([a, b])).area)
+    # every square metre once: the parts tile the union
+    assert sum(g.area for g in got) == pytest.approx(shapely.union_all([a, b, c]).area)
+    assert shapely.union_all(list(got)).area == pytest.approx(shapely.union_all([a, b, c]).area)
+    for x, y in ((0, 1), (0, 2), (1, 2)):
+        assert got.iloc[x].intersection(got.iloc[y]).area < 1e-6
+
+
+def test_first_refuses_a_paddock_wholly_inside_an_earlier_one():
+    with pytest.raises(InputError, match="'B' lies wholly inside 'A'"):
+        settle_overlaps(pads(square(E0, N0, 100), square(E0 + 10, N0 + 10, 50)),
+                        mode="first", file="p.gpkg")
+
+
+def test_overlaps_setting_is_refuse_by_default_and_checked():
+    assert BoundarySettings(paddocks=Path("p.gpkg")).overlaps == "refuse"
+    with pytest.raises(SettingsError, match="boundaries.overlaps"):
+        from_mapping(BoundarySettings, {"paddocks": "a", "overlaps": "last"},
+                     section="boundaries", base_dir=Path("/data"))
+
+
+def test_overlap_areas_are_square_metres_in_a_feet_crs():
+    # NAD83 / Texas Central (ftUS): the same 100 m squares drawn in US survey feet
+    ft = 1200 / 3937
+    feet = gpd.GeoDataFrame({"paddock": ["A", "B"]}, crs="EPSG:2277", geometry=[
+        square(3_000_000, 10_000_000, 100 / ft), square(3_000_000 + 50 / ft, 10_000_000,
+                                                        100 / ft)])
+    with pytest.raises(InputError, match="'A' and 'B' share 0.50 ha"):
+        settle_overlaps(feet, mode="refuse", file="p.gpkg")
+
+
+def test_overlapping_zones_are_still_reported(tmp_path):
+    path = write_projected(tmp_path / "z.gpkg", {"zone": ["1", "2"]},
                            [square(E0, N0, 100), square(E0 + 50, N0, 100)])
-    with pytest.warns(DataWarning, match="'A' and 'B' overlap"):
-        read_paddocks(BoundarySettings(paddocks=path))
+    with pytest.warns(DataWarning, match="'1' and '2' overlap"):
+        read_user_zones(path, crs=UTM55S)
 
 
 @pytest.mark.parametrize(

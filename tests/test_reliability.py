@@ -344,3 +344,64 @@ def test_above_the_global_kriging_ceiling_the_local_neighbourhood_is_used_and_sa
     assert all(any("nearest 6 samples" in n for n in s.notes) for s in kriged)
     told = [w for w in farm.warnings if "more than the 10 global kriging" in w]
     assert len(told) == 1 and told[0].startswith("Home, ca: 12 samples")
+
+
+# --------------------------------------------------------------------- overlapping paddocks
+
+
+def _flat_farm(folder: Path, boxes: dict[str, tuple[float, float]], extra: str = "") -> Path:
+    """The small farm with box paddocks (x from, x to, 300 m deep) and one soil everywhere:
+    every sample the same, so every cell of every paddock gets the same rates and a farm's
+    tonnes are its area times them."""
+    import geopandas as gpd
+    import shapely
+
+    from tests.small_farm import UTM
+
+    make_project(folder, extra=extra)
+    gpd.GeoDataFrame({"name": list(boxes)}, crs=UTM, geometry=[
+        shapely.box(X0 + a, Y0, X0 + b, Y0 + 300) for a, b in boxes.values()
+    ]).to_file(folder / "paddocks.gpkg")
+    rows = [f"S{i:02d},{X0 + 25 + 50 * i:.1f},{Y0 + 60 + 90 * (i % 3):.1f},4.4,3.0,2.0,0.5,"
+            "1.2,2.5" for i in range(13)]
+    (folder / "lab.csv").write_text(HEADER + "\n" + "\n".join(rows) + "\n")
+    return folder
+
+
+def test_overlapping_paddocks_are_refused_by_check_and_run_writes_nothing(tmp_path: Path) -> None:
+    folder = _flat_farm(tmp_path / "farm", {"North Block": (0, 400), "Dam Side": (300, 700)})
+    r = _check(folder)
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    # [derived] the boxes share 100 m x 300 m = 3.00 ha
+    assert "'North Block' and 'Dam Side' share 3.00 ha" in r.stderr
+    assert "paddocks.gpkg" in r.stderr and 'overlaps = "first"' in r.stderr
+    out = tmp_path / "out"
+    r = CliRunner().invoke(cli, ["run", str(folder), "--out", str(out)])
+    assert r.exit_code == 1 and "share 3.00 ha" in r.stderr
+    # no output folder, no temporary one: the lock file alone, as after any refused run
+    assert not out.exists() and beside(out) <= {sibling_names(out)[0]}
+
+
+def test_with_overlaps_first_the_farm_totals_are_the_union_s(tmp_path: Path) -> None:
+    from geosoil.pipeline import compute
+
+    two = _flat_farm(tmp_path / "two", {"North Block": (0, 400), "Dam Side": (300, 700)})
+    text = (two / "geosoil.toml").read_text().replace(
+        'paddocks = "paddocks.gpkg"\n', 'paddocks = "paddocks.gpkg"\noverlaps = "first"\n')
+    (two / "geosoil.toml").write_text(text)
+    one = _flat_farm(tmp_path / "one", {"Both": (0, 700)})
+    farms = [compute(load_project(f), use_cache=False) for f in (two, one)]
+    said = [w for w in farms[0].warnings if "overlap by 3.00 ha" in w]
+    assert len(said) == 1 and "belongs to 'North Block'" in said[0]
+    rows = [f.tonnage[f.tonnage["level"] == "farm"].set_index("product") for f in farms]
+    assert rows[1].loc["gypsum", "tonnes"] > 10  # the sodic soil needs gypsum everywhere
+    assert sorted(rows[0].index) == sorted(rows[1].index)
+    for product in rows[1].index:
+        # [derived] the union of the boxes is 700 m x 300 m = 21.00 ha
+        assert rows[1].loc[product, "area_ha"] == pytest.approx(21.0)
+        assert rows[0].loc[product, "area_ha"] == pytest.approx(21.0)
+        # paddock figures are rounded to 0.01 t each (tonnage.py), so two paddocks may
+        # differ from one by 0.01 t
+        assert abs(rows[0].loc[product, "tonnes"] - rows[1].loc[product, "tonnes"]) <= 0.0101
+    pads = farms[0].prep.paddocks.set_index("paddock").geometry
+    assert pads["Dam Side"].area == pytest.approx(300 * 300)  # 9 ha left once 3 ha went north
