@@ -17,6 +17,7 @@ import math
 import os
 import tomllib
 import typing
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -664,6 +665,19 @@ def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
     return RateSettings(lime=lime), notes
 
 
+def _read_past_bad_rows(read_samples: Any, trial: SampleSettings) -> Any:
+    """Read the lab file for `new` with its bad rows passed over, without the run's
+    "skipped" warning (the project written stops at them; `new` says so in a note)."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        read = read_samples(trial, undecided="keep")
+    for w in caught:
+        if read.skipped and "bad row(s) skipped" in str(w.message):
+            continue
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return read
+
+
 def new_project(
     folder: Path | str,
     *,
@@ -723,9 +737,11 @@ def new_project(
     notes: list[str] = []
     boundaries = BoundarySettings(paddocks=paddocks_path)
     pads = read_paddocks(boundaries)
-    trial = SampleSettings(file=samples, crs=crs)
+    # bad cells do not stop `new` (the project file is where on_bad_row is set): the rows are
+    # read past here, named in a note, and `check` and `run` stop at them as usual
+    trial = SampleSettings(file=samples, crs=crs, on_bad_row="skip")
     try:
-        read = read_samples(trial, undecided="keep")
+        read = _read_past_bad_rows(read_samples, trial)
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
@@ -738,7 +754,7 @@ def new_project(
                 f"{ask}: the boundaries are in longitude/latitude ({pads.crs.name})"
             ) from None
         guess = pads.crs.to_string()
-        read = read_samples(dataclasses.replace(trial, crs=guess), undecided="keep")
+        read = _read_past_bad_rows(read_samples, dataclasses.replace(trial, crs=guess))
         area = pads.geometry.union_all()
         pts = read.samples.geometry
         inside = float(np.mean(shapely.contains_xy(area, pts.x.to_numpy(), pts.y.to_numpy())))
@@ -779,6 +795,14 @@ def new_project(
                 f"{shown}): 'check' and 'run' stop at them; correct their coordinates, or set "
                 "[samples] on_bad_row = 'skip' to leave them out"
             )
+    if read.skipped:
+        shown = "; ".join(f"row {r}: {why}" for r, why in read.skipped[:5]) + (
+            f"; and {len(read.skipped) - 5} more" if len(read.skipped) > 5 else "")
+        notes.append(
+            f"{len(read.skipped)} bad row(s) in {samples.name} ({shown}): 'check' and 'run' "
+            "stop at them; correct the cells, or set [samples] on_bad_row = 'skip' to leave "
+            "them out"
+        )
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
     )
@@ -790,6 +814,7 @@ def new_project(
         notes.append(f"{why}; 'check' and 'run' stop at this column until then")
     sample_settings = dataclasses.replace(
         trial,
+        on_bad_row="stop",  # the project stops at bad rows until the user says otherwise
         file=_relative(samples, folder),
         crs=crs if crs is not None else trial.crs,
         columns=dict(read.columns),

@@ -250,6 +250,28 @@ def test_reading_warnings_show_once_as_warnings_and_stray_samples_are_named(
     assert "row(s) 6" in outside[0] and "on_bad_row = 'skip'" in outside[0]
 
 
+def test_a_bad_cell_is_named_and_the_project_still_written(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    # on_bad_row is set in the project file, so `new` must write one even when a cell is bad;
+    # the project keeps on_bad_row = "stop" and `check` names the cell
+    lines = inputs["lab_ll"].read_text().splitlines()
+    f = lines[3].split(",")
+    f[3] = "n.d."  # file row 4, the pH column
+    lines[3] = ",".join(f)
+    lab = tmp_path / "lab.csv"
+    lab.write_text("\n".join(lines) + "\n")
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    bad = [ln for ln in r.stderr.splitlines() if "bad row(s)" in ln]
+    assert len(bad) == 1 and bad[0].startswith("note: ") and "row 4" in bad[0]
+    assert "'pH (CaCl2)'" in bad[0] and "skipped" not in r.stderr
+    project = tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())
+    assert project["samples"]["on_bad_row"] == "stop"
+    c = invoke("check", tmp_path / "p")
+    assert c.exit_code == 1 and "row 4, column 'pH (CaCl2)'" in c.stderr
+
+
 def test_crs_given_is_used(inputs: dict[str, Path], tmp_path: Path) -> None:
     r = invoke("new", tmp_path / "p", "--samples", inputs["lab_xy"],
                "--paddocks", inputs["paddocks_ll"], "--crs", UTM)
