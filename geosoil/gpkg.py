@@ -17,10 +17,11 @@ an outline, samples a white dot.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
@@ -34,6 +35,9 @@ __all__ = ["RATE_COLOURS", "ZERO_COLOUR", "rate_classes", "zone_styles", "plain_
            "write_gpkg"]
 
 logger = logging.getLogger(__name__)
+
+#: GDAL's setting for SQLite's synchronous mode (GeoPackage is SQLite).
+_SQLITE_SYNC = "OGR_SQLITE_SYNCHRONOUS"
 
 #: Colours of the five rate classes, lightest (least product) first; our own ramp.
 RATE_COLOURS: tuple[str, ...] = ("#f7f0c8", "#e3cf7a", "#c9a13f", "#96692a", "#5a3c1c")
@@ -236,6 +240,32 @@ def _plain_columns(frame: Any) -> Any:
     return out
 
 
+@contextlib.contextmanager
+def _unsynchronised_sqlite(pyogrio: Any) -> Iterator[None]:
+    """SQLite without a disk flush per transaction while the layers are written.
+
+    Each layer is a transaction of its own, and SQLite's default waits for the disk
+    at every one (0.7 s of the demo's 0.9 s GeoPackage, measured). The file is a
+    temporary one until :func:`write_gpkg` renames it, and is flushed once
+    (:func:`_fsync`) before that, so a crash never leaves a half-written
+    GeoPackage under the real name. GDAL's setting is restored afterwards.
+    """
+    before = pyogrio.get_gdal_config_option(_SQLITE_SYNC)
+    pyogrio.set_gdal_config_options({_SQLITE_SYNC: "OFF"})
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({_SQLITE_SYNC: before})
+
+
+def _fsync(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
 def write_gpkg(
     path: str | os.PathLike[str],
     layers: Mapping[str, Any],
@@ -271,7 +301,7 @@ def write_gpkg(
     import pyogrio
 
     styles = dict(styles or {})
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, _unsynchronised_sqlite(pyogrio):
         written: list[str] = []
         for name, frame in layers.items():
             if frame is None or len(frame) == 0:
@@ -290,5 +320,6 @@ def write_gpkg(
         if rows:
             pyogrio.write_dataframe(pd.DataFrame(rows), tmp, layer="layer_styles",
                                     driver="GPKG", append=True, layer_options={"FID": "id"})
+        _fsync(tmp)
     logger.info("GeoPackage: %s (%d layers)", path, len(written))
     return Path(path)
