@@ -22,14 +22,13 @@ True
 from __future__ import annotations
 
 import logging
+import math
 from collections.abc import Sequence
 from typing import Any
 
 import geopandas as gpd
 import numpy as np
 import pyproj
-from pyproj.aoi import AreaOfInterest
-from pyproj.database import query_utm_crs_info
 
 from .errors import CRSError, SettingsError
 
@@ -201,20 +200,21 @@ def lonlat_bounds(*, frames: Sequence[gpd.GeoDataFrame]) -> tuple[float, float, 
 
 
 def _utm_of(lon: float, lat: float) -> pyproj.CRS:
-    """The WGS 84 UTM CRS whose zone holds (lon, lat)."""
-    infos = query_utm_crs_info(
-        datum_name="WGS 84", area_of_interest=AreaOfInterest(lon, lat, lon, lat)
-    )
-    # On a zone edge two zones touch the point: take the one that starts there.
-    inside = [
-        i for i in infos if i.area_of_use and i.area_of_use.west <= lon < i.area_of_use.east
-    ] or infos
-    if not inside:
+    """The WGS 84 UTM CRS whose zone holds (lon, lat).
+
+    Zone ``floor((lon + 180) / 6) + 1`` (a point on a zone edge goes to the zone that
+    starts there), north (EPSG:326zz) from the equator up to 84°N and south
+    (EPSG:327zz) below it down to 80°S: the zones' areas of use in the EPSG
+    dataset, which a query of PROJ's database took 0.1-0.2 s to find; the test
+    holds this against that query.
+    """
+    if not (-80.0 <= lat <= 84.0 and -180.0 <= lon <= 180.0):
         raise CRSError(
             f"no UTM zone covers longitude {lon:.4f}, latitude {lat:.4f} (UTM stops at 84°N and "
             "80°S). Fix: give the inputs in a projected CRS in metres, or set the working CRS"
         )
-    return pyproj.CRS.from_authority(inside[0].auth_name, inside[0].code)
+    zone = min(int(math.floor((lon + 180.0) / 6.0)) + 1, 60)
+    return pyproj.CRS.from_epsg((32600 if lat >= 0.0 else 32700) + zone)
 
 
 def choose_working_crs(

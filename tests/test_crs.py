@@ -138,3 +138,31 @@ def test_transform_uses_x_first():
     east, north = pyproj.Transformer.from_crs(4326, crs, always_xy=True).transform(147.0, -35.0)
     assert east == pytest.approx(500_000.0, abs=1e-6)
     assert 6e6 < north < 7e6
+
+
+@pytest.mark.parametrize("lon, lat", [
+    (147.45, -34.7), (0.0, 0.0), (-180.0, 0.0), (179.99, 10.0), (180.0, -5.0), (6.0, 45.0),
+    (5.999, 0.0), (3.0, 60.0), (10.0, 78.0), (-122.3, 47.6), (-70.0, -33.4), (116.0, -80.0),
+    (25.0, 84.0), (-0.001, -0.001),
+])
+def test_utm_zone_is_the_one_projs_database_gives(lon: float, lat: float) -> None:
+    """The zone worked out from longitude and hemisphere against the EPSG dataset's areas of
+    use, as PROJ's database query finds them (the zone starting at an edge; north on the
+    equator)."""
+    from pyproj.aoi import AreaOfInterest
+    from pyproj.database import query_utm_crs_info
+
+    from geosoil.crs import _utm_of
+
+    infos = query_utm_crs_info(datum_name="WGS 84",
+                               area_of_interest=AreaOfInterest(lon, lat, lon, lat))
+    inside = [i for i in infos if i.area_of_use.west <= lon < i.area_of_use.east] or infos
+    assert _utm_of(lon, lat).to_epsg() == int(inside[0].code)
+
+
+@pytest.mark.parametrize("lat", [84.5, -80.5])
+def test_no_utm_zone_beyond_its_latitudes(lat: float) -> None:
+    from geosoil.crs import _utm_of
+
+    with pytest.raises(CRSError, match="UTM stops at 84°N and 80°S"):
+        _utm_of(10.0, lat)
