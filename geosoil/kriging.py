@@ -75,17 +75,19 @@ import warnings
 from collections.abc import Callable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Literal, overload
+from typing import TYPE_CHECKING, Literal, overload
 
 import numpy as np
-import scipy.linalg
+import scipy  # submodules load on first use (scipy.linalg, scipy.spatial)
 from numpy.typing import ArrayLike, NDArray
-from scipy.spatial import cKDTree
 from threadpoolctl import ThreadpoolController
 
 from .errors import InputError, InterpolationWarning, SettingsError
 from .points import COINCIDENT_M, as_points, as_samples
 from .variogram import VariogramModel
+
+if TYPE_CHECKING:
+    from scipy.spatial import cKDTree
 
 __all__ = [
     "SMALL_SYSTEM",
@@ -239,7 +241,7 @@ def _coincident(
     xd: Array, xt: Array, tree: cKDTree | None = None
 ) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """(target, sample) index pairs closer than COINCIDENT_M (by the engine's own d2)."""
-    tree = cKDTree(xd) if tree is None else tree
+    tree = scipy.spatial.cKDTree(xd) if tree is None else tree
     d, _ = tree.query(xt, k=1, distance_upper_bound=4 * COINCIDENT_M)
     hit = np.flatnonzero(np.isfinite(d))
     ti: list[int] = []
@@ -458,7 +460,7 @@ def _local(
     workers: int | None,
 ) -> tuple[Array, Array, Array]:
     m, nb = len(xt), neighbours
-    tree = cKDTree(xd)
+    tree = scipy.spatial.cKDTree(xd)
     order, starts, centres = _tiles(xt, tile_m)
     counts = np.diff(np.r_[starts, m])
     _, near = tree.query(centres, k=nb)

@@ -61,9 +61,7 @@ import numpy as np
 import pandas as pd
 import pyproj
 import shapely
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
-from scipy.spatial import cKDTree
+from numpy.typing import NDArray
 
 from .chemistry import DERIVED
 from .columns import (
@@ -1322,14 +1320,36 @@ def _assign_paddocks(
 _GROUPS_LISTED = 50  # merged groups named one by one in the warning
 
 
+def close_pairs(xy: NDArray[np.float64], distance: float) -> NDArray[np.intp]:
+    """Every pair ``(i, j)``, ``i < j``, of points at most ``distance`` apart, sorted.
+
+    Shapely's STRtree (already loaded for the geometry) answers this without
+    loading scipy's spatial package for every run; the tests hold it against
+    :meth:`scipy.spatial.cKDTree.query_pairs`.
+
+    Examples
+    --------
+    >>> close_pairs(np.array([[0.0, 0.0], [0.5, 0.0], [5.0, 5.0], [5.0, 5.9]]), 1.0).tolist()
+    [[0, 1], [2, 3]]
+    """
+    points = shapely.points(np.asarray(xy, dtype=float))
+    i, j = shapely.STRtree(points).query(points, predicate="dwithin", distance=distance)
+    keep = i < j
+    out = np.column_stack([i[keep], j[keep]]).astype(np.intp)
+    return out[np.lexsort((out[:, 1], out[:, 0]))] if len(out) else out.reshape(0, 2)
+
+
 def _near_duplicates(
     pts: gpd.GeoDataFrame, settings: SampleSettings, file: str, location: str | None,
     found: list[str] | None = None,
 ) -> gpd.GeoDataFrame:
     xy = np.column_stack([pts.geometry.x.to_numpy(), pts.geometry.y.to_numpy()])
-    pairs = cKDTree(xy).query_pairs(r=settings.duplicate_distance_m, output_type="ndarray")
+    pairs = close_pairs(xy, settings.duplicate_distance_m)
     if len(pairs) == 0:
         return pts
+    from scipy.sparse import coo_matrix  # only when there are near-duplicates to merge
+    from scipy.sparse.csgraph import connected_components
+
     rows = pts["source_row"].to_numpy()
     ids = pts["sample_id"].astype(str).to_numpy()
     n = len(pts)

@@ -53,10 +53,9 @@ from dataclasses import dataclass, field
 
 import geopandas as gpd
 import numpy as np
+import scipy  # scipy.spatial loads on first use
 import shapely
 from numpy.typing import NDArray
-from scipy.spatial import ConvexHull, QhullError, cKDTree
-from scipy.spatial.distance import pdist
 
 from .chemistry import ACIDITY_BASES, ECEC_BASES, ChemistrySettings, exchange_chemistry
 from .errors import InputError, InterpolationWarning, SettingsError
@@ -290,10 +289,10 @@ def _max_distance(xy: NDArray[np.float64]) -> float:
     pts = xy
     if len(xy) > 3:
         try:
-            pts = xy[ConvexHull(xy).vertices]
-        except QhullError:  # all on one line: its ends are extremes in x or in y
+            pts = xy[scipy.spatial.ConvexHull(xy).vertices]
+        except scipy.spatial.QhullError:  # all on one line: its ends are extremes in x or in y
             pts = xy[[xy[:, 0].argmin(), xy[:, 0].argmax(), xy[:, 1].argmin(), xy[:, 1].argmax()]]
-    return float(pdist(pts).max()) if len(pts) > 1 else 0.0
+    return float(scipy.spatial.distance.pdist(pts).max()) if len(pts) > 1 else 0.0
 
 
 @dataclass(frozen=True)
@@ -382,7 +381,7 @@ def _zone_values(
         return None
     n_fill = int((~filled).sum())
     if n_fill:
-        tree = cKDTree(np.column_stack([x[filled], y[filled]]))
+        tree = scipy.spatial.cKDTree(np.column_stack([x[filled], y[filled]]))
         _, idx = tree.query(np.column_stack([x[~filled], y[~filled]]))
         out[~filled] = out[filled][idx]
     return grid.to_array(out), n_fill

@@ -56,8 +56,7 @@ from dataclasses import dataclass
 from typing import Final
 
 import numpy as np
-import scipy.optimize
-import scipy.special
+import scipy  # scipy.optimize and scipy.special load on first use
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError, SettingsError

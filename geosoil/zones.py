@@ -94,10 +94,10 @@ import numpy as np
 import pandas as pd
 import pyproj
 import rasterio.features
+import scipy  # scipy.ndimage loads on first use
 import shapely
 from affine import Affine
 from numpy.typing import NDArray
-from scipy import ndimage
 from shapely.affinity import rotate
 from shapely.geometry import shape as shape_from_geojson
 from shapely.geometry.base import BaseGeometry
@@ -455,7 +455,7 @@ def _majority_filter(cls: NDArray[np.int64], valid: NDArray[np.bool_]) -> NDArra
     if k <= 1:
         return cls
     counts = np.stack(
-        [ndimage.uniform_filter((cls == c).astype(float), size=3, mode="constant") * 9.0
+        [scipy.ndimage.uniform_filter((cls == c).astype(float), size=3, mode="constant") * 9.0
          for c in range(1, k + 1)]
     )
     best = counts.argmax(axis=0) + 1
@@ -760,7 +760,8 @@ def _class_zones(
         if changed:
             notes.append(f"smoothing (3 x 3 majority) changed the class of {changed} cells")
     # cells without a rate take the nearest cell's class, so classes tile the raster
-    idx = ndimage.distance_transform_edt(cls == 0, return_distances=False, return_indices=True)
+    idx = scipy.ndimage.distance_transform_edt(cls == 0, return_distances=False,
+                                               return_indices=True)
     filled = cls[idx[0], idx[1]]
     filled = _merge_components(
         filled, overlap=overlap, has_rate=has_rate, transform=transform,
@@ -800,7 +801,7 @@ def _merge_components(
     comp_class = [0]
     n = 0
     for c in np.unique(cls):
-        lab, m = ndimage.label(cls == c)  # 4-connectivity, like the polygonising
+        lab, m = scipy.ndimage.label(cls == c)  # 4-connectivity, like the polygonising
         comp[lab > 0] = lab[lab > 0] + n
         comp_class.extend([int(c)] * m)
         n += m

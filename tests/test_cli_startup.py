@@ -63,3 +63,24 @@ def test_importing_the_package_imports_no_heavy_library() -> None:
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           check=True)
     assert json.loads(done.stdout) == []
+
+
+def test_check_loads_no_interpolation_library(tmp_path) -> None:
+    """``geosoil check`` reads and checks and interpolates nothing, so scipy's packages for
+    kriging, variogram fitting and zones (about 0.3-0.5 s of start-up) stay unloaded."""
+    from tests.demofarm import copy_demo
+
+    farm, _cache = copy_demo(tmp_path)
+    code = (
+        "import json, sys\n"
+        "from geosoil.cli.main import cli\n"
+        "try:\n"
+        f"    cli.main(args=['-q', 'check', {str(farm)!r}])\n"
+        "except SystemExit as exc:\n"
+        "    assert exc.code in (0, None), exc.code\n"
+        "print(json.dumps(sorted(m for m in sys.modules if m.startswith('scipy.') and\n"
+        "    m.split('.')[1] in ('linalg', 'optimize', 'spatial', 'sparse', 'ndimage'))))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    assert json.loads(done.stdout.strip().splitlines()[-1]) == []

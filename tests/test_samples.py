@@ -1259,3 +1259,23 @@ def test_averaged_near_duplicates_match_a_group_by_group_mean() -> None:
         ev, ex, ey = expected[sid]
         assert (np.isnan(ev) and np.isnan(value)) or value == pytest.approx(ev)
         assert (gx, gy) == pytest.approx((ex, ey))
+
+
+@given(
+    pts=st.lists(st.tuples(st.integers(0, 40), st.integers(0, 40)), min_size=0, max_size=60),
+    distance=st.sampled_from([0.5, 1.0, 1.5, 3.0]),
+)
+@settings(max_examples=60, deadline=None)
+def test_close_pairs_match_scipys_kd_tree(pts, distance) -> None:
+    """The near-duplicate pairs (shapely's STRtree) against scipy's cKDTree.query_pairs, on
+    integer grids where many pairs sit exactly at the distance (both include them)."""
+    from scipy.spatial import cKDTree
+
+    from geosoil.samples import close_pairs
+
+    xy = np.array(pts, dtype=float).reshape(-1, 2) * 0.5
+    got = close_pairs(xy, distance)
+    want = cKDTree(xy).query_pairs(r=distance, output_type="ndarray") if len(xy) else \
+        np.empty((0, 2), dtype=int)
+    want = want[np.lexsort((want[:, 1], want[:, 0]))] if len(want) else want.reshape(0, 2)
+    assert got.tolist() == want.tolist()
