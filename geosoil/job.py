@@ -111,7 +111,10 @@ def run(
         farm.prep.warnings.extend(staging.notes)
         t0 = time.perf_counter()
         with record_warnings(farm.prep.warnings):
-            written, record = write_outputs(farm, out_dir=staging.temp, progress=progress)
+            # the folder being replaced (when there is one) lends its unchanged GeoTIFFs
+            previous = staging.final if (staging.final / "run.json").is_file() else None
+            written, record = write_outputs(farm, out_dir=staging.temp, progress=progress,
+                                            previous=previous)
         progress(f"moving the complete output folder into place: {staging.final}")
     farm.timings["writing"] = time.perf_counter() - t0
     return RunResult(out_dir=staging.final,

@@ -73,7 +73,7 @@ from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
 from .units import rate_from_kg_ha
 from .writers import (
     atomic_write,
-    write_cog,
+    reuse_or_write_cog,
     write_csv,
     write_geojson,
     write_json,
@@ -135,8 +135,52 @@ def _rel(path: Path, root: Path) -> str:
     return str(path.relative_to(root))
 
 
+def _previous_geotiffs(previous: Path | None) -> dict[str, Any]:
+    """What the earlier run in ``previous`` recorded of its GeoTIFFs (``run.json``
+    ``geotiffs``); empty when there is none or it cannot be read."""
+    if previous is None:
+        return {}
+    try:
+        old = json.loads((previous / "run.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {}
+    tiffs = old.get("geotiffs") if isinstance(old, dict) else None
+    if not isinstance(tiffs, dict):
+        return {}
+    return {k: v for k, v in tiffs.items() if isinstance(k, str) and isinstance(v, dict)}
+
+
+class _GeoTiffs:
+    """The run's GeoTIFFs: each written, or copied from the folder being replaced when it
+    was made from the same (:func:`geosoil.writers.reuse_or_write_cog`)."""
+
+    def __init__(self, out_dir: Path, previous: Path | None, written: list[Path]) -> None:
+        self.out_dir, self.previous, self.written = out_dir, previous, written
+        self.old = _previous_geotiffs(previous)
+        self.entries: dict[str, dict[str, str]] = {}
+        self.copied = 0
+
+    def write(self, path: Path, array: np.ndarray, **kwargs: Any) -> None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        rel = path.relative_to(self.out_dir).as_posix()
+        old = None
+        if self.previous is not None and rel in self.old:
+            old = (self.previous / rel, self.old[rel])
+        self.entries[rel], copied = reuse_or_write_cog(path, array, previous=old, **kwargs)
+        self.copied += copied
+        self.written.append(path)
+
+    def record(self, progress: Any) -> dict[str, Any]:
+        """``run.json``'s ``geotiffs`` (path -> key and SHA-256) and ``geotiffs_copied``."""
+        if self.copied:
+            progress(f"{self.copied} of {len(self.entries)} GeoTIFFs unchanged since the run "
+                     "replaced: copied")
+        return {"geotiffs": dict(sorted(self.entries.items())), "geotiffs_copied": self.copied}
+
+
 def write_outputs(
-    farm: FarmResult, *, out_dir: Path, progress: Any = lambda _m: None
+    farm: FarmResult, *, out_dir: Path, progress: Any = lambda _m: None,
+    previous: Path | None = None,
 ) -> tuple[list[Path], dict[str, Any]]:
     """Write every output of ``farm`` into ``out_dir`` (which exists and is ours).
 
@@ -148,6 +192,11 @@ def write_outputs(
         The output folder, already checked by ``writers.ensure_output_dir``.
     progress : callable, optional
         Called with a short message at each stage.
+    previous : Path, optional
+        The output folder this run replaces. A GeoTIFF made from the same array and
+        settings as one of its files (``run.json`` ``geotiffs``: the SHA-256 of what
+        it was made from and of its bytes) is copied from it instead of written
+        again: the same bytes, checked (:func:`geosoil.writers.reuse_or_write_cog`).
 
     Returns
     -------
@@ -159,12 +208,12 @@ def write_outputs(
     prep = farm.prep
     crs = prep.crs
     written: list[Path] = []
+    geotiffs = _GeoTiffs(out_dir, previous, written)
+    tif = geotiffs.write
 
     def cog(path: Path, array: np.ndarray, transform: Any, description: str, unit: str) -> None:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        write_cog(path, array, transform=transform, crs=crs, descriptions=(description,),
-                  tags={"unit": unit})
-        written.append(path)
+        tif(path, array, transform=transform, crs=crs, descriptions=(description,),
+            tags={"unit": unit})
 
     # surfaces and cell chemistry
     progress("writing surfaces")
@@ -229,9 +278,8 @@ def write_outputs(
                 p_tif = folder / f"{stem}_zones.tif"
                 word = "season" if s.spreader.split_into == "seasons" else "pass"
                 what = f"{product} zone rates" + (f", {word} {k} of {n}" if n > 1 else "")
-                write_cog(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
-                          tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
-                written.append(p_tif)
+                tif(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
+                    tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
             written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product,
                                          names=iso_names, tasks=iso_tasks,
                                          partfields=iso_partfields))
@@ -263,6 +311,7 @@ def write_outputs(
 
     record = build_record(farm, out_dir=out_dir)
     record["names_shortened"] = list(iso_names.changed)
+    record.update(geotiffs.record(progress))
 
     # map and report
     progress("drawing the map")

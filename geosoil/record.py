@@ -6,6 +6,7 @@ nothing of surfaces or rates.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import platform
 from datetime import UTC, datetime
@@ -48,6 +49,12 @@ def versions() -> dict[str, str]:
     dict of str to str
         Package name to version (GDAL and PROJ included when available).
     """
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict[str, str]:
+    """:func:`versions`, looked up once a process (package metadata is slow to read)."""
     import importlib.metadata as md
 
     out = {"geosoil": __version__, "python": platform.python_version()}

@@ -31,6 +31,8 @@ import contextlib
 import dataclasses
 import datetime as _dt
 import errno
+import functools
+import hashlib
 import json
 import logging
 import math
@@ -64,6 +66,9 @@ __all__ = [
     "geojson_text",
     "write_shapefile_zip",
     "write_cog",
+    "cog_key",
+    "file_sha256",
+    "reuse_or_write_cog",
     "write_csv",
     "inert_cell",
     "FORMULA_STARTS",
@@ -704,3 +709,110 @@ def write_cog(
                 if factors:
                     dst.build_overviews(factors, Resampling.average)
     return Path(path)
+
+
+# --------------------------------------------------------------------------- unchanged rasters
+
+
+@functools.cache
+def _cog_writer_id() -> bytes:
+    """What besides its arguments decides a GeoTIFF's bytes: this module's source and the
+    versions of geosoil, rasterio and GDAL."""
+    import rasterio
+
+    from . import __version__
+
+    source = Path(__file__).read_bytes()
+    return "\n".join([__version__, rasterio.__version__, rasterio.__gdal_version__,
+                      hashlib.sha256(source).hexdigest()]).encode("utf-8")
+
+
+def cog_key(
+    array: NDArray[np.floating[Any]],
+    *,
+    transform: Affine,
+    crs: Any,
+    nodata: float = -9999.0,
+    descriptions: Sequence[str] | None = None,
+    tags: Mapping[str, Any] | None = None,
+) -> str:
+    """SHA-256 of everything :func:`write_cog` makes a file from, with the same arguments.
+
+    Two calls with equal keys write the same bytes, so a file written with one
+    key can stand for another (:func:`reuse_or_write_cog`).
+
+    Examples
+    --------
+    >>> t = Affine(10, 0, 500000, 0, -10, 6000000)
+    >>> a = np.array([[1.0, np.nan]])
+    >>> cog_key(a, transform=t, crs="EPSG:32755") == cog_key(a.copy(), transform=t,
+    ...                                                       crs="EPSG:32755")
+    True
+    >>> cog_key(a, transform=t, crs="EPSG:32755") == cog_key(a, transform=t, crs="EPSG:32756")
+    False
+    """
+    data = np.ascontiguousarray(array)
+    h = hashlib.sha256(_cog_writer_id())
+    meta = {
+        "dtype": data.dtype.str, "shape": list(data.shape), "transform": list(transform)[:6],
+        "crs": pyproj.CRS.from_user_input(crs).to_wkt(), "nodata": float(nodata),
+        "descriptions": None if descriptions is None else [str(d) for d in descriptions],
+        "tags": None if tags is None else {str(k): str(v) for k, v in tags.items()},
+    }
+    h.update(json.dumps(meta, sort_keys=True).encode("utf-8"))
+    h.update(data.tobytes())
+    return h.hexdigest()
+
+
+def file_sha256(path: str | os.PathLike[str]) -> str:
+    """SHA-256 of a file's bytes (hex)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def reuse_or_write_cog(
+    path: str | os.PathLike[str],
+    array: NDArray[np.floating[Any]],
+    *,
+    previous: tuple[Path, Mapping[str, Any]] | None,
+    **kwargs: Any,
+) -> tuple[dict[str, str], bool]:
+    """:func:`write_cog`, or a copy of the same file from an earlier run when it was made from
+    the same array and settings.
+
+    Parameters
+    ----------
+    path
+        The ``.tif`` file to write.
+    array, kwargs
+        As for :func:`write_cog`.
+    previous
+        The earlier file that would stand for this one and what its run recorded of it
+        (``{"key": ..., "sha256": ...}``), or None. It is copied only when its key
+        equals this call's :func:`cog_key` and its bytes still have the recorded
+        SHA-256 (a file changed since is never copied).
+
+    Returns
+    -------
+    entry : dict
+        ``{"key": ..., "sha256": ...}`` of the file written, for the next run.
+    reused : bool
+        Whether the earlier file was copied.
+    """
+    key = cog_key(array, **kwargs)
+    if previous is not None:
+        old_path, old = previous
+        try:
+            same = (old.get("key") == key and isinstance(old.get("sha256"), str)
+                    and old_path.is_file() and file_sha256(old_path) == old["sha256"])
+        except OSError:
+            same = False
+        if same:
+            with atomic_path(path) as tmp:
+                shutil.copyfile(old_path, tmp)
+            return {"key": key, "sha256": str(old["sha256"])}, True
+    write_cog(path, array, **kwargs)
+    return {"key": key, "sha256": file_sha256(path)}, False

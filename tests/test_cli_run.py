@@ -189,6 +189,32 @@ def test_second_run_takes_surfaces_from_the_cache_and_changes_the_rates(runs) ->
     assert not t1.equals(t2)
 
 
+def test_a_rerun_copies_unchanged_geotiffs_byte_for_byte_and_writes_changed_ones(runs) -> None:  # noqa: ANN001, E501
+    """The re-run into out2 (a rate setting changed) replaced a folder whose run.json says
+    what each GeoTIFF was made from: the surfaces (same cached arrays) are copied, the same
+    bytes as the first run wrote; the gypsum rates (changed) are written anew."""
+    import hashlib
+
+    out1, out2 = runs["root"] / "out1", runs["root"] / "out2"
+    rec1 = json.loads((out1 / "run.json").read_text())
+    rec2 = json.loads((out2 / "run.json").read_text())
+    assert rec1["geotiffs_copied"] == 0
+    tifs = sorted(p.relative_to(out2).as_posix() for p in out2.rglob("*.tif"))
+    assert sorted(rec2["geotiffs"]) == tifs
+    for rel in tifs:
+        assert rec2["geotiffs"][rel]["sha256"] == hashlib.sha256(
+            (out2 / rel).read_bytes()).hexdigest()
+    surfaces = [t for t in tifs if t.startswith("surfaces/")]
+    assert len(surfaces) > 20
+    for rel in surfaces:
+        assert (out2 / rel).read_bytes() == (out1 / rel).read_bytes()
+        assert rec2["geotiffs"][rel]["key"] == rec1["geotiffs"][rel]["key"]
+    changed = "rates/creek-flat/gypsum__gypsum.tif"
+    assert rec2["geotiffs"][changed]["key"] != rec1["geotiffs"][changed]["key"]
+    assert (out2 / changed).read_bytes() != (out1 / changed).read_bytes()
+    assert len(surfaces) <= rec2["geotiffs_copied"] < len(tifs)
+
+
 def test_an_existing_output_folder_is_refused_without_overwrite(runs) -> None:  # noqa: ANN001
     out1 = runs["root"] / "out1"
     before = _tree(out1)

@@ -255,3 +255,46 @@ def test_failed_raster_write_leaves_nothing(tmp_path: Path) -> None:
 # --------------------------------------------------------------------------- output folder
 
 
+
+
+def test_an_earlier_geotiff_stands_in_only_when_made_from_the_same_and_unchanged(
+    tmp_path: Path,
+) -> None:
+    """reuse_or_write_cog copies an earlier file only when the array and settings are the
+    same (its key) and its bytes are as recorded; the copy is byte-for-byte what writing
+    would give, and GDAL reads it back the same."""
+    from geosoil.writers import file_sha256, reuse_or_write_cog
+
+    t = Affine(10, 0, 500000, 0, -10, 6000000)
+    a = np.arange(12.0).reshape(3, 4)
+    a[0, 0] = np.nan
+    kw = dict(transform=t, crs="EPSG:32755", descriptions=("x",), tags={"unit": "kg/ha"})
+    first, copied = reuse_or_write_cog(tmp_path / "first.tif", a, previous=None, **kw)
+    assert not copied and first["sha256"] == file_sha256(tmp_path / "first.tif")
+    # the same: copied, same bytes as a fresh write
+    again, copied = reuse_or_write_cog(tmp_path / "again.tif", a.copy(),
+                                       previous=(tmp_path / "first.tif", first), **kw)
+    assert copied and again == first
+    write_cog(tmp_path / "fresh.tif", a, **kw)
+    assert (tmp_path / "again.tif").read_bytes() == (tmp_path / "fresh.tif").read_bytes()
+    # another array, or another tag: written anew
+    b = a + 1.0
+    other, copied = reuse_or_write_cog(tmp_path / "b.tif", b,
+                                       previous=(tmp_path / "first.tif", first), **kw)
+    assert not copied and other["key"] != first["key"]
+    with rasterio.open(tmp_path / "b.tif") as src:
+        np.testing.assert_array_equal(src.read(1, masked=True).filled(np.nan), b)
+    kw2 = dict(kw, tags={"unit": "t/ha"})
+    _, copied = reuse_or_write_cog(tmp_path / "c.tif", a, previous=(tmp_path / "first.tif",
+                                                                   first), **kw2)
+    assert not copied
+    # the earlier file changed since its run recorded it: never copied
+    (tmp_path / "first.tif").write_bytes((tmp_path / "b.tif").read_bytes())
+    d, copied = reuse_or_write_cog(tmp_path / "d.tif", a, previous=(tmp_path / "first.tif",
+                                                                   first), **kw)
+    assert not copied
+    assert (tmp_path / "d.tif").read_bytes() == (tmp_path / "fresh.tif").read_bytes()
+    # gone: written
+    _, copied = reuse_or_write_cog(tmp_path / "e.tif", a, previous=(tmp_path / "gone.tif",
+                                                                   first), **kw)
+    assert not copied
