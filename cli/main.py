@@ -6,7 +6,7 @@ import click
 
 from geosoil import __version__
 
-from . import batch, check, demo, explain, new, plan, run
+from . import batch, check, compare, demo, explain, new, plan, run
 from .options import set_verbosity
 
 __all__ = ["main", "cli"]
@@ -38,6 +38,7 @@ cli.add_command(demo.demo)
 cli.add_command(explain.explain)
 cli.add_command(batch.batch)
 cli.add_command(plan.plan)
+cli.add_command(compare.compare)
 
 
 def main() -> None:

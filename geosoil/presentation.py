@@ -48,7 +48,9 @@ __all__ = [
     "PALETTES",
     "SODICITY_BREAKS",
     "SODICITY_LABELS",
+    "CHANGE_CLASSES",
     "Classes",
+    "change_classes",
     "class_colour_rgb",
     "classes_data_uri",
     "classes_for",
@@ -657,3 +659,45 @@ def label_point(geom: Any) -> Any:
     tolerance = max(maxx - minx, maxy - miny) / 200 or 1e-9
     point = polylabel(largest, tolerance=tolerance)
     return point if largest.contains(point) else largest.representative_point()
+
+
+#: Colours and labels of the change classes, by class code (-1 fell, 0 no change beyond
+#: error, 1 rose, 2 no error surface): see :data:`geosoil.change.CLASS_CODES`.
+CHANGE_CLASSES = Classes(
+    (-0.5, 0.5, 1.5),
+    ("#d6604d", "#f7f7f7", "#4393c3", "#969696"),
+    ("fell beyond its error", "no change beyond error", "rose beyond its error",
+     "no error surface (not judged)"),
+    "a change counts where it is larger than 1.96 times its standard deviation",
+)
+
+
+def change_classes(values: np.ndarray, unit: str = "") -> Classes:
+    """Diverging classes of a change, even about zero: red where it fell, blue where it rose.
+
+    The middle class holds the changes nearer zero than one class width.
+
+    Examples
+    --------
+    >>> c = change_classes(np.array([-1.7, 0.2, 0.9]))
+    >>> c.breaks
+    (-1.25, -0.75, -0.25, 0.25, 0.75, 1.25)
+    >>> c.colours[3], c.index(np.array([-0.1, 0.3])).tolist()
+    ('#f7f7f7', [3, 4])
+    """
+    v = _finite(values)
+    top = float(np.abs(v).max()) if v.size else 1.0
+    step = nice_step(2 * top, 7) if top > 0 else 1.0
+    k = max(1, math.ceil(top / step - 0.5 - 1e-9))
+    while k > 5:
+        step = nice_step(2 * step * k, 5) if step * k > 0 else step * 2
+        k = max(1, math.ceil(top / step - 0.5 - 1e-9))
+    half = step / 2
+    ups = [round(half + i * step, 9) for i in range(k)]
+    breaks = tuple([-b for b in reversed(ups)] + ups)
+    reds = PALETTES["red-blue"][1:5]  # dark to light red
+    blues = PALETTES["red-blue"][6:10]  # light to dark blue
+    colours = tuple(reds[4 - k:]) + ("#f7f7f7",) + tuple(blues[:k])
+    d = _decimals(round(half, 6))
+    labels = _range_labels(breaks, d, unit)
+    return Classes(breaks, colours, labels, "red: fell; blue: rose; white: about no change")

@@ -54,6 +54,7 @@ from .units import RATE_UNITS, format_rate
 
 __all__ = [
     "CAUTIONS",
+    "ChangeReportInput",
     "PaddockGlance",
     "Provenance",
     "ReportInput",
@@ -61,6 +62,7 @@ __all__ = [
     "SoilMap",
     "UncertaintySummary",
     "VariogramInfo",
+    "build_change_report",
     "build_report",
     "surface_map_svg",
     "variogram_svg",
@@ -1272,3 +1274,85 @@ def build_report(data: ReportInput) -> str:
     )
     logger.debug("report: %d paddocks, %d surfaces", len(paddock_names), len(data.variograms))
     return page
+
+
+# --------------------------------------------------------------------------- seasons
+
+
+@dataclass(frozen=True)
+class ChangeReportInput:
+    """What the report of a comparison of two seasons shows (``geosoil compare``).
+
+    ``summary`` holds one mapping per paddock and variable (``label, unit,
+    last_mean, this_mean, change_mean, rose_pct, fell_pct,
+    no_change_beyond_error_pct, no_error_surface_pct``); ``zone_table`` is
+    :func:`geosoil.change.zone_change_table`; ``maps`` are figures
+    (``title, unit, svg, legend, note``).
+    """
+
+    title: str
+    seasons: Mapping[str, Mapping[str, str]]
+    summary: Sequence[Mapping[str, Any]]
+    zone_table: pd.DataFrame
+    variables: Sequence[str]
+    labels: Mapping[str, tuple[str, str]]
+    z: float
+    method: str
+    independence: str
+    ph: str | None
+    warnings: Sequence[str]
+    cautions: Sequence[str] = CAUTIONS
+    maps: Sequence[Mapping[str, Any]] = ()
+    version: str = ""
+    created: datetime | None = None
+
+
+def _signed(value: Any, digits: int = 2) -> str:
+    if _isnan(value):
+        return "–"
+    v = round(float(value), digits)
+    return f"{v:+.{digits}f}" if v != 0 else f"{0:.{digits}f}"
+
+
+def build_change_report(data: ChangeReportInput) -> str:
+    """The comparison of two seasons as one static HTML page (nothing loaded from outside).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> page = build_change_report(ChangeReportInput(
+    ...     title="Farm: change", seasons={"last": {"source": "a", "kind": "project"},
+    ...     "this": {"source": "b", "kind": "project"}}, summary=[], zone_table=pd.DataFrame(),
+    ...     variables=[], labels={}, z=1.96, method="m", independence="i", ph=None,
+    ...     warnings=["<w>"]))
+    >>> "&lt;w&gt;" in page and "Change per zone" in page
+    True
+    """
+    summary = _simple_table(
+        [("paddock", False), ("variable", False), ("last season", True), ("this season", True),
+         ("mean change", True), ("rose %", True), ("fell %", True),
+         ("no change beyond error %", True), ("not judged %", True)],
+        [[r["paddock"], f"{r['label']}" + (f" ({r['unit']})" if r["unit"] else ""),
+          _num(r["last_mean"]), _num(r["this_mean"]), _signed(r["change_mean"]),
+          _num(r["rose_pct"], 1), _num(r["fell_pct"], 1),
+          _num(r["no_change_beyond_error_pct"], 1), _num(r["no_error_surface_pct"], 1)]
+         for r in data.summary], "change-summary")
+    t = data.zone_table
+    heads: list[tuple[str, bool]] = [("paddock", False), ("product", False), ("zone", False),
+                                     ("prescribed kg/ha", True), ("area ha", True)]
+    for v in data.variables:
+        heads.append((f"{data.labels[v][0]} change", True))
+    rows = []
+    for _, r in (t.iterrows() if len(t) else iter(())):
+        row = [str(r["paddock"]), str(r["product"]), str(r["zone"]),
+               _num(r["prescribed_rate_kg_ha"], 0), _num(r["area_ha"])]
+        for v in data.variables:
+            fell, rose = (("–" if _isnan(r[f"{v}_{k}_pct"]) else f"{r[f'{v}_{k}_pct']:.0f}")
+                          for k in ("fell", "rose"))
+            row.append(f"{_signed(r[f'{v}_change_mean'])} ({fell} / {rose})")
+        rows.append(row)
+    zones = _simple_table(heads, rows, "change-zones") if rows else None
+    created = (data.created or datetime.now().astimezone()).strftime("%Y-%m-%d %H:%M %Z")
+    return _templates().get_template("change_report.html").render(
+        data=data, css=_css(), created=created, summary=summary, zones=zones,
+        z=f"{data.z:g}")

@@ -52,7 +52,8 @@ def test_importing_the_cli_imports_no_heavy_library() -> None:
 
 @pytest.mark.parametrize("args", [["--help"], ["--version"], ["new", "--help"],
                                   ["check", "--help"], ["run", "--help"], ["demo", "--help"],
-                                  ["explain", "--help"]])
+                                  ["explain", "--help"], ["plan", "--help"],
+                                  ["compare", "--help"]])
 def test_help_and_version_import_no_heavy_library(args) -> None:
     assert _loaded_after(args) == []
 

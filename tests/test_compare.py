@@ -1,0 +1,266 @@
+"""``geosoil compare``: two seasons of an invented farm, one with gypsum spread on a sodic patch.
+
+The farm is invented for these tests (properties only, no expected figure from the code):
+one 800 m x 500 m paddock sampled on an 80 m grid, a sodic patch in its south-west corner.
+Last season is run (``geosoil run``), so its output folder holds a gypsum prescription on
+the patch; this season the cores are taken again 15 m off the old holes and, where gypsum
+was spread, sodium has been leached and calcium has taken its place (the exchange gypsum
+is spread for). Elsewhere the soil is as it was.
+
+Outside readers: GDAL (through rasterio) reopens the change rasters, pandas the CSV.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pytest
+import rasterio
+import shapely
+from click.testing import CliRunner
+from geosoil.cli.main import cli
+
+from geosoil.change import CLASS_CODES, change_surface, classify_change, parse_ph_conversion
+from geosoil.errors import SettingsError
+
+UTM = "EPSG:32755"
+X0, Y0 = 540_000.0, 6_160_000.0
+W, H = 800.0, 500.0
+
+
+def invoke(*args: object):  # noqa: ANN201 - click's Result
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def _in_patch(x: float, y: float) -> bool:
+    return (x - X0) < 320 and (y - Y0) < 220
+
+
+def _lab(*, offset: float, treated: bool, ph_header: str = "pH (CaCl2)") -> str:
+    rows = []
+    k = 0
+    for j in range(6):
+        for i in range(10):
+            x = X0 + 40 + 80 * i + offset
+            y = Y0 + 40 + 80 * j + offset
+            u, v = (x - X0) / W, (y - Y0) / H
+            ca = 8.0 + 1.2 * math.sin(3 * u) + 0.8 * v
+            mg, k_, acid = 3.0 + 0.5 * v, 0.5 + 0.1 * u, 0.1 + 0.08 * v * u
+            na = 0.35 + 0.1 * u
+            if _in_patch(x, y):
+                na = 2.3 + 0.2 * v
+                if treated:  # gypsum: Na leached, Ca in its place
+                    ca += na - 0.4
+                    na = 0.4
+            ph = 6.2 + 0.3 * u
+            k += 1
+            rows.append(f"S{k:02d},{x:.1f},{y:.1f},{ph:.2f},{ca:.3f},{mg:.3f},{k_:.3f},"
+                        f"{na:.3f},{acid:.3f}")
+    header = (f"Sample,Easting,Northing,{ph_header},Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),"
+              "Na (cmol/kg),Exch Acidity (cmol/kg)")
+    return header + "\n" + "\n".join(rows) + "\n"
+
+
+def _project(folder: Path, lab: str, *, name: str = "Flat", crs: str = UTM,
+             shift: float = 0.0) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    box = shapely.box(X0 + shift, Y0, X0 + W + shift, Y0 + H)
+    gpd.GeoDataFrame({"name": [name]}, geometry=[box], crs=UTM).to_crs(crs).to_file(
+        folder / "paddocks.gpkg")
+    (folder / "lab.csv").write_text(lab)
+    cache = json.dumps(str(folder.parent / "cache"))
+    (folder / "geosoil.toml").write_text(
+        f'[samples]\nfile = "lab.csv"\ncrs = "{UTM}"\n\n[boundaries]\n'
+        f'paddocks = "paddocks.gpkg"\n\n[grid]\ncell_size_m = 20.0\n\n'
+        f"[output]\ncache_dir = {cache}\n")
+    return folder
+
+
+@pytest.fixture(scope="module")
+def seasons(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    root = tmp_path_factory.mktemp("seasons")
+    last = _project(root / "last", _lab(offset=0.0, treated=False))
+    this = _project(root / "this", _lab(offset=15.0, treated=True))
+    run = invoke("run", last, "--out", root / "last-out")
+    assert run.exit_code == 0, run.output
+    cmp = invoke("compare", root / "last-out", this, "--out", root / "change")
+    assert cmp.exit_code == 0, cmp.output
+    return {"root": root, "last": last, "this": this, "last_out": root / "last-out",
+            "change": root / "change", "output": cmp.output}
+
+
+# ------------------------------------------------------------------- the pure core
+
+
+def test_change_sd_is_the_root_sum_of_squares() -> None:
+    """Variance of a difference of independent errors: Var(a - b) = Var(a) + Var(b)."""
+    s = change_surface("esp", "A", (np.array([9.0, 5.0]), np.array([3.0, 0.3])),
+                       (np.array([6.0, 5.5]), np.array([4.0, 0.4])))
+    np.testing.assert_allclose(s.sd_change, [5.0, 0.5])
+    np.testing.assert_allclose(s.change, [-3.0, 0.5])
+    # -3 is within 1.96 x 5; +0.5 within 1.96 x 0.5
+    assert s.classes.tolist() == [0.0, 0.0]
+
+
+def test_classes_at_the_normal_95_percent_limit() -> None:
+    """Two-sided 95 % of a normal distribution: |z| > 1.96 (any statistics table)."""
+    sd = np.ones(4)
+    got = classify_change(np.array([1.95, 1.97, -1.97, np.nan]), sd)
+    assert got[:3].tolist() == [CLASS_CODES["no change beyond error"], CLASS_CODES["rose"],
+                                CLASS_CODES["fell"]]
+    assert np.isnan(got[3])
+    assert (classify_change(np.array([5.0]), None) == CLASS_CODES["no error surface"]).all()
+
+
+def test_ph_conversion_reads_the_stated_form() -> None:
+    c = parse_ph_conversion("water = 1.0 * cacl2 + 0.6")
+    assert (c.to_method, c.from_method, c.slope, c.intercept) == ("ph", "ph_cacl2", 1.0, 0.6)
+    assert parse_ph_conversion("CaCl2 = 0.9 * water - 0.2").intercept == -0.2
+    with pytest.raises(SettingsError, match="--ph-conversion"):
+        parse_ph_conversion("water is cacl2 plus a bit")
+
+
+# ------------------------------------------------------------------- two seasons
+
+
+def test_identical_seasons_change_nothing(seasons: dict[str, Path], tmp_path: Path) -> None:
+    out = tmp_path / "same"
+    got = invoke("compare", seasons["last_out"], seasons["last"], "--out", out)
+    assert got.exit_code == 0, got.output
+    tifs = sorted((out / "change").rglob("*.tif"))
+    assert len(tifs) == 12  # 4 variables x change, sd, class
+    for tif in tifs:
+        with rasterio.open(tif) as src:
+            a = src.read(1, masked=True)
+        assert a.count() > 0
+        if tif.name.endswith("_change.tif"):
+            assert np.all(a.compressed() == 0.0), tif.name
+        elif tif.name.endswith("_class.tif"):
+            assert np.all(a.compressed() == CLASS_CODES["no change beyond error"]), tif.name
+    table = pd.read_csv(out / "change_by_zone.csv")
+    for v in ("esp", "ph", "ca_sat", "acidity"):
+        assert (table[f"{v}_change_mean"] == 0).all()
+        assert (table[f"{v}_no_change_pct"] == 100).all()
+
+
+def test_treated_zone_shows_its_change_and_the_rest_does_not(seasons: dict[str, Path]) -> None:
+    table = pd.read_csv(seasons["change"] / "change_by_zone.csv")
+    gyp = table[(table["product"] == "gypsum") & (table["prescribed_rate_kg_ha"] > 0)]
+    rest = table[table["product"] == "none"]
+    assert len(gyp) >= 1 and len(rest) == 1
+    treated_area = gyp["area_ha"].sum()
+    mean_fall = (gyp["esp_change_mean"] * gyp["area_ha"]).sum() / treated_area
+    assert mean_fall < -5.0  # ESP about 15 % before, about 3 % after
+    assert (gyp["esp_fell_pct"] * gyp["area_ha"]).sum() / treated_area > 60
+    assert (gyp["ca_sat_rose_pct"] * gyp["area_ha"]).sum() / treated_area > 60
+    r = rest.iloc[0]
+    assert abs(r["esp_change_mean"]) < 1.0
+    assert r["esp_fell_pct"] < 15 and r["esp_rose_pct"] < 5
+    assert r["ph_fell_pct"] < 5 and r["ph_rose_pct"] < 5
+
+
+def test_outputs_reopen_and_record(seasons: dict[str, Path]) -> None:
+    out = seasons["change"]
+    record = json.loads((out / "run.json").read_text())
+    assert record["kind"] == "season change"
+    assert "independent" in record["independence"]
+    assert record["ph"] == "pH in CaCl2 both seasons"
+    listed = set(record["files"])
+    on_disk = {str(p.relative_to(out)) for p in out.rglob("*") if p.is_file()}
+    assert listed == on_disk
+    with rasterio.open(out / "change" / "flat" / "esp_change_sd.tif") as src:
+        sd = src.read(1, masked=True)
+        assert src.crs.to_epsg() == 32755
+    assert sd.min() >= 0 and sd.max() > 0
+    page = (out / "map.html").read_text()
+    assert "ESP: changed beyond error?" in page
+    report = (out / "report.html").read_text()
+    assert "Change per zone of last season" in report and "gypsum" in report
+    assert "Rates are advisory" in seasons["output"]
+
+
+# ------------------------------------------------------------------- mismatched seasons
+
+
+def test_other_paddocks_are_refused(seasons: dict[str, Path], tmp_path: Path) -> None:
+    other = _project(tmp_path / "other", _lab(offset=15.0, treated=True), name="Hill")
+    got = invoke("compare", seasons["last_out"], other, "--out", tmp_path / "x")
+    assert got.exit_code == 1
+    assert "different paddocks" in got.output and "only in this season" in got.output
+    assert str(other / "geosoil.toml") in got.output
+
+
+def test_other_crs_is_refused(seasons: dict[str, Path], tmp_path: Path) -> None:
+    other = _project(tmp_path / "mga", _lab(offset=15.0, treated=True), crs="EPSG:28355")
+    got = invoke("compare", seasons["last_out"], other, "--out", tmp_path / "x")
+    assert got.exit_code == 1, got.output
+    assert "same CRS" in got.output
+    assert "WGS 84 / UTM zone 55S" in got.output and "GDA94 / MGA zone 55" in got.output
+    assert str(seasons["last_out"]) in got.output and str(other / "geosoil.toml") in got.output
+
+
+def test_moved_boundaries_are_refused(seasons: dict[str, Path], tmp_path: Path) -> None:
+    """Boundaries moved 50 m east share 750 / 850 of the union (88 %): under the 90 % rule."""
+    moved = _project(tmp_path / "moved", _lab(offset=15.0, treated=True), shift=50.0)
+    got = invoke("compare", seasons["last_out"], moved, "--out", tmp_path / "x")
+    assert got.exit_code == 1
+    assert "paddock 'Flat' has other boundaries" in got.output and "share 88 %" in got.output
+
+
+def test_folder_without_run_json_is_named(seasons: dict[str, Path], tmp_path: Path) -> None:
+    empty = tmp_path / "nothing"
+    empty.mkdir()
+    got = invoke("compare", empty, seasons["this"], "--out", tmp_path / "x")
+    assert got.exit_code == 1 and "no run.json" in got.output and str(empty) in got.output
+    broken = tmp_path / "broken"
+    shutil.copytree(seasons["last_out"], broken)
+    (broken / "samples.csv").unlink()
+    got = invoke("compare", broken, seasons["this"], "--out", tmp_path / "y")
+    assert got.exit_code == 1 and str(broken / "samples.csv") in got.output
+
+
+def test_ph_methods_must_match_unless_converted(seasons: dict[str, Path],
+                                                tmp_path: Path) -> None:
+    water = _project(tmp_path / "water", _lab(offset=15.0, treated=True,
+                                               ph_header="pH (water)"))
+    got = invoke("compare", seasons["last_out"], water, "--out", tmp_path / "x")
+    assert got.exit_code == 1
+    assert "pH in CaCl2" in got.output and "pH in water" in got.output
+    assert "--ph-conversion" in got.output
+    ok = invoke("compare", seasons["last_out"], water, "--out", tmp_path / "y",
+                "--ph-conversion", "water = cacl2 + 0.6")
+    assert ok.exit_code == 0, ok.output
+    record = json.loads((tmp_path / "y" / "run.json").read_text())
+    assert "converted" in record["ph"] and "water = cacl2 + 0.6" in record["ph"]
+    none = invoke("compare", seasons["last_out"], water, "--out", tmp_path / "z", "--no-ph")
+    assert none.exit_code == 0, none.output
+    assert not list((tmp_path / "z" / "change").rglob("ph_*.tif"))
+
+
+@pytest.mark.browser
+def test_map_and_report_open_offline_in_chromium(seasons: dict[str, Path]) -> None:
+    """The change map and report in a real headless Chromium, network cut off."""
+    from tests.browser import Chromium, artifact_path, require_chromium
+
+    out = seasons["change"]
+    with Chromium(require_chromium()) as browser:
+        for name in ("map.html", "report.html"):
+            page = browser.new_page(width=1280, height=900)
+            page.goto(out / name)
+            browser.drain(0.2)
+            assert page.console_errors == [] and page.dialogs == []
+            remote = [u for u in page.requests if not u.startswith(("file:", "data:"))]
+            assert remote == []
+            page.screenshot(artifact_path(f"compare-{name}.png"), full_page=name != "map.html")
+            if name == "map.html":
+                legends = page.evaluate(
+                    "Array.from(document.querySelectorAll('#gs-legend .gs-legend-title'))"
+                    ".map(e => e.textContent)")
+                assert legends[0] == "ESP: changed beyond error?"
+            page.close()
