@@ -23,7 +23,7 @@ import shapely
 from .chemistry import rule_ph
 from .errors import InputError
 from .pipeline import FarmResult, Prepared
-from .rates import Step, explain_cell
+from .rates import RateLayer, Step, explain_cell
 from .units import rate_from_kg_ha
 
 __all__ = [
@@ -238,6 +238,7 @@ def explain_location(
         {**cell, "ph": ph} if method is not None else cell, s.rates.for_paddock(name),
         prep.products, depth_m=s.soil.depth_m, bulk_density_g_cm3=bd, ph_method=method,
         scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
+        layers=_gypsum_layers_at(farm, name, row, col),
     )
     # the zone of the cell (its centre: a point on a zone edge belongs to the cell it is in)
     centre = shapely.Point(*(grid.transform @ (col + 0.5, row + 0.5)))
@@ -288,6 +289,24 @@ def _ecec_parts(cell: dict[str, float]) -> dict[str, float]:
                                                                 rel_tol=1e-9, abs_tol=1e-12):
         return parts
     return {}
+
+
+def _gypsum_layers_at(farm: FarmResult, name: str, row: int, col: int) -> list[RateLayer]:
+    """The layers the gypsum treatment spans at one cell (samples at several depths), as
+    the run summed them; empty for samples of one depth."""
+    pr = farm.paddocks[name]
+    if not pr.gypsum_spans:
+        return []
+    # the top layer (or the one layer of samples of one depth) is the paddock's cells
+    by_label = {layer.label: cells for layer, cells in pr.layers}
+
+    def at(v: Any) -> float:
+        return float(np.asarray(v)[row, col]) if np.ndim(v) == 2 else float(v)
+
+    return [RateLayer(label, at(by_label.get(label, pr.cells).get("esp", np.nan)),
+                      at(by_label.get(label, pr.cells).get("ecec", np.nan)),
+                      (bottom - top) / 100.0, at(bd))
+            for label, top, bottom, bd in pr.gypsum_spans]
 
 
 def _nan(v: Any) -> bool:

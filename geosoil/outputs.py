@@ -36,6 +36,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import logging
+import re
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -57,7 +58,7 @@ from .isoxml import (
     write_taskset,
 )
 from .names import slug
-from .pipeline import FarmResult
+from .pipeline import FarmResult, treat_depth_cm
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
 from .products import MATERIALS
 from .record import input_checksums, now_utc, versions
@@ -70,6 +71,7 @@ from .salinity import (
 )
 from .settings import to_mapping
 from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
+from .units import format_rate as units_format_rate
 from .units import rate_from_kg_ha
 from .writers import (
     atomic_write,
@@ -113,6 +115,32 @@ SURFACE_UNITS: dict[str, str] = {
     "salinity_class": "class code: 0 normal, 1 saline, 2 sodic, 3 saline-sodic",
     "dispersion_class": "class code: 0 flocculated, 1 potentially dispersive, 2 dispersive",
 }
+
+#: A deeper layer's suffix on a surface name (``esp_10-30cm``), see :mod:`geosoil.layers`.
+_LAYER_SUFFIX = re.compile(r"_(\d+(?:\.\d+)?)-(\d+(?:\.\d+)?)cm$")
+
+
+def split_layer(var: str) -> tuple[str, str | None]:
+    """``("esp", "10-30 cm")`` for ``"esp_10-30cm"``; ``(var, None)`` for a top-layer name."""
+    m = _LAYER_SUFFIX.search(var)
+    if not m:
+        return var, None
+    return var[: m.start()], f"{m.group(1)}-{m.group(2)} cm"
+
+
+def _unit_of(var: str) -> str:
+    return SURFACE_UNITS.get(split_layer(var)[0], "")
+
+
+def _title_of(var: str) -> str:
+    base, label = split_layer(var)
+    title = TITLES.get(base, base)
+    return f"{title}, {label}" if label else title
+
+
+#: Cell quantities written as surfaces (and, per deeper layer, with its suffix).
+CELL_SURFACES = ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ece",
+                 "salinity_class", "dispersion_class")
 
 #: Readable names of variables.
 TITLES: dict[str, str] = {
@@ -215,35 +243,9 @@ def write_outputs(
         tif(path, array, transform=transform, crs=crs, descriptions=(description,),
             tags={"unit": unit})
 
-    # surfaces and cell chemistry
+    # surfaces and cell chemistry; per-cell rates and each rule's contribution
     progress("writing surfaces")
-    for (paddock, variable), surf in farm.surfaces.items():
-        grid = prep.grids[paddock]
-        folder = out_dir / "surfaces" / prep.paddock_files[paddock]
-        unit = SURFACE_UNITS.get(variable, "")
-        cog(folder / f"{variable}.tif", surf.estimate, grid.transform,
-            f"{TITLES.get(variable, variable)} ({surf.method})", unit)
-        if surf.std is not None:
-            cog(folder / f"{variable}_sd.tif", surf.std, grid.transform,
-                f"{TITLES.get(variable, variable)}: kriging standard deviation", unit)
-    for name, pr in farm.paddocks.items():
-        folder = out_dir / "surfaces" / prep.paddock_files[name]
-        for q in ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ece",
-                  "salinity_class", "dispersion_class"):
-            if q in pr.cells and (name, q) not in farm.surfaces:
-                cog(folder / f"{q}.tif", pr.cells[q], pr.grid.transform,
-                    f"{TITLES[q]} (derived from the interpolated amounts)", SURFACE_UNITS[q])
-
-    # per-cell rates and each rule's contribution
-    progress("writing rates")
-    for name, pr in farm.paddocks.items():
-        folder = out_dir / "rates" / prep.paddock_files[name]
-        for product, rate in pr.rates.product_rates.items():
-            cog(folder / f"{prep.product_files[product]}.tif", rate, pr.grid.transform,
-                f"{product} rate before spreader limits", "kg/ha")
-        for (rule, product), contrib in pr.rates.contributions.items():
-            cog(folder / f"{prep.product_files[product]}__{slug(rule)}.tif", contrib,
-                pr.grid.transform, f"{product} for rule {rule}", "kg/ha")
+    _write_grids(farm, out_dir, cog, progress)
 
     # prescriptions: one set of machine files per pass (see geosoil.prescriptions)
     progress("writing prescriptions")
@@ -303,7 +305,7 @@ def write_outputs(
     write_csv(p, pd.DataFrame(passes[cols]))
     written.append(p)
     p = out_dir / "samples.csv"
-    samples = prep.samples.copy()
+    samples = prep.all_samples.copy()
     samples["x"] = samples.geometry.x
     samples["y"] = samples.geometry.y
     write_csv(p, pd.DataFrame(samples.drop(columns="geometry")))
@@ -335,6 +337,50 @@ def write_outputs(
     write_json(p, record)
     written.append(p)
     return written, record
+
+
+def _write_grids(farm: FarmResult, out_dir: Path, cog: Any, progress: Any) -> None:
+    """The surfaces (each deeper layer's with its suffix), the cell chemistry and the
+    per-cell rates with each rule's (and, with several layers, each layer's) share."""
+    prep = farm.prep
+    for (paddock, variable), surf in farm.surfaces.items():
+        grid = prep.grids[paddock]
+        folder = out_dir / "surfaces" / prep.paddock_files[paddock]
+        unit = _unit_of(variable)
+        cog(folder / f"{variable}.tif", surf.estimate, grid.transform,
+            f"{_title_of(variable)} ({surf.method})", unit)
+        if surf.std is not None:
+            cog(folder / f"{variable}_sd.tif", surf.std, grid.transform,
+                f"{_title_of(variable)}: kriging standard deviation", unit)
+    for name, pr in farm.paddocks.items():
+        folder = out_dir / "surfaces" / prep.paddock_files[name]
+        for q in CELL_SURFACES:
+            if q in pr.cells and (name, q) not in farm.surfaces:
+                cog(folder / f"{q}.tif", pr.cells[q], pr.grid.transform,
+                    f"{TITLES[q]} (derived from the interpolated amounts)", SURFACE_UNITS[q])
+        for layer, cells in pr.layers:  # each deeper layer's own chemistry and classes
+            for q in CELL_SURFACES:
+                qn = q + layer.suffix
+                if q in cells and (name, qn) not in farm.surfaces:
+                    cog(folder / f"{qn}.tif", cells[q], pr.grid.transform,
+                        f"{_title_of(qn)} (derived from the interpolated amounts)",
+                        SURFACE_UNITS[q])
+
+    # per-cell rates and each rule's contribution
+    progress("writing rates")
+    for name, pr in farm.paddocks.items():
+        folder = out_dir / "rates" / prep.paddock_files[name]
+        for product, rate in pr.rates.product_rates.items():
+            cog(folder / f"{prep.product_files[product]}.tif", rate, pr.grid.transform,
+                f"{product} rate before spreader limits", "kg/ha")
+        for (rule, product), contrib in pr.rates.contributions.items():
+            cog(folder / f"{prep.product_files[product]}__{slug(rule)}.tif", contrib,
+                pr.grid.transform, f"{product} for rule {rule}", "kg/ha")
+        gyp = prep.project.settings.rates.for_paddock(name).gypsum.product
+        for label, part in (pr.rates.layer_rates.items() if prep.layers else ()):
+            key = label.replace(" cm", "").replace(" ", "")
+            cog(folder / f"{prep.product_files[gyp]}__gypsum_{key}cm.tif", part,
+                pr.grid.transform, f"{gyp} for rule gypsum, {label} layer's part", "kg/ha")
 
 
 class _IsoNames:
@@ -441,7 +487,7 @@ def gpkg_layers(farm: FarmResult) -> dict[str, Any]:
     layers: dict[str, Any] = {"paddocks": pads}
     if not prep.exclusions.empty:
         layers["exclusions"] = prep.exclusions
-    layers["samples"] = prep.samples
+    layers["samples"] = prep.all_samples
     for product, files in prep.product_files.items():
         z = farm.zones[farm.zones["product"] == product]
         if z.empty:
@@ -644,7 +690,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "samples": {
             "file": str(prep.read.file),
             "n_read": int(len(prep.read.samples)),
-            "n_used": int(len(prep.samples)),
+            "n_used": int(len(prep.all_samples)),
             "columns": dict(prep.read.columns),
             "units": dict(prep.read.units),
             "skipped_rows": [{"row": r, "reason": why} for r, why in prep.read.skipped],
@@ -680,7 +726,59 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
         "salinity": salinity_record(farm),
+        "layers": layers_record(farm),
         "cautions": list(report_mod.CAUTIONS) + gypsum_water_cautions(farm),
+    }
+
+
+def layers_record(farm: FarmResult) -> dict[str, Any] | None:
+    """run.json's layers block (samples at several depths, else None): the layers, the
+    depth gypsum treats, and per paddock the part of it each layer stands for, its bulk
+    density, its mean gypsum rate and its class areas."""
+    prep = farm.prep
+    if not prep.layers:
+        return None
+    s = prep.project.settings
+    paddocks = []
+    for name, pr in farm.paddocks.items():
+        g = pr.grid
+        layers = []
+        for label, top, bottom, bd in pr.gypsum_spans:
+            part = pr.rates.layer_rates.get(label)
+            vals = None if part is None else part[g.mask & np.isfinite(part)]
+            layers.append({
+                "layer": label, "from_cm": round(top, 6), "to_cm": round(bottom, 6),
+                "bulk_density_g_cm3": (float(bd) if np.ndim(bd) == 0 else "raster"),
+                "gypsum_mean_kg_ha": (float(vals.mean()) if vals is not None and vals.size
+                                      else None),
+            })
+        classes = []
+        for layer, cells in [(prep.layers[0].layer, pr.cells), *pr.layers]:
+            row: dict[str, Any] = {"layer": layer.label}
+            esp = cells.get("esp")
+            if esp is not None:
+                ok = g.mask & np.isfinite(esp)
+                row["esp_mean"] = float(esp[ok].mean()) if ok.any() else None
+                row["sodic_ha"] = float(np.count_nonzero(
+                    ok & (esp >= s.chemistry.sodic_esp_percent)) * g.cell_area_ha)
+            for q, names in (("salinity_class", SALINITY_CLASSES),
+                             ("dispersion_class", DISPERSION_CLASSES)):
+                arr = cells.get(q)
+                if arr is not None:
+                    row[q + "_ha"] = {n: float(np.count_nonzero(arr == i) * g.cell_area_ha)
+                                      for i, n in enumerate(names)}
+            classes.append(row)
+        paddocks.append({"paddock": name, "gypsum_layers": layers, "layer_classes": classes})
+    return {
+        "layers": [{"layer": ls.layer.label, "top_cm": ls.layer.top_cm,
+                    "bottom_cm": ls.layer.bottom_cm, "samples": int(len(ls.samples)),
+                    "surface_suffix": "" if i == 0 else ls.layer.suffix}
+                   for i, ls in enumerate(prep.layers)],
+        "gypsum_treat_depth_cm": treat_depth_cm(s),
+        "other_rules": f"lime, calcium and balance read the top layer "
+                       f"({prep.layers[0].layer.label}) over [soil] depth_m = "
+                       f"{s.soil.depth_m:g} m",
+        "paddocks": paddocks,
     }
 
 
@@ -720,8 +818,24 @@ MAP_SURFACES: tuple[tuple[str, str], ...] = (
     ("bph_adams_evans", "amount"),
     ("oc", "amount"), ("om", "amount"), ("clay", "amount"), ("phbc", "amount"),
     ("ece", "ec"), ("ec_1_5", "ec"),
+    ("salinity_class", "salinity_class"), ("dispersion_class", "dispersion_class"),
     ("cec_ph7", "amount"),
 )
+
+#: The surfaces each deeper layer adds to the map (subsoil sodicity first).
+LAYER_MAP_SURFACES: tuple[tuple[str, str], ...] = (
+    ("esp", "esp"), ("salinity_class", "salinity_class"),
+    ("dispersion_class", "dispersion_class"), ("ece", "ec"), ("ec_1_5", "ec"),
+    ("na", "amount"), ("ecec", "amount"),
+)
+
+
+def map_surfaces(farm: FarmResult) -> list[tuple[str, str]]:
+    """The map's soil surfaces: the top layer's, then each deeper layer's (``esp_10-30cm``)."""
+    out = list(MAP_SURFACES)
+    for ls in farm.prep.layers[1:]:
+        out.extend((var + ls.layer.suffix, kind) for var, kind in LAYER_MAP_SURFACES)
+    return out
 
 _MAP_ORDER = [m for m, _ in MAP_SURFACES]
 
@@ -790,6 +904,9 @@ def farm_layer(farm: FarmResult, var: str, what: str = "estimate"
                 arr = None if sf is None else sf.std
             else:
                 arr = pr.cells.get(var)
+                for layer, cells in pr.layers:  # a deeper layer's cells: esp_10-30cm
+                    if arr is None and var.endswith(layer.suffix):
+                        arr = cells.get(var[: -len(layer.suffix)])
                 if arr is None and sf is not None:
                     arr = sf.estimate
         if arr is not None:
@@ -825,21 +942,34 @@ def opening_view(farm: FarmResult) -> tuple[str | None, str | None]:
 
 def surface_classes(farm: FarmResult, var: str, kind: str, values: np.ndarray) -> Any:
     """The colour classes of one soil surface (same in the map and the report)."""
-    chem = farm.prep.project.settings.chemistry
-    return presentation.classes_for(
-        kind, values, target=acid_ph_threshold(farm, var) if kind == "ph" else None,
+    s = farm.prep.project.settings
+    chem = s.chemistry
+    base = split_layer(var)[0]
+    classes = presentation.classes_for(
+        kind, values, target=acid_ph_threshold(farm, base) if kind == "ph" else None,
         limits=(chem.sodic_esp_percent, chem.strongly_sodic_esp_percent),
     )
+    if kind == "salinity_class":
+        classes = dataclasses.replace(classes, note=(
+            f"USDA Handbook 60: saline at ECe {s.salinity.saline_ece_ds_m:g} dS/m or more, "
+            f"sodic at ESP {s.salinity.sodic_esp_percent:g} % or more"))
+    return classes
 
 
 def surface_unit(var: str) -> str:
-    """A surface's unit as its legend shows it (none for pH: its title names the method)."""
-    return "" if var in ("ph", "ph_cacl2") else SURFACE_UNITS.get(var, "")
+    """A surface's unit as its legend shows it (none for pH and class codes: the title and
+    the legend say what they are)."""
+    base = split_layer(var)[0]
+    if base in ("ph", "ph_cacl2") or base in presentation.CLASS_CODES:
+        return ""
+    return SURFACE_UNITS.get(base, "")
 
 
 def surface_title(farm: FarmResult, var: str) -> str:
-    """A surface's name as the map and report show it."""
-    return ph_label(farm, var) if var in ("ph", "ph_cacl2") else TITLES.get(var, var)
+    """A surface's name as the map and report show it (a deeper layer's with its depth)."""
+    base, label = split_layer(var)
+    title = ph_label(farm, base) if base in ("ph", "ph_cacl2") else TITLES.get(base, base)
+    return f"{title}, {label}" if label else title
 
 
 def exclusion_zones(farm: FarmResult) -> Any:
@@ -934,9 +1064,16 @@ def paddock_glance(farm: FarmResult) -> list[Any]:
 
 
 def soil_maps(farm: FarmResult) -> list[Any]:
-    """ESP, pH and acid saturation over the farm, in the map's colour classes."""
+    """ESP, pH and acid saturation over the farm, then the salinity and dispersion classes
+    and each deeper layer's ESP (subsoil sodicity) and classes, in the map's colour classes."""
     out = []
-    for var, kind in (("esp", "esp"), (_ph_var(farm), "ph"), ("acid_sat", "acid")):
+    wanted = [("esp", "esp"), (_ph_var(farm), "ph"), ("acid_sat", "acid"),
+              ("salinity_class", "salinity_class"), ("dispersion_class", "dispersion_class")]
+    for ls in farm.prep.layers[1:]:
+        wanted += [(v + ls.layer.suffix, k) for v, k in (
+            ("esp", "esp"), ("salinity_class", "salinity_class"),
+            ("dispersion_class", "dispersion_class"))]
+    for var, kind in wanted:
         got = farm_layer(farm, var)
         if got is None:
             continue
@@ -1019,7 +1156,7 @@ def build_farm_map(farm: FarmResult) -> str:
             key="lime_needs_test", title="Lime requirement needs a test", unit="",
             array=flag[0], transform=flag[1], crs=prep.crs, classes=_NEEDS_TEST_CLASSES,
         ))
-    for var, kind in MAP_SURFACES:
+    for var, kind in map_surfaces(farm):
         got = farm_layer(farm, var)
         if got is None:
             continue
@@ -1037,7 +1174,7 @@ def build_farm_map(farm: FarmResult) -> str:
             continue
         layers.append(webmap.RasterLayer(
             key=f"{var}_sd", title=f"{surface_title(farm, var)}: kriging SD",
-            unit=SURFACE_UNITS.get(var, ""), array=got[0], transform=got[1], crs=prep.crs,
+            unit=_unit_of(var), array=got[0], transform=got[1], crs=prep.crs,
             classes=presentation.classes_for("error", got[0]), group="error",
         ))
     products = sorted({p for pr in farm.paddocks.values() for p in pr.rates.product_rates})
@@ -1175,6 +1312,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         f"{s.spreader.max_per_pass:g} {s.spreader.unit} (0 = none), step "
         f"{s.spreader.rate_step:g} {s.spreader.unit}",
     }
+    assumptions.update(layer_assumptions(farm))
     for key, prod in prep.products.items():
         assumptions[f"Product '{key}'"] = product_text(prod)
     targets = sorted({f"{name}: {pr.rates.target}" for name, pr in farm.paddocks.items()
@@ -1234,6 +1372,37 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         rate_unit=s.output.rate_unit,
         currency=s.tonnage.currency,
     )
+
+
+def layer_assumptions(farm: FarmResult) -> dict[str, str]:
+    """The report's lines on sampled layers (none for samples of one depth): the layers,
+    the depth gypsum treats and each layer's part of it and mean gypsum rate per paddock."""
+    prep = farm.prep
+    rec = layers_record(farm)
+    if rec is None:
+        return {}
+    s = prep.project.settings
+    unit = s.output.rate_unit
+    out = {
+        "Sampled layers": "; ".join(f"{r['layer']}: {r['samples']} samples"
+                                    for r in rec["layers"])
+        + f". Lime, calcium and the other rules read the top layer "
+        f"({prep.layers[0].layer.label}) over {s.soil.depth_m:g} m: lime methods are "
+        "calibrated on topsoil samples.",
+        "Gypsum treated depth": f"0-{rec['gypsum_treat_depth_cm']:g} cm, the sum of each "
+        "layer's USDA Handbook 60 requirement over the soil it stands for",
+    }
+    for pad in rec["paddocks"]:
+        parts = []
+        for r in pad["gypsum_layers"]:
+            bd = r["bulk_density_g_cm3"]
+            rate = r["gypsum_mean_kg_ha"]
+            shown = "-" if rate is None else units_format_rate(rate, unit)
+            parts.append(f"{r['layer']} over {r['from_cm']:g}-{r['to_cm']:g} cm (bulk density "
+                         + (f"{bd:g}" if isinstance(bd, float) else str(bd))
+                         + f"): mean {shown}")
+        out[f"Gypsum by layer, {pad['paddock']}"] = "; ".join(parts)
+    return out
 
 
 def product_text(prod: Any) -> str:

@@ -48,14 +48,15 @@ from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
 from .errors import DataWarning, GeosoilError, InputError, RateWarning, SettingsError
 from .grids import PaddockGrid, aligned_grids
+from .layers import Layer, find_layers, spans
 from .names import MAX_NAME_CHARS, assign, slug
 from .products import Product, ProductSettings, resolve_products, uncertified
 from .project import Project
-from .rates import RateResult, check_inputs, compute_rates
+from .rates import RateLayer, RateResult, check_inputs, compute_rates
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
-from .samples import SampleRead, prepare_samples, read_samples
+from .samples import DEPTH_COLUMNS, SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
 from .tonnage import tonnage_table
@@ -72,6 +73,11 @@ __all__ = [
     "surfaces_for",
     "Interpolator",
     "rule_warnings",
+    "LayerSamples",
+    "treat_depth_cm",
+    "ONE_LAYER",
+    "layer_cells",
+    "gypsum_layers",
 ]
 
 logger = logging.getLogger(__name__)
@@ -88,6 +94,14 @@ def _quiet(_: str) -> None:
 
 
 # --------------------------------------------------------------------------- stage 1-4
+
+
+@dataclass(frozen=True)
+class LayerSamples:
+    """The samples of one sampled layer (see :mod:`geosoil.layers`)."""
+
+    layer: Layer
+    samples: gpd.GeoDataFrame
 
 
 @dataclass
@@ -113,6 +127,114 @@ class Prepared:
     paddock_files: dict[str, str] = field(default_factory=dict)
     product_files: dict[str, str] = field(default_factory=dict)
     problems: list[str] = field(default_factory=list)
+    #: the sampled layers, shallowest first, when the samples are at several depths (the
+    #: first one's samples are ``samples``); empty for samples of one depth
+    layers: list[LayerSamples] = field(default_factory=list)
+
+    @property
+    def all_samples(self) -> gpd.GeoDataFrame:
+        """Every layer's samples (``samples`` when there is one layer)."""
+        if not self.layers:
+            return self.samples
+        return gpd.GeoDataFrame(
+            pd.concat([ls.samples for ls in self.layers], ignore_index=True), crs=self.crs
+        )
+
+
+#: The label of the one layer of samples of one depth (``[rates.gypsum] treat_depth_cm`` set).
+ONE_LAYER = "samples"
+
+
+def treat_depth_cm(settings: Any) -> float:
+    """The depth gypsum treats, cm: ``[rates.gypsum] treat_depth_cm``, else ``[soil] depth_m``."""
+    treat = float(settings.rates.gypsum.treat_depth_cm)
+    return treat if treat > 0 else round(float(settings.soil.depth_m) * 100.0, 6)
+
+
+def _split_layers(
+    samples: gpd.GeoDataFrame, project: Project, read: SampleRead
+) -> tuple[list[LayerSamples], gpd.GeoDataFrame]:
+    """The samples of each layer; one layer (or no depth) gives none and the samples as
+    they were read (their depth column kept as the lab wrote it)."""
+    s = project.settings
+    if DEPTH_COLUMNS[0] not in samples.columns:
+        layers: list[Layer] = []
+    else:
+        pairs = list(zip(samples[DEPTH_COLUMNS[0]].astype(float),
+                         samples[DEPTH_COLUMNS[1]].astype(float), strict=True))
+        try:
+            layers = find_layers(pairs)
+        except ValueError as exc:
+            headers = samples.attrs.get("depth_columns") or [None]
+            raise InputError(
+                str(exc), file=read.file, column=headers[0],
+                fix="give each depth of soil one layer (or set [samples] depths = 'ignore')",
+            ) from None
+    keys = [layer.key for layer in layers]
+    for key in s.soil.bulk_density_by_layer:
+        if key not in keys:
+            near = difflib.get_close_matches(key, keys, n=1)
+            raise SettingsError(
+                f"'{key}' is not a layer of the samples"
+                + (f"; did you mean '{near[0]}'?" if near else "")
+                + (f" (the layers are {', '.join(repr(k) for k in keys)})" if len(keys) > 1
+                   else " (the samples are of one depth)"),
+                key=f"soil.bulk_density_by_layer.{key}",
+            )
+    if len(layers) <= 1:
+        return [], samples.drop(columns=[c for c in DEPTH_COLUMNS if c in samples.columns])
+    top = samples[DEPTH_COLUMNS[0]].astype(float).to_numpy()
+    bottom = samples[DEPTH_COLUMNS[1]].astype(float).to_numpy()
+    out = []
+    for layer in layers:
+        here = (top == layer.top_cm) & (bottom == layer.bottom_cm)
+        part = samples[here].copy()
+        part.insert(2, "layer", layer.label)
+        out.append(LayerSamples(layer, gpd.GeoDataFrame(part.reset_index(drop=True),
+                                                        crs=samples.crs)))
+    treat = treat_depth_cm(s)
+    parts = [f"{sp.layer.label} over {sp.from_cm:g}-{sp.to_cm:g} cm"
+             for sp in spans(layers, treat_cm=treat)]
+    warnings.warn(
+        f"samples at {len(layers)} depths are mapped as separate layers ("
+        + ", ".join(f"{ls.layer.label}: {len(ls.samples)} samples" for ls in out)
+        + f"); gypsum treats 0-{treat:g} cm ([rates.gypsum] treat_depth_cm), the sum of "
+        "each layer's requirement over the soil it stands for (" + "; ".join(parts)
+        + f"); lime, calcium and the other rules read the top layer ({layers[0].label}) "
+        f"over [soil] depth_m = {s.soil.depth_m:g} m, as lime methods are calibrated on "
+        "topsoil samples"
+        + "".join(f"; the {layer.label} layer is mapped but lies below the treated depth "
+                  "(set [rates.gypsum] treat_depth_cm to treat it)"
+                  for layer in layers if layer.top_cm >= treat),
+        DataWarning, stacklevel=3,
+    )
+    _warn_spans(layers, treat)
+    return out, out[0].samples
+
+
+def _warn_spans(layers: list[Layer], treat: float, where: str = "") -> None:
+    """Say where a layer stands for soil that was not sampled in it."""
+    for sp in spans(layers, treat_cm=treat):
+        lay = sp.layer
+        if sp.to_cm > lay.bottom_cm and sp.layer == max(layers):
+            warnings.warn(
+                f"{where}the treated depth ({treat:g} cm) goes below the deepest layer sampled"
+                f" ({lay.label}): the gypsum requirement takes that layer's chemistry down to "
+                f"{sp.to_cm:g} cm; sample deeper, or set [rates.gypsum] treat_depth_cm",
+                DataWarning, stacklevel=3,
+            )
+        elif sp.to_cm > lay.bottom_cm:
+            warnings.warn(
+                f"{where}the soil from {lay.bottom_cm:g} to {sp.to_cm:g} cm was not sampled: "
+                f"the {lay.label} layer stands for it in the gypsum requirement",
+                DataWarning, stacklevel=3,
+            )
+        if sp.from_cm < lay.top_cm:
+            warnings.warn(
+                f"{where}the soil above the top layer ({lay.label}) was not sampled: that "
+                "layer stands for it in the gypsum requirement",
+                DataWarning, stacklevel=3,
+            )
 
 
 def _check_paddock_keys(
@@ -234,6 +356,7 @@ def prepare(
             on_bad_row=s.samples.on_bad_row,
         )
         samples = derive_salinity(samples, s.salinity)
+        layers, samples = _split_layers(samples, project, read)
         _warn_single_samples(samples, paddocks)
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
@@ -276,7 +399,7 @@ def prepare(
         user_zones=user_zones, read=read, samples=samples, grids=grids, variables=variables,
         products=products, rule_notes=list(rule_notes), warnings=sink, problems=problems,
         boundaries_crs=boundaries_crs,
-        paddock_files=paddock_files, product_files=product_files,
+        paddock_files=paddock_files, product_files=product_files, layers=layers,
     )
 
 
@@ -406,6 +529,13 @@ def _surface_key(prep: Prepared) -> str:
     table["x"] = prep.samples.geometry.x.round(6)
     table["y"] = prep.samples.geometry.y.round(6)
     h.update(table.to_csv(index=False).encode())
+    for ls in prep.layers[1:]:
+        h.update(f"layer {ls.layer.label}\n".encode())
+        lcols = ["paddock", *variables_to_interpolate(ls.samples)]
+        lt = ls.samples[lcols].copy()
+        lt["x"] = ls.samples.geometry.x.round(6)
+        lt["y"] = ls.samples.geometry.y.round(6)
+        h.update(lt.to_csv(index=False).encode())
     h.update(json.dumps(to_mapping(s.interpolation), sort_keys=True).encode())
     h.update(prep.crs.to_wkt().encode())
     for name in sorted(prep.grids):
@@ -490,6 +620,8 @@ def surfaces_for(
             user_zones=prep.user_zones,
             progress=progress,
         )
+    if prep.layers:
+        surfaces = {**surfaces, **_layer_surfaces(prep, progress, found)}
     prep.warnings.extend(w for w in found if w not in prep.warnings)
     if use_cache:
         try:
@@ -502,6 +634,93 @@ def surfaces_for(
 
 #: How many cached surface sets the cache folder keeps (the most recently used).
 CACHE_KEEP = 24
+
+
+def _layer_surfaces(prep: Prepared, progress: Progress, found: list[str]
+                    ) -> dict[tuple[str, str], Surface]:
+    """The deeper layers' surfaces, each variable named with its layer's suffix
+    (``esp_10-30cm``), over the paddocks sampled at that depth (every paddock with
+    ``borrow_farm_surface``). Their warnings name the layer."""
+    s = prep.project.settings
+    out: dict[tuple[str, str], Surface] = {}
+    for ls in prep.layers[1:]:
+        sampled = set(ls.samples["paddock"])
+        grids = {n: g for n, g in prep.grids.items()
+                 if n in sampled or s.interpolation.borrow_farm_surface}
+        raised: list[str] = []
+        label = ls.layer.label
+
+        def told(message: str, label: str = label) -> None:
+            progress(f"{message} ({label})")
+
+        with record_warnings(raised):
+            got = interpolate_farm(
+                ls.samples, grids, variables=variables_to_interpolate(ls.samples),
+                settings=s.interpolation, user_zones=prep.user_zones, progress=told,
+            )
+        found.extend(f"{ls.layer.label} layer: {w}" for w in raised
+                     if f"{ls.layer.label} layer: {w}" not in found)
+        for (pad, var), sf in got.items():
+            name = var + ls.layer.suffix
+            out[(pad, name)] = dataclasses.replace(sf, variable=name)
+    return out
+
+
+def layer_cells(
+    prep: Prepared, surfaces: dict[tuple[str, str], Surface], name: str
+) -> tuple[list[tuple[Layer, dict[str, np.ndarray]]], list[str]]:
+    """Each deeper layer's cell chemistry in paddock ``name`` (derived by the same rules
+    as the top layer's, names without the suffix), and their notes; a layer not
+    sampled in the paddock is left out."""
+    s = prep.project.settings
+    out: list[tuple[Layer, dict[str, np.ndarray]]] = []
+    notes: list[str] = []
+    for ls in prep.layers[1:]:
+        suffix = ls.layer.suffix
+        est = {k[1][: -len(suffix)]: sf.estimate for k, sf in surfaces.items()
+               if k[0] == name and k[1].endswith(suffix)}
+        if not est:
+            continue
+        cells, cnotes = derive_cells(est, s.chemistry)
+        cells.update(salinity_cells(cells, s.salinity))
+        out.append((ls.layer, cells))
+        notes.extend(f"{ls.layer.label} layer: {n}" for n in cnotes)
+    return out, notes
+
+
+def gypsum_layers(
+    prep: Prepared, name: str, top_cells: dict[str, np.ndarray],
+    deeper: list[tuple[Layer, dict[str, np.ndarray]]], bd: float | np.ndarray,
+) -> list[RateLayer]:
+    """The layers paddock ``name``'s gypsum treatment spans, with their thickness and
+    bulk density; a layer without ESP here is left to the layer above it (with a warning)."""
+    s = prep.project.settings
+    treat = treat_depth_cm(s)
+    have: list[tuple[Layer, dict[str, np.ndarray]]] = [(prep.layers[0].layer, top_cells)]
+    for layer, cells in deeper:
+        if "esp" in cells and "ecec" in cells and np.isfinite(cells["esp"]).any():
+            have.append((layer, cells))
+    missing = [ls.layer for ls in prep.layers[1:]
+               if ls.layer not in [h[0] for h in have]]
+    by_layer = dict(have)
+    chosen = spans([h[0] for h in have], treat_cm=treat)
+    if missing and any(m.top_cm < treat for m in missing):
+        warnings.warn(
+            f"paddock '{name}' has no ESP at "
+            + ", ".join(m.label for m in missing if m.top_cm < treat)
+            + ": the layer above stands for that soil in the gypsum requirement; sample it "
+            "at that depth",
+            DataWarning, stacklevel=2,
+        )
+    out = []
+    for sp in chosen:
+        cells = by_layer[sp.layer]
+        layer_bd: float | np.ndarray = bd
+        if sp.layer != prep.layers[0].layer:
+            layer_bd = s.soil.bulk_density_by_layer.get(sp.layer.key, bd)
+        out.append(RateLayer(sp.layer.label, cells.get("esp", np.nan),
+                             cells.get("ecec", np.nan), sp.thickness_m, layer_bd))
+    return out
 
 
 # --------------------------------------------------------------------------- stage 5
@@ -518,6 +737,10 @@ class PaddockResult:
     rates: RateResult
     zones: gpd.GeoDataFrame
     zone_notes: list[str]
+    #: the deeper layers' cell chemistry (samples at several depths), shallowest first
+    layers: list[tuple[Layer, dict[str, np.ndarray]]] = field(default_factory=list)
+    #: the layers the gypsum treatment spans here: (label, from cm, to cm, bulk density)
+    gypsum_spans: list[tuple[str, float, float, Any]] = field(default_factory=list)
 
 
 @dataclass
@@ -608,6 +831,17 @@ def compute(
                     s.soil.bulk_density_raster, grid, fallback_g_cm3=float(bd)
                 )
                 cells["bulk_density"] = bd
+            deeper: list[tuple[Layer, dict[str, np.ndarray]]] = []
+            g_layers: list[RateLayer] = []
+            if prep.layers:
+                deeper, lnotes = layer_cells(prep, surfaces, name)
+                cell_notes = [*cell_notes, *lnotes]
+                g_layers = gypsum_layers(prep, name, cells, deeper, bd)
+            elif s.rates.gypsum.treat_depth_cm > 0:
+                # samples of one depth: they stand for the whole depth gypsum treats
+                g_layers = [RateLayer(ONE_LAYER, cells.get("esp", np.nan),
+                                      cells.get("ecec", np.nan),
+                                      s.rates.gypsum.treat_depth_cm / 100.0, bd)]
             # the rules read pH in water where the lab gave it, else pH in CaCl2
             method, ph = rule_ph(cells)
             rr = compute_rates(
@@ -618,6 +852,7 @@ def compute(
                 bulk_density_g_cm3=bd,
                 ph_method=method,
                 scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
+                layers=g_layers,
             )
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
             excl = None
@@ -659,7 +894,14 @@ def compute(
                 else _no_zones(prep.crs)
             )
             all_zones.append(zones)
-            results[name] = PaddockResult(name, grid, cells, cell_notes, rr, zones, zone_notes)
+            top_cm = 0.0
+            spans_here = []
+            for gl in g_layers:
+                spans_here.append((gl.label, top_cm, top_cm + gl.depth_m * 100.0,
+                                   gl.bulk_density_g_cm3))
+                top_cm += gl.depth_m * 100.0
+            results[name] = PaddockResult(name, grid, cells, cell_notes, rr, zones, zone_notes,
+                                          deeper, spans_here)
         zones_all = gpd.GeoDataFrame(
             pd.concat(all_zones, ignore_index=True), crs=prep.crs
         ) if all_zones else _no_zones(prep.crs)

@@ -46,6 +46,7 @@ import numpy as np
 
 __all__ = [
     "PALETTES",
+    "CLASS_CODES",
     "SODICITY_BREAKS",
     "SODICITY_LABELS",
     "CHANGE_CLASSES",
@@ -106,6 +107,17 @@ PALETTES: dict[str, tuple[str, ...]] = {
     # ColorBrewer YlOrBr (9): product rates, on the map and in the report
     "rates": ("#ffffe5", "#fff7bc", "#fee391", "#fec44f", "#fe9929", "#ec7014", "#cc4c02",
               "#993404", "#662506"),
+}
+
+#: Surfaces of class codes (0, 1, 2...): the class names, a colour each (ColorBrewer PuOr:
+#: orange for salt, purple for sodium; no red-green) and a line under the legend.
+CLASS_CODES: dict[str, tuple[tuple[str, ...], tuple[str, ...], str]] = {
+    "salinity_class": (("normal", "saline", "sodic", "saline-sodic"),
+                       ("#f7f7f7", "#fdb863", "#b2abd2", "#5e3c99"),
+                       "USDA Handbook 60: saline at ECe 4 dS/m or more, sodic at ESP 15 % or more"),
+    "dispersion_class": (("flocculated", "potentially dispersive", "dispersive"),
+                         ("#f7f7f7", "#fdb863", "#e66101"),
+                         "ESP against EC 1:5, after Rengasamy et al. 1984 (limits from memory)"),
 }
 
 #: Which palette (and which part of it) each kind of surface uses.
@@ -439,6 +451,9 @@ def classes_for(kind: str, values: np.ndarray, *, target: float | None = None,
     """
     v = _finite(values)
     lo, hi = (float(v.min()), float(v.max())) if v.size else (0.0, 1.0)
+    if kind in CLASS_CODES:
+        names, colours, note = CLASS_CODES[kind]
+        return Classes(tuple(i + 0.5 for i in range(len(names) - 1)), colours, names, note)
     if kind == "esp":
         colours = tuple(palette_colour("blue-purple", t) for t in _ESP_POSITIONS)
         if tuple(limits) == SODICITY_BREAKS:

@@ -119,6 +119,13 @@ class SoilSettings:
         unit="g/cm3",
     )
 
+    bulk_density_by_layer: dict[str, float] = setting(
+        default_factory=dict,
+        doc="bulk density of a deeper sampled layer, by its depth as '10-30' (cm), for the "
+        "gypsum requirement summed over layers (default: the paddock's bulk density)",
+        unit="g/cm3",
+    )
+
     bulk_density_raster: Path | None = setting(
         None,
         doc="raster of bulk density (GeoTIFF, g/cm3) used instead of the values above where it "
@@ -131,6 +138,12 @@ class SoilSettings:
                 raise SettingsError(
                     f"must be from 0.5 to 2.0 g/cm3 (got {bd:g})",
                     key=f"bulk_density_by_paddock.{name}",
+                )
+        for name, bd in self.bulk_density_by_layer.items():
+            if not (0.5 <= bd <= 2.0):
+                raise SettingsError(
+                    f"must be from 0.5 to 2.0 g/cm3 (got {bd:g})",
+                    key=f"bulk_density_by_layer.{name}",
                 )
 
     def bulk_density_for(self, paddock: str) -> float:
@@ -810,6 +823,21 @@ def new_project(
         "units: " + ", ".join(f"{k} {v}" for k, v in read.units.items() if v)
     )
     notes.extend(read.readings.values())
+    if "depth_top_cm" in read.samples.columns:
+        found = sorted(set(zip(read.samples["depth_top_cm"], read.samples["depth_bottom_cm"],
+                               strict=True)))
+        depth_from = ", ".join(f"'{h}'" for h in read.samples.attrs.get("depth_columns", []))
+        if len(found) > 1:
+            notes.append(
+                f"samples at {len(found)} depths ({depth_from}: "
+                + ", ".join(f"{t:g}-{b:g} cm" for t, b in found)
+                + "): each depth is mapped as its own layer; gypsum treats [soil] depth_m "
+                "unless [rates.gypsum] treat_depth_cm says deeper (the layers' requirements "
+                "summed); give deeper layers' bulk density in [soil] bulk_density_by_layer"
+            )
+        elif found:
+            notes.append(f"samples of one depth ({depth_from}: {found[0][0]:g}-{found[0][1]:g}"
+                         " cm): set [soil] depth_m to the depth the amendment must treat")
     for why in read.undecided.values():
         notes.append(f"{why}; 'check' and 'run' stop at this column until then")
     sample_settings = dataclasses.replace(

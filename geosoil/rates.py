@@ -75,7 +75,7 @@ import difflib
 import logging
 import math
 import warnings
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -132,6 +132,7 @@ __all__ = [
     "RateSettings",
     "Step",
     "RateResult",
+    "RateLayer",
     "plan_rules",
     "check_inputs",
     "inputs_used",
@@ -281,6 +282,12 @@ class GypsumRule:
         maximum=2.0,
     )
     product: str = setting("gypsum", doc="product key that supplies the calcium")
+    treat_depth_cm: float = setting(
+        0.0,
+        doc="depth the gypsum must treat, cm; with samples at several depths the layers' "
+        "requirements are summed over it, each over the soil it stands for (0: [soil] depth_m)",
+        unit="cm", minimum=0.0, maximum=200.0,
+    )
     leaching_note_esp_percent: float = setting(
         15.0,
         doc="ESP from which outputs note that gypsum needs leaching water and drainage to work",
@@ -683,6 +690,10 @@ class RateResult:
         What to ask the lab for, so that a lime method can run there.
     target
         The lime target used: pH and pH method with its source (empty when none).
+    layer_rates
+        With samples at several depths (``compute_rates(..., layers=)``): the gypsum
+        rule's product (kg/ha) for each layer's part of the treated depth, by layer
+        label; their sum is the rule's contribution.
     """
 
     product_rates: dict[str, NDArray[np.float64]]
@@ -694,6 +705,7 @@ class RateResult:
     needs_test: NDArray[np.bool_] | None = None
     ask_for: str = ""
     target: str = ""
+    layer_rates: dict[str, NDArray[np.float64]] = field(default_factory=dict)
 
     @property
     def needs_test_cells(self) -> int:
@@ -1184,11 +1196,35 @@ def _select(
 
 
 @dataclass(frozen=True)
+class RateLayer:
+    """One sampled layer's share of a gypsum requirement summed over depth.
+
+    Attributes
+    ----------
+    label
+        The layer as a person writes it ("10-30 cm").
+    esp, ecec
+        The layer's ESP (%) and ECEC (cmol(+)/kg), per cell or one value.
+    depth_m
+        Thickness of soil the layer stands for within the treated depth, m.
+    bulk_density_g_cm3
+        The layer's bulk density.
+    """
+
+    label: str
+    esp: Any
+    ecec: Any
+    depth_m: float
+    bulk_density_g_cm3: Any
+
+
+@dataclass(frozen=True)
 class _Soil:
     depth_m: Any
     bulk_density_g_cm3: Any
     ph_method: str = "water"
     scoop_density_g_cm3: float = 1.0
+    layers: tuple[RateLayer, ...] = ()
 
 
 def _chain(
@@ -1326,6 +1362,7 @@ class _State:
     mg_added: Any = 0.0
     guarded: Any = False
     lime_unsure: Any = False
+    layer_rates: dict[str, Any] = field(default_factory=dict)
 
 
 def _ph_guard(
@@ -1368,29 +1405,60 @@ def _add(st: _State, rule: str, product: str, rate: NDArray[np.float64]) -> None
     st.contributions[key] = st.contributions[key] + rate if key in st.contributions else rate
 
 
+def _gypsum_layer(trace: _Trace, g: GypsumRule, p: Product, esp: Any, ecec: Any, soil: _Soil,
+                  src: str, what: str = "") -> tuple[NDArray[np.float64], Any]:
+    """Product kg/ha and the Ca (cmol(+)/kg) exchanged, for one layer of soil."""
+    excess = np.maximum(esp - g.target_esp_percent, 0.0)
+    trace.add("gypsum", f"ESP above the target{what}", "max(ESP - target ESP, 0)",
+              {"ESP": (esp, "%"), "target ESP": (g.target_esp_percent, "%")}, excess, "%", src)
+    exch = excess / 100.0 * ecec
+    trace.add("gypsum", f"calcium to displace the excess sodium{what}",
+              "Ca = (ESP - target) / 100 x ECEC",
+              {"ESP - target": (excess, "%"), "ECEC": (ecec, "cmol(+)/kg")}, exch, "cmol(+)/kg",
+              "USDA Handbook 60 (Richards 1954)")
+    need = exch * g.exchange_efficiency
+    trace.add("gypsum", f"with the exchange-efficiency factor{what}", "Ca x F",
+              {"Ca": (exch, "cmol(+)/kg"), "F": (g.exchange_efficiency, "")}, need, "cmol(+)/kg",
+              "Oster et al. 1999 (F 1.1 to 1.3)")
+    return _chain(trace, "gypsum", need, substance="Ca", product=p, soil=soil), exch
+
+
 def _rule_gypsum(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
                  products: Mapping[str, Product], soil: _Soil) -> None:
     g = s.gypsum
     p = _product(products, g.product, f"{SECTION}.gypsum.product", need="Ca")
     src = METHOD_CITATIONS["handbook60"]
     esp, ecec = cells.get("esp"), cells.get("ecec")
-    excess = np.maximum(esp - g.target_esp_percent, 0.0)
-    trace.add("gypsum", "ESP above the target", "max(ESP - target ESP, 0)",
-              {"ESP": (esp, "%"), "target ESP": (g.target_esp_percent, "%")}, excess, "%", src)
-    exch = excess / 100.0 * ecec
-    trace.add("gypsum", "calcium to displace the excess sodium", "Ca = (ESP - target) / 100 x ECEC",
-              {"ESP - target": (excess, "%"), "ECEC": (ecec, "cmol(+)/kg")}, exch, "cmol(+)/kg",
-              "USDA Handbook 60 (Richards 1954)")
-    need = exch * g.exchange_efficiency
-    trace.add("gypsum", "with the exchange-efficiency factor", "Ca x F",
-              {"Ca": (exch, "cmol(+)/kg"), "F": (g.exchange_efficiency, "")}, need, "cmol(+)/kg",
-              "Oster et al. 1999 (F 1.1 to 1.3)")
-    rate = _chain(trace, "gypsum", need, substance="Ca", product=p, soil=soil)
+    rate: Any
+    exch: Any
+    if not soil.layers:
+        rate, exch = _gypsum_layer(trace, g, p, esp, ecec, soil, src)
+        most_esp = esp
+    else:
+        # samples at several depths: each layer's requirement over the soil it stands for
+        rate, exch, most_esp = 0.0, None, esp
+        for layer in soil.layers:
+            lesp = np.asarray(layer.esp, dtype=float)
+            lecec = np.asarray(layer.ecec, dtype=float)
+            part, ex = _gypsum_layer(
+                trace, g, p, lesp, lecec,
+                dataclasses.replace(soil, depth_m=layer.depth_m,
+                                    bulk_density_g_cm3=layer.bulk_density_g_cm3, layers=()),
+                src, what=f", {layer.label} layer ({layer.depth_m * 100:g} cm of soil)")
+            st.layer_rates[layer.label] = part
+            rate = rate + part
+            exch = ex if exch is None else exch  # Ca the top layer gains (calcium rule)
+            most_esp = np.fmax(most_esp, lesp)
+        rate = np.asarray(rate, dtype=float)
+        trace.add("gypsum", "sum over the layers the treated depth spans",
+                  " + ".join(layer.label for layer in soil.layers),
+                  {layer.label: (st.layer_rates[layer.label], "kg/ha") for layer in soil.layers},
+                  rate, "kg/ha", "USDA Handbook 60 (Richards 1954) per layer, summed [derived]")
     rate, withheld = _ph_guard(st, trace, cells, s, "gypsum", p, rate)
     _add(st, "gypsum", p.name, rate)
     st.ca_added = st.ca_added + np.where(withheld, 0.0, exch)
     st.methods["gypsum"] = src
-    sodic = (esp >= g.leaching_note_esp_percent) & (rate > 0)
+    sodic = (most_esp >= g.leaching_note_esp_percent) & (rate > 0)
     n = int(np.count_nonzero(sodic))
     if n:
         st.notes.append(
@@ -1780,6 +1848,7 @@ def _run(
         needs_test=needs_test,
         ask_for=ask,
         target=target_text,
+        layer_rates=st.layer_rates,
     )
 
 
@@ -1819,6 +1888,16 @@ def _needs_test(
     return flag, ask, target_text
 
 
+def _fill(result: RateResult, shape: tuple[int, ...]) -> None:
+    """Every rate of ``result`` as a full array of ``shape`` (rules may give scalars)."""
+    for name, rate in result.product_rates.items():
+        result.product_rates[name] = _full(rate, shape)
+    for name, rate in result.layer_rates.items():
+        result.layer_rates[name] = _full(rate, shape)
+    for pair, rate in result.contributions.items():
+        result.contributions[pair] = _full(rate, shape)
+
+
 def compute_rates(
     cells: Mapping[str, NDArray[np.float64]],
     settings: RateSettings,
@@ -1828,6 +1907,7 @@ def compute_rates(
     bulk_density_g_cm3: float | NDArray[np.float64],
     ph_method: str | None = None,
     scoop_density_g_cm3: float = 1.0,
+    layers: Sequence[RateLayer] = (),
 ) -> RateResult:
     """Product rates per cell, kg/ha as spread, before spreader limits.
 
@@ -1852,6 +1932,11 @@ def compute_rates(
     scoop_density_g_cm3
         Density the lab's volumetric amounts were read with (base-saturation
         method: its T is per volume).
+    layers
+        Samples at several depths: the layers the gypsum treatment spans, each with
+        its ESP, ECEC, thickness and bulk density. The gypsum rule then sums their
+        requirements (``depth_m`` and ``bulk_density_g_cm3`` stay those of the other
+        rules); empty (the default): gypsum over ``depth_m`` from ``esp`` and ``ecec``.
 
     Returns
     -------
@@ -1907,13 +1992,13 @@ def compute_rates(
                 column=key,
                 fix="pass a scalar or an array of the paddock grid's shape",
             )
-    soil = _Soil(depth_m, bulk_density_g_cm3, ph_method or "water", scoop_density_g_cm3)
+    for layer in layers:
+        _check_soil(layer.depth_m, layer.bulk_density_g_cm3)
+    soil = _Soil(depth_m, bulk_density_g_cm3, ph_method or "water", scoop_density_g_cm3,
+                 tuple(layers))
     result = _run(arrays, settings, products, soil, _QUIET)
     if shape is not None:
-        for name, rate in result.product_rates.items():
-            result.product_rates[name] = _full(rate, shape)
-        for pair, rate in result.contributions.items():
-            result.contributions[pair] = _full(rate, shape)
+        _fill(result, shape)
     if result.ph_guard_cells:
         method = "CaCl2" if ph_method == "CaCl2" else "water"
         warnings.warn(
@@ -1946,6 +2031,7 @@ def explain_cell(
     bulk_density_g_cm3: float | None = None,
     ph_method: str | None = None,
     scoop_density_g_cm3: float = 1.0,
+    layers: Sequence[RateLayer] = (),
 ) -> list[Step]:
     """The arithmetic of :func:`compute_rates` for one cell, step by step.
 
@@ -1961,6 +2047,8 @@ def explain_cell(
         As for :func:`compute_rates`.
     depth_m, bulk_density_g_cm3
         Treated depth and bulk density; default: taken from ``values``.
+    layers
+        As for :func:`compute_rates` (one value per layer).
 
     Returns
     -------
@@ -1989,7 +2077,8 @@ def explain_cell(
     }
     trace = _Trace(True)
     _run(arrays, settings, products,
-         _Soil(float(d), float(b), ph_method or "water", scoop_density_g_cm3), trace)
+         _Soil(float(d), float(b), ph_method or "water", scoop_density_g_cm3, tuple(layers)),
+         trace)
     return trace.steps
 
 

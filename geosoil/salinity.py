@@ -581,6 +581,11 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
     esp = _col(out, "esp")
     ids = out["sample_id"].astype(str).tolist() if "sample_id" in out.columns else [
         str(i) for i in range(len(out))]
+    if {"depth_top_cm", "depth_bottom_cm"} <= set(out.columns):
+        # samples at several depths share IDs: name the depth too
+        depths = list(zip(out["depth_top_cm"], out["depth_bottom_cm"], strict=True))
+        if len(set(depths)) > 1:
+            ids = [f"{i} ({t:g}-{b:g} cm)" for i, (t, b) in zip(ids, depths, strict=True)]
     has_ec15 = bool(np.isfinite(ec15).any())
     has_ece = bool(np.isfinite(ece).any())
     factor = s.ece_factor()

@@ -75,6 +75,7 @@ from .columns import (
 )
 from .crs import describe_crs, parse_crs
 from .errors import CRSError, DataWarning, InputError, SettingsError
+from .layers import DEPTH_UNITS, check_depths, depth_role, depth_unit_of, parse_depth
 from .salinity import to_ds_m
 from .settings import setting
 from .units import (
@@ -88,6 +89,7 @@ from .units import (
 from .vectors import read_layer
 
 __all__ = [
+    "DEPTH_COLUMNS",
     "SampleSettings",
     "SampleRead",
     "CRSInputError",
@@ -135,7 +137,11 @@ _TABLE_SUFFIXES = (".csv", ".txt", ".tsv")
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm")
 _VECTOR_SUFFIXES = (".geojson", ".json", ".gpkg", ".shp", ".zip")
 _EMPTY_WORDS = {"", "na", "n/a", "n.a.", "-", "--", "nan", "none", "null"}
-_RESERVED = set(CANONICAL) | set(DERIVED) | {"sample_id", "source_row", "paddock", "geometry"}
+#: The columns the depth of each sample is read into (cm below the surface).
+DEPTH_COLUMNS = ("depth_top_cm", "depth_bottom_cm")
+
+_RESERVED = set(CANONICAL) | set(DERIVED) | {"sample_id", "source_row", "paddock", "geometry",
+                                             "layer", *DEPTH_COLUMNS}
 
 
 @dataclasses.dataclass(frozen=True)
@@ -203,6 +209,27 @@ class SampleSettings:
     on_bad_row: str = setting(
         "stop", doc="a bad row: 'stop' with an error, or 'skip' it and list it",
         choices=("stop", "skip"),
+    )
+    depths: str = setting(
+        "layers",
+        doc="the samples' depth: 'layers' (samples at several depths make separate layers) "
+        "or 'ignore' (every sample is of the one treated layer, the depth column kept as "
+        "the lab wrote it)",
+        choices=("layers", "ignore"),
+    )
+    depth_column: str | None = setting(
+        None, doc="header of the depth range ('0-10', '10-30 cm'; default: detected)"
+    )
+    depth_top_column: str | None = setting(
+        None, doc="header of the top of each sample's depth, when the lab gives top and "
+        "bottom apart (default: detected)"
+    )
+    depth_bottom_column: str | None = setting(
+        None, doc="header of the bottom of each sample's depth (default: detected)"
+    )
+    depth_unit: str = setting(
+        "cm", doc="unit of depths whose header and cell name none",
+        choices=tuple(DEPTH_UNITS),
     )
 
     def __post_init__(self) -> None:
@@ -665,6 +692,105 @@ def _id_text(value: Any) -> str:
     return str(value).strip()
 
 
+# --------------------------------------------------------------------------- depths
+
+
+def _depth_headers(
+    headers: list[str], taken: set[str], settings: SampleSettings, name: str,
+    header_row: int | None,
+) -> tuple[str | None, str | None, str | None]:
+    """(range header, top header, bottom header) of the samples' depth, each or None."""
+
+    def present(header: str, key: str) -> str:
+        if header not in headers:
+            raise InputError(
+                f"the column named in [samples] {key} is not in the file", file=name,
+                row=header_row, column=header, fix=_nearest(header, headers),
+            )
+        return header
+
+    if settings.depths == "ignore":
+        return None, None, None
+    given = (settings.depth_column, settings.depth_top_column, settings.depth_bottom_column)
+    if any(given):
+        rng, top, bottom = (
+            present(h, k) if h else None
+            for h, k in zip(given, ("depth_column", "depth_top_column", "depth_bottom_column"),
+                            strict=True)
+        )
+        if (top is None) != (bottom is None):
+            key = "depth_bottom_column" if bottom is None else "depth_top_column"
+            raise SettingsError("give both the top and the bottom column of the depth (or "
+                                "depth_column for a range such as '0-10')", key=key)
+        return (None, top, bottom) if top else (rng, None, None)
+    found: dict[str, list[str]] = {"range": [], "top": [], "bottom": []}
+    for h in headers:
+        role = depth_role(h) if h not in taken else None
+        if role:
+            found[role].append(h)
+    if len(found["top"]) == 1 and len(found["bottom"]) == 1:
+        return None, found["top"][0], found["bottom"][0]
+    if len(found["range"]) == 1:
+        return found["range"][0], None, None
+    if len(found["range"]) > 1:
+        raise InputError(
+            f"{' and '.join(repr(h) for h in found['range'])} all look like the samples' "
+            "depth", file=name, row=header_row, column=found["range"][0],
+            fix="name one in [samples] depth_column (or set [samples] depths = 'ignore')",
+        )
+    return None, None, None
+
+
+def _read_depths(
+    table: pd.DataFrame, rows: np.ndarray, headers: tuple[str | None, str | None, str | None],
+    settings: SampleSettings, decimal_comma: bool, issues: list[_Issue],
+) -> tuple[np.ndarray, np.ndarray] | None:
+    """Top and bottom (cm) of every sample, or None without a depth column; a cell that
+    cannot be read is an issue naming its row and column."""
+    rng, top_h, bottom_h = headers
+    if rng is None and top_h is None:
+        return None
+    n = len(table)
+    top = np.full(n, np.nan)
+    bottom = np.full(n, np.nan)
+    fix = ("write the depth as a range such as '0-10' or '10-30 cm' (set [samples] "
+           "depth_unit when the numbers are not in cm), or set [samples] depths = 'ignore'")
+    if rng is not None:
+        unit = depth_unit_of(rng) or settings.depth_unit
+        for i, value in enumerate(table[rng].tolist()):
+            if hasattr(value, "isoformat"):
+                issues.append(_Issue(int(rows[i]), rng, f"the depth is a date ({value}): a "
+                                     "spreadsheet read a range such as '10-30' as a date",
+                                     "format the depth column as text and write the ranges "
+                                     "again, or give top and bottom in two columns"))
+                continue
+            text = "" if _missing(value) else str(value)
+            try:
+                top[i], bottom[i] = parse_depth(text, unit=unit)
+            except ValueError as exc:
+                issues.append(_Issue(int(rows[i]), rng, str(exc), fix))
+        return top, bottom
+    assert top_h is not None and bottom_h is not None
+    for header, out in ((top_h, top), (bottom_h, bottom)):
+        unit = depth_unit_of(header) or settings.depth_unit
+        for i, value in enumerate(table[header].tolist()):
+            v, status, text = _cell(value, decimal_comma=decimal_comma)
+            if status != "ok":
+                issues.append(_Issue(int(rows[i]), header,
+                                     f"'{text}' is not a depth" if text else "the depth is empty",
+                                     "give every sample's top and bottom depth as numbers"))
+                continue
+            out[i] = v * DEPTH_UNITS[unit]
+    for i in range(n):
+        if np.isfinite(top[i]) and np.isfinite(bottom[i]):
+            try:
+                top[i], bottom[i] = check_depths(round(top[i], 6), round(bottom[i], 6))
+            except ValueError as exc:
+                issues.append(_Issue(int(rows[i]), bottom_h, str(exc),
+                                     "check the sample's top and bottom depth"))
+    return top, bottom
+
+
 # --------------------------------------------------------------------------- mapping
 
 
@@ -1109,21 +1235,28 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
             DataWarning, stacklevel=2,
         )
     issues: list[_Issue] = []
+    taken = set(columns.values()) | {id_header} | (set(xy) if xy else set())
+    depth_headers = _depth_headers(headers, taken, settings, name, raw.header_row)
+    depths = _read_depths(table, rows, depth_headers, settings, raw.decimal_comma, issues)
 
     ids = [_id_text(v) for v in table[id_header].tolist()]
-    first_seen: dict[str, int] = {}
+    # one ID may name a place sampled at several depths: an ID is unique per depth
+    first_seen: dict[tuple[str, float, float], int] = {}
     for i, sid in enumerate(ids):
+        at = (sid, float(depths[0][i]), float(depths[1][i])) if depths is not None else (
+            sid, 0.0, 0.0)
         if not sid:
             issues.append(_Issue(int(rows[i]), id_header, "the sample ID is empty",
                                  "give every sample an ID, or set [samples] on_bad_row = 'skip'"))
-        elif sid in first_seen:
+        elif at in first_seen:
             issues.append(_Issue(
-                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[sid]}",
+                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[at]}"
+                + (" at the same depth" if depths is not None else ""),
                 "give each sample its own ID, or set [samples] on_bad_row = 'skip' to keep "
                 "the first",
             ))
         else:
-            first_seen[sid] = int(rows[i])
+            first_seen[at] = int(rows[i])
 
     values = {
         a: _analyte_values(a, columns[a], units[a], table[columns[a]], rows, settings, name,
@@ -1174,6 +1307,9 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     }
     for analyte, v in values.items():
         data[analyte] = v[keep]
+    if depths is not None:
+        data[DEPTH_COLUMNS[0]] = depths[0][keep]
+        data[DEPTH_COLUMNS[1]] = depths[1][keep]
     for header in headers:
         if header in used:
             continue
@@ -1182,6 +1318,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     points = gpd.points_from_xy(x[keep], y[keep], crs=crs)
     samples = gpd.GeoDataFrame(data, geometry=points, crs=crs)
     samples.attrs["location_column"] = location_column
+    samples.attrs["depth_columns"] = [h for h in depth_headers if h]
     logger.info(
         "%s: %d samples, analytes %s, CRS %s", name, len(samples),
         ", ".join(f"{a} <- '{h}' ({units[a] or 'no unit'})" for a, h in columns.items()),
@@ -1345,6 +1482,12 @@ def _near_duplicates(
 ) -> gpd.GeoDataFrame:
     xy = np.column_stack([pts.geometry.x.to_numpy(), pts.geometry.y.to_numpy()])
     pairs = close_pairs(xy, settings.duplicate_distance_m)
+    if len(pairs) and DEPTH_COLUMNS[0] in pts.columns:
+        # one place sampled at several depths is not a duplicate: only the same depth is
+        top = pts[DEPTH_COLUMNS[0]].to_numpy(float)
+        bottom = pts[DEPTH_COLUMNS[1]].to_numpy(float)
+        same = (top[pairs[:, 0]] == top[pairs[:, 1]]) & (bottom[pairs[:, 0]] == bottom[pairs[:, 1]])
+        pairs = pairs[same]
     if len(pairs) == 0:
         return pts
     from scipy.sparse import coo_matrix  # only when there are near-duplicates to merge

@@ -21,6 +21,7 @@ from geosoil.rates import (
     CalciumRule,
     GypsumRule,
     LimeRule,
+    RateLayer,
     RateSettings,
     check_inputs,
     compute_rates,
@@ -88,6 +89,63 @@ def test_one_meq_per_100g_over_an_acre_foot_is_1_72_short_tons_of_gypsum() -> No
     kg_ha = rate_of({"esp": 15, "ecec": 10}, s, "gypsum", depth=depth, bd=bd)[0]  # 1.0 cmol(+)/kg
     short_tons = float(kg_ha_to_lb_ac(kg_ha)) / 2000
     assert short_tons == pytest.approx(1.72, abs=0.005)
+
+
+def test_gypsum_over_two_layers_is_the_acre_foot_rule_summed_by_hand() -> None:
+    # USDA Handbook 60 requirement per layer, with the per acre-foot arithmetic of extension
+    # guides ([derived], docs/SOURCES.md "Sodicity and gypsum"): 1 meq/100 g of Na to replace
+    # over an acre-foot (4 million lb of soil) takes about 1.72 short tons of pure gypsum.
+    # Worked by hand for a profile sampled 0-6 in and 6-18 in, treated to 18 in:
+    #   topsoil  CEC 20, ESP 25 -> 5: 20 x 20 / 100 = 4.00 meq/100 g over 0.5 ft
+    #            4.00 x 1.72 x 0.5 = 3.44 short tons/ac
+    #   subsoil  CEC 15, ESP 30 -> 5: 15 x 25 / 100 = 3.75 meq/100 g over 1.0 ft
+    #            3.75 x 1.72 x 1.0 = 6.45 short tons/ac
+    #   profile  3.44 + 6.45 = 9.89 short tons/ac
+    # The bulk density that makes an acre-foot weigh 4 million lb ([derived], exact units).
+    bd = 4e6 * KG_HA_PER_LB_AC / (10_000 * 0.3048 * 1000)
+    assert bd == pytest.approx(1.471, abs=5e-4)
+    s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.0))
+    layers = [RateLayer("0-15.24 cm", np.array([25.0]), np.array([20.0]), 0.1524, bd),
+              RateLayer("15.24-45.72 cm", np.array([30.0]), np.array([15.0]), 0.3048, bd)]
+    r = compute_rates({"esp": np.array([25.0]), "ecec": np.array([20.0])}, s, PRODUCTS,
+                      depth_m=0.1524, bulk_density_g_cm3=bd, layers=layers)
+    tons = {k: float(kg_ha_to_lb_ac(v[0])) / 2000 for k, v in r.layer_rates.items()}
+    assert tons["0-15.24 cm"] == pytest.approx(3.44, rel=2e-3)   # 1.72 is rounded: 0.1 %
+    assert tons["15.24-45.72 cm"] == pytest.approx(6.45, rel=2e-3)
+    total = float(kg_ha_to_lb_ac(r.product_rates["gypsum"][0])) / 2000
+    assert total == pytest.approx(9.89, rel=2e-3)
+    assert total == pytest.approx(sum(tons.values()), rel=1e-12)
+    # one layer given as a list of one is exactly the single-layer rule (one depth as before)
+    one = compute_rates({"esp": np.array([25.0]), "ecec": np.array([20.0])}, s, PRODUCTS,
+                        depth_m=0.1524, bulk_density_g_cm3=bd)
+    alone = compute_rates({"esp": np.array([25.0]), "ecec": np.array([20.0])}, s, PRODUCTS,
+                          depth_m=0.1524, bulk_density_g_cm3=bd, layers=layers[:1])
+    assert alone.product_rates["gypsum"][0] == pytest.approx(one.product_rates["gypsum"][0],
+                                                             rel=1e-12)
+    # explain shows the same sum, layer by layer
+    steps = explain_cell({"esp": 25.0, "ecec": 20.0}, s, PRODUCTS, depth_m=0.1524,
+                         bulk_density_g_cm3=bd, layers=[
+                             RateLayer(x.label, float(x.esp[0]), float(x.ecec[0]), x.depth_m, bd)
+                             for x in layers])
+    summed = [st for st in steps if st.description.startswith("sum over the layers")]
+    assert summed and summed[0].result == pytest.approx(r.product_rates["gypsum"][0])
+
+
+def test_layered_gypsum_counts_the_top_layers_calcium_and_notes_the_deepest_sodicity() -> None:
+    s = only(gypsum=GypsumRule(target_esp_percent=5, exchange_efficiency=1.0),
+             calcium=CalciumRule(minimum_ca=6.0, minimum_ca_unit="cmol/kg"))
+    layers = [RateLayer("0-10 cm", np.array([4.0]), np.array([10.0]), 0.10, 1.3),
+              RateLayer("10-30 cm", np.array([20.0]), np.array([10.0]), 0.20, 1.5)]
+    r = compute_rates({"esp": np.array([4.0]), "ecec": np.array([10.0]), "ca": np.array([5.0]),
+                       "ph": np.array([8.0])}, s, PRODUCTS, depth_m=0.10,
+                      bulk_density_g_cm3=1.3, layers=layers)
+    assert r.layer_rates["0-10 cm"][0] == 0.0 and r.layer_rates["10-30 cm"][0] > 0
+    # the subsoil's gypsum adds no Ca to the topsoil: its 1 cmol(+)/kg shortfall stays
+    # ([derived] 1 cmol(+)/kg Ca x 200.39 mg x 1.3e6 kg/ha / 0.2328 Ca fraction)
+    ca = r.contributions[("calcium", "gypsum")][0]
+    assert ca == pytest.approx(1.0 * 200.39 * 1.3e6 * 1e-6 / (40.078 / 172.17), rel=1e-3)
+    # sodic subsoil: the leaching note is given though the topsoil is not sodic
+    assert any("leaches the displaced sodium" in n for n in r.notes)
 
 
 def test_gypsum_purity_raises_the_rate() -> None:

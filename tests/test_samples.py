@@ -1279,3 +1279,96 @@ def test_close_pairs_match_scipys_kd_tree(pts, distance) -> None:
         np.empty((0, 2), dtype=int)
     want = want[np.lexsort((want[:, 1], want[:, 0]))] if len(want) else want.reshape(0, 2)
     assert got.tolist() == want.tolist()
+
+
+# --------------------------------------------------------------------------- depths
+
+DEPTH_HEADER = "Sample ID,Depth,Longitude,Latitude,Exch Ca (meq/100g),Exch Na (meq/100g)"
+
+
+def test_a_depth_range_column_gives_top_and_bottom_in_cm(tmp_path: Path) -> None:
+    path = lab(tmp_path, [
+        "A1,0-10,147.0010,-35.0010,6.0,0.4",
+        "A1,10 to 30 cm,147.0010,-35.0010,4.0,1.4",   # one place at two depths: one ID
+        "A2,0–10 cm,147.0020,-35.0020,5.0,0.6",
+        "A2,0.1-0.3 m,147.0020,-35.0020,3.0,1.6",
+    ], header=DEPTH_HEADER)
+    got = read(path).samples
+    assert got["depth_top_cm"].tolist() == [0, 10, 0, 10]
+    assert got["depth_bottom_cm"].tolist() == [10, 30, 10, 30]
+    assert got["Depth"].tolist()[1] == "10 to 30 cm"  # the lab's column kept as written
+    # the same place at two depths is not a near-duplicate
+    placed = prepare_samples(got, paddocks=PADDOCKS, working_crs=UTM55,
+                             settings=SampleSettings(file=path), file=str(path))
+    assert len(placed) == 4
+
+
+def test_top_and_bottom_columns_with_a_unit_in_the_header(tmp_path: Path) -> None:
+    header = "Sample ID,Depth from (m),Depth to (m),Longitude,Latitude,Exch Ca (meq/100g)"
+    path = lab(tmp_path, ["A1,0,0.1,147.0010,-35.0010,6.0", "B1,0.1,0.3,147.0010,-35.0010,4.0"],
+               header=header)
+    got = read(path).samples
+    assert got["depth_top_cm"].tolist() == [0, 10]
+    assert got["depth_bottom_cm"].tolist() == [10, 30]
+    # named in the settings, with the unit of headers that name none
+    header = "Sample ID,Upper,Lower,Longitude,Latitude,Exch Ca (meq/100g)"
+    path = lab(tmp_path, ["A1,0,4,147.0010,-35.0010,6.0", "B1,4,12,147.0010,-35.0010,4.0"],
+               header=header, name="lab2.csv")
+    got = read(path, depth_top_column="Upper", depth_bottom_column="Lower",
+               depth_unit="in").samples
+    assert got["depth_bottom_cm"].tolist() == pytest.approx([10.16, 30.48])  # 2.54 cm/in
+
+
+def test_a_depth_that_cannot_be_read_names_file_row_and_column(tmp_path: Path) -> None:
+    path = lab(tmp_path, [
+        "A1,0-10,147.0010,-35.0010,6.0,0.4",
+        "A2,topsoil,147.0020,-35.0020,5.0,0.6",
+    ], header=DEPTH_HEADER)
+    err = error_of(path)
+    assert (err.file, err.row, err.column) == (str(path), 3, "Depth")
+    assert "'topsoil' is not a depth range" in str(err)
+    assert "depths = 'ignore'" in str(err)
+    # with on_bad_row = "skip" the row is listed and passed over
+    with pytest.warns(DataWarning, match="row 3"):
+        got = read(path, on_bad_row="skip")
+    assert got.samples["sample_id"].tolist() == ["A1"]
+    # "ignore" reads the file as one layer, the depth column kept as the lab wrote it
+    got = read(path, depths="ignore").samples
+    assert "depth_top_cm" not in got.columns and got["Depth"].tolist() == ["0-10", "topsoil"]
+    # top and bottom the wrong way round
+    header = "Sample ID,Top (cm),Bottom (cm),Longitude,Latitude,Exch Ca (meq/100g)"
+    path = lab(tmp_path, ["A1,30,10,147.0010,-35.0010,6.0"], header=header, name="lab2.csv")
+    err = error_of(path)
+    assert (err.row, err.column) == (2, "Bottom (cm)")
+    assert "bottom must be below the top" in str(err)
+
+
+def test_a_spreadsheet_date_in_the_depth_column_is_named(tmp_path: Path) -> None:
+    # Excel turns '10-30' typed in a general cell into a date
+    path = tmp_path / "lab.xlsx"
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["Sample ID", "Depth", "Longitude", "Latitude", "Exch Ca (meq/100g)"])
+    sheet.append(["A1", "0-10", 147.001, -35.001, 6.0])
+    sheet.append(["A1", pd.Timestamp("2026-10-30").to_pydatetime(), 147.001, -35.001, 4.0])
+    book.save(path)
+    err = error_of(path)
+    assert (err.row, err.column) == (3, "Depth")
+    assert "date" in str(err) and "as text" in str(err)
+
+
+def test_one_id_twice_at_the_same_depth_is_still_a_duplicate(tmp_path: Path) -> None:
+    path = lab(tmp_path, [
+        "A1,0-10,147.0010,-35.0010,6.0,0.4",
+        "A1,0-10,147.0020,-35.0020,5.0,0.6",
+    ], header=DEPTH_HEADER)
+    err = error_of(path)
+    assert err.row == 3 and "also on row 2 at the same depth" in str(err)
+
+
+def test_a_depth_column_named_in_the_settings_must_exist(tmp_path: Path) -> None:
+    path = lab(tmp_path, ["A1,0-10,147.0010,-35.0010,6.0,0.4"], header=DEPTH_HEADER)
+    err = error_of(path, depth_column="Dpth")
+    assert err.column == "Dpth" and "did you mean 'Depth'" in str(err)
+    with pytest.raises(SettingsError, match="both the top and the bottom"):
+        read(path, depth_top_column="Depth")
