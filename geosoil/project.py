@@ -691,6 +691,24 @@ def _read_past_bad_rows(read_samples: Any, trial: SampleSettings) -> Any:
     return read
 
 
+def _depth_notes(samples: Any) -> list[str]:
+    """What ``new`` says about the samples' depths (nothing without a depth column)."""
+    if "depth_top_cm" not in samples.columns:
+        return []
+    found = sorted(set(zip(samples["depth_top_cm"], samples["depth_bottom_cm"], strict=True)))
+    depth_from = ", ".join(f"'{h}'" for h in samples.attrs.get("depth_columns", []))
+    if len(found) > 1:
+        return [
+            f"samples at {len(found)} depths ({depth_from}: "
+            + ", ".join(f"{t:g}-{b:g} cm" for t, b in found)
+            + "): each depth is mapped as its own layer; gypsum treats [soil] depth_m "
+            "unless [rates.gypsum] treat_depth_cm says deeper (the layers' requirements "
+            "summed); give deeper layers' bulk density in [soil] bulk_density_by_layer"
+        ]
+    return [f"samples of one depth ({depth_from}: {found[0][0]:g}-{found[0][1]:g} cm): set "
+            "[soil] depth_m to the depth the amendment must treat"] if found else []
+
+
 def new_project(
     folder: Path | str,
     *,
@@ -823,21 +841,7 @@ def new_project(
         "units: " + ", ".join(f"{k} {v}" for k, v in read.units.items() if v)
     )
     notes.extend(read.readings.values())
-    if "depth_top_cm" in read.samples.columns:
-        found = sorted(set(zip(read.samples["depth_top_cm"], read.samples["depth_bottom_cm"],
-                               strict=True)))
-        depth_from = ", ".join(f"'{h}'" for h in read.samples.attrs.get("depth_columns", []))
-        if len(found) > 1:
-            notes.append(
-                f"samples at {len(found)} depths ({depth_from}: "
-                + ", ".join(f"{t:g}-{b:g} cm" for t, b in found)
-                + "): each depth is mapped as its own layer; gypsum treats [soil] depth_m "
-                "unless [rates.gypsum] treat_depth_cm says deeper (the layers' requirements "
-                "summed); give deeper layers' bulk density in [soil] bulk_density_by_layer"
-            )
-        elif found:
-            notes.append(f"samples of one depth ({depth_from}: {found[0][0]:g}-{found[0][1]:g}"
-                         " cm): set [soil] depth_m to the depth the amendment must treat")
+    notes.extend(_depth_notes(read.samples))
     for why in read.undecided.values():
         notes.append(f"{why}; 'check' and 'run' stop at this column until then")
     sample_settings = dataclasses.replace(
