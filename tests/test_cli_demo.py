@@ -1,4 +1,8 @@
-"""``geosoil demo --out DIR``: the whole job on the bundled demo farm, from any folder."""
+"""``geosoil demo --out DIR``: the whole job on the bundled demo farm, from any folder.
+
+The demo runs once per test session (``demo_run`` in ``tests/conftest.py``: ``geosoil demo
+--out demo-out`` from an unrelated working folder); these tests read what it printed and wrote.
+"""
 
 from __future__ import annotations
 
@@ -8,28 +12,7 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
-from geosoil.cli.demo import demo_project_file
 from geosoil.cli.main import cli
-
-
-def _tree(root: Path) -> list[tuple[str, int]]:
-    return sorted((str(p.relative_to(root)), p.stat().st_size) for p in root.rglob("*")
-                  if "__pycache__" not in p.parts)
-
-
-@pytest.fixture(scope="module")
-def demo_run(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
-    """One demo run with a relative --out from an unrelated working folder."""
-    cwd = tmp_path_factory.mktemp("somewhere")
-    xdg = tmp_path_factory.getbasetemp() / "xdg-cache"  # never the user's cache
-    demo_folder = demo_project_file().parent
-    before = _tree(demo_folder)
-    runner = CliRunner()
-    with runner.isolated_filesystem(temp_dir=cwd) as here:
-        result = runner.invoke(cli, ["demo", "--out", "demo-out"], env={"XDG_CACHE_HOME": str(xdg)})
-        out = Path(here) / "demo-out"
-    return {"result": result, "out": out, "before": before, "after": _tree(demo_folder),
-            "demo_folder": demo_folder}
 
 
 def test_help() -> None:
@@ -56,11 +39,12 @@ def test_unknown_command_and_option_are_usage_errors() -> None:
 
 
 def test_demo_runs_from_any_folder_into_a_relative_out(demo_run) -> None:  # noqa: ANN001
-    r = demo_run["result"]
+    r = demo_run.cli
     assert r.exit_code == 0, r.stderr
-    out: Path = demo_run["out"]
+    out: Path = demo_run.out
     record = json.loads((out / "run.json").read_text())
-    assert record["project_file"] == str(demo_project_file().resolve())
+    assert record["project_file"] == str((demo_run.farm / "geosoil.toml").resolve())
+    assert out.parent == demo_run.cwd  # the relative --out, in the working folder
     assert {"tonnage.csv", "map.html", "report.html", "samples.csv", "passes.csv"} <= {
         p.name for p in out.iterdir()}
     assert "Bellbird Rise" in (out / "report.html").read_text(encoding="utf-8")
@@ -69,7 +53,7 @@ def test_demo_runs_from_any_folder_into_a_relative_out(demo_run) -> None:  # noq
 
 
 def test_demo_writes_nothing_into_the_demo_folder(demo_run) -> None:  # noqa: ANN001
-    assert demo_run["after"] == demo_run["before"]
+    assert demo_run.after == demo_run.before
 
 
 def test_demo_needs_out() -> None:
@@ -78,7 +62,7 @@ def test_demo_needs_out() -> None:
 
 
 def test_demo_refuses_its_own_folder_and_a_used_folder(demo_run, tmp_path: Path) -> None:  # noqa: ANN001
-    r = CliRunner().invoke(cli, ["demo", "--out", str(demo_run["demo_folder"]), "--overwrite"])
+    r = CliRunner().invoke(cli, ["demo", "--out", str(demo_run.farm), "--overwrite"])
     assert r.exit_code == 1 and r.stdout == ""
     assert "\nerror: the output folder" in r.stderr and "input" in r.stderr
     (tmp_path / "used").mkdir()
@@ -111,7 +95,7 @@ def _report_table(page: str, css: str) -> list[list[str]]:
 
 def test_demo_map_has_every_written_surface_and_opens_on_the_largest_prescription(
         demo_run) -> None:  # noqa: ANN001
-    out: Path = demo_run["out"]
+    out: Path = demo_run.out
     data = _map_data(out)
     ids = [s["id"] for s in data["surfaces"]]
     written = {p.stem for p in (out / "surfaces").rglob("*.tif")}
@@ -138,7 +122,7 @@ def test_demo_report_uses_one_area_per_paddock_and_counts_cells_for_the_glance(
         demo_run) -> None:  # noqa: ANN001
     import rasterio
 
-    out: Path = demo_run["out"]
+    out: Path = demo_run.out
     page = (out / "report.html").read_text(encoding="utf-8")
     lines = (out / "tonnage.csv").read_text().splitlines()
     header = lines[0].split(",")
@@ -174,14 +158,14 @@ def test_demo_report_uses_one_area_per_paddock_and_counts_cells_for_the_glance(
 def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  # noqa: ANN001
     import html as html_mod
 
-    out: Path = demo_run["out"]
+    out: Path = demo_run.out
     page = (out / "report.html").read_text(encoding="utf-8")
     section = page[page.index('<ul class="warnings">'):]
     listed = [html_mod.unescape(w) for w in
               re.findall(r"<li>(.*?)</li>", section[: section.index("</ul>")], re.S)]
     record = json.loads((out / "run.json").read_text())
     assert listed == record["warnings"]
-    summary = [line[4:] for line in demo_run["result"].stderr.splitlines()
+    summary = [line[4:] for line in demo_run.cli.stderr.splitlines()
                if line.startswith("  - ")]
     assert summary == listed
 
@@ -190,7 +174,7 @@ def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  #
 def test_demo_map_every_layer_on_a_phone_offline(demo_run) -> None:  # noqa: ANN001
     from tests.browser import Chromium, artifact_path, require_chromium
 
-    out: Path = demo_run["out"]
+    out: Path = demo_run.out
     with Chromium(require_chromium()) as browser:
         page = browser.new_page(width=390, height=844)
         page.goto(out / "map.html")

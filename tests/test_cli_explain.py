@@ -4,16 +4,14 @@ from __future__ import annotations
 
 import csv
 import re
-import shutil
 import tomllib
 from pathlib import Path
 
 import pytest
-import tomli_w
 from click.testing import CliRunner
 from geosoil.cli.main import cli
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+from tests.demofarm import DEMO, copy_demo
 
 # IUPAC standard atomic weight of Ca; gypsum CaSO4.2H2O is 23.28 % Ca (docs/SOURCES.md [derived])
 CA_ATOMIC_WEIGHT = 40.078
@@ -25,14 +23,11 @@ def invoke(*args: object):  # noqa: ANN201 - click's Result
 
 
 @pytest.fixture(scope="module")
-def farm(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A copy of the demo farm whose surface cache lives in the session's temporary folder."""
-    dest = tmp_path_factory.mktemp("explain") / "farm"
-    shutil.copytree(DEMO, dest, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
-    data = tomllib.loads((dest / "geosoil.toml").read_text())
-    data["output"]["cache_dir"] = str(tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil")
-    (dest / "geosoil.toml").write_text(tomli_w.dumps(data))
-    return dest
+def farm(tmp_path_factory: pytest.TempPathFactory, demo_run) -> Path:  # noqa: ANN001
+    """A copy of the demo farm with the session's surface cache, which the session's demo
+    run (``demo_run`` in ``tests/conftest.py``) has filled: explain interpolates nothing."""
+    farm, _ = copy_demo(tmp_path_factory.mktemp("explain"), cache=demo_run.cache)
+    return farm
 
 
 @pytest.fixture(scope="module")

@@ -1,7 +1,8 @@
 """``geosoil run``: the documented output layout, the output-folder guards, stdout/stderr, cache.
 
-End-to-end runs use a copy of the demo farm, with the surface cache in the session's
-temporary folder (never the user's cache).
+The first run is the session's one demo run (``geosoil demo``: ``demo_run`` in
+``tests/conftest.py``); the second runs ``run`` on a copy of the demo farm with a rate setting
+changed, its surfaces from the session's cache (never the user's cache).
 """
 
 from __future__ import annotations
@@ -15,11 +16,10 @@ import numpy as np
 import pandas as pd
 import pytest
 import rasterio
-import tomli_w
 from click.testing import CliRunner
 from geosoil.cli.main import cli
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
+from tests.demofarm import DEMO, copy_demo
 
 # The layout documented in geosoil/outputs.py
 TOP_FILES = {"run.json", "tonnage.csv", "passes.csv", "samples.csv", "map.html", "report.html"}
@@ -34,41 +34,24 @@ def _tree(root: Path) -> list[tuple[str, int]]:
     return sorted((str(p.relative_to(root)), p.stat().st_size) for p in root.rglob("*"))
 
 
-def copy_demo(dest: Path, cache: Path, **changes: dict[str, object]) -> Path:
-    """The demo farm copied to ``dest``, its surface cache in ``cache``, tables updated."""
-    shutil.copytree(DEMO, dest, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
-    data = tomllib.loads((dest / "geosoil.toml").read_text())
-    data.setdefault("output", {})["cache_dir"] = str(cache)
-    for dotted, values in changes.items():
-        table = data
-        for part in dotted.split("."):
-            table = table.setdefault(part, {})
-        table.update(values)
-    (dest / "geosoil.toml").write_text(tomli_w.dumps(data))
-    return dest
-
-
 STALE = "prescriptions/red-hill/lime_isoxml_pass9/TASKDATA/TASKDATA.XML"
 
 
 @pytest.fixture(scope="module")
-def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
-    """Two runs of the demo copy: as given, then with only a rate setting changed (quiet)."""
+def runs(tmp_path_factory: pytest.TempPathFactory, demo_run) -> dict[str, object]:  # noqa: ANN001
+    """The session's demo run (``out1``), and ``run`` on a copy of the demo with only a
+    rate setting changed (quiet, surfaces from the session's cache) over a copy of it."""
     root = tmp_path_factory.mktemp("run")
-    cache = tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil"  # shared by the session
-    farm = copy_demo(root / "farm", cache)
-    before = _tree(farm)
-    first = invoke("run", farm, "--out", root / "out1")
-    after_first = _tree(farm)
     # change only the exchange-efficiency factor F of the gypsum rule (1.2 -> 1.1)
-    data = tomllib.loads((farm / "geosoil.toml").read_text())
-    assert data["rates"]["gypsum"]["exchange_efficiency"] == 1.2
-    data["rates"]["gypsum"]["exchange_efficiency"] = 1.1
-    (farm / "geosoil.toml").write_text(tomli_w.dumps(data))
+    assert tomllib.loads((DEMO / "geosoil.toml").read_text())["rates"]["gypsum"][
+        "exchange_efficiency"] == 1.2
+    farm, _ = copy_demo(root, cache=demo_run.cache,
+                        changes={"rates.gypsum": {"exchange_efficiency": 1.1}})
+    before = _tree(farm)
     # out2: a copy of the first run's folder with a file an older run wrote and this one
     # will not (task data for a pass that no longer exists), listed in its run.json
     out2 = root / "out2"
-    shutil.copytree(root / "out1", out2)
+    shutil.copytree(demo_run.out, out2)
     stale = out2 / STALE
     stale.parent.mkdir(parents=True)
     stale.write_text("<ISO11783_TaskData/>")
@@ -76,18 +59,19 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
     record["files"].append(STALE)
     (out2 / "run.json").write_text(json.dumps(record))
     second = invoke("--quiet", "run", farm, "--out", out2, "--overwrite")
-    return {"root": root, "farm": farm, "first": first, "second": second,
-            "before": before, "after_first": after_first}
+    return {"root": root, "farm": farm, "first": demo_run.cli, "out1": demo_run.out,
+            "second": second, "before": before, "after_second": _tree(farm)}
 
 
-def test_first_run_succeeds_and_writes_nothing_into_the_project_folder(runs) -> None:  # noqa: ANN001
-    r = runs["first"]
+def test_a_run_succeeds_and_writes_nothing_into_the_project_folder(runs) -> None:  # noqa: ANN001
+    assert runs["first"].exit_code == 0, runs["first"].stderr
+    r = runs["second"]
     assert r.exit_code == 0, r.stderr
-    assert runs["after_first"] == runs["before"]
+    assert runs["after_second"] == runs["before"]
 
 
 def test_the_documented_layout(runs) -> None:  # noqa: ANN001
-    out = runs["root"] / "out1"
+    out = runs["out1"]
     assert TOP_FILES <= {p.name for p in out.iterdir() if p.is_file()}
     assert {p.name for p in out.iterdir() if p.is_dir()} == {"surfaces", "rates", "prescriptions"}
     for sub in ("surfaces", "rates"):
@@ -122,12 +106,12 @@ def test_stdout_has_the_tonnage_and_the_cautions_stderr_the_progress(runs) -> No
     for pad in ("Red Hill", "Creek Flat", "Windmill"):
         assert pad in out
     assert "Cautions:" in out and "advisory" in out
-    assert str(runs["root"] / "out1") in out  # the paths written
+    assert str(runs["out1"]) in out  # the paths written
     assert "reading samples" in r.stderr and "writing the report" in r.stderr
     assert "reading samples" not in out and "Cautions" not in r.stderr
     assert "\r" not in r.stderr  # no progress animation when stderr is not a terminal
     # the tonnage printed is the tonnage written
-    table = pd.read_csv(runs["root"] / "out1" / "tonnage.csv")
+    table = pd.read_csv(runs["out1"] / "tonnage.csv")
     assert len(table) > 0
 
 
@@ -153,7 +137,7 @@ def test_overwrite_replaces_the_folder_whole_so_nothing_stale_survives(runs) -> 
 def test_overwrite_refuses_a_folder_holding_files_geosoil_did_not_write(runs) -> None:  # noqa: ANN001
     root = runs["root"]
     out3 = root / "out3"
-    shutil.copytree(root / "out1", out3)
+    shutil.copytree(runs["out1"], out3)
     (out3 / "notes.txt").write_text("my own notes")
     r = invoke("run", runs["farm"], "--out", out3, "--overwrite")
     assert r.exit_code == 1
@@ -168,7 +152,7 @@ def test_overwrite_refuses_a_folder_holding_files_geosoil_did_not_write(runs) ->
 
 
 def test_second_run_takes_surfaces_from_the_cache_and_changes_the_rates(runs) -> None:  # noqa: ANN001
-    out1, out2 = runs["root"] / "out1", runs["root"] / "out2"
+    out1, out2 = runs["out1"], runs["root"] / "out2"
     rec2 = json.loads((out2 / "run.json").read_text())
     assert rec2["surfaces_from_cache"] is True
     assert rec2["settings"]["rates"]["gypsum"]["exchange_efficiency"] == 1.1
@@ -216,7 +200,7 @@ def test_a_rerun_copies_unchanged_geotiffs_byte_for_byte_and_writes_changed_ones
 
 
 def test_an_existing_output_folder_is_refused_without_overwrite(runs) -> None:  # noqa: ANN001
-    out1 = runs["root"] / "out1"
+    out1 = runs["out1"]
     before = _tree(out1)
     r = invoke("run", runs["farm"], "--out", out1)
     assert r.exit_code == 1
@@ -259,7 +243,7 @@ def test_an_output_folder_that_cannot_be_made_is_an_error_not_a_traceback(
 
 
 def test_a_settings_error_exits_1_with_the_message_on_stderr(tmp_path: Path) -> None:
-    farm = copy_demo(tmp_path / "farm", tmp_path / "cache", grid={"cell_size_m": 0.5})
+    farm, _ = copy_demo(tmp_path, changes={"grid": {"cell_size_m": 0.5}})
     r = invoke("run", farm, "--out", tmp_path / "out")
     assert r.exit_code == 1 and r.stdout == ""
     assert r.stderr.startswith("error: setting 'grid.cell_size_m'")
@@ -274,7 +258,7 @@ def test_one_list_of_warnings_in_the_summary_run_json_and_the_report(runs) -> No
     import re
 
     r = runs["first"]
-    out = runs["root"] / "out1"
+    out = runs["out1"]
     record = json.loads((out / "run.json").read_text())
     listed = record["warnings"]
     assert listed, "the demo raises warnings (interpolation fallbacks, guards...)"

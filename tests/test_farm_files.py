@@ -12,8 +12,6 @@ from __future__ import annotations
 import json
 import math
 import re
-import shutil
-import tomllib
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
@@ -23,14 +21,13 @@ import pyogrio
 import pyproj
 import pytest
 import rasterio
-import tomli_w
 from click.testing import CliRunner
+from geosoil.cli.main import cli
 from isoxml.converter.np_grid import to_numpy_array
 from isoxml.util.isoxml_io import isoxml_from_path
 
-from cli.main import cli
+from tests.demofarm import copy_demo
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_farm"
 pytestmark = pytest.mark.slow  # one whole run of the demo copy (tens of seconds)
 
 MAX_PASS_KG_HA = 1500.0  # the copy's spreader: 1.5 t/ha per pass
@@ -39,15 +36,12 @@ PASS_FILE = re.compile(r"^(?P<product>.+?)(_(?P<word>pass|season)(?P<k>[0-9]+))?
 
 
 @pytest.fixture(scope="module")
-def run(tmp_path_factory: pytest.TempPathFactory) -> dict:
+def run(tmp_path_factory: pytest.TempPathFactory, demo_run) -> dict:  # noqa: ANN001
     root = tmp_path_factory.mktemp("farmfiles")
-    farm = root / "farm"
-    shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
-    data = tomllib.loads((farm / "geosoil.toml").read_text())
-    data["spreader"]["max_per_pass"] = MAX_PASS_KG_HA / 1000.0  # t/ha, the file's unit
-    data["output"]["rate_unit"] = "lb/ac"
-    data["output"]["cache_dir"] = str(tmp_path_factory.getbasetemp() / "xdg-cache" / "geosoil")
-    (farm / "geosoil.toml").write_text(tomli_w.dumps(data))
+    # its own variant: a lower pass limit and lb/ac (the surfaces from the session's cache)
+    farm, _ = copy_demo(root, cache=demo_run.cache, changes={
+        "spreader": {"max_per_pass": MAX_PASS_KG_HA / 1000.0},  # t/ha, the file's unit
+        "output": {"rate_unit": "lb/ac"}})
     result = CliRunner().invoke(cli, ["run", str(farm), "--out", str(root / "out")])
     assert result.exit_code == 0, result.output
     out = root / "out"

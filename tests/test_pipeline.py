@@ -1,7 +1,7 @@
 """Tests of geosoil.pipeline (and the output folder it writes): the whole job on the demo farm.
 
-The demo farm (``demo_farm/``, invented) is run once per test session into a temporary
-folder, with its surface cache there too (``demo_run`` in ``tests/conftest.py``).
+The demo farm (``demo_farm/``, invented) is run once per test session (``geosoil demo``
+into a temporary folder, its surface cache there too: ``demo_run`` in ``tests/conftest.py``).
 Everything read back is checked
 with tools other than the writers: rasterio for the GeoTIFFs, geopandas/pyogrio
 and :mod:`json` for the GeoJSON, :mod:`zipfile` and the dBASE header for the
@@ -313,7 +313,9 @@ def test_run_record_settings_inputs_versions_crs(demo) -> None:
     assert s["grid"]["cell_size_m"] == toml["grid"]["cell_size_m"]
     assert s["zones"] == {**s["zones"], **toml["zones"]}
     assert Path(s["samples"]["file"]) == demo.farm / toml["samples"]["file"]
-    assert Path(s["output"]["cache_dir"]) == demo.cache
+    # the demo names no cache folder (none recorded): the user's cache, here
+    # $XDG_CACHE_HOME/geosoil (platformdirs), checked in the test of the input folder
+    assert s["output"].get("cache_dir") is None
 
     expected_inputs = {"lab_results.csv", "paddocks.geojson", "exclusions.geojson",
                        "creek.geojson", "zones_windmill.geojson", "geosoil.toml"}
@@ -393,7 +395,8 @@ def test_run_record_zones_totals_warnings_cautions(demo, prescriptions) -> None:
 # --------------------------------------------------------------------------- cache
 
 
-def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(demo) -> None:
+def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(
+        demo, tmp_path) -> None:
     s = demo.project.settings
     gypsum = dataclasses.replace(s.rates.gypsum,
                                  target_esp_percent=s.rates.gypsum.target_esp_percent + 3.0)
@@ -401,7 +404,7 @@ def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(
         demo.project,
         settings=dataclasses.replace(s, rates=dataclasses.replace(s.rates, gypsum=gypsum)),
     )
-    second = run(higher, out_dir=demo.base / "out-target-esp")
+    second = run(higher, out_dir=tmp_path / "out-target-esp")
     assert second.record["surfaces_from_cache"] is True
 
     def farm_gypsum(record) -> float:
@@ -417,10 +420,22 @@ def test_surface_cache_hit_on_a_rate_change_and_miss_on_an_interpolation_change(
         assert (after <= before + 1e-9).all(), paddock
     assert second.farm.cache_hit
 
+    # an interpolation setting is part of the key: the cache is passed by, the surfaces are
+    # made again (here by a stand-in that stops the run where the kriging would start)
     s2 = dataclasses.replace(s, interpolation=dataclasses.replace(
         s.interpolation, n_lags=s.interpolation.n_lags + 2))
-    third = compute(dataclasses.replace(demo.project, settings=s2))
-    assert third.cache_hit is False
+
+    class Interpolating(Exception):
+        pass
+
+    def interpolate(*_args, **kwargs) -> None:
+        assert kwargs["settings"].n_lags == s.interpolation.n_lags + 2
+        raise Interpolating
+
+    with pytest.raises(Interpolating):
+        compute(dataclasses.replace(demo.project, settings=s2), interpolate=interpolate)
+    # ... and the same project as the first run's is still a hit
+    assert compute(demo.project, paddocks={PADDOCK_NAMES[0]}, interpolate=interpolate).cache_hit
 
 
 def test_compute_for_one_paddock_gives_that_paddocks_zones_unchanged(demo) -> None:
@@ -535,16 +550,17 @@ def test_a_ph_only_file_gives_ph_surfaces_and_skips_the_rules(tmp_path) -> None:
     assert float(result.tonnage.loc[result.tonnage["level"] == "farm", "tonnes"].sum()) == 0.0
 
 
-def test_seasons_split_reports_this_seasons_tonnes(tmp_path) -> None:
+def test_seasons_split_reports_this_seasons_tonnes(tmp_path, demo_run) -> None:
     """With rates split into seasons, run.json gives this season's tonnes: one per-pass rate
     on split zones, the whole rate elsewhere ([derived] area x rate / 1000)."""
-    farm, _cache = copy_demo(tmp_path)
+    farm, _cache = copy_demo(tmp_path, cache=demo_run.cache)  # a spreader change: surfaces cached
     toml = farm / "geosoil.toml"
     text = toml.read_text(encoding="utf-8").replace(
         "[spreader]\n", '[spreader]\nsplit_into = "seasons"\n', 1
     )
     toml.write_text(text, encoding="utf-8")
     result = run(load_project(farm), out_dir=tmp_path / "out")
+    assert result.farm.cache_hit
     first = result.record["first_season_tonnes"]
     zones = result.farm.zones
     for product, tonnes in first.items():

@@ -20,6 +20,7 @@ import errno
 import json
 import os
 import pickle
+import shutil
 import signal
 import subprocess
 import sys
@@ -84,11 +85,19 @@ def farm(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return make_project(tmp_path_factory.mktemp("reliable") / "farm")
 
 
-@pytest.fixture
-def previous(farm: Path, tmp_path: Path) -> tuple[Path, dict[str, bytes]]:
-    """An output folder a first run wrote, and its files."""
-    out = tmp_path / "out"
+@pytest.fixture(scope="module")
+def first_output(farm: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The output folder of one first run of the farm (copied by ``previous``)."""
+    out = tmp_path_factory.mktemp("first") / "out"
     run(load_project(farm), out_dir=out)
+    return out
+
+
+@pytest.fixture
+def previous(first_output: Path, tmp_path: Path) -> tuple[Path, dict[str, bytes]]:
+    """An output folder a first run wrote (a copy of the module's one), and its files."""
+    out = tmp_path / "out"
+    shutil.copytree(first_output, out)
     return out, tree(out)
 
 
