@@ -179,7 +179,7 @@ def test_a_rerun_copies_unchanged_geotiffs_byte_for_byte_and_writes_changed_ones
     bytes as the first run wrote; the gypsum rates (changed) are written anew."""
     import hashlib
 
-    out1, out2 = runs["root"] / "out1", runs["root"] / "out2"
+    out1, out2 = runs["out1"], runs["root"] / "out2"
     rec1 = json.loads((out1 / "run.json").read_text())
     rec2 = json.loads((out2 / "run.json").read_text())
     assert rec1["geotiffs_copied"] == 0
