@@ -600,10 +600,37 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
         fraction = min(1.0, product.ca_fraction / pure_ca) if product.ca_fraction > 0 else 1.0
         mm = float(gypsum_water_mm(rate / 1000.0, gypsum_fraction=fraction,
                                    solubility_g_l=sal.gypsum_solubility_g_l))
+        share = _sodic_share(farm, str(z["paddock"]), z.geometry)
         out.append({"paddock": str(z["paddock"]), "zone": str(z.get("zone", "")),
                     "product": str(z["product"]), "rate_kg_ha": rate,
-                    "gypsum_fraction": fraction, "water_mm": mm})
+                    "gypsum_fraction": fraction, "water_mm": mm,
+                    "leaching_esp_share": share, "leaching_caution": bool(share and share > 0)})
     return out
+
+
+def _sodic_share(farm: FarmResult, paddock: str, geometry: Any) -> float | None:
+    """The share of a zone's cells whose ESP (in any layer gypsum treats) is at or above the
+    gypsum rule's leaching limit: there the displaced sodium must be leached, so the soil
+    must drain. None when the zone has no cells with ESP."""
+    import shapely
+
+    pr = farm.paddocks.get(paddock)
+    if pr is None or geometry is None or geometry.is_empty:
+        return None
+    limit = farm.prep.project.settings.rates.for_paddock(paddock).gypsum.leaching_note_esp_percent
+    treated = {label for label, *_ in pr.gypsum_spans}
+    found = [pr.cells.get("esp")] + [cells.get("esp") for layer, cells in pr.layers
+                                     if layer.label in treated]
+    esps = [e for e in found if e is not None]
+    if not esps:
+        return None
+    x, y = pr.grid.cell_centres()
+    inside = shapely.contains_xy(geometry, x, y)
+    if not inside.any():
+        return None
+    most = np.fmax.reduce([e[pr.grid.mask] for e in esps])[inside]
+    known = np.isfinite(most)
+    return float((most[known] >= limit).mean()) if known.any() else None
 
 
 #: What the gypsum water figure means, for run.json and the report.
@@ -1353,6 +1380,10 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         methods=tuple(methods.items()),
         warnings=tuple(farm.warnings),
         cautions=(*report_mod.CAUTIONS, *gypsum_water_cautions(farm)),
+        zone_water={(r["paddock"], r["product"], r["zone"]): (r["water_mm"],
+                                                              r["leaching_esp_share"])
+                    for r in gypsum_water(farm)},
+        leaching_esp=s.rates.gypsum.leaching_note_esp_percent,
         notes=tuple(
             f"{name}: {n}" for name, pr in farm.paddocks.items()
             for n in (*pr.cell_notes, *pr.rates.notes, *pr.zone_notes)

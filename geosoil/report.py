@@ -361,6 +361,12 @@ class ReportInput:
         With lb/ac the amounts are shown in short tons (column ``short_tons``).
     currency
         Currency code shown in the cost headers ("" for none).
+    zone_water
+        ``(paddock, product, zone)`` -> (water in mm that only dissolves the zone's gypsum,
+        share of the zone's cells with ESP at or above ``leaching_esp``, or None): adds a
+        water column and a leaching caution to that product's zone table.
+    leaching_esp
+        ESP (%) from which gypsum needs leaching water and drainage to work.
     """
 
     title: str
@@ -385,6 +391,9 @@ class ReportInput:
     cautions: Sequence[str] = CAUTIONS
     rate_unit: str = "kg/ha"
     currency: str = ""
+    zone_water: Mapping[tuple[str, str, str], tuple[float, float | None]] = field(
+        default_factory=dict)
+    leaching_esp: float = 15.0
 
     def __post_init__(self) -> None:
         if self.rate_unit not in RATE_UNITS:
@@ -1016,6 +1025,7 @@ def _cell(text: str, *, swatch: str | None = None, cls: str = "") -> dict[str, A
 def _tonnage_table(
     df: pd.DataFrame, zones: gpd.GeoDataFrame, *, top: float, unit: str,
     kinds: Mapping[str, str] | None, currency: str = "",
+    water: Mapping[str, tuple[float, float | None]] | None = None, leaching_esp: float = 15.0,
 ) -> dict[str, Any]:
     """Headers and rows of one paddock's tonnage table for one product."""
     schedules: dict[Any, str] = {}
@@ -1035,6 +1045,8 @@ def _tonnage_table(
         headers.append(("applied as", False))
     headers += [(f"product ({_mass(unit)[1]})", True), ("truckloads", True),
                 (_cost_header(currency), True)]
+    if water:
+        headers += [("water to dissolve (mm)", True), ("leaching and drainage", False)]
     rows = []
     order = df.assign(_o=(df["level"] != "zone").astype(int)).sort_values("_o", kind="stable")
     for _, r in order.iterrows():
@@ -1060,8 +1072,22 @@ def _tonnage_table(
             cells.append(_cell(text or ("one pass" if spread else "")))
         cells += [_cell(_num(_mass_of(r, unit), 2), cls="num"),
                   _cell(_num(r["truckloads"], 0), cls="num"), _cell(_num(r["cost"], 2), cls="num")]
+        if water:
+            mm, share = water.get(str(r["zone"]), (None, None)) if is_zone else (None, None)
+            cells += [_cell("" if mm is None else _num(mm, 0), cls="num"),
+                      _cell(_leaching_text(share, leaching_esp))]
         rows.append({"cells": cells, "cls": "" if is_zone else "total"})
     return {"headers": headers, "rows": rows, "css": "tonnage"}
+
+
+def _leaching_text(share: float | None, limit: float) -> str:
+    """The leaching caution of one gypsum zone, from the share of it at or above ``limit``."""
+    if share is None:
+        return ""
+    if share <= 0:
+        return f"ESP below {_num(limit, 0)} %"
+    return (f"needed: ESP ≥ {_num(limit, 0)} % on {_num(100 * share, 0)} % of the zone; "
+            "the soil must drain")
 
 
 def _simple_table(headers: Sequence[tuple[str, bool]], rows: Sequence[Sequence[str]],
@@ -1204,9 +1230,18 @@ def build_report(data: ReportInput) -> str:
                 if any(exclusion_kind(lab, kinds) != "creek buffer" for lab in labels):
                     notes.append("Hatched grey: excluded from spreading.")
             tp = pt[pt["product"].astype(str) == product]
+            water = {z: v for (pad, prod, z), v in data.zone_water.items()
+                     if pad == paddock and prod == product}
             table = (_tonnage_table(tp, zp, top=top_rate.get(product, 0.0),
-                                    unit=data.rate_unit, kinds=kinds, currency=data.currency)
+                                    unit=data.rate_unit, kinds=kinds, currency=data.currency,
+                                    water=water, leaching_esp=data.leaching_esp)
                      if len(tp) else None)
+            if water:
+                notes.append(
+                    "Water: rain or irrigation that only dissolves the zone's gypsum (about "
+                    "2.5 g/L, common practice); leaching the displaced sodium needs more, and "
+                    f"where a zone has ESP at or above {_num(data.leaching_esp, 0)} % the soil "
+                    "must drain for gypsum to work: where it does not, drainage comes first.")
             blocks.append({"product": product, "svg": svg, "notes": " ".join(notes),
                            "table": table})
         paddocks.append({

@@ -615,9 +615,10 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
             more = "" if high.sum() <= 10 else f" and {int(high.sum()) - 10} more"
             warnings.warn(
                 f"EC 1:5 above {s.pretreatment_ec_1_5_ds_m:g} dS/m at samples {named}{more}: "
-                "ask whether the lab washed out soluble salts before measuring exchangeable "
-                "cations; if not, their exchangeable Na and ESP are overstated (geosoil cannot "
-                "correct them)",
+                "the lab should have washed out soluble salts before measuring exchangeable "
+                "cations; ask whether it did: if not, their exchangeable Na and ESP, and the "
+                "gypsum for them, are overstated (geosoil does not correct them: that needs "
+                "the soluble Na of the same soil; ask for the pretreated method)",
                 DataWarning, stacklevel=2,
             )
     if has_ec15 or has_ece:

@@ -255,3 +255,75 @@ def test_one_depth_stands_for_the_whole_treated_depth(two_depths: dict, tmp_path
     result = CliRunner().invoke(cli, ["explain", str(project), "--at", "145.0010,-35.9990"])
     assert result.exit_code == 0, result.output
     assert "samples layer (30 cm of soil)" in result.output
+
+
+def test_the_pretreatment_warning_reaches_check_summary_run_json_and_report(
+        two_depths: dict) -> None:
+    # North's EC 1:5 of 1.0 and 1.2 dS/m is above 0.3 dS/m, where the lab should have washed
+    # out soluble salts before measuring exchangeable cations (docs/SOURCES.md, from memory)
+    said = "should have washed out soluble salts"
+    record = two_depths["record"]
+    assert any(said in w and "N1 (0-10 cm)" in w and "N1 (10-30 cm)" in w
+               for w in record["warnings"])
+    assert said in (two_depths["out"] / "report.html").read_text()
+    checked = CliRunner().invoke(cli, ["check", str(two_depths["project"])])
+    assert checked.exit_code == 0 and said in checked.output
+    ran = CliRunner().invoke(cli, ["run", str(two_depths["project"]), "--out",
+                                   str(two_depths["base"] / "out_summary")])
+    assert ran.exit_code == 0 and said in ran.output
+
+
+@pytest.mark.browser
+def test_browser_class_layers_show_with_their_legend(two_depths: dict) -> None:
+    """The salinity and dispersion classes of each layer, each switched on alone, show their
+    class names in the legend (the map opened offline in headless Chromium)."""
+    from tests.browser import Chromium, artifact_path, require_chromium
+
+    names = {"salinity_class": ["normal", "saline", "sodic", "saline-sodic"],
+             "dispersion_class": ["flocculated", "potentially dispersive", "dispersive"]}
+    with Chromium(require_chromium()) as browser:
+        page = browser.new_page(width=1280, height=900)
+        try:
+            page.goto(two_depths["out"] / "map.html")
+            browser.drain(0.2)
+            for key in ("salinity_class", "dispersion_class", "salinity_class_10-30cm",
+                        "esp_10-30cm"):
+                got = page.evaluate(
+                    f"""(async (id) => {{
+                      const api = window.geosoilMap;
+                      api.show({{surface: id, product: null}});
+                      await api.surfaces[id].getElement().decode();
+                      const entries = document.querySelectorAll('#gs-legend .gs-legend-entry');
+                      return {{n: entries.length, surface: entries[0].dataset.surface,
+                              text: entries[0].textContent,
+                              labels: Array.from(entries[0].querySelectorAll('li')).map(
+                                li => li.textContent.trim())}};
+                    }})({json.dumps(key)})""")
+                assert got["n"] == 1 and got["surface"] == key
+                base = key.replace("_10-30cm", "")
+                if base in names:
+                    assert [lab for lab in got["labels"] if lab] [::-1] == names[base] or \
+                        sorted(lab for lab in got["labels"] if lab) == sorted(names[base]), got
+                if key.endswith("_10-30cm"):
+                    assert "10-30 cm" in got["text"]
+            page.screenshot(artifact_path("depths-subsoil-esp.png"))
+            assert page.console_errors == []
+        finally:
+            page.close()
+
+
+def test_gypsum_water_per_zone_with_the_leaching_caution(two_depths: dict) -> None:
+    # pure gypsum dissolves to about 2.5 g/L (common practice): 1 t/ha = 100 g/m2 needs
+    # 40 L/m2 = 40 mm [derived]; each paddock is one gypsum zone here
+    rows = {r["paddock"]: r for r in two_depths["record"]["salinity"]["gypsum_water"]}
+    north = hand_gypsum(4.0, 17.0, 0.10, 1.3) + hand_gypsum(5.5, 17.0, 0.20, 1.5)
+    south = hand_gypsum(3.0, 13.5, 0.20, 1.5)
+    assert rows["North"]["water_mm"] == pytest.approx(north / 1000 * 40, rel=1e-3)
+    assert rows["South"]["water_mm"] == pytest.approx(south / 1000 * 40, rel=1e-3)
+    # South's topsoil is not sodic but the subsoil gypsum treats is (ESP 22 >= 15): the
+    # sodium must be leached there too, so the caution stands
+    assert rows["South"]["leaching_esp_share"] == 1.0 and rows["South"]["leaching_caution"]
+    report = (two_depths["out"] / "report.html").read_text()
+    assert "water to dissolve (mm)" in report
+    assert f">{south / 1000 * 40:.0f}<" in report
+    assert "needed: ESP ≥ 15 % on 100 % of the zone; the soil must drain" in report
