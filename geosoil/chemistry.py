@@ -52,6 +52,7 @@ __all__ = [
     "ChemistrySettings",
     "DERIVED",
     "ecec_from_parts",
+    "cec_ph7_from_parts",
     "exchange_chemistry",
     "ACIDITY_BASES",
     "ECEC_BASES",
@@ -351,7 +352,33 @@ ACIDITY_BASES: tuple[str, ...] = (
     "0 (neutral pH, not measured)", "none",
 )
 #: ``ecec_basis``: what each ECEC is (index = code).
-ECEC_BASES: tuple[str, ...] = ("sum of cations", "lab CEC", "none")
+ECEC_BASES: tuple[str, ...] = ("sum of cations", "lab CEC", "none", "CEC at pH 7")
+
+#: The usual definition of the CEC at pH 7 from a potential-acidity report ([from memory]
+#: Raij, Cantarella, Quaggio & Furlani 1996, IAC Boletim Tecnico 100: T = SB + (H + Al)).
+CEC_PH7_SOURCE = ("[from memory] T = Ca + Mg + K + Na + (H + Al at pH 7), the sum the base "
+                  "saturation method uses (Raij et al. 1996, IAC Boletim Tecnico 100)")
+
+
+def cec_ph7_from_parts(
+    ca: ArrayLike, mg: ArrayLike, k: ArrayLike, na: ArrayLike, acidity_potential: ArrayLike
+) -> NDArray[np.float64]:
+    """CEC at pH 7 by summation: the bases plus the potential acidity (H + Al at pH 7).
+
+    Na counts where measured (0 where not: labs that report potential acidity often leave
+    it out). Missing where Ca, Mg, K or the potential acidity is.
+
+    Examples
+    --------
+    A worked example (hand arithmetic): Ca 2.0, Mg 0.8, K 0.2, H + Al 3.0 make T = 6.0.
+
+    >>> float(cec_ph7_from_parts([2.0], [0.8], [0.2], [np.nan], [3.0])[0])
+    6.0
+    """
+    na_or_0 = np.where(np.isfinite(np.asarray(na, dtype=float)), na, 0.0)
+    return np.asarray(
+        np.asarray(ca, dtype=float) + np.asarray(mg, dtype=float) + np.asarray(k, dtype=float)
+        + na_or_0 + np.asarray(acidity_potential, dtype=float), dtype=float)
 
 
 def exchange_chemistry(
@@ -372,7 +399,9 @@ def exchange_chemistry(
     ECEC
         Ca + Mg + K + Na + acidity where all are given and the sum is above 0
         ("sum of cations"); else the lab's CEC where above 0 ("lab CEC"); else
-        missing ("none").
+        the CEC at pH 7 (given, or Ca + Mg + K + Na + potential acidity:
+        :func:`cec_ph7_from_parts`) where above 0 ("CEC at pH 7": above the ECEC
+        on acid soils, so shares read low there); else missing ("none").
     Saturations
         Each part as percent of the ECEC; missing where the ECEC is (an ECEC of
         0 is no ECEC). Not clipped: with the lab's CEC as the ECEC the shares
@@ -385,8 +414,9 @@ def exchange_chemistry(
     Parameters
     ----------
     parts
-        Any of ``ca``, ``mg``, ``k``, ``na``, ``acidity``, ``al``, ``h``, ``cec``
-        (cmol(+)/kg), ``ph``, ``ph_cacl2``, ``sar``, ``esp`` (%): arrays of one
+        Any of ``ca``, ``mg``, ``k``, ``na``, ``acidity``, ``al``, ``h``, ``cec``,
+        ``cec_ph7``, ``acidity_potential`` (cmol(+)/kg), ``ph``, ``ph_cacl2``,
+        ``sar``, ``esp`` (%): arrays of one
         shape, NaN where not measured; absent or None keys count as not measured.
     settings
         ``neutral_ph`` and ``neutral_ph_cacl2``; defaults when None.
@@ -436,12 +466,16 @@ def exchange_chemistry(
     summed = ecec_from_parts(ca, mg, k, na, used)
     use_sum = np.isfinite(summed) & (summed > 0)
     use_lab = ~use_sum & np.isfinite(lab_cec) & (lab_cec > 0)
-    ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.nan))
+    given_t = get("cec_ph7")
+    t7 = np.where(np.isfinite(given_t), given_t,
+                  cec_ph7_from_parts(ca, mg, k, na, get("acidity_potential")))
+    use_t7 = ~use_sum & ~use_lab & np.isfinite(t7) & (t7 > 0)
+    ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.where(use_t7, t7, np.nan)))
     out: dict[str, NDArray[Any]] = {
         "acidity": used,
         "acidity_basis": basis,
         "ecec": ecec,
-        "ecec_basis": np.select([use_sum, use_lab], [0, 1], 2).astype(np.int8),
+        "ecec_basis": np.select([use_sum, use_lab, use_t7], [0, 1, 3], 2).astype(np.int8),
     }
     for name, part in (("ca", ca), ("mg", mg), ("k", k), ("na", na)):
         out[f"{name}_sat"] = saturation(part, ecec)
@@ -536,8 +570,8 @@ def derive(
     sar = _column(samples, "sar")
     lab_cec = _column(samples, "cec")
     chem = exchange_chemistry(
-        {a: _column(samples, a) for a in (*_BASES, "acidity", "al", "h", "cec", "ph",
-                                          "ph_cacl2", "sar")}, s)
+        {a: _column(samples, a) for a in (*_BASES, "acidity", "al", "h", "cec", "cec_ph7",
+                                          "acidity_potential", "ph", "ph_cacl2", "sar")}, s)
     acidity_used = chem["acidity"]
     bad = chem["ecec_basis"] == ECEC_BASES.index("none")
     no_cations = not any(np.isfinite(v).any() for v in (ca, mg, k, na, lab_cec))
@@ -558,6 +592,16 @@ def derive(
             on_bad_row=on_bad_row,
         )
 
+    on_t7 = chem["ecec_basis"] == ECEC_BASES.index("CEC at pH 7")
+    if on_t7.any():
+        warnings.warn(
+            f"{file or 'samples'}: {int(on_t7.sum())} sample(s) have no exchangeable acidity "
+            "(Al + H in KCl) and no lab CEC: their ECEC is taken as the CEC at pH 7 (given, or "
+            "Ca + Mg + K + Na + potential acidity), which is above the ECEC on acid soils, so "
+            "their saturations and ESP read low; give exchangeable acidity for an ECEC",
+            DataWarning,
+            stacklevel=2,
+        )
     sar15 = _column(samples, "sar_1to5")
     unused = np.isfinite(sar15) & ~np.isfinite(na) & ~np.isfinite(sar)
     if unused.any():
@@ -639,7 +683,7 @@ def _report_ecec_gaps(
             problem = f"the ECEC needs exchangeable {names}, which this sample lacks"
             if "acidity" in missing:
                 problem += f" (acidity counts as 0 only at pH {neutral_ph} or above)"
-            problem += ", and there is no lab CEC to use instead"
+            problem += ", and there is no lab CEC (or potential acidity) to use instead"
         else:
             problem = "the ECEC is 0 and there is no lab CEC to use instead"
         if ids is not None:

@@ -179,6 +179,10 @@ ID_SPELLINGS: tuple[str, ...] = (
     "lab id",
     "lab no",
     "lab number",
+    "amostra",  # Portuguese and Spanish: sample, point
+    "muestra",
+    "ponto",
+    "punto",
 )
 
 _LON = ("lon", "long", "longitude", "lng", "decimal longitude")

@@ -377,7 +377,10 @@ def _chemistry_lines(e: Explanation) -> list[str]:
         terms = " + ".join(f"{_LABEL[k]} {v:.4g}" for k, v in e.ecec_parts.items())
         out.append(f"   ECEC = {terms} = {e.cell['ecec']:.4g}")
     elif "ecec" in e.cell and math.isfinite(e.cell["ecec"]):
-        out.append(f"   ECEC = {e.cell['ecec']:.4g} (the lab's CEC: the exchangeable parts are "
+        lab = "cec" in e.cell and math.isfinite(e.cell["cec"])
+        what = ("the lab's CEC" if lab else
+                "the CEC at pH 7, bases + potential acidity: above the ECEC on acid soils")
+        out.append(f"   ECEC = {e.cell['ecec']:.4g} ({what}; the exchangeable parts are "
                    "incomplete here)")
     for k, part in (("esp", "na"), ("ca_sat", "ca"), ("mg_sat", "mg"), ("k_sat", "k"),
                     ("acid_sat", "acidity"), ("al_sat", "al")):

@@ -109,7 +109,8 @@ SURFACE_UNITS: dict[str, str] = {
     "ph": "pH units", "ph_cacl2": "pH units", "esp": "% of ECEC", "ca_sat": "% of ECEC",
     "mg_sat": "% of ECEC",
     "k_sat": "% of ECEC", "na_sat": "% of ECEC", "acid_sat": "% of ECEC", "al_sat": "% of ECEC",
-    "cec_ph7": "cmol(+)/kg", "bph_smp": "pH units", "bph_sikora": "pH units",
+    "cec_ph7": "cmol(+)/kg", "acidity_potential": "cmol(+)/kg", "bph_smp": "pH units",
+    "bph_sikora": "pH units",
     "bph_mehlich": "pH units", "bph_adams_evans": "pH units", "oc": "%", "om": "%", "clay": "%",
     "phbc": "cmol(+)/kg per pH unit", "ec_1_5": "dS/m", "ece": "dS/m",
     "salinity_class": "class code: 0 normal, 1 saline, 2 sodic, 3 saline-sodic",
@@ -150,7 +151,8 @@ TITLES: dict[str, str] = {
     "esp": "ESP (exchangeable sodium)",
     "ca_sat": "Ca saturation", "mg_sat": "Mg saturation", "k_sat": "K saturation",
     "na_sat": "Na saturation", "acid_sat": "Acid saturation", "al_sat": "Al saturation",
-    "cec_ph7": "CEC at pH 7", "bph_smp": "SMP buffer pH", "bph_sikora": "Sikora buffer pH",
+    "cec_ph7": "CEC at pH 7", "acidity_potential": "Potential acidity (H + Al at pH 7)",
+    "bph_smp": "SMP buffer pH", "bph_sikora": "Sikora buffer pH",
     "bph_mehlich": "Mehlich buffer pH", "bph_adams_evans": "Adams-Evans buffer pH",
     "oc": "Organic carbon", "om": "Organic matter", "clay": "Clay", "phbc": "pH buffering capacity",
     "ec_1_5": "EC 1:5", "ece": "ECe (saturation extract EC)",
@@ -846,7 +848,7 @@ MAP_SURFACES: tuple[tuple[str, str], ...] = (
     ("oc", "amount"), ("om", "amount"), ("clay", "amount"), ("phbc", "amount"),
     ("ece", "ec"), ("ec_1_5", "ec"),
     ("salinity_class", "salinity_class"), ("dispersion_class", "dispersion_class"),
-    ("cec_ph7", "amount"),
+    ("cec_ph7", "amount"), ("acidity_potential", "amount"),
 )
 
 #: The surfaces each deeper layer adds to the map (subsoil sodicity first).

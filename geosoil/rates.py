@@ -82,6 +82,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from .chemistry import CEC_PH7_SOURCE, cec_ph7_from_parts
 from .errors import InputError, RateWarning, SettingsError
 from .liming import (
     CROP_TARGETS,
@@ -153,8 +154,8 @@ ENABLED_CHOICES: tuple[str, ...] = ("auto", "on", "off")
 #: ECEC in cmol(+)/kg; ``esp`` and saturations in percent of ECEC; ``ph`` as the lab reports it.
 INPUT_NAMES: tuple[str, ...] = (
     "ca", "mg", "k", "na", "al", "h", "acidity", "ecec", "esp", "ca_sat", "mg_sat", "k_sat", "ph",
-    "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
-    "phbc",
+    "cec_ph7", "acidity_potential", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans",
+    "oc", "om", "clay", "phbc",
 )
 
 #: Lime methods that neutralise exchangeable Al (to about pH 5.5), not to a target pH.
@@ -207,7 +208,7 @@ _SOURCES: dict[str, tuple[tuple[str, ...], ...]] = {
     "ecec": (("ecec",),),
     "al": (("al",),),
     "ph": (("ph",),),
-    "cec_ph7": (("cec_ph7",),),
+    "cec_ph7": (("cec_ph7",), ("acidity_potential", "ca", "mg", "k")),
     "bph_smp": (("bph_smp",),),
     "bph_sikora": (("bph_sikora",),),
     "bph_mehlich": (("bph_mehlich",),),
@@ -226,7 +227,7 @@ _DESCRIBE = {
     "ecec": "ECEC (ecec)",
     "al": "exchangeable Al (al)",
     "ph": "pH (ph)",
-    "cec_ph7": "CEC at pH 7 (cec_ph7)",
+    "cec_ph7": "CEC at pH 7 (cec_ph7, or acidity_potential with ca, mg, k)",
     "bph_smp": "SMP buffer pH (bph_smp)",
     "bph_sikora": "Sikora buffer pH (bph_sikora)",
     "bph_mehlich": "Mehlich buffer pH (bph_mehlich)",
@@ -1119,6 +1120,16 @@ class _Cells:
             self.trace.add("inputs", "ESP from exchangeable Na and ECEC", "ESP = 100 x Na / ECEC",
                            {"Na": (na, "cmol(+)/kg"), "ECEC": (ecec, "cmol(+)/kg")}, v, "%",
                            _DERIVED)
+        elif name == "cec_ph7":
+            ca, mg, k, hal = (np.maximum(self.arrays[a], 0.0) for a in
+                              ("ca", "mg", "k", "acidity_potential"))
+            na = (np.maximum(self.arrays["na"], 0.0) if "na" in self.arrays
+                  else np.full_like(hal, np.nan))
+            v = cec_ph7_from_parts(ca, mg, k, na, hal)
+            self.trace.add("inputs", "CEC at pH 7 from the bases and the potential acidity",
+                           "T = Ca + Mg + K + Na + (H + Al)",
+                           {"Ca + Mg + K + Na": (v - hal, "cmol(+)/kg"),
+                            "H + Al": (hal, "cmol(+)/kg")}, v, "cmol(+)/kg", CEC_PH7_SOURCE)
         elif name == "oc":
             om = np.maximum(self.arrays["om"], 0.0)
             v = om / self.om_factor

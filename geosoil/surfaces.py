@@ -88,8 +88,8 @@ logger = logging.getLogger(__name__)
 #: Variables geosoil interpolates when the samples carry them, in this order.
 INTERPOLATED: tuple[str, ...] = (
     "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "ph_cacl2", "esp",
-    "cec_ph7", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans", "oc", "om", "clay",
-    "phbc", "ec_1_5", "ece",
+    "cec_ph7", "acidity_potential", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans",
+    "oc", "om", "clay", "phbc", "ec_1_5", "ece",
 )
 
 _MODELS = ("spherical", "exponential", "gaussian", "matern")
@@ -106,7 +106,8 @@ AUTO_NEIGHBOURS = 64
 
 #: Interpolated variables that are exchangeable amounts (never below zero).
 _AMOUNTS = (
-    "ca", "mg", "k", "na", "acidity", "al", "cec", "cec_ph7", "oc", "om", "clay", "phbc",
+    "ca", "mg", "k", "na", "acidity", "al", "cec", "cec_ph7", "acidity_potential", "oc", "om",
+    "clay", "phbc",
 )
 
 
@@ -741,8 +742,8 @@ def derive_cells(
     if not cells:
         return cells, notes
     chem = exchange_chemistry(
-        {k: cells.get(k) for k in ("ca", "mg", "k", "na", "acidity", "al", "h", "cec", "ph",
-                                   "ph_cacl2", "esp")},
+        {k: cells.get(k) for k in ("ca", "mg", "k", "na", "acidity", "al", "h", "cec",
+                                   "cec_ph7", "acidity_potential", "ph", "ph_cacl2", "esp")},
         settings,
     )
     inside = np.zeros(np.shape(next(iter(cells.values()))), dtype=bool)
@@ -753,6 +754,10 @@ def derive_cells(
     if n_lab:
         notes.append(f"ECEC taken from the lab's CEC on {n_lab} cell(s) (its parts are "
                      "incomplete there)")
+    n_t7 = int(np.count_nonzero((basis == ECEC_BASES.index("CEC at pH 7")) & inside))
+    if n_t7:
+        notes.append(f"ECEC taken as the CEC at pH 7 on {n_t7} cell(s) (no exchangeable "
+                     "acidity: above the ECEC on acid soils, so shares read low there)")
     for how in ("Al + H", "Al (H not measured)", "H (Al not measured)",
                 "0 (neutral pH, not measured)"):
         n = int(np.count_nonzero((chem["acidity_basis"] == ACIDITY_BASES.index(how)) & inside))

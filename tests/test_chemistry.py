@@ -263,3 +263,21 @@ def test_sar_of_a_1to5_extract_is_not_put_into_the_handbook_60_relation():
     # the same number as saturation-extract SAR gives Handbook 60's 11.887 (REFERENCES [derived])
     out = derive(soil.rename(columns={"sar_1to5": "sar"}))
     assert out.esp.iloc[0] == pytest.approx(11.887, abs=1e-3)
+
+
+def test_cec_at_ph7_from_potential_acidity_stands_in_for_a_missing_ecec() -> None:
+    # hand arithmetic: T = Ca + Mg + K + Na + (H + Al) = 2.0 + 0.8 + 0.2 + 0.5 + 3.0 = 6.5
+    # (the sum the base saturation method uses; Raij et al. 1996 [from memory])
+    from geosoil.chemistry import ECEC_BASES, exchange_chemistry
+
+    out = exchange_chemistry({"ca": [2.0, 2.0, 2.0], "mg": [0.8, 0.8, 0.8],
+                              "k": [0.2, 0.2, 0.2], "na": [0.5, 0.5, 0.5],
+                              "acidity_potential": [3.0, 3.0, 3.0],
+                              "acidity": [np.nan, 0.4, np.nan], "cec": [np.nan, np.nan, 9.0]})
+    assert [ECEC_BASES[b] for b in out["ecec_basis"]] == [
+        "CEC at pH 7", "sum of cations", "lab CEC"]  # the ECEC proper, then the lab's CEC first
+    np.testing.assert_allclose(out["ecec"], [6.5, 3.9, 9.0])
+    assert out["esp"][0] == pytest.approx(100 * 0.5 / 6.5)
+    given = exchange_chemistry({"ca": [2.0], "mg": [0.8], "k": [0.2], "na": [0.5],
+                                "acidity_potential": [3.0], "cec_ph7": [7.0]})
+    assert given["ecec"][0] == 7.0  # a measured CEC at pH 7 wins over the sum

@@ -120,6 +120,48 @@ def test_ph_only_file_flags_lime_requirement_needs_a_test(tmp_path: Path) -> Non
     assert "lime requirement needs a test" in report
 
 
+def test_potential_acidity_report_runs_base_saturation_as_hand_arithmetic(
+    tmp_path: Path,
+) -> None:
+    # a lab that reports bases and potential acidity (H + Al at pH 7, buffer/acetate), as many
+    # Latin American labs do: T = bases + (H + Al) and V% are the base saturation method's
+    # inputs (Raij et al. 1996, IAC Boletim Tecnico 100 [from memory for the sum]); invented
+    # flat values, hand arithmetic below
+    folder = tmp_path / "in"
+    folder.mkdir()
+    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
+                     crs=UTM).to_file(folder / "paddocks.gpkg")
+    rng = np.random.default_rng(2)
+    x, y = X0 + rng.uniform(20, 380, 16), Y0 + rng.uniform(20, 280, 16)
+    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
+    head = ("Amostra,Longitude,Latitude,pH (CaCl2),Ca (cmolc/dm3),Mg (cmolc/dm3),"
+            "K (cmolc/dm3),H+Al (pH 7) (cmolc/dm3)")
+    rows = "".join(f"A{i + 1:02d},{lon[i]:.7f},{lat[i]:.7f},4.6,2.0,0.8,0.2,3.0\n"
+                   for i in range(16))
+    (folder / "lab.csv").write_text(head + "\n" + rows)
+
+    def edit(d: dict) -> None:
+        _buy_lime_90(d)
+        _cache(d, tmp_path)
+
+    data, new, check, run, out = _new_check_run(tmp_path, folder / "lab.csv",
+                                                folder / "paddocks.gpkg", edit=edit)
+    assert "lime method 'base_saturation' chosen" in new.output
+    assert "CEC at pH 7" in run.output  # the ECEC stands on T here: said as a warning
+    lime, soil = data["rates"]["lime"], data["soil"]
+    scoop = data["samples"]["scoop_density_g_cm3"]
+    t = (2.0 + 0.8 + 0.2 + 3.0) * scoop  # cmolc/dm3: T = SB + (H + Al) = 6.0
+    v1 = 100 * (2.0 + 0.8 + 0.2) / 6.0  # 50 %
+    v2 = lime["target_base_saturation_percent"]
+    nc = t * (v2 - v1) / 100  # t CaCO3/ha for 0-20 cm (Raij et al. 1996)
+    # the calibration's 0.20 m by volume, scaled to the treated depth ([derived])
+    rate = nc * 1000 * soil["depth_m"] / 0.20 / (data["products"]["lime"]["purity_percent"] / 100)
+    table = pd.read_csv(out / "tonnage.csv")
+    farm = table[(table["level"] == "farm") & (table["product"] == "lime")].iloc[0]
+    assert farm["rate_kg_ha"] == pytest.approx(rate, abs=1.0)
+    assert farm["tonnes"] == pytest.approx(rate * 12.0 / 1000, abs=0.005)  # 400 m x 300 m
+
+
 # --------------------------------------------------------------------------- a real field
 
 

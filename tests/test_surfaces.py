@@ -614,6 +614,8 @@ _SHAPES = {
     "CEC, acidity missing": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6, "cec": 7.0, "ph": 5.6},
     "neutral pH, no acidity": {"ca": 9.0, "mg": 3.0, "k": 0.6, "na": 1.4, "ph": 7.6},
     "neutral pH in CaCl2": {"ca": 9.0, "mg": 3.0, "k": 0.6, "na": 1.4, "ph_cacl2": 6.8},
+    "potential acidity (H + Al at pH 7)": {"ca": 4.0, "mg": 1.5, "k": 0.3, "na": 0.6,
+                                          "acidity_potential": 3.0, "ph": 5.0},
 }
 _CHEMISTRY = ("acidity", "ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "acid_sat",
               "al_sat")
