@@ -198,6 +198,14 @@ METHOD_CITATIONS: dict[str, str] = {
 _DERIVED = "[derived] from the definitions and standard atomic weights"
 _GUARD_SOURCE = "[common practice] no lime on alkaline soil (pH above about 7)"
 
+#: The warning where the pH guard cannot run (the same words in check and run).
+PH_GUARD_NOT_APPLIED = (
+    "pH guard not applied: no pH in water or CaCl2 (pH in KCl is mapped, but no threshold is "
+    "set for it and no conversion is applied), so nothing withholds liming products on "
+    "alkaline cells (common practice: no lime above pH about 7 in water); give pH in water "
+    "or CaCl2, or check those cells yourself"
+)
+
 # How each quantity can be had: the inputs of each alternative, first preferred.
 _SOURCES: dict[str, tuple[tuple[str, ...], ...]] = {
     "esp": (("esp",), ("na", "ecec")),
@@ -1013,6 +1021,9 @@ def check_inputs(
             note += (f"; acid cells are flagged 'lime requirement needs a test': ask the lab for "
                      f"{_ask_for(settings, avail, ph_method or 'water')}")
         notes.append(note)
+    if settings.ph_guard and _source_of("ph", avail) is None and any(
+            rule != "gypsum" for rule in runs):
+        notes.append(PH_GUARD_NOT_APPLIED)  # a rule that may spread lime runs unguarded
     return notes
 
 
@@ -1385,10 +1396,8 @@ def _ph_guard(
         return rate, np.zeros(np.shape(rate), dtype=bool)
     method = _ph_method(cells)
     if method is None:
-        st.notes.append(
-            f"pH guard not applied to the {rule} rule's {product.name}: no pH in water or CaCl2 "
-            "(common practice is no lime above pH about 7 in water)"
-        )
+        if PH_GUARD_NOT_APPLIED not in st.notes:
+            st.notes.append(PH_GUARD_NOT_APPLIED)
         trace.note(rule, "pH guard not applied: no pH in water or CaCl2 given")
         return rate, np.zeros(np.shape(rate), dtype=bool)
     ph = cells.get("ph")
@@ -2019,7 +2028,8 @@ def compute_rates(
             stacklevel=2,
         )
     for note in result.notes:
-        if note.startswith("pHBC regression"):
+        # a safety rule that could not run is a warning, not a note
+        if note.startswith("pHBC regression") or note == PH_GUARD_NOT_APPLIED:
             warnings.warn(note, RateWarning, stacklevel=2)
     if result.needs_test_cells:
         warnings.warn(

@@ -320,6 +320,21 @@ def test_ph_guard_withholds_lime_above_7() -> None:
     assert any("pH guard" in n and "common practice" in n for n in r.notes)
 
 
+def test_a_ph_guard_that_cannot_run_is_the_same_warning_in_check_and_run() -> None:
+    # pH in KCl only (Al-based lime still runs): the guard has no threshold to compare with,
+    # and that is said in check and in the run, in the same words (one warning list)
+    s = only(lime=LimeRule())
+    said = check_inputs(s, {"al", "ph_kcl"})
+    guard = [n for n in said if n.startswith("pH guard not applied")]
+    assert len(guard) == 1 and "pH in KCl" in guard[0]
+    with pytest.warns(RateWarning) as record:
+        r = compute_rates({"al": np.array([1.0, 1.0])}, s, PRODUCTS, depth_m=0.1,
+                          bulk_density_g_cm3=1.3)
+    assert [str(w.message) for w in record if str(w.message) == guard[0]] == guard
+    assert (r.product_rates["lime"] > 0).all()  # the rate itself is still given
+    assert not [n for n in check_inputs(s, {"al", "ph"}) if n.startswith("pH guard")]
+
+
 def test_ph_guard_can_be_switched_off() -> None:
     s = RateSettings(gypsum=GypsumRule(enabled=OFF), calcium=CalciumRule(enabled=OFF),
                      ph_guard=False)
