@@ -452,23 +452,40 @@ def _body(
     unnamed = [i for i, c in enumerate(cells) if (_missing(c) or not str(c).strip())]
     keep_columns = [i for i in range(len(names)) if i not in unnamed or filled[i].any()]
     names = [names[i] for i in keep_columns]
-    _check_unique(names, keep_columns, file=file, header_row=first + 1, excel=excel)
     keep_rows = filled.any(axis=1).to_numpy()
     body = body.loc[keep_rows, keep_columns]
+    positions = np.flatnonzero(keep_rows) + first + 1
+    unit_texts = _units_row_texts(body)
+    if unit_texts is not None:
+        # a header the lab wrote twice ("pH", "pH") told apart by the units row under it
+        # ("1:5 water", "1:5 CaCl2") reads as one header: "pH (1:5 water)"
+        twice = {n for n in names if names.count(n) > 1}
+        names = [f"{n} ({t})" if n in twice and t else n
+                 for n, t in zip(names, unit_texts, strict=True)]
+    _check_unique(names, keep_columns, file=file, header_row=first + 1, excel=excel)
     body.columns = names
     body = body.reset_index(drop=True)
-    positions = np.flatnonzero(keep_rows) + first + 1
     unit_cells: dict[str, str] = {}
     units_row = None
-    if len(body):
-        texts = {n: _header_text(v) for n, v in zip(names, body.iloc[0].tolist(), strict=True)}
-        given = [t for t in texts.values() if t]
-        found = {n: u for n, t in texts.items() if t and (u := _unit_cell(t)) is not None}
-        if (given and not any(_is_number(t) for t in given)
-                and any("%" not in u for u in found.values())):
-            unit_cells, units_row = found, int(positions[0])
-            body, positions = body.iloc[1:].reset_index(drop=True), positions[1:]
+    if unit_texts is not None:
+        unit_cells = {n: u for n, t in zip(names, unit_texts, strict=True)
+                      if t and (u := _unit_cell(t)) is not None}
+        units_row = int(positions[0])
+        body, positions = body.iloc[1:].reset_index(drop=True), positions[1:]
     return body, positions, unit_cells, units_row
+
+
+def _units_row_texts(body: pd.DataFrame) -> list[str] | None:
+    """The cells of the units row heading ``body`` (no numbers, at least one cation unit),
+    or None when its first row is data."""
+    if not len(body):
+        return None
+    texts = [_header_text(v) for v in body.iloc[0].tolist()]
+    given = [t for t in texts if t]
+    found = [u for t in given if (u := _unit_cell(t)) is not None]
+    if given and not any(_is_number(t) for t in given) and any("%" not in u for u in found):
+        return texts
+    return None
 
 
 def _check_unique(

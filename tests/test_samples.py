@@ -308,6 +308,27 @@ def test_units_row_percent_marks_a_saturation_not_an_amount(tmp_path):
     assert got.samples["Ca sat"].tolist() == [60.0]  # kept as the lab's own column
 
 
+def test_a_header_written_twice_is_told_apart_by_the_units_row(tmp_path):
+    # labs write "pH" twice with the method in the units row (invented values)
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx", titles=[["Soil analysis report"]],
+        header=["Sample", "Lon", "Lat", "pH", "pH", "Ca", "Mg", "K", "Na"],
+        units=[None, None, None, "1:5 water", "1:5 CaCl2", "meq/100g", "meq/100g", "meq/100g",
+               "meq/100g"],
+        rows=[["S1", 147.001, -35.001, 6.1, 5.4, 5.5, 2, 0.5, 0.3]],
+    )
+    got = read(path)
+    assert got.columns["ph"] == "pH (1:5 water)" and got.columns["ph_cacl2"] == "pH (1:5 CaCl2)"
+    assert got.samples.ph.tolist() == [6.1] and got.samples.ph_cacl2.tolist() == [5.4]
+    # without a units row to tell them apart, the twice-written header is refused by name
+    twice = _lab_workbook(
+        tmp_path / "twice.xlsx", titles=[], units=None,
+        header=["Sample", "Lon", "Lat", "pH", "pH", "Ca", "Mg", "K", "Na"],
+        rows=[["S1", 147.001, -35.001, 6.1, 5.4, 5.5, 2, 0.5, 0.3]],
+    )
+    assert "appears twice" in str(error_of(twice))
+
+
 def test_csv_title_lines_units_row_semicolons_decimal_commas_and_bom(tmp_path):
     text = "\ufeff" + "\n".join([
         "Soil analysis report, batch 114",  # a comma in a title of a ';' file
