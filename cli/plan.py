@@ -13,31 +13,50 @@ __all__ = ["plan"]
 
 @click.command()
 @project_argument
-@click.option("--points", "n_points", required=True, type=click.IntRange(min=1),
-              help="New sample locations per paddock.")
+@click.option("--points", "n_points", default=None, type=click.IntRange(min=1),
+              help="New sample locations per paddock (or give --budget and --cost-per-sample).")
+@click.option("--budget", default=None, type=click.FloatRange(min=0.0, min_open=True),
+              help="What the new samples may cost in all: floor(budget / cost per sample) "
+                   "samples, split across the paddocks in proportion to their area "
+                   "(largest remainder).")
+@click.option("--cost-per-sample", "cost_per_sample", default=None,
+              type=click.FloatRange(min=0.0, min_open=True),
+              help="What one sample costs (taking it and the lab), in the budget's currency.")
 @out_option
 @click.option("--min-distance", "min_distance", type=click.FloatRange(min=0.0), default=None,
               help="Least distance (m) between new points and from existing samples "
                    "[default: half the spacing of a square grid of all samples].")
-@click.option("--weight", "weighting", type=click.Choice(["rate", "uniform"]), default="rate",
-              show_default=True,
-              help="Where lower variance matters most: by the prescribed rate, or alike.")
+@click.option("--weight", "weighting", type=click.Choice(["rate", "limit", "uniform"]),
+              default="rate", show_default=True,
+              help="Where lower variance matters most: by the prescribed rate, by nearness to "
+                   "the class limit (sodic limit for na/esp, acid limit for ph/ph_cacl2), "
+                   "or alike.")
 @click.option("--variable", default=None,
-              help="Whose variogram to use (na, esp, ph, acidity, ca, mg, k) "
+              help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k) "
                    "[default: the first of them kriged in the paddock].")
 @overwrite_option
 @click.pass_context
 @handle_errors
-def plan(ctx: click.Context, project: Path, n_points: int, out: Path, min_distance: float | None,
+def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float | None,
+         cost_per_sample: float | None, out: Path, min_distance: float | None,
          weighting: str, variable: str | None, overwrite: bool) -> None:
     """Propose new sample locations for PROJECT that most lower the kriging variance."""
+    if (n_points is None) == (budget is None):
+        raise click.UsageError("give --points, or --budget with --cost-per-sample (not both)")
+    if (budget is None) != (cost_per_sample is None):
+        raise click.UsageError("--budget and --cost-per-sample go together")
     from geosoil.plan import run_plan  # the stack loads when a command runs, not at --help
     from geosoil.project import load_project
     from geosoil.report import CAUTIONS
 
     proj = load_project(project)
-    result = run_plan(proj, out_dir=out, n_points=n_points, min_distance_m=min_distance,
+    result = run_plan(proj, out_dir=out, n_points=n_points, budget=budget,
+                      cost_per_sample=cost_per_sample, min_distance_m=min_distance,
                       weighting=weighting, variable=variable, overwrite=overwrite)
+    b = result.record.get("budget")
+    if b:
+        echo(f"Budget {b['budget']:g} at {b['cost_per_sample']:g} a sample: {b['samples']} "
+             f"new sample(s), split by paddock area (largest remainder)")
     echo("Sampling plan: expected reduction in mean kriging variance")
     echo(f"{'paddock':<24} {'variable':<9} {'points':>6} {'before':>10} {'after':>10} "
          f"{'cut %':>6} {'weighted cut %':>14}")

@@ -10,6 +10,7 @@ The method is :mod:`geosoil.sampling`.
 from __future__ import annotations
 
 import datetime as _dt
+import math
 import warnings
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
@@ -28,14 +29,23 @@ from .outfolder import output_folder
 from .pipeline import FarmResult, compute
 from .project import Project
 from .recording import record_warnings
-from .sampling import PaddockPlan, plan_paddock
+from .sampling import PaddockPlan, limit_weights, plan_paddock, split_samples
 from .writers import atomic_write, write_csv, write_geojson, write_json
 
-__all__ = ["PLAN_VARIABLES", "PlanResult", "run_plan", "gpx_text", "METHOD"]
+__all__ = ["PLAN_VARIABLES", "PlanResult", "run_plan", "gpx_text", "METHOD", "WEIGHTINGS",
+           "BUDGET_RULE"]
 
 #: Variables whose variogram a plan may use, in the order tried by default: exchangeable Na
-#: (drives ESP and gypsum), ESP itself when kriged, pH (drives lime), exchangeable acidity.
-PLAN_VARIABLES = ("na", "esp", "ph", "acidity", "ca", "mg", "k")
+#: (drives ESP and gypsum), ESP itself when kriged, pH in water or in CaCl2 (drives lime),
+#: exchangeable acidity.
+PLAN_VARIABLES = ("na", "esp", "ph", "ph_cacl2", "acidity", "ca", "mg", "k")
+
+#: How ``--weight`` may weigh the cells.
+WEIGHTINGS = ("rate", "limit", "uniform")
+
+#: The rule that splits a budget's samples across the paddocks.
+BUDGET_RULE = ("floor(budget / cost per sample) samples, split across the paddocks that can be "
+               "planned in proportion to their area (largest remainder)")
 
 METHOD = ("greedy sequential design minimising the weighted mean ordinary-kriging variance "
           "(criterion of van Groenigen & Stein 1998, J. Environ. Qual. 27:1078-1086; "
@@ -102,18 +112,140 @@ def _ids(paddock: str, n: int, taken: set[str]) -> list[str]:
     return out
 
 
+def _limit_weights(farm: FarmResult, name: str, var: str) -> tuple[np.ndarray, str]:
+    """Weights of ``name``'s cells by nearness to the class limit of ``var``'s decision."""
+    chem = farm.prep.project.settings.chemistry
+    cells = farm.paddocks[name].cells
+    surf = farm.surfaces[(name, var)]
+    if surf.std is None:
+        raise SettingsError(f"{name}: the {var} surface has no kriging error, so nearness to a "
+                            "class limit cannot be weighed; use --weight rate or uniform",
+                            key="--weight")
+    if var in ("na", "esp"):
+        if "esp" not in cells or "ecec" not in cells:
+            raise SettingsError(f"{name}: no ESP in this paddock's cells, so nearness to the "
+                                "sodic limit cannot be weighed", key="--weight")
+        # ESP = 100 Na / ECEC: its error from Na's (ECEC's own error left out; stated)
+        sd = surf.std if var == "esp" else 100.0 * surf.std / cells["ecec"]
+        limit = chem.sodic_esp_percent
+        return limit_weights(cells["esp"], sd, limit), (
+            f"nearness to the sodic limit (ESP {limit:g} %)")
+    if var in ("ph", "ph_cacl2"):
+        limit = chem.acid_ph if var == "ph" else chem.acid_ph_cacl2
+        method = "water" if var == "ph" else "CaCl2"
+        return limit_weights(surf.estimate, surf.std, limit), (
+            f"nearness to the acid limit (pH in {method} {limit:g})")
+    raise SettingsError(
+        f"'{var}' has no class limit to weigh nearness to; with --weight limit use "
+        "--variable na or esp (the sodic limit), ph or ph_cacl2 (the acid limit)",
+        key="--weight")
+
+
+def _sd_layers(farm: FarmResult, plans: dict[str, PaddockPlan],
+               per_paddock: list[dict[str, Any]]) -> list[tuple[str, str, np.ndarray, Any]]:
+    """(key, title, array, transform) of each plan variable's kriging sd over the planned
+    paddocks, as the plan saw them (before the new points)."""
+    from .grids import mosaic
+
+    out = []
+    by_var: dict[str, list[str]] = {}
+    for row in per_paddock:
+        by_var.setdefault(row["variable"], []).append(row["paddock"])
+    for var, names in by_var.items():
+        pairs = [(farm.paddocks[n].grid, sd) for n in names
+                 if n in plans and (sd := farm.surfaces[(n, var)].std) is not None]
+        if pairs:
+            arr, t = mosaic(pairs)
+            out.append((f"{var}_sd", f"{var}: kriging standard deviation now", arr, t))
+    return out
+
+
+def _pages(farm: FarmResult, plans: dict[str, PaddockPlan], points: gpd.GeoDataFrame,
+           table: pd.DataFrame, per_paddock: list[dict[str, Any]], *, title: str,
+           budget: dict[str, Any] | None, warnings_: list[str]) -> tuple[str, str]:
+    """The plan's map (the run's map machinery: existing samples white, new points yellow,
+    kriging sd, the prescription's zones) and its report."""
+    from markupsafe import Markup
+
+    from .presentation import classes_for
+    from .report import CAUTIONS, PlanReportInput, SoilMap, build_plan_report, surface_map_svg
+    from .webmap import RasterLayer, SampleField, build_map
+
+    prep = farm.prep
+    layers = _sd_layers(farm, plans, per_paddock)
+    rasters = [RasterLayer(key=k, title=ttl, unit="", array=a, transform=tr, crs=prep.crs,
+                           classes=classes_for("error", a), group="error")
+               for k, ttl, a, tr in layers]
+    old = prep.samples[["sample_id", "paddock", "geometry"]].copy()
+    old["planned"] = False
+    old["what"] = "this season's sample"
+    new = points[["sample_id", "paddock", "geometry"]].copy()
+    new["planned"] = True
+    new["what"] = "planned sample"
+    pts = gpd.GeoDataFrame(pd.concat([old, new], ignore_index=True), geometry="geometry",
+                           crs=prep.crs)
+    page = build_map(title=title, paddocks=prep.paddocks, samples=pts, rasters=rasters,
+                     zones=farm.zones, exclusions=None,
+                     notes=["Yellow: planned sample locations; white: the samples now.",
+                            "Rates are advisory; have every prescription checked by a "
+                            "qualified agronomist."],
+                     sample_fields=[SampleField("what", "point"),
+                                    SampleField("paddock", "paddock")])
+    maps = []
+    for k, ttl, a, tr in layers:
+        classes = classes_for("error", a)
+        soil = SoilMap(ttl, "", a, tr, classes)
+        svg = surface_map_svg(soil, paddocks=prep.paddocks, samples=points, uid=k)
+        maps.append({"title": ttl, "unit": "", "svg": Markup(svg), "legend": classes.legend(),
+                     "note": "before the new points; white dots: the new points"})
+    report = build_plan_report(PlanReportInput(
+        title=title, method=METHOD, paddocks=per_paddock, points=table, warnings=warnings_,
+        budget=budget, cautions=CAUTIONS, maps=maps, version=__version__))
+    return page, report
+
+
+def _check_options(n_points: int | None, budget: float | None, cost_per_sample: float | None,
+                   weighting: str, variable: str | None, min_distance_m: float | None) -> None:
+    if n_points is None and budget is None:
+        raise SettingsError("give the number of points per paddock, or a budget and a cost "
+                            "per sample", key="--points")
+    if n_points is not None and budget is not None:
+        raise SettingsError("give either the points per paddock or a budget, not both",
+                            key="--points")
+    if n_points is not None and (int(n_points) != n_points or n_points < 1):
+        raise SettingsError(f"must be a whole number of at least 1 (got {n_points!r})",
+                            key="--points")
+    if budget is not None:
+        if not (np.isfinite(budget) and budget > 0):
+            raise SettingsError(f"must be above 0 (got {budget!r})", key="--budget")
+        if cost_per_sample is None or not (np.isfinite(cost_per_sample) and cost_per_sample > 0):
+            raise SettingsError(f"must be above 0 with --budget (got {cost_per_sample!r})",
+                                key="--cost-per-sample")
+    if weighting not in WEIGHTINGS:
+        raise SettingsError(f"must be one of {', '.join(WEIGHTINGS)} (got {weighting!r})",
+                            key="--weight")
+    if variable is not None and variable not in PLAN_VARIABLES:
+        raise SettingsError(f"must be one of {', '.join(PLAN_VARIABLES)} (got {variable!r})",
+                            key="--variable")
+    if min_distance_m is not None and not (np.isfinite(min_distance_m) and min_distance_m >= 0):
+        raise SettingsError(f"must be 0 m or more (got {min_distance_m!r})",
+                            key="--min-distance")
+
+
 def run_plan(
     project: Project,
     *,
     out_dir: Path,
-    n_points: int,
+    n_points: int | None = None,
+    budget: float | None = None,
+    cost_per_sample: float | None = None,
     min_distance_m: float | None = None,
     weighting: str = "rate",
     variable: str | None = None,
     overwrite: bool = False,
     use_cache: bool = True,
 ) -> PlanResult:
-    """Plan ``n_points`` new samples per paddock and write them to ``out_dir``.
+    """Plan new samples for every paddock and write them to ``out_dir``.
 
     Parameters
     ----------
@@ -122,12 +254,19 @@ def run_plan(
     out_dir
         The output folder (created; an existing one only with ``overwrite``).
     n_points
-        New points per paddock.
+        New points per paddock; or None with ``budget``.
+    budget, cost_per_sample
+        Instead of ``n_points``: ``floor(budget / cost_per_sample)`` points in all,
+        split across the paddocks that can be planned in proportion to their area
+        (largest remainder: :func:`geosoil.sampling.split_samples`).
     min_distance_m
         Least distance between points and from existing samples; default half
         the spacing of a square grid of all samples over the paddock.
     weighting
-        ``"rate"`` (the prescribed rate, all products) or ``"uniform"``.
+        ``"rate"`` (the prescribed rate, all products), ``"limit"`` (nearness to
+        the class limit of the variable's decision: the sodic limit for Na and
+        ESP, the acid limit for pH; :func:`geosoil.sampling.limit_weights`) or
+        ``"uniform"``.
     variable
         Whose variogram to use; default the first of :data:`PLAN_VARIABLES`
         kriged in the paddock.
@@ -137,19 +276,9 @@ def run_plan(
     Raises
     ------
     SettingsError
-        A bad number of points, weighting or variable.
+        A bad number of points, budget, weighting or variable.
     """
-    if int(n_points) != n_points or n_points < 1:
-        raise SettingsError(f"must be a whole number of at least 1 (got {n_points!r})",
-                            key="--points")
-    if weighting not in ("rate", "uniform"):
-        raise SettingsError(f"must be 'rate' or 'uniform' (got {weighting!r})", key="--weight")
-    if variable is not None and variable not in PLAN_VARIABLES:
-        raise SettingsError(f"must be one of {', '.join(PLAN_VARIABLES)} (got {variable!r})",
-                            key="--variable")
-    if min_distance_m is not None and not (np.isfinite(min_distance_m) and min_distance_m >= 0):
-        raise SettingsError(f"must be 0 m or more (got {min_distance_m!r})",
-                            key="--min-distance")
+    _check_options(n_points, budget, cost_per_sample, weighting, variable, min_distance_m)
     inputs = [p for p in project.input_files() if p is not None]
     if project.path is not None:
         inputs.append(project.path)
@@ -164,8 +293,10 @@ def run_plan(
         plans: dict[str, PaddockPlan] = {}
         rows: list[dict[str, Any]] = []
         per_paddock: list[dict[str, Any]] = []
+        budget_record: dict[str, Any] | None = None
         with record_warnings(notes):
-            for name, result in farm.paddocks.items():
+            chosen_var: dict[str, str] = {}
+            for name in farm.paddocks:
                 var = _variable_for(farm, name, variable)
                 if var is None:
                     warnings.warn(
@@ -174,15 +305,40 @@ def run_plan(
                         "plan for this paddock (the plan needs a fitted variogram)",
                         DataWarning, stacklevel=1)
                     continue
+                chosen_var[name] = var
+            if budget is not None:
+                assert cost_per_sample is not None
+                total = math.floor(budget / cost_per_sample + 1e-9)
+                areas = {n: farm.paddocks[n].grid.n_cells * farm.paddocks[n].grid.cell_area_ha
+                         for n in chosen_var}
+                counts = split_samples(total, areas)
+                budget_record = {"budget": budget, "cost_per_sample": cost_per_sample,
+                                 "samples": total, "rule": BUDGET_RULE, "per_paddock": counts}
+                if total == 0:
+                    raise SettingsError(f"a budget of {budget:g} at {cost_per_sample:g} a sample "
+                                        "buys no sample", key="--budget")
+            else:
+                counts = {n: int(n_points or 0) for n in chosen_var}
+            for name, var in chosen_var.items():
+                result = farm.paddocks[name]
+                if counts[name] == 0:
+                    warnings.warn(f"{name}: the budget's split by area gives this paddock no "
+                                  "new sample", DataWarning, stacklevel=1)
+                    continue
                 surf = farm.surfaces[(name, var)]
                 assert surf.model is not None
                 mine = samples[(samples["paddock"] == name) & samples[var].notna()]
                 xy = np.column_stack([mine.geometry.x, mine.geometry.y])
                 rates = None
+                extra: dict[str, Any] = {}
                 if weighting == "rate" and result.rates.product_rates:
                     rates = np.nansum(np.stack(list(result.rates.product_rates.values())), axis=0)
-                plan = plan_paddock(result.grid, xy, surf.model, n_points=int(n_points),
-                                    rates=rates, min_distance_m=min_distance_m, avoid=all_xy)
+                elif weighting == "limit":
+                    w, label = _limit_weights(farm, name, var)
+                    extra = {"weights": w, "weighting": label}
+                plan = plan_paddock(result.grid, xy, surf.model, n_points=counts[name],
+                                    rates=rates, min_distance_m=min_distance_m, avoid=all_xy,
+                                    **extra)
                 plans[name] = plan
                 ids = _ids(name, len(plan.points), taken_ids)
                 for rank, (sid, (x, y), sd) in enumerate(
@@ -225,14 +381,22 @@ def run_plan(
             "kriging_sd_now": points["kriging_sd_now"],
         })
         written.append(write_csv(t / "plan_points.csv", table))
-        all_warnings = [*prep.warnings, *notes]
+        all_warnings = list(dict.fromkeys([*prep.warnings, *notes]))
+        title = f"{project.settings.farm or 'farm'}: sampling plan"
+        map_page, report_page = _pages(farm, plans, points, table, per_paddock, title=title,
+                                       budget=budget_record, warnings_=all_warnings)
+        for name, page in (("map.html", map_page), ("report.html", report_page)):
+            with atomic_write(t / name, mode="w") as fh:
+                fh.write(page)
+            written.append(t / name)
         record: dict[str, Any] = {
             "kind": "sampling plan",
             "geosoil_version": __version__,
             "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
             "project": str(project.path) if project.path is not None else None,
             "method": METHOD,
-            "points_per_paddock": int(n_points),
+            "points_per_paddock": int(n_points) if n_points is not None else None,
+            "budget": budget_record,
             "paddocks": per_paddock,
             "warnings": all_warnings,
             "files": sorted(p.name for p in written) + ["run.json"],

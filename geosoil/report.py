@@ -62,7 +62,9 @@ __all__ = [
     "SoilMap",
     "UncertaintySummary",
     "VariogramInfo",
+    "PlanReportInput",
     "build_change_report",
+    "build_plan_report",
     "build_report",
     "surface_map_svg",
     "variogram_svg",
@@ -1391,3 +1393,67 @@ def build_change_report(data: ChangeReportInput) -> str:
     return _templates().get_template("change_report.html").render(
         data=data, css=_css(), created=created, summary=summary, zones=zones,
         z=f"{data.z:g}")
+
+
+# --------------------------------------------------------------------------- sampling plan
+
+
+@dataclass(frozen=True)
+class PlanReportInput:
+    """What the report of a sampling plan shows (``geosoil plan``).
+
+    ``paddocks`` are the plan record's rows (``paddock, variable, scale,
+    existing_samples, new_points, weighting, min_distance_m,
+    mean_kriging_variance_before/after, mean_variance_reduction_pct,
+    weighted_variance_reduction_pct``); ``points`` the points table (``sample_id,
+    paddock, rank, latitude, longitude, easting_m, northing_m, kriging_sd_now``);
+    ``maps`` figures (``title, unit, svg, legend, note``).
+    """
+
+    title: str
+    method: str
+    paddocks: Sequence[Mapping[str, Any]]
+    points: pd.DataFrame
+    warnings: Sequence[str]
+    budget: Mapping[str, Any] | None = None
+    cautions: Sequence[str] = CAUTIONS
+    maps: Sequence[Mapping[str, Any]] = ()
+    version: str = ""
+    created: datetime | None = None
+
+
+def build_plan_report(data: PlanReportInput) -> str:
+    """The sampling plan as one static HTML page: the expected reduction in mean kriging
+    variance per paddock and every new point with its coordinates.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> page = build_plan_report(PlanReportInput(title="Plan", method="greedy", paddocks=[],
+    ...     points=pd.DataFrame(), warnings=[]))
+    >>> "New sample locations" in page
+    True
+    """
+    pads = _simple_table(
+        [("paddock", False), ("variable", False), ("weighting", False), ("samples now", True),
+         ("new points", True), ("least distance m", True), ("mean kriging variance now", True),
+         ("after the plan", True), ("cut %", True), ("weighted cut %", True)],
+        [[r["paddock"], r["variable"] + (" (log)" if r["scale"] == "log" else ""),
+          r["weighting"], _num(r["existing_samples"], 0), _num(r["new_points"], 0),
+          _num(r["min_distance_m"], 0), _sig(r["mean_kriging_variance_before"]),
+          _sig(r["mean_kriging_variance_after"]), _num(r["mean_variance_reduction_pct"], 1),
+          _num(r["weighted_variance_reduction_pct"], 1)] for r in data.paddocks],
+        "plan-paddocks")
+    t = data.points
+    pts = _simple_table(
+        [("sample ID", False), ("paddock", False), ("rank", True), ("latitude", True),
+         ("longitude", True), ("easting m", True), ("northing m", True),
+         ("kriging sd now", True)],
+        [[str(r["sample_id"]), str(r["paddock"]), _num(r["rank"], 0),
+          f"{float(r['latitude']):.6f}", f"{float(r['longitude']):.6f}",
+          _num(r["easting_m"], 1, thousands=False), _num(r["northing_m"], 1, thousands=False),
+          _sig(r["kriging_sd_now"])] for _, r in (t.iterrows() if len(t) else iter(()))],
+        "plan-points")
+    created = (data.created or datetime.now().astimezone()).strftime("%Y-%m-%d %H:%M %Z")
+    return _templates().get_template("plan_report.html").render(
+        data=data, css=_css(), created=created, pads=pads, pts=pts)

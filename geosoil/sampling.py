@@ -38,7 +38,11 @@ A candidate closer than ``min_distance_m`` to an existing sample or a chosen
 point is never taken.
 
 Weights: the prescribed rate of each cell (kg/ha, all products together),
-so that the map becomes trustworthy where money is spread; or uniform.
+so that the map becomes trustworthy where money is spread; or the nearness of
+each cell to a class limit (:func:`limit_weights`: the chance that the true
+value lies on the other side of the limit, so that the map becomes
+trustworthy where a cell's class, and with it the decision, is in doubt); or
+uniform.
 
 The design uses global kriging (every sample at every cell), whatever
 neighbourhood the project's surfaces were kriged with.
@@ -60,6 +64,7 @@ from .errors import DataWarning, SettingsError
 from .grids import PaddockGrid
 from .kriging import _factor, ordinary_kriging
 from .points import COINCIDENT_M, as_points
+from .tonnage import apportion
 from .variogram import VariogramModel
 
 __all__ = [
@@ -67,9 +72,11 @@ __all__ = [
     "candidate_cells",
     "default_min_distance",
     "greedy_design",
+    "limit_weights",
     "plan_paddock",
     "random_design",
     "regular_design",
+    "split_samples",
     "weighted_mean_variance",
 ]
 
@@ -279,6 +286,54 @@ def weighted_mean_variance(
     return float((w * var).sum() / w.sum())
 
 
+def limit_weights(values: ArrayLike, sd: ArrayLike, limit: float) -> Array:
+    """Weight of each cell by its nearness to a class limit: ``2 * Phi(-|v - limit| / sd)``.
+
+    With a normal kriging error of standard deviation ``sd`` about the estimate
+    ``v``, this is twice the chance that the true value lies on the other side
+    of ``limit``: 1 on the limit, falling towards 0 as the estimate moves away
+    from it by several standard deviations. A cell with no error (``sd`` 0)
+    weighs 1 exactly on the limit and 0 elsewhere; NaN weighs 0.
+
+    Examples
+    --------
+    >>> limit_weights([6.0, 6.0 + 1.959964, 20.0], [1.0, 1.0, 1.0], 6.0).round(3).tolist()
+    [1.0, 0.05, 0.0]
+    """
+    from scipy.special import erfc
+
+    v = np.asarray(values, dtype=np.float64)
+    s = np.asarray(sd, dtype=np.float64)
+    gap = np.abs(v - limit)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        w = erfc(gap / (s * math.sqrt(2.0)))  # 2 * Phi(-x) = erfc(x / sqrt(2))
+    w = np.where(s > 0, w, (gap == 0).astype(float))
+    return np.where(np.isfinite(w), w, 0.0)
+
+
+def split_samples(total: int, areas: dict[str, float]) -> dict[str, int]:
+    """Split ``total`` samples across paddocks in proportion to their area.
+
+    Each paddock gets the whole part of its share; the samples left over go one
+    each to the paddocks with the largest remainders (the largest-remainder or
+    Hamilton method of :func:`geosoil.tonnage.apportion`; ties to the paddock
+    listed first).
+
+    Examples
+    --------
+    >>> split_samples(10, {"A": 55.0, "B": 27.0, "C": 18.0})  # quotas 5.5, 2.7, 1.8
+    {'A': 5, 'B': 3, 'C': 2}
+    """
+    if int(total) != total or total < 0:
+        raise SettingsError(f"must be a whole number of at least 0 (got {total!r})",
+                            key="samples")
+    names = list(areas)
+    w = np.array([max(areas[n], 0.0) for n in names], dtype=np.float64)
+    if not names or not w.sum() > 0:
+        return {n: 0 for n in names}
+    return {n: int(k) for n, k in zip(names, apportion(int(total), w), strict=True)}
+
+
 def random_design(
     cells: ArrayLike, samples: ArrayLike, *, n_points: int, min_distance_m: float,
     rng: np.random.Generator,
@@ -333,6 +388,8 @@ def plan_paddock(
     min_distance_m: float | None = None,
     avoid: ArrayLike | None = None,
     max_cells: int = MAX_CELLS,
+    weights: ArrayLike | None = None,
+    weighting: str = "given weights",
 ) -> PaddockPlan:
     """The sampling plan of one paddock.
 
@@ -357,12 +414,25 @@ def plan_paddock(
         (m, 2) further existing samples to keep away from (other variables').
     max_cells
         See :func:`candidate_cells`.
+    weights, weighting
+        (height, width) weights of the cells (NaN counts as 0), used instead of
+        ``rates``, and what they are (recorded in the plan). All zero: uniform,
+        with a warning.
     """
     xd = as_points(samples, "sample")
     xc, index = candidate_cells(grid, max_cells=max_cells)
+    label = weighting
     weighting = "uniform"
     w_all = np.ones(grid.n_cells)
-    if rates is not None:
+    if weights is not None:
+        r = np.nan_to_num(np.asarray(weights, dtype=np.float64)[grid.mask], nan=0.0)
+        r = np.clip(r, 0.0, None)
+        if r[index].sum() > 0:
+            w_all, weighting = r, label
+        else:
+            warnings.warn(f"{grid.name}: every cell weighs 0 by {label}, so the sampling "
+                          "plan weights every cell alike", DataWarning, stacklevel=2)
+    elif rates is not None:
         r = np.nan_to_num(np.asarray(rates, dtype=np.float64)[grid.mask], nan=0.0)
         r = np.clip(r, 0.0, None)
         if r[index].sum() > 0:

@@ -420,6 +420,8 @@ def _samples_json(pts: Any, fields: Sequence[SampleField]) -> dict[str, Any]:
         cols = {f.column: pts[f.column].tolist() for f in (*table, *flags)}
         ids = pts["sample_id"].tolist()
         pads = pts["paddock"].tolist() if "paddock" in pts.columns else [""] * len(pts)
+        planned = [bool(v) for v in pts["planned"]] if "planned" in pts.columns \
+            else [False] * len(pts)
         for i, g in enumerate(geoms):
             values = []
             for f in table:
@@ -427,7 +429,7 @@ def _samples_json(pts: Any, fields: Sequence[SampleField]) -> dict[str, Any]:
                 values.append(None if text == "–" else text)
             flagged = [t for f in flags if (t := _flag_text(f, cols[f.column][i]))]
             rows.append([round(g.y, 6), round(g.x, 6), fmt_value(ids[i]), fmt_value(pads[i]),
-                         values, flagged])
+                         values, flagged, 1 if planned[i] else 0])
     return {"fields": [[f.label, f.unit] for f in table], "rows": rows}
 
 
@@ -533,7 +535,8 @@ def build_map(
     paddocks
         GeoDataFrame with ``paddock`` and polygons, any CRS: labelled outlines.
     samples
-        GeoDataFrame with ``sample_id`` (and ``paddock``), points in any CRS.
+        GeoDataFrame with ``sample_id`` (and ``paddock``), points in any CRS; a
+        true ``planned`` column marks points of a sampling plan (drawn in yellow).
     rasters
         The surfaces (:class:`RasterLayer`), in the order of the layer panel.
     zones

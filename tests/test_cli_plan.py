@@ -40,7 +40,8 @@ def test_plan_writes_the_documented_files(planned: dict[str, object]) -> None:
     assert "expected reduction in mean kriging variance" in result.output
     assert "Rates are advisory" in result.output
     names = {p.name for p in Path(out).iterdir()}
-    assert names == {"plan_points.geojson", "plan_points.gpx", "plan_points.csv", "run.json"}
+    assert names == {"plan_points.geojson", "plan_points.gpx", "plan_points.csv", "run.json",
+                     "map.html", "report.html"}
     record = json.loads((Path(out) / "run.json").read_text())
     assert sorted(record["files"]) == sorted(names)
     assert "van Groenigen" in record["method"]
@@ -95,6 +96,57 @@ def test_plan_refuses_a_full_folder_and_replaces_its_own(planned: dict[str, obje
                       "--weight", "uniform")
     assert replaced.exit_code == 0, replaced.output
     assert len(pd.read_csv(Path(out) / "plan_points.csv")) == 4
+
+
+def test_map_and_report_show_the_points(planned: dict[str, object]) -> None:
+    out = Path(planned["out"])
+    table = pd.read_csv(out / "plan_points.csv")
+    page = (out / "map.html").read_text()
+    report = (out / "report.html").read_text()
+    assert "planned sample" in page
+    for sid in table["sample_id"]:
+        assert sid in page and sid in report
+    assert "New sample locations" in report and "Rates are advisory" in report
+
+
+def test_budget_sets_the_number_of_points(planned: dict[str, object], tmp_path: Path) -> None:
+    """floor(100 / 30) = 3 samples; two paddocks of equal area: quotas 1.5 and 1.5, the
+    left-over sample to the one listed first (largest remainder, ties in order)."""
+    farm = planned["farm"]
+    got = invoke("plan", farm, "--budget", 100, "--cost-per-sample", 30, "--out", tmp_path / "b")
+    assert got.exit_code == 0, got.output
+    record = json.loads((tmp_path / "b" / "run.json").read_text())
+    assert record["budget"]["samples"] == 3
+    assert record["budget"]["per_paddock"] == {"Home": 2, "Back Paddock": 1}
+    assert "largest remainder" in record["budget"]["rule"]
+    assert len(pd.read_csv(tmp_path / "b" / "plan_points.csv")) == 3
+    none = invoke("plan", farm, "--budget", 20, "--cost-per-sample", 30, "--out", tmp_path / "c")
+    assert none.exit_code == 1 and "buys no sample" in none.output
+
+
+def test_budget_and_points_options_go_together_right(planned: dict[str, object],
+                                                      tmp_path: Path) -> None:
+    farm = planned["farm"]
+    both = invoke("plan", farm, "--points", 2, "--budget", 100, "--cost-per-sample", 10,
+                  "--out", tmp_path / "a")
+    assert both.exit_code == 2 and "not both" in both.output
+    alone = invoke("plan", farm, "--budget", 100, "--out", tmp_path / "b")
+    assert alone.exit_code == 2 and "--cost-per-sample" in alone.output
+    neither = invoke("plan", farm, "--out", tmp_path / "c")
+    assert neither.exit_code == 2 and "--points" in neither.output
+
+
+def test_weight_by_nearness_to_the_sodic_limit(planned: dict[str, object],
+                                               tmp_path: Path) -> None:
+    farm = planned["farm"]
+    got = invoke("plan", farm, "--points", 3, "--weight", "limit", "--out", tmp_path / "l")
+    assert got.exit_code == 0, got.output
+    record = json.loads((tmp_path / "l" / "run.json").read_text())
+    assert [r["weighting"] for r in record["paddocks"]] == \
+        ["nearness to the sodic limit (ESP 6 %)"] * 2
+    bad = invoke("plan", farm, "--points", 3, "--weight", "limit", "--variable", "ca",
+                 "--out", tmp_path / "m")
+    assert bad.exit_code == 1 and "no class limit" in bad.output
 
 
 def test_plan_bad_options(planned: dict[str, object], tmp_path: Path) -> None:

@@ -10,6 +10,7 @@ designs of the same size under the same distance rule.
 
 from __future__ import annotations
 
+import math
 import warnings
 
 import numpy as np
@@ -27,9 +28,11 @@ from geosoil.sampling import (
     _error_covariance,
     candidate_cells,
     greedy_design,
+    limit_weights,
     plan_paddock,
     random_design,
     regular_design,
+    split_samples,
     weighted_mean_variance,
 )
 from geosoil.variogram import VariogramModel
@@ -157,3 +160,29 @@ def test_regular_design_has_the_size_asked_and_stays_on_candidates() -> None:
         warnings.simplefilter("error")
         pick = regular_design(cells, n_points=9, area_m2=grid.n_cells * CELL * CELL)
     assert len(pick) == 9 and len(set(pick.tolist())) == 9
+
+
+def test_limit_weights_follow_the_normal_tail() -> None:
+    """2 * Phi(-1.959964) = 0.05 and 2 * Phi(-1) = 0.3173 (standard normal tables)."""
+    w = limit_weights([6.0, 7.959964, 4.0, 6.0, 9.0, np.nan], [1, 1, 2, 0, 0, 1], 6.0)
+    np.testing.assert_allclose(w[:3], [1.0, 0.05, 0.3173], atol=1e-4)
+    assert w[3:].tolist() == [1.0, 0.0, 0.0]  # no error: 1 on the limit only; NaN weighs 0
+
+
+def test_split_samples_by_largest_remainder() -> None:
+    """Hamilton's method by hand: 7 samples over 50, 30, 20 ha: quotas 3.5, 2.1, 1.4 ->
+    3, 2, 1 and the one left to the largest remainder (0.5): 4, 2, 1."""
+    assert split_samples(7, {"a": 50.0, "b": 30.0, "c": 20.0}) == {"a": 4, "b": 2, "c": 1}
+    assert split_samples(0, {"a": 1.0}) == {"a": 0}
+    assert split_samples(3, {}) == {}
+
+
+@given(st.integers(0, 500), st.lists(st.floats(0.1, 1e4), min_size=1, max_size=12))
+def test_split_samples_adds_up_and_stays_within_a_sample_of_its_quota(total, areas) -> None:
+    names = {f"p{i}": a for i, a in enumerate(areas)}
+    got = split_samples(total, names)
+    assert sum(got.values()) == total
+    whole = sum(areas)
+    for n, a in names.items():
+        quota = total * a / whole
+        assert math.floor(quota) - 1e-9 <= got[n] <= math.ceil(quota) + 1e-9

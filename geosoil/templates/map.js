@@ -153,7 +153,8 @@
   D.samples.rows.forEach(function (r, i) {
     var m = L.circleMarker([r[0], r[1]], {renderer: sampleRenderer, pane: "gs-samples",
                                           radius: SMALL ? 4 : 5, color: "#000000", weight: 2,
-                                          fillColor: "#ffffff", fillOpacity: 1});
+                                          fillColor: r[6] ? "#ffd400" : "#ffffff",
+                                          fillOpacity: 1});
     m.bindPopup(function () { return samplePopup(i); },
                 L.extend({className: "gs-sample-popup"}, popupOptions));
     m.bindTooltip(el("span", null, r[2]), {direction: "top", offset: [0, -6]});
@@ -412,7 +413,12 @@
     }
     var other = [];
     if (state.samples && D.samples.rows.length) {
-      other.push({cls: "gs-point", label: "soil sample (tap for lab values)"});
+      if (D.samples.rows.some(function (r) { return !r[6]; })) {
+        other.push({cls: "gs-point", label: "soil sample (tap for lab values)"});
+      }
+      if (D.samples.rows.some(function (r) { return r[6]; })) {
+        other.push({cls: "gs-point gs-planned", label: "planned sample (next season)"});
+      }
     }
     if (state.paddocks) { other.push({cls: "gs-outline", label: "paddock boundary"}); }
     if (state.exclusions && D.exclusions.length) {
