@@ -41,9 +41,11 @@ from .change import (
 )
 from .errors import GeosoilError, InputError, SettingsError
 from .grids import PaddockGrid, aligned_grids
+from .layers import Layer
 from .names import slug
 from .outfolder import output_folder
 from .recording import record_warnings
+from .samples import DEPTH_COLUMNS
 from .settings import from_mapping
 from .surfaces import InterpolationSettings, Surface, interpolate_farm
 from .writers import atomic_write, write_cog, write_csv, write_json
@@ -72,6 +74,8 @@ class Season:
     label: str
     source: Path
     kind: str  # "project" or "output folder"
+    #: the sampled layer compared (the top one), when the samples are at several depths
+    layer: str | None
     crs: pyproj.CRS
     paddocks: gpd.GeoDataFrame
     samples: gpd.GeoDataFrame
@@ -139,6 +143,15 @@ def _read_output_folder(folder: Path, label: str) -> Season:
     for col in ("sample_id", "paddock"):
         if col in table.columns:
             table[col] = table[col].map(_uninert)
+    layer = None
+    if all(c in table.columns for c in DEPTH_COLUMNS):
+        depths = table[list(DEPTH_COLUMNS)].apply(pd.to_numeric, errors="coerce")
+        pairs = sorted({(float(a), float(b)) for a, b in depths.dropna().to_numpy()})
+        if len(pairs) > 1:  # the run's top layer, as a project's prepared samples hold it
+            top = Layer(*pairs[0])
+            layer = top.label
+            table = table[(depths[DEPTH_COLUMNS[0]] == top.top_cm)
+                          & (depths[DEPTH_COLUMNS[1]] == top.bottom_cm)].reset_index(drop=True)
     samples = gpd.GeoDataFrame(table, geometry=gpd.points_from_xy(table["x"], table["y"]),
                                crs=crs)
     import pyogrio
@@ -168,8 +181,8 @@ def _read_output_folder(folder: Path, label: str) -> Season:
     if exclusions is not None and len(exclusions):
         excl = shapely.union_all(exclusions.geometry.to_numpy())
     grids = aligned_grids(paddocks, cell_size_m=cell, exclusions=excl)
-    return Season(label, folder, "output folder", crs, paddocks, samples, grids, zones, interp,
-                  settings.get("farm"), [run_json, samples_csv, gpkg], notes)
+    return Season(label, folder, "output folder", layer, crs, paddocks, samples, grids, zones,
+                  interp, settings.get("farm"), [run_json, samples_csv, gpkg], notes)
 
 
 def _read_project(path: Path, label: str) -> Season:
@@ -182,7 +195,8 @@ def _read_project(path: Path, label: str) -> Season:
     if project.path is not None:
         files.append(project.path)
     source = project.path or path
-    return Season(label, source, "project", prep.crs,
+    layer = prep.layers[0].layer.label if prep.layers else None
+    return Season(label, source, "project", layer, prep.crs,
                   prep.paddocks[["paddock", "geometry"]], prep.samples, dict(prep.grids), None,
                   project.settings.interpolation, project.settings.farm, files,
                   list(prep.warnings))
@@ -330,6 +344,13 @@ def run_compare(
     check_same_farm(last, this)
     notes: list[str] = [*(f"last season: {w}" for w in last.warnings),
                         *(f"this season: {w}" for w in this.warnings)]
+    for s in (last, this):
+        if s.layer is not None:
+            notes.append(f"{s.name}: samples at several depths; the top layer ({s.layer}) is "
+                         "compared, the deeper ones are not")
+    if last.layer != this.layer and last.layer is not None and this.layer is not None:
+        notes.append(f"the top layers differ ({last.layer} last season, {this.layer} this "
+                     "season): the change mixes a change of depth with a change of soil")
     ph_l = [c for c in PH_METHODS if _values(last.samples, c)]
     ph_t = [c for c in PH_METHODS if _values(this.samples, c)]
     col_l = col_t = ""

@@ -264,3 +264,21 @@ def test_map_and_report_open_offline_in_chromium(seasons: dict[str, Path]) -> No
                     ".map(e => e.textContent)")
                 assert legends[0] == "ESP: changed beyond error?"
             page.close()
+
+
+def test_samples_at_several_depths_compare_the_top_layer(seasons: dict[str, Path],
+                                                         tmp_path: Path) -> None:
+    """A run's samples.csv with two layers: the top one is compared (a deeper layer with
+    other values must not leak into the change), and the record says so."""
+    layered = tmp_path / "layered"
+    shutil.copytree(seasons["last_out"], layered)
+    table = pd.read_csv(layered / "samples.csv")
+    top = table.assign(depth_top_cm=0.0, depth_bottom_cm=10.0)
+    deep = table.assign(depth_top_cm=10.0, depth_bottom_cm=30.0, esp=table["esp"] + 20.0)
+    pd.concat([top, deep]).to_csv(layered / "samples.csv", index=False)
+    got = invoke("compare", layered, seasons["last_out"], "--out", tmp_path / "c")
+    assert got.exit_code == 0, got.output
+    record = json.loads((tmp_path / "c" / "run.json").read_text())
+    assert any("top layer (0-10 cm) is compared" in w for w in record["warnings"])
+    esp = [r for r in record["paddocks"] if r["variable"] == "esp"]
+    assert esp and all(r["change_mean"] == 0.0 for r in esp)
