@@ -34,7 +34,7 @@ import difflib
 import math
 import types
 import typing
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -170,63 +170,93 @@ def _convert(value: Any, tp: Any, key: str, meta: Mapping[str, Any], base_dir: P
         if optional:
             return None
         raise SettingsError("a value is required", key=key)
-    origin = typing.get_origin(tp)
     if isinstance(tp, type) and dataclasses.is_dataclass(tp):
         if not isinstance(value, Mapping):
             raise SettingsError(f"must be a table of settings (got {value!r})", key=key)
         return from_mapping(tp, value, section=key, base_dir=base_dir)
+    origin = typing.get_origin(tp)
     if origin is dict:
-        ktp, vtp = typing.get_args(tp)
-        if not isinstance(value, Mapping):
-            raise SettingsError(f"must be a table (got {value!r})", key=key)
-        return {
-            str(k): _convert(v, vtp, _join(key, str(k)), {}, base_dir) for k, v in value.items()
-        }
+        return _to_table(value, tp, key, base_dir)
     if origin is tuple:
-        (etp, _ellipsis) = typing.get_args(tp)
-        if isinstance(value, str) or not isinstance(value, (list, tuple)):
-            raise SettingsError(f"must be a list (got {value!r})", key=key)
-        return tuple(_convert(v, etp, f"{key}[{i}]", meta, base_dir) for i, v in enumerate(value))
-    if tp is bool:
-        if not isinstance(value, bool):
-            raise SettingsError(f"must be true or false (got {value!r})", key=key)
-        return value
-    if tp in (int, float):
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise SettingsError(f"must be a number (got {value!r})", key=key)
-        if tp is int and not float(value).is_integer():
-            raise SettingsError(f"must be a whole number (got {value!r})", key=key)
-        value = tp(value)
-        check_range(
-            value,
-            key=key,
-            minimum=meta.get("minimum"),
-            maximum=meta.get("maximum"),
-            exclusive_minimum=bool(meta.get("exclusive_minimum")),
-            unit=meta.get("unit"),
-        )
-        return value
-    if tp is str:
-        if not isinstance(value, str):
-            raise SettingsError(f"must be text (got {value!r})", key=key)
-        choices = meta.get("choices")
-        if choices and value not in choices:
-            near = difflib.get_close_matches(value, choices, n=1)
-            hint = f"; did you mean '{near[0]}'?" if near else ""
-            raise SettingsError(
-                f"'{value}' is not allowed{hint} Allowed: {', '.join(choices)}", key=key
-            )
-        return value
+        return _to_list(value, tp, key, meta, base_dir)
     if tp is Path:
-        if not isinstance(value, (str, Path)):
-            raise SettingsError(f"must be a file path (got {value!r})", key=key)
-        p = Path(value).expanduser()
-        if base_dir is not None and not p.is_absolute():
-            p = (base_dir / p).resolve()
-        return p
+        return _to_path(value, key, base_dir)
     if tp is Any:
         return value
-    raise TypeError(f"settings type {tp!r} of '{key}' is not supported")  # programming error
+    convert = _SCALARS.get(tp)
+    if convert is None:
+        raise TypeError(f"settings type {tp!r} of '{key}' is not supported")  # programming error
+    return convert(value, tp, key, meta)
+
+
+def _to_table(value: Any, tp: Any, key: str, base_dir: Path | None) -> dict[str, Any]:
+    """A ``dict[str, X]`` setting: every value converted to X."""
+    _ktp, vtp = typing.get_args(tp)
+    if not isinstance(value, Mapping):
+        raise SettingsError(f"must be a table (got {value!r})", key=key)
+    return {str(k): _convert(v, vtp, _join(key, str(k)), {}, base_dir) for k, v in value.items()}
+
+
+def _to_list(value: Any, tp: Any, key: str, meta: Mapping[str, Any],
+             base_dir: Path | None) -> tuple[Any, ...]:
+    """A ``tuple[X, ...]`` setting: a TOML array, every item converted to X."""
+    (etp, _ellipsis) = typing.get_args(tp)
+    if isinstance(value, str) or not isinstance(value, (list, tuple)):
+        raise SettingsError(f"must be a list (got {value!r})", key=key)
+    return tuple(_convert(v, etp, f"{key}[{i}]", meta, base_dir) for i, v in enumerate(value))
+
+
+def _to_path(value: Any, key: str, base_dir: Path | None) -> Path:
+    """A file path, relative ones resolved against ``base_dir``."""
+    if not isinstance(value, (str, Path)):
+        raise SettingsError(f"must be a file path (got {value!r})", key=key)
+    p = Path(value).expanduser()
+    if base_dir is not None and not p.is_absolute():
+        p = (base_dir / p).resolve()
+    return p
+
+
+def _to_bool(value: Any, _tp: Any, key: str, _meta: Mapping[str, Any]) -> bool:
+    if not isinstance(value, bool):
+        raise SettingsError(f"must be true or false (got {value!r})", key=key)
+    return value
+
+
+def _to_number(value: Any, tp: Any, key: str, meta: Mapping[str, Any]) -> int | float:
+    """An int or float within the field's range (a bool is not a number here)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise SettingsError(f"must be a number (got {value!r})", key=key)
+    if tp is int and not float(value).is_integer():
+        raise SettingsError(f"must be a whole number (got {value!r})", key=key)
+    number = tp(value)
+    check_range(
+        number,
+        key=key,
+        minimum=meta.get("minimum"),
+        maximum=meta.get("maximum"),
+        exclusive_minimum=bool(meta.get("exclusive_minimum")),
+        unit=meta.get("unit"),
+    )
+    return number
+
+
+def _to_text(value: Any, _tp: Any, key: str, meta: Mapping[str, Any]) -> str:
+    """Text, one of the field's choices when it has them (the nearest named on a miss)."""
+    if not isinstance(value, str):
+        raise SettingsError(f"must be text (got {value!r})", key=key)
+    choices = meta.get("choices")
+    if choices and value not in choices:
+        near = difflib.get_close_matches(value, choices, n=1)
+        hint = f"; did you mean '{near[0]}'?" if near else ""
+        raise SettingsError(
+            f"'{value}' is not allowed{hint} Allowed: {', '.join(choices)}", key=key
+        )
+    return value
+
+
+_SCALARS: dict[Any, Callable[[Any, Any, str, Mapping[str, Any]], Any]] = {
+    bool: _to_bool, int: _to_number, float: _to_number, str: _to_text,
+}
 
 
 def from_mapping(
