@@ -785,31 +785,28 @@ def _class_zones(
     return pieces, filled
 
 
-def _merge_components(
-    cls: NDArray[np.int64],
-    *,
-    overlap: NDArray[np.float64],
-    has_rate: NDArray[np.bool_],
-    transform: Affine,
-    min_area_m2: float,
-    notes: list[str],
-) -> NDArray[np.int64]:
-    """Merge connected class pieces smaller than ``min_area_m2`` (area inside the
-    working area) or without a rated cell into the neighbour with the longest
-    shared edge, on the raster."""
+def _label_pieces(cls: NDArray[np.int64]) -> tuple[NDArray[np.int64], list[int]]:
+    """Connected pieces of each class (4-connectivity, like the polygonising): the piece
+    number of every cell (from 1) and each piece's class (index 0 unused)."""
     comp = np.zeros(cls.shape, dtype=np.int64)
     comp_class = [0]
     n = 0
     for c in np.unique(cls):
-        lab, m = scipy.ndimage.label(cls == c)  # 4-connectivity, like the polygonising
+        lab, m = scipy.ndimage.label(cls == c)
         comp[lab > 0] = lab[lab > 0] + n
         comp_class.extend([int(c)] * m)
         n += m
-    area = np.bincount(comp.ravel(), weights=overlap.ravel(), minlength=n + 1)
-    nrate = np.bincount(comp.ravel(), weights=has_rate.ravel().astype(float), minlength=n + 1)
-    inside = overlap > 0
-    adj_in: dict[int, dict[int, float]] = defaultdict(lambda: defaultdict(float))
-    adj_all: dict[int, dict[int, float]] = defaultdict(lambda: defaultdict(float))
+    return comp, comp_class
+
+
+_Adjacency = dict[int, dict[int, float]]
+
+
+def _piece_edges(comp: NDArray[np.int64], inside: NDArray[np.bool_],
+                 transform: Affine) -> tuple[_Adjacency, _Adjacency]:
+    """Length of the edge each pair of pieces shares: within the working area, and in all."""
+    adj_in: _Adjacency = defaultdict(lambda: defaultdict(float))
+    adj_all: _Adjacency = defaultdict(lambda: defaultdict(float))
     for first, second, ins, length in (
         (comp[:, :-1], comp[:, 1:], inside[:, :-1] & inside[:, 1:], abs(transform.e)),
         (comp[:-1, :], comp[1:, :], inside[:-1, :] & inside[1:, :], abs(transform.a)),
@@ -823,22 +820,38 @@ def _merge_components(
             for (p, q), cnt in zip(uniq.tolist(), counts.tolist(), strict=True):
                 adj[p][q] += cnt * length
                 adj[q][p] += cnt * length
-    parent = list(range(n + 1))
+    return adj_in, adj_all
 
-    def find(i: int) -> int:
+
+class _PieceMerger:
+    """Union-find over the class pieces, merging each small piece into its neighbour."""
+
+    def __init__(self, *, comp_class: list[int], area: NDArray[Any],
+                 nrate: NDArray[Any], adj_in: _Adjacency, adj_all: _Adjacency,
+                 min_area_m2: float) -> None:
+        self.comp_class = comp_class
+        self.area, self.nrate = area, nrate
+        self.adj_in, self.adj_all = adj_in, adj_all
+        self.min_area_m2 = min_area_m2
+        self.parent = list(range(len(comp_class)))
+        self.merged = self.stuck = 0
+
+    def find(self, i: int) -> int:
+        parent = self.parent
         while parent[i] != i:
             parent[i] = parent[parent[i]]
             i = parent[i]
         return i
 
-    def small(i: int) -> bool:
-        return area[i] > 0 and (area[i] < min_area_m2 - 1e-9 or nrate[i] == 0)
+    def small(self, i: int) -> bool:
+        area = self.area[i]
+        return bool(area > 0 and (area < self.min_area_m2 - 1e-9 or self.nrate[i] == 0))
 
-    def absorb(a: int, b: int) -> None:
-        parent[a] = b
-        area[b] += area[a]
-        nrate[b] += nrate[a]
-        for adj in (adj_in, adj_all):
+    def absorb(self, a: int, b: int) -> None:
+        self.parent[a] = b
+        self.area[b] += self.area[a]
+        self.nrate[b] += self.nrate[a]
+        for adj in (self.adj_in, self.adj_all):
             for x, length in adj.pop(a, {}).items():
                 adj[x].pop(a, None)
                 if x != b:
@@ -847,26 +860,52 @@ def _merge_components(
             adj[b].pop(a, None)
             adj[b].pop(b, None)
 
-    heap = [(float(area[i]), i) for i in range(1, n + 1) if small(i)]
-    heapq.heapify(heap)
-    merged = stuck = 0
-    while heap:
-        a_area, a = heapq.heappop(heap)
-        if find(a) != a or float(area[a]) != a_area or not small(a):
-            continue
-        nbrs = adj_in.get(a) or adj_all.get(a)
-        if not nbrs:
-            stuck += 1
-            continue
-        b = max(nbrs, key=lambda x: (round(nbrs[x], 6), area[x], -x))
-        absorb(a, b)
-        merged += 1
-        # neighbours of the merged piece in b's class are now joined to b
-        for x in list(adj_all.get(b, {})):
-            if comp_class[x] == comp_class[b] and find(x) == x and x != b:
-                absorb(x, b)
-        if small(b):
-            heapq.heappush(heap, (float(area[b]), b))
+    def run(self) -> NDArray[np.int64]:
+        """Merge the small pieces, smallest first; the root piece of every piece."""
+        heap = [(float(self.area[i]), i) for i in range(1, len(self.parent)) if self.small(i)]
+        heapq.heapify(heap)
+        while heap:
+            a_area, a = heapq.heappop(heap)
+            if self.find(a) != a or float(self.area[a]) != a_area or not self.small(a):
+                continue
+            nbrs = self.adj_in.get(a) or self.adj_all.get(a)
+            if not nbrs:
+                self.stuck += 1
+                continue
+            b = max(nbrs, key=lambda x: (round(nbrs[x], 6), self.area[x], -x))
+            self.absorb(a, b)
+            self.merged += 1
+            # neighbours of the merged piece in b's class are now joined to b
+            for x in list(self.adj_all.get(b, {})):
+                if self.comp_class[x] == self.comp_class[b] and self.find(x) == x and x != b:
+                    self.absorb(x, b)
+            if self.small(b):
+                heapq.heappush(heap, (float(self.area[b]), b))
+        return np.array([self.find(i) for i in range(len(self.parent))])
+
+
+def _merge_components(
+    cls: NDArray[np.int64],
+    *,
+    overlap: NDArray[np.float64],
+    has_rate: NDArray[np.bool_],
+    transform: Affine,
+    min_area_m2: float,
+    notes: list[str],
+) -> NDArray[np.int64]:
+    """Merge connected class pieces smaller than ``min_area_m2`` (area inside the
+    working area) or without a rated cell into the neighbour with the longest
+    shared edge, on the raster."""
+    comp, comp_class = _label_pieces(cls)
+    n = len(comp_class) - 1
+    adj_in, adj_all = _piece_edges(comp, overlap > 0, transform)
+    merger = _PieceMerger(
+        comp_class=comp_class,
+        area=np.bincount(comp.ravel(), weights=overlap.ravel(), minlength=n + 1),
+        nrate=np.bincount(comp.ravel(), weights=has_rate.ravel().astype(float), minlength=n + 1),
+        adj_in=adj_in, adj_all=adj_all, min_area_m2=min_area_m2)
+    roots = merger.run()
+    merged, stuck = merger.merged, merger.stuck
     if merged:
         notes.append(
             f"{merged} class piece{'s' if merged != 1 else ''} smaller than "
@@ -876,7 +915,6 @@ def _merge_components(
     if stuck:
         notes.append(f"{stuck} small class piece{'s' if stuck != 1 else ''} had no neighbour "
                      "to merge into and were kept")
-    roots = np.array([find(i) for i in range(n + 1)])
     return np.asarray(comp_class)[roots][comp]
 
 
@@ -1218,6 +1256,49 @@ def make_zones(
         Spreader limits set zones to 0 or split them into several passes.
     """
     crs = pyproj.CRS.from_user_input(crs)
+    rate = _checked_rate(rate, transform=transform, crs=crs, paddock=paddock, product=product)
+    notes = _method_notes(settings, user_zones)
+    percentile = parse_statistic(settings.statistic)
+    sp = spreader if spreader is not None else SpreaderSettings()
+    boundary = _checked_boundary(boundary, crs=crs, paddock=paddock)
+    excl = _exclusion_area(exclusions, crs=crs, boundary=boundary,
+                           buffer_m=line_buffer_m)
+    excluded = shapely.union_all([g for g, _ in excl]) if excl else shapely.Polygon()
+    work = _polygonal(shapely.difference(boundary, excluded)) if excl else boundary
+
+    laid = _lay_pieces(rate, transform=transform, crs=crs, work=work, boundary=boundary,
+                       user_zones=user_zones, paddock=paddock, settings=settings, spreader=sp,
+                       notes=notes)
+    pieces, remainder = _tidy_pieces(laid.pieces, work=work, settings=settings,
+                                     paddock=paddock, product=product, notes=notes)
+    ordered = sorted(pieces, key=lambda p: p.order)
+    entries = [(p.geom, "rate", p.label) for p in ordered]
+    classes: list[int | None] = [p.cls for p in ordered]
+    if remainder.area > 0:
+        entries.append((remainder, "remainder", "remainder"))
+        classes.append(None)
+    stats = _zone_rates([g for g, _, _ in entries], rate, transform, percentile, classes=classes,
+                        class_raster=laid.class_raster, overlap=laid.overlap, centre=laid.centre)
+    stats += _zone_rates([g for g, _ in excl], rate, transform, None)
+    rows, limits = _zone_rows(entries, stats[:len(entries)], spreader=sp)
+    for (geom, label), (_, n_cells) in zip(excl, stats[len(entries):], strict=True):
+        rows.append(dict(zone=len(rows) + 1, kind="exclusion", label=label, rate_kg_ha=0.0,
+                         rate_raw_kg_ha=0.0, passes=0, per_pass_kg_ha=0.0, schedule="",
+                         area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
+
+    where = f"paddock '{paddock}', {product}"
+    _warn_limits(limits, where=where, spreader=sp, notes=notes)
+    zones = _zone_frame(rows, paddock=paddock, product=product, crs=crs)
+    # every note names its product (a paddock's notes of several products read alike)
+    notes = [n if n.startswith(where) else f"{product}: {n}" for n in notes]
+    for n in notes:
+        logger.info("%s", n)
+    return ZoneResult(zones=zones, notes=notes)
+
+
+def _checked_rate(rate: NDArray[np.float64], *, transform: Affine, crs: pyproj.CRS,
+                  paddock: str, product: str) -> NDArray[np.float64]:
+    """The rate raster as a 2-D float array; a metre CRS, a north-up raster, no negative rate."""
     if not crs.is_projected or crs.axis_info[0].unit_conversion_factor != 1.0:
         raise CRSError(
             f"zones need a projected working CRS in metres; got {crs.name}. "
@@ -1235,117 +1316,143 @@ def make_zones(
             f"(down to {finite.min():g} kg/ha)",
             fix="rates are amounts to spread and cannot be negative; check the rate rules",
         )
-    if user_zones is not None and settings.method != "user_zones":
-        notes_pre = [f"method is '{settings.method}': the user zones were not used for "
-                     "spreader zones"]
-    else:
-        notes_pre = []
+    return rate
+
+
+def _method_notes(settings: ZoneSettings, user_zones: gpd.GeoDataFrame | None) -> list[str]:
+    """The zone method against the user's zones: a note when they are given and not used;
+    an error when the method needs them and there are none."""
     if settings.method == "user_zones" and user_zones is None:
         raise SettingsError(
             "method 'user_zones' needs a zone file; set [boundaries] zones, or choose "
             f"another method ({', '.join(m for m in METHODS if m != 'user_zones')})",
             key="method",
         )
-    notes: list[str] = list(notes_pre)
-    percentile = parse_statistic(settings.statistic)
-    sp = spreader if spreader is not None else SpreaderSettings()
+    if user_zones is not None and settings.method != "user_zones":
+        return [f"method is '{settings.method}': the user zones were not used for "
+                "spreader zones"]
+    return []
 
+
+def _checked_boundary(boundary: Any, *, crs: pyproj.CRS, paddock: str) -> BaseGeometry:
+    """The paddock as one polygonal geometry in ``crs`` (an empty one refused)."""
     if isinstance(boundary, (gpd.GeoSeries, gpd.GeoDataFrame)):
         boundary = shapely.union_all(_as_geoms(boundary, crs=crs, what="paddock")[0])
     boundary = _polygonal(boundary)
     if boundary.is_empty:
         raise InputError(f"paddock '{paddock}' has an empty boundary",
                          fix="check the paddock file")
+    return boundary
 
-    excl = _exclusion_area(exclusions, crs=crs, boundary=boundary,
-                           buffer_m=line_buffer_m)
-    excluded = shapely.union_all([g for g, _ in excl]) if excl else shapely.Polygon()
-    work = _polygonal(shapely.difference(boundary, excluded)) if excl else boundary
 
+@dataclass
+class _Laid:
+    """The zone pieces of a method, and for class zones the rasters their rates come from."""
+
+    pieces: list[_Piece]
     class_raster: NDArray[np.int64] | None = None
     overlap: NDArray[np.float64] | None = None
     centre: NDArray[np.bool_] | None = None
+
+
+def _lay_pieces(rate: NDArray[np.float64], *, transform: Affine, crs: pyproj.CRS,
+                work: BaseGeometry, boundary: BaseGeometry,
+                user_zones: gpd.GeoDataFrame | None, paddock: str, settings: ZoneSettings,
+                spreader: SpreaderSettings, notes: list[str]) -> _Laid:
+    """The pieces the zone method lays over the working area."""
     if work.is_empty:
-        pieces: list[_Piece] = []
         notes.append(f"paddock '{paddock}' is excluded in full")
-    elif settings.method in _CLASS_METHODS:
+        return _Laid(pieces=[])
+    if settings.method in _CLASS_METHODS:
         overlap, centre = _work_overlap(shapely.to_wkb(work), tuple(transform), rate.shape)
         pieces, class_raster = _class_zones(rate, transform=transform, work=work,
-                                            overlap=overlap, settings=settings, spreader=sp,
-                                            notes=notes)
-    elif settings.method == "spreader_grid":
-        pieces = _grid_zones(work=work, boundary=boundary, settings=settings, notes=notes)
-    else:
-        assert user_zones is not None
-        pieces = _user_zones(user_zones, crs=crs, work=work, paddock=paddock, notes=notes)
+                                            overlap=overlap, settings=settings,
+                                            spreader=spreader, notes=notes)
+        return _Laid(pieces=pieces, class_raster=class_raster, overlap=overlap, centre=centre)
+    if settings.method == "spreader_grid":
+        return _Laid(pieces=_grid_zones(work=work, boundary=boundary, settings=settings,
+                                        notes=notes))
+    assert user_zones is not None
+    return _Laid(pieces=_user_zones(user_zones, crs=crs, work=work, paddock=paddock,
+                                    notes=notes))
 
-    remainder: BaseGeometry = shapely.Polygon()
-    if not work.is_empty:
-        dust = _dust_m2(work)
-        for p in pieces:
-            kept = _drop_dust(p.geom, dust)
-            if kept is not p.geom:
-                p.cls = None  # no longer exactly its class's cells
-            p.geom = kept
-        pieces = [p for p in pieces if not p.geom.is_empty]
-        pieces, remainder = _remainder(
-            pieces, work=work, min_area_m2=settings.min_zone_area_ha * 1e4,
-            paddock=paddock, product=product, notes=notes,
-        )
 
+def _tidy_pieces(pieces: list[_Piece], *, work: BaseGeometry, settings: ZoneSettings,
+                 paddock: str, product: str,
+                 notes: list[str]) -> tuple[list[_Piece], BaseGeometry]:
+    """Pieces without their dust, and the part of the working area no piece covers."""
+    if work.is_empty:
+        return pieces, shapely.Polygon()
+    dust = _dust_m2(work)
+    for p in pieces:
+        kept = _drop_dust(p.geom, dust)
+        if kept is not p.geom:
+            p.cls = None  # no longer exactly its class's cells
+        p.geom = kept
+    pieces = [p for p in pieces if not p.geom.is_empty]
+    return _remainder(pieces, work=work, min_area_m2=settings.min_zone_area_ha * 1e4,
+                      paddock=paddock, product=product, notes=notes)
+
+
+@dataclass
+class _Limits:
+    """Zones the spreader's limits changed: no rated cell, below the minimum, split."""
+
+    no_rate: list[str] = field(default_factory=list)
+    zeroed: list[str] = field(default_factory=list)
+    split: list[str] = field(default_factory=list)
+
+
+def _zone_rows(entries: list[tuple[BaseGeometry, str, str]],
+               stats: list[tuple[float, int]], *,
+               spreader: SpreaderSettings) -> tuple[list[dict[str, Any]], _Limits]:
+    """One row per rate or remainder zone, its rate limited by the spreader."""
     rows: list[dict[str, Any]] = []
-    ordered = sorted(pieces, key=lambda p: p.order)
-    entries = [(p.geom, "rate", p.label) for p in ordered]
-    classes: list[int | None] = [p.cls for p in ordered]
-    if remainder.area > 0:
-        entries.append((remainder, "remainder", "remainder"))
-        classes.append(None)
-    stats = _zone_rates([g for g, _, _ in entries], rate, transform, percentile,
-                        classes=classes, class_raster=class_raster, overlap=overlap,
-                        centre=centre)
-    stats += _zone_rates([g for g, _ in excl], rate, transform, None)
-    no_rate: list[str] = []
-    zeroed: list[str] = []
-    split: list[str] = []
-    for number, (geom, kind, label) in enumerate(entries, start=1):
-        raw, n_cells = stats[number - 1]
+    limits = _Limits()
+    for number, ((geom, kind, label), (raw, n_cells)) in enumerate(
+            zip(entries, stats, strict=True), start=1):
         if not math.isfinite(raw):
-            no_rate.append(label)
-        limited = limit_zone_rate(raw, spreader=sp)
+            limits.no_rate.append(label)
+        limited = limit_zone_rate(raw, spreader=spreader)
         spread, passes = limited.rate_kg_ha, limited.passes
         if label == NO_PRODUCT:
             if spread > 0:  # small pieces merged into it brought it to a spreadable rate
                 label = "class 0"
         elif math.isfinite(raw) and raw > 0 and spread == 0:
-            zeroed.append(str(number))
+            limits.zeroed.append(str(number))
         if passes > 1:
-            split.append(f"{number} ({passes} {sp.split_into})")
+            limits.split.append(f"{number} ({passes} {spreader.split_into})")
         rows.append(dict(zone=number, kind=kind, label=label, rate_kg_ha=spread,
                          rate_raw_kg_ha=raw if math.isfinite(raw) else 0.0, passes=passes,
                          per_pass_kg_ha=limited.per_pass_kg_ha, schedule=limited.schedule,
                          area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
-    for (geom, label), (_, n_cells) in zip(excl, stats[len(entries):], strict=True):
-        rows.append(dict(zone=len(rows) + 1, kind="exclusion", label=label, rate_kg_ha=0.0,
-                         rate_raw_kg_ha=0.0, passes=0, per_pass_kg_ha=0.0, schedule="",
-                         area_ha=geom.area / 1e4, n_cells=n_cells, geometry=geom))
+    return rows, limits
 
-    where = f"paddock '{paddock}', {product}"
-    if no_rate:
-        msg = (f"{where}: zone(s) {_id_list([repr(x) for x in no_rate])} cover no cell with a "
-               "rate and get rate 0")
+
+def _warn_limits(limits: _Limits, *, where: str, spreader: SpreaderSettings,
+                 notes: list[str]) -> None:
+    """A note and a warning for each kind of zone the limits changed."""
+    sp = spreader
+    if limits.no_rate:
+        msg = (f"{where}: zone(s) {_id_list([repr(x) for x in limits.no_rate])} cover no cell "
+               "with a rate and get rate 0")
         notes.append(msg)
-        warnings.warn(msg, DataWarning, stacklevel=2)
-    if zeroed:
-        msg = (f"{where}: zone(s) {_id_list(zeroed)} fall below the spreader's minimum rate "
-               f"of {sp.min_rate:g} {sp.unit} and get rate 0")
+        warnings.warn(msg, DataWarning, stacklevel=3)
+    if limits.zeroed:
+        msg = (f"{where}: zone(s) {_id_list(limits.zeroed)} fall below the spreader's minimum "
+               f"rate of {sp.min_rate:g} {sp.unit} and get rate 0")
         notes.append(msg)
-        warnings.warn(msg, RateWarning, stacklevel=2)
-    if split:
-        msg = (f"{where}: zone(s) {_id_list(split)} need more than {sp.max_per_pass:g} "
+        warnings.warn(msg, RateWarning, stacklevel=3)
+    if limits.split:
+        msg = (f"{where}: zone(s) {_id_list(limits.split)} need more than {sp.max_per_pass:g} "
                f"{sp.unit} per pass: split into equal {sp.split_into}")
         notes.append(msg)
-        warnings.warn(msg, RateWarning, stacklevel=2)
+        warnings.warn(msg, RateWarning, stacklevel=3)
 
+
+def _zone_frame(rows: list[dict[str, Any]], *, paddock: str, product: str,
+                crs: pyproj.CRS) -> gpd.GeoDataFrame:
+    """The zones as a GeoDataFrame of :data:`ZONE_COLUMNS`."""
     frame = pd.DataFrame(rows, columns=[c for c in ZONE_COLUMNS if c not in ("paddock", "product")])
     frame.insert(0, "product", str(product))
     frame.insert(0, "paddock", str(paddock))
@@ -1353,10 +1460,5 @@ def make_zones(
                           "rate_kg_ha": "float64", "rate_raw_kg_ha": "float64",
                           "per_pass_kg_ha": "float64", "area_ha": "float64",
                           "schedule": "object"})
-    zones = gpd.GeoDataFrame(frame, geometry="geometry", crs=crs)
-    # every note names its product (a paddock's notes of several products read alike)
-    notes = [n if n.startswith(where) else f"{product}: {n}" for n in notes]
-    for n in notes:
-        logger.info("%s", n)
-    return ZoneResult(zones=zones, notes=notes)
+    return gpd.GeoDataFrame(frame, geometry="geometry", crs=crs)
 
