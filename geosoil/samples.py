@@ -53,7 +53,7 @@ import warnings
 import zipfile
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, NamedTuple
+from typing import Any, NamedTuple, NoReturn
 from xml.etree import ElementTree
 
 import geopandas as gpd
@@ -983,69 +983,106 @@ def _analyte_values(
     analyte: str, header: str, unit: str | None, values: pd.Series, rows: np.ndarray,
     settings: SampleSettings, name: str, decimal_comma: bool, issues: list[_Issue],
 ) -> np.ndarray:
+    numbers, texts = _checked_numbers(analyte, header, values, rows, settings, name,
+                                      decimal_comma, issues)
+    if analyte in PROPERTIES:
+        assert unit is not None
+        return _property_values(analyte, header, unit, numbers, texts, rows, issues)
+    if analyte in UNITLESS:
+        return _unitless_values(analyte, header, numbers, texts, rows, issues)
+    assert unit is not None
+    return _exchangeable_values(analyte, header, unit, numbers, texts, rows, settings, name,
+                                issues)
+
+
+_SKIP_FIX = " or set [samples] on_bad_row = 'skip'"
+
+
+def _checked_numbers(
+    analyte: str, header: str, values: pd.Series, rows: np.ndarray, settings: SampleSettings,
+    name: str, decimal_comma: bool, issues: list[_Issue],
+) -> tuple[np.ndarray, list[str]]:
+    """The column's numbers and texts: a problem for each cell that is not a number, empty
+    (unless allowed), below detection (unless a substitute is set) or negative (then NaN)."""
     numbers, status, texts = _cells(values, decimal_comma=decimal_comma)
-    skip_fix = " or set [samples] on_bad_row = 'skip'"
     for i in np.flatnonzero(status == "bad"):
         issues.append(_Issue(int(rows[i]), header, f"'{texts[i]}' is not a number",
-                             "correct the cell" + skip_fix))
-    empty = np.flatnonzero(status == "empty")
+                             "correct the cell" + _SKIP_FIX))
     if analyte not in settings.empty_allowed:
-        for i in empty:
+        for i in np.flatnonzero(status == "empty"):
             issues.append(_Issue(
                 int(rows[i]), header, "the value is empty",
-                f"fill it in, add '{analyte}' to [samples] empty_allowed" + skip_fix,
+                f"fill it in, add '{analyte}' to [samples] empty_allowed" + _SKIP_FIX,
             ))
     below = np.flatnonzero(status == "below")
-    if below.size:
-        if settings.below_detection == "stop":
-            for i in below:
-                issues.append(_Issue(
-                    int(rows[i]), header, f"'{texts[i]}' is below the detection limit",
-                    "set [samples] below_detection = 'half' (or 'limit', 'zero')" + skip_fix,
-                ))
-        else:
-            factor = {"half": 0.5, "limit": 1.0, "zero": 0.0}[settings.below_detection]
-            numbers[below] *= factor
-            warnings.warn(
-                f"{name}, column '{header}': {below.size} value(s) below the detection limit "
-                f"(rows {_row_list(rows[below])}) taken as "
-                + {"half": "half the limit", "limit": "the limit", "zero": "0"}[
-                    settings.below_detection],
-                DataWarning, stacklevel=4,
-            )
+    if below.size and settings.below_detection == "stop":
+        for i in below:
+            issues.append(_Issue(
+                int(rows[i]), header, f"'{texts[i]}' is below the detection limit",
+                "set [samples] below_detection = 'half' (or 'limit', 'zero')" + _SKIP_FIX,
+            ))
+    elif below.size:
+        factor = {"half": 0.5, "limit": 1.0, "zero": 0.0}[settings.below_detection]
+        numbers[below] *= factor
+        warnings.warn(
+            f"{name}, column '{header}': {below.size} value(s) below the detection limit "
+            f"(rows {_row_list(rows[below])}) taken as "
+            + {"half": "half the limit", "limit": "the limit", "zero": "0"}[
+                settings.below_detection],
+            DataWarning, stacklevel=5,
+        )
     negative = np.flatnonzero(numbers < 0)
     for i in negative:
         issues.append(_Issue(int(rows[i]), header, f"negative value {texts[i]}",
-                             "correct the cell" + skip_fix))
+                             "correct the cell" + _SKIP_FIX))
     numbers[negative] = np.nan
-    if analyte in PROPERTIES:
-        assert unit is not None
-        if analyte in ("ec_1_5", "ece"):
-            values_c = to_ds_m(numbers, unit)
-        else:
-            # g/kg -> %, mmol/kg/pH -> cmol/kg/pH: both divide by 10
-            values_c = numbers / 10.0 if unit != PROPERTIES[analyte][0] else numbers
-        top = PLAUSIBLE_MAX_PROPERTY[analyte]
-        for i in np.flatnonzero(values_c > top):
-            issues.append(_Issue(
-                int(rows[i]), header,
-                f"{analyte} = {texts[i]} {unit} is implausibly large (plausible up to {top:g} "
-                f"{PROPERTIES[analyte][0]}, common practice)",
-                f"check the value and the unit ([samples.units] {analyte} = "
-                f"'{' or '.join(PROPERTIES[analyte])}')" + skip_fix,
-            ))
-        return values_c
-    if analyte in UNITLESS:
-        low, high = (PLAUSIBLE_PH if analyte in PH_METHODS else PLAUSIBLE_BUFFER_PH
-                     if analyte in BUFFER_PH else (0.0, PLAUSIBLE_MAX_SAR))
-        for i in np.flatnonzero((numbers < low) | (numbers > high)):
-            issues.append(_Issue(
-                int(rows[i]), header,
-                f"{analyte} = {texts[i]} is outside the plausible {low:g}-{high:g}",
-                "check the value and that the column holds " + analyte + skip_fix,
-            ))
-        return numbers
-    assert unit is not None
+    return numbers, texts
+
+
+def _property_values(
+    analyte: str, header: str, unit: str, numbers: np.ndarray, texts: list[str],
+    rows: np.ndarray, issues: list[_Issue],
+) -> np.ndarray:
+    """A soil property in its canonical unit (EC in dS/m), implausibly large values named."""
+    if analyte in ("ec_1_5", "ece"):
+        values_c = to_ds_m(numbers, unit)
+    else:
+        # g/kg -> %, mmol/kg/pH -> cmol/kg/pH: both divide by 10
+        values_c = numbers / 10.0 if unit != PROPERTIES[analyte][0] else numbers
+    top = PLAUSIBLE_MAX_PROPERTY[analyte]
+    for i in np.flatnonzero(values_c > top):
+        issues.append(_Issue(
+            int(rows[i]), header,
+            f"{analyte} = {texts[i]} {unit} is implausibly large (plausible up to {top:g} "
+            f"{PROPERTIES[analyte][0]}, common practice)",
+            f"check the value and the unit ([samples.units] {analyte} = "
+            f"'{' or '.join(PROPERTIES[analyte])}')" + _SKIP_FIX,
+        ))
+    return values_c
+
+
+def _unitless_values(
+    analyte: str, header: str, numbers: np.ndarray, texts: list[str], rows: np.ndarray,
+    issues: list[_Issue],
+) -> np.ndarray:
+    """A pH, buffer pH or SAR, values outside its plausible range named."""
+    low, high = (PLAUSIBLE_PH if analyte in PH_METHODS else PLAUSIBLE_BUFFER_PH
+                 if analyte in BUFFER_PH else (0.0, PLAUSIBLE_MAX_SAR))
+    for i in np.flatnonzero((numbers < low) | (numbers > high)):
+        issues.append(_Issue(
+            int(rows[i]), header,
+            f"{analyte} = {texts[i]} is outside the plausible {low:g}-{high:g}",
+            "check the value and that the column holds " + analyte + _SKIP_FIX,
+        ))
+    return numbers
+
+
+def _exchangeable_values(
+    analyte: str, header: str, unit: str, numbers: np.ndarray, texts: list[str],
+    rows: np.ndarray, settings: SampleSettings, name: str, issues: list[_Issue],
+) -> np.ndarray:
+    """An exchangeable cation or acidity in cmol(+)/kg; implausibly large values named, and
+    refused as a wrong unit when they are most of the column."""
     rho = settings.scoop_density_g_cm3
     cmol = to_cmol_kg(numbers, analyte, unit, density_g_cm3=rho)
     limit = PLAUSIBLE_MAX_CMOL[analyte]
@@ -1064,7 +1101,7 @@ def _analyte_values(
                              file=name, row=int(rows[too_big[0]]), column=header, fix=unit_fix)
         for i in too_big:
             issues.append(_Issue(int(rows[i]), header, problem(int(i)),
-                                 "correct the cell, or " + unit_fix + skip_fix))
+                                 "correct the cell, or " + unit_fix + _SKIP_FIX))
     return cmol
 
 
@@ -1190,6 +1227,40 @@ def _vector_points(
 # --------------------------------------------------------------------------- public
 
 
+def _refuse_undecided(unsure: dict[str, str], name: str, header_row: int | None) -> NoReturn:
+    """Stop on the first column whose meaning its header leaves open, naming the others."""
+    header, why = next(iter(unsure.items()))
+    more = len(unsure) - 1
+    raise InputError(
+        why.split("; set ")[0] + (f" ({more} more such column(s): "
+                                 + ", ".join(repr(h) for h in list(unsure)[1:]) + ")"
+                                 if more else ""),
+        file=name, row=header_row, column=header, fix="set " + why.split("; set ")[1],
+    )
+
+
+def _id_issues(ids: list[str], rows: np.ndarray, id_header: str,
+               depths: tuple[np.ndarray, np.ndarray] | None, issues: list[_Issue]) -> None:
+    """A problem for each empty sample ID and each ID seen before (at the same depth: one ID
+    may name a place sampled at several depths)."""
+    first_seen: dict[tuple[str, float, float], int] = {}
+    for i, sid in enumerate(ids):
+        at = (sid, float(depths[0][i]), float(depths[1][i])) if depths is not None else (
+            sid, 0.0, 0.0)
+        if not sid:
+            issues.append(_Issue(int(rows[i]), id_header, "the sample ID is empty",
+                                 "give every sample an ID, or set [samples] on_bad_row = 'skip'"))
+        elif at in first_seen:
+            issues.append(_Issue(
+                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[at]}"
+                + (" at the same depth" if depths is not None else ""),
+                "give each sample its own ID, or set [samples] on_bad_row = 'skip' to keep "
+                "the first",
+            ))
+        else:
+            first_seen[at] = int(rows[i])
+
+
 def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> SampleRead:
     """Read and check the lab results named in ``settings``.
 
@@ -1233,14 +1304,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
         described=described,
     )
     if unsure and undecided == "stop":
-        header, why = next(iter(unsure.items()))
-        more = len(unsure) - 1
-        raise InputError(
-            why.split("; set ")[0] + (f" ({more} more such column(s): "
-                                     + ", ".join(repr(h) for h in list(unsure)[1:]) + ")"
-                                     if more else ""),
-            file=name, row=raw.header_row, column=header, fix="set " + why.split("; set ")[1],
-        )
+        _refuse_undecided(unsure, name, raw.header_row)
     units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
                    units_row=raw.units_row)
     per_volume = sorted(a for a, u in units.items() if u in VOLUMETRIC_UNITS)
@@ -1257,23 +1321,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     depths = _read_depths(table, rows, depth_headers, settings, raw.decimal_comma, issues)
 
     ids = [_id_text(v) for v in table[id_header].tolist()]
-    # one ID may name a place sampled at several depths: an ID is unique per depth
-    first_seen: dict[tuple[str, float, float], int] = {}
-    for i, sid in enumerate(ids):
-        at = (sid, float(depths[0][i]), float(depths[1][i])) if depths is not None else (
-            sid, 0.0, 0.0)
-        if not sid:
-            issues.append(_Issue(int(rows[i]), id_header, "the sample ID is empty",
-                                 "give every sample an ID, or set [samples] on_bad_row = 'skip'"))
-        elif at in first_seen:
-            issues.append(_Issue(
-                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[at]}"
-                + (" at the same depth" if depths is not None else ""),
-                "give each sample its own ID, or set [samples] on_bad_row = 'skip' to keep "
-                "the first",
-            ))
-        else:
-            first_seen[at] = int(rows[i])
+    _id_issues(ids, rows, id_header, depths, issues)
 
     values = {
         a: _analyte_values(a, columns[a], units[a], table[columns[a]], rows, settings, name,
