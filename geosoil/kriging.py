@@ -91,6 +91,7 @@ if TYPE_CHECKING:
 
 __all__ = [
     "SMALL_SYSTEM",
+    "IDW_BLOCK_ENTRIES",
     "CrossValidation",
     "small_blas",
     "ordinary_kriging",
@@ -778,6 +779,10 @@ def loo_cross_validation(
     )
 
 
+#: Most target-sample distances :func:`idw` holds at once (32 MB each array of them).
+IDW_BLOCK_ENTRIES = 4_000_000
+
+
 def idw(
     xy_data: ArrayLike,
     values: ArrayLike,
@@ -798,7 +803,8 @@ def idw(
     power
         Weights are ``distance ** -power`` (more than 0; 2 is common practice).
     block_cells
-        Targets per block (bounds memory).
+        Targets per block (bounds memory; fewer when there are so many samples that a
+        block would hold more than :data:`IDW_BLOCK_ENTRIES` distances).
 
     Returns
     -------
@@ -815,6 +821,7 @@ def idw(
     if not (np.isfinite(power) and power > 0):
         raise SettingsError(f"must be more than 0 (got {power!r})", key="power")
     out = np.empty(len(xt))
+    block_cells = max(1, min(int(block_cells), IDW_BLOCK_ENTRIES // max(len(z), 1)))
     for a in range(0, len(xt), block_cells):
         d2 = _pair_sq(xt[a : a + block_cells], xd)
         on_top = d2 <= _EPS2

@@ -358,6 +358,24 @@ def test_idw_stays_within_the_sample_range(seed: int, power: float) -> None:
     assert np.all(est >= z.min() - 1e-12) and np.all(est <= z.max() + 1e-12)
 
 
+def test_idw_holds_fewer_targets_at_once_when_samples_are_many(monkeypatch) -> None:  # noqa: ANN001
+    import geosoil.kriging as kriging_mod
+
+    xy, z, target = random_case(4, n=50, m=300)
+    whole = idw(xy, z, target)
+    shapes: list[tuple[int, ...]] = []
+    real = kriging_mod._pair_sq
+
+    def spy(a, b):  # noqa: ANN001, ANN202
+        shapes.append((len(a), len(b)))
+        return real(a, b)
+
+    monkeypatch.setattr(kriging_mod, "_pair_sq", spy)
+    monkeypatch.setattr(kriging_mod, "IDW_BLOCK_ENTRIES", 120)  # 2 targets x 50 samples a block
+    np.testing.assert_allclose(idw(xy, z, target), whole, rtol=1e-12)
+    assert len(shapes) == 150 and max(a * b for a, b in shapes) <= 120
+
+
 def test_idw_refuses_a_bad_power() -> None:
     with pytest.raises(SettingsError) as info:
         idw([[0, 0]], [1.0], [[1, 1]], power=0.0)

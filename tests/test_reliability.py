@@ -414,3 +414,84 @@ def test_with_overlaps_first_the_farm_totals_are_the_union_s(tmp_path: Path) -> 
         assert abs(rows[0].loc[product, "tonnes"] - rows[1].loc[product, "tonnes"]) <= 0.0101
     pads = farms[0].prep.paddocks.set_index("paddock").geometry
     assert pads["Dam Side"].area == pytest.approx(300 * 300)  # 9 ha left once 3 ha went north
+
+
+# ------------------------------------------------------------------- samples per paddock
+
+
+def _dense_lab(folder: Path, per_paddock: int, paddocks: int = 1) -> None:
+    """``per_paddock`` samples on a jittered grid in each box of the small farm, with values
+    that vary smoothly across it (invented; the tests check which samples are used)."""
+    import numpy as np
+
+    rng = np.random.default_rng(7)
+    rows = []
+    for k in range(paddocks):
+        for i in range(per_paddock):
+            x = X0 + k * 500 + 10 + (i % 8) * 48 + rng.uniform(0, 20)
+            y = Y0 + 10 + (i // 8) * 280 / (per_paddock / 8) + rng.uniform(0, 15)
+            u = (x - X0 - k * 500) / 400
+            rows.append(f"P{k}S{i:03d},{x:.1f},{y:.1f},{5.0 + u + rng.normal(0, .1):.2f},"
+                        f"{6 + 3 * u + rng.normal(0, .3):.2f},{2 + np.sin(3 * u):.2f},"
+                        f"{0.5 + rng.normal(0, .05):.2f},{0.8 + u / 2:.2f},0.2")
+    (folder / "lab.csv").write_text(HEADER + "\n" + "\n".join(rows) + "\n")
+
+
+def test_above_the_fitting_ceiling_variograms_are_fitted_on_a_spread_subset_and_said(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The ceiling is lowered below the farm's 48 samples, so the rule runs here: the
+    model choice and the cross-validation see the subset, the kriging every sample."""
+    from geosoil import model_choice, surfaces
+    from geosoil.pipeline import compute
+
+    seen: list[int] = []
+    real = model_choice.select_model
+
+    def spy(xy, values, **kw):  # noqa: ANN001, ANN003, ANN202
+        seen.append(len(values))
+        return real(xy, values, **kw)
+
+    monkeypatch.setattr(surfaces, "select_model", spy)
+    monkeypatch.setattr(surfaces, "FIT_MAX_SAMPLES", 30)
+    folder = make_project(tmp_path / "farm", extra=(
+        "[interpolation]\nmin_samples_variogram = 10\n"))
+    _dense_lab(folder, 48)
+    farm = compute(load_project(folder), use_cache=False)
+    kriged = [s for s in farm.surfaces.values() if s.method == "ordinary kriging"]
+    assert kriged and seen and max(seen) == 30
+    for s in kriged:
+        assert s.n_samples == 48 and s.cross_validation is not None
+        assert s.cross_validation.n == 30
+        assert any("fitted and cross-validated on 30 of the 48 samples" in n for n in s.notes)
+    told = [w for w in farm.warnings if "more than the 30 a variogram is fitted" in w]
+    assert len(told) == 1 and told[0].startswith("Home, ")
+    # the subset is seeded: a second run fits the same variograms
+    again = compute(load_project(folder), use_cache=False)
+    for key, s in farm.surfaces.items():
+        assert again.surfaces[key].model == s.model
+
+
+def test_a_fixed_or_farm_variogram_is_cross_validated_on_the_subset(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from geosoil import surfaces
+    from geosoil.pipeline import compute
+
+    monkeypatch.setattr(surfaces, "FIT_MAX_SAMPLES", 30)
+    folder = make_project(tmp_path / "farm", names=("Home", "Back"), extra=(
+        '[interpolation]\nvariogram_scope = "farm"\n\n'
+        '[interpolation.fixed.ca]\nmodel = "spherical"\nnugget = 0.1\npsill = 1.0\n'
+        "range_m = 300.0\n"))
+    _dense_lab(folder, 40, paddocks=2)
+    farm = compute(load_project(folder), use_cache=False)
+    ca = farm.surfaces[("Home", "ca")]
+    assert ca.method == "ordinary kriging" and ca.cross_validation.n == 30
+    assert any(n.startswith("cross-validated on 30 of the 40 samples") for n in ca.notes)
+    assert any("empirical variogram (shown only) on 30 of the 80 samples" in n for n in ca.notes)
+    ph = farm.surfaces[("Back", "ph_cacl2")]
+    assert ph.variogram_scope == "farm" and ph.cross_validation.n == 30
+    assert any("variogram fitted and cross-validated on 30 of the 80 samples" in n
+               for n in ph.notes)
+    pooled = [w for w in farm.warnings if w.startswith("farm-wide variogram: 80 samples")]
+    assert len(pooled) == 1
