@@ -153,9 +153,14 @@ def apportion(total: int, weights: np.ndarray) -> np.ndarray:
     if not s > 0:
         out[0] = total
         return out
-    quota = total * w / s
-    base = np.floor(quota).astype("int64")  # adds up to total or less
-    rest = total - int(base.sum())
+    return _largest_remainder(total, total * w / s)
+
+
+def _largest_remainder(total: int, quota: np.ndarray) -> np.ndarray:
+    """Each quota's floor, and one more for the largest remainders until ``total``; when the
+    quotas add up to ``total`` within 0.5, every share is its quota's floor or ceiling."""
+    base = np.floor(quota).astype("int64")
+    rest = max(total - int(base.sum()), 0)
     order = np.argsort(-(quota - base), kind="stable")
     base[order[:rest]] += 1
     return base
@@ -276,7 +281,9 @@ def tonnage_table(
                            ("short_tons", t_exact * 1000.0 / KG_PER_SHORT_TON)):
             total = _cents(float(exact.sum()))
             sums[col] = total
-            shares[col] = apportion(total, exact)
+            # the rounded total shared by the exact figures themselves (not rescaled to it),
+            # so each zone is its exact figure rounded up or down
+            shares[col] = _largest_remainder(total, exact * 100.0)
         tonnes = sums["tonnes"] or 0
         if math.isfinite(cap):
             loads = math.ceil(tonnes / 100 / cap - 1e-9) if tonnes > 0 else 0
