@@ -393,6 +393,42 @@ def test_cells_land_where_pyproj_puts_them(place, fx, fy, cell, rows, cols, prob
     assert min(lons) - w < 1.5 * pixel_deg and e - max(lons) < 1.5 * pixel_deg
 
 
+@settings(max_examples=25, deadline=None)
+@given(
+    place=st.sampled_from(_PLACES),
+    cell=st.sampled_from([5.0, 10.0, 30.0]),
+    rows=st.integers(1, 40),
+    cols=st.integers(1, 40),
+    oversample=st.sampled_from([1, 2, 4]),
+    seed=st.integers(0, 2**16),
+)
+def test_warp_by_index_lookup_equals_gdals_warp_of_each_surface(
+    place, cell, rows, cols, oversample, seed,
+) -> None:
+    """Every surface of a grid is warped by looking up the cell each web pixel took when GDAL
+    warped the cells' index numbers once: the same array as rasterio.warp.reproject (nearest,
+    NaN as no data) gives for that surface, NaN cells included."""
+    import rasterio.warp
+    from rasterio.enums import Resampling
+
+    crs_code, (lon0, _lon1), (lat0, _lat1) = place
+    crs = pyproj.CRS.from_user_input(crs_code)
+    ox, oy = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True).transform(lon0, lat0)
+    transform = affine.Affine(cell, 0, ox, 0, -cell, oy)
+    rng = np.random.default_rng(seed)
+    for _ in range(3):  # three surfaces of the one grid
+        values = rng.normal(size=(rows, cols))
+        values[rng.random((rows, cols)) < 0.3] = np.nan
+        web = webmap.warp_to_web_mercator(values, transform=transform, crs=crs,
+                                          oversample=oversample)
+        want = np.full(web.array.shape, np.nan)
+        rasterio.warp.reproject(source=values, destination=want, src_transform=transform,
+                                src_crs=crs, src_nodata=np.nan, dst_transform=web.transform,
+                                dst_crs="EPSG:3857", dst_nodata=np.nan,
+                                resampling=Resampling.nearest)
+        np.testing.assert_array_equal(web.array, want)
+
+
 def test_warp_respects_the_pixel_budget() -> None:
     t = affine.Affine(1.0, 0, 500_000, 0, -1.0, 6_200_000)
     web = webmap.warp_to_web_mercator(
