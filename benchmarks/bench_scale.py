@@ -147,7 +147,7 @@ def one_farm(ha: float, paddocks: int, samples: int, *, keep: Path | None) -> di
                               env=env)
         rec = json.loads((tmp / "out" / "run.json").read_text(encoding="utf-8"))
         out.update(full_s=wall, full_cpu_s=LAST_CPU_S[0], full_mib=peak,
-                   stages=rec.get("timings_s", {}))
+                   stages=rec.get("timings_s", {}), cpu=rec.get("cpu_s", {}))
         # a rate change: the surfaces come from the cache
         toml = tmp / "project" / "geosoil.toml"
         text = toml.read_text(encoding="utf-8")
@@ -159,6 +159,7 @@ def one_farm(ha: float, paddocks: int, samples: int, *, keep: Path | None) -> di
         rec2 = json.loads((tmp / "out" / "run.json").read_text(encoding="utf-8"))
         out.update(rerun_s=wall2, rerun_cpu_s=LAST_CPU_S[0], rerun_mib=peak2,
                    rerun_stages=rec2.get("timings_s", {}), copied=rec2.get("geotiffs_copied"),
+                   rerun_cpu=rec2.get("cpu_s", {}),
                    cell_size_m=rec.get("settings", {}).get("grid", {}).get("cell_size_m"))
         if keep is not None:
             shutil.copytree(tmp, keep, dirs_exist_ok=True)
@@ -167,12 +168,19 @@ def one_farm(ha: float, paddocks: int, samples: int, *, keep: Path | None) -> di
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+def _stages(wall: dict[str, float], cpu: dict[str, float], total_cpu: float) -> str:
+    """Each stage's wall time with its CPU time, and the CPU left for start-up and writing."""
+    parts = [f"{k} {v:.1f} s (CPU {cpu.get(k, float('nan')):.1f})" for k, v in wall.items()]
+    rest = total_cpu - sum(cpu.values()) if cpu else float("nan")
+    return ", ".join(parts) + f"; start-up and writing CPU {rest:.1f} s"
+
+
 def _print(r: dict[str, object]) -> None:
-    stages = ", ".join(f"{k} {v:.1f} s" for k, v in r["stages"].items())  # type: ignore[union-attr]
+    stages = _stages(r["stages"], r["cpu"], r["full_cpu_s"])  # type: ignore[arg-type]
     print(f"  cell size {r['cell_size_m']} m")
     print(f"  full run  {r['full_s']:6.1f} s  (CPU {r['full_cpu_s']:6.1f} s)  peak "
           f"{r['full_mib']:6.0f} MiB   ({stages})")
-    stages = ", ".join(f"{k} {v:.1f} s" for k, v in r["rerun_stages"].items())  # type: ignore[union-attr]
+    stages = _stages(r["rerun_stages"], r["rerun_cpu"], r["rerun_cpu_s"])  # type: ignore[arg-type]
     print(f"  re-run    {r['rerun_s']:6.1f} s  (CPU {r['rerun_cpu_s']:6.1f} s)  (rate change, "
           f"surfaces cached: {stages}; GeoTIFFs copied: {r['copied']})")
     if r["ha"] == 5000:

@@ -742,6 +742,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "zones": zone_rows,
         "tonnage": json.loads(totals.to_json(orient="records")),
         "timings_s": {k: round(v, 3) for k, v in farm.timings.items()},
+        "cpu_s": {k: round(v, 3) for k, v in farm.cpu_timings.items()},
         "warnings": list(farm.warnings),
         "lime": {
             "method": s.rates.lime.method,
