@@ -15,9 +15,10 @@ __all__ = ["compare"]
 @click.argument("last", type=click.Path(exists=True, path_type=Path), metavar="LAST")
 @click.argument("this", type=click.Path(exists=True, path_type=Path), metavar="THIS")
 @out_option
-@click.option("--ph-conversion", "ph_conversion", default=None, metavar="'water = cacl2 + 0.6'",
+@click.option("--ph-conversion", "ph_conversion", default=None, metavar="EQUATION",
               help="A pH conversion you trust, used only when the seasons' labs measured pH "
-                   "by different methods (water, cacl2, kcl): 'TO = SLOPE * FROM + OFFSET'.")
+                   "by different methods (water, cacl2, kcl): 'TO = SLOPE * FROM + OFFSET', e.g. "
+                   "'water = cacl2 + 0.6'.")
 @click.option("--no-ph", "no_ph", is_flag=True,
               help="Leave pH out (seasons of different pH methods and no conversion).")
 @click.option("--z", "z", type=click.FloatRange(min=0.0, min_open=True), default=1.96,
