@@ -2,17 +2,40 @@
 
 from __future__ import annotations
 
+import sys
+from typing import Any
+
 import click
 
 from geosoil import __version__
 
 from . import batch, check, compare, demo, explain, new, plan, run
-from .options import set_verbosity
+from .options import set_verbosity, show_click_error, show_warnings_clean
 
 __all__ = ["main", "cli"]
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class _Group(click.Group):
+    """The command group, whose usage errors reach the terminal with control characters
+    shown as escapes (click would print what was typed as it is)."""
+
+    def main(self, *args: Any, **kwargs: Any) -> Any:
+        if kwargs.get("standalone_mode", True) is False:
+            return super().main(*args, **kwargs)
+        kwargs["standalone_mode"] = False
+        try:
+            code = super().main(*args, **kwargs)
+        except click.ClickException as exc:
+            show_click_error(exc)
+            sys.exit(exc.exit_code)
+        except click.Abort:
+            click.echo("Aborted!", err=True)
+            sys.exit(1)
+        # without standalone mode click returns --help's and --version's exit code
+        sys.exit(code if isinstance(code, int) else 0)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="geosoil")
 @click.option("-v", "--verbose", count=True, help="More messages on stderr (-vv for debugging).")
 @click.option("-q", "--quiet", is_flag=True, help="Only errors on stderr; results still on stdout.")
@@ -29,6 +52,7 @@ def cli(ctx: click.Context, verbose: int, quiet: bool) -> None:
     ctx.obj["quiet"] = quiet
     ctx.obj["verbose"] = verbose
     set_verbosity(verbose, quiet)
+    show_warnings_clean()
 
 
 cli.add_command(new.new)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import warnings
 from pathlib import Path
 
 import click
@@ -66,15 +65,16 @@ def new(
     'geosoil check FOLDER' and 'geosoil run FOLDER --out DIR'.
     """
     from geosoil.project import new_project
+    from geosoil.recording import record_warnings
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    # what reading the files warned about, once each, recorded as 'check' and 'run' do
+    found: list[str] = []
+    with record_warnings(found):
         path, notes = new_project(folder, samples=samples, paddocks=paddocks, crs=crs,
                                   overwrite=overwrite)
     if not ctx.obj["quiet"]:
         for n in notes:
             echo_err(f"note: {n}")
-        # what reading the files warned about, once each, as 'check' and 'run' show it
-        for message in dict.fromkeys(str(w.message) for w in caught):
+        for message in found:
             echo_err(f"warning: {message}")
     echo(str(path))

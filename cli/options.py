@@ -6,6 +6,7 @@ import functools
 import logging
 import re
 import sys
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypeVar
@@ -24,6 +25,8 @@ __all__ = [
     "echo",
     "clean",
     "set_verbosity",
+    "show_click_error",
+    "show_warnings_clean",
 ]
 
 F = TypeVar("F", bound=Callable[..., Any])
@@ -59,6 +62,20 @@ def clean(message: str) -> str:
 def echo(message: str = "", *, err: bool = False) -> None:
     """Print a line for the person at the terminal, control characters made visible."""
     click.echo(clean(message), err=err)
+
+
+def show_click_error(exc: click.ClickException) -> None:
+    """Print a usage error as click words it (usage line, help hint, ``Error: ...``), with
+    control characters shown as escapes: the message may quote what was typed (a path, an
+    option's value), and click would print it as it is on a terminal."""
+    ctx = getattr(exc, "ctx", None)
+    if isinstance(exc, click.UsageError) and ctx is not None:
+        hint = ""
+        if ctx.command.get_help_option(ctx) is not None:
+            option = max(ctx.command.get_help_option_names(ctx), key=len)
+            hint = f"Try '{ctx.command_path} {option}' for help.\n"
+        echo(f"{ctx.get_usage()}\n{hint}", err=True)
+    echo(f"Error: {exc.format_message()}", err=True)
 
 
 def echo_err(message: str) -> None:
@@ -138,8 +155,31 @@ def set_verbosity(verbose: int, quiet: bool) -> None:
     logger.setLevel(level)
     if not any(isinstance(h, _StderrHandler) for h in logger.handlers):
         handler = _StderrHandler()
-        handler.setFormatter(logging.Formatter("%(levelname)s %(name)s: %(message)s"))
+        handler.setFormatter(_CleanFormatter("%(levelname)s %(name)s: %(message)s"))
         logger.addHandler(handler)
+
+
+def show_warnings_clean() -> None:
+    """Print a warning raised outside every recorder (rare: the commands record theirs) the
+    way Python does, control characters shown as escapes."""
+    warnings.showwarning = _show_warning
+
+
+def _show_warning(message: Warning | str, category: type[Warning], filename: str,
+                  lineno: int, file: Any = None, line: str | None = None) -> None:
+    try:
+        text = warnings.formatwarning(message, category, filename, lineno, line)
+        (file or sys.stderr).write(clean(text))
+    except Exception:  # noqa: BLE001 - as Python's own: a warning must never stop a job
+        pass
+
+
+class _CleanFormatter(logging.Formatter):
+    """Log lines (with their tracebacks, at -vv) with control characters shown as escapes,
+    as every other line geosoil prints: a message may quote a sample ID or a file name."""
+
+    def format(self, record: logging.LogRecord) -> str:
+        return clean(super().format(record))
 
 
 class _StderrHandler(logging.StreamHandler):  # type: ignore[type-arg]

@@ -381,3 +381,31 @@ def test_acidity_without_a_method_is_asked_for_and_bare_ph_is_noted(
         "columns = { ", "columns = { acidity = 'H+Al (cmol/kg)', ", 1))
     c = invoke("check", folder)
     assert c.exit_code == 0, c.stderr
+
+
+def test_new_records_warnings_with_the_project_s_one_recorder(
+    inputs: dict[str, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A library's warning is shown with its kind and package, as check and run show it; a
+    warning raised many times once; control characters as escapes."""
+    import warnings
+
+    import geosoil.project
+    from geosoil.errors import DataWarning
+
+    real = geosoil.project.new_project
+
+    def noisy(*args, **kw):  # noqa: ANN002, ANN003, ANN202
+        for _ in range(500):
+            warnings.warn("paddock 'Home\x1b]0;x\x07' read twice", DataWarning, stacklevel=1)
+        np.log(np.zeros(1))  # numpy: RuntimeWarning, divide by zero
+        return real(*args, **kw)
+
+    monkeypatch.setattr(geosoil.project, "new_project", noisy)
+    r = invoke("new", tmp_path / "p", "--samples", inputs["lab_ll"],
+               "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    warned = [ln for ln in r.stderr.splitlines() if ln.startswith("warning: ")]
+    assert warned.count("warning: paddock 'Home\\x1b]0;x\\x07' read twice") == 1
+    assert any("divide by zero" in w and "(RuntimeWarning from " in w for w in warned)
+    assert "\x1b" not in r.stderr and "\x07" not in r.stderr

@@ -495,3 +495,73 @@ def test_a_fixed_or_farm_variogram_is_cross_validated_on_the_subset(
                for n in ph.notes)
     pooled = [w for w in farm.warnings if w.startswith("farm-wide variogram: 80 samples")]
     assert len(pooled) == 1
+
+
+# ------------------------------------------------------------------------ the terminal
+
+
+HOSTILE = "Home\x1b]0;owned\x07\x1b[2J\u202e"  # retitle, clear the screen, reverse the text
+
+
+def _raw(text: str) -> list[str]:
+    """The control characters (and bidirectional overrides) left in ``text``."""
+    return [c for c in text if (ord(c) < 32 and c not in "\n\t") or 0x7f <= ord(c) <= 0x9f
+            or 0x202a <= ord(c) <= 0x202e or 0x2066 <= ord(c) <= 0x2069]
+
+
+def test_the_verbose_log_shows_control_characters_as_escapes(tmp_path: Path) -> None:
+    folder = make_project(tmp_path / "farm", names=(HOSTILE,))
+    lab = folder / "lab.csv"
+    lab.write_text("\n".join(lab.read_text().splitlines()[:2]) + "\n")  # one sample
+    r = CliRunner().invoke(cli, ["-vv", "check", str(folder)])
+    assert r.exit_code == 0, r.stderr
+    assert not _raw(r.stderr)
+    logged = [ln for ln in r.stderr.splitlines() if ln.startswith("INFO geosoil.recording: ")]
+    assert any("paddock 'Home\\x1b]0;owned\\x07\\x1b[2J\\u202e' has one sample" in ln
+               for ln in logged), r.stderr
+    assert any(ln.startswith("DEBUG ") for ln in r.stderr.splitlines())
+
+
+def test_usage_errors_quoting_what_was_typed_show_control_characters_as_escapes(
+    tmp_path: Path,
+) -> None:
+    r = CliRunner().invoke(cli, ["check", str(tmp_path / HOSTILE)])
+    assert r.exit_code == 2 and not _raw(r.stderr)
+    assert "Path '" in r.stderr and "Home\\x1b]0;owned\\x07\\x1b[2J\\u202e' does not exist" in \
+        r.stderr and r.stderr.startswith("Usage: ")
+    folder = make_project(tmp_path / "farm")
+    r = CliRunner().invoke(cli, ["new", str(tmp_path / "p"), "--samples",
+                                 str(folder / "lab.csv"), "--paddocks",
+                                 str(folder / "paddocks.gpkg"), "--crs", "EPSG:\x1b[2J"])
+    assert r.exit_code == 2 and not _raw(r.stderr)
+    assert "Invalid value for '--crs': 'EPSG:\\x1b[2J'" in r.stderr
+    r = CliRunner().invoke(cli, ["--col\x9b2Jour"])  # \x9b: the one-character CSI
+    assert r.exit_code == 2 and not _raw(r.stderr)
+    assert "No such option '--col\\x9b2Jour'" in r.stderr
+
+
+def test_a_320_character_paddock_name_is_a_named_error_with_escapes(tmp_path: Path) -> None:
+    name = (HOSTILE + " by the long creek ") * 11 + "x" * 17
+    name = name[:320]
+    assert len(name) == 320
+    folder = make_project(tmp_path / "farm", names=(name,))
+    out = tmp_path / "out"
+    for command in (["check", str(folder)], ["run", str(folder), "--out", str(out)]):
+        r = CliRunner().invoke(cli, command)
+        assert r.exit_code == 1 and "Traceback" not in r.stderr and not _raw(r.stderr)
+        assert "longer than 80 characters" in r.stderr and "(320 characters)" in r.stderr
+        assert "'Home\\x1b]0;owned" in r.stderr
+    assert not out.exists()
+
+
+def test_a_warning_outside_every_recorder_is_printed_with_escapes(capsys) -> None:  # noqa: ANN001
+    import warnings
+
+    from geosoil.cli.options import show_warnings_clean
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("always")
+        show_warnings_clean()
+        warnings.warn(f"sample '{HOSTILE}' is odd", UserWarning, stacklevel=1)
+    err = capsys.readouterr().err
+    assert "UserWarning: sample 'Home\\x1b]0;owned\\x07" in err and not _raw(err)
