@@ -308,6 +308,12 @@ def test_settings_beyond_any_physical_range_are_named_problems(tmp_path: Path) -
     r = _check(make_project(tmp_path / "b", extra=deep))
     assert r.exit_code == 1 and "Traceback" not in r.stderr
     assert "nested too deeply" in r.stderr and "geosoil.toml" in r.stderr
+    # run refuses both the same way, writing nothing
+    for name, said in (("a", "'spreader.max_per_pass'"), ("b", "nested too deeply")):
+        out = tmp_path / f"out-{name}"
+        r = CliRunner().invoke(cli, ["run", str(tmp_path / name), "--out", str(out)])
+        assert r.exit_code == 1 and "Traceback" not in r.stderr and said in r.stderr
+        assert not out.exists()
 
 
 def test_a_paddock_with_one_sample_is_a_warning_on_screen(tmp_path: Path) -> None:
@@ -333,6 +339,13 @@ def test_a_farm_across_the_antimeridian_is_refused_by_check(tmp_path: Path) -> N
     r = _check(folder)
     assert r.exit_code == 1 and "Traceback" not in r.stderr
     assert "antimeridian" in r.stderr and "paddocks.gpkg" in r.stderr
+    # run stops at the same named error before computing, and writes nothing
+    out = tmp_path / "out"
+    r = CliRunner().invoke(cli, ["run", str(folder), "--out", str(out)])
+    assert r.exit_code == 1 and "Traceback" not in r.stderr
+    assert "straddle the antimeridian" in r.stderr and "split the project in two" in r.stderr
+    assert "surfaces" not in r.stderr  # no stage after reading was reached
+    assert not out.exists() and beside(out) <= {sibling_names(out)[0]}
 
 
 def test_above_the_global_kriging_ceiling_the_local_neighbourhood_is_used_and_said(
