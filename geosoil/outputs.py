@@ -115,6 +115,8 @@ SURFACE_UNITS: dict[str, str] = {
     "phbc": "cmol(+)/kg per pH unit", "ec_1_5": "dS/m", "ece": "dS/m",
     "salinity_class": "class code: 0 normal, 1 saline, 2 sodic, 3 saline-sodic",
     "dispersion_class": "class code: 0 flocculated, 1 potentially dispersive, 2 dispersive",
+    "na_sol": "mmol(+)/L", "k_sol": "mmol(+)/L", "ca_sol": "mmol(+)/L", "mg_sol": "mmol(+)/L",
+    "cross": "(mmol(+)/L)^0.5",
 }
 
 #: A deeper layer's suffix on a surface name (``esp_10-30cm``), see :mod:`geosoil.layers`.
@@ -141,7 +143,7 @@ def _title_of(var: str) -> str:
 
 #: Cell quantities written as surfaces (and, per deeper layer, with its suffix).
 CELL_SURFACES = ("ecec", "ca_sat", "mg_sat", "k_sat", "esp", "acid_sat", "al_sat", "ece",
-                 "salinity_class", "dispersion_class")
+                 "salinity_class", "dispersion_class", "cross")
 
 #: Readable names of variables.
 TITLES: dict[str, str] = {
@@ -158,6 +160,8 @@ TITLES: dict[str, str] = {
     "ec_1_5": "EC 1:5", "ece": "ECe (saturation extract EC)",
     "salinity_class": "Salinity class (USDA Handbook 60)",
     "dispersion_class": "Dispersion risk class",
+    "na_sol": "Soluble Na", "k_sol": "Soluble K", "ca_sol": "Soluble Ca", "mg_sol": "Soluble Mg",
+    "cross": "CROSS (Rengasamy & Marchuk 2011)",
 }
 
 
@@ -849,7 +853,7 @@ MAP_SURFACES: tuple[tuple[str, str], ...] = (
     ("oc", "amount"), ("om", "amount"), ("clay", "amount"), ("phbc", "amount"),
     ("ece", "ec"), ("ec_1_5", "ec"),
     ("salinity_class", "salinity_class"), ("dispersion_class", "dispersion_class"),
-    ("cec_ph7", "amount"), ("acidity_potential", "amount"),
+    ("cross", "amount"), ("cec_ph7", "amount"), ("acidity_potential", "amount"),
 )
 
 #: The surfaces each deeper layer adds to the map (subsoil sodicity first).
@@ -1139,6 +1143,7 @@ def sample_fields(farm: FarmResult) -> list[Any]:
                        ("acid_sat", "Acid saturation"), ("al_sat", "Al saturation")):
         fields.append(webmap.SampleField(var, label, "%", 1))
     fields.append(webmap.SampleField("ca_mg_ratio", "Ca:Mg ratio", "", 1))
+    fields.append(webmap.SampleField("cross", "CROSS", "", 2))
     fields.append(webmap.SampleField("source_row", "Row in the lab file"))
     fields += [
         webmap.SampleField("sodicity", "", flag=True, ok_values=("non-sodic",)),

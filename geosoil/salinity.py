@@ -539,7 +539,7 @@ class SalinitySettings:
 #: Columns :func:`derive_samples` adds to the samples table (where it can).
 SAMPLE_COLUMNS: tuple[str, ...] = (
     "ece", "ece_estimated", "salinity_class", "dispersion_class", "high_mg",
-    "pretreatment_needed",
+    "pretreatment_needed", "cross",
 )
 
 
@@ -632,6 +632,10 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
             back = ~np.isfinite(ec15_all) & np.isfinite(ece)
             ec15_all[back] = ece[back] / factor
         out["dispersion_class"] = _names(dispersion_classes(esp, ec15_all), DISPERSION_CLASSES)
+    sol = [_col(out, c) for c in ("na_sol", "k_sol", "ca_sol", "mg_sol")]
+    if all(np.isfinite(c).any() for c in sol):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out["cross"] = cross(na=sol[0], k=sol[1], ca=sol[2], mg=sol[3])
     # the ratio chemistry.derive made where it ran (one quantity, one function)
     if "ca_mg_ratio" in out.columns:
         ratio = _col(out, "ca_mg_ratio")
@@ -642,7 +646,7 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
 
 
 #: Cell layers :func:`derive_cells` adds (class layers hold the class code, NaN unknown).
-CELL_LAYERS: tuple[str, ...] = ("ece", "salinity_class", "dispersion_class")
+CELL_LAYERS: tuple[str, ...] = ("ece", "salinity_class", "dispersion_class", "cross")
 
 
 def derive_cells(
@@ -688,4 +692,8 @@ def derive_cells(
         code = dispersion_classes(esp, ec15).astype(float)
         code[code < 0] = np.nan
         out["dispersion_class"] = code
+    sol = [cells.get(c) for c in ("na_sol", "k_sol", "ca_sol", "mg_sol")]
+    if all(c is not None for c in sol):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out["cross"] = cross(na=sol[0], k=sol[1], ca=sol[2], mg=sol[3])  # type: ignore[arg-type]
     return out

@@ -49,6 +49,7 @@ import difflib
 import io
 import logging
 import math
+import re
 import warnings
 import zipfile
 from collections.abc import Iterable, Mapping, Sequence
@@ -83,6 +84,7 @@ from .units import (
     LAB_UNITS,
     VOLUMETRIC_UNITS,
     from_cmol_kg,
+    mg_per_cmol,
     normalise_unit,
     to_cmol_kg,
 )
@@ -90,6 +92,8 @@ from .vectors import read_layer
 
 __all__ = [
     "DEPTH_COLUMNS",
+    "SOLUTION_COLUMNS",
+    "SOLUTION_UNITS",
     "SampleSettings",
     "SampleRead",
     "CRSInputError",
@@ -140,8 +144,21 @@ _EMPTY_WORDS = {"", "na", "n/a", "n.a.", "-", "--", "nan", "none", "null"}
 #: The columns the depth of each sample is read into (cm below the surface).
 DEPTH_COLUMNS = ("depth_top_cm", "depth_bottom_cm")
 
+#: Soluble (solution) cations of an extract, read into these columns in mmol(+)/L (meq/L).
+SOLUTION_COLUMNS: dict[str, str] = {"na": "na_sol", "k": "k_sol", "ca": "ca_sol", "mg": "mg_sol"}
+#: Units of solution concentrations and their factor to mmol(+)/L for each ion [derived]:
+#: meq/L = mmolc/L = mmol(+)/L; mmol/L x charge; mg/L / (atomic weight / charge).
+SOLUTION_UNITS: tuple[str, ...] = ("mmolc/L", "mmol/L", "mg/L")
+_ION_WORDS = {"na": "na", "sodium": "na", "k": "k", "potassium": "k", "ca": "ca",
+              "calcium": "ca", "mg": "mg", "magnesium": "mg"}
+_SOLUTION_UNIT_TEXT = re.compile(
+    r"(meq|mmolc|mmol\s*\(\+\)|mmol\s*\+|mmol_c|mmol|mg)\s*/\s*l\b", re.IGNORECASE)
+_SOLUTION_WORDS = {"soluble", "sol", "solution", "water", "extract", "sat", "saturation",
+                   "paste", "se", "in", "h", "o"}
+
 _RESERVED = set(CANONICAL) | set(DERIVED) | {"sample_id", "source_row", "paddock", "geometry",
-                                             "layer", *DEPTH_COLUMNS}
+                                             "layer", *DEPTH_COLUMNS, *SOLUTION_COLUMNS.values(),
+                                             "cross"}
 
 
 @dataclasses.dataclass(frozen=True)
@@ -231,6 +248,15 @@ class SampleSettings:
         "cm", doc="unit of depths whose header and cell name none",
         choices=tuple(DEPTH_UNITS),
     )
+    solution_columns: dict[str, str] = setting(
+        default_factory=dict,
+        doc="soluble cations of an extract (na, k, ca, mg) -> header, for CROSS (default: "
+        "detected from headers naming a solution unit, as 'Soluble Na (meq/L)')",
+    )
+    solution_unit: str = setting(
+        "mmolc/L", doc="unit of soluble cations whose header names none (mmolc/L = meq/L)",
+        choices=SOLUTION_UNITS,
+    )
 
     def __post_init__(self) -> None:
         # Choices and ranges are checked by settings.from_mapping; these are the checks it
@@ -263,6 +289,11 @@ class SampleSettings:
                     key=f"units.{analyte}",
                 )
         _checked_unit(self.default_unit, key="default_unit")
+        for ion in self.solution_columns:
+            if ion not in SOLUTION_COLUMNS:
+                raise SettingsError(f"'{ion}' is not a soluble cation; use "
+                                    f"{', '.join(SOLUTION_COLUMNS)}",
+                                    key=f"solution_columns.{ion}")
         if self.crs is not None:
             parse_crs(self.crs, key="crs")
 
@@ -808,6 +839,60 @@ def _read_depths(
     return top, bottom
 
 
+def _solution_unit(header: str) -> str | None:
+    """The solution unit a header names (mmolc/L, mmol/L or mg/L), or None."""
+    m = _SOLUTION_UNIT_TEXT.search(header)
+    if not m:
+        return None
+    word = re.sub(r"\s", "", m.group(1).lower())
+    return "mg/L" if word == "mg" else ("mmol/L" if word == "mmol" else "mmolc/L")
+
+
+def _solution_ion(header: str) -> str | None:
+    """The cation a solution-concentration header names ('Soluble Na (meq/L)' -> 'na')."""
+    if _solution_unit(header) is None:
+        return None
+    text = _SOLUTION_UNIT_TEXT.sub(" ", header.lower())
+    text = re.sub(r"1\s*:\s*\d+", " ", text)
+    words = [w for w in re.findall(r"[a-z]+", text) if w not in _SOLUTION_WORDS]
+    return _ION_WORDS.get(words[0]) if len(words) == 1 else None
+
+
+def _read_solution(
+    table: pd.DataFrame, rows: np.ndarray, headers: list[str], taken: set[str],
+    settings: SampleSettings, name: str, header_row: int | None, decimal_comma: bool,
+    issues: list[_Issue],
+) -> tuple[dict[str, np.ndarray], dict[str, str]]:
+    """Soluble Na, K, Ca and Mg (mmol(+)/L) by column name, and the header each came from."""
+    chosen: dict[str, str] = {}
+    for ion, header in settings.solution_columns.items():
+        if header not in headers:
+            raise InputError("the column named in [samples] solution_columns." + ion
+                             + " is not in the file", file=name, row=header_row, column=header,
+                             fix=_nearest(header, headers))
+        chosen[ion] = header
+    for header in headers:
+        found = _solution_ion(header) if header not in taken else None
+        if found is not None and found not in chosen and header not in chosen.values():
+            chosen[found] = header
+    out: dict[str, np.ndarray] = {}
+    factor = {"mmolc/L": {"na": 1.0, "k": 1.0, "ca": 1.0, "mg": 1.0},
+              "mmol/L": {"na": 1.0, "k": 1.0, "ca": 2.0, "mg": 2.0},
+              "mg/L": {ion: 1.0 / (mg_per_cmol(ion) / 10.0) for ion in SOLUTION_COLUMNS}}
+    below = {"half": 0.5, "limit": 1.0, "zero": 0.0, "stop": 1.0}[settings.below_detection]
+    for ion, header in chosen.items():
+        unit: str = _solution_unit(header) or settings.solution_unit
+        numbers, status, texts = _cells(table[header], decimal_comma=decimal_comma)
+        for i in np.flatnonzero((status == "bad") | (numbers < 0)):
+            issues.append(_Issue(int(rows[i]), header,
+                                 f"'{texts[i]}' is not a concentration",
+                                 "correct the cell or set [samples] on_bad_row = 'skip'"))
+        numbers = np.where(status == "below", numbers * below, numbers)
+        numbers = np.where(numbers < 0, np.nan, numbers)
+        out[SOLUTION_COLUMNS[ion]] = numbers * factor[unit][ion]
+    return out, chosen
+
+
 # --------------------------------------------------------------------------- mapping
 
 
@@ -1319,6 +1404,9 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     taken = set(columns.values()) | {id_header} | (set(xy) if xy else set())
     depth_headers = _depth_headers(headers, taken, settings, name, raw.header_row)
     depths = _read_depths(table, rows, depth_headers, settings, raw.decimal_comma, issues)
+    solution, solution_headers = _read_solution(
+        table, rows, headers, taken | {h for h in depth_headers if h}, settings, name,
+        raw.header_row, raw.decimal_comma, issues)
 
     ids = [_id_text(v) for v in table[id_header].tolist()]
     _id_issues(ids, rows, id_header, depths, issues)
@@ -1375,6 +1463,8 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     if depths is not None:
         data[DEPTH_COLUMNS[0]] = depths[0][keep]
         data[DEPTH_COLUMNS[1]] = depths[1][keep]
+    for column, v in solution.items():
+        data[column] = v[keep]
     for header in headers:
         if header in used:
             continue
@@ -1384,6 +1474,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
     samples = gpd.GeoDataFrame(data, geometry=points, crs=crs)
     samples.attrs["location_column"] = location_column
     samples.attrs["depth_columns"] = [h for h in depth_headers if h]
+    samples.attrs["solution_columns"] = dict(solution_headers)
     logger.info(
         "%s: %d samples, analytes %s, CRS %s", name, len(samples),
         ", ".join(f"{a} <- '{h}' ({units[a] or 'no unit'})" for a, h in columns.items()),

@@ -91,7 +91,7 @@ logger = logging.getLogger(__name__)
 INTERPOLATED: tuple[str, ...] = (
     "ca", "mg", "k", "na", "acidity", "al", "cec", "ph", "ph_cacl2", "esp",
     "cec_ph7", "acidity_potential", "bph_smp", "bph_sikora", "bph_mehlich", "bph_adams_evans",
-    "oc", "om", "clay", "phbc", "ec_1_5", "ece",
+    "oc", "om", "clay", "phbc", "ec_1_5", "ece", "na_sol", "k_sol", "ca_sol", "mg_sol",
 )
 
 _MODELS = ("spherical", "exponential", "gaussian", "matern")
@@ -122,7 +122,7 @@ SUBSET_SEED = 20_240_601
 #: Interpolated variables that are exchangeable amounts (never below zero).
 _AMOUNTS = (
     "ca", "mg", "k", "na", "acidity", "al", "cec", "cec_ph7", "acidity_potential", "oc", "om",
-    "clay", "phbc",
+    "clay", "phbc", "na_sol", "k_sol", "ca_sol", "mg_sol",
 )
 
 

@@ -43,7 +43,12 @@ CHEM = {
     ("South", "10-30"): (8.4, 0.2, 6.0, 4.0, 0.5, 3.0),
 }
 HEADER = ("Site,Depth,Longitude,Latitude,pH (1:5 water),EC 1:5 (dS/m),Ca (cmol/kg),"
-          "Mg (cmol/kg),K (cmol/kg),Na (cmol/kg)")
+          "Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),Soluble Na (meq/L),Soluble K (meq/L),"
+          "Soluble Ca (mmol/L),Soluble Mg (mg/L)")
+# soluble cations of the 1:5 extract at every site: Na 10, K 2 meq/L, Ca 2 mmol/L (4 meq/L),
+# Mg 24.305 mg/L (2 meq/L); CROSS (Rengasamy & Marchuk 2011, coefficients from memory)
+# worked by hand: (10 + 0.56 x 2) / sqrt((4 + 0.6 x 2) / 2) = 6.896
+SOLUBLE = "10,2,2,24.305"
 TOML = """farm = "Two depths"
 [samples]
 file = "lab.csv"
@@ -95,7 +100,7 @@ def write_farm(folder: Path, cache: Path, *, depths: tuple[str, ...] = ("0-10", 
             lon = lon0 + 0.0004 + 0.0006 * (k // 3)
             lat = lat0 + 0.0004 + 0.0006 * (k % 3)
             for depth in depths:
-                values = ",".join(f"{v:g}" for v in CHEM[(name, depth)])
+                values = ",".join(f"{v:g}" for v in CHEM[(name, depth)]) + "," + SOLUBLE
                 where = f"{depth} cm," if depth_column else ""
                 rows.append(f"{name[0]}{k + 1},{where}{lon:.6f},{lat:.6f},{values}")
     (folder / "lab.csv").write_text("\n".join(rows) + "\n")
@@ -327,3 +332,13 @@ def test_gypsum_water_per_zone_with_the_leaching_caution(two_depths: dict) -> No
     assert "water to dissolve (mm)" in report
     assert f">{south / 1000 * 40:.0f}<" in report
     assert "needed: ESP ≥ 15 % on 100 % of the zone; the soil must drain" in report
+
+
+def test_cross_from_the_labs_soluble_cations_per_sample_and_per_cell(two_depths: dict) -> None:
+    samples = pd.read_csv(two_depths["out"] / "samples.csv")
+    assert samples["cross"].to_numpy() == pytest.approx(6.896, abs=5e-4)
+    for name in ("cross.tif", "cross_10-30cm.tif"):
+        assert cells(two_depths["out"] / "surfaces" / "south" / name) == pytest.approx(
+            11.12 / math.sqrt(2.6))
+    # the map's layer (its data are JSON in the page, "&" written as \u0026)
+    assert "CROSS (Rengasamy \\u0026 Marchuk 2011)" in (two_depths["out"] / "map.html").read_text()

@@ -1393,3 +1393,42 @@ def test_a_depth_column_named_in_the_settings_must_exist(tmp_path: Path) -> None
     assert err.column == "Dpth" and "did you mean 'Depth'" in str(err)
     with pytest.raises(SettingsError, match="both the top and the bottom"):
         read(path, depth_top_column="Depth")
+
+
+# --------------------------------------------------------------------------- soluble cations
+
+
+def test_soluble_cations_read_in_mmol_charge_per_litre_and_give_cross(tmp_path: Path) -> None:
+    # units [derived]: meq/L = mmol(+)/L; Ca in mmol/L x 2; Mg in mg/L / (24.305 / 2)
+    header = ("Sample ID,Longitude,Latitude,Exch Ca (meq/100g),Soluble Na (meq/L),"
+              "Sol. K (meq/L),Ca 1:5 (mmol/L),Soluble Mg (mg/L)")
+    path = lab(tmp_path, ["A1,147.0010,-35.0010,6.0,10,2,2,24.305",
+                          "A2,147.0020,-35.0020,5.0,5,5,1,72.915"], header=header)
+    read_ = read(path)
+    got = read_.samples
+    assert got["na_sol"].tolist() == [10, 5] and got["k_sol"].tolist() == [2, 5]
+    assert got["ca_sol"].tolist() == [4, 2]
+    assert got["mg_sol"].tolist() == pytest.approx([2, 6])
+    assert read_.samples.attrs["solution_columns"]["mg"] == "Soluble Mg (mg/L)"
+    assert "ca" in read_.columns and read_.columns["ca"] == "Exch Ca (meq/100g)"
+    from geosoil.salinity import derive_samples
+    out = derive_samples(got)
+    # CROSS (Rengasamy & Marchuk 2011; coefficients from memory), worked by hand in
+    # docs/SOURCES.md: (10 + 0.56 x 2) / sqrt((4 + 0.6 x 2) / 2) = 6.896;
+    # (5 + 0.56 x 5) / sqrt((2 + 0.6 x 6) / 2) = 4.661
+    assert out["cross"].tolist() == pytest.approx([6.896, 4.661], abs=5e-4)
+
+
+def test_soluble_cations_named_in_the_settings(tmp_path: Path) -> None:
+    header = "Sample ID,Longitude,Latitude,Exch Ca (meq/100g),SNa,SK,SCa,SMg"
+    path = lab(tmp_path, ["A1,147.0010,-35.0010,6.0,10,2,4,2"], header=header)
+    got = read(path, solution_columns={"na": "SNa", "k": "SK", "ca": "SCa", "mg": "SMg"}).samples
+    assert [got[c].iloc[0] for c in ("na_sol", "k_sol", "ca_sol", "mg_sol")] == [10, 2, 4, 2]
+    err = error_of(path, solution_columns={"na": "Sna"})
+    assert err.column == "Sna" and "did you mean 'SNa'" in str(err)
+    with pytest.raises(SettingsError, match="not a soluble cation"):
+        SampleSettings(file=path, solution_columns={"cl": "SCl"})
+    # without a solution unit, a header is not taken as soluble: an exchangeable "Na" stays
+    assert "na_sol" not in read(lab(tmp_path, ["A1,147.0010,-35.0010,6.0,0.4"],
+                                    header="Sample ID,Longitude,Latitude,Ca,Na",
+                                    name="x.csv")).samples.columns
