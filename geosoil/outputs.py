@@ -1441,6 +1441,11 @@ def layer_assumptions(farm: FarmResult) -> dict[str, str]:
                          + (f"{bd:g}" if isinstance(bd, float) else str(bd))
                          + f"): mean {shown}")
         out[f"Gypsum by layer, {pad['paddock']}"] = "; ".join(parts)
+        sodic = [f"{c['layer']}: mean ESP {c['esp_mean']:.1f} %, {c['sodic_ha']:.2f} ha at ESP "
+                 f"{s.chemistry.sodic_esp_percent:g} % or more"
+                 for c in pad["layer_classes"] if c.get("esp_mean") is not None]
+        if sodic:
+            out[f"Sodicity by layer, {pad['paddock']}"] = "; ".join(sodic)
     return out
 
 

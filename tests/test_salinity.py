@@ -247,3 +247,15 @@ def test_demo_run_samples_surfaces_and_record(demo_run) -> None:
     report = (demo_run.out / "report.html").read_text(encoding="utf-8")
     if rec["gypsum_water"]:
         assert "of rain or irrigation is water that only dissolves the gypsum" in report
+
+
+@pytest.mark.parametrize(("esp", "ec", "expected"), [
+    # the flocculation line EC 1:5 = 0.1 + 0.05 ESP: on it flocculated, just below not
+    (0.0, 0.1, 0), (0.0, 0.0999, 1), (20.0, 1.1, 0), (20.0, 1.0999, 1),
+    # the spontaneous line EC 1:5 = 0.02 ESP from ESP 6: below it dispersive
+    (6.0, 0.1199, 2), (6.0, 0.12, 1), (5.999, 0.0, 1), (30.0, 0.5999, 2), (30.0, 0.6, 1),
+])
+def test_dispersion_class_edges(esp: float, ec: float, expected: int) -> None:
+    # the limits after the diagram of Rengasamy et al. 1984 are from memory (docs/SOURCES.md,
+    # "Salinity, sodicity and dispersion"): each edge belongs to the less dispersive class
+    assert int(sal.dispersion_classes(esp, ec)) == expected
