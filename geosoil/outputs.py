@@ -1123,13 +1123,14 @@ def sample_fields(farm: FarmResult) -> list[Any]:
     read = farm.prep.read
     cols = set(farm.prep.samples.columns)
     cmol = "cmol(+)/kg"
-    fields = [webmap.SampleField("paddock", "Paddock")]
+    fields = [webmap.SampleField("paddock", "Paddock"), webmap.SampleField("layer", "Layer")]
     for var in ("ph", "ph_cacl2"):
         if var in cols:
             fields.append(webmap.SampleField(var, ph_label(farm, var), "", 1))
     fields.append(webmap.SampleField("ec_1_5", "EC 1:5", "dS/m", 2))
     fields.append(webmap.SampleField("ece", "ECe", "dS/m", 1))
-    known = {"sample_id", "source_row", "paddock", "geometry", *read.columns}
+    known = {"sample_id", "source_row", "paddock", "geometry", "layer", "depth_top_cm",
+             "depth_bottom_cm", *read.columns}
     lab_other = [c for c in farm.prep.samples.columns
                  if c not in known and c not in _DERIVED_COLUMNS and c in cols]
     for c in lab_other:  # the lab's other columns, under the lab's own headers
@@ -1158,7 +1159,47 @@ def sample_fields(farm: FarmResult) -> list[Any]:
     fields += [webmap.SampleField(c, c.replace("_", " "), flag=True)
                for c in farm.prep.samples.columns
                if str(c).endswith("_flag") and c != "acid_flag"]
+    for ls in farm.prep.layers[1:]:  # the same place's deeper samples (see map_samples)
+        for var, label, unit, digits in _DEEPER_FIELDS:
+            fields.append(webmap.SampleField(var + ls.layer.suffix, f"{label}, {ls.layer.label}",
+                                             unit, digits))
+    cols |= set(map_samples(farm).columns)
     return [f for f in fields if f.column in cols]
+
+
+#: What a sample's popup shows of the deeper samples taken at the same place.
+_DEEPER_FIELDS = (("esp", "ESP", "%", 1), ("ecec", "ECEC", "cmol(+)/kg", 2),
+                  ("ec_1_5", "EC 1:5", "dS/m", 2), ("ece", "ECe", "dS/m", 1),
+                  ("salinity_class", "Salinity class", "", None),
+                  ("dispersion_class", "Dispersion class", "", None),
+                  ("cross", "CROSS", "", 2))
+
+
+def map_samples(farm: FarmResult) -> Any:
+    """The map's sample points: the top layer's, each with the values of the deeper samples
+    taken at the same place (same ID, within the near-duplicate distance), named with the
+    layer's suffix (``esp_10-30cm``). Deeper samples at other places are not drawn."""
+    prep = farm.prep
+    top = prep.samples
+    if not prep.layers:
+        return top
+    out = top.copy()
+    near = prep.project.settings.samples.duplicate_distance_m
+    for ls in prep.layers[1:]:
+        deeper = ls.samples
+        cols = [v for v, *_ in _DEEPER_FIELDS if v in deeper.columns]
+        if not cols:
+            continue
+        by_id = {str(i): k for k, i in enumerate(deeper["sample_id"])}
+        rows = [by_id.get(str(i)) for i in out["sample_id"]]
+        for col in cols:
+            values = []
+            for k, r in enumerate(rows):
+                same = r is not None and out.geometry.iloc[k].distance(
+                    deeper.geometry.iloc[r]) <= near
+                values.append(deeper[col].iloc[r] if same and r is not None else None)
+            out[col + ls.layer.suffix] = values
+    return out
 
 
 _DERIVED_COLUMNS = {
@@ -1232,7 +1273,7 @@ def build_farm_map(farm: FarmResult) -> str:
     return webmap.build_map(
         title=s.farm or "geosoil",
         paddocks=prep.paddocks,
-        samples=prep.samples,
+        samples=map_samples(farm),
         rasters=layers,
         zones=farm.zones,
         exclusions=exclusion_zones(farm),

@@ -342,3 +342,19 @@ def test_cross_from_the_labs_soluble_cations_per_sample_and_per_cell(two_depths:
             11.12 / math.sqrt(2.6))
     # the map's layer (its data are JSON in the page, "&" written as \u0026)
     assert "CROSS (Rengasamy \\u0026 Marchuk 2011)" in (two_depths["out"] / "map.html").read_text()
+
+
+def test_map_popups_carry_the_deeper_samples_of_the_same_place(two_depths: dict) -> None:
+    from geosoil import project as project_mod
+    from geosoil.outputs import map_samples, sample_fields
+    from geosoil.pipeline import compute
+
+    farm = compute(project_mod.load_project(two_depths["project"] / "geosoil.toml"))
+    shown = map_samples(farm)
+    assert len(shown) == 18  # the top layer's points
+    s1 = shown[shown["sample_id"] == "S1"].iloc[0]
+    assert s1["esp_10-30cm"] == pytest.approx(100 * 3.0 / 13.5)
+    assert s1["salinity_class_10-30cm"] == "sodic" and s1["salinity_class"] == "normal"
+    labels = [f.label for f in sample_fields(farm)]
+    assert "ESP, 10-30 cm" in labels and "Salinity class, 10-30 cm" in labels
+    assert "Layer" in labels and "depth_top_cm" not in labels
