@@ -368,6 +368,36 @@ def parse_header(header: str) -> HeaderInfo:
     ratios = [f"1:{m}" for m in _RATIO.findall(plain)]
     with_ratio = plain  # EC 1:5 names its extract by the ratio
     plain = _RATIO.sub(" ", plain)
+    units, methods, note = _bracket_parts(plain)
+    other = _lime_analyte(given, with_ratio, methods, units)
+    if other is not None:
+        return other
+    rest = _BRACKETS.sub(" ", plain).lower().replace("_", " ")
+    tokens = _split_trailing_unit(rest.split(), units)
+    name = " ".join(tokens).replace(".", " ").replace("-", " ").replace("%", " % ")
+    name = re.sub(r"\s*\+\s*", "+", name)
+    words, qualified = _strip_qualifiers([_CHARGE.sub("", w) for w in name.split()])
+    if not words:
+        return HeaderInfo(given, None)
+    # pH, with its method in the name ("pHw", "pH CaCl2") or in brackets.
+    if words[0].startswith("ph") and (words[0] == "ph" or _ph_method(words[0][2:])):
+        return _ph_header(given, words, methods, note)
+    joined = " ".join(words)
+    role = _ROLE_NAMES.get(joined)
+    if role is not None:
+        return HeaderInfo(given, role)
+    acid = _acidity_header(given, joined, methods, units, qualified, note)
+    if acid is not None:
+        return acid
+    analyte = _ANALYTE_OF.get(joined)
+    if analyte is None:
+        return _not_an_analyte(given, words, note)
+    return _analyte_header(given, analyte, joined, methods, ratios, units, note)
+
+
+def _bracket_parts(plain: str) -> tuple[list[str], list[str], str | None]:
+    """What the header's brackets hold: units, methods, and a note when one holds a
+    percentage or a unit that is not an amount."""
     units: list[str] = []
     methods: list[str] = []
     note: str | None = None
@@ -384,21 +414,23 @@ def parse_header(header: str) -> HeaderInfo:
             note = f"unit '{inner}' is not an exchangeable amount"
         elif inner:
             methods.append(inner)
-    other = _lime_analyte(given, with_ratio, methods, units)
-    if other is not None:
-        return other
-    rest = _BRACKETS.sub(" ", plain).lower().replace("_", " ")
-    tokens = rest.split()
-    # A unit written after the name: "Ca ppm", "Ca meq/100 g", "Ca mg kg-1".
+    return units, methods, note
+
+
+def _split_trailing_unit(tokens: list[str], units: list[str]) -> list[str]:
+    """The name's tokens without a unit written after the name ("Ca ppm", "Ca meq/100 g",
+    "Ca mg kg-1"), which goes to ``units``."""
     for n in range(1, len(tokens)):
         unit = _unit_of(" ".join(tokens[n:]))
         if unit:
             units.append(unit)
-            tokens = tokens[:n]
-            break
-    name = " ".join(tokens).replace(".", " ").replace("-", " ").replace("%", " % ")
-    name = re.sub(r"\s*\+\s*", "+", name)
-    words = [_CHARGE.sub("", w) for w in name.split()]
+            return tokens[:n]
+    return tokens
+
+
+def _strip_qualifiers(words: list[str]) -> tuple[list[str], bool]:
+    """The words without leading and trailing qualifiers ("exch.", "total"...), and whether
+    one of them said exchangeable."""
     qualified = False
     while words and words[0] in _QUALIFIERS:
         qualified = qualified or words[0] in _EXCHANGEABLE_WORDS
@@ -406,29 +438,26 @@ def parse_header(header: str) -> HeaderInfo:
     while words and words[-1] in _QUALIFIERS:
         qualified = qualified or words[-1] in _EXCHANGEABLE_WORDS
         words = words[:-1]
-    if not words:
-        return HeaderInfo(given, None)
-    # pH, with its method in the name ("pHw", "pH CaCl2") or in brackets.
-    if words[0].startswith("ph") and (words[0] == "ph" or _ph_method(words[0][2:])):
-        return _ph_header(given, words, methods, note)
-    joined = " ".join(words)
-    role = _ROLE_NAMES.get(joined)
-    if role is not None:
-        return HeaderInfo(given, role)
-    acid = _acidity_header(given, joined, methods, units, qualified, note)
-    if acid is not None:
-        return acid
-    analyte = _ANALYTE_OF.get(joined)
-    if analyte is None:
-        # "Colwell K", "Total Ca", "Ca %", "Ca sat": name an analyte, hold something else.
-        core = [w for w in words if w not in _NOT_EXCHANGEABLE and w not in _PERCENT_WORDS]
-        named = _ANALYTE_OF.get(" ".join(core)) if core else None
-        if named is not None and named not in UNITLESS:
-            if any(w in _PERCENT_WORDS for w in words):
-                note = "a percentage (saturation), not an amount"
-            else:
-                note = "another extract or measure, not the exchangeable amount"
-        return HeaderInfo(given, None, note=note)
+    return words, qualified
+
+
+def _not_an_analyte(given: str, words: list[str], note: str | None) -> HeaderInfo:
+    """A header that is no analyte; noted when it names one but holds something else
+    ("Colwell K", "Total Ca", "Ca %", "Ca sat")."""
+    core = [w for w in words if w not in _NOT_EXCHANGEABLE and w not in _PERCENT_WORDS]
+    named = _ANALYTE_OF.get(" ".join(core)) if core else None
+    if named is not None and named not in UNITLESS:
+        if any(w in _PERCENT_WORDS for w in words):
+            note = "a percentage (saturation), not an amount"
+        else:
+            note = "another extract or measure, not the exchangeable amount"
+    return HeaderInfo(given, None, note=note)
+
+
+def _analyte_header(given: str, analyte: str, joined: str, methods: list[str],
+                    ratios: list[str], units: list[str], note: str | None) -> HeaderInfo:
+    """The header of a named analyte, unless its method or note says it holds another
+    measure (an extract ratio or a non-exchangeable extract of a cation)."""
     method = " ".join(methods) or None
     if note is not None:
         return HeaderInfo(given, None, method=method, note=note)
@@ -437,10 +466,10 @@ def parse_header(header: str) -> HeaderInfo:
     if analyte in EXCHANGEABLE and ratios:
         return HeaderInfo(given, None, method=ratios[0],
                           note=f"a {ratios[0]} extract, not the exchangeable amount")
-    if analyte in EXCHANGEABLE and method is not None:
-        if any(w in method.lower() for w in _NOT_EXCHANGEABLE):
-            return HeaderInfo(given, None, method=method,
-                              note=f"a {method} extract, not the exchangeable amount")
+    if (analyte in EXCHANGEABLE and method is not None
+            and any(w in method.lower() for w in _NOT_EXCHANGEABLE)):
+        return HeaderInfo(given, None, method=method,
+                          note=f"a {method} extract, not the exchangeable amount")
     return _with_unit(given, analyte, units, method)
 
 

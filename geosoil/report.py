@@ -31,6 +31,7 @@ pipeline writes it.
 
 from __future__ import annotations
 
+import functools
 import logging
 import math
 from collections.abc import Mapping, Sequence
@@ -41,6 +42,7 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import shapely
 
 from .errors import GeosoilError, InputError, SettingsError
 from .presentation import (
@@ -548,20 +550,15 @@ def variogram_svg(info: VariogramInfo, *, width: int = 440, height: int = 270) -
     (True, 4, 1)
     """
     if not info.lags:
-        return (
-            f'<p class="no-variogram">No variogram: this surface was made by {_t(info.method)}.</p>'
-        )
+        return _drawing("note", "no-variogram",
+                        f"No variogram: this surface was made by {info.method}.")
     lags = np.asarray(info.lags, dtype=float)
     gam = np.asarray(info.gamma, dtype=float)
     ok = np.isfinite(lags) & np.isfinite(gam)
     top_h = max(float(lags[ok].max()) if ok.any() else 0.0, 1.15 * float(info.range_m or 0.0))
     curve = _model_curve(info, top_h or 1.0)
-    curve_h, curve_g = curve if curve is not None else (None, None)
-    xs = [lags[ok]]
-    ys = [gam[ok]]
-    if curve_h is not None and curve_g is not None:
-        xs.append(curve_h)
-        ys.append(curve_g)
+    xs = [lags[ok]] + ([curve[0]] if curve is not None else [])
+    ys = [gam[ok]] + ([curve[1]] if curve is not None else [])
     x_top = _nice_max(
         max(float(np.nanmax(x)) for x in xs if x.size) if any(x.size for x in xs) else 1.0
     )
@@ -577,58 +574,40 @@ def variogram_svg(info: VariogramInfo, *, width: int = 440, height: int = 270) -
     def py(y: float) -> float:
         return top + ph * (1.0 - y / y_top)
 
-    parts = [
-        f'<svg class="variogram" xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" '
-        f'width="{width}" height="{height}" role="img" '
-        f'aria-label="Variogram of {_t(info.variable)}, {_t(info.paddock)}">',
-        f'<rect x="{left}" y="{top}" width="{pw}" height="{ph}" fill="#fff" stroke="#999"/>',
-    ]
-    for xt in _axis_ticks(x_top):
-        parts.append(
-            f'<line x1="{px(xt):.1f}" y1="{top + ph}" x2="{px(xt):.1f}" y2="{top + ph + 4}" '
-            f'stroke="#555"/><text x="{px(xt):.1f}" y="{top + ph + 16}" text-anchor="middle" '
-            f'class="tick">{_sig(xt)}</text>'
-        )
-    for yt in _axis_ticks(y_top):
-        parts.append(
-            f'<line x1="{left - 4}" y1="{py(yt):.1f}" x2="{left + pw}" y2="{py(yt):.1f}" '
-            f'stroke="#eee"/><text x="{left - 6}" y="{py(yt) + 4:.1f}" text-anchor="end" '
-            f'class="tick">{_sig(yt)}</text>'
-        )
-    unit2 = f" ({_t(info.unit)})²" if info.unit else ""
-    parts.append(
-        f'<text x="{left + pw / 2:.1f}" y="{height - 6}" text-anchor="middle" class="axis">'
-        "lag distance (m)</text>"
-        f'<text transform="translate(14 {top + ph / 2:.1f}) rotate(-90)" text-anchor="middle" '
-        f'class="axis">semivariance{unit2}</text>'
-    )
-    if info.range_m and info.range_m <= x_top:
-        parts.append(
-            f'<line class="vg-range" x1="{px(info.range_m):.1f}" y1="{top}" '
-            f'x2="{px(info.range_m):.1f}" y2="{top + ph}" stroke="#888" stroke-dasharray="4 3"/>'
-        )
-    if curve_h is not None and curve_g is not None:
-        d = " ".join(
+    path = ""
+    if curve is not None:
+        path = " ".join(
             f"{'M' if i == 0 else 'L'}{px(h):.1f} {py(g):.1f}"
-            for i, (h, g) in enumerate(zip(curve_h, curve_g, strict=False))
+            for i, (h, g) in enumerate(zip(curve[0], curve[1], strict=False))
             if math.isfinite(h) and math.isfinite(g)
-        )
-        parts.append(
-            f'<path class="vg-model" d="{d}" fill="none" stroke="#b35806" stroke-width="2"/>'
         )
     counts = np.asarray(info.counts, dtype=float) if info.counts else np.ones_like(lags)
     cmax = float(np.nanmax(counts)) if counts.size and np.nanmax(counts) > 0 else 1.0
-    for h, g, c in zip(lags, gam, counts, strict=False):
-        if not (math.isfinite(h) and math.isfinite(g)):
-            continue
-        r = 2.5 + 3.5 * math.sqrt(max(c, 0.0) / cmax)
-        parts.append(
-            f'<circle class="vg-point" cx="{px(h):.1f}" cy="{py(g):.1f}" r="{r:.1f}" '
-            f'fill="#2166ac" fill-opacity="0.85"><title>lag {_sig(h)} m: {_sig(g)} '
-            f"({int(c)} pairs)</title></circle>"
-        )
-    parts.append("</svg>")
-    return "".join(parts)
+    points = [
+        {"x": px(h), "y": py(g), "r": 2.5 + 3.5 * math.sqrt(max(c, 0.0) / cmax),
+         "lag": _sig(h), "gamma": _sig(g), "pairs": int(c)}
+        for h, g, c in zip(lags, gam, counts, strict=False)
+        if math.isfinite(h) and math.isfinite(g)
+    ]
+    return _drawing("variogram", {
+        "width": width, "height": height, "left": left, "top": top, "pw": pw, "ph": ph,
+        "variable": info.variable, "paddock": info.paddock, "unit": info.unit,
+        "x_ticks": [{"at": px(t), "label": _sig(t)} for t in _axis_ticks(x_top)],
+        "y_ticks": [{"at": py(t), "label": _sig(t)} for t in _axis_ticks(y_top)],
+        "range_x": px(info.range_m) if info.range_m and info.range_m <= x_top else None,
+        "curve": path, "points": points,
+    })
+
+
+def _drawing(macro: str, *args: Any) -> str:
+    """One of the report's drawings from its macro in ``templates/report_drawings.html``
+    (autoescaped: every value passed in is text)."""
+    return str(getattr(_drawings(), macro)(*args))
+
+
+@functools.cache
+def _drawings() -> Any:
+    return _templates().get_template("report_drawings.html").module
 
 
 # --------------------------------------------------------------------------- zone maps
@@ -729,23 +708,9 @@ def zone_map_svg(
     if outline is not None and not outline.is_empty:
         geoms.append(outline)
     if not geoms:
-        return '<p class="no-zones">No zones to draw.</p>'
-    minx = min(g.bounds[0] for g in geoms)
-    miny = min(g.bounds[1] for g in geoms)
-    maxx = max(g.bounds[2] for g in geoms)
-    maxy = max(g.bounds[3] for g in geoms)
-    dx, dy = max(maxx - minx, 1e-9), max(maxy - miny, 1e-9)
-    pad = 12
-    scale = min((width - 2 * pad) / dx, (max_height - 2 * pad - 28) / dy)
-    height = min(max_height, int(math.ceil(dy * scale + 2 * pad + 28 - 1e-6)))
-    width = min(width, max(240, int(math.ceil(dx * scale + 2 * pad - 1e-6))))
-
-    def fx(x: float) -> float:
-        return pad + (x - minx) * scale
-
-    def fy(y: float) -> float:
-        return pad + (maxy - y) * scale
-
+        return _drawing("note", "no-zones", "No zones to draw.")
+    frame = _Frame.around(geoms, width=width, max_height=max_height, pad=12, foot=28,
+                          min_width=240)
     rates = zones["rate_kg_ha"].astype(float)
     spread = zones["kind"].astype(str) != "exclusion"
     top = (
@@ -753,95 +718,134 @@ def zone_map_svg(
         if top_rate is not None
         else (float(np.nanmax(rates[spread])) if spread.any() else 0.0)
     )
-    pid = f"hatch-{_t(uid)}"
-    parts = [
-        f'<svg class="zone-map" xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" '
-        f'width="{width}" height="{height}" role="img" aria-label="Zone map">',
-        f'<defs><pattern id="{pid}" width="6" height="6" patternUnits="userSpaceOnUse" '
-        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ddd"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#666" stroke-width="2"/></pattern>'
-        f'<pattern id="{pid}-creek" width="6" height="6" patternUnits="userSpaceOnUse" '
-        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#d6e6f5"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#1f4e79" stroke-width="2"/></pattern></defs>',
-    ]
-    labels = []
-    placed: list[tuple[float, float, float, float]] = []  # label boxes drawn so far (px)
+    pid = f"hatch-{uid}"
+    drawn: list[dict[str, Any]] = []
+    labels = _LabelPlacer()
+    for _, z in zones.iterrows():
+        d = _geom_path(z.geometry, frame.fx, frame.fy)
+        if not d:
+            continue
+        zone = _zone_drawing(z, labelled="label" in zones.columns, top=top, pid=pid,
+                             rate_unit=rate_unit, exclusion_kinds=exclusion_kinds)
+        drawn.append({"d": d, "fill": zone.fill, "tip": zone.tip})
+        area_px = z.geometry.area * frame.scale * frame.scale
+        if area_px >= 900:
+            labels.place(zone, z.geometry, frame, short=area_px < 3500)
+    return _drawing("zone_map", {
+        "width": frame.width, "height": frame.height, "pid": pid, "zones": drawn,
+        "outline": (_geom_path(outline, frame.fx, frame.fy)
+                    if outline is not None and not outline.is_empty else ""),
+        "labels": labels.labels, "bar": frame.scale_bar(frame.height - 14),
+    })
 
-    def free_box(x: float, y: float, text: str) -> tuple[float, float, float, float] | None:
-        """The label's box if it overlaps none drawn so far (about 6.5 px a character)."""
+
+@dataclass(frozen=True)
+class _Frame:
+    """Map units (metres) to the drawing's pixels: north up, ``pad`` around, ``foot``
+    pixels under the map for the scale bar."""
+
+    minx: float
+    maxy: float
+    dx: float
+    scale: float
+    pad: int
+    width: int
+    height: int
+
+    @classmethod
+    def around(cls, geoms: Sequence[Any], *, width: int, max_height: int, pad: int,
+               foot: int, min_width: int | None = None) -> _Frame:
+        """The largest frame within ``width`` x ``max_height`` that holds every geometry
+        (``min_width``: the zone map's narrowest; None: the drawing as wide as the map)."""
+        minx = min(g.bounds[0] for g in geoms)
+        miny = min(g.bounds[1] for g in geoms)
+        maxx = max(g.bounds[2] for g in geoms)
+        maxy = max(g.bounds[3] for g in geoms)
+        dx, dy = max(maxx - minx, 1e-9), max(maxy - miny, 1e-9)
+        scale = min((width - 2 * pad) / dx, (max_height - 2 * pad - foot) / dy)
+        if min_width is None:
+            height = int(math.ceil(dy * scale + 2 * pad + foot))
+            width = int(math.ceil(dx * scale + 2 * pad))
+        else:
+            height = min(max_height, int(math.ceil(dy * scale + 2 * pad + foot - 1e-6)))
+            width = min(width, max(min_width, int(math.ceil(dx * scale + 2 * pad - 1e-6))))
+        return cls(minx, maxy, dx, scale, pad, width, height)
+
+    def fx(self, x: float) -> float:
+        return self.pad + (x - self.minx) * self.scale
+
+    def fy(self, y: float) -> float:
+        return self.pad + (self.maxy - y) * self.scale
+
+    def scale_bar(self, y: float) -> dict[str, Any]:
+        """A scale bar about a quarter of the map's width, its baseline at ``y``."""
+        bar_m = _nice_step(self.dx / 4, 1)
+        label = f"{bar_m / 1000:g} km" if bar_m >= 1000 else f"{bar_m:g} m"
+        return {"x": self.pad, "y": y, "width": bar_m * self.scale, "label": label}
+
+
+@dataclass(frozen=True)
+class _ZoneDrawing:
+    """How one zone is drawn: fill, tooltip, the label it would like and its ink."""
+
+    fill: str
+    tip: str
+    label: str
+    number: str
+    excluded: bool
+
+
+def _zone_drawing(z: Any, *, labelled: bool, top: float, pid: str, rate_unit: str,
+                  exclusion_kinds: Mapping[str, str] | None) -> _ZoneDrawing:
+    excluded = str(z["kind"]) == "exclusion"
+    rate = float(z["rate_kg_ha"]) if not _isnan(z["rate_kg_ha"]) else math.nan
+    name = str(z["label"]) if labelled and not _isnan(z["label"]) else ""
+    what = exclusion_kind(name, exclusion_kinds)
+    number = _zone_label(z["zone"])
+    rate_txt = _rate_text(rate, rate_unit)
+    if excluded:
+        fill = f"url(#{pid}-creek)" if what == "creek buffer" else f"url(#{pid})"
+        tip = f"{what}: {name} (not spread)" if name else f"{what} (not spread)"
+        label = "creek buffer" if what == "creek buffer" else "excluded"
+    else:
+        fill = rate_colour(rate, top)
+        tip = f"zone {number}: {rate_txt}"
+        label = f"{number} · {rate_txt}"
+    return _ZoneDrawing(fill=fill, tip=tip, label=label, number=number, excluded=excluded)
+
+
+class _LabelPlacer:
+    """Zone labels that overlap none drawn before (about 6.5 px a character)."""
+
+    def __init__(self) -> None:
+        self.labels: list[dict[str, Any]] = []
+        self.boxes: list[tuple[float, float, float, float]] = []
+
+    def free_box(self, x: float, y: float, text: str) -> tuple[float, float, float, float] | None:
         half_w, half_h = 3.3 * len(text) + 2, 8.0
         bx = (x - half_w, y - half_h, x + half_w, y + half_h)
-        for ox in placed:
+        for ox in self.boxes:
             if bx[0] < ox[2] and ox[0] < bx[2] and bx[1] < ox[3] and ox[1] < bx[3]:
                 return None
         return bx
 
-    for _, z in zones.iterrows():
-        d = _geom_path(z.geometry, fx, fy)
-        if not d:
-            continue
-        excluded = str(z["kind"]) == "exclusion"
-        rate = float(z["rate_kg_ha"]) if not _isnan(z["rate_kg_ha"]) else math.nan
-        name = str(z["label"]) if "label" in zones.columns and not _isnan(z["label"]) else ""
-        what = exclusion_kind(name, exclusion_kinds)
-        if excluded:
-            fill = f"url(#{pid}-creek)" if what == "creek buffer" else f"url(#{pid})"
-        else:
-            fill = rate_colour(rate, top)
-        zone_txt = _zone_label(z["zone"])
-        rate_txt = _rate_text(rate, rate_unit)
-        tip = (f"{what}: {name} (not spread)" if name else f"{what} (not spread)") if excluded \
-            else f"zone {zone_txt}: {rate_txt}"
-        parts.append(
-            f'<path class="zone" d="{d}" fill="{fill}" fill-rule="evenodd" stroke="#333" '
-            f'stroke-width="0.8"><title>{_t(tip)}</title></path>'
-        )
-        area_px = z.geometry.area * scale * scale
-        if area_px >= 900:
-            anchor = label_point(z.geometry)
-            text = ("creek buffer" if what == "creek buffer" else "excluded") if excluded \
-                else f"{zone_txt} · {rate_txt}"
-            if area_px < 3500 and not excluded:
-                text = zone_txt
-            ink = (
-                "#111"
-                if excluded or not fill.startswith("#") or _luminance(fill) > 0.35
-                else "#fff"
-            )
-            x_px, y_px = fx(anchor.x), fy(anchor.y)
-            box_px = free_box(x_px, y_px, text)
-            if box_px is None and text != zone_txt:  # try the zone number alone
-                text = zone_txt
-                box_px = free_box(x_px, y_px, text)
-            if box_px is None:  # no room: the table under the map lists every zone
-                continue
-            placed.append(box_px)
-            labels.append(
-                f'<text class="zone-label" fill="{ink}" '
-                f'x="{fx(anchor.x):.1f}" y="{fy(anchor.y):.1f}" '
-                f'text-anchor="middle" dominant-baseline="middle">{_t(text)}</text>'
-            )
-    if outline is not None and not outline.is_empty:
-        parts.append(
-            f'<path class="outline" d="{_geom_path(outline, fx, fy)}" fill="none" stroke="#111" '
-            f'stroke-width="2" fill-rule="evenodd"/>'
-        )
-    parts.extend(labels)
-    # Scale bar (about a quarter of the map's width) and grid north.
-    bar_m = _nice_step(dx / 4, 1)
-    bar_px = bar_m * scale
-    y0 = height - 14
-    bar_label = f"{bar_m / 1000:g} km" if bar_m >= 1000 else f"{bar_m:g} m"
-    parts.append(
-        f'<g class="scale-bar"><rect x="{pad}" y="{y0 - 5}" width="{bar_px:.1f}" height="5" '
-        f'fill="#111"/><text x="{pad + bar_px + 6:.1f}" y="{y0}" class="tick">'
-        f"{bar_label}</text></g>"
-        f'<g class="north"><path d="M{width - 20} {y0 - 16} l6 14 l-6 -4 l-6 4 Z" fill="#111"/>'
-        f'<text x="{width - 20}" y="{y0 + 10}" text-anchor="middle" class="tick">'
-        "N (grid)</text></g>"
-    )
-    parts.append("</svg>")
-    return "".join(parts)
+    def place(self, zone: _ZoneDrawing, geom: Any, frame: _Frame, *, short: bool) -> None:
+        """The zone's label at its label point; the zone number alone on a small zone or
+        where the whole label finds no room; none where even that overlaps (the table under
+        the map lists every zone)."""
+        anchor = label_point(geom)
+        text = zone.number if short and not zone.excluded else zone.label
+        ink = ("#111" if zone.excluded or not zone.fill.startswith("#")
+               or _luminance(zone.fill) > 0.35 else "#fff")
+        x_px, y_px = frame.fx(anchor.x), frame.fy(anchor.y)
+        box_px = self.free_box(x_px, y_px, text)
+        if box_px is None and text != zone.number:  # try the zone number alone
+            text = zone.number
+            box_px = self.free_box(x_px, y_px, text)
+        if box_px is None:
+            return
+        self.boxes.append(box_px)
+        self.labels.append({"ink": ink, "x": x_px, "y": y_px, "text": text})
 
 
 def exclusion_kind(label: str, kinds: Mapping[str, str] | None) -> str:
@@ -915,71 +919,37 @@ def surface_map_svg(
     t = soil.transform
     rx0, ry0 = t.c, t.f
     rx1, ry1 = t.c + t.a * w, t.f + t.e * h
-    minx = min([g.bounds[0] for g in geoms] + [min(rx0, rx1)])
-    miny = min([g.bounds[1] for g in geoms] + [min(ry0, ry1)])
-    maxx = max([g.bounds[2] for g in geoms] + [max(rx0, rx1)])
-    maxy = max([g.bounds[3] for g in geoms] + [max(ry0, ry1)])
-    dx, dy = max(maxx - minx, 1e-9), max(maxy - miny, 1e-9)
-    pad = 10
-    scale = min((width - 2 * pad) / dx, (max_height - 2 * pad - 24) / dy)
-    height = int(math.ceil(dy * scale + 2 * pad + 24))
-    width = int(math.ceil(dx * scale + 2 * pad))
-
-    def fx(x: float) -> float:
-        return pad + (x - minx) * scale
-
-    def fy(y: float) -> float:
-        return pad + (maxy - y) * scale
-
-    png = classes_data_uri(soil.array, soil.classes)
-    pid = f"shatch-{escape_text(uid)}"
-    parts = [
-        f'<svg class="soil-map" xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} '
-        f'{height}" width="{width}" height="{height}" role="img" '
-        f'aria-label="Map of {escape_text(soil.title)}">',
-        f'<defs><pattern id="{pid}" width="6" height="6" patternUnits="userSpaceOnUse" '
-        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ddd"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#555" stroke-width="2"/></pattern>'
-        f'<pattern id="{pid}-creek" width="6" height="6" patternUnits="userSpaceOnUse" '
-        f'patternTransform="rotate(45)"><rect width="6" height="6" fill="#d6e6f5"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="#1f4e79" stroke-width="2"/></pattern>'
-        "</defs>",
-        f'<image x="{fx(min(rx0, rx1)):.1f}" y="{fy(max(ry0, ry1)):.1f}" '
-        f'width="{abs(rx1 - rx0) * scale:.1f}" height="{abs(ry1 - ry0) * scale:.1f}" '
-        f'preserveAspectRatio="none" href="{png}"/>',
-    ]
+    raster = shapely.box(min(rx0, rx1), min(ry0, ry1), max(rx0, rx1), max(ry0, ry1))
+    frame = _Frame.around([*geoms, raster], width=width, max_height=max_height, pad=10,
+                          foot=24)
+    pid = f"shatch-{uid}"
+    excluded = []
     if exclusions is not None and len(exclusions):
         for _, z in exclusions.iterrows():
             name = str(z["label"]) if "label" in exclusions.columns else ""
             creek = exclusion_kind(name, exclusion_kinds) == "creek buffer"
-            fill = f"url(#{pid}-creek)" if creek else f"url(#{pid})"
-            parts.append(
-                f'<path class="exclusion" d="{_geom_path(z.geometry, fx, fy)}" fill="{fill}" '
-                f'fill-rule="evenodd" stroke="#333" stroke-width="0.6"><title>'
-                f'{"creek buffer" if creek else "exclusion"}: {escape_text(name)}</title></path>'
-            )
-    for g in geoms:
-        parts.append(f'<path class="outline" d="{_geom_path(g, fx, fy)}" fill="none" '
-                     'stroke="#111" stroke-width="1.8" fill-rule="evenodd"/>')
+            excluded.append({
+                "d": _geom_path(z.geometry, frame.fx, frame.fy),
+                "fill": f"url(#{pid}-creek)" if creek else f"url(#{pid})",
+                "tip": f"{'creek buffer' if creek else 'exclusion'}: {name}",
+            })
+    points = []
     if samples is not None and len(samples):
         for _, p in samples.iterrows():
             pt = p.geometry
             if pt.geom_type != "Point":
                 pt = pt.representative_point()
-            sid = escape_text(p["sample_id"]) if "sample_id" in samples.columns else ""
-            parts.append(f'<circle class="sample" cx="{fx(pt.x):.1f}" cy="{fy(pt.y):.1f}" r="3" '
-                         f'fill="#fff" stroke="#000" stroke-width="1.3"><title>{sid}</title>'
-                         "</circle>")
-    bar_m = _nice_step(dx / 4, 1)
-    y0 = height - 8
-    bar_label = f"{bar_m / 1000:g} km" if bar_m >= 1000 else f"{bar_m:g} m"
-    parts.append(
-        f'<g class="scale-bar"><rect x="{pad}" y="{y0 - 5}" width="{bar_m * scale:.1f}" '
-        f'height="5" fill="#111"/><text x="{pad + bar_m * scale + 6:.1f}" y="{y0}" '
-        f'class="tick">{bar_label}</text></g>'
-    )
-    parts.append("</svg>")
-    return "".join(parts)
+            sid = str(p["sample_id"]) if "sample_id" in samples.columns else ""
+            points.append({"x": frame.fx(pt.x), "y": frame.fy(pt.y), "id": sid})
+    return _drawing("soil_map", {
+        "width": frame.width, "height": frame.height, "title": soil.title, "pid": pid,
+        "image": {"x": frame.fx(min(rx0, rx1)), "y": frame.fy(max(ry0, ry1)),
+                  "width": abs(rx1 - rx0) * frame.scale, "height": abs(ry1 - ry0) * frame.scale,
+                  "href": classes_data_uri(soil.array, soil.classes)},
+        "exclusions": excluded,
+        "outlines": [_geom_path(g, frame.fx, frame.fy) for g in geoms],
+        "samples": points, "bar": frame.scale_bar(frame.height - 8),
+    })
 
 
 # --------------------------------------------------------------------------- page

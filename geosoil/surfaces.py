@@ -50,6 +50,7 @@ import logging
 import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -536,74 +537,10 @@ def interpolate_farm(
     ('flat', 5.5, ('one sample: flat surface at 5.5',))
     """
     out: dict[tuple[str, str], Surface] = {}
-    told_local: set[str] = set()  # paddocks already warned about the local neighbourhood
-    # ... and about the subset their variograms are fitted on (None: the farm-wide fit)
-    told_fit: set[str | None] = set()
-    farm_fits: dict[tuple[str, bool], _Fit | _NoFit] = {}
-
-    def farm_fit(variable: str, log: bool) -> _Fit:
-        # keyed by the scale too: a paddock kriged on the log scale needs a log-scale variogram
-        if (variable, log) not in farm_fits:
-            pts = samples[samples[variable].notna()]
-            z = pts[variable].to_numpy(float)
-            note = None
-            if log:
-                keep = z > 0
-                if not keep.all():
-                    note = (f"{int((~keep).sum())} farm sample(s) of zero or less left out of "
-                            "the log-scale variogram")
-                pts, z = pts[keep], np.log(z[keep])
-            if (len(z) > FIT_MAX_SAMPLES and None not in told_fit
-                    and variable not in settings.fixed):
-                told_fit.add(None)
-                warnings.warn(
-                    f"farm-wide variogram: {len(z)} samples pooled, more than the "
-                    f"{FIT_MAX_SAMPLES} a variogram is fitted and cross-validated on: fitted on "
-                    f"{FIT_MAX_SAMPLES} of them spread over the farm (the same each run)",
-                    InterpolationWarning, stacklevel=2)
-            try:
-                with _where(f"farm-wide variogram of {variable}"):
-                    farm_fits[(variable, log)] = _fit_variogram(
-                        _xy(pts), z, variable=variable, settings=settings, scope="farm",
-                        note=note,
-                    )
-            except _NoFit as exc:
-                farm_fits[(variable, log)] = exc
-        got = farm_fits[(variable, log)]
-        if isinstance(got, _NoFit):
-            raise got
-        return got
-
-    def idw_surface(
-        name: str, variable: str, grid: PaddockGrid, xy: NDArray[np.float64],
-        z: NDArray[np.float64], notes: list[str], why: str,
-    ) -> Surface:
-        msg = (f"{why}: inverse-distance weighting (power {settings.idw_power:g}), "
-               "no error surface")
-        notes.append(msg)
-        warnings.warn(f"{name}, {variable}: {msg}", InterpolationWarning, stacklevel=3)
-        x, y = grid.cell_centres()
-        est = idw(xy, z, np.column_stack([x, y]), power=settings.idw_power)
-        return Surface(
-            variable, name, _physical(variable, grid.to_array(est), notes), None,
-            "inverse-distance weighting", len(z), notes=tuple(notes),
-        )
-
+    farm = _FarmInterpolation(samples, settings)
     for name, grid in grids.items():
         in_paddock = samples[samples["paddock"] == name]
-        if in_paddock.empty and not settings.borrow_farm_surface:
-            raise InputError(
-                f"paddock '{name}' has no samples",
-                fix="sample it, leave it out of the boundaries file, or set "
-                "[interpolation] borrow_farm_surface = true to krige it from the whole farm",
-            )
-        borrowed = in_paddock.empty
-        if borrowed:
-            warnings.warn(
-                f"paddock '{name}' has no samples: its surfaces are interpolated from the "
-                "whole farm's samples (borrow_farm_surface)",
-                InterpolationWarning, stacklevel=2,
-            )
+        borrowed = _borrowing(name, in_paddock, settings)
         zones_here = None
         if user_zones is not None and not user_zones.empty:
             zones_here = _zones_over(grid, user_zones)
@@ -617,118 +554,282 @@ def interpolate_farm(
                 notes.append(
                     "no samples in this paddock: interpolated from the whole farm's samples"
                 )
-            n = len(pts)
-            if n == 0:
-                msg = f"no {variable} values in this paddock: surface left empty"
-                notes.append(msg)
-                warnings.warn(f"{name}: {msg}", InterpolationWarning, stacklevel=2)
-                out[(name, variable)] = Surface(
-                    variable, name, grid.to_array(np.full(grid.n_cells, np.nan)), None,
-                    "none", 0, notes=tuple(notes),
-                )
-                continue
-            z = pts[variable].to_numpy(float)
-            xy = _xy(pts)
-            if n == 1 or np.ptp(z) == 0:
-                notes.append(
-                    "one sample" if n == 1 else f"all {n} samples equal"
-                )
-                notes[-1] += f": flat surface at {z[0]:g}"
-                out[(name, variable)] = Surface(
-                    variable, name, _flat(grid, float(z[0])), None, "flat", n, notes=tuple(notes)
-                )
-                continue
-            if zones_here is not None and len(zones_here) and n <= len(zones_here):
-                got = _zone_values(grid, pts, variable, zones_here)
-                if got is not None:
-                    zv, n_fill = got
-                    notes.append(
-                        f"{n} composite samples, one per management zone: each zone takes its "
-                        "sample's value"
-                    )
-                    if n_fill:
-                        notes.append(
-                            f"{n_fill} cells in no sampled zone took the value of the nearest "
-                            "sampled zone"
-                        )
-                    out[(name, variable)] = Surface(
-                        variable, name, zv, None, "zone values", n, notes=tuple(notes)
-                    )
-                    continue
-            if n < settings.min_samples_kriging:
-                out[(name, variable)] = idw_surface(
-                    name, variable, grid, xy, z, notes,
-                    f"{n} samples, fewer than min_samples_kriging = {settings.min_samples_kriging}",
-                )
-                continue
-            log = variable in settings.log_transform and bool(np.all(z > 0))
-            if variable in settings.log_transform and not log:
-                notes.append("values of zero or less: kriged without the log transform")
-            zt = np.log(z) if log else z
-            use_farm = borrowed or settings.variogram_scope == "farm" or (
-                settings.variogram_scope == "auto" and n < settings.min_samples_variogram
-            )
-            try:
-                if use_farm:
-                    fit = farm_fit(variable, log)
-                    if not borrowed and variable not in settings.fixed:  # a fixed one is not fitted
-                        notes.append(
-                            f"{n} samples, fewer than min_samples_variogram = "
-                            f"{settings.min_samples_variogram}: variogram fitted on the farm's "
-                            "pooled samples"
-                            if settings.variogram_scope == "auto"
-                            else "variogram fitted on the farm's pooled samples"
-                        )
-                else:
-                    with _where(f"{name}, {variable}"):
-                        fit = _fit_variogram(
-                            xy, zt, variable=variable, settings=settings, scope="paddock"
-                        )
-            except _NoFit as exc:
-                out[(name, variable)] = idw_surface(
-                    name, variable, grid, xy, z, notes, f"no variogram could be fitted ({exc})"
-                )
-                continue
-            if fit.note:
-                notes.append(fit.note)
-            model = fit.model
-            assert model is not None
-            with _where(f"{name}, {variable}"):
-                # the selection's cross-validation is this one when the variogram was
-                # fitted on these very samples
-                cv = (fit.cross_validation if fit.scope == "paddock"
-                      and fit.cross_validation is not None
-                      else _cross_validate(xy, zt, model, notes))
-                if n > FIT_MAX_SAMPLES and name not in told_fit:
-                    told_fit.add(name)
-                    warnings.warn(
-                        f"{n} samples, more than the {FIT_MAX_SAMPLES} a variogram is fitted "
-                        f"and cross-validated on: {FIT_MAX_SAMPLES} of them, spread over the "
-                        f"area, are used for that (the same each run); the kriging uses all {n}",
-                        InterpolationWarning, stacklevel=2)  # _where names it
-                near = settings.neighbours
-                if near == 0 and n > GLOBAL_KRIGING_MAX_SAMPLES:
-                    near = AUTO_NEIGHBOURS
-                    msg = (f"{n} samples, more than the {GLOBAL_KRIGING_MAX_SAMPLES} global "
-                           f"kriging is run on: each cell kriged from its nearest {near} "
-                           "samples (set [interpolation] neighbours to choose)")
-                    notes.append(msg)
-                    if name not in told_local:
-                        told_local.add(name)
-                        warnings.warn(msg, InterpolationWarning, stacklevel=2)  # _where names it
-                est, std = _krige(xy, z, grid, model, log=log, neighbours=near)
-            est = _physical(variable, est, notes)
-            if not np.isfinite(cv.msse) or cv.msse > 3 or cv.msse < 1 / 3:
-                notes.append(
-                    f"cross-validation MSSE {cv.msse:.2f} is far from 1: the error surface may "
-                    "under- or over-state the uncertainty"
-                )
-            out[(name, variable)] = Surface(
-                variable, name, est, std, "ordinary kriging", n, model=model,
-                variogram_scope=fit.scope, empirical=fit.empirical, cross_validation=cv,
-                candidates=fit.candidates, log_transform=log, notes=tuple(notes),
-            )
+            surface = _simple_surface(name, variable, grid, pts, zones_here, notes)
+            if surface is None:
+                surface = farm.surface(name, variable, grid, pts, notes, borrowed=borrowed)
+            out[(name, variable)] = surface
     return out
+
+
+def _borrowing(name: str, in_paddock: gpd.GeoDataFrame, settings: InterpolationSettings) -> bool:
+    """Whether a paddock's surfaces come from the whole farm's samples (it has none; refused
+    unless ``borrow_farm_surface``)."""
+    if not in_paddock.empty:
+        return False
+    if not settings.borrow_farm_surface:
+        raise InputError(
+            f"paddock '{name}' has no samples",
+            fix="sample it, leave it out of the boundaries file, or set "
+            "[interpolation] borrow_farm_surface = true to krige it from the whole farm",
+        )
+    warnings.warn(
+        f"paddock '{name}' has no samples: its surfaces are interpolated from the "
+        "whole farm's samples (borrow_farm_surface)",
+        InterpolationWarning, stacklevel=3,
+    )
+    return True
+
+
+def _simple_surface(
+    name: str, variable: str, grid: PaddockGrid, pts: gpd.GeoDataFrame,
+    zones_here: gpd.GeoDataFrame | None, notes: list[str],
+) -> Surface | None:
+    """The surface that needs no interpolation: empty without values, flat from one value,
+    zone values from one composite sample per management zone; None otherwise."""
+    n = len(pts)
+    if n == 0:
+        msg = f"no {variable} values in this paddock: surface left empty"
+        notes.append(msg)
+        warnings.warn(f"{name}: {msg}", InterpolationWarning, stacklevel=3)
+        return Surface(variable, name, grid.to_array(np.full(grid.n_cells, np.nan)), None,
+                       "none", 0, notes=tuple(notes))
+    z = pts[variable].to_numpy(float)
+    if n == 1 or np.ptp(z) == 0:
+        notes.append("one sample" if n == 1 else f"all {n} samples equal")
+        notes[-1] += f": flat surface at {z[0]:g}"
+        return Surface(variable, name, _flat(grid, float(z[0])), None, "flat", n,
+                       notes=tuple(notes))
+    if zones_here is None or not len(zones_here) or n > len(zones_here):
+        return None
+    got = _zone_values(grid, pts, variable, zones_here)
+    if got is None:
+        return None
+    zv, n_fill = got
+    notes.append(f"{n} composite samples, one per management zone: each zone takes its "
+                 "sample's value")
+    if n_fill:
+        notes.append(f"{n_fill} cells in no sampled zone took the value of the nearest "
+                     "sampled zone")
+    return Surface(variable, name, zv, None, "zone values", n, notes=tuple(notes))
+
+
+class _FarmInterpolation:
+    """Kriging (or inverse-distance weighting) of the paddocks of one farm: the farm-wide
+    variograms are fitted once each, the local-neighbourhood warning given once a paddock."""
+
+    def __init__(self, samples: gpd.GeoDataFrame, settings: InterpolationSettings) -> None:
+        self.samples = samples
+        self.settings = settings
+        self.farm_fits: dict[tuple[str, bool], _Fit | _NoFit] = {}
+        self.told_local: set[str] = set()  # paddocks already warned about the neighbourhood
+        # ... and about the subset their variograms are fitted on (None: the farm-wide fit)
+        self.told_fit: set[str | None] = set()
+
+    def farm_fit(self, variable: str, log: bool) -> _Fit:
+        """The farm-wide variogram of ``variable`` (log scale when ``log``); raises
+        :class:`_NoFit` when none could be fitted."""
+        # keyed by the scale too: a paddock kriged on the log scale needs a log-scale variogram
+        if (variable, log) not in self.farm_fits:
+            pts = self.samples[self.samples[variable].notna()]
+            z = pts[variable].to_numpy(float)
+            note = None
+            if log:
+                keep = z > 0
+                if not keep.all():
+                    note = (f"{int((~keep).sum())} farm sample(s) of zero or less left out of "
+                            "the log-scale variogram")
+                pts, z = pts[keep], np.log(z[keep])
+            if (len(z) > FIT_MAX_SAMPLES and None not in self.told_fit
+                    and variable not in self.settings.fixed):
+                self.told_fit.add(None)
+                warnings.warn(
+                    f"farm-wide variogram: {len(z)} samples pooled, more than the "
+                    f"{FIT_MAX_SAMPLES} a variogram is fitted and cross-validated on: fitted on "
+                    f"{FIT_MAX_SAMPLES} of them spread over the farm (the same each run)",
+                    InterpolationWarning, stacklevel=2)
+            try:
+                with _where(f"farm-wide variogram of {variable}"):
+                    self.farm_fits[(variable, log)] = _fit_variogram(
+                        _xy(pts), z, variable=variable, settings=self.settings, scope="farm",
+                        note=note,
+                    )
+            except _NoFit as exc:
+                self.farm_fits[(variable, log)] = exc
+        got = self.farm_fits[(variable, log)]
+        if isinstance(got, _NoFit):
+            raise got
+        return got
+
+    def idw_surface(
+        self, name: str, variable: str, grid: PaddockGrid, xy: NDArray[np.float64],
+        z: NDArray[np.float64], notes: list[str], why: str,
+    ) -> Surface:
+        """Inverse-distance weighting, with a note and a warning saying why."""
+        power = self.settings.idw_power
+        msg = f"{why}: inverse-distance weighting (power {power:g}), no error surface"
+        notes.append(msg)
+        warnings.warn(f"{name}, {variable}: {msg}", InterpolationWarning, stacklevel=4)
+        x, y = grid.cell_centres()
+        est = idw(xy, z, np.column_stack([x, y]), power=power)
+        return Surface(
+            variable, name, _physical(variable, grid.to_array(est), notes), None,
+            "inverse-distance weighting", len(z), notes=tuple(notes),
+        )
+
+    def surface(self, name: str, variable: str, grid: PaddockGrid, pts: gpd.GeoDataFrame,
+                notes: list[str], *, borrowed: bool) -> Surface:
+        """The kriged surface of a paddock and variable, or inverse-distance weighting with
+        too few samples or without a variogram."""
+        settings = self.settings
+        n = len(pts)
+        z = pts[variable].to_numpy(float)
+        xy = _xy(pts)
+        if n < settings.min_samples_kriging:
+            return self.idw_surface(
+                name, variable, grid, xy, z, notes,
+                f"{n} samples, fewer than min_samples_kriging = {settings.min_samples_kriging}",
+            )
+        log = variable in settings.log_transform and bool(np.all(z > 0))
+        if variable in settings.log_transform and not log:
+            notes.append("values of zero or less: kriged without the log transform")
+        try:
+            fit = self.variogram(name, variable, xy, np.log(z) if log else z, log=log,
+                                 borrowed=borrowed, notes=notes)
+        except _NoFit as exc:
+            return self.idw_surface(name, variable, grid, xy, z, notes,
+                                    f"no variogram could be fitted ({exc})")
+        if fit.note:
+            notes.append(fit.note)
+        return self.kriged(name, variable, grid, xy, z, fit, log=log, notes=notes)
+
+    def variogram(self, name: str, variable: str, xy: NDArray[np.float64],
+                  zt: NDArray[np.float64], *, log: bool, borrowed: bool,
+                  notes: list[str]) -> _Fit:
+        """The paddock's own variogram, or the farm's (borrowed paddock, ``variogram_scope``
+        "farm", or "auto" with fewer than ``min_samples_variogram`` samples)."""
+        settings = self.settings
+        n = len(zt)
+        use_farm = borrowed or settings.variogram_scope == "farm" or (
+            settings.variogram_scope == "auto" and n < settings.min_samples_variogram
+        )
+        if not use_farm:
+            with _where(f"{name}, {variable}"):
+                return _fit_variogram(xy, zt, variable=variable, settings=settings,
+                                      scope="paddock")
+        fit = self.farm_fit(variable, log)
+        if not borrowed and variable not in settings.fixed:  # a fixed one is not fitted
+            notes.append(
+                f"{n} samples, fewer than min_samples_variogram = "
+                f"{settings.min_samples_variogram}: variogram fitted on the farm's "
+                "pooled samples"
+                if settings.variogram_scope == "auto"
+                else "variogram fitted on the farm's pooled samples"
+            )
+        return fit
+
+    def kriged(self, name: str, variable: str, grid: PaddockGrid, xy: NDArray[np.float64],
+               z: NDArray[np.float64], fit: _Fit, *, log: bool, notes: list[str]) -> Surface:
+        """Ordinary kriging with the fitted model, its cross-validation and notes."""
+        model = fit.model
+        assert model is not None
+        n = len(z)
+        with _where(f"{name}, {variable}"):
+            # the selection's cross-validation is this one when the variogram was
+            # fitted on these very samples
+            cv = (fit.cross_validation if fit.scope == "paddock"
+                  and fit.cross_validation is not None
+                  else _cross_validate(xy, np.log(z) if log else z, model, notes))
+            if n > FIT_MAX_SAMPLES and name not in self.told_fit:
+                self.told_fit.add(name)
+                warnings.warn(
+                    f"{n} samples, more than the {FIT_MAX_SAMPLES} a variogram is fitted "
+                    f"and cross-validated on: {FIT_MAX_SAMPLES} of them, spread over the "
+                    f"area, are used for that (the same each run); the kriging uses all {n}",
+                    InterpolationWarning, stacklevel=2)  # _where names it
+            near = self.neighbours(name, n, notes)
+            est, std = _krige(xy, z, grid, model, log=log, neighbours=near)
+        est = _physical(variable, est, notes)
+        if not np.isfinite(cv.msse) or cv.msse > 3 or cv.msse < 1 / 3:
+            notes.append(
+                f"cross-validation MSSE {cv.msse:.2f} is far from 1: the error surface may "
+                "under- or over-state the uncertainty"
+            )
+        return Surface(
+            variable, name, est, std, "ordinary kriging", n, model=model,
+            variogram_scope=fit.scope, empirical=fit.empirical, cross_validation=cv,
+            candidates=fit.candidates, log_transform=log, notes=tuple(notes),
+        )
+
+    def neighbours(self, name: str, n: int, notes: list[str]) -> int:
+        """The kriging neighbourhood: the setting, or above the global kriging ceiling each
+        cell's nearest :data:`AUTO_NEIGHBOURS` samples (said once a paddock)."""
+        near = self.settings.neighbours
+        if near == 0 and n > GLOBAL_KRIGING_MAX_SAMPLES:
+            near = AUTO_NEIGHBOURS
+            msg = (f"{n} samples, more than the {GLOBAL_KRIGING_MAX_SAMPLES} global "
+                   f"kriging is run on: each cell kriged from its nearest {near} "
+                   "samples (set [interpolation] neighbours to choose)")
+            notes.append(msg)
+            if name not in self.told_local:
+                self.told_local.add(name)
+                warnings.warn(msg, InterpolationWarning, stacklevel=2)  # _where names it
+        return near
+
+
+def _cleared_cells(
+    surfaces: Mapping[str, NDArray[np.float64]],
+) -> tuple[dict[str, NDArray[np.float64]], list[str]]:
+    """The surfaces as cell arrays with interpolation artefacts cleared (amounts below zero
+    set to zero, ESP within 0-100 %, Al at most the exchangeable acidity) and surfaces
+    without any value left out, with a note for each."""
+    cells: dict[str, NDArray[np.float64]] = {}
+    notes: list[str] = []
+    arrays = {v: np.array(arr, dtype=float) for v, arr in surfaces.items()}
+    any_values = any(np.isfinite(a).any() for a in arrays.values())
+    for v, a in arrays.items():
+        if any_values and a.size and not np.isfinite(a).any():
+            notes.append(f"{v}: no values in this paddock, left out")
+            continue
+        if v in _AMOUNTS:
+            neg = a < 0
+            if neg.any():
+                notes.append(f"{v}: {int(neg.sum())} cells kriged below zero were set to zero")
+                a[neg] = 0.0
+        elif v == "esp":
+            out = (a < 0) | (a > 100)
+            if out.any():
+                notes.append(f"esp: {int(out.sum())} cells outside 0-100 % were clipped to it")
+                a = np.clip(a, 0.0, 100.0)
+        cells[v] = a
+    if "al" in cells and "acidity" in cells:
+        above = cells["al"] > cells["acidity"]
+        if above.any():
+            notes.append(
+                f"al: {int(above.sum())} cells above the exchangeable acidity were lowered to it"
+            )
+            cells["al"] = np.where(above, cells["acidity"], cells["al"])
+    return cells, notes
+
+
+def _basis_notes(chem: Mapping[str, Any], inside: NDArray[np.bool_]) -> list[str]:
+    """How many cells took their ECEC from the lab's CEC or the CEC at pH 7, and how each
+    cell's exchangeable acidity was made (Al + H, one of them, or 0 at a neutral pH)."""
+    notes: list[str] = []
+    basis = chem["ecec_basis"]
+    n_lab = int(np.count_nonzero((basis == ECEC_BASES.index("lab CEC")) & inside))
+    if n_lab:
+        notes.append(f"ECEC taken from the lab's CEC on {n_lab} cell(s) (its parts are "
+                     "incomplete there)")
+    n_t7 = int(np.count_nonzero((basis == ECEC_BASES.index("CEC at pH 7")) & inside))
+    if n_t7:
+        notes.append(f"ECEC taken as the CEC at pH 7 on {n_t7} cell(s) (no exchangeable "
+                     "acidity: above the ECEC on acid soils, so shares read low there)")
+    for how in ("Al + H", "Al (H not measured)", "H (Al not measured)",
+                "0 (neutral pH, not measured)"):
+        n = int(np.count_nonzero((chem["acidity_basis"] == ACIDITY_BASES.index(how)) & inside))
+        if n:
+            notes.append(f"exchangeable acidity on {n} cell(s): {how}")
+    return notes
 
 
 def derive_cells(
@@ -772,32 +873,7 @@ def derive_cells(
     >>> float(cells["ecec"][0]), float(cells["esp"][0])
     (10.0, 10.0)
     """
-    cells: dict[str, NDArray[np.float64]] = {}
-    notes: list[str] = []
-    arrays = {v: np.array(arr, dtype=float) for v, arr in surfaces.items()}
-    any_values = any(np.isfinite(a).any() for a in arrays.values())
-    for v, a in arrays.items():
-        if any_values and a.size and not np.isfinite(a).any():
-            notes.append(f"{v}: no values in this paddock, left out")
-            continue
-        if v in _AMOUNTS:
-            neg = a < 0
-            if neg.any():
-                notes.append(f"{v}: {int(neg.sum())} cells kriged below zero were set to zero")
-                a[neg] = 0.0
-        elif v == "esp":
-            out = (a < 0) | (a > 100)
-            if out.any():
-                notes.append(f"esp: {int(out.sum())} cells outside 0-100 % were clipped to it")
-                a = np.clip(a, 0.0, 100.0)
-        cells[v] = a
-    if "al" in cells and "acidity" in cells:
-        above = cells["al"] > cells["acidity"]
-        if above.any():
-            notes.append(
-                f"al: {int(above.sum())} cells above the exchangeable acidity were lowered to it"
-            )
-            cells["al"] = np.where(above, cells["acidity"], cells["al"])
+    cells, notes = _cleared_cells(surfaces)
     if not cells:
         return cells, notes
     chem = exchange_chemistry(
@@ -808,20 +884,7 @@ def derive_cells(
     inside = np.zeros(np.shape(next(iter(cells.values()))), dtype=bool)
     for a in cells.values():
         inside |= np.isfinite(a)
-    basis = chem["ecec_basis"]
-    n_lab = int(np.count_nonzero((basis == ECEC_BASES.index("lab CEC")) & inside))
-    if n_lab:
-        notes.append(f"ECEC taken from the lab's CEC on {n_lab} cell(s) (its parts are "
-                     "incomplete there)")
-    n_t7 = int(np.count_nonzero((basis == ECEC_BASES.index("CEC at pH 7")) & inside))
-    if n_t7:
-        notes.append(f"ECEC taken as the CEC at pH 7 on {n_t7} cell(s) (no exchangeable "
-                     "acidity: above the ECEC on acid soils, so shares read low there)")
-    for how in ("Al + H", "Al (H not measured)", "H (Al not measured)",
-                "0 (neutral pH, not measured)"):
-        n = int(np.count_nonzero((chem["acidity_basis"] == ACIDITY_BASES.index(how)) & inside))
-        if n:
-            notes.append(f"exchangeable acidity on {n} cell(s): {how}")
+    notes.extend(_basis_notes(chem, inside))
     for key in ("acidity", "ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "acid_sat",
                 "al_sat"):
         value = np.asarray(chem[key], dtype=float)
