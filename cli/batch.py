@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from .options import echo, echo_err, handle_errors
+from .summary import print_cautions
 
 __all__ = ["batch"]
 
@@ -83,7 +84,6 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
     and the others go on; the exit status is then 1.
     """
     from geosoil.batch import SUMMARY_CSV, SUMMARY_HTML, find_projects, products_of, run_batch
-    from geosoil.report import CAUTIONS
 
     if scheduler and (workers is not None or memory_limit != "auto"):
         raise click.UsageError(
@@ -106,10 +106,7 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
     echo(f"Batch folder: {result.out_dir}")
     for name in (SUMMARY_CSV, SUMMARY_HTML):
         echo(f"  {result.out_dir / name}")
-    echo("")
-    echo("Cautions:")
-    for c in CAUTIONS:
-        echo(f"  * {c}")
+    print_cautions()
     if result.failed:
         echo_err(f"{len(result.failed)} of {len(result.outcomes)} farm(s) failed:")
         for o in result.failed:

@@ -6,7 +6,8 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors, out_option, overwrite_option
+from .options import echo, handle_errors, out_option, overwrite_option
+from .summary import print_cautions, print_warnings
 
 __all__ = ["compare"]
 
@@ -37,7 +38,6 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     """
     from geosoil.change import CLASS_CODES, parse_ph_conversion
     from geosoil.compare import run_compare
-    from geosoil.report import CAUTIONS
 
     conversion = parse_ph_conversion(ph_conversion) if ph_conversion else None
     result = run_compare(last, this, out_dir=out, ph_conversion=conversion,
@@ -68,11 +68,5 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     n_tif = sum(1 for name in rec["files"] if name.startswith("change/"))
     echo(f"  {result.out_dir / 'change'}  ({n_tif} files; class codes "
          + ", ".join(f"{c} {k}" for k, c in CLASS_CODES.items()) + ")")
-    if result.warnings and not ctx.obj["quiet"]:
-        echo_err(f"{len(result.warnings)} warning(s) recorded in run.json and the report:")
-        for w in result.warnings:
-            echo_err(f"  - {w}")
-    echo("")
-    echo("Cautions:")
-    for c in CAUTIONS:
-        echo(f"  * {c}")
+    print_warnings(result.warnings, where="run.json and the report", quiet=ctx.obj["quiet"])
+    print_cautions()

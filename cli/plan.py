@@ -6,7 +6,8 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors, out_option, overwrite_option, project_argument
+from .options import echo, handle_errors, out_option, overwrite_option, project_argument
+from .summary import print_cautions, print_warnings
 
 __all__ = ["plan"]
 
@@ -47,7 +48,6 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
         raise click.UsageError("--budget and --cost-per-sample go together")
     from geosoil.plan import run_plan  # the stack loads when a command runs, not at --help
     from geosoil.project import load_project
-    from geosoil.report import CAUTIONS
 
     proj = load_project(project)
     result = run_plan(proj, out_dir=out, n_points=n_points, budget=budget,
@@ -71,11 +71,5 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
     echo(f"Output folder: {result.out_dir}")
     for p in result.written:
         echo(f"  {p}")
-    if result.warnings and not ctx.obj["quiet"]:
-        echo_err(f"{len(result.warnings)} warning(s) recorded in run.json:")
-        for w in result.warnings:
-            echo_err(f"  - {w}")
-    echo("")
-    echo("Cautions:")
-    for c in CAUTIONS:
-        echo(f"  * {c}")
+    print_warnings(result.warnings, where="run.json", quiet=ctx.obj["quiet"])
+    print_cautions()

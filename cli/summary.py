@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 from .options import echo, echo_err
@@ -9,12 +10,29 @@ from .options import echo, echo_err
 if TYPE_CHECKING:
     from geosoil.job import RunResult
 
-__all__ = ["print_summary"]
+__all__ = ["print_cautions", "print_summary", "print_warnings"]
+
+
+def print_warnings(warnings: Sequence[str], *, where: str, quiet: bool) -> None:
+    """The run's warnings on stderr, saying where they are recorded (nothing when quiet)."""
+    if warnings and not quiet:
+        echo_err(f"{len(warnings)} warning(s) recorded in {where}:")
+        for w in warnings:
+            echo_err(f"  - {w}")
+
+
+def print_cautions() -> None:
+    """The cautions that end the output of every command that gives rates (stdout)."""
+    from geosoil.report import CAUTIONS
+
+    echo("")
+    echo("Cautions:")
+    for c in CAUTIONS:
+        echo(f"  * {c}")
 
 
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
-    from geosoil.report import CAUTIONS
     from geosoil.tonnage import KG_PER_SHORT_TON, format_summary, mass_unit_for
 
     settings = result.farm.prep.project.settings
@@ -45,11 +63,5 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
         for item in shortened:
             echo(f"  {item['what']}: {item['original']!r} -> {item['short']!r}"
                  f" ({item['format']})")
-    if result.warnings and not quiet:
-        echo_err(f"{len(result.warnings)} warning(s) recorded in run.json and the report:")
-        for w in result.warnings:
-            echo_err(f"  - {w}")
-    echo("")
-    echo("Cautions:")
-    for c in CAUTIONS:
-        echo(f"  * {c}")
+    print_warnings(result.warnings, where="run.json and the report", quiet=quiet)
+    print_cautions()
