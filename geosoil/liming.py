@@ -431,12 +431,7 @@ def mehlich_lime(buffer_ph: ArrayLike, ph: ArrayLike, target_ph: float) -> Any:
             f"Mehlich's formula holds for targets below pH {MEHLICH_REFERENCE_PH:g} "
             f"(got {target_ph:g})", key="target_ph",
         )
-    p = _arr(ph)
-    ac = _arr(mehlich_acidity(buffer_ph))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        share = (target_ph - p) / (MEHLICH_REFERENCE_PH - p)
-    rate = np.where(p < target_ph, ac * share, 0.0)
-    return _out(np.where(np.isnan(p) | np.isnan(ac), np.nan, rate))
+    return _to_target(mehlich_acidity(buffer_ph), ph, target_ph, MEHLICH_REFERENCE_PH)
 
 
 def adams_evans_acidity(buffer_ph: ArrayLike) -> Any:
@@ -495,12 +490,19 @@ def adams_evans_lime(buffer_ph: ArrayLike, ph: ArrayLike, target_ph: float) -> A
             f"the Adams-Evans method here holds for targets up to pH "
             f"{ADAMS_EVANS_REFERENCE_PH:g} (got {target_ph:g})", key="target_ph",
         )
+    return _to_target(adams_evans_acidity(buffer_ph), ph, target_ph, ADAMS_EVANS_REFERENCE_PH)
+
+
+def _to_target(acidity: ArrayLike, ph: ArrayLike, target_ph: float, reference_ph: float) -> Any:
+    """The share of a buffer's acidity that takes pH to the target, the proportional form
+    Mehlich's and the Adams-Evans methods share: ``acidity x (target - pH) / (reference -
+    pH)``, at most all of it, 0 where pH is at or above the target, NaN where either is."""
     p = _arr(ph)
-    h = _arr(adams_evans_acidity(buffer_ph))
+    ac = _arr(acidity)
     with np.errstate(divide="ignore", invalid="ignore"):
-        share = np.minimum((target_ph - p) / (ADAMS_EVANS_REFERENCE_PH - p), 1.0)
-    rate = np.where(p < target_ph, h * share, 0.0)
-    return _out(np.where(np.isnan(p) | np.isnan(h), np.nan, rate))
+        share = np.minimum((target_ph - p) / (reference_ph - p), 1.0)
+    rate = np.where(p < target_ph, ac * share, 0.0)
+    return _out(np.where(np.isnan(p) | np.isnan(ac), np.nan, rate))
 
 
 def organic_carbon_from_om(om_percent: ArrayLike, factor: float = VAN_BEMMELEN) -> Any:
