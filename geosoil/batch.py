@@ -250,11 +250,7 @@ def code_digest() -> str:
     str
         The hexadecimal digest.
     """
-    h = hashlib.sha256(f"geosoil {__version__}\n".encode())
-    for f in sorted(Path(__file__).parent.glob("*.py")):
-        h.update(f.name.encode())
-        h.update(f.read_bytes())
-    return h.hexdigest()
+    return record_mod.source_digest()
 
 
 def farm_key(project: Any) -> str:

@@ -29,7 +29,7 @@ from xml.sax.saxutils import escape, quoteattr
 import numpy as np
 import pandas as pd
 
-from .writers import atomic_path
+from .writers import atomic_path, text_or_none
 
 __all__ = ["RATE_COLOURS", "ZERO_COLOUR", "rate_classes", "zone_styles", "plain_style",
            "write_gpkg"]
@@ -233,8 +233,7 @@ def _plain_columns(frame: Any) -> Any:
             continue
         s = out[col]
         if s.dtype == object:
-            out[col] = s.map(lambda v: None if v is None or (isinstance(v, float) and
-                                                               math.isnan(v)) else str(v))
+            out[col] = s.map(text_or_none)
         elif isinstance(s.dtype, pd.BooleanDtype) or s.dtype == bool:
             out[col] = s.astype("Int64" if s.isna().any() else "int64")
     return out

@@ -34,7 +34,6 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from . import __version__
 from . import cache as cache_mod
 from . import grids as grids_mod
 from . import kriging as kriging_mod
@@ -53,6 +52,7 @@ from .names import MAX_NAME_CHARS, assign, slug
 from .products import Product, ProductSettings, resolve_products, uncertified
 from .project import Project
 from .rates import RateLayer, RateResult, check_inputs, compute_rates
+from .record import source_digest
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
@@ -518,12 +518,11 @@ def _derivable(variables: list[str]) -> set[str]:
 
 def _surface_key(prep: Prepared) -> str:
     s = prep.project.settings
-    h = hashlib.sha256()
+    h = hashlib.sha256(b"surfaces\n")
     # the code that makes surfaces is part of the key: a changed engine never reuses old results
-    h.update(f"geosoil {__version__} surfaces\n".encode())
-    for module in (surfaces_mod, kriging_mod, model_choice_mod, variogram_mod, points_mod,
-                   grids_mod):
-        h.update(Path(module.__file__ or "").read_bytes())
+    h.update(source_digest(*(m.__file__ for m in (surfaces_mod, kriging_mod, model_choice_mod,
+                                                  variogram_mod, points_mod, grids_mod))
+                           ).encode())
     cols = ["paddock", *prep.variables]
     table = prep.samples[cols].copy()
     table["x"] = prep.samples.geometry.x.round(6)

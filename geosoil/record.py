@@ -18,7 +18,7 @@ from . import __version__
 if TYPE_CHECKING:
     from .project import Project
 
-__all__ = ["sha256_file", "versions", "now_utc", "input_checksums"]
+__all__ = ["sha256_file", "source_digest", "versions", "now_utc", "input_checksums"]
 
 
 def sha256_file(path: Path) -> str:
@@ -38,6 +38,29 @@ def sha256_file(path: Path) -> str:
     with open(path, "rb") as fh:
         for chunk in iter(lambda: fh.read(1 << 20), b""):
             h.update(chunk)
+    return h.hexdigest()
+
+
+def source_digest(*files: str | Path | None) -> str:
+    """SHA-256 of geosoil's version and the source of ``files`` (module ``__file__`` paths;
+    none: every module of the package), so that results made by other code are never reused.
+
+    Parameters
+    ----------
+    *files : str or Path
+        Source files, in a fixed order.
+
+    Returns
+    -------
+    str
+        The hexadecimal digest.
+    """
+    paths = ([Path(f or "") for f in files] if files
+             else sorted(Path(__file__).parent.glob("*.py")))
+    h = hashlib.sha256(f"geosoil {__version__}\n".encode())
+    for p in paths:
+        h.update(p.name.encode())
+        h.update(p.read_bytes())
     return h.hexdigest()
 
 

@@ -57,17 +57,18 @@ from shapely.geometry.base import BaseGeometry
 from shapely.geometry.polygon import orient
 
 from .errors import CRSError
+from .record import sha256_file, source_digest
 
 __all__ = [
     "SHAPEFILE_FIELDS",
     "atomic_write",
     "atomic_path",
+    "text_or_none",
     "write_geojson",
     "geojson_text",
     "write_shapefile_zip",
     "write_cog",
     "cog_key",
-    "file_sha256",
     "reuse_or_write_cog",
     "write_csv",
     "inert_cell",
@@ -512,6 +513,19 @@ def _check_field_names(fields: Mapping[str, str]) -> None:
         seen.add(name.upper())
 
 
+def text_or_none(value: Any) -> str | None:
+    """A cell as GDAL writes text: None for a missing value (None, NA, NaN), else its text.
+
+    Examples
+    --------
+    >>> text_or_none(float("nan")), text_or_none(3), text_or_none("a")
+    (None, '3', 'a')
+    """
+    if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)):
+        return None
+    return str(value)
+
+
 def _shapefile_frame(frame: Any, fields: Mapping[str, str]) -> Any:
     import geopandas as gpd
 
@@ -533,8 +547,7 @@ def _shapefile_frame(frame: Any, fields: Mapping[str, str]) -> Any:
         elif pd.api.types.is_float_dtype(s):
             out[name] = s.astype("float64")
         else:
-            text = s.map(lambda v: None if v is None or v is pd.NA or
-                         (isinstance(v, float) and math.isnan(v)) else str(v))
+            text = s.map(text_or_none)
             too_long = text.map(lambda v: v is not None and len(v.encode("utf-8")) > 254)
             if too_long.any():
                 raise ValueError(
@@ -720,11 +733,8 @@ def _cog_writer_id() -> bytes:
     versions of geosoil, rasterio and GDAL."""
     import rasterio
 
-    from . import __version__
-
-    source = Path(__file__).read_bytes()
-    return "\n".join([__version__, rasterio.__version__, rasterio.__gdal_version__,
-                      hashlib.sha256(source).hexdigest()]).encode("utf-8")
+    return "\n".join([rasterio.__version__, rasterio.__gdal_version__,
+                      source_digest(__file__)]).encode("utf-8")
 
 
 def cog_key(
@@ -764,15 +774,6 @@ def cog_key(
     return h.hexdigest()
 
 
-def file_sha256(path: str | os.PathLike[str]) -> str:
-    """SHA-256 of a file's bytes (hex)."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def reuse_or_write_cog(
     path: str | os.PathLike[str],
     array: NDArray[np.floating[Any]],
@@ -807,7 +808,7 @@ def reuse_or_write_cog(
         old_path, old = previous
         try:
             same = (old.get("key") == key and isinstance(old.get("sha256"), str)
-                    and old_path.is_file() and file_sha256(old_path) == old["sha256"])
+                    and old_path.is_file() and sha256_file(old_path) == old["sha256"])
         except OSError:
             same = False
         if same:
@@ -815,4 +816,4 @@ def reuse_or_write_cog(
                 shutil.copyfile(old_path, tmp)
             return {"key": key, "sha256": str(old["sha256"])}, True
     write_cog(path, array, **kwargs)
-    return {"key": key, "sha256": file_sha256(path)}, False
+    return {"key": key, "sha256": sha256_file(Path(path))}, False

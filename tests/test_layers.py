@@ -25,9 +25,16 @@ LAYER = {**dict.fromkeys(CORE, 0), **dict.fromkeys(IO, 1), **dict.fromkeys(PRESE
 
 
 def _imports(path: Path) -> set[str]:
-    """The geosoil modules (and ``cli``) a module imports, at the top or inside a function."""
+    """The geosoil modules (and ``cli``) a module imports, at the top or inside a function
+    (not those under ``if TYPE_CHECKING:``, which name types for annotations only)."""
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    typing_only = {id(n) for block in ast.walk(tree) if isinstance(block, ast.If)
+                   and ast.unparse(block.test).endswith("TYPE_CHECKING")
+                   for n in ast.walk(block)}
     found: set[str] = set()
-    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+    for node in ast.walk(tree):
+        if id(node) in typing_only:
+            continue
         if isinstance(node, ast.ImportFrom):
             if node.level == 1:
                 names = [node.module] if node.module else [a.name for a in node.names]
