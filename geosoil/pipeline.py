@@ -357,6 +357,7 @@ def prepare(
         )
         samples = derive_salinity(samples, s.salinity)
         layers, samples = _split_layers(samples, project, read)
+        _warn_unsampled_layers(layers, paddocks, project)
         _warn_single_samples(samples, paddocks)
         variables = variables_to_interpolate(samples)
         products = resolve_products(s.products)
@@ -665,6 +666,33 @@ def _layer_surfaces(prep: Prepared, progress: Progress, found: list[str]
     return out
 
 
+def _no_esp_text(name: str, missing: list[Layer]) -> str:
+    """The warning for a paddock without ESP at layers the gypsum treatment spans (the same
+    words in check, from the samples, and in the run, from the cells)."""
+    return (f"paddock '{name}' has no ESP at " + ", ".join(m.label for m in missing)
+            + ": the layer above stands for that soil in the gypsum requirement; sample it "
+            "at that depth")
+
+
+def _warn_unsampled_layers(layers: list[LayerSamples], paddocks: gpd.GeoDataFrame,
+                           project: Project) -> None:
+    """Before any kriging (so that check says it too): each paddock without samples giving
+    ESP at a deeper layer the gypsum treatment spans."""
+    s = project.settings
+    if not layers or s.interpolation.borrow_farm_surface:
+        return
+    treat = treat_depth_cm(s)
+    for name in paddocks["paddock"]:
+        missing = []
+        for ls in layers[1:]:
+            here = ls.samples[ls.samples["paddock"] == name]
+            if ls.layer.top_cm < treat and not ("esp" in here.columns
+                                                and here["esp"].notna().any()):
+                missing.append(ls.layer)
+        if missing:
+            warnings.warn(_no_esp_text(str(name), missing), DataWarning, stacklevel=3)
+
+
 def layer_cells(
     prep: Prepared, surfaces: dict[tuple[str, str], Surface], name: str
 ) -> tuple[list[tuple[Layer, dict[str, np.ndarray]]], list[str]]:
@@ -704,13 +732,8 @@ def gypsum_layers(
     by_layer = dict(have)
     chosen = spans([h[0] for h in have], treat_cm=treat)
     if missing and any(m.top_cm < treat for m in missing):
-        warnings.warn(
-            f"paddock '{name}' has no ESP at "
-            + ", ".join(m.label for m in missing if m.top_cm < treat)
-            + ": the layer above stands for that soil in the gypsum requirement; sample it "
-            "at that depth",
-            DataWarning, stacklevel=2,
-        )
+        warnings.warn(_no_esp_text(name, [m for m in missing if m.top_cm < treat]),
+                      DataWarning, stacklevel=2)
     out = []
     for sp in chosen:
         cells = by_layer[sp.layer]

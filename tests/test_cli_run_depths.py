@@ -358,3 +358,22 @@ def test_map_popups_carry_the_deeper_samples_of_the_same_place(two_depths: dict)
     labels = [f.label for f in sample_fields(farm)]
     assert "ESP, 10-30 cm" in labels and "Salinity class, 10-30 cm" in labels
     assert "Layer" in labels and "depth_top_cm" not in labels
+
+
+def test_a_paddock_not_sampled_at_a_depth_is_said_in_check_and_run(two_depths: dict,
+                                                                     tmp_path: Path) -> None:
+    project = write_farm(tmp_path / "farm", two_depths["cache"])
+    lab = project / "lab.csv"
+    lines = [line for line in lab.read_text().splitlines()
+             if not (line.startswith("S") and ",10-30 cm," in line)]
+    lab.write_text("\n".join(lines) + "\n")
+    said = "paddock 'South' has no ESP at 10-30 cm: the layer above stands for that soil"
+    checked = CliRunner().invoke(cli, ["check", str(project)])
+    assert checked.exit_code == 0 and said in checked.output
+    record = run(project, tmp_path / "out")
+    assert sum(said in w for w in record["warnings"]) == 1
+    # South's topsoil (ESP 4.1, below the target 5) stands for 0-30 cm: no gypsum
+    south = {p["paddock"]: p for p in record["layers"]["paddocks"]}["South"]
+    assert [(r["layer"], r["from_cm"], r["to_cm"]) for r in south["gypsum_layers"]] == [
+        ("0-10 cm", 0, 30)]
+    assert cells(tmp_path / "out" / "rates" / "south" / "gypsum__gypsum.tif").max() == 0
