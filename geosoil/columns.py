@@ -57,6 +57,7 @@ __all__ = [
     "UNITLESS",
     "ANALYTE_SPELLINGS",
     "ID_SPELLINGS",
+    "PROPERTY_UNIT_TEXTS",
     "PH_METHODS",
     "HeaderInfo",
     "ColumnGuess",
@@ -590,7 +591,7 @@ _BUFFER_NAMES: dict[str, str] = {
     "smp": "bph_smp", "sikora": "bph_sikora", "mehlich": "bph_mehlich",
     "adams evans": "bph_adams_evans", "ae": "bph_adams_evans", "a e": "bph_adams_evans",
 }
-_PROPERTY_UNIT_TEXT: dict[str, str] = {
+PROPERTY_UNIT_TEXTS: dict[str, str] = {
     "%": "%", "pct": "%", "percent": "%", "g/100g": "%", "g/100 g": "%", "dag/kg": "%",
     "g/kg": "g/kg", "g kg-1": "g/kg",
     "cmol/kg/ph": "cmol/kg/pH", "cmol+/kg/ph": "cmol/kg/pH", "cmolc/kg/ph": "cmol/kg/pH",
@@ -612,14 +613,14 @@ def _lime_analyte(
     """Buffer pH (by buffer), organic carbon / matter, clay and pHBC headers; None otherwise."""
     inner = [i.strip() for i in _BRACKETS.findall(plain)]
     unit_texts = [i for i in inner if i.lower().replace(" ", "") in
-                  {k.replace(" ", "") for k in _PROPERTY_UNIT_TEXT}]
+                  {k.replace(" ", "") for k in PROPERTY_UNIT_TEXTS}]
     name_part = _BRACKETS.sub(" ", plain)
     words = _words(name_part)
     # a unit written after the name: "Clay %", "OC g/kg", "pHBC mmol/kg/pH"
     tail_unit = None
     for n in range(len(words) - 1, 0, -1):
         key = " ".join(words[n:]).replace(" ", "")
-        if key in {k.replace(" ", "") for k in _PROPERTY_UNIT_TEXT}:
+        if key in {k.replace(" ", "") for k in PROPERTY_UNIT_TEXTS}:
             tail_unit, words = key, words[:n]
             break
         if words[-1] == "%":
@@ -650,7 +651,7 @@ def _lime_analyte(
     if found is None:
         return None
     analyte: str = found
-    squashed = {k.replace(" ", ""): v for k, v in _PROPERTY_UNIT_TEXT.items()}
+    squashed = {k.replace(" ", ""): v for k, v in PROPERTY_UNIT_TEXTS.items()}
     texts = [u.lower().replace(" ", "") for u in unit_texts]
     if tail_unit is not None:
         texts.append(tail_unit)

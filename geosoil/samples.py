@@ -70,6 +70,7 @@ from .columns import (
     CANONICAL,
     PH_METHODS,
     PROPERTIES,
+    PROPERTY_UNIT_TEXTS,
     UNITLESS,
     detect_columns,
     parse_header,
@@ -448,18 +449,39 @@ def _is_number(text: str) -> bool:
         return False
 
 
+#: Units-row cells that name no analyte's unit but show the row is a units row (depth,
+#: coordinates, pH).
+_OTHER_UNIT_TEXTS = frozenset({
+    "cm", "mm", "m", "in", "inch", "inches", "deg", "degrees", "\u00b0", "dd",
+    "decimal degrees", "ph units", "ph unit", "units", "unit", "-", "n/a",
+})
+
+
 def _unit_cell(text: str) -> str | None:
-    """The units-row cell ``text`` when it names a cation unit or a percentage, else None."""
+    """The units-row cell ``text`` when it names a unit (a cation unit, a percentage, a
+    property's unit such as g/kg or dS/m, or a depth or coordinate unit), else None."""
     inner = text.strip().strip("()[]{}").strip()
     if not inner:
         return None
     if "%" in inner:
+        return inner
+    squashed = inner.lower().replace(" ", "")
+    if squashed in {k.replace(" ", "") for k in PROPERTY_UNIT_TEXTS} or (
+            inner.lower() in _OTHER_UNIT_TEXTS):
         return inner
     try:
         normalise_unit(inner)
     except SettingsError:
         return None
     return inner
+
+
+def _cation_unit(cell: str) -> str | None:
+    """The exchangeable unit a units-row cell names, or None (a percentage or another unit)."""
+    try:
+        return normalise_unit(cell)
+    except SettingsError:
+        return None
 
 
 def _body(
@@ -514,7 +536,7 @@ def _units_row_texts(body: pd.DataFrame) -> list[str] | None:
     texts = [_header_text(v) for v in body.iloc[0].tolist()]
     given = [t for t in texts if t]
     found = [u for t in given if (u := _unit_cell(t)) is not None]
-    if given and not any(_is_number(t) for t in given) and any("%" not in u for u in found):
+    if given and found and not any(_is_number(t) for t in given):
         return texts
     return None
 
@@ -1028,15 +1050,18 @@ def _units(
         if analyte in UNITLESS:
             units[analyte] = None
             continue
+        cell = (unit_cells or {}).get(header)
         if analyte in PROPERTIES:
+            # a property's unit: the setting, else the header, else the units row under it
+            # ("Organic carbon" over "g/kg"), else its usual unit
+            below_p = parse_header(f"{header} ({cell})").unit if cell is not None else None
             units[analyte] = (settings.units.get(analyte) or parse_header(header).unit
-                              or PROPERTIES[analyte][0])
+                              or below_p or PROPERTIES[analyte][0])
             continue
         said = parse_header(header).unit
-        cell = (unit_cells or {}).get(header)
         below = None
         if cell is not None and "%" not in cell:
-            below = normalise_unit(cell)
+            below = _cation_unit(cell)
         if analyte in settings.units:
             unit = normalise_unit(settings.units[analyte])
             if (said or below) not in (None, unit):

@@ -329,6 +329,23 @@ def test_a_header_written_twice_is_told_apart_by_the_units_row(tmp_path):
     assert "appears twice" in str(error_of(twice))
 
 
+def test_units_row_gives_the_units_of_organic_carbon_and_clay(tmp_path):
+    # a units row with no cation unit at all (g/kg, cm, deg) is still a units row, and its
+    # g/kg under organic carbon and clay is the unit read (10 g/kg = 1 %, by definition)
+    path = _lab_workbook(
+        tmp_path / "lab.xlsx", titles=[["Soil report"]],
+        header=["Sample", "Latitude", "Longitude", "Depth", "pH (CaCl2)", "Organic Carbon",
+                "Clay"],
+        units=[None, "deg", "deg", "cm", None, "g/kg", "g/kg"],
+        rows=[["S1", -35.001, 147.001, "0-10", 5.2, 13.9, 69.2]],
+    )
+    got = read(path)
+    assert got.units["oc"] == "g/kg" and got.units["clay"] == "g/kg"
+    assert got.samples.oc.tolist() == pytest.approx([1.39])
+    assert got.samples.clay.tolist() == pytest.approx([6.92])
+    assert got.samples.source_row.tolist() == [4]  # title, header, units row, then S1
+
+
 def test_csv_title_lines_units_row_semicolons_decimal_commas_and_bom(tmp_path):
     text = "\ufeff" + "\n".join([
         "Soil analysis report, batch 114",  # a comma in a title of a ';' file
