@@ -400,7 +400,8 @@ class LimeRule:
         minimum=0.0, maximum=5.0, exclusive_minimum=True,
     )
     target_acidity_share_percent: float = setting(
-        20.0, doc="share of ECEC left as exchangeable acidity (crop dependent)", unit="%",
+        10.0, doc="share of ECEC left as exchangeable acidity (crop dependent; keep it below "
+        "[chemistry] acid_saturation_percent, or acid-flagged cells get no lime)", unit="%",
         minimum=0.0, maximum=100.0,
     )
     product: str = setting("lime", doc="liming product key")

@@ -162,6 +162,54 @@ def test_potential_acidity_report_runs_base_saturation_as_hand_arithmetic(
     assert farm["tonnes"] == pytest.approx(rate * 12.0 / 1000, abs=0.005)  # 400 m x 300 m
 
 
+def test_acid_cells_that_the_lime_method_leaves_bare_are_said(tmp_path: Path) -> None:
+    # pH (CaCl2) 4.6 and exchangeable acidity 1.2 of an ECEC of 8.2 (14.6 %): flagged acid by
+    # pH; the acidity-share method with a 20 % target finds nothing to do (invented values)
+    folder = tmp_path / "in"
+    folder.mkdir()
+    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
+                     crs=UTM).to_file(folder / "paddocks.gpkg")
+    rng = np.random.default_rng(3)
+    x, y = X0 + rng.uniform(20, 380, 16), Y0 + rng.uniform(20, 280, 16)
+    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
+    head = ("Sample ID,Longitude,Latitude,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),"
+            "Na (cmol/kg),Exchangeable acidity (KCl) (cmol/kg)")
+    rows = "".join(f"S{i + 1:02d},{lon[i]:.7f},{lat[i]:.7f},4.6,5.0,1.5,0.4,0.1,1.2\n"
+                   for i in range(16))
+    (folder / "lab.csv").write_text(head + "\n" + rows)
+
+    def share_20(d: dict) -> None:
+        _cache(d, tmp_path)
+        d["rates"]["lime"]["target_acidity_share_percent"] = 20.0
+
+    data, new, check, run, out = _new_check_run(tmp_path, folder / "lab.csv",
+                                                folder / "paddocks.gpkg", edit=share_20)
+    assert "lime method 'acidity_share' chosen" in new.output
+    record = json.loads((out / "run.json").read_text())
+    bare = [w for w in record["warnings"] if "acid cell(s)" in w and "get no lime" in w]
+    assert len(bare) == 1 and bare[0].startswith("Home: ") and "target_acidity_share" in bare[0]
+    assert "get no lime" in run.output
+    # the default target (10 %) sits below the acid flag (15 %): lime by hand arithmetic
+    lr = data["rates"]["lime"]
+    assert lr["target_acidity_share_percent"] == 20.0  # as edited; the default is checked next
+    from geosoil.rates import LimeRule
+
+    share = LimeRule().target_acidity_share_percent
+    assert share < 15.0
+    ecec = 5.0 + 1.5 + 0.4 + 0.1 + 1.2
+    lime_cmol = lr["acidity_factor"] * (1.2 - share / 100 * ecec)
+    soil_kg_ha = 10_000 * data["soil"]["depth_m"] * data["soil"]["bulk_density_g_cm3"] * 1000
+    rate = lime_cmol * MG_CACO3_PER_CMOL * 1e-6 * soil_kg_ha
+    data["rates"]["lime"]["target_acidity_share_percent"] = share
+    (tmp_path / "farm" / "geosoil.toml").write_text(tomli_w.dumps(data))
+    again = invoke("run", tmp_path / "farm", "--out", tmp_path / "out2")
+    assert again.exit_code == 0, again.output
+    table = pd.read_csv(tmp_path / "out2" / "tonnage.csv")
+    farm = table[(table["level"] == "farm") & (table["product"] == "lime")].iloc[0]
+    assert farm["rate_kg_ha"] == pytest.approx(rate, abs=1.0)
+    assert "get no lime" not in again.output
+
+
 # --------------------------------------------------------------------------- a real field
 
 
