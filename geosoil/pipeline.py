@@ -466,6 +466,45 @@ def _paddock_variables(
     return {v for v in variables if v in pts.columns and pts[v].notna().any()}
 
 
+def _rows_text(rows: list[int]) -> str:
+    """Row numbers as ranges: 2-26, 30, 41-42."""
+    out: list[str] = []
+    for r in sorted(rows):
+        if out and "-" in out[-1] and int(out[-1].split("-")[1]) == r - 1:
+            out[-1] = f"{out[-1].split('-')[0]}-{r}"
+        elif out and "-" not in out[-1] and int(out[-1]) == r - 1:
+            out[-1] = f"{out[-1]}-{r}"
+        else:
+            out.append(str(r))
+    return ", ".join(out)
+
+
+def _grouped_gaps(
+    file: Any, gaps: list[tuple[int | None, str]], *, undecided: list[str]
+) -> list[str]:
+    """The samples whose ECEC cannot be formed, one problem per cause (rows listed).
+
+    Many samples share one cause (a column the lab left out, or one ``check`` asks about
+    first): each sample on its own line would bury the cause.
+    """
+    by_cause: dict[str, list[tuple[int | None, str]]] = {}
+    for row, reason in gaps:
+        cause = reason.split("': ", 1)[1] if reason.startswith("sample '") else reason
+        by_cause.setdefault(cause, []).append((row, reason))
+    out = []
+    for cause, items in by_cause.items():
+        rows = [r for r, _ in items if r is not None]
+        if len(items) < 4 or len(rows) < len(items):
+            out.extend(f"{file}, row {r}: {why}" if r is not None else f"{file}: {why}"
+                       for r, why in items)
+            continue
+        after = (f" (it follows from column '{undecided[0]}' above)"
+                 if undecided and "acidity" in cause else "")
+        cause = cause.replace("which this sample lacks", "which these samples lack")
+        out.append(f"{file}, rows {_rows_text(rows)} ({len(items)} samples): {cause}{after}")
+    return out
+
+
 def _warn_acid_cells_without_lime(
     name: str, cells: Mapping[str, Any], ph_method: str | None, ph: Any, rr: Any, s: Any,
 ) -> None:
@@ -1051,10 +1090,11 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                 # the same shape as InputError's "file, row N, column 'X': problem"
                 sep = ", " if reason.startswith("column ") else ": "
                 problems.append(f"{prep.read.file}, row {row}{sep}{reason}")
-            for row, reason in [*prep.samples.attrs.get("outside", []),
-                                *prep.samples.attrs.get("ecec_gaps", [])]:
+            for row, reason in prep.samples.attrs.get("outside", []):
                 where = f", row {row}" if row is not None else ""
                 problems.append(f"{prep.read.file}{where}: {reason}")
+            problems.extend(_grouped_gaps(prep.read.file, prep.samples.attrs.get("ecec_gaps", []),
+                                          undecided=list(prep.read.undecided)))
         if not prep.samples.empty:
             for name in prep.grids:
                 if not (prep.samples["paddock"] == name).any() and not (

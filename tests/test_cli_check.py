@@ -212,6 +212,21 @@ def test_samples_without_an_ecec_are_problems_when_a_run_would_stop(tmp_path: Pa
     assert _run(project, tmp_path / "out").exit_code == 1
 
 
+def test_one_undecided_acidity_column_is_one_problem_and_its_consequence_one_more(
+    tmp_path: Path,
+) -> None:
+    # "H+Al" names no method: check asks which it is, and the 12 samples left without an
+    # ECEC by it are one problem listing their rows, not 12 lines burying the cause
+    project = make_project(tmp_path / "farm",
+                           header=HEADER.replace("Exch Acidity (cmol/kg)", "H+Al (cmol/kg)"))
+    r = check(project)
+    problems = _problems(r.stderr)
+    assert r.exit_code == 1, r.stderr
+    assert len(problems) == 2, problems
+    assert "'H+Al (cmol/kg)' names no method" in problems[0]
+    assert "rows 2-13 (12 samples)" in problems[1] and "follows from column" in problems[1]
+
+
 def test_a_bulk_density_for_a_paddock_that_does_not_exist_names_the_key(
     tmp_path: Path
 ) -> None:
