@@ -491,7 +491,7 @@ def _grouped_gaps(
     for row, reason in gaps:
         cause = reason.split("': ", 1)[1] if reason.startswith("sample '") else reason
         by_cause.setdefault(cause, []).append((row, reason))
-    out = []
+    out: list[str] = []
     for cause, items in by_cause.items():
         rows = [r for r, _ in items if r is not None]
         if len(items) < 4 or len(rows) < len(items):
