@@ -453,17 +453,18 @@ def test_compute_for_one_paddock_gives_that_paddocks_zones_unchanged(demo) -> No
 
 
 def test_a_cache_hit_records_the_interpolation_warnings_again(demo) -> None:
-    # a re-run must report what the first run did: here Creek Flat's 39 samples fall short
-    # of min_samples_kriging and its surfaces come from inverse-distance weighting
+    # a re-run must report what the first run did: here the samples of every paddock fall
+    # short of min_samples_kriging and its surfaces come from inverse-distance weighting
+    # (Windmill's from its zone samples), a miss that kriges nothing, so the test stays quick
     s = demo.project.settings
     s2 = dataclasses.replace(s, interpolation=dataclasses.replace(
-        s.interpolation, min_samples_kriging=50))
+        s.interpolation, min_samples_kriging=1000))
     project = dataclasses.replace(demo.project, settings=s2)
     first = compute(project)
     second = compute(project)
     assert first.cache_hit is False and second.cache_hit is True
     idw = [w for w in first.warnings if "inverse-distance weighting" in w]
-    assert any(w.startswith("Creek Flat, ") for w in idw)
+    assert {w.split(",")[0] for w in idw} >= {"Red Hill", "Creek Flat"}
     assert [w for w in second.warnings if "inverse-distance weighting" in w] == idw
 
 
