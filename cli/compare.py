@@ -25,11 +25,16 @@ __all__ = ["compare"]
 @click.option("--z", "z", type=click.FloatRange(min=0.0, min_open=True), default=1.96,
               show_default=True,
               help="A change counts where it is larger than z times its standard deviation.")
+@click.option("--paired-within", "paired_within", type=click.FloatRange(min=0.0),
+              default=5.0, show_default=True, metavar="METRES",
+              help="A sample within this distance of one of last season's is the same site "
+                   "sampled again; where most of a paddock's samples are, the per-site "
+                   "differences are kriged directly (paired sites). 0: never.")
 @overwrite_option
 @click.pass_context
 @handle_errors
 def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion: str | None,
-            no_ph: bool, z: float, overwrite: bool) -> None:
+            no_ph: bool, z: float, paired_within: float, overwrite: bool) -> None:
     """Map the change in ESP, pH, Ca saturation and acidity from LAST season to THIS.
 
     LAST and THIS are each a project (folder or geosoil.toml) or the output
@@ -41,17 +46,19 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
 
     conversion = parse_ph_conversion(ph_conversion) if ph_conversion else None
     result = run_compare(last, this, out_dir=out, ph_conversion=conversion,
-                         compare_ph=not no_ph, z=z, overwrite=overwrite)
+                         compare_ph=not no_ph, z=z, paired_within=paired_within,
+                         overwrite=overwrite)
     rec = result.record
     echo(f"Change between seasons (this - last; beyond its error: |change| > {z:g} x sd)")
     if rec["ph"]:
         echo(f"  {rec['ph']}")
-    echo(f"{'paddock':<20} {'variable':<22} {'last':>8} {'this':>8} {'change':>8} "
-         f"{'fell %':>7} {'rose %':>7} {'no chg %':>8} {'not judged %':>12}")
+    echo(f"{'paddock':<20} {'variable':<22} {'method':<12} {'last':>8} {'this':>8} "
+         f"{'change':>8} {'fell %':>7} {'rose %':>7} {'no chg %':>8} {'not judged %':>12}")
     for r in rec["paddocks"]:
         def f(v: float | None, sign: str = "") -> str:
             return "–" if v is None else f"{v:{sign}.2f}"
-        echo(f"{r['paddock'][:20]:<20} {r['label'][:22]:<22} {f(r['last_mean']):>8} "
+        echo(f"{r['paddock'][:20]:<20} {r['label'][:22]:<22} {r['method']:<12} "
+             f"{f(r['last_mean']):>8} "
              f"{f(r['this_mean']):>8} {f(r['change_mean'], '+'):>8} {r['fell_pct']:>7.1f} "
              f"{r['rose_pct']:>7.1f} {r['no_change_beyond_error_pct']:>8.1f} "
              f"{r['no_error_surface_pct']:>12.1f}")

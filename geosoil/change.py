@@ -15,6 +15,23 @@ beyond error". Where either season has no kriging error (a surface made by
 inverse-distance weighting, one flat value or one value per zone) the class
 is "no error surface": the change is mapped but cannot be judged.
 
+Paired sites
+------------
+The independence above does not hold where a paddock was sampled again at the
+same sites: both seasons' kriging errors then come from the same gaps between
+the same sites and are strongly positively correlated, so the root sum of
+squares over-states the change's error (a uniform rise of 0.6 pH can hide
+behind a limit of 1.96 x sqrt(2) x 0.22 = 0.61). Where most of this season's
+samples of a paddock (:data:`PAIRED_LEAST_SHARE`) lie within a small distance
+(``paired_within``, :data:`PAIRED_WITHIN_M` by default) of one of last season's
+(:func:`pair_sites`, one to one, nearest first), the per-site differences
+(this - last) are kriged directly, with a variogram fitted to the differences:
+the change and its standard deviation are those of the kriged difference
+(common geostatistical practice for repeated measurements at fixed sites).
+Unpaired samples of such a paddock take no part in its change. Other paddocks
+keep the independent method. Each change says which method made it
+(:data:`METHODS`).
+
 The variables are ESP, pH (one method both seasons), Ca saturation and
 exchangeable acidity, each kriged as the sample values are (ESP and Ca
 saturation directly from the samples' ESP and saturation, so that each has a
@@ -45,14 +62,20 @@ __all__ = [
     "CHANGE_VARIABLES",
     "CLASS_CODES",
     "CLASS_NAMES",
+    "METHODS",
+    "PAIRED_LEAST_SHARE",
+    "PAIRED_WITHIN_M",
     "PH_METHODS",
     "Z_BEYOND_ERROR",
     "ChangeSurface",
     "PhConversion",
     "SeasonMismatchError",
+    "SitePairing",
     "change_surface",
     "choose_ph",
     "classify_change",
+    "pair_sites",
+    "paired_change_surface",
     "parse_ph_conversion",
     "zone_change_table",
 ]
@@ -83,6 +106,21 @@ CLASS_CODES: dict[str, int] = {
     "no error surface": 2,
 }
 CLASS_NAMES: dict[int, str] = {v: k for k, v in CLASS_CODES.items()}
+
+#: Two samples of the two seasons nearer than this (m) are one site sampled twice.
+PAIRED_WITHIN_M = 5.0
+
+#: Least share of this season's samples of a paddock on paired sites for the paired method.
+PAIRED_LEAST_SHARE = 0.75
+
+#: How a change was made -> what that means.
+METHODS: dict[str, str] = {
+    "independent": "each season kriged from its own samples; sd_change = "
+                   "sqrt(sd_last^2 + sd_this^2), the seasons' errors taken as independent",
+    "paired sites": "the differences (this - last) at sites sampled in both seasons kriged "
+                    "directly, with a variogram fitted to the differences; sd_change is the "
+                    "kriging standard deviation of the difference",
+}
 
 
 class SeasonMismatchError(SettingsError):
@@ -223,9 +261,85 @@ def classify_change(change: Array, sd_change: Array | None, *,
     return out
 
 
+@dataclass(frozen=True)
+class SitePairing:
+    """This season's samples of one paddock matched to last season's sites.
+
+    ``last_index[i]`` is the row (within the paddock) of last season's sample
+    paired with this season's sample ``i``, or -1.
+    """
+
+    paddock: str
+    within_m: float
+    last_index: NDArray[np.int64]
+    n_last: int
+
+    @property
+    def n_this(self) -> int:
+        """This season's samples in the paddock."""
+        return len(self.last_index)
+
+    @property
+    def n_paired(self) -> int:
+        """Samples of this season on a site of last season's."""
+        return int((self.last_index >= 0).sum())
+
+    @property
+    def share(self) -> float:
+        """Share (0-1) of this season's samples on paired sites."""
+        return self.n_paired / self.n_this if self.n_this else 0.0
+
+    @property
+    def paired(self) -> bool:
+        """True where the paired method applies (:data:`PAIRED_LEAST_SHARE`)."""
+        return self.within_m > 0 and self.n_paired >= 2 and self.share >= PAIRED_LEAST_SHARE
+
+
+def pair_sites(xy_last: Array, xy_this: Array, *, within: float) -> NDArray[np.int64]:
+    """Pair each of this season's points with one of last season's within ``within`` m.
+
+    One to one: the nearest pairs are taken first, and a point already paired
+    is not taken again. ``within`` 0 pairs nothing.
+
+    Returns
+    -------
+    ndarray of int
+        Per point of ``xy_this``, the index of its partner in ``xy_last`` or -1.
+
+    Examples
+    --------
+    >>> pair_sites(np.array([[0.0, 0.0], [10.0, 0.0]]),
+    ...            np.array([[1.0, 0.0], [2.0, 0.0], [50.0, 0.0]]), within=5.0).tolist()
+    [0, -1, -1]
+    """
+    a = np.asarray(xy_last, dtype=float).reshape(-1, 2)
+    b = np.asarray(xy_this, dtype=float).reshape(-1, 2)
+    out = np.full(len(b), -1, dtype=np.int64)
+    if within <= 0 or not len(a) or not len(b):
+        return out
+    import scipy.spatial
+
+    pairs = scipy.spatial.cKDTree(b).sparse_distance_matrix(
+        scipy.spatial.cKDTree(a), within, output_type="ndarray")
+    if not len(pairs):
+        return out
+    order = np.lexsort((pairs["j"], pairs["i"], pairs["v"]))
+    taken = np.zeros(len(a), dtype=bool)
+    for k in order:
+        i, j = int(pairs["i"][k]), int(pairs["j"][k])
+        if out[i] < 0 and not taken[j]:
+            out[i] = j
+            taken[j] = True
+    return out
+
+
 @dataclass(frozen=True, eq=False)
 class ChangeSurface:
-    """The change of one variable over one paddock grid (NaN outside its mask)."""
+    """The change of one variable over one paddock grid (NaN outside its mask).
+
+    ``method`` is a key of :data:`METHODS`; ``n_pairs`` the paired sites whose
+    differences made a "paired sites" change (0 for "independent").
+    """
 
     variable: str
     paddock: str
@@ -234,6 +348,8 @@ class ChangeSurface:
     change: Array
     sd_change: Array | None
     classes: Array
+    method: str = "independent"
+    n_pairs: int = 0
 
     def share(self, name: str, where: NDArray[np.bool_] | None = None) -> float:
         """Share (0-1) of the cells (of ``where``) in class ``name``."""
@@ -263,6 +379,30 @@ def change_surface(
                                                          np.asarray(s2, float))
     return ChangeSurface(variable, paddock, np.asarray(e1, float), np.asarray(e2, float),
                          change, sd, classify_change(change, sd, z=z))
+
+
+def paired_change_surface(
+    variable: str, paddock: str, last: Array, this: Array,
+    difference: tuple[Array, Array | None], *, n_pairs: int, z: float = Z_BEYOND_ERROR,
+) -> ChangeSurface:
+    """Change of ``variable`` kriged from paired sites' differences.
+
+    ``last`` and ``this`` are each season's own kriged estimate (shown beside
+    the change); ``difference`` is the kriged difference and its kriging sd.
+
+    Examples
+    --------
+    >>> s = paired_change_surface("ph", "A", np.array([5.0]), np.array([5.6]),
+    ...                           (np.array([0.6]), np.array([0.05])), n_pairs=40)
+    >>> s.method, s.classes.tolist()
+    ('paired sites', [1.0])
+    """
+    est, sd = difference
+    change = np.asarray(est, dtype=float)
+    sd_a = None if sd is None else np.asarray(sd, dtype=float)
+    return ChangeSurface(variable, paddock, np.asarray(last, float), np.asarray(this, float),
+                         change, sd_a, classify_change(change, sd_a, z=z), "paired sites",
+                         n_pairs)
 
 
 def _zone_cells(grid: PaddockGrid, geom: object) -> NDArray[np.bool_]:
@@ -299,7 +439,8 @@ def zone_change_table(
         cells in no zone of last season with a rate above zero. Columns:
         ``paddock, product, zone, prescribed_rate_kg_ha, passes, cells,
         area_ha`` and per variable ``<v>_last_mean, <v>_this_mean,
-        <v>_change_mean, <v>_rose_pct, <v>_fell_pct, <v>_no_change_pct``.
+        <v>_change_mean, <v>_rose_pct, <v>_fell_pct, <v>_no_change_pct,
+        <v>_method`` (a key of :data:`METHODS`: how the paddock's change was made).
     """
     variables = [v for v in CHANGE_VARIABLES if any(k[1] == v for k in changes)]
     rows: list[dict[str, object]] = []
@@ -333,6 +474,7 @@ def zone_change_table(
                 for part in ("last_mean", "this_mean", "change_mean", "rose_pct",
                              "fell_pct", "no_change_pct"):
                     row[f"{v}_{part}"] = math.nan
+                row[f"{v}_method"] = s.method if s is not None else ""
                 if s is None or n == 0:
                     continue
                 ch = s.change[cells]
@@ -348,5 +490,6 @@ def zone_change_table(
             rows.append(row)
     cols = ["paddock", "product", "zone", "prescribed_rate_kg_ha", "passes", "cells", "area_ha"]
     cols += [f"{v}_{p}" for v in variables for p in ("last_mean", "this_mean", "change_mean",
-                                                     "rose_pct", "fell_pct", "no_change_pct")]
+                                                     "rose_pct", "fell_pct", "no_change_pct",
+                                                     "method")]
     return pd.DataFrame(rows, columns=cols)

@@ -30,13 +30,19 @@ from . import __version__
 from .change import (
     CHANGE_VARIABLES,
     CLASS_CODES,
+    METHODS,
+    PAIRED_LEAST_SHARE,
+    PAIRED_WITHIN_M,
     PH_METHODS,
     Z_BEYOND_ERROR,
     ChangeSurface,
     PhConversion,
     SeasonMismatchError,
+    SitePairing,
     change_surface,
     choose_ph,
+    pair_sites,
+    paired_change_surface,
     zone_change_table,
 )
 from .errors import GeosoilError, InputError, SettingsError
@@ -58,13 +64,23 @@ LEAST_OVERLAP = 0.9
 
 METHOD = (
     "each season's sample values kriged on this season's paddock grid (ordinary kriging, "
-    "variogram chosen as in a run); change = this season - last season; its standard "
-    "deviation sd_change = sqrt(sd_last^2 + sd_this^2), the seasons' kriging errors taken as "
-    "independent; a change is beyond its error where |change| > z x sd_change"
+    "variogram chosen as in a run); change = this season - last season. Independent "
+    "method: sd_change = sqrt(sd_last^2 + sd_this^2), the seasons' kriging errors taken as "
+    "independent. Paired-sites method (a paddock where at least "
+    f"{100 * PAIRED_LEAST_SHARE:.0f} % of this season's samples lie within the pairing "
+    "distance of one of last season's): the per-site differences (this - last) kriged "
+    "directly with a variogram fitted to them, the change and sd_change being the kriged "
+    "difference and its kriging standard deviation. A change is beyond its error where "
+    "|change| > z x sd_change"
 )
 
-INDEPENDENCE = ("The two seasons' kriging errors are taken as independent (each season kriged "
-                "from its own samples): sd_change = sqrt(sd_last^2 + sd_this^2).")
+INDEPENDENCE = (
+    "Where a paddock was sampled again at the same sites, the two seasons' kriging errors are "
+    "strongly correlated, so the per-site differences (this - last) are kriged directly and "
+    "the change's standard deviation is that of the kriged difference (paired sites). "
+    "Elsewhere the seasons' kriging errors are taken as independent (each season kriged from "
+    "its own samples): sd_change = sqrt(sd_last^2 + sd_this^2). Each paddock and variable "
+    "says which method it used.")
 
 
 @dataclass
@@ -296,6 +312,105 @@ def _krige_season(season: Season, frame: gpd.GeoDataFrame, grids: dict[str, Padd
     return out
 
 
+def _pairings(frame_l: gpd.GeoDataFrame, frame_t: gpd.GeoDataFrame,
+              grids: dict[str, PaddockGrid], within: float,
+              notes: list[str]) -> dict[str, SitePairing]:
+    out = {}
+    for name in grids:
+        a = frame_l[frame_l["paddock"] == name]
+        b = frame_t[frame_t["paddock"] == name]
+        xy_a = np.column_stack([a.geometry.x, a.geometry.y]) if len(a) else np.empty((0, 2))
+        xy_b = np.column_stack([b.geometry.x, b.geometry.y]) if len(b) else np.empty((0, 2))
+        p = SitePairing(name, within, pair_sites(xy_a, xy_b, within=within), len(a))
+        out[name] = p
+        if p.paired and p.n_paired < p.n_this:
+            notes.append(f"{name}: {p.n_paired} of this season's {p.n_this} samples are on "
+                         f"sites sampled last season (within {within:g} m): the change is "
+                         f"kriged from their differences; the other {p.n_this - p.n_paired} "
+                         "take no part in it")
+        elif not p.paired and p.n_paired:
+            notes.append(f"{name}: {p.n_paired} of this season's {p.n_this} samples are on "
+                         f"sites sampled last season (within {within:g} m), under "
+                         f"{100 * PAIRED_LEAST_SHARE:.0f} %: the seasons are kriged apart and "
+                         "their errors taken as independent")
+    return out
+
+
+def _difference_frame(frame_l: gpd.GeoDataFrame, frame_t: gpd.GeoDataFrame,
+                      pairings: dict[str, SitePairing],
+                      variables: list[str]) -> gpd.GeoDataFrame:
+    """Per paired site of a paired paddock: this - last of each variable, at this season's
+    site (columns ``<v>_change``)."""
+    parts = []
+    for name, p in pairings.items():
+        if not p.paired:
+            continue
+        a = frame_l[frame_l["paddock"] == name].reset_index(drop=True)
+        b = frame_t[frame_t["paddock"] == name].reset_index(drop=True)
+        keep = p.last_index >= 0
+        bb, aa = b[keep].reset_index(drop=True), a.iloc[p.last_index[keep]].reset_index(drop=True)
+        cols: dict[str, Any] = {"paddock": bb["paddock"].to_numpy()}
+        for v in variables:
+            cols[f"{v}_change"] = bb[v].to_numpy(float) - aa[v].to_numpy(float)
+        parts.append(gpd.GeoDataFrame(cols, geometry=bb.geometry.to_numpy(),
+                                      crs=frame_t.crs))
+    if not parts:
+        return gpd.GeoDataFrame({"paddock": []}, geometry=[], crs=frame_t.crs)
+    return gpd.GeoDataFrame(pd.concat(parts, ignore_index=True), crs=frame_t.crs)
+
+
+def _paired_change(name: str, v: str, a: Surface, b: Surface, d: Surface | None, *,
+                   z: float, notes: list[str],
+                   label: str) -> ChangeSurface | None:
+    """The change of a paired paddock from its kriged differences, or None where the
+    differences cannot make one (no pair with values of both seasons)."""
+    if d is None or d.n_samples == 0:
+        notes.append(f"{name}, {label}: no paired site has a value in both seasons, so its "
+                     "change uses the independent method")
+        return None
+    std = d.std
+    if d.method == "flat":
+        # every paired difference alike: they show no spread, so the change has none
+        std = np.where(np.isfinite(d.estimate), 0.0, np.nan)
+        notes.append(f"{name}, {label}: all {d.n_samples} paired differences equal "
+                     f"({float(np.nanmax(d.estimate)):g}): the change is that value and its "
+                     "standard deviation 0")
+    elif std is None:
+        notes.append(f"{name}, {label}: the paired differences have no kriging error "
+                     f"({d.method}), so the change is mapped but not judged against its error")
+    return paired_change_surface(v, name, a.estimate, b.estimate, (d.estimate, std),
+                                 n_pairs=d.n_samples, z=z)
+
+
+def _changes(grids: dict[str, PaddockGrid], variables: list[str],
+             surfaces: tuple[dict[tuple[str, str], Surface], ...], paired: set[str], *,
+             z: float, notes: list[str],
+             labels: dict[str, tuple[str, str]]) -> dict[tuple[str, str], ChangeSurface]:
+    """Each paddock's change: from the paired differences where its sites are paired,
+    else from the two seasons' surfaces with independent errors."""
+    surf_l, surf_t, surf_d = surfaces
+    changes: dict[tuple[str, str], ChangeSurface] = {}
+    for name in grids:
+        for v in variables:
+            a, b = surf_l[(name, v)], surf_t[(name, v)]
+            if name in paired:
+                got = _paired_change(name, v, a, b, surf_d.get((name, f"{v}_change")),
+                                     z=z, notes=notes, label=labels[v][0])
+                if got is not None:
+                    changes[(name, v)] = got
+                    continue
+            changes[(name, v)] = change_surface(v, name, (a.estimate, a.std),
+                                                (b.estimate, b.std), z=z)
+            if a.std is None or b.std is None:
+                which = [lab for lab, s in (("last season", a), ("this season", b))
+                         if s.std is None]
+                notes.append(f"{name}, {labels[v][0]}: {' and '.join(which)} "
+                             f"{'have' if len(which) > 1 else 'has'} no kriging "
+                             f"error ({(a if a.std is None else b).method}), so its change "
+                             "is mapped but not judged against its error")
+    return changes
+
+
 # --------------------------------------------------------------------------- the call
 
 
@@ -307,6 +422,7 @@ def run_compare(
     ph_conversion: PhConversion | None = None,
     compare_ph: bool = True,
     z: float = Z_BEYOND_ERROR,
+    paired_within: float = PAIRED_WITHIN_M,
     overwrite: bool = False,
 ) -> CompareResult:
     """Compare last season with this one and write the folder.
@@ -326,6 +442,12 @@ def run_compare(
         conversion).
     z
         Multiple of the change's standard deviation beyond which it counts.
+    paired_within
+        A sample of this season within this many metres of one of last season's
+        is the same site sampled again; a paddock with at least
+        :data:`~geosoil.change.PAIRED_LEAST_SHARE` of its samples so paired
+        has the change kriged from the per-site differences. 0: always the
+        independent method.
     overwrite
         Replace an existing output folder of geosoil's.
 
@@ -339,6 +461,9 @@ def run_compare(
     """
     if not (np.isfinite(z) and z > 0):
         raise SettingsError(f"must be above 0 (got {z!r})", key="--z")
+    if not (np.isfinite(paired_within) and paired_within >= 0):
+        raise SettingsError(f"must be 0 or more metres (got {paired_within!r})",
+                            key="--paired-within")
     last = read_season(last_path, label="last season")
     this = read_season(this_path, label="this season")
     check_same_farm(last, this)
@@ -383,19 +508,16 @@ def run_compare(
         notes.extend(staging.notes)
         surf_l = _krige_season(last, frame_l, grids, variables, settings, notes)
         surf_t = _krige_season(this, frame_t, grids, variables, settings, notes)
-        changes: dict[tuple[str, str], ChangeSurface] = {}
-        for name in grids:
-            for v in variables:
-                a, b = surf_l[(name, v)], surf_t[(name, v)]
-                changes[(name, v)] = change_surface(v, name, (a.estimate, a.std),
-                                                    (b.estimate, b.std), z=z)
-                if a.std is None or b.std is None:
-                    which = [lab for lab, s in (("last season", a), ("this season", b))
-                             if s.std is None]
-                    notes.append(f"{name}, {labels[v][0]}: {' and '.join(which)} "
-                                 f"{'have' if len(which) > 1 else 'has'} no kriging "
-                                 f"error ({(a if a.std is None else b).method}), so its change "
-                                 "is mapped but not judged against its error")
+        pairings = _pairings(frame_l, frame_t, grids, paired_within, notes)
+        diffs = _difference_frame(frame_l, frame_t, pairings, variables)
+        paired_grids = {n: g for n, g in grids.items() if pairings[n].paired}
+        surf_d: dict[tuple[str, str], Surface] = {}
+        if paired_grids:
+            surf_d = _krige_season(
+                dataclasses.replace(this, label="paired differences"), diffs, paired_grids,
+                [f"{v}_change" for v in variables], settings, notes)
+        changes = _changes(grids, variables, (surf_l, surf_t, surf_d), set(paired_grids),
+                           z=z, notes=notes, labels=labels)
         table = zone_change_table(last.zones, grids, changes)
         if last.zones is None:
             notes.append(
@@ -404,7 +526,8 @@ def run_compare(
                 "folder to have the change per zone of its prescription")
         written, record = _write(
             staging.temp, last=last, this=this, grids=grids, changes=changes, table=table,
-            variables=variables, surfaces=(surf_l, surf_t), z=z,
+            variables=variables, surfaces=(surf_l, surf_t, surf_d), z=z,
+            pairings=pairings,
             ph=(col_l, col_t, converted, ph_conversion), notes=notes, labels=labels)
     final = staging.final
     return CompareResult(final, [final / p.relative_to(staging.temp) for p in written],
@@ -431,7 +554,8 @@ def _paddock_summary(changes: dict[tuple[str, str], ChangeSurface],
         ok = np.isfinite(s.change)
         rows.append({
             "paddock": name, "variable": v, "label": labels[v][0],
-            "unit": labels[v][1], "cells": int(ok.sum()),
+            "unit": labels[v][1], "method": s.method, "paired_sites": s.n_pairs,
+            "cells": int(ok.sum()),
             "last_mean": float(np.nanmean(s.last)) if ok.any() else None,
             "this_mean": float(np.nanmean(s.this)) if ok.any() else None,
             "change_mean": float(np.nanmean(s.change)) if ok.any() else None,
@@ -522,9 +646,9 @@ def _map_page(*, title: str, last: Season, this: Season, grids: dict[str, Paddoc
 def _write(
     temp: Path, *, last: Season, this: Season, grids: dict[str, PaddockGrid],
     changes: dict[tuple[str, str], ChangeSurface], table: pd.DataFrame, variables: list[str],
-    surfaces: tuple[dict[tuple[str, str], Surface], dict[tuple[str, str], Surface]],
+    surfaces: tuple[dict[tuple[str, str], Surface], ...],
     z: float, ph: tuple[str, str, str | None, PhConversion | None], notes: list[str],
-    labels: dict[str, tuple[str, str]],
+    labels: dict[str, tuple[str, str]], pairings: dict[str, SitePairing],
 ) -> tuple[list[Path], dict[str, Any]]:
     from .record import now_utc, versions
     from .report import CAUTIONS, ChangeReportInput, build_change_report
@@ -590,6 +714,15 @@ def _write(
         "working_crs": {"name": this.crs.name, "epsg": this.crs.to_epsg()},
         "method": METHOD,
         "independence": INDEPENDENCE,
+        "methods": dict(METHODS),
+        "pairing": {
+            "within_m": next(iter(pairings.values())).within_m if pairings else None,
+            "least_share": PAIRED_LEAST_SHARE,
+            "paddocks": [{"paddock": p.paddock, "samples_last": p.n_last,
+                          "samples_this": p.n_this, "paired_sites": p.n_paired,
+                          "paired_share": round(p.share, 4),
+                          "method": "paired sites" if p.paired else "independent"}
+                         for p in pairings.values()]},
         "z": z,
         "ph": ph_text,
         "variables": {v: {"label": labels[v][0], "unit": labels[v][1]}
@@ -604,7 +737,8 @@ def _write(
              "variogram": None if s.model is None else {
                  "model": s.model.name, "nugget": s.model.nugget, "psill": s.model.psill,
                  "range_m": s.model.range}}
-            for tag, surf in zip(("last", "this"), surfaces, strict=True)
+            for tag, surf in zip(("last", "this", "paired differences"), surfaces,
+                                 strict=False)
             for (n, v), s in surf.items()],
         "versions": versions(),
         "warnings": warnings_all,

@@ -1291,7 +1291,7 @@ class ChangeReportInput:
     """What the report of a comparison of two seasons shows (``geosoil compare``).
 
     ``summary`` holds one mapping per paddock and variable (``label, unit,
-    last_mean, this_mean, change_mean, rose_pct, fell_pct,
+    method, paired_sites, last_mean, this_mean, change_mean, rose_pct, fell_pct,
     no_change_beyond_error_pct, no_error_surface_pct``); ``zone_table`` is
     :func:`geosoil.change.zone_change_table`; ``maps`` are figures
     (``title, unit, svg, legend, note``).
@@ -1336,10 +1336,12 @@ def build_change_report(data: ChangeReportInput) -> str:
     True
     """
     summary = _simple_table(
-        [("paddock", False), ("variable", False), ("last season", True), ("this season", True),
-         ("mean change", True), ("rose %", True), ("fell %", True),
+        [("paddock", False), ("variable", False), ("method", False), ("last season", True),
+         ("this season", True), ("mean change", True), ("rose %", True), ("fell %", True),
          ("no change beyond error %", True), ("not judged %", True)],
         [[r["paddock"], f"{r['label']}" + (f" ({r['unit']})" if r["unit"] else ""),
+          str(r.get("method", "independent")) + (f" ({r['paired_sites']})"
+                                                 if r.get("paired_sites") else ""),
           _num(r["last_mean"]), _num(r["this_mean"]), _signed(r["change_mean"]),
           _num(r["rose_pct"], 1), _num(r["fell_pct"], 1),
           _num(r["no_change_beyond_error_pct"], 1), _num(r["no_error_surface_pct"], 1)]

@@ -26,7 +26,14 @@ import shapely
 from click.testing import CliRunner
 from geosoil.cli.main import cli
 
-from geosoil.change import CLASS_CODES, change_surface, classify_change, parse_ph_conversion
+from geosoil.change import (
+    CLASS_CODES,
+    PAIRED_WITHIN_M,
+    change_surface,
+    classify_change,
+    pair_sites,
+    parse_ph_conversion,
+)
 from geosoil.errors import SettingsError
 
 UTM = "EPSG:32755"
@@ -126,6 +133,36 @@ def test_ph_conversion_reads_the_stated_form() -> None:
         parse_ph_conversion("water is cacl2 plus a bit")
 
 
+def test_sites_pair_one_to_one_nearest_first() -> None:
+    """Worked by hand: this season's points 1 m and 2 m from last season's first site; the
+    nearer takes it, the other is left unpaired (one to one); 40 m away pairs nothing."""
+    last = np.array([[0.0, 0.0], [100.0, 0.0]])
+    this = np.array([[2.0, 0.0], [1.0, 0.0], [100.0, 3.0], [140.0, 0.0]])
+    assert pair_sites(last, this, within=5.0).tolist() == [-1, 0, 1, -1]
+    assert pair_sites(last, this, within=0.0).tolist() == [-1, -1, -1, -1]
+    assert pair_sites(last, this, within=50.0).tolist() == [-1, 0, 1, -1]
+
+
+def test_paired_method_needs_most_sites_paired() -> None:
+    """Our own rule: at least PAIRED_LEAST_SHARE of this season's samples on paired sites."""
+    from geosoil.change import PAIRED_LEAST_SHARE, SitePairing
+
+    n = 20
+    k = math.ceil(PAIRED_LEAST_SHARE * n)
+    enough = np.r_[np.arange(k), -np.ones(n - k, dtype=np.int64)]
+    short = np.r_[np.arange(k - 1), -np.ones(n - k + 1, dtype=np.int64)]
+    assert SitePairing("A", 5.0, enough, n).paired
+    assert not SitePairing("A", 5.0, short, n).paired
+    assert not SitePairing("A", 0.0, np.arange(n), n).paired  # --paired-within 0: never
+
+
+def test_cli_default_pairing_distance_is_the_library_one() -> None:
+    from geosoil.cli.compare import compare
+
+    opt = next(p for p in compare.params if p.name == "paired_within")
+    assert opt.default == PAIRED_WITHIN_M
+
+
 # ------------------------------------------------------------------- two seasons
 
 
@@ -147,6 +184,7 @@ def test_identical_seasons_change_nothing(seasons: dict[str, Path], tmp_path: Pa
     for v in ("esp", "ph", "ca_sat", "acidity"):
         assert (table[f"{v}_change_mean"] == 0).all()
         assert (table[f"{v}_no_change_pct"] == 100).all()
+        assert (table[f"{v}_method"] == "paired sites").all()  # the same sites both seasons
 
 
 def test_treated_zone_shows_its_change_and_the_rest_does_not(seasons: dict[str, Path]) -> None:
@@ -165,11 +203,68 @@ def test_treated_zone_shows_its_change_and_the_rest_does_not(seasons: dict[str, 
     assert r["ph_fell_pct"] < 5 and r["ph_rose_pct"] < 5
 
 
+def _shift_ph(lab: str, shift: float, *, noise: float, seed: int = 7) -> str:
+    """The lab file with pH raised by ``shift`` plus normal noise of sd ``noise`` (invented)."""
+    lines = lab.splitlines()
+    rng = np.random.default_rng(seed)
+    out = [lines[0]]
+    for line in lines[1:]:
+        f = line.split(",")
+        f[3] = f"{float(f[3]) + shift + rng.normal(0.0, noise):.2f}"
+        out.append(",".join(f))
+    return "\n".join(out) + "\n"
+
+
+def test_resampled_sites_with_a_uniform_ph_rise_show_it(seasons: dict[str, Path],
+                                                        tmp_path: Path) -> None:
+    """The same 60 sites sampled again, pH up 0.6 everywhere (lab noise sd 0.03). Each site
+    has its own pH (site-to-site variation of sd 0.3, the same both seasons), so each
+    season's kriging sd between sites is large. The differences at the paired sites are
+    kriged, and nearly every cell rose. Taking the seasons' errors as independent
+    (--paired-within 0) hides most of it behind sqrt(sd_last^2 + sd_this^2), which is why
+    the paired method exists (the variance of a difference of correlated errors:
+    Var(a - b) = Var(a) + Var(b) - 2 Cov(a, b))."""
+    before = _shift_ph(_lab(offset=0.0, treated=False), 0.0, noise=0.3, seed=1)
+    last = _project(tmp_path / "before", before)
+    limed = _project(tmp_path / "limed", _shift_ph(before, 0.6, noise=0.03))
+    got = invoke("compare", last, limed, "--out", tmp_path / "paired")
+    assert got.exit_code == 0, got.output
+    assert "paired sites" in got.output
+    record = json.loads((tmp_path / "paired" / "run.json").read_text())
+    ph = next(r for r in record["paddocks"] if r["variable"] == "ph")
+    assert ph["method"] == "paired sites" and ph["paired_sites"] == 60
+    assert abs(ph["change_mean"] - 0.6) < 0.05
+    assert ph["rose_pct"] > 95
+    pad = record["pairing"]["paddocks"][0]
+    assert (pad["paired_sites"], pad["method"]) == (60, "paired sites")
+    assert any(s["season"] == "paired differences" and s["variable"] == "ph_change"
+               for s in record["surfaces"])
+    table = pd.read_csv(tmp_path / "paired" / "change_by_zone.csv")
+    assert (table["ph_method"] == "paired sites").all()
+    assert "paired sites (60)" in (tmp_path / "paired" / "report.html").read_text()
+    # unchanged variables stay unchanged at paired sites
+    esp = next(r for r in record["paddocks"] if r["variable"] == "esp")
+    assert esp["change_mean"] == 0.0 and esp["no_change_beyond_error_pct"] == 100
+    apart = invoke("compare", last, limed, "--out", tmp_path / "apart",
+                   "--paired-within", 0)
+    assert apart.exit_code == 0, apart.output
+    rec0 = json.loads((tmp_path / "apart" / "run.json").read_text())
+    ph0 = next(r for r in rec0["paddocks"] if r["variable"] == "ph")
+    assert ph0["method"] == "independent" and ph0["paired_sites"] == 0
+    assert ph0["rose_pct"] < 50  # the defect the paired method mends
+    assert ph0["sd_change_mean"] > 2 * ph["sd_change_mean"]
+
+
 def test_outputs_reopen_and_record(seasons: dict[str, Path]) -> None:
     out = seasons["change"]
     record = json.loads((out / "run.json").read_text())
     assert record["kind"] == "season change"
     assert "independent" in record["independence"]
+    # cores taken 15 m off last season's holes: not the same sites, so the seasons are
+    # kriged apart and their errors taken as independent
+    assert {r["method"] for r in record["paddocks"]} == {"independent"}
+    assert record["pairing"]["paddocks"][0]["paired_sites"] == 0
+    assert (pd.read_csv(out / "change_by_zone.csv")["esp_method"] == "independent").all()
     assert record["ph"] == "pH in CaCl2 both seasons"
     listed = set(record["files"])
     on_disk = {str(p.relative_to(out)) for p in out.rglob("*") if p.is_file()}
