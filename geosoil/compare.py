@@ -351,7 +351,9 @@ def _difference_frame(frame_l: gpd.GeoDataFrame, frame_t: gpd.GeoDataFrame,
         bb, aa = b[keep].reset_index(drop=True), a.iloc[p.last_index[keep]].reset_index(drop=True)
         cols: dict[str, Any] = {"paddock": bb["paddock"].to_numpy()}
         for v in variables:
-            cols[f"{v}_change"] = bb[v].to_numpy(float) - aa[v].to_numpy(float)
+            # rounded to 1e-9 so that equal changes (6.0 - 5.4 and 5.8 - 5.2) stay equal
+            # instead of differing in the last bits of a float, which a variogram would fit
+            cols[f"{v}_change"] = np.round(bb[v].to_numpy(float) - aa[v].to_numpy(float), 9)
         parts.append(gpd.GeoDataFrame(cols, geometry=bb.geometry.to_numpy(),
                                       crs=frame_t.crs))
     if not parts:
@@ -360,16 +362,21 @@ def _difference_frame(frame_l: gpd.GeoDataFrame, frame_t: gpd.GeoDataFrame,
 
 
 def _paired_change(name: str, v: str, a: Surface, b: Surface, d: Surface | None, *,
-                   z: float, notes: list[str],
-                   label: str) -> ChangeSurface | None:
+                   z: float, notes: list[str], label: str,
+                   least: int) -> ChangeSurface | None:
     """The change of a paired paddock from its kriged differences, or None where the
-    differences cannot make one (no pair with values of both seasons)."""
+    differences cannot make one (no pair with values of both seasons). All differences
+    equal at ``least`` sites or more: a flat change with sd 0; at fewer, not judged."""
     if d is None or d.n_samples == 0:
         notes.append(f"{name}, {label}: no paired site has a value in both seasons, so its "
                      "change uses the independent method")
         return None
     std = d.std
-    if d.method == "flat":
+    if d.method == "flat" and d.n_samples < least:
+        notes.append(f"{name}, {label}: all {d.n_samples} paired differences equal "
+                     f"({float(np.nanmax(d.estimate)):g}), fewer than min_samples_kriging = "
+                     f"{least}: the change is mapped but not judged against its error")
+    elif d.method == "flat":
         # every paired difference alike: they show no spread, so the change has none
         std = np.where(np.isfinite(d.estimate), 0.0, np.nan)
         notes.append(f"{name}, {label}: all {d.n_samples} paired differences equal "
@@ -384,7 +391,7 @@ def _paired_change(name: str, v: str, a: Surface, b: Surface, d: Surface | None,
 
 def _changes(grids: dict[str, PaddockGrid], variables: list[str],
              surfaces: tuple[dict[tuple[str, str], Surface], ...], paired: set[str], *,
-             z: float, notes: list[str],
+             z: float, notes: list[str], least: int,
              labels: dict[str, tuple[str, str]]) -> dict[tuple[str, str], ChangeSurface]:
     """Each paddock's change: from the paired differences where its sites are paired,
     else from the two seasons' surfaces with independent errors."""
@@ -395,7 +402,7 @@ def _changes(grids: dict[str, PaddockGrid], variables: list[str],
             a, b = surf_l[(name, v)], surf_t[(name, v)]
             if name in paired:
                 got = _paired_change(name, v, a, b, surf_d.get((name, f"{v}_change")),
-                                     z=z, notes=notes, label=labels[v][0])
+                                     z=z, notes=notes, label=labels[v][0], least=least)
                 if got is not None:
                     changes[(name, v)] = got
                     continue
@@ -517,7 +524,8 @@ def run_compare(
                 dataclasses.replace(this, label="paired differences"), diffs, paired_grids,
                 [f"{v}_change" for v in variables], settings, notes)
         changes = _changes(grids, variables, (surf_l, surf_t, surf_d), set(paired_grids),
-                           z=z, notes=notes, labels=labels)
+                           z=z, notes=notes, labels=labels,
+                           least=settings.min_samples_kriging)
         table = zone_change_table(last.zones, grids, changes)
         if last.zones is None:
             notes.append(
