@@ -27,6 +27,10 @@ __all__ = ["plan"]
 @click.option("--min-distance", "min_distance", type=click.FloatRange(min=0.0), default=None,
               help="Least distance (m) between new points and from existing samples "
                    "[default: half the spacing of a square grid of all samples].")
+@click.option("--edge-setback", "edge_setback", type=click.FloatRange(min=0.0),
+              default=20.0, show_default=True,
+              help="Least distance (m) of a new point from its paddock's boundary, to keep "
+                   "samples off headlands and fence lines (common practice); 0 for none.")
 @click.option("--weight", "weighting", type=click.Choice(["rate", "limit", "uniform"]),
               default="rate", show_default=True,
               help="Where lower variance matters most: by the prescribed rate, by nearness to "
@@ -40,7 +44,7 @@ __all__ = ["plan"]
 @handle_errors
 def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float | None,
          cost_per_sample: float | None, out: Path, min_distance: float | None,
-         weighting: str, variable: str | None, overwrite: bool) -> None:
+         edge_setback: float, weighting: str, variable: str | None, overwrite: bool) -> None:
     """Propose new sample locations for PROJECT that most lower the kriging variance."""
     if (n_points is None) == (budget is None):
         raise click.UsageError("give --points, or --budget with --cost-per-sample (not both)")
@@ -52,7 +56,7 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
     proj = load_project(project)
     result = run_plan(proj, out_dir=out, n_points=n_points, budget=budget,
                       cost_per_sample=cost_per_sample, min_distance_m=min_distance,
-                      weighting=weighting, variable=variable, overwrite=overwrite)
+                      edge_setback_m=edge_setback, weighting=weighting, variable=variable, overwrite=overwrite)
     b = result.record.get("budget")
     if b:
         echo(f"Budget {b['budget']:g} at {b['cost_per_sample']:g} a sample: {b['samples']} "

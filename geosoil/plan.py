@@ -29,7 +29,7 @@ from .outfolder import output_folder
 from .pipeline import FarmResult, compute
 from .project import Project
 from .recording import record_warnings
-from .sampling import PaddockPlan, limit_weights, plan_paddock, split_samples
+from .sampling import EDGE_SETBACK_M, PaddockPlan, limit_weights, plan_paddock, split_samples
 from .writers import atomic_write, write_csv, write_geojson, write_json
 
 __all__ = ["PLAN_VARIABLES", "PlanResult", "run_plan", "gpx_text", "METHOD", "WEIGHTINGS",
@@ -205,7 +205,8 @@ def _pages(farm: FarmResult, plans: dict[str, PaddockPlan], points: gpd.GeoDataF
 
 
 def _check_options(n_points: int | None, budget: float | None, cost_per_sample: float | None,
-                   weighting: str, variable: str | None, min_distance_m: float | None) -> None:
+                   weighting: str, variable: str | None, min_distance_m: float | None,
+                   edge_setback_m: float = EDGE_SETBACK_M) -> None:
     if n_points is None and budget is None:
         raise SettingsError("give the number of points per paddock, or a budget and a cost "
                             "per sample", key="--points")
@@ -230,6 +231,9 @@ def _check_options(n_points: int | None, budget: float | None, cost_per_sample: 
     if min_distance_m is not None and not (np.isfinite(min_distance_m) and min_distance_m >= 0):
         raise SettingsError(f"must be 0 m or more (got {min_distance_m!r})",
                             key="--min-distance")
+    if not (np.isfinite(edge_setback_m) and edge_setback_m >= 0):
+        raise SettingsError(f"must be 0 m or more (got {edge_setback_m!r})",
+                            key="--edge-setback")
 
 
 def run_plan(
@@ -240,6 +244,7 @@ def run_plan(
     budget: float | None = None,
     cost_per_sample: float | None = None,
     min_distance_m: float | None = None,
+    edge_setback_m: float = EDGE_SETBACK_M,
     weighting: str = "rate",
     variable: str | None = None,
     overwrite: bool = False,
@@ -262,6 +267,10 @@ def run_plan(
     min_distance_m
         Least distance between points and from existing samples; default half
         the spacing of a square grid of all samples over the paddock.
+    edge_setback_m
+        Least distance of a new point from its paddock's boundary
+        (:data:`geosoil.sampling.EDGE_SETBACK_M`, off headlands and fence lines;
+        lowered with a warning in a paddock too small for it).
     weighting
         ``"rate"`` (the prescribed rate, all products), ``"limit"`` (nearness to
         the class limit of the variable's decision: the sodic limit for Na and
@@ -278,7 +287,8 @@ def run_plan(
     SettingsError
         A bad number of points, budget, weighting or variable.
     """
-    _check_options(n_points, budget, cost_per_sample, weighting, variable, min_distance_m)
+    _check_options(n_points, budget, cost_per_sample, weighting, variable, min_distance_m,
+                   edge_setback_m)
     inputs = [p for p in project.input_files() if p is not None]
     if project.path is not None:
         inputs.append(project.path)
@@ -336,9 +346,10 @@ def run_plan(
                 elif weighting == "limit":
                     w, label = _limit_weights(farm, name, var)
                     extra = {"weights": w, "weighting": label}
+                outline = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
                 plan = plan_paddock(result.grid, xy, surf.model, n_points=counts[name],
                                     rates=rates, min_distance_m=min_distance_m, avoid=all_xy,
-                                    **extra)
+                                    boundary=outline, edge_setback_m=edge_setback_m, **extra)
                 plans[name] = plan
                 ids = _ids(name, len(plan.points), taken_ids)
                 for rank, (sid, (x, y), sd) in enumerate(
@@ -354,6 +365,7 @@ def run_plan(
                     "existing_samples": len(xy), "new_points": len(plan.points),
                     "weighting": plan.weighting,
                     "min_distance_m": round(plan.min_distance_m, 1),
+                    "edge_setback_m": round(plan.edge_setback_m, 1),
                     "mean_kriging_variance_before": plan.mean_variance_before,
                     "mean_kriging_variance_after": plan.mean_variance_after,
                     "mean_variance_reduction_pct": round(100 * plan.reduction, 2),

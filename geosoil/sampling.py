@@ -35,7 +35,10 @@ mask already leaves out exclusions and buffers), thinned to a regular
 subgrid of at most ``max_cells`` cells so the ``Sigma`` matrix stays small;
 the mean variance over that systematic subgrid estimates the paddock's mean.
 A candidate closer than ``min_distance_m`` to an existing sample or a chosen
-point is never taken.
+point is never taken, nor one within ``edge_setback_m`` of the paddock's
+boundary (:data:`EDGE_SETBACK_M`: samples are kept off headlands, fence lines
+and tracks, where traffic, old fertiliser spills and edge effects make the
+soil unlike the paddock's; common practice).
 
 Weights: the prescribed rate of each cell (kg/ha, all products together),
 so that the map becomes trustworthy where money is spread; or the nearness of
@@ -56,6 +59,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+import shapely
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 from scipy.spatial.distance import cdist
@@ -68,6 +72,7 @@ from .tonnage import apportion
 from .variogram import VariogramModel
 
 __all__ = [
+    "EDGE_SETBACK_M",
     "PaddockPlan",
     "candidate_cells",
     "default_min_distance",
@@ -81,6 +86,10 @@ __all__ = [
 ]
 
 Array = NDArray[np.float64]
+
+#: Default distance (m) a new sample keeps from the paddock's boundary: off headlands and
+#: fence lines (common practice; the figure is ours).
+EDGE_SETBACK_M = 20.0
 
 #: Largest number of cells used as candidates and targets in one paddock (the
 #: error-covariance matrix holds this squared, 8 bytes each: 2 500 -> 50 MB).
@@ -107,6 +116,7 @@ class PaddockPlan:
     weighting: str
     min_distance_m: float
     n_candidates: int
+    edge_setback_m: float = 0.0  # the setback used (lower than asked when the paddock is small)
 
     @property
     def reduction(self) -> float:
@@ -390,6 +400,8 @@ def plan_paddock(
     max_cells: int = MAX_CELLS,
     weights: ArrayLike | None = None,
     weighting: str = "given weights",
+    boundary: shapely.Geometry | None = None,
+    edge_setback_m: float = 0.0,
 ) -> PaddockPlan:
     """The sampling plan of one paddock.
 
@@ -418,6 +430,11 @@ def plan_paddock(
         (height, width) weights of the cells (NaN counts as 0), used instead of
         ``rates``, and what they are (recorded in the plan). All zero: uniform,
         with a warning.
+    boundary, edge_setback_m
+        The paddock's polygon (working CRS) and the least distance (m) a new
+        point keeps from its boundary (outer ring and any holes). When no
+        candidate lies that far in, the setback is lowered to half the depth of
+        the innermost candidate, with a warning.
     """
     xd = as_points(samples, "sample")
     xc, index = candidate_cells(grid, max_cells=max_cells)
@@ -447,12 +464,24 @@ def plan_paddock(
     allowed = np.ones(len(xc), dtype=bool)
     if min_distance_m > 0:  # off every existing sample, whichever variable it was taken for
         allowed = cKDTree(keep_off).query(xc)[0] >= min_distance_m
+    setback = 0.0
+    if boundary is not None and edge_setback_m > 0 and len(xc):
+        depth = shapely.distance(shapely.points(xc), boundary.boundary)
+        setback = float(edge_setback_m)
+        if not (depth >= setback).any():
+            setback = 0.5 * float(depth.max())
+            warnings.warn(f"{grid.name}: no cell lies {edge_setback_m:g} m inside the paddock "
+                          f"boundary (the paddock is too small for the edge setback), so new "
+                          f"points keep only {setback:.0f} m from it", DataWarning, stacklevel=2)
+        allowed &= depth >= setback
     chosen, _ = greedy_design(xd, xc, model, n_points=n_points, weights=w_all[index],
                               min_distance_m=min_distance_m, allowed=allowed)
     if len(chosen) < n_points:
         warnings.warn(f"{grid.name}: only {len(chosen)} of {n_points} new points fit at least "
-                      f"{min_distance_m:.0f} m from the samples and each other; lower the "
-                      "minimum distance for more", DataWarning, stacklevel=2)
+                      f"{min_distance_m:.0f} m from the samples and each other"
+                      + (f" and {setback:.0f} m inside the boundary" if setback > 0 else "")
+                      + "; lower the minimum distance (or the edge setback) for more",
+                      DataWarning, stacklevel=2)
     pts = xc[chosen]
     x, y = grid.cell_centres()
     every = np.column_stack([x, y])
@@ -476,4 +505,5 @@ def plan_paddock(
         weighting=weighting,
         min_distance_m=float(min_distance_m),
         n_candidates=len(xc),
+        edge_setback_m=setback,
     )

@@ -154,3 +154,37 @@ def test_plan_bad_options(planned: dict[str, object], tmp_path: Path) -> None:
     assert invoke("plan", farm, "--points", 0, "--out", tmp_path / "x").exit_code == 2
     bad = invoke("plan", farm, "--points", 2, "--out", tmp_path / "y", "--variable", "zinc")
     assert bad.exit_code == 1 and "--variable" in bad.output
+
+
+def test_points_keep_the_edge_setback(planned: dict[str, object], tmp_path: Path) -> None:
+    """Samples are kept off headlands and fence lines (common practice): every planned point
+    lies at least the setback (default 20 m) from its paddock's boundary, measured by shapely."""
+    from geosoil.sampling import EDGE_SETBACK_M
+
+    farm, out = Path(planned["farm"]), Path(planned["out"])
+    paddocks = gpd.read_file(farm / "paddocks.gpkg").set_index("name")
+
+    def least_depth(folder: Path) -> dict[str, float]:
+        table = pd.read_csv(folder / "plan_points.csv")
+        got = {}
+        for name, mine in table.groupby("paddock"):
+            pts = gpd.points_from_xy(mine["easting_m"], mine["northing_m"])
+            got[name] = float(pts.distance(paddocks.loc[name, "geometry"].boundary).min())
+        return got
+
+    assert EDGE_SETBACK_M == 20.0
+    record = json.loads((out / "run.json").read_text())
+    assert {r["edge_setback_m"] for r in record["paddocks"]} == {20.0}
+    assert min(least_depth(out).values()) >= 20.0 - 1e-6
+    wide = invoke("plan", farm, "--points", 4, "--edge-setback", 60, "--out", tmp_path / "w")
+    assert wide.exit_code == 0, wide.output
+    assert min(least_depth(tmp_path / "w").values()) >= 60.0 - 1e-6
+    # 400 m x 300 m boxes: no cell lies 200 m in, so the setback falls back, with a warning
+    small = invoke("plan", farm, "--points", 1, "--edge-setback", 200, "--out", tmp_path / "s")
+    assert small.exit_code == 0, small.output
+    assert "too small for the edge setback" in small.output
+    record = json.loads((tmp_path / "s" / "run.json").read_text())
+    assert any("too small for the edge setback" in w for w in record["warnings"])
+    for r in record["paddocks"]:
+        assert 0 < r["edge_setback_m"] < 200 and r["new_points"] == 1
+        assert least_depth(tmp_path / "s")[r["paddock"]] >= r["edge_setback_m"] - 0.05
