@@ -391,23 +391,24 @@ def _write_grids(farm: FarmResult, out_dir: Path, cog: Any, progress: Any) -> No
 
 class _IsoNames:
     """Every ISO 11783-10 designator of a run: distinct, cut to the standard's 32
-    characters, each change kept (original, short) for run.json and the summary."""
+    characters, each change kept (original, short) for run.json and the summary.
+
+    Only the names of task sets that are written count: a paddock and product with
+    no zone above 0 gets no task, so its name is neither shortened nor listed."""
 
     def __init__(self, farm: FarmResult) -> None:
         prep = farm.prep
         s = prep.project.settings
         self.changed: list[dict[str, str]] = []
         word = "season" if s.spreader.split_into == "seasons" else "pass"
-        self.farm = self._short("farm", [s.farm or "farm"])[s.farm or "farm"]
-        self.paddock = self._short("paddock", list(prep.grids))
         labels: list[str] = []
         tasks: list[str] = []
         self.keys: list[tuple[str, str, int, int]] = []
         for name, pr in farm.paddocks.items():
             for product in pr.rates.product_rates:
                 z = pr.zones[pr.zones["product"] == product]
-                if z.empty:
-                    continue
+                if z.empty or not (z["rate_kg_ha"] > 0).any():
+                    continue  # no task is written (see _write_isoxml), so no name either
                 label = str(prep.products[product].label if product in prep.products
                             else product)
                 n = n_passes(z)
@@ -416,6 +417,10 @@ class _IsoNames:
                     labels.append(lab)
                     tasks.append(f"{name} {lab}")
                     self.keys.append((name, product, k, n))
+        # only the names that go into a written task set are shortened and recorded
+        self.farm = self._short("farm", [s.farm or "farm"] if self.keys else [])\
+            .get(s.farm or "farm", s.farm or "farm")
+        self.paddock = self._short("paddock", list(dict.fromkeys(k[0] for k in self.keys)))
         self._labels = dict(zip(self.keys, labels, strict=True))
         self._tasks = dict(zip(self.keys, tasks, strict=True))
         self.product = self._short("product", labels)

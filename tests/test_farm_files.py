@@ -231,3 +231,25 @@ def test_shortened_names_are_reported_with_their_original(run) -> None:
     farm = next(s for s in shortened if s["what"] == "farm")
     assert farm["original"] == "Bellbird Rise (invented demo farm)" and len(farm["short"]) <= 32
     assert "Names shortened" in run["stdout"] and repr(farm["short"]) in run["stdout"]
+
+
+def test_only_written_tasks_have_their_names_listed(tmp_path: Path, demo_run) -> None:  # noqa: ANN001
+    """A long lime label makes every lime task name longer than ISO 11783-10's 32
+    characters; Creek Flat and Windmill get no lime, so no lime task of theirs is written
+    and their names are not listed as shortened (only what was written is)."""
+    farm, _ = copy_demo(tmp_path, cache=demo_run.cache,
+                        changes={"products.lime": {"label": "Agricultural lime, fine grade"}})
+    result = CliRunner().invoke(cli, ["run", str(farm), "--out", str(tmp_path / "out")])
+    assert result.exit_code == 0, result.output
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    written: set[str] = set()
+    for xml in (tmp_path / "out" / "prescriptions").rglob("TASKDATA.XML"):
+        for el in ET.parse(xml).iter():
+            written.update(el.attrib.values())
+    tasks = [s for s in record["names_shortened"] if s["what"] == "task"]
+    assert any(s["original"].startswith("Red Hill") for s in tasks)  # lime there: listed
+    for s in record["names_shortened"]:
+        assert s["short"] in written, s
+        assert not s["original"].startswith(("Creek Flat pass", "Windmill"))
+    assert "Creek Flat Agricultural lime, fine grade" not in {s["original"] for s in tasks}
+    assert "Creek Flat Agricultural l" not in result.stdout
