@@ -24,7 +24,7 @@ import json
 import logging
 import time
 import warnings
-from collections.abc import Callable, Collection, Mapping
+from collections.abc import Callable, Collection, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -63,6 +63,7 @@ from .tonnage import tonnage_table
 from .zones import ZONE_COLUMNS, make_zones
 
 __all__ = [
+    "paddock_warnings",
     "Prepared",
     "FarmResult",
     "prepare",
@@ -402,6 +403,29 @@ def prepare(
         boundaries_crs=boundaries_crs,
         paddock_files=paddock_files, product_files=product_files, layers=layers,
     )
+
+
+@contextlib.contextmanager
+def paddock_warnings(name: str) -> Iterator[None]:
+    """Raise again every warning of the block with ``paddock 'NAME': `` in front (once each),
+    so that a warning of the rates, which see only arrays, says which paddock it is about.
+
+    >>> from geosoil.recording import record_warnings
+    >>> found = []
+    >>> with record_warnings(found), paddock_warnings("Red Hill"):
+    ...     warnings.warn("pH guard withheld liming products on 3 cell(s)", RateWarning)
+    >>> found
+    ["paddock 'Red Hill': pH guard withheld liming products on 3 cell(s)"]
+    """
+    prefix = f"paddock '{name}'"
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    for w in caught:
+        text = str(w.message)
+        if not text.startswith((prefix, f"{name}:")):
+            text = f"{prefix}: {text}"
+        warnings.warn(text, w.category, stacklevel=3)
 
 
 def _warn_single_samples(samples: gpd.GeoDataFrame, paddocks: gpd.GeoDataFrame) -> None:
@@ -951,16 +975,17 @@ def compute(
                                       s.rates.gypsum.treat_depth_cm / 100.0, bd)]
             # the rules read pH in water where the lab gave it, else pH in CaCl2
             method, ph = rule_ph(cells)
-            rr = compute_rates(
-                {**cells, "ph": ph} if method is not None else cells,
-                s.rates.for_paddock(name),
-                prep.products,
-                depth_m=s.soil.depth_m,
-                bulk_density_g_cm3=bd,
-                ph_method=method,
-                scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
-                layers=g_layers,
-            )
+            with paddock_warnings(name):
+                rr = compute_rates(
+                    {**cells, "ph": ph} if method is not None else cells,
+                    s.rates.for_paddock(name),
+                    prep.products,
+                    depth_m=s.soil.depth_m,
+                    bulk_density_g_cm3=bd,
+                    ph_method=method,
+                    scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
+                    layers=g_layers,
+                )
             _warn_acid_cells_without_lime(name, cells, method, ph, rr, s)
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
             excl = None

@@ -899,3 +899,20 @@ def test_phbc_regression_outside_its_range_is_a_warning() -> None:
         compute_rates({"ph": np.array([5.0]), "oc": np.array([8.0]), "clay": np.array([20.0])},
                       _lime(method="phbc", target_ph=5.5, target_ph_method="CaCl2"), PRODUCTS,
                       depth_m=0.1, bulk_density_g_cm3=1.3, ph_method="CaCl2")
+
+
+def test_a_rate_warning_names_its_paddock() -> None:
+    """The pipeline computes each paddock's rates inside ``paddock_warnings``: the pHBC
+    regression's range warning (Aitken, Moody & McKinley 1990: OC 8 % is outside) names
+    the paddock like the other paddock warnings, once."""
+    from geosoil.pipeline import paddock_warnings
+    from geosoil.recording import record_warnings
+
+    found: list[str] = []
+    with record_warnings(found), paddock_warnings("Creek Flat"):
+        compute_rates({"ph": np.array([5.0]), "oc": np.array([8.0]), "clay": np.array([20.0])},
+                      _lime(method="phbc", target_ph=5.5, target_ph_method="CaCl2"), PRODUCTS,
+                      depth_m=0.1, bulk_density_g_cm3=1.3, ph_method="CaCl2")
+    hits = [w for w in found if "pHBC regression" in w]
+    assert hits and all(w.startswith("paddock 'Creek Flat': pHBC regression") for w in hits)
+    assert len(hits) == 1
