@@ -21,6 +21,7 @@ import pyproj
 import shapely
 
 from .chemistry import rule_ph
+from .columns import CANONICAL, EXCHANGEABLE, PROPERTIES
 from .errors import InputError
 from .pipeline import FarmResult, Prepared
 from .rates import RateLayer, Step, explain_cell
@@ -32,6 +33,8 @@ __all__ = [
     "locate",
     "explain_location",
     "parse_location",
+    "sample_unit",
+    "SAMPLE_VALUES",
     "format_explanation",
 ]
 
@@ -98,6 +101,27 @@ def parse_location(text: str) -> tuple[float, float]:
 
 
 
+#: What section 1 shows of a sample: every analyte a lab may give (buffer pH, organic
+#: carbon and matter, clay, pHBC, CEC at pH 7, potential acidity, EC... as read), then
+#: the ECEC and ESP worked out from them. A value the sample lacks is left out.
+SAMPLE_VALUES: tuple[str, ...] = (
+    "ph", "ph_cacl2", "ph_kcl", *(a for a in CANONICAL if a not in ("ph", "ph_cacl2", "ph_kcl")))
+DERIVED_SHOWN: tuple[str, ...] = ("ecec", "esp")
+
+
+def sample_unit(analyte: str) -> str:
+    """The unit a sample's value is carried in ('' for pH and ratios), for section 1.
+
+    >>> sample_unit("oc"), sample_unit("ca"), sample_unit("bph_smp"), sample_unit("esp")
+    ('%', 'cmol(+)/kg', '', '%')
+    """
+    if analyte in EXCHANGEABLE or analyte == "ecec":
+        return "cmol(+)/kg"
+    if analyte in PROPERTIES:
+        return PROPERTIES[analyte][0]
+    return "%" if analyte == "esp" else ""
+
+
 @dataclass(frozen=True)
 class Location:
     """A point placed on the farm: working-CRS and lon/lat coordinates, paddock and grid cell."""
@@ -156,10 +180,16 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
     hit = prep.paddocks[prep.paddocks.covers(pt)]
     if hit.empty:
         where = f"lon {lon:.6f}, lat {lat:.6f}" + ("" if lonlat else f" (x {x:.1f}, y {y:.1f})")
+        fix = ("give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
+               f"({crs.name}) with --coords xy")
+        # latitude first? (a valid latitude, then a valid longitude, that swapped lands in one)
+        if coords != "xy" and abs(a) <= 90 and abs(b) <= 180:
+            sx, sy = to_work.transform(b, a)
+            if prep.paddocks.covers(shapely.Point(sx, sy)).any():
+                fix = f"did you mean {b!r},{a!r} (longitude first)?"
         raise InputError(
             f"the point at {where} is not inside any paddock ({', '.join(prep.grids)})",
-            fix="give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
-            f"({crs.name}) with --coords xy",
+            fix=fix,
         )
     name = str(hit["paddock"].iloc[0])
     grid = prep.grids[name]
@@ -210,8 +240,7 @@ def explain_location(
     pts = prep.samples[prep.samples["paddock"] == name]
     d = np.hypot(pts.geometry.x.to_numpy() - x, pts.geometry.y.to_numpy() - y)
     order = np.argsort(d)[:n_samples]
-    lab_cols = [c for c in ("ph", "ph_cacl2", "ca", "mg", "k", "na", "acidity", "al", "h",
-                            "cec", "sar", "ecec", "esp") if c in pts.columns]
+    lab_cols = [c for c in (*SAMPLE_VALUES, *DERIVED_SHOWN) if c in pts.columns]
     nearest = []
     for i in order:
         r = pts.iloc[int(i)]
@@ -335,9 +364,12 @@ def format_explanation(e: Explanation) -> str:
     )
     out.append(f"Paddock: {e.paddock}, grid cell row {e.row}, column {e.col}")
     out.append("")
-    out.append("1. Nearest samples (lab values, cmol(+)/kg; pH as measured)")
+    out.append("1. Nearest samples (every lab value the sample has; cations, acidity, CEC "
+               "and ECEC in cmol(+)/kg, pH as measured, other units beside the value)")
     for s in e.nearest_samples:
-        vals = ", ".join(f"{k} {v:.3g}" for k, v in s.items()
+        vals = ", ".join(f"{k} {v:.3g}"
+                         + (f" {u}" if (u := sample_unit(k)) not in ("", "cmol(+)/kg") else "")
+                         for k, v in s.items()
                          if k not in ("sample_id", "distance_m", "source_row") and v is not None)
         out.append(f"   {s['sample_id']} ({s['distance_m']:.0f} m away, "
                    f"file row {s['source_row']}): {vals}")

@@ -151,3 +151,31 @@ def test_outside_every_paddock_exits_1_naming_the_point(farm: Path) -> None:
     assert r.stderr.startswith("error:")
     assert "lon 147.000000, lat -35.000000" in r.stderr and "not inside any paddock" in r.stderr
     assert "surfaces" not in r.stderr  # refused before any interpolation
+
+
+def test_latitude_first_is_caught(farm: Path, sodic_sample: tuple[float, float]) -> None:
+    """``--at LAT,LON`` (a valid latitude, then a valid longitude) is not read as x,y in
+    silence: the point swapped lies in a paddock, so the error offers it longitude first."""
+    lon, lat = sodic_sample
+    r = invoke("explain", farm, "--at", f"{lat},{lon}")
+    assert r.exit_code == 1 and "not inside any paddock" in r.stderr
+    assert f"did you mean {lon!r},{lat!r} (longitude first)?" in r.stderr
+    far = invoke("explain", farm, "--at", "-35.0,147.0")  # swapped, still in no paddock
+    assert far.exit_code == 1 and "did you mean" not in far.stderr
+
+
+def test_nearest_samples_show_every_lab_value(at_lonlat) -> None:  # noqa: ANN001
+    """Section 1 shows every analyte a sample has, as in the lab file: the demo's EC 1:5
+    (dS/m) as well as the cations; buffer pH, organic carbon and matter, clay, pHBC, CEC at
+    pH 7 and potential acidity are among what it shows when a lab gives them."""
+    from geosoil.explain import SAMPLE_VALUES
+
+    assert {"bph_smp", "bph_mehlich", "oc", "om", "clay", "phbc", "cec_ph7",
+            "acidity_potential", "ec_1_5"} <= set(SAMPLE_VALUES)
+    line = next(ln for ln in at_lonlat.stdout.splitlines() if "m away, file row" in ln)
+    sid = line.split()[0]
+    with open(DEMO / "lab_results.csv", newline="") as fh:
+        row = next(r for r in csv.DictReader(fh) if r["Sample ID"] == sid)
+    ec = float(row["EC 1:5 (dS/m)"])
+    assert f"ec_1_5 {ec:.3g} dS/m" in line
+    assert f"ph_cacl2 {float(row['pH (CaCl2)']):.3g}" in line
