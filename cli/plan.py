@@ -56,7 +56,8 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
     proj = load_project(project)
     result = run_plan(proj, out_dir=out, n_points=n_points, budget=budget,
                       cost_per_sample=cost_per_sample, min_distance_m=min_distance,
-                      edge_setback_m=edge_setback, weighting=weighting, variable=variable, overwrite=overwrite)
+                      edge_setback_m=edge_setback, weighting=weighting, variable=variable,
+                      overwrite=overwrite)
     b = result.record.get("budget")
     if b:
         echo(f"Budget {b['budget']:g} at {b['cost_per_sample']:g} a sample: {b['samples']} "
