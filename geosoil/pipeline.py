@@ -45,7 +45,14 @@ from .boundaries import read_exclusions, read_paddocks, read_user_zones, settle_
 from .chemistry import derive, rule_ph
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
-from .errors import DataWarning, GeosoilError, InputError, RateWarning, SettingsError
+from .errors import (
+    DataWarning,
+    GeosoilError,
+    GeosoilWarning,
+    InputError,
+    RateWarning,
+    SettingsError,
+)
 from .grids import PaddockGrid, aligned_grids
 from .layers import Layer, find_layers, spans
 from .names import MAX_NAME_CHARS, assign, slug
@@ -407,8 +414,9 @@ def prepare(
 
 @contextlib.contextmanager
 def paddock_warnings(name: str) -> Iterator[None]:
-    """Raise again every warning of the block with ``paddock 'NAME': `` in front (once each),
-    so that a warning of the rates, which see only arrays, says which paddock it is about.
+    """Raise again every geosoil warning of the block with ``paddock 'NAME': `` in front (once
+    each), so that a warning of the rates, which see only arrays, says which paddock it is
+    about; other warnings (a library's, a developer's) go on as they were.
 
     >>> from geosoil.recording import record_warnings
     >>> found = []
@@ -421,11 +429,19 @@ def paddock_warnings(name: str) -> Iterator[None]:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         yield
+    seen: set[tuple[str, type[Warning], str, int]] = set()
     for w in caught:
+        key = (str(w.message), w.category, w.filename, w.lineno)
+        if key in seen:
+            continue
+        seen.add(key)
+        if not issubclass(w.category, GeosoilWarning):  # a library's or a developer's: as is
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+            continue
         text = str(w.message)
         if not text.startswith((prefix, f"{name}:")):
             text = f"{prefix}: {text}"
-        warnings.warn(text, w.category, stacklevel=3)
+        warnings.warn_explicit(text, w.category, w.filename, w.lineno)
 
 
 def _warn_single_samples(samples: gpd.GeoDataFrame, paddocks: gpd.GeoDataFrame) -> None:
