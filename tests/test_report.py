@@ -710,3 +710,27 @@ def test_hostile_text_in_glance_and_soil_maps_is_escaped() -> None:
     page = report.build_report(_with_glance(hostile=True))
     assert "<img" not in page and "<script" not in page.lower()
     assert escape_text("S1 " + HOSTILE_IMG) in page  # the sample's tooltip in the SVG
+
+
+@pytest.mark.browser
+def test_browser_contents_in_one_column_on_a_phone(browser, tmp_path) -> None:
+    """At 390 px wide (a phone) the contents list is one column: two columns of long
+    paddock names ran into each other; at desktop width it keeps two."""
+    path = tmp_path / "report.html"
+    path.write_text(report.build_report(report_input()), encoding="utf-8")
+    probe = """(() => { const ol = document.querySelector('nav ol');
+        const lefts = Array.from(ol.querySelectorAll('li'))
+            .map(li => Math.round(li.getBoundingClientRect().left));
+        return {columns: getComputedStyle(ol).columnCount, lefts: [...new Set(lefts)].length,
+                items: lefts.length}; })()"""
+    phone = browser.new_page(width=390, height=844)
+    phone.goto(path)
+    got = phone.evaluate(probe)
+    phone.screenshot(artifact_path("report-phone.png"))
+    phone.close()
+    assert got["items"] > 4 and got["columns"] == "1" and got["lefts"] == 1, got
+    wide = browser.new_page(width=1100, height=900)
+    wide.goto(path)
+    got = wide.evaluate(probe)
+    wide.close()
+    assert got["columns"] == "2" and got["lefts"] == 2, got
