@@ -407,20 +407,6 @@ def _require_columns(gdf: Any, columns: Sequence[str], what: str) -> None:
         )
 
 
-def _north_anchor(geom: Any) -> Any:
-    """A point inside ``geom`` near its northern edge (where a paddock's name goes,
-    clear of the zone labels in the middle)."""
-    from shapely.geometry import box
-
-    minx, miny, maxx, maxy = geom.bounds
-    band = geom.intersection(
-        box(minx, miny + 0.8 * (maxy - miny), maxx, maxy - 0.1 * (maxy - miny))
-    )
-    if band.is_empty or band.area == 0:
-        return geom.representative_point()
-    return label_point(band)
-
-
 def _surface_json(layer: RasterLayer) -> dict[str, Any]:
     web = warp_to_web_mercator(layer.array, transform=layer.transform, crs=layer.crs)
     return {
@@ -663,7 +649,9 @@ def build_map(
         "exclusions": _exclusions_json(excl),
         "paddocks": [
             {"g": _geometry_json(r.geometry), "name": fmt_value(r["paddock"]),
-             "at": _latlon(_north_anchor(r.geometry))}
+             # the pole of inaccessibility: well inside its own paddock, never on a
+             # boundary shared with the next one (zone labels yield to it in the page)
+             "at": _latlon(label_point(r.geometry))}
             for _, r in (pads.iterrows() if pads is not None else iter(()))
         ],
         "samples": _samples_json(pts, fields) if pts is not None else {"fields": [], "rows": []},

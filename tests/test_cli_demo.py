@@ -204,3 +204,61 @@ def test_demo_map_every_layer_on_a_phone_offline(demo_run) -> None:  # noqa: ANN
             assert g["inside"], g
         assert page.console_errors == [] and page.dialogs == []
         assert [u for u in page.requests if not u.startswith(("file:", "data:"))] == []
+
+
+def test_demo_map_paddock_names_sit_inside_their_own_paddock(demo_run) -> None:  # noqa: ANN001
+    """Each paddock's name is placed at a point well inside that paddock (its pole of
+    inaccessibility), not on a boundary it shares with the next one; checked with shapely
+    against the demo's own paddock file."""
+    import geopandas as gpd
+    import shapely
+
+    from tests.demofarm import DEMO
+
+    page = (demo_run.out / "map.html").read_text(encoding="utf-8")
+    m = re.search(r'<script type="application/json" id="geosoil-data">(.*?)</script>', page, re.S)
+    assert m
+    pads = gpd.read_file(DEMO / "paddocks.geojson").to_crs(32755).set_index("name")
+    labels = json.loads(m.group(1))["paddocks"]
+    assert len(labels) == len(pads) == 3
+    for p in labels:
+        lat, lon = p["at"]
+        at = gpd.GeoSeries([shapely.Point(lon, lat)], crs=4326).to_crs(32755).iloc[0]
+        own = pads.loc[p["name"], "geometry"]
+        assert own.contains(at), p["name"]
+        assert own.boundary.distance(at) > 100.0, p["name"]  # paddocks are 400 m+ across
+        for other, geom in pads.geometry.items():
+            if other != p["name"]:
+                assert geom.distance(at) > 100.0, (p["name"], other)
+
+
+@pytest.mark.browser
+def test_demo_map_labels_never_overlap_on_a_phone(demo_run) -> None:  # noqa: ANN001
+    """At 390 x 844 px, and zoomed out, every paddock name shows and no two shown labels
+    (names and zone rates) overlap: zone rates give way."""
+    from tests.browser import Chromium, artifact_path, require_chromium
+
+    probe = """(() => {
+      const all = Array.from(document.querySelectorAll('.gs-paddock-label, .gs-zone-label'));
+      const shown = all.filter(e => getComputedStyle(e).visibility !== 'hidden'
+                                    && e.getBoundingClientRect().width > 0);
+      const r = shown.map(e => e.getBoundingClientRect());
+      let overlaps = 0;
+      for (let i = 0; i < r.length; i++) for (let j = i + 1; j < r.length; j++)
+        if (r[i].left < r[j].right && r[j].left < r[i].right
+            && r[i].top < r[j].bottom && r[j].top < r[i].bottom) overlaps++;
+      return {overlaps, names: shown.filter(e => e.classList.contains('gs-paddock-label')).length,
+              zones: shown.length, all: all.length};
+    })()"""
+    with Chromium(require_chromium()) as browser:
+        page = browser.new_page(width=390, height=844)
+        page.goto(demo_run.out / "map.html")
+        browser.drain(0.3)
+        got = page.evaluate(probe)
+        page.screenshot(artifact_path("demo-map-phone-labels.png"))
+        assert got["overlaps"] == 0 and got["names"] == 3, got
+        page.evaluate("window.geosoilMap.map.setZoom(window.geosoilMap.map.getZoom() - 2), null")
+        browser.drain(0.5)
+        got = page.evaluate(probe)
+        assert got["overlaps"] == 0, got
+        assert page.console_errors == []

@@ -146,6 +146,29 @@
       .setLatLng(p.at).setContent(el("span", null, p.name)));
   });
 
+  // Labels never overlap: paddock names first, then zone rates, each hidden where it would
+  // cover one already shown (on a phone or zoomed out most zone rates give way).
+  var declutterQueued = false;
+  function declutter() {
+    declutterQueued = false;
+    var shown = [];
+    var labels = Array.prototype.slice.call(document.querySelectorAll(".gs-paddock-label"))
+      .concat(Array.prototype.slice.call(document.querySelectorAll(".gs-zone-label")));
+    labels.forEach(function (e) { e.style.visibility = ""; });
+    labels.forEach(function (e) {
+      var r = e.getBoundingClientRect();
+      if (!r.width) { return; }
+      var hit = shown.some(function (q) {
+        return r.left < q.right && q.left < r.right && r.top < q.bottom && q.top < r.bottom;
+      });
+      if (hit) { e.style.visibility = "hidden"; } else { shown.push(r); }
+    });
+  }
+  function queueDeclutter() {
+    if (!declutterQueued) { declutterQueued = true; window.requestAnimationFrame(declutter); }
+  }
+  map.on("zoomend moveend layeradd layerremove resize", queueDeclutter);
+
   // ------------------------------------------------------------------ samples
   var sampleRenderer = L.canvas({pane: "gs-samples", padding: 0.2});
   var samples = L.layerGroup();
