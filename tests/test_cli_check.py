@@ -312,3 +312,17 @@ def test_check_opens_every_referenced_file_before_kriging(tmp_path: Path) -> Non
     found = "\n".join(_problems(r.stderr))
     for name in ("bd_missing.tif", "no_such_exclusions.geojson", "no_such_zones.geojson"):
         assert name in found, r.stderr
+
+
+def test_an_unknown_key_lists_every_valid_key(tmp_path: Path) -> None:
+    """The unknown-key message lists all the keys of the table, none cut off (a trial
+    reported the lime table's list stopping before kamprath_factor and six more)."""
+    import dataclasses
+
+    from geosoil.rates import LimeRule
+
+    r, problems = _broken(tmp_path, extra="[rates.lime]\nkamprath_facter = 1.5\n")
+    assert len(problems) == 1 and "did you mean 'kamprath_factor'?" in problems[0]
+    listed = problems[0].split("Valid keys: ", 1)[1].strip().split(", ")
+    assert listed == [f.name for f in dataclasses.fields(LimeRule)]
+    assert {"kamprath_factor", "kamprath_min_al", "product"} <= set(listed)
