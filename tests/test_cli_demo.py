@@ -257,6 +257,13 @@ def test_demo_map_labels_never_overlap_on_a_phone(demo_run) -> None:  # noqa: AN
         got = page.evaluate(probe)
         page.screenshot(artifact_path("demo-map-phone-labels.png"))
         assert got["overlaps"] == 0 and got["names"] == 3, got
+        # labels lie above the sample dots but a tap goes through them to what is below
+        through = page.evaluate("""Array.from(document.querySelectorAll('.gs-paddock-label'))
+          .map(e => { const r = e.getBoundingClientRect();
+                      const hit = document.elementFromPoint(r.left + r.width / 2,
+                                                            r.top + r.height / 2);
+                      return !e.contains(hit); })""")
+        assert through == [True, True, True]
         page.evaluate("window.geosoilMap.map.setZoom(window.geosoilMap.map.getZoom() - 2), null")
         browser.drain(0.5)
         got = page.evaluate(probe)

@@ -14,10 +14,11 @@
 
   var map = L.map("map", {zoomControl: true, attributionControl: !!D.tiles, maxZoom: 22});
   [["gs-rasters", 350], ["gs-zones", 410], ["gs-excl", 420], ["gs-top", 450],
-   ["gs-samples", 460]].forEach(function (p) {
+   ["gs-samples", 460], ["gs-labels", 470]].forEach(function (p) {
     var pane = map.createPane(p[0]);
     pane.style.zIndex = p[1];
-    if (p[0] === "gs-rasters") { pane.style.pointerEvents = "none"; }
+    // names and rates above the sample dots, letting taps through to the samples below
+    if (p[0] === "gs-rasters" || p[0] === "gs-labels") { pane.style.pointerEvents = "none"; }
   });
   L.control.scale({imperial: false}).addTo(map);
   var tiles = null;
@@ -74,7 +75,7 @@
       });
       if (p.labelled && z.at) {
         group.addLayer(L.tooltip({permanent: true, direction: "center", interactive: false,
-                                  className: "gs-zone-label", pane: "gs-top"})
+                                  className: "gs-zone-label", pane: "gs-labels"})
           .setLatLng(z.at).setContent(el("span", null, z.r)));
       }
     });
@@ -142,7 +143,7 @@
     L.geoJSON(p.g, {pane: "gs-top", interactive: false,
                     style: {color: "#111111", weight: 2.5, fill: false}}).addTo(paddocks);
     paddocks.addLayer(L.tooltip({permanent: true, direction: "center", interactive: false,
-                                 className: "gs-paddock-label", pane: "gs-top"})
+                                 className: "gs-paddock-label", pane: "gs-labels"})
       .setLatLng(p.at).setContent(el("span", null, p.name)));
   });
 
