@@ -441,7 +441,9 @@ def _num(value: Any, digits: int = 2, *, thousands: bool = True) -> str:
     try:
         v = float(value)
     except (TypeError, ValueError):
-        return _t(value)
+        from markupsafe import Markup
+
+        return Markup(_t(value))  # escaped once: the templates do not escape it again
     if not math.isfinite(v):
         return "–"
     if v != 0 and abs(v) < 10 ** (-digits):

@@ -734,3 +734,14 @@ def test_browser_contents_in_one_column_on_a_phone(browser, tmp_path) -> None:
     got = wide.evaluate(probe)
     wide.close()
     assert got["columns"] == "2" and got["lefts"] == 2, got
+
+
+def test_a_table_value_that_is_not_a_number_is_escaped_once() -> None:
+    # a lab's text value ("<0.1") reaches the report's templates (autoescaped) escaped once
+    import jinja2
+
+    from geosoil.report import _num
+
+    page = jinja2.Environment(autoescape=True).from_string("<td>{{ v }}</td>")
+    assert page.render(v=_num("<0.1")) == "<td>&lt;0.1</td>"
+    assert page.render(v=_num(1234.5, 1)) == "<td>1,234.5</td>"
