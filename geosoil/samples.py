@@ -762,6 +762,18 @@ def _id_text(value: Any) -> str:
     return str(value).strip()
 
 
+def _present(
+    header: str, key: str, headers: list[str], name: str, header_row: int | None
+) -> str:
+    """``header``, which the setting ``key`` names, when the file has it; else a named error."""
+    if header not in headers:
+        raise InputError(
+            f"the column named in [samples] {key} is not in the file", file=name,
+            row=header_row, column=header, fix=_nearest(header, headers),
+        )
+    return header
+
+
 # --------------------------------------------------------------------------- depths
 
 
@@ -772,12 +784,7 @@ def _depth_headers(
     """(range header, top header, bottom header) of the samples' depth, each or None."""
 
     def present(header: str, key: str) -> str:
-        if header not in headers:
-            raise InputError(
-                f"the column named in [samples] {key} is not in the file", file=name,
-                row=header_row, column=header, fix=_nearest(header, headers),
-            )
-        return header
+        return _present(header, key, headers, name, header_row)
 
     if settings.depths == "ignore":
         return None, None, None
@@ -953,12 +960,7 @@ def _map_columns(
     )
 
     def present(header: str, key: str) -> str:
-        if header not in headers:
-            raise InputError(
-                f"the column named in [samples] {key} is not in the file", file=name,
-                row=header_row, column=header, fix=_nearest(header, headers),
-            )
-        return header
+        return _present(header, key, headers, name, header_row)
 
     columns: dict[str, str] = {}
     for analyte, header in settings.columns.items():

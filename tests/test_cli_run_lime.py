@@ -120,6 +120,19 @@ def test_ph_only_file_flags_lime_requirement_needs_a_test(tmp_path: Path) -> Non
     assert "lime requirement needs a test" in report
 
 
+def _flat_lab(folder: Path, head: str, values: str, *, seed: int) -> tuple[Path, Path]:
+    """One paddock and 16 samples at random places, every one with the same ``values``."""
+    folder.mkdir(parents=True, exist_ok=True)
+    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
+                     crs=UTM).to_file(folder / "paddocks.gpkg")
+    rng = np.random.default_rng(seed)
+    x, y = X0 + rng.uniform(20, 380, 16), Y0 + rng.uniform(20, 280, 16)
+    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
+    rows = "".join(f"S{i + 1:02d},{lon[i]:.7f},{lat[i]:.7f},{values}\n" for i in range(16))
+    (folder / "lab.csv").write_text(head + "\n" + rows)
+    return folder / "lab.csv", folder / "paddocks.gpkg"
+
+
 def test_potential_acidity_report_runs_base_saturation_as_hand_arithmetic(
     tmp_path: Path,
 ) -> None:
@@ -127,25 +140,15 @@ def test_potential_acidity_report_runs_base_saturation_as_hand_arithmetic(
     # Latin American labs do: T = bases + (H + Al) and V% are the base saturation method's
     # inputs (Raij et al. 1996, IAC Boletim Tecnico 100 [from memory for the sum]); invented
     # flat values, hand arithmetic below
-    folder = tmp_path / "in"
-    folder.mkdir()
-    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
-                     crs=UTM).to_file(folder / "paddocks.gpkg")
-    rng = np.random.default_rng(2)
-    x, y = X0 + rng.uniform(20, 380, 16), Y0 + rng.uniform(20, 280, 16)
-    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
-    head = ("Amostra,Longitude,Latitude,pH (CaCl2),Ca (cmolc/dm3),Mg (cmolc/dm3),"
-            "K (cmolc/dm3),H+Al (pH 7) (cmolc/dm3)")
-    rows = "".join(f"A{i + 1:02d},{lon[i]:.7f},{lat[i]:.7f},4.6,2.0,0.8,0.2,3.0\n"
-                   for i in range(16))
-    (folder / "lab.csv").write_text(head + "\n" + rows)
+    lab, pads = _flat_lab(tmp_path / "in", "Amostra,Longitude,Latitude,pH (CaCl2),"
+                          "Ca (cmolc/dm3),Mg (cmolc/dm3),K (cmolc/dm3),H+Al (pH 7) (cmolc/dm3)",
+                          "4.6,2.0,0.8,0.2,3.0", seed=2)
 
     def edit(d: dict) -> None:
         _buy_lime_90(d)
         _cache(d, tmp_path)
 
-    data, new, check, run, out = _new_check_run(tmp_path, folder / "lab.csv",
-                                                folder / "paddocks.gpkg", edit=edit)
+    data, new, check, run, out = _new_check_run(tmp_path, lab, pads, edit=edit)
     assert "lime method 'base_saturation' chosen" in new.output
     assert "CEC at pH 7" in run.output  # the ECEC stands on T here: said as a warning
     lime, soil = data["rates"]["lime"], data["soil"]
@@ -165,25 +168,16 @@ def test_potential_acidity_report_runs_base_saturation_as_hand_arithmetic(
 def test_acid_cells_that_the_lime_method_leaves_bare_are_said(tmp_path: Path) -> None:
     # pH (CaCl2) 4.6 and exchangeable acidity 1.2 of an ECEC of 8.2 (14.6 %): flagged acid by
     # pH; the acidity-share method with a 20 % target finds nothing to do (invented values)
-    folder = tmp_path / "in"
-    folder.mkdir()
-    gpd.GeoDataFrame({"name": ["Home"]}, geometry=[shapely.box(X0, Y0, X0 + 400, Y0 + 300)],
-                     crs=UTM).to_file(folder / "paddocks.gpkg")
-    rng = np.random.default_rng(3)
-    x, y = X0 + rng.uniform(20, 380, 16), Y0 + rng.uniform(20, 280, 16)
-    lon, lat = Transformer.from_crs(UTM, "EPSG:4326", always_xy=True).transform(x, y)
-    head = ("Sample ID,Longitude,Latitude,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),"
-            "Na (cmol/kg),Exchangeable acidity (KCl) (cmol/kg)")
-    rows = "".join(f"S{i + 1:02d},{lon[i]:.7f},{lat[i]:.7f},4.6,5.0,1.5,0.4,0.1,1.2\n"
-                   for i in range(16))
-    (folder / "lab.csv").write_text(head + "\n" + rows)
+    lab, pads = _flat_lab(tmp_path / "in", "Sample ID,Longitude,Latitude,pH (CaCl2),"
+                          "Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),Na (cmol/kg),"
+                          "Exchangeable acidity (KCl) (cmol/kg)", "4.6,5.0,1.5,0.4,0.1,1.2",
+                          seed=3)
 
     def share_20(d: dict) -> None:
         _cache(d, tmp_path)
         d["rates"]["lime"]["target_acidity_share_percent"] = 20.0
 
-    data, new, check, run, out = _new_check_run(tmp_path, folder / "lab.csv",
-                                                folder / "paddocks.gpkg", edit=share_20)
+    data, new, check, run, out = _new_check_run(tmp_path, lab, pads, edit=share_20)
     assert "lime method 'acidity_share' chosen" in new.output
     record = json.loads((out / "run.json").read_text())
     bare = [w for w in record["warnings"] if "acid cell(s)" in w and "get no lime" in w]
