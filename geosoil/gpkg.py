@@ -12,7 +12,8 @@ styles in it are our own): each row holds a style as QGIS's QML and as OGC
 Symbology Encoding 1.1 (SLD), and ``useAsDefault`` marks it as the one to use.
 Zones are coloured by rate in five equal steps from the smallest rate above 0
 to the largest (rate 0 light grey); exclusions are a light red fill, paddocks
-an outline, samples a white dot.
+an outline, samples a white dot. The style XML is built as an ElementTree, which
+escapes every name and label written into it.
 """
 
 from __future__ import annotations
@@ -24,7 +25,7 @@ import os
 from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
-from xml.sax.saxutils import escape, quoteattr
+from xml.etree.ElementTree import Element, SubElement, tostring
 
 import numpy as np
 import pandas as pd
@@ -85,67 +86,135 @@ def _rgb(hex_colour: str) -> str:
     return ",".join(str(int(h[i:i + 2], 16)) for i in (0, 2, 4)) + ",255"
 
 
-def _qml_fill(name: str, colour: str, outline: str, width: float, style: str = "solid") -> str:
-    return (
-        f'<symbol type="fill" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
-        '<layer class="SimpleFill" enabled="1" locked="0" pass="0"><Option type="Map">'
-        f'<Option name="color" type="QString" value="{_rgb(colour)}"/>'
-        f'<Option name="outline_color" type="QString" value="{_rgb(outline)}"/>'
-        f'<Option name="outline_width" type="QString" value="{width}"/>'
-        '<Option name="outline_width_unit" type="QString" value="MM"/>'
-        f'<Option name="style" type="QString" value="{style}"/>'
-        '</Option></layer></symbol>'
-    )
+def _sub(parent: Element, tag: str, attrs: Mapping[str, str] | None = None, *,
+         text: str | None = None) -> Element:
+    """A child element; ElementTree escapes its attributes and text when written."""
+    child = SubElement(parent, tag, dict(attrs or {}))
+    child.text = text
+    return child
 
 
-def _qml_marker(name: str, colour: str, outline: str, size: float) -> str:
-    return (
-        f'<symbol type="marker" name="{name}" alpha="1" clip_to_extent="1" force_rhr="0">'
-        '<layer class="SimpleMarker" enabled="1" locked="0" pass="0"><Option type="Map">'
-        '<Option name="name" type="QString" value="circle"/>'
-        f'<Option name="color" type="QString" value="{_rgb(colour)}"/>'
-        f'<Option name="outline_color" type="QString" value="{_rgb(outline)}"/>'
-        f'<Option name="size" type="QString" value="{size}"/>'
-        '<Option name="size_unit" type="QString" value="MM"/>'
-        '</Option></layer></symbol>'
-    )
+def _xml(root: Element) -> str:
+    return tostring(root, encoding="unicode")
 
 
-def _sld(layer: str, rules: str) -> str:
-    return (
-        '<?xml version="1.0" encoding="UTF-8"?>\n'
-        '<StyledLayerDescriptor version="1.1.0" xmlns="http://www.opengis.net/sld" '
-        'xmlns:se="http://www.opengis.net/se" xmlns:ogc="http://www.opengis.net/ogc" '
-        'xmlns:xsi="http://www.w3.org/2001/XMLSchema-instance" '
-        'xsi:schemaLocation="http://www.opengis.net/sld '
-        'http://schemas.opengis.net/sld/1.1.0/StyledLayerDescriptor.xsd">'
-        f'<NamedLayer><se:Name>{escape(layer)}</se:Name><UserStyle>'
-        f'<se:Name>{escape(layer)}</se:Name><se:FeatureTypeStyle>{rules}'
-        '</se:FeatureTypeStyle></UserStyle></NamedLayer></StyledLayerDescriptor>\n'
-    )
+# --- QML (QGIS's own style format) ---------------------------------------------------
+
+def _qml_symbol(kind: str, name: str, layer_class: str,
+                options: Sequence[tuple[str, str]]) -> Element:
+    symbol = Element("symbol", {"type": kind, "name": name, "alpha": "1",
+                                "clip_to_extent": "1", "force_rhr": "0"})
+    layer = _sub(symbol, "layer", {"class": layer_class, "enabled": "1", "locked": "0",
+                                   "pass": "0"})
+    values = _sub(layer, "Option", {"type": "Map"})
+    for key, value in options:
+        _sub(values, "Option", {"name": key, "type": "QString", "value": value})
+    return symbol
 
 
-def _sld_polygon(fill: str | None, stroke: str, width: float, opacity: float = 1.0) -> str:
-    f = (f'<se:Fill><se:SvgParameter name="fill">{fill}</se:SvgParameter>'
-         f'<se:SvgParameter name="fill-opacity">{opacity:g}</se:SvgParameter></se:Fill>'
-         if fill else "")
-    return (f'<se:PolygonSymbolizer>{f}<se:Stroke>'
-            f'<se:SvgParameter name="stroke">{stroke}</se:SvgParameter>'
-            f'<se:SvgParameter name="stroke-width">{width:g}</se:SvgParameter>'
-            '</se:Stroke></se:PolygonSymbolizer>')
+def _qml_fill(name: str, colour: str, outline: str, width: float, style: str = "solid"
+              ) -> Element:
+    return _qml_symbol("fill", name, "SimpleFill", [
+        ("color", _rgb(colour)), ("outline_color", _rgb(outline)),
+        ("outline_width", str(width)), ("outline_width_unit", "MM"), ("style", style)])
 
 
-def _rule(name: str, body: str, flt: str = "") -> str:
-    return f"<se:Rule><se:Name>{escape(name)}</se:Name>{flt}{body}</se:Rule>"
+def _qml_marker(name: str, colour: str, outline: str, size: float) -> Element:
+    return _qml_symbol("marker", name, "SimpleMarker", [
+        ("name", "circle"), ("color", _rgb(colour)), ("outline_color", _rgb(outline)),
+        ("size", str(size)), ("size_unit", "MM")])
 
 
-def _between(field: str, lo: float, hi: float, *, first: bool) -> str:
+def _qml(renderer: Mapping[str, str], symbols: Sequence[Element],
+         ranges: Sequence[Element] | None = None) -> str:
+    root = Element("qgis", {"version": "3.28.0", "styleCategories": "Symbology"})
+    render = _sub(root, "renderer-v2", {**renderer, "symbollevels": "0",
+                                        "enableorderby": "0", "forceraster": "0"})
+    if ranges is not None:
+        _sub(render, "ranges").extend(ranges)
+    _sub(render, "symbols").extend(symbols)
+    return _QML_HEAD + _xml(root) + "\n"
+
+
+# --- SLD (OGC Symbology Encoding 1.1) ------------------------------------------------
+# The elements carry the prefixes the root declares (se:, ogc:), as QGIS writes them.
+
+_SLD_ROOT = {
+    "version": "1.1.0",
+    "xmlns": "http://www.opengis.net/sld",
+    "xmlns:se": "http://www.opengis.net/se",
+    "xmlns:ogc": "http://www.opengis.net/ogc",
+    "xmlns:xsi": "http://www.w3.org/2001/XMLSchema-instance",
+    "xsi:schemaLocation": "http://www.opengis.net/sld "
+                          "http://schemas.opengis.net/sld/1.1.0/StyledLayerDescriptor.xsd",
+}
+
+
+def _sld(layer: str, rules: Sequence[Element]) -> str:
+    root = Element("StyledLayerDescriptor", _SLD_ROOT)
+    named = _sub(root, "NamedLayer")
+    _sub(named, "se:Name", text=layer)
+    user = _sub(named, "UserStyle")
+    _sub(user, "se:Name", text=layer)
+    _sub(user, "se:FeatureTypeStyle").extend(rules)
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + _xml(root) + "\n"
+
+
+def _svg_parameters(parent: Element, tag: str, params: Mapping[str, str]) -> Element:
+    group = _sub(parent, tag)
+    for key, value in params.items():
+        _sub(group, "se:SvgParameter", {"name": key}, text=value)
+    return group
+
+
+def _sld_polygon(fill: str | None, stroke: str, width: float, opacity: float = 1.0
+                 ) -> Element:
+    symbolizer = Element("se:PolygonSymbolizer")
+    if fill:
+        _svg_parameters(symbolizer, "se:Fill", {"fill": fill, "fill-opacity": f"{opacity:g}"})
+    _svg_parameters(symbolizer, "se:Stroke", {"stroke": stroke, "stroke-width": f"{width:g}"})
+    return symbolizer
+
+
+def _sld_point(fill: str, stroke: str, size: float) -> Element:
+    symbolizer = Element("se:PointSymbolizer")
+    graphic = _sub(symbolizer, "se:Graphic")
+    mark = _sub(graphic, "se:Mark")
+    _sub(mark, "se:WellKnownName", text="circle")
+    _svg_parameters(mark, "se:Fill", {"fill": fill})
+    _svg_parameters(mark, "se:Stroke", {"stroke": stroke})
+    _sub(graphic, "se:Size", text=f"{size:g}")
+    return symbolizer
+
+
+def _rule(name: str, symbolizer: Element, flt: Element | None = None) -> Element:
+    rule = Element("se:Rule")
+    _sub(rule, "se:Name", text=name)
+    if flt is not None:
+        rule.append(flt)
+    rule.append(symbolizer)
+    return rule
+
+
+def _compare(parent: Element, operator: str, field: str, value: str) -> None:
+    comparison = _sub(parent, f"ogc:{operator}")
+    _sub(comparison, "ogc:PropertyName", text=field)
+    _sub(comparison, "ogc:Literal", text=value)
+
+
+def _equals(field: str, value: str) -> Element:
+    flt = Element("ogc:Filter")
+    _compare(flt, "PropertyIsEqualTo", field, value)
+    return flt
+
+
+def _between(field: str, lo: float, hi: float, *, first: bool) -> Element:
+    flt = Element("ogc:Filter")
+    both = _sub(flt, "ogc:And")
     low = "PropertyIsGreaterThanOrEqualTo" if first else "PropertyIsGreaterThan"
-    return (f'<ogc:Filter><ogc:And><ogc:{low}><ogc:PropertyName>{field}</ogc:PropertyName>'
-            f'<ogc:Literal>{lo:.6g}</ogc:Literal></ogc:{low}>'
-            f'<ogc:PropertyIsLessThanOrEqualTo><ogc:PropertyName>{field}</ogc:PropertyName>'
-            f'<ogc:Literal>{hi:.6g}</ogc:Literal></ogc:PropertyIsLessThanOrEqualTo>'
-            '</ogc:And></ogc:Filter>')
+    _compare(both, low, field, f"{lo:.6g}")
+    _compare(both, "PropertyIsLessThanOrEqualTo", field, f"{hi:.6g}")
+    return flt
 
 
 def zone_styles(layer: str, rates: Sequence[float], *, unit_note: str = "kg/ha"
@@ -165,32 +234,33 @@ def zone_styles(layer: str, rates: Sequence[float], *, unit_note: str = "kg/ha"
     -------
     (str, str)
         The QML text and the SLD text.
+
+    Examples
+    --------
+    >>> qml, sld = zone_styles("zones_gypsum", [0.0, 1000.0, 3000.0])
+    >>> "graduatedSymbol" in qml, sld.count("<se:Rule>")  # rate 0 and two classes
+    (True, 3)
     """
     classes = rate_classes(rates)
-    ranges = ['<range lower="0" upper="0" symbol="0" label="0 (nothing spread)" render="true"/>']
+    zero = "0 (nothing spread)"
+    ranges = [Element("range", {"lower": "0", "upper": "0", "symbol": "0", "label": zero,
+                                "render": "true"})]
     symbols = [_qml_fill("0", ZERO_COLOUR, "#505050", 0.2)]
-    rules = [_rule("0 (nothing spread)", _sld_polygon(ZERO_COLOUR, "#505050", 0.5),
-                   '<ogc:Filter><ogc:PropertyIsEqualTo><ogc:PropertyName>rate_kg_ha'
-                   '</ogc:PropertyName><ogc:Literal>0</ogc:Literal></ogc:PropertyIsEqualTo>'
-                   '</ogc:Filter>')]
+    rules = [_rule(zero, _sld_polygon(ZERO_COLOUR, "#505050", 0.5),
+                   _equals("rate_kg_ha", "0"))]
     colours = RATE_COLOURS if len(classes) == len(RATE_COLOURS) else \
         tuple(RATE_COLOURS[round(i * (len(RATE_COLOURS) - 1) / max(1, len(classes) - 1))]
               for i in range(len(classes)))
     for i, ((lo, hi), colour) in enumerate(zip(classes, colours, strict=True), start=1):
         label = f"{lo:,.0f} - {hi:,.0f} {unit_note}"
-        ranges.append(f'<range lower="{lo:.6f}" upper="{hi:.6f}" symbol="{i}" '
-                      f'label={quoteattr(label)} render="true"/>')
+        ranges.append(Element("range", {"lower": f"{lo:.6f}", "upper": f"{hi:.6f}",
+                                        "symbol": str(i), "label": label, "render": "true"}))
         symbols.append(_qml_fill(str(i), colour, "#505050", 0.2))
         rules.append(_rule(label, _sld_polygon(colour, "#505050", 0.5),
                            _between("rate_kg_ha", lo, hi, first=i == 1)))
-    qml = (
-        _QML_HEAD + '<qgis version="3.28.0" styleCategories="Symbology">'
-        '<renderer-v2 type="graduatedSymbol" attr="rate_kg_ha" graduatedMethod="GraduatedColor" '
-        'symbollevels="0" enableorderby="0" forceraster="0">'
-        f'<ranges>{"".join(ranges)}</ranges><symbols>{"".join(symbols)}</symbols>'
-        '</renderer-v2></qgis>\n'
-    )
-    return qml, _sld(layer, "".join(rules))
+    qml = _qml({"type": "graduatedSymbol", "attr": "rate_kg_ha",
+                "graduatedMethod": "GraduatedColor"}, symbols, ranges)
+    return qml, _sld(layer, rules)
 
 
 def plain_style(layer: str, kind: str) -> tuple[str, str]:
@@ -205,12 +275,7 @@ def plain_style(layer: str, kind: str) -> tuple[str, str]:
     """
     if kind == "point":
         symbol = _qml_marker("0", "#ffffff", "#202020", 2.4)
-        rule = _rule(layer, '<se:PointSymbolizer><se:Graphic><se:Mark>'
-                     '<se:WellKnownName>circle</se:WellKnownName><se:Fill>'
-                     '<se:SvgParameter name="fill">#ffffff</se:SvgParameter></se:Fill>'
-                     '<se:Stroke><se:SvgParameter name="stroke">#202020</se:SvgParameter>'
-                     '</se:Stroke></se:Mark><se:Size>9</se:Size></se:Graphic>'
-                     '</se:PointSymbolizer>')
+        rule = _rule(layer, _sld_point("#ffffff", "#202020", 9))
     elif kind == "exclusion":
         symbol = _qml_fill("0", "#e8a0a0", "#8b1a1a", 0.4)
         rule = _rule(layer, _sld_polygon("#e8a0a0", "#8b1a1a", 1.0, 0.8))
@@ -219,10 +284,7 @@ def plain_style(layer: str, kind: str) -> tuple[str, str]:
         rule = _rule(layer, _sld_polygon(None, "#1e1e1e", 2.0))
     else:
         raise ValueError(f"style kind {kind!r} is not one of point, exclusion, outline")
-    qml = (_QML_HEAD + '<qgis version="3.28.0" styleCategories="Symbology">'
-           '<renderer-v2 type="singleSymbol" symbollevels="0" enableorderby="0" forceraster="0">'
-           f'<symbols>{symbol}</symbols></renderer-v2></qgis>\n')
-    return qml, _sld(layer, rule)
+    return _qml({"type": "singleSymbol"}, [symbol]), _sld(layer, [rule])
 
 
 def _plain_columns(frame: Any) -> Any:

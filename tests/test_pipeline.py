@@ -37,6 +37,7 @@ import platform
 import re
 import struct
 import tomllib
+import xml.etree.ElementTree as ET
 import zipfile
 from pathlib import Path
 from types import SimpleNamespace
@@ -44,6 +45,7 @@ from types import SimpleNamespace
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pyogrio
 import pyproj
 import pytest
 import rasterio
@@ -64,6 +66,7 @@ HOSTILE_IMG = "<img src=x onerror=alert(1)>"
 HOSTILE_TEMPLATE = "${7*6}"
 HOSTILE_PADDOCK = "</script><script>alert(1)</script>"
 HOSTILE_FARM = "<img src=x onerror=alert(2)> & </script><script>alert(2)</script>"
+HOSTILE_PRODUCT = "Mined <gypsum> & \"fine\" 'grade' ]]>"
 
 
 @pytest.fixture(scope="module")
@@ -495,6 +498,9 @@ def hostile(tmp_path_factory):
     text, n = re.subn(r"^farm = .*$", f"farm = {json.dumps(HOSTILE_FARM)}",
                       toml.read_text(encoding="utf-8"), count=1, flags=re.M)
     assert n == 1
+    text, n = re.subn(r'^label = "Mined gypsum"$', f"label = {json.dumps(HOSTILE_PRODUCT)}",
+                      text, count=1, flags=re.M)
+    assert n == 1
     toml.write_text(text, encoding="utf-8")
     result = run(load_project(farm), out_dir=base / "out")
     return SimpleNamespace(out=base / "out", result=result)
@@ -512,6 +518,7 @@ def test_hostile_text_reaches_map_and_report_only_escaped(hostile) -> None:
     assert HOSTILE_IMG in seen and HOSTILE_TEMPLATE in seen and HOSTILE_PADDOCK in seen
     assert HOSTILE_FARM in seen
     assert HOSTILE_PADDOCK in unescape_all(report) and HOSTILE_FARM in unescape_all(report)
+    assert HOSTILE_PRODUCT in unescape_all(report)
 
 
 def test_hostile_paddock_name_gives_safe_file_names(hostile) -> None:
@@ -524,6 +531,19 @@ def test_hostile_paddock_name_gives_safe_file_names(hostile) -> None:
     assert HOSTILE_PADDOCK in {p["paddock"] for p in record["paddocks"]}
     samples = pd.read_csv(hostile.out / "samples.csv", dtype={"sample_id": str})
     assert {HOSTILE_IMG, HOSTILE_TEMPLATE} <= set(samples["sample_id"])
+
+
+def test_hostile_names_leave_the_geopackage_and_its_styles_readable(hostile) -> None:
+    gpkg = hostile.out / "farm.gpkg"
+    pads = pyogrio.read_dataframe(gpkg, layer="paddocks")
+    assert HOSTILE_PADDOCK in set(pads["paddock"])
+    samples = pyogrio.read_dataframe(gpkg, layer="samples")
+    assert {HOSTILE_IMG, HOSTILE_TEMPLATE} <= set(samples["sample_id"])
+    styles = pyogrio.read_dataframe(gpkg, layer="layer_styles")
+    assert len(styles) >= 4
+    for qml, sld in zip(styles["styleQML"], styles["styleSLD"], strict=True):
+        assert ET.fromstring(qml.partition("\n")[2]).tag == "qgis"  # expat reads both
+        assert ET.fromstring(sld.encode("utf-8")).tag.endswith("StyledLayerDescriptor")
 
 
 # --------------------------------------------------------------------------- partial lab data
