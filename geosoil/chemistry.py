@@ -18,6 +18,20 @@ ESP
     given, estimated by the USDA Handbook 60 relation (Richards 1954, pp. 25-26)
     ESR = -0.0126 + 0.01475 SAR, ESP = 100 ESR / (1 + ESR), and flagged in
     ``esp_estimated``.
+Soluble salts
+    Exchangeable cations extracted without first washing out the soluble salts
+    (Rayment & Lyons 2011 method 15A1) include the cations of those salts, so a
+    saline sample's Na (and ESP, and gypsum) reads high. Where the lab also gives
+    the soluble cations of a water extract and ``soluble_salts = "subtract"``,
+    exchangeable = extracted - soluble, the soluble amount being the extract's
+    concentration times its water per kg of soil (1:5 -> 5 L/kg):
+    cmol(+)/kg = mmol(+)/L x L/kg / 10 [derived]. The subtraction is the
+    extractable-minus-soluble rule of USDA Handbook 60 (Richards 1954, from
+    memory); a correction never makes an amount negative (clamped at 0, with a
+    warning). The default, "warn", leaves the lab's figures as they are: only
+    the user knows whether the lab washed the salts out first (15A2, 15B2) or
+    adjusted Na itself (15A3), and subtracting from such figures would remove
+    the salts twice.
 Sodicity
     ESP >= 6 sodic, >= 15 strongly sodic (Northcote & Skene 1972; Australian
     Soil Classification, Isbell 1996). The US convention (USDA Handbook 60) is
@@ -45,6 +59,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from .columns import extract_water_of_header
 from .errors import DataWarning, InputError, SettingsError
 from .settings import setting
 
@@ -62,6 +77,13 @@ __all__ = [
     "esp_from_sar",
     "sodicity_class",
     "derive",
+    "SOLUBLE_COLUMNS",
+    "SOLUBLE_DERIVED",
+    "SOLUBLE_SALTS",
+    "DEFAULT_EXTRACT_L_PER_KG",
+    "SOLUBLE_SOURCE",
+    "soluble_cmol_kg",
+    "sample_names",
 ]
 
 logger = logging.getLogger(__name__)
@@ -87,6 +109,25 @@ DERIVED: tuple[str, ...] = (
 )
 
 _BASES = ("ca", "mg", "k", "na")
+
+#: Soluble cations of a water extract, mmol(+)/L (= meq/L), as the samples reader names them.
+SOLUBLE_COLUMNS: dict[str, str] = {"ca": "ca_sol", "mg": "mg_sol", "k": "k_sol", "na": "na_sol"}
+#: What ``soluble_salts`` may be: leave the lab's figures and warn, or subtract.
+SOLUBLE_SALTS: tuple[str, ...] = ("warn", "subtract")
+#: Water of the usual extract, L per kg of soil: 1 part soil to 5 of water (common practice
+#: in Australian laboratories; the extract of EC 1:5).
+DEFAULT_EXTRACT_L_PER_KG = 5.0
+#: Columns :func:`derive` adds with the subtraction: the lab's figure and what was taken off.
+SOLUBLE_DERIVED: tuple[str, ...] = (
+    *(f"{c}_extracted" for c in _BASES), *(f"{c}_soluble" for c in _BASES), "soluble_subtracted",
+)
+#: Where the subtraction comes from, in the words the run, report and explain use.
+SOLUBLE_SOURCE = (
+    "exchangeable = extracted - soluble (the extractable-minus-soluble rule of USDA Handbook "
+    "60, Richards 1954, from memory), soluble cmol(+)/kg = extract mmol(+)/L x L of water per "
+    "kg of soil / 10 [derived]; right only for cations extracted without washing out soluble "
+    "salts first (Rayment & Lyons 2011 method 15A1)"
+)
 _NAMES = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na", "acidity": "acidity (Al + H)"}
 
 
@@ -147,6 +188,24 @@ class ChemistrySettings:
         "about 0.5-0.8 below pH in water)",
         minimum=4.5,
         maximum=9.0,
+    )
+
+    soluble_salts: str = setting(
+        "warn",
+        doc="exchangeable cations of saline samples include soluble salts unless the lab washed "
+        "them out: 'warn' keeps the lab's figures and says where EC 1:5 is high; 'subtract' "
+        "takes off the soluble Na, K, Ca and Mg of the lab's water extract (only for figures "
+        "measured without washing the salts out, as Rayment & Lyons 2011 method 15A1)",
+        choices=SOLUBLE_SALTS,
+    )
+    extract_water_l_per_kg: float | None = setting(
+        None,
+        doc="water of the extract the soluble cations were measured in, litres per kg of soil "
+        "(1:5 -> 5; a saturation extract: its saturation water content); unset: the ratio "
+        "the header names ('Na 1:5 (meq/L)'), else 5",
+        unit="L/kg",
+        minimum=0.1,
+        maximum=100.0,
     )
 
     def __post_init__(self) -> None:
@@ -381,8 +440,47 @@ def cec_ph7_from_parts(
         + na_or_0 + np.asarray(acidity_potential, dtype=float), dtype=float)
 
 
+def soluble_cmol_kg(conc_mmolc_l: ArrayLike, water_l_per_kg: float) -> NDArray[np.float64]:
+    """The soluble amount of a cation per kg of soil, cmol(+)/kg, from its extract.
+
+    A concentration of c mmol(+)/L in an extract of r litres of water per kg of
+    soil is c x r mmol(+)/kg, that is c x r / 10 cmol(+)/kg [derived].
+
+    Examples
+    --------
+    Soluble Na of 115 mg/L in a 1:5 extract: 115 / 22.990 = 5.0022 mmol(+)/L, x 5 L/kg =
+    25.011 mmol(+)/kg = 2.5011 cmol(+)/kg (hand arithmetic).
+
+    >>> round(float(soluble_cmol_kg(115 / 22.990, 5.0)), 4)
+    2.5011
+    """
+    return np.asarray(conc_mmolc_l, dtype=float) * float(water_l_per_kg) / 10.0
+
+
+def _subtract_soluble(
+    get: Any, water: Mapping[str, float]
+) -> dict[str, NDArray[Any]]:
+    """Each cation of ``water`` less its soluble amount (where both are given), the amount
+    taken off and where the difference went below 0 (then 0)."""
+    out: dict[str, NDArray[Any]] = {}
+    for c in _BASES:
+        extracted = get(c)
+        if c not in water:
+            out[c] = extracted
+            continue
+        soluble = soluble_cmol_kg(get(SOLUBLE_COLUMNS[c]), water[c])
+        both = np.isfinite(extracted) & np.isfinite(soluble)
+        left = np.where(both, extracted - np.where(both, soluble, 0.0), extracted)
+        # below 0 beyond float noise is a real over-correction (named by derive); noise is 0
+        out[f"{c}_clamped"] = both & (left < -1e-9)
+        out[c] = np.where(both, np.maximum(left, 0.0), extracted)
+        out[f"{c}_soluble"] = np.where(both, soluble, np.nan)
+    return out
+
+
 def exchange_chemistry(
-    parts: Mapping[str, ArrayLike | None], settings: ChemistrySettings | None = None
+    parts: Mapping[str, ArrayLike | None], settings: ChemistrySettings | None = None,
+    *, extract_water: Mapping[str, float] | None = None,
 ) -> dict[str, NDArray[Any]]:
     """ECEC, saturations, ESP and the exchangeable acidity used, from exchangeable amounts.
 
@@ -420,10 +518,21 @@ def exchange_chemistry(
         shape, NaN where not measured; absent or None keys count as not measured.
     settings
         ``neutral_ph`` and ``neutral_ph_cacl2``; defaults when None.
+    extract_water
+        Cation -> litres of water per kg of soil of the extract its soluble
+        concentration (``ca_sol``, ``mg_sol``, ``k_sol``, ``na_sol`` in
+        ``parts``, mmol(+)/L) was measured in: those cations are extracted
+        amounts, and each is taken as extracted - soluble
+        (:func:`soluble_cmol_kg`) where both are given, never below 0. None
+        (the default): the amounts are exchangeable as given.
 
     Returns
     -------
     dict of str to ndarray
+        With ``extract_water``: ``ca``, ``mg``, ``k``, ``na`` (exchangeable, after
+        the subtraction), ``<cation>_soluble`` (cmol(+)/kg taken off; NaN where
+        nothing was) and ``<cation>_clamped`` (True where the soluble amount
+        exceeded the extracted and 0 was kept) for each cation corrected; then
         ``acidity`` (the acidity used), ``acidity_basis`` (int8 codes: index into
         :data:`ACIDITY_BASES`), ``ecec``, ``ecec_basis`` (int8 codes: index into
         :data:`ECEC_BASES`), ``ca_sat``, ``mg_sat``,
@@ -441,6 +550,15 @@ def exchange_chemistry(
     (1.5, 'Al + H', 5.0)
     >>> float(out["acid_sat"][0]), float(out["esp"][0])
     (30.0, 6.0)
+
+    Soluble Na of a 1:5 extract (10 mmol(+)/L x 5 L/kg / 10 = 5.0 cmol(+)/kg) taken off
+    the extracted 6.0 leaves 1.0 exchangeable:
+
+    >>> out = exchange_chemistry({"ca": [8.0], "mg": [3.0], "k": [0.5], "na": [6.0],
+    ...                           "na_sol": [10.0], "acidity": [0.0]},
+    ...                          extract_water={"na": 5.0})
+    >>> float(out["na"][0]), float(out["na_soluble"][0]), float(out["ecec"][0])
+    (1.0, 5.0, 12.5)
     """
     s = settings or ChemistrySettings()
     shape = np.broadcast_shapes(*(np.shape(v) for v in parts.values() if v is not None))
@@ -451,7 +569,8 @@ def exchange_chemistry(
             return np.broadcast_to(np.float64(np.nan), shape)  # no memory per cell
         return np.broadcast_to(np.asarray(v, dtype=float), shape)
 
-    ca, mg, k, na = get("ca"), get("mg"), get("k"), get("na")
+    corrected = _subtract_soluble(get, extract_water) if extract_water else {}
+    ca, mg, k, na = (corrected.get(c, get(c)) for c in _BASES)
     acidity, al, h = get("acidity"), get("al"), get("h")
     ph, cacl2 = ph_for_rules(get("ph"), get("ph_cacl2"))
     neutral = np.isfinite(ph) & (ph >= np.where(cacl2, s.neutral_ph_cacl2, s.neutral_ph))
@@ -472,6 +591,7 @@ def exchange_chemistry(
     use_t7 = ~use_sum & ~use_lab & np.isfinite(t7) & (t7 > 0)
     ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.where(use_t7, t7, np.nan)))
     out: dict[str, NDArray[Any]] = {
+        **corrected,
         "acidity": used,
         "acidity_basis": basis,
         "ecec": ecec,
@@ -508,6 +628,7 @@ def derive(
     file: str | os.PathLike[str] | None = None,
     headers: Mapping[str, str] | None = None,
     on_bad_row: str = "stop",
+    solution_headers: Mapping[str, str] | None = None,
 ) -> pd.DataFrame:
     """Add ECEC, saturations, ESP, sodicity and the acidity flag to each sample.
 
@@ -524,6 +645,11 @@ def derive(
         "stop": a sample whose ECEC cannot be formed raises :class:`InputError`.
         "skip": its ECEC and saturations are left empty (``ecec_basis`` "none")
         with a :class:`DataWarning`; its measured values stay.
+    solution_headers
+        Cation -> the lab's header of its soluble concentration (``na_sol``...):
+        with ``settings.soluble_salts = "subtract"`` the header's extract ratio
+        ("1:5") gives the litres of water per kg of soil (see
+        :func:`geosoil.columns.extract_water_of_header`).
 
     Returns
     -------
@@ -543,6 +669,11 @@ def derive(
         (see :func:`ph_for_rules`).
         ``attrs["ecec_gaps"]`` lists the (row, problem) of the samples whose ECEC was
         left empty (``on_bad_row="skip"``), so a caller can report them as problems.
+        With ``soluble_salts = "subtract"``, ``ca``, ``mg``, ``k`` and ``na`` are the
+        exchangeable amounts after taking off the soluble ones, the lab's figures kept as
+        ``<cation>_extracted`` and the amounts taken off as ``<cation>_soluble``
+        (cmol(+)/kg), with ``soluble_subtracted`` (bool) per sample;
+        ``attrs["soluble_salts"]`` says what was done (for the run's record).
 
     Raises
     ------
@@ -569,9 +700,16 @@ def derive(
     ph, cacl2 = ph_for_rules(_column(samples, "ph"), _column(samples, "ph_cacl2"))
     sar = _column(samples, "sar")
     lab_cec = _column(samples, "cec")
+    water, basis = _extract_water(samples, s, solution_headers or {}, file)
     chem = exchange_chemistry(
         {a: _column(samples, a) for a in (*_BASES, "acidity", "al", "h", "cec", "cec_ph7",
-                                          "acidity_potential", "ph", "ph_cacl2", "sar")}, s)
+                                          "acidity_potential", "ph", "ph_cacl2", "sar",
+                                          *SOLUBLE_COLUMNS.values())}, s,
+        extract_water=water or None)
+    if water:
+        ca, mg, k, na = (chem[c] for c in _BASES)
+    soluble_record = _soluble_record(samples, chem, s, water, basis, file=file,
+                                     solution_headers=solution_headers or {})
     acidity_used = chem["acidity"]
     bad = chem["ecec_basis"] == ECEC_BASES.index("none")
     no_cations = not any(np.isfinite(v).any() for v in (ca, mg, k, na, lab_cec))
@@ -616,6 +754,15 @@ def derive(
         )
     out = samples.copy()
     out.attrs["ecec_gaps"] = gaps
+    out.attrs["soluble_salts"] = soluble_record
+    if water:
+        done = np.zeros(len(samples), dtype=bool)
+        for c in water:
+            out[f"{c}_extracted"] = _column(samples, c)
+            out[c] = chem[c]
+            out[f"{c}_soluble"] = chem[f"{c}_soluble"]
+            done |= np.isfinite(chem[f"{c}_soluble"])
+        out["soluble_subtracted"] = done
     # the exchangeable acidity each sample's ECEC counts (Al + H where the lab gave them
     # apart; 0 at neutral pH) is the acidity that is interpolated: the lab's own values stay
     # where it gave them, and acidity_basis says how each was had
@@ -648,6 +795,129 @@ def derive(
     out["acid_reason"] = reasons
     logger.debug("derived chemistry for %d samples (%d from SAR)", len(out), int(estimated.sum()))
     return out
+
+
+def sample_names(samples: pd.DataFrame) -> list[str]:
+    """How messages name each sample: its ID, with its depth when the samples are at
+    several depths (they share IDs then)."""
+    ids = (samples["sample_id"].astype(str).tolist() if "sample_id" in samples.columns
+           else [str(i) for i in range(len(samples))])
+    if {"depth_top_cm", "depth_bottom_cm"} <= set(samples.columns):
+        depths = list(zip(samples["depth_top_cm"], samples["depth_bottom_cm"], strict=True))
+        if len(set(depths)) > 1:
+            ids = [f"{i} ({t:g}-{b:g} cm)" for i, (t, b) in zip(ids, depths, strict=True)]
+    return ids
+
+
+def _listed(names: list[str], most: int = 10) -> str:
+    shown = ", ".join(names[:most])
+    return shown + (f" and {len(names) - most} more" if len(names) > most else "")
+
+
+def _extract_water(
+    samples: pd.DataFrame, s: ChemistrySettings, headers: Mapping[str, str],
+    file: str | os.PathLike[str] | None,
+) -> tuple[dict[str, float], dict[str, str]]:
+    """The litres of water per kg of soil of each soluble cation's extract, and how it was
+    had, for the cations the samples give soluble values of (``subtract`` only)."""
+    if s.soluble_salts != "subtract":
+        return {}, {}
+    water: dict[str, float] = {}
+    basis: dict[str, str] = {}
+    for c in _BASES:
+        col = SOLUBLE_COLUMNS[c]
+        if not np.isfinite(_column(samples, col)).any():
+            continue
+        header = headers.get(c, col)
+        said = extract_water_of_header(header)
+        if s.extract_water_l_per_kg is not None:
+            if isinstance(said, float) and not np.isclose(said, s.extract_water_l_per_kg):
+                raise SettingsError(
+                    f"is {s.extract_water_l_per_kg:g} L/kg, but the header '{header}' names a "
+                    f"1:{said:g} extract ({said:g} L/kg); remove the setting or correct it",
+                    key="chemistry.extract_water_l_per_kg")
+            water[c] = float(s.extract_water_l_per_kg)
+            basis[c] = f"{water[c]:g} L/kg ([chemistry] extract_water_l_per_kg)"
+        elif said == "saturation":
+            raise InputError(
+                f"soluble {_NAMES[c]} is of a saturation extract, whose water per kg of soil "
+                "differs from sample to sample, so the soluble amount per kg of soil cannot "
+                "be worked out for [chemistry] soluble_salts = 'subtract'",
+                file=file, column=header,
+                fix="set [chemistry] extract_water_l_per_kg to the soils' saturation water "
+                "content (L/kg), or soluble_salts = 'warn'")
+        elif isinstance(said, float):
+            water[c] = said
+            basis[c] = f"1:{said:g} extract, {said:g} L/kg (named in the header)"
+        else:
+            water[c] = DEFAULT_EXTRACT_L_PER_KG
+            basis[c] = ("taken as a 1:5 extract, 5 L/kg (the header names no extract: set "
+                        "[chemistry] extract_water_l_per_kg if it is another)")
+    return water, basis
+
+
+def _grouped(said: list[tuple[str, int, str]]) -> list[str]:
+    """'Ca, Mg at 9 sample(s): <basis>' for the cations that share a basis and a count."""
+    groups: dict[tuple[str, int], list[str]] = {}
+    for basis, n, name in said:
+        groups.setdefault((basis, n), []).append(name)
+    return [f"{', '.join(names)} at {n} sample(s): {basis}" for (basis, n), names in groups.items()]
+
+
+def _soluble_record(
+    samples: pd.DataFrame, chem: Mapping[str, NDArray[Any]], s: ChemistrySettings,
+    water: Mapping[str, float], basis: Mapping[str, str], *,
+    file: str | os.PathLike[str] | None, solution_headers: Mapping[str, str],
+) -> dict[str, Any]:
+    """What the soluble-salt setting did, for the run's record; the subtraction's warnings
+    (what was taken off, what went below 0, what could not be corrected) raised here."""
+    where = file or "samples"
+    given = [c for c in _BASES if np.isfinite(_column(samples, SOLUBLE_COLUMNS[c])).any()]
+    record: dict[str, Any] = {"mode": s.soluble_salts, "soluble_given": given}
+    if s.soluble_salts != "subtract":
+        return record
+    record["source"] = SOLUBLE_SOURCE
+    if not given:
+        warnings.warn(
+            f"{where}: [chemistry] soluble_salts = 'subtract', but the file gives no soluble "
+            "Na, K, Ca or Mg of a water extract (headers such as 'Soluble Na (meq/L)', or "
+            "[samples] solution_columns): nothing is subtracted, the exchangeable cations "
+            "are the lab's figures", DataWarning, stacklevel=3)
+        return record
+    names = sample_names(samples)
+    cations: dict[str, Any] = {}
+    said, clamped, missing = [], [], []
+    for c in water:
+        extracted = _column(samples, c)
+        taken = np.isfinite(chem[f"{c}_soluble"])
+        over = np.flatnonzero(chem[f"{c}_clamped"])
+        gap = np.flatnonzero(np.isfinite(extracted) & ~taken)
+        cations[c] = {"header": solution_headers.get(c), "water_l_per_kg": water[c],
+                      "basis": basis[c], "samples": int(taken.sum()),
+                      "clamped": [names[i] for i in over],
+                      "not_corrected": [names[i] for i in gap]}
+        said.append((basis[c], int(taken.sum()), _NAMES[c]))
+        clamped += [f"{names[i]} {_NAMES[c]} (extracted {extracted[i]:.4g}, soluble "
+                    f"{chem[f'{c}_soluble'][i]:.4g} cmol(+)/kg)" for i in over]
+        if gap.size:
+            missing.append(f"{_NAMES[c]} at {_listed([names[i] for i in gap])}")
+    record["cations"] = cations
+    warnings.warn(
+        f"{where}: exchangeable cations corrected for soluble salts ([chemistry] soluble_salts "
+        f"= 'subtract'): {'; '.join(_grouped(said))}; {SOLUBLE_SOURCE}",
+        DataWarning, stacklevel=3)
+    if clamped:
+        warnings.warn(
+            f"{where}: the soluble amount exceeds the extracted at {_listed(clamped)}: set to 0 "
+            "(a correction never makes a cation negative); check the lab's figures and the "
+            "extract ratio, and whether the lab had already washed out the soluble salts",
+            DataWarning, stacklevel=3)
+    if missing:
+        warnings.warn(
+            f"{where}: no soluble value to subtract for {'; '.join(missing)}: those "
+            "exchangeable amounts are the lab's figures, not corrected for soluble salts",
+            DataWarning, stacklevel=3)
+    return record
 
 
 def _header_of(analyte: str, headers: Mapping[str, str]) -> str:

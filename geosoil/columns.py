@@ -63,6 +63,7 @@ __all__ = [
     "ColumnGuess",
     "parse_header",
     "detect_columns",
+    "extract_water_of_header",
 ]
 
 #: Buffer-pH analytes, one per buffer (a buffer pH means nothing without its buffer).
@@ -475,6 +476,29 @@ def _analyte_header(given: str, analyte: str, joined: str, methods: list[str],
 
 
 _RATIO = re.compile(r"(?<![\d.])1\s*:\s*(\d+(?:\.\d+)?)")
+_SAT_EXTRACT_WORDS = {"sat", "saturation", "paste", "se", "saturated"}
+
+
+def extract_water_of_header(header: str) -> float | str | None:
+    """The water of the extract a soluble-cation header names, L per kg of soil.
+
+    ``1:N`` (soil : water by mass) is N L/kg [derived: 1 kg of water is 1 L]; a
+    saturation extract ("sat", "saturation", "paste", "SE") has as much water as
+    the soil's saturation water content, which differs by sample, so it is
+    returned as ``"saturation"``; a header that names neither gives None.
+
+    Examples
+    --------
+    >>> extract_water_of_header("Na 1:5 (meq/L)"), extract_water_of_header("Soluble K (mg/L)")
+    (5.0, None)
+    >>> extract_water_of_header("Na sat. paste (mmol/L)")
+    'saturation'
+    """
+    m = _RATIO.search(header)
+    if m:
+        return float(m.group(1))
+    words = set(re.findall(r"[a-z]+", header.lower()))
+    return "saturation" if words & _SAT_EXTRACT_WORDS else None
 
 
 def _with_unit(

@@ -58,6 +58,8 @@ class Explanation:
     notes: list[str] = field(default_factory=list)
     ecec_parts: dict[str, float] = field(default_factory=dict)
     acidity_source: str = ""
+    #: how the soluble salts were taken off the nearest samples' cations (empty when not)
+    soluble: list[str] = field(default_factory=list)
 
 
 def parse_location(text: str) -> tuple[float, float]:
@@ -287,11 +289,45 @@ def explain_location(
             f"per-cell {prod} rate before spreader limits: {float(arr[row, col]):.1f} kg/ha"
         )
     return Explanation(
+        soluble=_soluble_lines(prep, pts.iloc[order]),
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
         zones=zones, notes=notes, ecec_parts=_ecec_parts(cell),
         acidity_source=_acidity_source(prep.read.columns),
     )
+
+
+_CATION_NAMES = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
+
+
+def _soluble_lines(prep: Prepared, nearest: Any) -> list[str]:
+    """The subtraction of soluble salts at the nearest samples ([chemistry] soluble_salts =
+    "subtract"), or what the setting left as it was."""
+    rec = prep.soluble_salts
+    cations = rec.get("cations") or {}
+    if rec.get("mode") != "subtract":
+        if rec.get("soluble_given"):
+            return ["the cations are the lab's extracted figures ([chemistry] soluble_salts = "
+                    "'warn'): soluble salts not subtracted"]
+        return []
+    if not cations:
+        return ["[chemistry] soluble_salts = 'subtract', but the file gives no soluble "
+                "cations: nothing subtracted"]
+    ratios = " / ".join(sorted({f"{v['water_l_per_kg']:g}" for v in cations.values()}))
+    out = [f"exchangeable = extracted - soluble; soluble = extract mmol(+)/L x {ratios} L/kg "
+           "/ 10; the kriged amounts (section 2) are the corrected samples'"]
+    for _, r in nearest.iterrows():
+        terms = []
+        for c in cations:
+            ex, sol, left = (r.get(f"{c}_extracted"), r.get(f"{c}_soluble"), r.get(c))
+            if _nan(ex) or _nan(sol) or _nan(left):
+                continue
+            terms.append(f"{_CATION_NAMES[c]} {float(ex):.4g} - {float(sol):.4g} = "
+                         f"{float(left):.4g}" + (" (below 0: set to 0)"
+                                                 if float(ex) - float(sol) < -1e-9 else ""))
+        if terms:
+            out.append(f"{r['sample_id']}: " + "; ".join(terms))
+    return out
 
 
 def _acidity_source(columns: dict[str, str]) -> str:
@@ -373,6 +409,9 @@ def format_explanation(e: Explanation) -> str:
                          if k not in ("sample_id", "distance_m", "source_row") and v is not None)
         out.append(f"   {s['sample_id']} ({s['distance_m']:.0f} m away, "
                    f"file row {s['source_row']}): {vals}")
+    if e.soluble:
+        out.append("   Soluble salts (cmol(+)/kg): " + e.soluble[0])
+        out.extend(f"      {line}" for line in e.soluble[1:])
     out.append("")
     out.append("2. Interpolated values at this cell")
     for var, (v, sd, method) in sorted(e.interpolated.items()):

@@ -46,7 +46,7 @@ import pandas as pd
 
 from . import presentation, webmap
 from . import report as report_mod
-from .chemistry import rule_ph
+from .chemistry import SOLUBLE_SOURCE, rule_ph
 from .gpkg import plain_style, write_gpkg, zone_styles
 from .grids import mosaic
 from .isoxml import (
@@ -765,9 +765,38 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
         "salinity": salinity_record(farm),
+        "soluble_salts": soluble_salts_record(farm),
         "layers": layers_record(farm),
         "cautions": list(report_mod.CAUTIONS) + gypsum_water_cautions(farm),
     }
+
+
+def soluble_salts_record(farm: FarmResult) -> dict[str, Any]:
+    """run.json's soluble_salts block: what ``[chemistry] soluble_salts`` did to the
+    exchangeable cations (mode, source, per cation the extract's water, the samples
+    corrected, set to 0 and left as extracted)."""
+    return dict(farm.prep.soluble_salts) or {
+        "mode": farm.prep.project.settings.chemistry.soluble_salts}
+
+
+def soluble_salts_text(farm: FarmResult) -> str:
+    """The report's line on soluble salts in the exchangeable cations."""
+    rec = soluble_salts_record(farm)
+    names = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
+    if rec.get("mode") != "subtract":
+        given = [names[c] for c in rec.get("soluble_given", [])]
+        return ("the lab's figures, not corrected ([chemistry] soluble_salts = 'warn'); "
+                + (f"the file gives soluble {', '.join(given)}: 'subtract' takes them off "
+                   "where the lab did not wash the salts out first" if given else
+                   "the file gives no soluble cations to subtract"))
+    cations = rec.get("cations") or {}
+    if not cations:
+        return "'subtract' set, but the file gives no soluble cations: nothing subtracted"
+    parts = [f"{names[c]} at {v['samples']} sample(s), {v['water_l_per_kg']:g} L/kg"
+             + (f", set to 0 at {len(v['clamped'])}" if v["clamped"] else "")
+             for c, v in cations.items()]
+    return "soluble amounts subtracted ([chemistry] soluble_salts = 'subtract'): " + \
+        "; ".join(parts)
 
 
 def layers_record(farm: FarmResult) -> dict[str, Any] | None:
@@ -1393,6 +1422,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         f"{s.spreader.max_per_pass:g} {s.spreader.unit} (0 = none), step "
         f"{s.spreader.rate_step:g} {s.spreader.unit}",
     }
+    assumptions["Soluble salts in exchangeable cations"] = soluble_salts_text(farm)
     assumptions.update(layer_assumptions(farm))
     for key, prod in prep.products.items():
         assumptions[f"Product '{key}'"] = product_text(prod)
@@ -1416,6 +1446,8 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         "and chosen by leave-one-out cross-validation (closed form, Dubrule 1983)",
     )
     chem = s.chemistry
+    if (prep.soluble_salts.get("cations")):
+        methods.setdefault("Soluble salts subtracted", SOLUBLE_SOURCE)
     methods.setdefault("Sodicity classes",
                        f"ESP >= {chem.sodic_esp_percent:g} % sodic, >= "
                        f"{chem.strongly_sodic_esp_percent:g} % strongly sodic "

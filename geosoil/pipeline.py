@@ -138,6 +138,9 @@ class Prepared:
     #: the sampled layers, shallowest first, when the samples are at several depths (the
     #: first one's samples are ``samples``); empty for samples of one depth
     layers: list[LayerSamples] = field(default_factory=list)
+    #: what ``[chemistry] soluble_salts`` did to the exchangeable cations (see
+    #: :func:`geosoil.chemistry.derive`, ``attrs["soluble_salts"]``)
+    soluble_salts: dict[str, Any] = field(default_factory=dict)
 
     @property
     def all_samples(self) -> gpd.GeoDataFrame:
@@ -362,7 +365,9 @@ def prepare(
         samples = derive(
             samples, s.chemistry, file=read.file, headers=read.columns,
             on_bad_row=s.samples.on_bad_row,
+            solution_headers=read.samples.attrs.get("solution_columns"),
         )
+        soluble_salts = dict(samples.attrs.get("soluble_salts") or {})
         samples = derive_salinity(samples, s.salinity)
         layers, samples = _split_layers(samples, project, read)
         _warn_unsampled_layers(layers, paddocks, project)
@@ -409,6 +414,7 @@ def prepare(
         products=products, rule_notes=list(rule_notes), warnings=sink, problems=problems,
         boundaries_crs=boundaries_crs,
         paddock_files=paddock_files, product_files=product_files, layers=layers,
+        soluble_salts=soluble_salts,
     )
 
 

@@ -43,8 +43,9 @@ Gypsum dissolving water
 Pretreatment for soluble salts
     Exchangeable Na is overstated where soluble salts were not washed out first.
     Where EC 1:5 is above 0.3 dS/m the lab should have pretreated (the threshold
-    from memory, as used in Australian laboratory methods); geosoil cannot
-    correct the figure itself and warns instead.
+    from memory, as used in Australian laboratory methods); geosoil warns,
+    naming the samples, unless their soluble cations were subtracted
+    (:func:`geosoil.chemistry.derive` with ``soluble_salts = "subtract"``).
 
 Examples
 --------
@@ -610,15 +611,27 @@ def derive_samples(table: pd.DataFrame, settings: SalinitySettings | None = None
             )
         high = needs_pretreatment(ec15, threshold_ds_m=s.pretreatment_ec_1_5_ds_m)
         out["pretreatment_needed"] = high
-        if high.any():
-            named = ", ".join(ids[i] for i in np.flatnonzero(high)[:10])
-            more = "" if high.sum() <= 10 else f" and {int(high.sum()) - 10} more"
+        # samples whose soluble cations were subtracted ([chemistry] soluble_salts =
+        # "subtract", chemistry.derive) are corrected, not in doubt
+        done = (out["soluble_subtracted"].to_numpy(dtype=bool)
+                if "soluble_subtracted" in out.columns else np.zeros(len(out), dtype=bool))
+        doubt = high & ~done
+        if doubt.any():
+            named = ", ".join(ids[i] for i in np.flatnonzero(doubt)[:10])
+            more = "" if doubt.sum() <= 10 else f" and {int(doubt.sum()) - 10} more"
+            has_na_sol = "na_sol" in out.columns and bool(
+                np.isfinite(_col(out, "na_sol")[doubt]).any())
+            how = ("the file gives their soluble cations of a water extract: if the lab did "
+                   "not wash the salts out, set [chemistry] soluble_salts = 'subtract' to take "
+                   "them off" if has_na_sol and not done.any() else
+                   "geosoil subtracts them where the file gives the soluble cations of a water "
+                   "extract and [chemistry] soluble_salts = 'subtract'; else ask the lab for "
+                   "the pretreated method")
             warnings.warn(
                 f"EC 1:5 above {s.pretreatment_ec_1_5_ds_m:g} dS/m at samples {named}{more}: "
                 "the lab should have washed out soluble salts before measuring exchangeable "
                 "cations; ask whether it did: if not, their exchangeable Na and ESP, and the "
-                "gypsum for them, are overstated (geosoil does not correct them: that needs "
-                "the soluble Na of the same soil; ask for the pretreated method)",
+                f"gypsum for them, are overstated ({how})",
                 DataWarning, stacklevel=2,
             )
     if has_ec15 or has_ece:

@@ -64,7 +64,7 @@ import pyproj
 import shapely
 from numpy.typing import NDArray
 
-from .chemistry import DERIVED
+from .chemistry import DERIVED, SOLUBLE_DERIVED
 from .columns import (
     BUFFER_PH,
     CANONICAL,
@@ -157,9 +157,9 @@ _SOLUTION_UNIT_TEXT = re.compile(
 _SOLUTION_WORDS = {"soluble", "sol", "solution", "water", "extract", "sat", "saturation",
                    "paste", "se", "in", "h", "o"}
 
-_RESERVED = set(CANONICAL) | set(DERIVED) | {"sample_id", "source_row", "paddock", "geometry",
-                                             "layer", *DEPTH_COLUMNS, *SOLUTION_COLUMNS.values(),
-                                             "cross"}
+_RESERVED = set(CANONICAL) | set(DERIVED) | set(SOLUBLE_DERIVED) | {
+    "sample_id", "source_row", "paddock", "geometry", "layer", *DEPTH_COLUMNS,
+    *SOLUTION_COLUMNS.values(), "cross"}
 
 
 @dataclasses.dataclass(frozen=True)
