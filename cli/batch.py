@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors
+from .options import echo, echo_err, handle_errors, verbosity_options
 from .summary import print_cautions
 
 __all__ = ["batch"]
@@ -72,6 +72,7 @@ def _table(outcomes: list, products: list[str]) -> str:  # type: ignore[type-arg
               "other files are left as they are).")
 @click.option("--no-cache", is_flag=True,
               help="Run every farm again (even unchanged ones) and interpolate again.")
+@verbosity_options
 @click.pass_context
 @handle_errors
 def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: str | None,

@@ -7,13 +7,14 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors, project_argument
+from .options import echo, echo_err, handle_errors, project_argument, verbosity_options
 
 __all__ = ["check"]
 
 
 @click.command()
 @project_argument
+@verbosity_options
 @click.pass_context
 @handle_errors
 def check(ctx: click.Context, project: Path) -> None:

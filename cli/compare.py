@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo, handle_errors, out_option, overwrite_option
+from .options import echo, handle_errors, out_option, overwrite_option, verbosity_options
 from .summary import print_cautions, print_warnings
 
 __all__ = ["compare"]
@@ -31,6 +31,7 @@ __all__ = ["compare"]
                    "sampled again; where most of a paddock's samples are, the per-site "
                    "differences are kriged directly (paired sites). 0: never.")
 @overwrite_option
+@verbosity_options
 @click.pass_context
 @handle_errors
 def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion: str | None,

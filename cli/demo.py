@@ -7,7 +7,14 @@ from pathlib import Path
 
 import click
 
-from .options import Progress, echo_err, handle_errors, out_option, overwrite_option
+from .options import (
+    Progress,
+    echo_err,
+    handle_errors,
+    out_option,
+    overwrite_option,
+    verbosity_options,
+)
 from .summary import print_summary
 
 __all__ = ["demo", "demo_project_file"]
@@ -22,6 +29,7 @@ def demo_project_file() -> Path:
 @out_option
 @overwrite_option
 @click.option("--no-cache", is_flag=True, help="Interpolate again even when inputs are unchanged.")
+@verbosity_options
 @click.pass_context
 @handle_errors
 def demo(ctx: click.Context, out: Path, overwrite: bool, no_cache: bool) -> None:

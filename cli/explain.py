@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .options import Progress, echo, handle_errors, project_argument
+from .options import Progress, echo, handle_errors, project_argument, verbosity_options
 
 __all__ = ["explain"]
 
@@ -39,6 +39,7 @@ def _location(ctx: click.Context, param: click.Parameter, value: str) -> tuple[f
     show_default=True,
     help="How to read --at: auto takes numbers within degree ranges as lon/lat.",
 )
+@verbosity_options
 @click.pass_context
 @handle_errors
 def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: str) -> None:

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors
+from .options import echo, echo_err, handle_errors, verbosity_options
 
 __all__ = ["new"]
 
@@ -52,6 +52,7 @@ def _check_crs(value: str | None) -> str | None:
     "--overwrite", is_flag=True,
     help="Replace FOLDER/geosoil.toml if it exists (the old file is not kept).",
 )
+@verbosity_options
 @click.pass_context
 @handle_errors
 def new(

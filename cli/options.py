@@ -19,6 +19,7 @@ __all__ = [
     "project_argument",
     "out_option",
     "overwrite_option",
+    "verbosity_options",
     "handle_errors",
     "Progress",
     "echo_err",
@@ -45,6 +46,31 @@ overwrite_option = click.option(
     "--overwrite", is_flag=True,
     help="Replace an existing output folder (one geosoil wrote) whole with this run's.",
 )
+
+
+def _verbosity(ctx: click.Context, param: click.Parameter, value: Any) -> None:
+    """Merge a command's -v/-q with the group's (either place counts: ``geosoil -q run`` and
+    ``geosoil run -q`` are the same) and route the log at the level they ask for."""
+    obj = ctx.ensure_object(dict)
+    obj.setdefault("quiet", False)
+    obj.setdefault("verbose", 0)
+    if param.name == "quiet":
+        obj["quiet"] = bool(obj["quiet"] or value)
+    else:
+        obj["verbose"] = int(obj["verbose"]) + int(value or 0)
+    set_verbosity(obj["verbose"], obj["quiet"])
+
+
+def verbosity_options(func: F) -> F:
+    """``-v``/``--verbose`` and ``-q``/``--quiet`` on a command, as on the group: a command
+    reads the merged values from ``ctx.obj["verbose"]`` and ``ctx.obj["quiet"]``."""
+    func = click.option("-q", "--quiet", "quiet", is_flag=True, expose_value=False,
+                        callback=_verbosity,
+                        help="Only errors on stderr; results still on stdout.")(func)
+    func = click.option("-v", "--verbose", "verbose", count=True, expose_value=False,
+                        callback=_verbosity,
+                        help="More messages on stderr (-vv for debugging).")(func)
+    return func
 
 
 # control characters (C0 but newline and tab, DEL, C1) and the bidirectional overrides that

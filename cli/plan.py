@@ -6,7 +6,14 @@ from pathlib import Path
 
 import click
 
-from .options import echo, handle_errors, out_option, overwrite_option, project_argument
+from .options import (
+    echo,
+    handle_errors,
+    out_option,
+    overwrite_option,
+    project_argument,
+    verbosity_options,
+)
 from .summary import print_cautions, print_warnings
 
 __all__ = ["plan"]
@@ -40,6 +47,7 @@ __all__ = ["plan"]
               help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k) "
                    "[default: the first of them kriged in the paddock].")
 @overwrite_option
+@verbosity_options
 @click.pass_context
 @handle_errors
 def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float | None,

@@ -6,7 +6,14 @@ from pathlib import Path
 
 import click
 
-from .options import Progress, handle_errors, out_option, overwrite_option, project_argument
+from .options import (
+    Progress,
+    handle_errors,
+    out_option,
+    overwrite_option,
+    project_argument,
+    verbosity_options,
+)
 from .summary import print_summary
 
 __all__ = ["run"]
@@ -17,6 +24,7 @@ __all__ = ["run"]
 @out_option
 @overwrite_option
 @click.option("--no-cache", is_flag=True, help="Interpolate again even when inputs are unchanged.")
+@verbosity_options
 @click.pass_context
 @handle_errors
 def run(ctx: click.Context, project: Path, out: Path, overwrite: bool, no_cache: bool) -> None:
