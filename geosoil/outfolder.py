@@ -5,7 +5,9 @@ A run never writes into the output folder itself. :func:`output_folder`
 1. checks the target (never an input folder, never a file, a non-empty folder only
    with ``overwrite`` and only when it holds nothing but what geosoil wrote there);
 2. takes a lock beside it (``.<name>.geosoil-lock``), so a second run into the same
-   folder stops at once with a message, instead of mixing its files in;
+   folder stops at once with a message, instead of mixing its files in (the run removes
+   the lock file when it ends, however it ends; a refused run never touches another
+   run's lock);
 3. sweeps what a killed run left beside it (temporary folders; an old folder moved
    aside but not yet deleted is put back);
 4. makes a new temporary folder beside the target (``.<name>.geosoil-new-<random>``),
@@ -15,10 +17,11 @@ A run never writes into the output folder itself. :func:`output_folder`
    deleted. So the output folder is always a whole run's: the old one until the
    new one is complete, then the new one, with nothing stale left in it.
 
-A run that fails (or is interrupted) deletes its temporary folder and leaves the old
-output folder as it was; a run that is killed leaves its temporary folder for the
-next run into the same place to sweep. Disk-full, permission and read-only errors
-become :class:`~geosoil.errors.OutputWriteError` naming the file and the fix.
+A run that fails (or is interrupted) deletes its temporary folder, its lock file and the
+parent folders it made for the output, and leaves the old output folder as it was; a run
+that is killed leaves its temporary folder for the next run into the same place to sweep.
+Disk-full, permission and read-only errors become
+:class:`~geosoil.errors.OutputWriteError` naming the file and the fix.
 """
 
 from __future__ import annotations
@@ -237,17 +240,21 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
 
     final = check_target(path, overwrite=overwrite, inputs=inputs)
     lock_name, new_prefix, old_prefix = sibling_names(final)
+    made = [p for p in (final.parent, *final.parent.parents) if not p.exists()]
+    lock_path = final.parent / lock_name
     try:
         final.parent.mkdir(parents=True, exist_ok=True)
-        lock = filelock.FileLock(str(final.parent / lock_name), timeout=0)
+        lock = filelock.FileLock(str(lock_path), timeout=0)
         lock.acquire()
     except filelock.Timeout:
         raise OutputBusyError(
             f"another geosoil run is writing {final} now (it holds "
-            f"{final.parent / lock_name}); wait for it to finish, or choose another --out"
-        ) from None
+            f"{lock_path}); wait for it to finish, or choose another --out"
+        ) from None  # the lock is the other run's: left as it is
     except OSError as exc:
+        _remove_empty(made)
         raise _write_error(exc, final=final, temp=final) from None
+    completed = False
     try:
         staging = Staging(final=final, temp=final)
         _sweep(final, staging.notes)
@@ -264,6 +271,7 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
         try:
             yield staging
             _swap(temp, final, old_prefix)
+            completed = True
         except OSError as exc:
             shutil.rmtree(temp, ignore_errors=True)
             raise _write_error(exc, final=final, temp=temp) from exc
@@ -271,7 +279,26 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
             shutil.rmtree(temp, ignore_errors=True)
             raise
     finally:
-        lock.release()
+        _release(lock, lock_path)
+        if not completed:
+            _remove_empty(made)
+
+
+def _release(lock: object, lock_path: Path) -> None:
+    """Remove the lock file while holding it, then release it: nothing of the run is left
+    beside the output folder. A run that opened the file just before and locks it just after
+    finds it unlinked (filelock checks the link count) and tries afresh on the path."""
+    with contextlib.suppress(OSError):  # Windows cannot remove an open file; it stays
+        lock_path.unlink()
+    lock.release()  # type: ignore[attr-defined]
+
+
+def _remove_empty(folders: Sequence[Path]) -> None:
+    """Remove the folders a refused or failed run made for its output (deepest first), each
+    only while it is empty: another program may have written into one meanwhile."""
+    for folder in folders:
+        with contextlib.suppress(OSError):
+            folder.rmdir()
 
 
 def _swap(temp: Path, final: Path, old_prefix: str) -> None:

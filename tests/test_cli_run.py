@@ -129,9 +129,9 @@ def test_overwrite_replaces_the_folder_whole_so_nothing_stale_survives(runs) -> 
     record = json.loads((out2 / "run.json").read_text())
     files = {p.relative_to(out2).as_posix() for p in out2.rglob("*") if p.is_file()}
     assert set(record["files"]) == files
-    # nothing left beside it but the lock file
+    # nothing left beside it, not even the lock file
     beside = {p.name for p in runs["root"].iterdir() if p.name.startswith(".out2.")}
-    assert beside <= {".out2.geosoil-lock"}
+    assert beside == set()
 
 
 def test_overwrite_refuses_a_folder_holding_files_geosoil_did_not_write(runs) -> None:  # noqa: ANN001

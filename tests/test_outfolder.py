@@ -63,7 +63,7 @@ def test_a_complete_run_replaces_the_old_folder_whole(tmp_path: Path) -> None:
         (staging.temp / "a.csv").write_text("new")
         (staging.temp / "run.json").write_text(json.dumps({"files": ["a.csv", "run.json"]}))
     assert tree(out) == {"a.csv": b"new", "run.json": b'{"files": ["a.csv", "run.json"]}'}
-    assert beside(out) == [sibling_names(out)[0]]  # only the lock file
+    assert beside(out) == []  # not even the lock file
 
 
 def test_a_failed_run_leaves_the_old_folder_and_no_temporary_folder(tmp_path: Path) -> None:
@@ -74,7 +74,7 @@ def test_a_failed_run_leaves_the_old_folder_and_no_temporary_folder(tmp_path: Pa
         (staging.temp / "a.csv").write_text("half")
         raise RuntimeError("model failed")
     assert tree(out) == before
-    assert beside(out) == [sibling_names(out)[0]]
+    assert beside(out) == []
 
 
 @pytest.mark.parametrize("err, words", [
@@ -92,19 +92,51 @@ def test_a_write_error_names_the_file_and_the_fix(tmp_path: Path, err: int, word
     assert str(out / "prescriptions" / "x.geojson") in text  # named where it was to be
     assert all(w in text for w in words), text
     assert f"{out} was left as it was" in text
-    assert tree(out) == before and beside(out) == [sibling_names(out)[0]]
+    assert tree(out) == before and beside(out) == []
 
 
 def test_a_second_run_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
     out = tmp_path / "out"
     lock = filelock.FileLock(str(tmp_path / sibling_names(out)[0]), timeout=0)
-    with lock, pytest.raises(OutputBusyError, match="another geosoil run is writing"), \
-            output_folder(out, overwrite=False, inputs=[]):
-        pass
+    with lock:
+        with pytest.raises(OutputBusyError, match="another geosoil run is writing"), \
+                output_folder(out, overwrite=False, inputs=[]):
+            pass
+        assert beside(out) == [sibling_names(out)[0]]  # the other run's lock is left alone
     assert not out.exists()
     with output_folder(out, overwrite=False, inputs=[]) as staging:  # free again
         (staging.temp / "x").write_text("1")
     assert tree(out) == {"x": b"1"}
+
+
+def test_a_refused_or_failed_run_leaves_nothing_it_made(tmp_path: Path) -> None:
+    """Issue: a refused run left its hidden lock file beside the output folder. Refused
+    before locking (not empty), refused under the lock, failed while computing: nothing of
+    geosoil's is left, not even the parent folders it made for the output."""
+    out = tmp_path / "full"
+    out.mkdir()
+    (out / "mine.txt").write_text("the user's")
+    with pytest.raises(OutputExistsError, match="not empty"), \
+            output_folder(out, overwrite=False, inputs=[]):
+        pass
+    assert beside(out) == [] and tree(out) == {"mine.txt": b"the user's"}
+    with pytest.raises(OutputExistsError, match="not a geosoil output folder"), \
+            output_folder(out, overwrite=True, inputs=[]):
+        pass
+    assert beside(out) == [] and tree(out) == {"mine.txt": b"the user's"}
+    deep = tmp_path / "season" / "2027" / "out"
+    with pytest.raises(ValueError, match="samples outside"), \
+            output_folder(deep, overwrite=False, inputs=[]) as staging:
+        assert staging.temp.parent == deep.parent
+        assert (deep.parent / sibling_names(deep)[0]).exists()
+        raise ValueError("samples outside every paddock")  # an input error found while computing
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["full"]
+    # a folder it made that someone else wrote into meanwhile stays, with what they wrote
+    with pytest.raises(ValueError), output_folder(deep, overwrite=False, inputs=[]):
+        (tmp_path / "season" / "notes.txt").write_text("kept")
+        raise ValueError("stop")
+    assert tree(tmp_path / "season") == {"notes.txt": b"kept"}
+    assert not (tmp_path / "season" / "2027").exists()
 
 
 def test_what_a_killed_run_left_is_swept_and_an_old_folder_put_back(tmp_path: Path) -> None:
@@ -119,7 +151,7 @@ def test_what_a_killed_run_left_is_swept_and_an_old_folder_put_back(tmp_path: Pa
         assert tree(out)["a.csv"] == b"previous"  # the previous folder is whole again
         (staging.temp / "run.json").write_text(json.dumps({"files": ["run.json"]}))
     assert set(tree(out)) == {"run.json"}
-    assert beside(out) == [sibling_names(out)[0]]
+    assert beside(out) == []
 
 
 def test_a_long_folder_name_gets_short_sibling_names(tmp_path: Path) -> None:

@@ -120,7 +120,7 @@ def test_a_run_killed_while_writing_leaves_the_old_folder_whole(farm, previous, 
     assert tree(out) == before  # the user keeps the previous run, whole
     # the next run sweeps what the killed one left and replaces the folder whole
     result = run(load_project(farm), out_dir=out, overwrite=True)
-    assert beside(out) == {sibling_names(out)[0]}
+    assert beside(out) == set()  # not even the lock file
     record = json.loads((out / "run.json").read_text(encoding="utf-8"))
     assert set(record["files"]) == set(tree(out))
     assert result.out_dir == out.resolve()
@@ -144,7 +144,7 @@ def test_a_second_run_into_a_folder_being_written_is_refused(farm, previous, tmp
     assert proc.returncode == 0, stderr[-3000:]
     record = json.loads((out / "run.json").read_text(encoding="utf-8"))
     assert set(record["files"]) == set(tree(out))  # one run's files, whole
-    assert beside(out) == {sibling_names(out)[0]}
+    assert beside(out) == set()  # not even the lock file
 
 
 # --------------------------------------------------------------------------- a full disk
@@ -171,7 +171,7 @@ def test_an_injected_full_disk_names_the_file_and_keeps_the_old_folder(
     assert "is full" in r.stderr and "another disk" in r.stderr
     assert f"{out} was left as it was" in r.stderr
     assert tree(out) == before
-    assert beside(out) == {sibling_names(out)[0]}
+    assert beside(out) == set()  # not even the lock file
 
 
 def _mount_small_disk(where: Path, size_kb: int) -> bool:
@@ -201,7 +201,7 @@ def test_a_real_full_disk_names_a_file_and_keeps_the_old_folder(farm, tmp_path) 
         assert "Traceback" not in r.stderr
         assert "could not write " + str(out) in r.stderr and "is full" in r.stderr
         assert tree(out) == before
-        assert beside(out) == {sibling_names(out)[0]}
+        assert beside(out) == set()  # not even the lock file
     finally:
         subprocess.run(["umount", str(disk)], check=False)
 
@@ -345,7 +345,7 @@ def test_a_farm_across_the_antimeridian_is_refused_by_check(tmp_path: Path) -> N
     assert r.exit_code == 1 and "Traceback" not in r.stderr
     assert "straddle the antimeridian" in r.stderr and "split the project in two" in r.stderr
     assert "surfaces" not in r.stderr  # no stage after reading was reached
-    assert not out.exists() and beside(out) <= {sibling_names(out)[0]}
+    assert not out.exists() and beside(out) == set()
 
 
 def test_above_the_global_kriging_ceiling_the_local_neighbourhood_is_used_and_said(
@@ -400,8 +400,8 @@ def test_overlapping_paddocks_are_refused_by_check_and_run_writes_nothing(tmp_pa
     out = tmp_path / "out"
     r = CliRunner().invoke(cli, ["run", str(folder), "--out", str(out)])
     assert r.exit_code == 1 and "share 3.00 ha" in r.stderr
-    # no output folder, no temporary one: the lock file alone, as after any refused run
-    assert not out.exists() and beside(out) <= {sibling_names(out)[0]}
+    # no output folder, no temporary one, no lock file: nothing, as after any refused run
+    assert not out.exists() and beside(out) == set()
 
 
 def test_with_overlaps_first_the_farm_totals_are_the_union_s(tmp_path: Path) -> None:
