@@ -53,12 +53,14 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     echo(f"Change between seasons (this - last; beyond its error: |change| > {z:g} x sd)")
     if rec["ph"]:
         echo(f"  {rec['ph']}")
-    echo(f"{'paddock':<20} {'variable':<22} {'method':<12} {'last':>8} {'this':>8} "
+    # as wide as the longest variable ("Ca saturation, 10-30 cm"), at least 22
+    width = max([22, *(len(r["label"]) for r in rec["paddocks"])])
+    echo(f"{'paddock':<20} {'variable':<{width}} {'method':<12} {'last':>8} {'this':>8} "
          f"{'change':>8} {'fell %':>7} {'rose %':>7} {'no chg %':>8} {'not judged %':>12}")
     for r in rec["paddocks"]:
         def f(v: float | None, sign: str = "") -> str:
             return "–" if v is None else f"{v:{sign}.2f}"
-        echo(f"{r['paddock'][:20]:<20} {r['label'][:22]:<22} {r['method']:<12} "
+        echo(f"{r['paddock'][:20]:<20} {r['label']:<{width}} {r['method']:<12} "
              f"{f(r['last_mean']):>8} "
              f"{f(r['this_mean']):>8} {f(r['change_mean'], '+'):>8} {r['fell_pct']:>7.1f} "
              f"{r['rose_pct']:>7.1f} {r['no_change_beyond_error_pct']:>8.1f} "

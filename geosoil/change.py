@@ -442,7 +442,8 @@ def zone_change_table(
         <v>_change_mean, <v>_rose_pct, <v>_fell_pct, <v>_no_change_pct,
         <v>_method`` (a key of :data:`METHODS`: how the paddock's change was made).
     """
-    variables = [v for v in CHANGE_VARIABLES if any(k[1] == v for k in changes)]
+    # in the order the changes come (each layer's, shallowest first, in CHANGE_VARIABLES order)
+    variables = list(dict.fromkeys(k[1] for k in changes))
     rows: list[dict[str, object]] = []
     zn = zones
     if zn is not None and len(zn) and "kind" in zn.columns:

@@ -10,6 +10,8 @@ The folder holds ``change/<paddock>/<variable>_change.tif``,
 ``<variable>_change_sd.tif`` and ``<variable>_change_class.tif`` (codes of
 :data:`geosoil.change.CLASS_CODES`), ``change_by_zone.csv``, ``map.html``,
 ``report.html`` and ``run.json``. The method is :mod:`geosoil.change`.
+With samples at several depths every depth range both seasons sampled is compared
+on its own, a deeper layer's names carrying its suffix (``esp_10-30cm_change.tif``).
 """
 
 from __future__ import annotations
@@ -90,7 +92,7 @@ class Season:
     label: str
     source: Path
     kind: str  # "project" or "output folder"
-    #: the sampled layer compared (the top one), when the samples are at several depths
+    #: the top sampled layer (its label), when the samples are at several depths
     layer: str | None
     crs: pyproj.CRS
     paddocks: gpd.GeoDataFrame
@@ -101,6 +103,13 @@ class Season:
     farm: str | None
     files: list[Path]
     warnings: list[str] = field(default_factory=list)
+    #: every sampled layer's samples, shallowest first; ``[(None, samples)]`` for samples of
+    #: one depth (their depth not recorded); empty: ``samples`` as the one layer
+    layers: list[tuple[Layer | None, gpd.GeoDataFrame]] = field(default_factory=list)
+
+    def sampled_layers(self) -> list[tuple[Layer | None, gpd.GeoDataFrame]]:
+        """The sampled layers (``[(None, samples)]`` for samples of one depth)."""
+        return self.layers or [(None, self.samples)]
 
     @property
     def name(self) -> str:
@@ -160,14 +169,18 @@ def _read_output_folder(folder: Path, label: str) -> Season:
         if col in table.columns:
             table[col] = table[col].map(_uninert)
     layer = None
+    layered: list[tuple[Layer | None, gpd.GeoDataFrame]] = []
     if all(c in table.columns for c in DEPTH_COLUMNS):
         depths = table[list(DEPTH_COLUMNS)].apply(pd.to_numeric, errors="coerce")
         pairs = sorted({(float(a), float(b)) for a, b in depths.dropna().to_numpy()})
-        if len(pairs) > 1:  # the run's top layer, as a project's prepared samples hold it
-            top = Layer(*pairs[0])
-            layer = top.label
-            table = table[(depths[DEPTH_COLUMNS[0]] == top.top_cm)
-                          & (depths[DEPTH_COLUMNS[1]] == top.bottom_cm)].reset_index(drop=True)
+        if len(pairs) > 1:  # each layer's samples, as a project's prepared layers hold them
+            for top_cm, bottom_cm in pairs:
+                part = table[(depths[DEPTH_COLUMNS[0]] == top_cm)
+                             & (depths[DEPTH_COLUMNS[1]] == bottom_cm)].reset_index(drop=True)
+                layered.append((Layer(top_cm, bottom_cm), gpd.GeoDataFrame(
+                    part, geometry=gpd.points_from_xy(part["x"], part["y"]), crs=crs)))
+            layer = layered[0][0].label  # type: ignore[union-attr]
+            table = layered[0][1]
     samples = gpd.GeoDataFrame(table, geometry=gpd.points_from_xy(table["x"], table["y"]),
                                crs=crs)
     import pyogrio
@@ -198,7 +211,8 @@ def _read_output_folder(folder: Path, label: str) -> Season:
         excl = shapely.union_all(exclusions.geometry.to_numpy())
     grids = aligned_grids(paddocks, cell_size_m=cell, exclusions=excl)
     return Season(label, folder, "output folder", layer, crs, paddocks, samples, grids, zones,
-                  interp, settings.get("farm"), [run_json, samples_csv, gpkg], notes)
+                  interp, settings.get("farm"), [run_json, samples_csv, gpkg], notes,
+                  layered)
 
 
 def _read_project(path: Path, label: str) -> Season:
@@ -215,7 +229,7 @@ def _read_project(path: Path, label: str) -> Season:
     return Season(label, source, "project", layer, prep.crs,
                   prep.paddocks[["paddock", "geometry"]], prep.samples, dict(prep.grids), None,
                   project.settings.interpolation, project.settings.farm, files,
-                  list(prep.warnings))
+                  list(prep.warnings), [(ls.layer, ls.samples) for ls in prep.layers])
 
 
 def read_season(path: str | Path, *, label: str) -> Season:
@@ -285,18 +299,68 @@ def _values(samples: gpd.GeoDataFrame, col: str) -> bool:
                                            .notna().any())
 
 
-def _change_frame(season: Season, ph_col: str, conversion: PhConversion | None,
-                  converted: bool) -> gpd.GeoDataFrame:
-    keep: dict[str, Any] = {"paddock": season.samples["paddock"].astype(str).to_numpy()}
+def _change_frame(season: Season, samples: gpd.GeoDataFrame, ph_col: str,
+                  conversion: PhConversion | None, converted: bool) -> gpd.GeoDataFrame:
+    keep: dict[str, Any] = {"paddock": samples["paddock"].astype(str).to_numpy()}
     for v in CHANGE_VARIABLES:
         col = ph_col if v == "ph" else v
-        if col and _values(season.samples, col):
-            vals = pd.to_numeric(season.samples[col], errors="coerce").to_numpy(float)
+        if col and _values(samples, col):
+            vals = pd.to_numeric(samples[col], errors="coerce").to_numpy(float)
             if v == "ph" and converted and conversion is not None:
                 vals = np.asarray(conversion.apply(vals), dtype=float)
             keep[v] = vals
-    return gpd.GeoDataFrame(keep, geometry=season.samples.geometry.to_numpy(),
-                            crs=season.crs)
+    return gpd.GeoDataFrame(keep, geometry=samples.geometry.to_numpy(), crs=season.crs)
+
+
+@dataclass(frozen=True)
+class _LayerPair:
+    """One sampled layer both seasons have (``layer`` None: samples of one depth), the
+    suffix its variables carry (none for the top layer of both) and each season's samples."""
+
+    layer: Layer | None
+    suffix: str
+    last: gpd.GeoDataFrame
+    this: gpd.GeoDataFrame
+
+    @property
+    def label(self) -> str | None:
+        return None if self.layer is None else self.layer.label
+
+
+def _layer_pairs(last: Season, this: Season, notes: list[str]) -> list[_LayerPair]:
+    """The layers compared: every depth range both seasons sampled (a season of one depth,
+    its depth not recorded, is compared with the other's top layer); the layers only one
+    season has are named in ``notes``."""
+    a, b = last.sampled_layers(), this.sampled_layers()
+    if a[0][0] is None or b[0][0] is None:
+        for (layer, _), season, other in ((a[0], last, this), (b[0], this, last)):
+            if layer is None:
+                continue
+            deeper = [lay.label for lay, _ in (a if season is last else b)[1:]
+                      if lay is not None]
+            notes.append(
+                f"{season.name}: samples at several depths, {other.name}'s of one depth (not "
+                f"recorded): the top layer ({layer.label}) is compared with them"
+                + (f"; the deeper ones ({', '.join(deeper)}) are not" if deeper else ""))
+        # one season's depth is not known: as before, no layer named on the variables
+        return [_LayerPair(None, "", a[0][1], b[0][1])]
+    la = [(lay, smp) for lay, smp in a if lay is not None]
+    lb = {lay: smp for lay, smp in b if lay is not None}
+    common = [(lay, smp) for lay, smp in la if lay in lb]
+    only = [f"{lay.label} ({season.label} only)"
+            for season, mine, theirs in ((last, [x for x, _ in la], set(lb)),
+                                         (this, list(lb), {x for x, _ in la}))
+            for lay in mine if lay not in theirs]
+    if not common:
+        raise SeasonMismatchError(
+            f"the seasons sampled no depth in common ({last.name}: "
+            f"{', '.join(lay.label for lay, _ in la)}; {this.name}: "
+            f"{', '.join(lay.label for lay in lb)}): compare seasons sampled at the same depths")
+    if only:
+        notes.append("layers sampled in one season only are not compared: " + ", ".join(only))
+    top = la[0][0] if la[0][0] == min(lb) else None
+    return [_LayerPair(lay, "" if lay == top else lay.suffix, smp, lb[lay])
+            for lay, smp in common]
 
 
 def _krige_season(season: Season, frame: gpd.GeoDataFrame, grids: dict[str, PaddockGrid],
@@ -418,6 +482,63 @@ def _changes(grids: dict[str, PaddockGrid], variables: list[str],
     return changes
 
 
+_Job = tuple[_LayerPair, gpd.GeoDataFrame, gpd.GeoDataFrame, list[str]]
+
+
+def _layer_jobs(pairs: list[_LayerPair], seasons: tuple[Season, Season],
+                ph_cols: tuple[str, str], converted: str | None,
+                conversion: PhConversion | None, *, compare_ph: bool,
+                notes: list[str]) -> list[_Job]:
+    """Each compared layer's sample values of both seasons and the variables both have
+    there (a variable one season lacks at a layer named in ``notes``)."""
+    last, this = seasons
+    jobs: list[_Job] = []
+    for pair in pairs:
+        frame_l = _change_frame(last, pair.last, ph_cols[0], conversion, converted == "last")
+        frame_t = _change_frame(this, pair.this, ph_cols[1], conversion, converted == "this")
+        found = [v for v in CHANGE_VARIABLES if v in frame_l.columns and v in frame_t.columns]
+        for v in CHANGE_VARIABLES:
+            if (v == "ph" and not compare_ph) or v in found:
+                continue
+            missing = [s.name for s, f in ((last, frame_l), (this, frame_t))
+                       if v not in f.columns]
+            at = f" at {pair.label}" if pair.label else ""
+            notes.append(f"{CHANGE_VARIABLES[v][0]}: no values{at} in "
+                         f"{' and '.join(missing)}, so its change is not mapped")
+        if found:
+            jobs.append((pair, frame_l, frame_t, found))
+    return jobs
+
+
+def _compare_layer(
+    seasons: tuple[Season, Season], frames: tuple[gpd.GeoDataFrame, gpd.GeoDataFrame],
+    grids: dict[str, PaddockGrid], variables: list[str], settings: InterpolationSettings, *,
+    labels: dict[str, tuple[str, str]], z: float, paired_within: float, notes: list[str],
+    layer: str | None,
+) -> tuple[dict[tuple[str, str], ChangeSurface], tuple[dict[tuple[str, str], Surface], ...],
+           dict[str, SitePairing]]:
+    """One sampled layer's change (variables without the layer's suffix): each season's
+    samples kriged, the sites paired, the paired paddocks' differences kriged."""
+    last, this = seasons
+    frame_l, frame_t = frames
+    said: list[str] = []
+    surf_l = _krige_season(last, frame_l, grids, variables, settings, said)
+    surf_t = _krige_season(this, frame_t, grids, variables, settings, said)
+    pairings = _pairings(frame_l, frame_t, grids, paired_within, said)
+    diffs = _difference_frame(frame_l, frame_t, pairings, variables)
+    paired_grids = {n: g for n, g in grids.items() if pairings[n].paired}
+    surf_d: dict[tuple[str, str], Surface] = {}
+    if paired_grids:
+        surf_d = _krige_season(
+            dataclasses.replace(this, label="paired differences"), diffs, paired_grids,
+            [f"{v}_change" for v in variables], settings, said)
+    changes = _changes(grids, variables, (surf_l, surf_t, surf_d), set(paired_grids),
+                       z=z, notes=said, labels=labels, least=settings.min_samples_kriging)
+    # each note names its layer once (a change's note names it in the variable's label)
+    notes.extend(f"{layer}: {n}" if layer and layer not in n else n for n in said)
+    return changes, (surf_l, surf_t, surf_d), pairings
+
+
 # --------------------------------------------------------------------------- the call
 
 
@@ -476,56 +597,51 @@ def run_compare(
     check_same_farm(last, this)
     notes: list[str] = [*(f"last season: {w}" for w in last.warnings),
                         *(f"this season: {w}" for w in this.warnings)]
-    for s in (last, this):
-        if s.layer is not None:
-            notes.append(f"{s.name}: samples at several depths; the top layer ({s.layer}) is "
-                         "compared, the deeper ones are not")
-    if last.layer != this.layer and last.layer is not None and this.layer is not None:
-        notes.append(f"the top layers differ ({last.layer} last season, {this.layer} this "
-                     "season): the change mixes a change of depth with a change of soil")
-    ph_l = [c for c in PH_METHODS if _values(last.samples, c)]
-    ph_t = [c for c in PH_METHODS if _values(this.samples, c)]
+    pairs = _layer_pairs(last, this, notes)
+    ph_l = [c for c in PH_METHODS if any(_values(p.last, c) for p in pairs)]
+    ph_t = [c for c in PH_METHODS if any(_values(p.this, c) for p in pairs)]
     col_l = col_t = ""
     converted = None
     if compare_ph:
         col_l, col_t, converted = choose_ph(ph_l, ph_t, conversion=ph_conversion,
                                             last_name=last.name, this_name=this.name)
-    frame_l = _change_frame(last, col_l, ph_conversion, converted == "last")
-    frame_t = _change_frame(this, col_t, ph_conversion, converted == "this")
-    variables = [v for v in CHANGE_VARIABLES if v in frame_l.columns and v in frame_t.columns]
-    for v in CHANGE_VARIABLES:
-        if v == "ph" and not compare_ph:
-            continue
-        if v not in variables:
-            missing = [s.name for s, f in ((last, frame_l), (this, frame_t))
-                       if v not in f.columns]
-            notes.append(f"{CHANGE_VARIABLES[v][0]}: no values in {' and '.join(missing)}, so "
-                         "its change is not mapped")
-    if not variables:
+    base_labels = dict(CHANGE_VARIABLES)
+    if col_t:
+        base_labels["ph"] = (f"pH ({PH_METHODS[col_l if converted == 'this' else col_t]})", "")
+    jobs = _layer_jobs(pairs, (last, this), (col_l, col_t), converted, ph_conversion,
+                       compare_ph=compare_ph, notes=notes)
+    if not jobs:
         raise SeasonMismatchError(
             f"{last.name} and {this.name} share none of ESP, pH, Ca saturation and acidity: "
             "nothing to compare")
-    labels = dict(CHANGE_VARIABLES)
-    if col_t:
-        labels["ph"] = (f"pH ({PH_METHODS[col_l if converted == 'this' else col_t]})", "")
+    labels: dict[str, tuple[str, str]] = {}
+    variables: list[str] = []
+    for pair, _, _, found in jobs:
+        for v in found:
+            variables.append(v + pair.suffix)
+            labels[v + pair.suffix] = (
+                base_labels[v][0] + (f", {pair.label}" if pair.label else ""), base_labels[v][1])
     settings = dataclasses.replace(this.interpolation, log_transform=(), fixed={})
     grids = this.grids
     inputs = [*last.files, *this.files]
     with output_folder(Path(out_dir), overwrite=overwrite, inputs=inputs) as staging:
         notes.extend(staging.notes)
-        surf_l = _krige_season(last, frame_l, grids, variables, settings, notes)
-        surf_t = _krige_season(this, frame_t, grids, variables, settings, notes)
-        pairings = _pairings(frame_l, frame_t, grids, paired_within, notes)
-        diffs = _difference_frame(frame_l, frame_t, pairings, variables)
-        paired_grids = {n: g for n, g in grids.items() if pairings[n].paired}
-        surf_d: dict[tuple[str, str], Surface] = {}
-        if paired_grids:
-            surf_d = _krige_season(
-                dataclasses.replace(this, label="paired differences"), diffs, paired_grids,
-                [f"{v}_change" for v in variables], settings, notes)
-        changes = _changes(grids, variables, (surf_l, surf_t, surf_d), set(paired_grids),
-                           z=z, notes=notes, labels=labels,
-                           least=settings.min_samples_kriging)
+        changes: dict[tuple[str, str], ChangeSurface] = {}
+        merged: tuple[dict[tuple[str, str], Surface], ...] = ({}, {}, {})
+        pairings: list[tuple[str | None, dict[str, SitePairing]]] = []
+        for pair, frame_l, frame_t, found in jobs:
+            got, surfaces, paired = _compare_layer(
+                (last, this), (frame_l, frame_t), grids, found, settings,
+                labels={v: labels[v + pair.suffix] for v in found}, z=z,
+                paired_within=paired_within, notes=notes, layer=pair.label)
+            pairings.append((pair.label, paired))
+            for (n, v), c in got.items():
+                changes[(n, v + pair.suffix)] = dataclasses.replace(
+                    c, variable=v + pair.suffix)
+            for into, surf in zip(merged, surfaces, strict=True):
+                for (n, v), sf in surf.items():
+                    base = v.removesuffix("_change")
+                    into[(n, base + pair.suffix + v[len(base):])] = sf
         table = zone_change_table(last.zones, grids, changes)
         if last.zones is None:
             notes.append(
@@ -534,8 +650,8 @@ def run_compare(
                 "folder to have the change per zone of its prescription")
         written, record = _write(
             staging.temp, last=last, this=this, grids=grids, changes=changes, table=table,
-            variables=variables, surfaces=(surf_l, surf_t, surf_d), z=z,
-            pairings=pairings,
+            variables=variables, surfaces=merged, z=z,
+            pairings=pairings, layers=[p.label for p, *_ in jobs],
             ph=(col_l, col_t, converted, ph_conversion), notes=notes, labels=labels)
     final = staging.final
     return CompareResult(final, [final / p.relative_to(staging.temp) for p in written],
@@ -656,7 +772,8 @@ def _write(
     changes: dict[tuple[str, str], ChangeSurface], table: pd.DataFrame, variables: list[str],
     surfaces: tuple[dict[tuple[str, str], Surface], ...],
     z: float, ph: tuple[str, str, str | None, PhConversion | None], notes: list[str],
-    labels: dict[str, tuple[str, str]], pairings: dict[str, SitePairing],
+    labels: dict[str, tuple[str, str]],
+    pairings: list[tuple[str | None, dict[str, SitePairing]]], layers: list[str | None],
 ) -> tuple[list[Path], dict[str, Any]]:
     from .record import now_utc, versions
     from .report import CAUTIONS, ChangeReportInput, build_change_report
@@ -723,14 +840,15 @@ def _write(
         "method": METHOD,
         "independence": INDEPENDENCE,
         "methods": dict(METHODS),
+        "layers": [lay for lay in layers if lay is not None],
         "pairing": {
-            "within_m": next(iter(pairings.values())).within_m if pairings else None,
+            "within_m": next((p.within_m for _, by in pairings for p in by.values()), None),
             "least_share": PAIRED_LEAST_SHARE,
-            "paddocks": [{"paddock": p.paddock, "samples_last": p.n_last,
+            "paddocks": [{"paddock": p.paddock, "layer": lay, "samples_last": p.n_last,
                           "samples_this": p.n_this, "paired_sites": p.n_paired,
                           "paired_share": round(p.share, 4),
                           "method": "paired sites" if p.paired else "independent"}
-                         for p in pairings.values()]},
+                         for lay, by in pairings for p in by.values()]},
         "z": z,
         "ph": ph_text,
         "variables": {v: {"label": labels[v][0], "unit": labels[v][1]}
