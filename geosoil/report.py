@@ -958,14 +958,9 @@ def surface_map_svg(
 
 
 def _templates() -> Any:
-    import jinja2
+    from .pages import environment
 
-    return jinja2.Environment(
-        loader=jinja2.PackageLoader("geosoil", "templates"),
-        autoescape=jinja2.select_autoescape(["html"]),
-        trim_blocks=True,
-        lstrip_blocks=True,
-    )
+    return environment("report")
 
 
 def _css() -> Any:

@@ -339,13 +339,9 @@ def _web_grid(
 
 
 def _templates() -> Any:
-    import jinja2
+    from .pages import environment
 
-    return jinja2.Environment(
-        loader=jinja2.PackageLoader("geosoil", "templates"),
-        autoescape=jinja2.select_autoescape(["html"]),
-        keep_trailing_newline=True,
-    )
+    return environment("map")
 
 
 def _template_text(name: str) -> str:

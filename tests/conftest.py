@@ -8,6 +8,9 @@ command line, from an unrelated working folder into a relative ``--out``, with t
 session's surface cache (``session_cache``). Every test that only reads the demo's
 results shares it; a test that needs a changed farm copies it (``tests/demofarm.py``),
 with the session's cache where its change leaves the surfaces as they are.
+
+No test writes the user's own cache folder: ``XDG_CACHE_HOME`` points into the session's
+temporary folder for the whole session (``_session_cache_home``).
 """
 
 from __future__ import annotations
@@ -32,6 +35,14 @@ from tests.demofarm import snapshot
 settings.register_profile("ci", derandomize=True, deadline=None, print_blob=True)
 settings.register_profile("dev", deadline=None)
 settings.load_profile("ci" if os.environ.get("CI", "").lower() == "true" else "dev")
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _session_cache_home(tmp_path_factory: pytest.TempPathFactory) -> Any:
+    """``XDG_CACHE_HOME`` of the session's own (surfaces, compiled page templates)."""
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("XDG_CACHE_HOME", str(tmp_path_factory.getbasetemp() / "xdg-cache"))
+        yield
 
 
 @pytest.fixture(scope="session")

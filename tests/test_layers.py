@@ -18,7 +18,7 @@ CORE = {"errors", "settings", "units", "names", "layers", "recording", "chemistr
         "tonnage", "prescriptions"}
 IO = {"project", "cache", "record", "outfolder", "writers", "isoxml", "gpkg", "samples",
       "boundaries", "covariates", "vectors"}
-PRESENTATION = {"presentation", "webmap", "report"}
+PRESENTATION = {"presentation", "pages", "webmap", "report"}
 ORCHESTRATION = {"pipeline", "outputs", "job", "explain", "plan", "compare", "batch"}
 LAYER = {**dict.fromkeys(CORE, 0), **dict.fromkeys(IO, 1), **dict.fromkeys(PRESENTATION, 1),
          **dict.fromkeys(ORCHESTRATION, 2)}
