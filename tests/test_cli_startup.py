@@ -12,8 +12,13 @@ import json
 import subprocess
 import sys
 from importlib.metadata import entry_points
+from importlib.metadata import version as _dist_version
 
 import pytest
+
+
+def version() -> str:
+    return _dist_version("geosoil")
 
 HEAVY = ("geopandas", "scipy", "folium", "pandas", "shapely", "pyproj", "rasterio", "numpy",
          "jenkspy", "branca", "jinja2", "openpyxl")
@@ -29,17 +34,17 @@ def _entry() -> tuple[str, str]:
 def _loaded_after(args: list[str] | None) -> list[str]:
     """Heavy modules imported by loading the CLI (and running it with ``args``)."""
     module, attr = _entry()
+    # printed by an exit handler: the command line ends its process without the
+    # interpreter's teardown, after running the exit handlers
     code = (
-        "import importlib, json, sys\n"
+        "import atexit, importlib, json, sys\n"
+        "atexit.register(lambda: print(json.dumps("
+        f"[m for m in {HEAVY!r} if m in sys.modules])))\n"
         f"main = getattr(importlib.import_module({module!r}), {attr!r})\n"
         f"args = {args!r}\n"
         "if args is not None:\n"
         "    sys.argv = ['geosoil', *args]\n"
-        "    try:\n"
-        "        main()\n"
-        "    except SystemExit as exc:\n"
-        "        assert exc.code in (0, None), exc.code\n"
-        f"print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))\n"
+        "    main()\n"
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           check=True)
@@ -85,3 +90,45 @@ def test_check_loads_no_interpolation_library(tmp_path) -> None:
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           check=True)
     assert json.loads(done.stdout.strip().splitlines()[-1]) == []
+
+
+def _console(*args: str, **kw: object) -> subprocess.CompletedProcess[str]:
+    """The installed console script's entry point run in a fresh interpreter with ``args``."""
+    module, attr = _entry()
+    code = (f"import importlib, sys\nsys.argv = ['geosoil', *{list(args)!r}]\n"
+            f"getattr(importlib.import_module({module!r}), {attr!r})()\n"
+            "raise SystemExit('the entry point returned')\n")
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          **kw)  # type: ignore[call-overload]
+
+
+def test_the_console_script_keeps_every_exit_status_and_all_its_output(tmp_path) -> None:
+    ok = _console("--version")
+    assert (ok.returncode, ok.stdout.strip()) == (0, f"geosoil, version {version()}")
+    usage = _console("check", str(tmp_path / "nowhere"))
+    assert usage.returncode == 2 and "does not exist" in usage.stderr
+    assert _console("no-such-command").returncode == 2
+    # the answer through a pipe arrives whole before the process ends (its last line is
+    # click's own last line of every help)
+    helps = _console("run", "--help")
+    assert helps.returncode == 0
+    assert helps.stdout.startswith("Usage: geosoil run")
+    assert helps.stdout.rstrip().endswith("Show this message and exit.")
+
+
+def test_a_closed_pipe_ends_the_command_with_an_error_status_and_no_traceback() -> None:
+    import os
+
+    module, attr = _entry()
+    code = (f"import importlib, sys\nsys.argv = ['geosoil', 'run', '--help']\n"
+            "sys.stdout = open(sys.stdout.fileno(), 'w', buffering=1 << 20, closefd=False)\n"
+            f"getattr(importlib.import_module({module!r}), {attr!r})()\n")
+    r, w = os.pipe()
+    os.close(r)  # nobody reads: writing fails
+    try:
+        done = subprocess.run([sys.executable, "-c", code], stdout=w, stderr=subprocess.PIPE,
+                              text=True)
+    finally:
+        os.close(w)
+    assert done.returncode != 0
+    assert "Traceback" not in done.stderr
