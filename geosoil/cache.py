@@ -11,6 +11,13 @@ One cache entry is two files named after the hash of the surfaces' inputs:
     interpolation raised), the full key, and a SHA-256 digest of the arrays
     file together with this file's own content.
 
+A *zones entry* (``zones-<key>.json``) keeps one paddock's and product's spreader
+zones as JSON (columns of numbers and text, geometries as WKB text), with their notes
+and warnings and a SHA-256 digest, under the hash of everything the zones are made
+from (the per-cell rates, the grid, the boundary and exclusions, the zone and
+spreader settings, geosoil's source): a re-run that changes one product's rates makes
+that product's zones again and takes the others from here.
+
 The JSON file is written last (both through a temporary file and a rename), so
 an entry is complete when its JSON file is there. :func:`load` checks the
 digest, the key, every field's type and every array's shape and kind; an entry
@@ -43,8 +50,8 @@ from .kriging import CrossValidation
 from .surfaces import Surface
 from .variogram import EmpiricalVariogram, VariogramModel
 
-__all__ = ["CacheEntryError", "FORMAT", "default_folder", "entry_paths", "save", "load",
-           "prune"]
+__all__ = ["CacheEntryError", "FORMAT", "ZONES_FORMAT", "default_folder", "entry_paths",
+           "save", "load", "prune", "zones_path", "save_zones", "load_zones", "prune_zones"]
 
 logger = logging.getLogger(__name__)
 
@@ -394,5 +401,195 @@ def prune(folder: Path, *, keep: int) -> None:
         if npz.with_suffix("") not in live and time.time() - npz.stat().st_mtime > _STALE_TEMP_S:
             npz.unlink(missing_ok=True)
     for tmp in folder.glob(".surfaces-*.part*"):  # geosoil.writers.atomic_write's
+        if time.time() - tmp.stat().st_mtime > _STALE_TEMP_S:
+            tmp.unlink(missing_ok=True)
+
+
+# --------------------------------------------------------------------------- zones
+
+#: Written into every zones entry; an entry of another format is not read.
+ZONES_FORMAT = "geosoil-zones/1"
+
+#: The kinds of column a zones entry holds (pandas dtype names).
+_ZONE_DTYPES = ("int64", "float64", "bool", "str", "object")
+
+
+def zones_path(folder: Path, key: str) -> Path:
+    """The file of the zones entry for ``key`` in ``folder``: ``zones-<key[:32]>.json``.
+
+    Parameters
+    ----------
+    folder : Path
+        The cache folder.
+    key : str
+        The hexadecimal hash of the zones' inputs.
+
+    Returns
+    -------
+    Path
+    """
+    return folder / f"zones-{key[:32]}.json"
+
+
+def _cell(v: Any) -> Any:
+    """A table cell as JSON: numbers, text, truth values and missing (None) only."""
+    if v is None or isinstance(v, (bool, int, float, str)):
+        return v
+    if isinstance(v, np.generic):
+        return v.item()
+    raise TypeError(f"a zone table cell of type {type(v).__name__}")
+
+
+def save_zones(folder: Path, key: str, zones: Any, notes: list[str],
+               warnings_raised: list[str]) -> Path | None:
+    """Store one paddock's and product's zones (and their notes and warnings) under ``key``.
+
+    The table is kept as JSON: each column's name, dtype and values (numbers, text,
+    truth values), and each zone's geometry as WKB in hexadecimal, so an entry holds
+    nothing that can run when it is read.
+
+    Parameters
+    ----------
+    folder : Path
+        The cache folder (created when missing).
+    key : str
+        The hexadecimal hash of the zones' inputs.
+    zones : GeoDataFrame
+        What :func:`geosoil.zones.make_zones` returned in ``zones``.
+    notes, warnings_raised : list of str
+        Its notes, and the warnings raised while making the zones (given back on a hit).
+
+    Returns
+    -------
+    Path or None
+        The entry's file; None when the table holds a kind of column this entry
+        cannot keep (nothing is written, the zones are made again next time).
+
+    Raises
+    ------
+    OSError
+        The folder or the file could not be written.
+    """
+    import shapely
+
+    from .writers import atomic_write
+
+    columns = []
+    for name in zones.columns:
+        if name == zones.geometry.name:
+            continue
+        dtype = str(zones[name].dtype)
+        if dtype not in _ZONE_DTYPES:
+            return None
+        try:
+            values = [_cell(v) for v in zones[name].tolist()]
+        except TypeError:
+            return None
+        columns.append({"name": str(name), "dtype": dtype, "values": values})
+    meta: dict[str, Any] = {
+        "format": ZONES_FORMAT,
+        "key": key,
+        "crs": None if zones.crs is None else zones.crs.to_wkt(),
+        "columns": columns,
+        "geometry": [None if g is None else shapely.to_wkb(g, hex=True)
+                     for g in zones.geometry],
+        "notes": [str(n) for n in notes],
+        "warnings": [str(w) for w in warnings_raised],
+    }
+    meta["sha256"] = hashlib.sha256(_canonical(meta)).hexdigest()
+    path = zones_path(folder, key)
+    folder.mkdir(parents=True, exist_ok=True)
+    with atomic_write(path) as fh:
+        fh.write(json.dumps(meta, allow_nan=True).encode("utf-8"))
+    return path
+
+
+def load_zones(folder: Path, key: str) -> tuple[Any, list[str], list[str]] | None:
+    """The zones stored under ``key``, checked; None when there is no entry.
+
+    Parameters
+    ----------
+    folder : Path
+        The cache folder.
+    key : str
+        The hexadecimal hash of the zones' inputs.
+
+    Returns
+    -------
+    (zones, notes, warnings) or None
+        The GeoDataFrame as it was stored (same columns, dtypes and geometries), its
+        notes and the warnings raised while it was made.
+
+    Raises
+    ------
+    CacheEntryError
+        The entry exists but is damaged, of another format or key, or holds anything
+        but numbers, text, truth values and WKB geometries.
+    """
+    import geopandas as gpd
+    import pandas as pd
+    import shapely
+
+    path = zones_path(folder, key)
+    if not path.exists():
+        return None
+    try:
+        if path.stat().st_size > _MAX_JSON_BYTES:
+            raise CacheEntryError(f"{path.name} is larger than any entry geosoil writes")
+        meta = json.loads(path.read_bytes())
+    except (OSError, ValueError, RecursionError) as exc:
+        raise CacheEntryError(f"unreadable: {exc}") from None
+    _need(isinstance(meta, dict), "the entry is not a table")
+    _need(meta.get("format") == ZONES_FORMAT,
+          f"format {meta.get('format')!r}, not {ZONES_FORMAT!r}")
+    _need(meta.get("key") == key, "the entry is for other inputs (key differs)")
+    body = {k: v for k, v in meta.items() if k != "sha256"}
+    _need(meta.get("sha256") == hashlib.sha256(_canonical(body)).hexdigest(),
+          "the SHA-256 digest does not match")
+    geoms = meta.get("geometry")
+    _need(isinstance(geoms, list) and all(g is None or isinstance(g, str) for g in geoms),
+          "the geometries are not WKB text")
+    n = len(geoms)
+    data: dict[str, Any] = {}
+    cols = meta.get("columns")
+    _need(isinstance(cols, list), "no list of columns")
+    for c in cols:
+        _need(isinstance(c, dict), "a column is not a table")
+        name, dtype, values = c.get("name"), c.get("dtype"), c.get("values")
+        _need(isinstance(name, str) and dtype in _ZONE_DTYPES, "a column's name or kind")
+        _need(isinstance(values, list) and len(values) == n,
+              f"column {name!r}: not one value per zone")
+        _need(all(v is None or isinstance(v, (bool, int, float, str)) for v in values),
+              f"column {name!r}: a value that is not a number, text or truth value")
+        data[name] = pd.Series(values, dtype=dtype)
+    for key_ in ("notes", "warnings"):
+        _need(isinstance(meta.get(key_), list) and all(isinstance(t, str) for t in meta[key_]),
+              f"the {key_} are not text")
+    crs = meta.get("crs")
+    _need(crs is None or isinstance(crs, str), "the CRS is not text")
+    try:
+        geometry = shapely.from_wkb([g for g in geoms], on_invalid="raise")
+    except Exception as exc:  # any WKB that does not read as a geometry
+        raise CacheEntryError(f"a geometry cannot be read: {exc}") from None
+    zones = gpd.GeoDataFrame(data, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
+    os.utime(path)  # most recently used: the pruning keeps it longest
+    return zones, list(meta["notes"]), list(meta["warnings"])
+
+
+def prune_zones(folder: Path, *, keep: int) -> None:
+    """Keep the ``keep`` most recently used zones entries; delete the rest.
+
+    Parameters
+    ----------
+    folder : Path
+        The cache folder.
+    keep : int
+        How many entries to keep.
+    """
+    entries = sorted(folder.glob("zones-*.json"), key=lambda p: p.stat().st_mtime,
+                     reverse=True)
+    for old in entries[keep:]:
+        old.unlink(missing_ok=True)
+    for tmp in folder.glob(".zones-*.part*"):
         if time.time() - tmp.stat().st_mtime > _STALE_TEMP_S:
             tmp.unlink(missing_ok=True)

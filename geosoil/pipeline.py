@@ -19,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import difflib
+import functools
 import hashlib
 import json
 import logging
@@ -67,7 +68,7 @@ from .samples import DEPTH_COLUMNS, SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
 from .tonnage import tonnage_table
-from .zones import ZONE_COLUMNS, make_zones
+from .zones import ZONE_COLUMNS, ZoneResult, make_zones
 
 __all__ = [
     "paddock_warnings",
@@ -1029,8 +1030,9 @@ def compute(
                         )
             zone_frames = []
             for product, rate in rr.product_rates.items():
-                zr = make_zones(
-                    rate,
+                zr = _zones_for(
+                    prep, rate,
+                    use_cache=use_cache,
                     transform=grid.transform,
                     crs=prep.crs,
                     paddock=name,
@@ -1070,6 +1072,79 @@ def compute(
     cpu["rates, zones and tonnage"] = time.process_time() - c0
     notes = rule_warnings({n: list(pr.rates.skipped) for n, pr in results.items()}, s.rates)
     return FarmResult(prep, surfaces, hit, results, zones_all, table, timings, notes, cpu)
+
+
+# --------------------------------------------------------------------------- zones cache
+
+#: How many zones entries (one per paddock and product of a run) the cache folder keeps.
+ZONES_KEEP = 500
+
+
+@functools.cache
+def _code_digest() -> str:
+    """Every module of geosoil: zones made by other code are never taken back."""
+    return source_digest()
+
+
+def _frame_digest(h: Any, frame: Any) -> None:
+    """Feed a GeoDataFrame's geometries, CRS and other columns (or None) into ``h``."""
+    if frame is None:
+        h.update(b"none\n")
+        return
+    h.update(b"" if frame.crs is None else frame.crs.to_wkt().encode())
+    for g in frame.geometry:
+        h.update(shapely.to_wkb(g))
+    rest = pd.DataFrame(frame.drop(columns=frame.geometry.name))
+    h.update(rest.to_csv(index=False).encode())
+
+
+def _zones_key(rate: np.ndarray, **kw: Any) -> str:
+    """SHA-256 of everything :func:`geosoil.zones.make_zones` makes zones from."""
+    h = hashlib.sha256(b"zones\n")
+    h.update(_code_digest().encode())
+    a = np.ascontiguousarray(rate, dtype=np.float64)
+    h.update(repr((a.shape, tuple(kw["transform"]))).encode())
+    h.update(a.tobytes())
+    h.update(kw["crs"].to_wkt().encode())
+    h.update(json.dumps([kw["paddock"], kw["product"]]).encode())
+    h.update(shapely.to_wkb(kw["boundary"]))
+    _frame_digest(h, kw["exclusions"])
+    _frame_digest(h, kw["user_zones"])
+    for part in (kw["settings"], kw["spreader"]):
+        h.update(json.dumps(None if part is None else to_mapping(part), sort_keys=True,
+                            default=str).encode())
+    return h.hexdigest()
+
+
+def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, **kw: Any) -> ZoneResult:
+    """:func:`geosoil.zones.make_zones`, or the same zones from the cache when everything
+    they are made from is unchanged (the warnings they raised are raised again)."""
+    if not use_cache:
+        return make_zones(rate, **kw)
+    key = _zones_key(rate, **kw)
+    folder = _cache_dir(prep)
+    try:
+        stored = cache_mod.load_zones(folder, key)
+    except cache_mod.CacheEntryError as exc:
+        prep.warnings.append(
+            f"the cached zones {cache_mod.zones_path(folder, key)} failed their check ({exc}); "
+            f"nothing of them was used, the zones of {kw['paddock']} ({kw['product']}) were "
+            "made again and the entry replaced")
+        stored = None
+    if stored is not None:
+        zones, notes, raised = stored
+        for text in raised:
+            warnings.warn(text, GeosoilWarning, stacklevel=2)
+        return ZoneResult(zones, notes)
+    raised = []
+    with record_warnings(raised):
+        zr = make_zones(rate, **kw)
+    try:
+        cache_mod.save_zones(folder, key, zr.zones, zr.notes, raised)
+        cache_mod.prune_zones(folder, keep=ZONES_KEEP)
+    except OSError as exc:
+        logger.info("could not write the zones cache in %s (%s)", folder, exc)
+    return zr
 
 
 def _warn_uncertified(results: dict[str, PaddockResult], products: Any) -> None:

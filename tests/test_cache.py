@@ -245,3 +245,132 @@ def test_a_planted_pickle_and_a_planted_npz_run_nothing_and_are_recomputed_with_
     assert again.farm.cache_hit is True
     assert not [w for w in again.warnings if "failed their check" in w]
     assert again.tonnage.equals(result.tonnage)
+
+
+# --------------------------------------------------------------------------- zones entries
+
+
+@pytest.fixture
+def zones_project(tmp_path: Path, demo_run):  # noqa: ANN001, ANN201
+    """The demo project with a cache folder of the test's own, holding the session's
+    surfaces (so nothing is kriged) and no zones."""
+    import dataclasses
+    import shutil
+
+    folder = tmp_path / "cache"
+    folder.mkdir()
+    for f in demo_run.cache.glob("surfaces-*"):
+        shutil.copy2(f, folder / f.name)
+    p = demo_run.project
+    out = dataclasses.replace(p.settings.output, cache_dir=folder)
+    return dataclasses.replace(p, settings=dataclasses.replace(p.settings, output=out)), folder
+
+
+def _counting(monkeypatch: pytest.MonkeyPatch) -> list[tuple[str, str]]:
+    from geosoil import pipeline
+
+    made: list[tuple[str, str]] = []
+    real = pipeline.make_zones
+
+    def counted(rate, **kw):  # noqa: ANN001, ANN202
+        made.append((kw["paddock"], kw["product"]))
+        return real(rate, **kw)
+
+    monkeypatch.setattr(pipeline, "make_zones", counted)
+    return made
+
+
+def test_zones_from_the_cache_equal_zones_made_afresh(zones_project, monkeypatch) -> None:  # noqa: ANN001
+    import pandas as pd
+
+    from geosoil.pipeline import compute
+
+    project, folder = zones_project
+    made = _counting(monkeypatch)
+    first = compute(project)
+    assert len(made) == 6  # three paddocks, two products
+    assert len(list(folder.glob("zones-*.json"))) == 6
+    again = compute(project)
+    assert len(made) == 6  # none made again
+    afresh = compute(project, use_cache=False)
+    assert len(made) == 12
+    for other in (again, afresh):
+        pd.testing.assert_frame_equal(other.zones, first.zones, check_exact=True)
+        assert other.zones.crs == first.zones.crs
+        assert other.warnings == first.warnings
+        for name, pr in first.paddocks.items():
+            assert other.paddocks[name].zone_notes == pr.zone_notes
+            pd.testing.assert_frame_equal(other.paddocks[name].zones, pr.zones, check_exact=True)
+
+
+def test_a_changed_rate_setting_makes_only_the_zones_it_changes(zones_project,  # noqa: ANN001
+                                                               monkeypatch) -> None:
+    import dataclasses
+
+    import numpy as np
+
+    from geosoil.pipeline import compute
+
+    project, _ = zones_project
+    made = _counting(monkeypatch)
+    before = compute(project)
+    made.clear()
+    s = project.settings
+    gyp = dataclasses.replace(s.rates.gypsum,
+                              target_esp_percent=s.rates.gypsum.target_esp_percent - 1.0)
+    changed = dataclasses.replace(project, settings=dataclasses.replace(
+        s, rates=dataclasses.replace(s.rates, gypsum=gyp)))
+    after = compute(changed)
+    # the zones made again are exactly those whose per-cell rates changed
+    moved = sorted((n, p) for n, pr in after.paddocks.items()
+                   for p, r in pr.rates.product_rates.items()
+                   if not np.array_equal(r, before.paddocks[n].rates.product_rates[p],
+                                         equal_nan=True))
+    assert moved and all(p == "gypsum" for _, p in moved)
+    assert sorted(made) == moved
+
+
+@pytest.mark.parametrize("damage", ["digest", "geometry", "value", "not json"])
+def test_a_damaged_zones_entry_is_not_used(zones_project, monkeypatch, damage: str) -> None:  # noqa: ANN001
+    import pandas as pd
+
+    from geosoil.pipeline import compute
+
+    project, folder = zones_project
+    first = compute(project)
+    made = _counting(monkeypatch)
+    for entry in folder.glob("zones-*.json"):
+        meta = json.loads(entry.read_text(encoding="utf-8"))
+        if damage == "digest":
+            meta["notes"].append("a note nobody wrote")
+        elif damage == "geometry":
+            meta["geometry"][0] = "00ff"
+        elif damage == "value":
+            meta["columns"][0]["values"][0] = {"__class__": "os.system"}
+        if damage == "not json":
+            entry.write_bytes(b"\x80 not json")
+        else:
+            entry.write_text(json.dumps(meta), encoding="utf-8")
+    again = compute(project)
+    assert len(made) == 6  # every entry refused: the zones made again
+    pd.testing.assert_frame_equal(again.zones, first.zones, check_exact=True)
+    said = [w for w in again.warnings if w.startswith("the cached zones ")]
+    assert len(said) == 6 and all("failed their check" in w for w in said)
+    assert compute(project).warnings == first.warnings  # replaced: taken back next time
+
+
+def test_a_zones_entry_round_trips_every_column_kind(tmp_path: Path) -> None:
+    import geopandas as gpd
+    import pandas as pd
+    import shapely
+
+    frame = gpd.GeoDataFrame(
+        {"name": pd.Series(["a", "b"], dtype="str"), "n": [1, 2], "x": [0.5, np.nan],
+         "flag": [True, False], "what": pd.Series(["", "pass 1"], dtype="object")},
+        geometry=[shapely.box(0, 0, 1, 1), shapely.box(1, 0, 2.000000001, 1)],
+        crs="EPSG:32755")
+    assert cache.save_zones(tmp_path, "ab" * 32, frame, ["n1"], ["w1"]) is not None
+    zones, notes, warned = cache.load_zones(tmp_path, "ab" * 32)
+    pd.testing.assert_frame_equal(zones, frame, check_exact=True)
+    assert (notes, warned) == (["n1"], ["w1"])
+    assert cache.load_zones(tmp_path, "cd" * 32) is None
