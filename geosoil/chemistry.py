@@ -897,8 +897,10 @@ def _soluble_record(
                       "clamped": [names[i] for i in over],
                       "not_corrected": [names[i] for i in gap]}
         said.append((basis[c], int(taken.sum()), _NAMES[c]))
-        clamped += [f"{names[i]} {_NAMES[c]} (extracted {extracted[i]:.4g}, soluble "
-                    f"{chem[f'{c}_soluble'][i]:.4g} cmol(+)/kg)" for i in over]
+        if over.size:
+            clamped.append(f"{_NAMES[c]} at {over.size} sample(s): " + _listed(
+                [f"{names[i]} (extracted {extracted[i]:.4g}, soluble "
+                 f"{chem[f'{c}_soluble'][i]:.4g} cmol(+)/kg)" for i in over], most=5))
         if gap.size:
             missing.append(f"{_NAMES[c]} at {_listed([names[i] for i in gap])}")
     record["cations"] = cations
@@ -908,8 +910,9 @@ def _soluble_record(
         DataWarning, stacklevel=3)
     if clamped:
         warnings.warn(
-            f"{where}: the soluble amount exceeds the extracted at {_listed(clamped)}: set to 0 "
-            "(a correction never makes a cation negative); check the lab's figures and the "
+            f"{where}: the soluble amount exceeds the extracted for {'; '.join(clamped)}: set to 0 "
+            "(a correction never makes a cation negative; every such sample is listed in "
+            "run.json, soluble_salts); check the lab's figures and the "
             "extract ratio, and whether the lab had already washed out the soluble salts",
             DataWarning, stacklevel=3)
     if missing:

@@ -106,6 +106,9 @@ class Season:
     #: every sampled layer's samples, shallowest first; ``[(None, samples)]`` for samples of
     #: one depth (their depth not recorded); empty: ``samples`` as the one layer
     layers: list[tuple[Layer | None, gpd.GeoDataFrame]] = field(default_factory=list)
+    #: ``[chemistry] soluble_salts`` of the season ("warn": the lab's exchangeable figures;
+    #: "subtract": soluble salts taken off them); None where its record does not say
+    soluble_salts: str | None = None
 
     def sampled_layers(self) -> list[tuple[Layer | None, gpd.GeoDataFrame]]:
         """The sampled layers (``[(None, samples)]`` for samples of one depth)."""
@@ -212,7 +215,7 @@ def _read_output_folder(folder: Path, label: str) -> Season:
     grids = aligned_grids(paddocks, cell_size_m=cell, exclusions=excl)
     return Season(label, folder, "output folder", layer, crs, paddocks, samples, grids, zones,
                   interp, settings.get("farm"), [run_json, samples_csv, gpkg], notes,
-                  layered)
+                  layered, (settings.get("chemistry") or {}).get("soluble_salts", "warn"))
 
 
 def _read_project(path: Path, label: str) -> Season:
@@ -229,7 +232,8 @@ def _read_project(path: Path, label: str) -> Season:
     return Season(label, source, "project", layer, prep.crs,
                   prep.paddocks[["paddock", "geometry"]], prep.samples, dict(prep.grids), None,
                   project.settings.interpolation, project.settings.farm, files,
-                  list(prep.warnings), [(ls.layer, ls.samples) for ls in prep.layers])
+                  list(prep.warnings), [(ls.layer, ls.samples) for ls in prep.layers],
+                  project.settings.chemistry.soluble_salts)
 
 
 def read_season(path: str | Path, *, label: str) -> Season:
@@ -598,6 +602,13 @@ def run_compare(
     notes: list[str] = [*(f"last season: {w}" for w in last.warnings),
                         *(f"this season: {w}" for w in this.warnings)]
     pairs = _layer_pairs(last, this, notes)
+    if last.soluble_salts != this.soluble_salts:
+        notes.append(
+            f"[chemistry] soluble_salts is '{last.soluble_salts}' in {last.name} and "
+            f"'{this.soluble_salts}' in {this.name}: one season's exchangeable cations have "
+            "the soluble salts taken off and the other's not, so the change in ESP and the "
+            "saturations mixes that correction with a change of soil; give both the same "
+            "setting")
     ph_l = [c for c in PH_METHODS if any(_values(p.last, c) for p in pairs)]
     ph_t = [c for c in PH_METHODS if any(_values(p.this, c) for p in pairs)]
     col_l = col_t = ""

@@ -114,7 +114,8 @@ def test_a_correction_never_makes_a_cation_negative() -> None:
     assert out["na"].tolist() == pytest.approx([0.0, 1.0])
     assert (out[["ca", "mg", "k", "na"]].to_numpy() >= 0).all()
     clamp = [w for w in said if "exceeds the extracted" in w]
-    assert len(clamp) == 1 and "N1 Na (extracted 4, soluble 5 cmol(+)/kg)" in clamp[0]
+    assert len(clamp) == 1
+    assert "Na at 1 sample(s): N1 (extracted 4, soluble 5 cmol(+)/kg)" in clamp[0]
     assert "N2" not in clamp[0]
     assert out.attrs["soluble_salts"]["cations"]["na"]["clamped"] == ["N1"]
 
@@ -184,7 +185,8 @@ def test_every_layer_is_corrected_and_named_by_its_depth() -> None:
     out, said = _record(derive, samples, SUBTRACT)
     # 10 and 12 meq/L x 5 / 10 = 5.0 and 6.0: both above the extracted Na, both 0
     assert out["na"].tolist() == [0.0, 0.0]
-    assert any("S1 (0-10 cm) Na" in w and "S1 (10-30 cm) Na" in w for w in said)
+    assert any("Na at 2 sample(s): S1 (0-10 cm) (extracted 4" in w and "S1 (10-30 cm)" in w
+               for w in said)
 
 
 def test_the_salt_warning_leaves_out_corrected_samples_and_offers_the_setting() -> None:
@@ -284,3 +286,17 @@ def test_warn_by_default_keeps_the_labs_figures_and_offers_the_setting(tmp_path:
     record = json.loads((out / "run.json").read_text())
     assert record["soluble_salts"]["mode"] == "warn"
     assert "&#39;warn&#39;" in (out / "report.html").read_text()
+
+
+def test_compare_says_when_one_season_subtracted_and_the_other_not(tmp_path: Path) -> None:
+    cache = tmp_path / "cache"
+    last = _farm(tmp_path / "last", "warn", cache)
+    this = _farm(tmp_path / "this", "subtract", cache)
+    got = CliRunner().invoke(cli, ["compare", str(last), str(this), "--out",
+                                   str(tmp_path / "c")])
+    assert got.exit_code == 0, got.output
+    record = json.loads((tmp_path / "c" / "run.json").read_text())
+    assert any("soluble_salts is 'warn'" in w and "'subtract'" in w for w in record["warnings"])
+    # the change is the correction's (ESP 20.270 -> 5.2248 at every site: hand arithmetic)
+    esp = [r for r in record["paddocks"] if r["variable"] == "esp"][0]
+    assert esp["change_mean"] == pytest.approx(ESP - ESP_UNCORRECTED, abs=1e-4)
