@@ -30,7 +30,7 @@ from xml.etree.ElementTree import Element, SubElement, tostring
 import numpy as np
 import pandas as pd
 
-from .writers import atomic_path, text_or_none
+from .writers import atomic_path, text_or_none, valid_polygons
 
 __all__ = ["RATE_COLOURS", "ZERO_COLOUR", "rate_classes", "zone_styles", "plain_style",
            "write_gpkg"]
@@ -288,8 +288,11 @@ def plain_style(layer: str, kind: str) -> tuple[str, str]:
 
 
 def _plain_columns(frame: Any) -> Any:
-    """Columns GDAL can write: objects that are not text become text."""
+    """Columns GDAL can write: objects that are not text become text; polygons valid,
+    without parts under ``writers.MIN_PART_M2``."""
     out = frame.copy()
+    if out.crs is not None and out.geom_type.isin(["Polygon", "MultiPolygon"]).any():
+        out = out.set_geometry([valid_polygons(g, out.crs) for g in out.geometry], crs=out.crs)
     for col in out.columns:
         if col == out.geometry.name:
             continue

@@ -106,7 +106,7 @@ from shapely.geometry.polygon import orient
 from . import __version__
 from .errors import CRSError, DataWarning, OutputExistsError, RateWarning
 from .units import kg_ha_to_mg_m2
-from .writers import atomic_write
+from .writers import atomic_write, valid_polygons
 
 __all__ = [
     "DDI_SETPOINT_MASS_PER_AREA",
@@ -526,7 +526,11 @@ def _lonlat_parts(boundary: BaseGeometry, crs: pyproj.CRS) -> list[shapely.Polyg
         lon, lat = to_wgs.transform(coords[:, 0], coords[:, 1])
         return np.column_stack([lon, lat])
 
-    geom = shapely.transform(boundary, fwd)
+    # rounded as written (9 decimals, _ring), then repaired: a reprojection or the rounding
+    # can make parts that touch overlap (writers.valid_polygons)
+    geom = valid_polygons(shapely.transform(boundary, lambda c: np.round(fwd(c), 9)), _WGS84)
+    if geom is None:
+        return []
     parts = list(geom.geoms) if geom.geom_type == "MultiPolygon" else [geom]
     geod = pyproj.Geod(ellps="WGS84")
 

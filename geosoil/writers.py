@@ -64,6 +64,8 @@ __all__ = [
     "atomic_write",
     "atomic_path",
     "text_or_none",
+    "MIN_PART_M2",
+    "valid_polygons",
     "write_geojson",
     "geojson_text",
     "write_shapefile_zip",
@@ -398,15 +400,112 @@ def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool 
     return Path(path)
 
 
+# --------------------------------------------------------------------------- polygons
+
+#: Polygon parts and holes smaller than this (m²) are left out of every vector file written
+#: (GeoJSON, shapefile, GeoPackage, task data polygons). Reprojecting to longitude/latitude
+#: and rounding coordinates can turn two parts of a zone that touch into a self-intersection
+#: or cut a sliver of a few cm² off them; a part this small is no ground a spreader can treat
+#: (a cell is 100 m² or more). The zones' areas and tonnes are worked out in the working CRS
+#: before writing and keep it: at most 1 m² a part, under 1 kg at 10 t/ha.
+MIN_PART_M2 = 1.0
+
+
+def _areas_m2(parts: Sequence[BaseGeometry], crs: Any) -> NDArray[np.float64]:
+    """Area (m²) of each polygon: on the WGS 84 ellipsoid for a geographic CRS, else planar
+    in the CRS's linear unit."""
+    crs = crs if isinstance(crs, pyproj.CRS) else _crs(crs)
+    if crs.is_geographic:
+        geod = pyproj.Geod(ellps="WGS84")
+        return np.array([abs(geod.geometry_area_perimeter(p)[0]) for p in parts])
+    unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
+    return np.asarray(shapely.area(np.asarray(parts, dtype=object)), dtype=float) * unit**2
+
+
+def valid_polygons(geom: BaseGeometry | None, crs: Any, *,
+                   min_part_m2: float = MIN_PART_M2) -> BaseGeometry | None:
+    """``geom`` as a valid polygon or multipolygon in ``crs``, without parts or holes
+    smaller than ``min_part_m2``, as it is written to a file.
+
+    :func:`shapely.make_valid` repairs it (after a reprojection or a rounding of its
+    coordinates), its lines and points are dropped, and so are its polygon parts and holes
+    under ``min_part_m2`` (:data:`MIN_PART_M2`; a hole so small is filled). A geometry that is
+    not polygonal is returned as it is; one with nothing left is None.
+
+    Parameters
+    ----------
+    geom : shapely geometry or None
+        The geometry.
+    crs : CRS-like
+        Its CRS (areas are measured on the WGS 84 ellipsoid when it is geographic).
+    min_part_m2 : float, optional
+        The smallest part or hole kept, m².
+
+    Returns
+    -------
+    shapely geometry or None
+
+    Examples
+    --------
+    >>> bow_tie = shapely.Polygon([(0, 0), (10, 10), (10, 0), (0, 10)])
+    >>> bow_tie.is_valid, valid_polygons(bow_tie, "EPSG:32755").is_valid
+    (False, True)
+    >>> sliver = shapely.MultiPolygon([shapely.box(0, 0, 10, 10), shapely.box(20, 0, 20.5, 1)])
+    >>> valid_polygons(sliver, "EPSG:32755").geom_type
+    'Polygon'
+    """
+    if geom is None or geom.is_empty:
+        return None
+    if geom.geom_type not in _POLYGONAL and not (
+            geom.geom_type == "GeometryCollection"
+            and any(g.geom_type in _POLYGONAL for g in geom.geoms)):
+        return geom
+    if not geom.is_valid:
+        geom = shapely.make_valid(geom)
+    parts = [p for p in shapely.get_parts(geom) if p.geom_type in _POLYGONAL]
+    parts = [q for p in parts for q in shapely.get_parts(p) if not q.is_empty]
+    if not parts:
+        return None
+    kept: list[BaseGeometry] = []
+    changed = len(parts) != len(shapely.get_parts(geom))
+    for part, area in zip(parts, _areas_m2(parts, crs), strict=True):
+        if area < min_part_m2:
+            changed = True
+            continue
+        holes = list(part.interiors)
+        if holes:
+            small = _areas_m2([shapely.Polygon(h) for h in holes], crs) < min_part_m2
+            if small.any():
+                changed = True
+                part = shapely.Polygon(part.exterior, [h for h, s in zip(holes, small,
+                                                                         strict=True) if not s])
+        kept.append(part)
+    if not kept:
+        logger.debug("a shape of %d part(s), all under %g m², left out", len(parts), min_part_m2)
+        return None
+    if not changed:
+        return geom
+    out = kept[0] if len(kept) == 1 else shapely.MultiPolygon(kept)
+    return out if out.is_valid else shapely.make_valid(out)
+
+
+_POLYGONAL = ("Polygon", "MultiPolygon")
+
+
+@functools.lru_cache(maxsize=8)
+def _crs(crs: Any) -> pyproj.CRS:
+    return pyproj.CRS.from_user_input(crs)
+
+
 # --------------------------------------------------------------------------- GeoJSON
 
 
 def _rfc7946_geometry(geom: BaseGeometry | None, precision: int) -> dict[str, Any] | None:
     if geom is None or geom.is_empty:
         return None
-    geom = shapely.transform(geom, lambda c: np.round(c, precision))
-    if not geom.is_valid:
-        geom = shapely.make_valid(geom)
+    geom = valid_polygons(shapely.transform(geom, lambda c: np.round(c, precision)), "EPSG:4326")
+    if geom is None:
+        return None
     geom = _orient(geom)
     return mapping(geom)
 
@@ -606,6 +705,8 @@ def write_shapefile_zip(
                        "for its .prj")
     if crs is not None:
         frame = frame.to_crs(crs)
+    frame = frame.set_geometry([valid_polygons(g, frame.crs) for g in frame.geometry],
+                               crs=frame.crs)
     target = Path(path)
     name = layer or target.stem.removesuffix("_shp") or "zones"
     data = _shapefile_frame(frame, fields)

@@ -21,12 +21,14 @@ import pyogrio
 import pyproj
 import pytest
 import rasterio
+import shapely
 from click.testing import CliRunner
 from geosoil.cli.main import cli
 from isoxml.converter.np_grid import to_numpy_array
 from isoxml.util.isoxml_io import isoxml_from_path
 
 from tests.demofarm import copy_demo
+from tests.shapes import assert_clean
 
 pytestmark = pytest.mark.slow  # one whole run of the demo copy (tens of seconds)
 
@@ -253,3 +255,53 @@ def test_only_written_tasks_have_their_names_listed(tmp_path: Path, demo_run) ->
         assert not s["original"].startswith(("Creek Flat pass", "Windmill"))
     assert "Creek Flat Agricultural lime, fine grade" not in {s["original"] for s in tasks}
     assert "Creek Flat Agricultural l" not in result.stdout
+
+
+def _task_polygons(path: Path) -> list:
+    """Every PLN of a TASKDATA.XML as a shapely polygon (lon/lat), read with ElementTree."""
+    polys = []
+    for pln in ET.parse(path).getroot().iter("PLN"):
+        rings = {"1": [], "2": []}
+        for lsg in pln.iter("LSG"):
+            rings[lsg.get("A")].append([(float(p.get("D")), float(p.get("C")))
+                                        for p in lsg.iter("PNT")])
+        [shell] = rings["1"]
+        polys.append(shapely.Polygon(shell, rings["2"]))
+    return polys
+
+
+@pytest.mark.parametrize("which", ["demo", "split passes"])
+def test_every_written_shape_is_valid_and_has_no_sliver(which: str, run, demo_run) -> None:  # noqa: ANN001
+    """Every zone, paddock and exclusion in every vector file (GeoJSON, shapefile,
+    GeoPackage, task data polygons) read back by GDAL (pyogrio) or ElementTree, checked by
+    GEOS (shapely): valid after the reprojection and the writing, no part under 1 m²; the
+    machine files' zones, taken back to the working CRS, cover the GeoPackage's to 1 m²."""
+    out = demo_run.out if which == "demo" else run["out"]
+    files = sorted((out / "prescriptions").glob("*/*.geojson")) + sorted(
+        (out / "prescriptions").glob("*/*_shp.zip"))
+    assert files
+    gpkg = out / "farm.gpkg"
+    working = pyogrio.read_info(gpkg, layer="paddocks")["crs"]
+    for path in files:
+        back = pyogrio.read_dataframe(path)
+        assert_clean(back.geometry, back.crs)
+        stem = path.name.removesuffix(".geojson").removesuffix("_shp.zip")
+        layer = "zones_" + stem.replace("-", "_")
+        zones = pyogrio.read_dataframe(gpkg, layer=layer)
+        zones = zones[zones["paddock"].str.lower().str.replace(" ", "-") == path.parent.name]
+        assert len(zones) == len(back)
+        area = back.to_crs(working).geometry.area.to_numpy()
+        # GeoJSON coordinates are rounded to 1e-7 degrees (about 1 cm): 0.5 cm x perimeter
+        tol = (0.005 * zones.geometry.length.to_numpy() + 1.0 if path.suffix == ".geojson"
+               else 1.0 * np.array([len(shapely.get_parts(g)) for g in zones.geometry]))
+        assert np.all(np.abs(area - zones.geometry.area.to_numpy()) <= tol), path
+    for layer, geom in pyogrio.list_layers(gpkg):
+        if geom is not None and "Polygon" in geom:
+            back = pyogrio.read_dataframe(gpkg, layer=layer)
+            assert_clean(back.geometry, back.crs)
+    tasks = sorted((out / "prescriptions").glob("**/TASKDATA.XML"))
+    assert tasks
+    for path in tasks:
+        polys = _task_polygons(path)
+        assert polys
+        assert_clean(polys, "EPSG:4326")
