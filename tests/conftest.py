@@ -11,6 +11,9 @@ with the session's cache where its change leaves the surfaces as they are.
 
 No test writes the user's own cache folder: ``XDG_CACHE_HOME`` points into the session's
 temporary folder for the whole session (``_session_cache_home``).
+
+The browser tests share one headless Chromium per session (``browser``); each test
+opens its own pages and closes them.
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
+from collections.abc import Iterator
 from pathlib import Path
 from types import SimpleNamespace
 from typing import Any
@@ -89,3 +93,13 @@ def demo_run(tmp_path_factory: pytest.TempPathFactory, session_cache: Path) -> S
     return SimpleNamespace(cli=cli_result, out=out, cwd=cwd, farm=farm, before=before,
                            after=snapshot(farm), cache=session_cache, project=project,
                            result=results[0], record=record)
+
+
+@pytest.fixture(scope="session")
+def browser() -> Iterator[Any]:
+    """One headless Chromium for the session's browser tests (``tests/browser.py``; skipped
+    without Chromium, except under ``CI=true``). Tests open and close their own pages."""
+    from tests.browser import Chromium, require_chromium
+
+    with Chromium(require_chromium()) as chromium:
+        yield chromium

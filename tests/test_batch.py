@@ -1,7 +1,9 @@
 """Tests of geosoil.batch: many farms on a Dask cluster started in this process.
 
-The farms are invented: the demo farm's generator (``demo_farm/make_demo_farm.py``)
-with other seeds, on a 40 m grid to keep the runs short. The cluster is a
+The farms are the small invented ones of ``tests/small_farm`` (box paddocks of
+twelve samples each, too few for a paddock's own variogram, so every paddock task
+fits the farm's pooled variogram again, as a batch does), with other paddock names
+and counts, so no two farms give the same figures. The cluster is a
 ``distributed.LocalCluster`` with its workers as threads of this process
 listening on the loopback address only.
 
@@ -25,29 +27,25 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 import rasterio
-from geosoil.demo_farm.make_demo_farm import make_demo_farm
 
 from geosoil import batch, demo_farm
 from geosoil.errors import GeosoilError, InputError, OutputExistsError
 from geosoil.job import run
 from geosoil.project import load_project
+from tests.small_farm import make_project
 
 distributed = pytest.importorskip("distributed")
 
 DEMO = Path(demo_farm.__file__).parent
-GOOD = {"alpha-farm": 101, "bravo-farm": 202}  # invented farms: generator seeds
+GOOD = {"alpha-farm": ("North", "South"),  # invented farms: their paddocks
+        "bravo-farm": ("Red Hill", "Creek Flat", "Windmill")}
+GYPSUM = "[rates.gypsum]\ntarget_esp_percent = 5.0\n"
 
 
-def make_farm(dest: Path, *, seed: int, cache: Path) -> Path:
-    """An invented farm from the demo generator, on a 40 m grid, its cache in ``cache``."""
-    make_demo_farm(dest, seed=seed)
-    text = (DEMO / "geosoil.toml").read_text(encoding="utf-8")
-    text = text.replace("cell_size_m = 10.0", "cell_size_m = 40.0")
-    assert "cell_size_m = 40.0" in text
-    assert "\n[output]\n" in text
-    text = text.replace("\n[output]\n", f"\n[output]\ncache_dir = {json.dumps(str(cache))}\n", 1)
-    (dest / "geosoil.toml").write_text(text, encoding="utf-8")
-    return dest
+def make_farm(dest: Path, *, paddocks: tuple[str, ...], cache: Path) -> Path:
+    """A small invented farm (``tests/small_farm``) with these paddocks, its cache in
+    ``cache``; the gypsum rule's target ESP written out, for a test to change."""
+    return make_project(dest, names=paddocks, extra=GYPSUM, cache=cache)
 
 
 @pytest.fixture(scope="module")
@@ -63,11 +61,11 @@ def client():
 def first(tmp_path_factory, client):
     base = tmp_path_factory.mktemp("batch")
     farms, cache = base / "farms", base / "cache"
-    for name, seed in GOOD.items():
-        make_farm(farms / name, seed=seed, cache=cache)
+    for name, paddocks in GOOD.items():
+        make_farm(farms / name, paddocks=paddocks, cache=cache)
     # broken on a worker: a lab file without one analyte column
-    make_farm(farms / "charlie-bad-lab", seed=303, cache=cache)
-    (farms / "charlie-bad-lab" / "lab_results.csv").write_text("name,colour\nx,red\n")
+    make_farm(farms / "charlie-bad-lab", paddocks=("Home",), cache=cache)
+    (farms / "charlie-bad-lab" / "lab.csv").write_text("name,colour\nx,red\n")
     # broken before any worker: a project file that is not TOML
     (farms / "delta-bad-toml").mkdir()
     (farms / "delta-bad-toml" / "geosoil.toml").write_text("farm = [unclosed\n")
@@ -90,7 +88,7 @@ def test_a_failed_farm_is_reported_and_the_others_finish(first) -> None:
     assert {n: got[n].status for n in GOOD} == dict.fromkeys(GOOD, "done")
     bad = got["charlie-bad-lab"]
     assert bad.status == "failed"
-    assert "lab_results.csv" in bad.error and "no analyte column" in bad.error
+    assert "lab.csv" in bad.error and "no analyte column" in bad.error
     toml = got["delta-bad-toml"]
     assert toml.status == "failed" and "geosoil.toml" in toml.error
     # the summary has every farm, the failed ones with their error
@@ -104,7 +102,8 @@ def test_a_failed_farm_is_reported_and_the_others_finish(first) -> None:
     assert not (first.out / "delta-bad-toml").exists()
     # progress: each paddock interpolated, each farm's end, the failure with its error
     text = "\n".join(first.messages)
-    assert "alpha-farm: paddock 'Red Hill' interpolated" in text
+    assert "bravo-farm: paddock 'Red Hill' interpolated" in text
+    assert "alpha-farm: paddock 'South' interpolated" in text
     assert "bravo-farm: done in" in text and "charlie-bad-lab: FAILED: " in text
 
 
@@ -131,6 +130,9 @@ def test_each_farm_is_the_same_as_run_alone(first, tmp_path) -> None:
         record_alone = json.loads((alone / "run.json").read_text(encoding="utf-8"))
         for part in ("warnings", "surfaces", "zones", "tonnage", "first_season_tonnes"):
             assert record[part] == record_alone[part], part
+        # not vacuous: the paddocks were kriged on the farm's pooled variogram
+        assert {(s["method"], s["variogram"]["scope"]) for s in record["surfaces"]
+                if "variogram" in s} == {("ordinary kriging", "farm")}
         outcome = by_name(first.result)[name]
         farm_rows = result.tonnage[result.tonnage["level"] == "farm"]
         assert outcome.tonnes == dict(zip(farm_rows["product"], farm_rows["tonnes"], strict=True))

@@ -1,6 +1,6 @@
 """``geosoil batch`` through the CLI runner: exit codes, stdout and stderr.
 
-The farm is invented (the demo generator with another seed, on a 40 m grid, see
+The farm is the small invented one of ``tests/small_farm``, with three paddocks (see
 ``tests/test_batch.py``). The batch is pointed with ``--scheduler`` at a Dask
 cluster started in this process, listening on the loopback address only.
 """
@@ -48,7 +48,8 @@ def test_a_folder_without_projects_exits_1_naming_it(tmp_path) -> None:
 @pytest.mark.slow
 def test_a_batch_on_a_scheduler_prints_the_table_and_exits_1_for_a_failed_farm(tmp_path) -> None:
     farms = tmp_path / "farms"
-    make_farm(farms / "good-farm", seed=404, cache=tmp_path / "cache")
+    make_farm(farms / "good-farm", paddocks=("Red Hill", "Creek Flat", "Windmill"),
+              cache=tmp_path / "cache")
     (farms / "bad-farm").mkdir()
     (farms / "bad-farm" / "geosoil.toml").write_text("[samples]\nfile = 3\n")
     with distributed.LocalCluster(
@@ -62,7 +63,7 @@ def test_a_batch_on_a_scheduler_prints_the_table_and_exits_1_for_a_failed_farm(t
     table = out.split("\n\n")[0].splitlines()
     assert table[0].split()[:3] == ["Farm", "Status", "Paddocks"]
     assert table[1].split()[:2] == ["bad-farm", "failed"]
-    assert table[2].split()[:3] == ["good-farm", "done", "3"]  # the demo's three paddocks
+    assert table[2].split()[:3] == ["good-farm", "done", "3"]  # its three paddocks
     assert "Cautions:" in out and "advisory" in out
     assert (tmp_path / "out" / "batch_summary.html").is_file()
     assert "good-farm: paddock 'Windmill' interpolated" in err

@@ -171,12 +171,12 @@ def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  #
 
 
 @pytest.mark.browser
-def test_demo_map_every_layer_on_a_phone_offline(demo_run) -> None:  # noqa: ANN001
-    from tests.browser import Chromium, artifact_path, require_chromium
+def test_demo_map_every_layer_on_a_phone_offline(demo_run, browser) -> None:  # noqa: ANN001
+    from tests.browser import artifact_path
 
     out: Path = demo_run.out
-    with Chromium(require_chromium()) as browser:
-        page = browser.new_page(width=390, height=844)
+    page = browser.new_page(width=390, height=844)
+    try:
         page.goto(out / "map.html")
         got = page.evaluate(
             """(async () => {
@@ -204,6 +204,8 @@ def test_demo_map_every_layer_on_a_phone_offline(demo_run) -> None:  # noqa: ANN
             assert g["inside"], g
         assert page.console_errors == [] and page.dialogs == []
         assert [u for u in page.requests if not u.startswith(("file:", "data:"))] == []
+    finally:
+        page.close()
 
 
 def test_demo_map_paddock_names_sit_inside_their_own_paddock(demo_run) -> None:  # noqa: ANN001
@@ -233,10 +235,10 @@ def test_demo_map_paddock_names_sit_inside_their_own_paddock(demo_run) -> None: 
 
 
 @pytest.mark.browser
-def test_demo_map_labels_never_overlap_on_a_phone(demo_run) -> None:  # noqa: ANN001
+def test_demo_map_labels_never_overlap_on_a_phone(demo_run, browser) -> None:  # noqa: ANN001
     """At 390 x 844 px, and zoomed out, every paddock name shows and no two shown labels
     (names and zone rates) overlap: zone rates give way."""
-    from tests.browser import Chromium, artifact_path, require_chromium
+    from tests.browser import artifact_path
 
     probe = """(() => {
       const all = Array.from(document.querySelectorAll('.gs-paddock-label, .gs-zone-label'));
@@ -250,8 +252,8 @@ def test_demo_map_labels_never_overlap_on_a_phone(demo_run) -> None:  # noqa: AN
       return {overlaps, names: shown.filter(e => e.classList.contains('gs-paddock-label')).length,
               zones: shown.length, all: all.length};
     })()"""
-    with Chromium(require_chromium()) as browser:
-        page = browser.new_page(width=390, height=844)
+    page = browser.new_page(width=390, height=844)
+    try:
         page.goto(demo_run.out / "map.html")
         browser.drain(0.3)
         got = page.evaluate(probe)
@@ -269,3 +271,5 @@ def test_demo_map_labels_never_overlap_on_a_phone(demo_run) -> None:  # noqa: AN
         got = page.evaluate(probe)
         assert got["overlaps"] == 0, got
         assert page.console_errors == []
+    finally:
+        page.close()

@@ -279,42 +279,43 @@ def test_the_pretreatment_warning_reaches_check_summary_run_json_and_report(
 
 
 @pytest.mark.browser
-def test_browser_class_layers_show_with_their_legend(two_depths: dict) -> None:
+def test_browser_class_layers_show_with_their_legend(
+    two_depths: dict, browser  # noqa: ANN001
+) -> None:
     """The salinity and dispersion classes of each layer, each switched on alone, show their
     class names in the legend (the map opened offline in headless Chromium)."""
-    from tests.browser import Chromium, artifact_path, require_chromium
+    from tests.browser import artifact_path
 
     names = {"salinity_class": ["normal", "saline", "sodic", "saline-sodic"],
              "dispersion_class": ["flocculated", "potentially dispersive", "dispersive"]}
-    with Chromium(require_chromium()) as browser:
-        page = browser.new_page(width=1280, height=900)
-        try:
-            page.goto(two_depths["out"] / "map.html")
-            browser.drain(0.2)
-            for key in ("salinity_class", "dispersion_class", "salinity_class_10-30cm",
-                        "esp_10-30cm"):
-                got = page.evaluate(
-                    f"""(async (id) => {{
-                      const api = window.geosoilMap;
-                      api.show({{surface: id, product: null}});
-                      await api.surfaces[id].getElement().decode();
-                      const entries = document.querySelectorAll('#gs-legend .gs-legend-entry');
-                      return {{n: entries.length, surface: entries[0].dataset.surface,
-                              text: entries[0].textContent,
-                              labels: Array.from(entries[0].querySelectorAll('li')).map(
-                                li => li.textContent.trim())}};
-                    }})({json.dumps(key)})""")
-                assert got["n"] == 1 and got["surface"] == key
-                base = key.replace("_10-30cm", "")
-                if base in names:
-                    assert [lab for lab in got["labels"] if lab] [::-1] == names[base] or \
-                        sorted(lab for lab in got["labels"] if lab) == sorted(names[base]), got
-                if key.endswith("_10-30cm"):
-                    assert "10-30 cm" in got["text"]
-            page.screenshot(artifact_path("depths-subsoil-esp.png"))
-            assert page.console_errors == []
-        finally:
-            page.close()
+    page = browser.new_page(width=1280, height=900)
+    try:
+        page.goto(two_depths["out"] / "map.html")
+        browser.drain(0.2)
+        for key in ("salinity_class", "dispersion_class", "salinity_class_10-30cm",
+                    "esp_10-30cm"):
+            got = page.evaluate(
+                f"""(async (id) => {{
+                  const api = window.geosoilMap;
+                  api.show({{surface: id, product: null}});
+                  await api.surfaces[id].getElement().decode();
+                  const entries = document.querySelectorAll('#gs-legend .gs-legend-entry');
+                  return {{n: entries.length, surface: entries[0].dataset.surface,
+                          text: entries[0].textContent,
+                          labels: Array.from(entries[0].querySelectorAll('li')).map(
+                            li => li.textContent.trim())}};
+                }})({json.dumps(key)})""")
+            assert got["n"] == 1 and got["surface"] == key
+            base = key.replace("_10-30cm", "")
+            if base in names:
+                assert [lab for lab in got["labels"] if lab] [::-1] == names[base] or \
+                    sorted(lab for lab in got["labels"] if lab) == sorted(names[base]), got
+            if key.endswith("_10-30cm"):
+                assert "10-30 cm" in got["text"]
+        page.screenshot(artifact_path("depths-subsoil-esp.png"))
+        assert page.console_errors == []
+    finally:
+        page.close()
 
 
 def test_gypsum_water_per_zone_with_the_leaching_caution(two_depths: dict) -> None:

@@ -339,26 +339,27 @@ def test_ph_methods_must_match_unless_converted(seasons: dict[str, Path],
 
 
 @pytest.mark.browser
-def test_map_and_report_open_offline_in_chromium(seasons: dict[str, Path]) -> None:
+def test_map_and_report_open_offline_in_chromium(
+    seasons: dict[str, Path], browser  # noqa: ANN001
+) -> None:
     """The change map and report in a real headless Chromium, network cut off."""
-    from tests.browser import Chromium, artifact_path, require_chromium
+    from tests.browser import artifact_path
 
     out = seasons["change"]
-    with Chromium(require_chromium()) as browser:
-        for name in ("map.html", "report.html"):
-            page = browser.new_page(width=1280, height=900)
-            page.goto(out / name)
-            browser.drain(0.2)
-            assert page.console_errors == [] and page.dialogs == []
-            remote = [u for u in page.requests if not u.startswith(("file:", "data:"))]
-            assert remote == []
-            page.screenshot(artifact_path(f"compare-{name}.png"), full_page=name != "map.html")
-            if name == "map.html":
-                legends = page.evaluate(
-                    "Array.from(document.querySelectorAll('#gs-legend .gs-legend-title'))"
-                    ".map(e => e.textContent)")
-                assert legends[0] == "ESP: changed beyond error?"
-            page.close()
+    for name in ("map.html", "report.html"):
+        page = browser.new_page(width=1280, height=900)
+        page.goto(out / name)
+        browser.drain(0.2)
+        assert page.console_errors == [] and page.dialogs == []
+        remote = [u for u in page.requests if not u.startswith(("file:", "data:"))]
+        assert remote == []
+        page.screenshot(artifact_path(f"compare-{name}.png"), full_page=name != "map.html")
+        if name == "map.html":
+            legends = page.evaluate(
+                "Array.from(document.querySelectorAll('#gs-legend .gs-legend-title'))"
+                ".map(e => e.textContent)")
+            assert legends[0] == "ESP: changed beyond error?"
+        page.close()
 
 
 def test_samples_at_several_depths_compare_the_top_layer(seasons: dict[str, Path],

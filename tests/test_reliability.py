@@ -7,9 +7,9 @@ the files left behind (the old output folder whole, nothing half-written or stal
 temporary folder once the next run has swept) and the message (a named error or
 warning, no traceback).
 
-The farm is the small invented one of ``tests/small_farm``. Runs that must be killed
-or held run in a child process that stops at a named progress stage and waits for a
-"go" file, so the stage is known and nothing depends on timing.
+The farm is the small invented one of ``tests/small_farm``. A run that must be held
+and killed runs in a child process that stops at a named progress stage and waits
+(for a "go" file that never comes), so the stage is known and nothing depends on timing.
 """
 
 from __future__ import annotations
@@ -101,11 +101,16 @@ def previous(first_output: Path, tmp_path: Path) -> tuple[Path, dict[str, bytes]
     return out, tree(out)
 
 
-# --------------------------------------------------------------------------- kill -9
+# ------------------------------------------------------ two runs at once, then kill -9
 
 
 @pytest.mark.slow
-def test_a_run_killed_while_writing_leaves_the_old_folder_whole(farm, previous, tmp_path) -> None:  # noqa: ANN001
+def test_a_run_held_while_writing_refuses_a_second_and_killed_leaves_the_old_folder_whole(
+    farm, previous, tmp_path  # noqa: ANN001
+) -> None:
+    """One child run, held half way through writing, serves both faults: a second run
+    into its folder is refused and touches neither the folder nor the held run's files
+    beside it; then the held run is killed (-9) and the user keeps the previous folder."""
     out, before = previous
     proc, _flag, _go = start_held_run(farm, out, tmp_path)
     try:
@@ -113,6 +118,14 @@ def test_a_run_killed_while_writing_leaves_the_old_folder_whole(farm, previous, 
         temp = [p for p in out.parent.iterdir() if p.name.startswith(sibling_names(out)[1])]
         assert len(temp) == 1 and any(temp[0].rglob("*.tif"))
         assert tree(out) == before
+        held, aside = tree(temp[0]), beside(out)
+        assert sibling_names(out)[0] in aside  # the held run's lock
+        r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(out), "--overwrite"])
+        assert r.exit_code == 1
+        assert "another geosoil run is writing" in r.stderr and "Traceback" not in r.stderr
+        # neither run has touched the folder; the held run's files and lock are as they were
+        assert tree(out) == before and tree(temp[0]) == held and beside(out) == aside
+        assert proc.poll() is None  # the held run is still there, waiting
     finally:
         os.kill(proc.pid, signal.SIGKILL)
         proc.wait()
@@ -124,27 +137,6 @@ def test_a_run_killed_while_writing_leaves_the_old_folder_whole(farm, previous, 
     record = json.loads((out / "run.json").read_text(encoding="utf-8"))
     assert set(record["files"]) == set(tree(out))
     assert result.out_dir == out.resolve()
-
-
-# --------------------------------------------------------------------------- two runs at once
-
-
-@pytest.mark.slow
-def test_a_second_run_into_a_folder_being_written_is_refused(farm, previous, tmp_path) -> None:  # noqa: ANN001
-    out, before = previous
-    proc, _flag, go = start_held_run(farm, out, tmp_path)
-    try:
-        r = CliRunner().invoke(cli, ["run", str(farm), "--out", str(out), "--overwrite"])
-        assert r.exit_code == 1
-        assert "another geosoil run is writing" in r.stderr and "Traceback" not in r.stderr
-        assert tree(out) == before  # neither run has touched it yet
-    finally:
-        go.write_text("go")
-        stdout, stderr = proc.communicate(timeout=600)
-    assert proc.returncode == 0, stderr[-3000:]
-    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
-    assert set(record["files"]) == set(tree(out))  # one run's files, whole
-    assert beside(out) == set()  # not even the lock file
 
 
 # --------------------------------------------------------------------------- a full disk

@@ -20,7 +20,7 @@ from shapely.geometry import Point, box
 from geosoil import report, webmap
 from geosoil.errors import InputError, SettingsError
 from geosoil.presentation import escape_text
-from tests.browser import Chromium, artifact_path, require_chromium
+from tests.browser import artifact_path
 
 HOSTILE_IMG = "<img src=x onerror=alert(1)>"
 HOSTILE_SCRIPT = "</script><script>alert(1)</script>"
@@ -544,12 +544,6 @@ def test_variogram_plot_takes_a_given_curve() -> None:
 
 
 # --------------------------------------------------------------------------- browser
-
-
-@pytest.fixture(scope="module")
-def browser():
-    with Chromium(require_chromium()) as chromium:
-        yield chromium
 
 
 @pytest.fixture(scope="module")

@@ -23,7 +23,7 @@ from shapely.geometry import Point, box
 from geosoil import webmap
 from geosoil.errors import CRSError, InputError, SettingsError
 from geosoil.presentation import classes_for, escape_text, hex_to_rgb
-from tests.browser import Chromium, artifact_path, require_chromium
+from tests.browser import artifact_path
 
 # Strings a hostile or careless input file might hold (sample ids, paddock names, columns).
 HOSTILE_IMG = "<img src=x onerror=alert(1)>"
@@ -443,12 +443,6 @@ def test_warp_respects_the_pixel_budget() -> None:
 # --------------------------------------------------------------------------- browser
 
 
-@pytest.fixture(scope="module")
-def browser():
-    with Chromium(require_chromium()) as chromium:
-        yield chromium
-
-
 def _open(browser, path, *, width: int = 1280, height: int = 900):
     page = browser.new_page(width=width, height=height)
     page.goto(path)
@@ -786,6 +780,7 @@ def test_browser_where_am_i_uses_the_device_location(browser, map_path) -> None:
         remote = [u for u in page.requests if not u.startswith(("file:", "data:"))]
         assert remote == [] and page.console_errors == []
     finally:
+        page.browser.call("Browser.resetPermissions")  # the session's browser is shared
         page.close()
 
 
