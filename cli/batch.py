@@ -107,7 +107,7 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
     echo(f"Batch folder: {result.out_dir}")
     for name in (SUMMARY_CSV, SUMMARY_HTML):
         echo(f"  {result.out_dir / name}")
-    print_cautions()
+    print_cautions(result.record["cautions"])
     if result.failed:
         echo_err(f"{len(result.failed)} of {len(result.outcomes)} farm(s) failed:")
         for o in result.failed:

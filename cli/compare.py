@@ -79,4 +79,4 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     echo(f"  {result.out_dir / 'change'}  ({n_tif} files; class codes "
          + ", ".join(f"{c} {k}" for k, c in CLASS_CODES.items()) + ")")
     print_warnings(result.warnings, where="run.json and the report", quiet=ctx.obj["quiet"])
-    print_cautions()
+    print_cautions(rec["cautions"])

@@ -21,13 +21,17 @@ def print_warnings(warnings: Sequence[str], *, where: str, quiet: bool) -> None:
             echo_err(f"  - {w}")
 
 
-def print_cautions() -> None:
-    """The cautions that end the output of every command that gives rates (stdout)."""
-    from geosoil.report import CAUTIONS
+def print_cautions(cautions: Sequence[str] | None = None) -> None:
+    """The cautions that end the output of every command that gives rates (stdout):
+    ``cautions`` as the command's run.json and report hold them (default: the standing
+    ones, :data:`geosoil.report.CAUTIONS`)."""
+    if cautions is None:
+        from geosoil.report import CAUTIONS
 
+        cautions = CAUTIONS
     echo("")
     echo("Cautions:")
-    for c in CAUTIONS:
+    for c in cautions:
         echo(f"  * {c}")
 
 
@@ -64,4 +68,4 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
             echo(f"  {item['what']}: {item['original']!r} -> {item['short']!r}"
                  f" ({item['format']})")
     print_warnings(result.warnings, where="run.json and the report", quiet=quiet)
-    print_cautions()
+    print_cautions(result.record["cautions"])  # the list run.json and the report hold

@@ -88,6 +88,7 @@ __all__ = [
     "build_farm_map",
     "report_input",
     "product_text",
+    "run_cautions",
     "SURFACE_UNITS",
     "TITLES",
     "UNCERTAIN_SD",
@@ -665,6 +666,13 @@ def gypsum_water_cautions(farm: FarmResult) -> list[str]:
     return lines
 
 
+def run_cautions(farm: FarmResult) -> list[str]:
+    """The run's one list of cautions: the standing ones (:data:`geosoil.report.CAUTIONS`)
+    and a gypsum-water line per paddock with gypsum. run.json, the report and the command
+    line's summary all show this list."""
+    return [*report_mod.CAUTIONS, *gypsum_water_cautions(farm)]
+
+
 def salinity_record(farm: FarmResult) -> dict[str, Any]:
     """run.json's salinity block: the ECe basis, class areas per paddock, gypsum water."""
     prep = farm.prep
@@ -767,7 +775,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "salinity": salinity_record(farm),
         "soluble_salts": soluble_salts_record(farm),
         "layers": layers_record(farm),
-        "cautions": list(report_mod.CAUTIONS) + gypsum_water_cautions(farm),
+        "cautions": run_cautions(farm),
     }
 
 
@@ -1465,7 +1473,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         assumptions=assumptions,
         methods=tuple(methods.items()),
         warnings=tuple(farm.warnings),
-        cautions=(*report_mod.CAUTIONS, *gypsum_water_cautions(farm)),
+        cautions=tuple(run_cautions(farm)),
         zone_water={(r["paddock"], r["product"], r["zone"]): (r["water_mm"],
                                                               r["leaching_esp_share"])
                     for r in gypsum_water(farm)},

@@ -170,6 +170,56 @@ def test_demo_report_lists_the_warnings_the_summary_prints(demo_run) -> None:  #
     assert summary == listed
 
 
+def _caution_items(page: str) -> list[str]:
+    """The text of each item of the report's cautions box, read by Python's own HTML parser."""
+    from html.parser import HTMLParser
+
+    class Reader(HTMLParser):
+        def __init__(self) -> None:
+            super().__init__(convert_charrefs=True)
+            self.depth = 0  # >0 inside <section id="cautions">
+            self.items: list[str] = []
+            self.in_item = False
+
+        def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+            if self.depth:
+                self.depth += tag == "section"
+                if tag == "li":
+                    self.in_item = True
+                    self.items.append("")
+            elif tag == "section" and ("id", "cautions") in attrs:
+                self.depth = 1
+
+        def handle_endtag(self, tag: str) -> None:
+            if self.depth:
+                self.depth -= tag == "section"
+                self.in_item = self.in_item and tag != "li"
+
+        def handle_data(self, data: str) -> None:
+            if self.in_item:
+                self.items[-1] += data
+
+    reader = Reader()
+    reader.feed(page)
+    return [" ".join(item.split()) for item in reader.items]
+
+
+def test_the_summary_run_json_and_report_give_the_same_cautions(demo_run) -> None:  # noqa: ANN001
+    """Issue: the command line's cautions left out the per-paddock gypsum-water caution
+    (leaching water, drainage) that run.json and the report carried. One list, three places."""
+    from geosoil.report import CAUTIONS
+
+    record = demo_run.record
+    lines = demo_run.cli.stdout.splitlines()
+    start = lines.index("Cautions:")
+    printed = [ln[4:] for ln in lines[start + 1:] if ln.startswith("  * ")]
+    reported = _caution_items((demo_run.out / "report.html").read_text(encoding="utf-8"))
+    assert printed == record["cautions"] == reported
+    gypsum = [c for c in printed if c.startswith("Gypsum on ")]
+    assert gypsum and len(printed) == len(CAUTIONS) + len(gypsum)  # the demo has sodic paddocks
+    assert all("drains" in c and "mm" in c for c in gypsum)
+
+
 @pytest.mark.browser
 def test_demo_map_every_layer_on_a_phone_offline(demo_run, browser) -> None:  # noqa: ANN001
     from tests.browser import artifact_path
