@@ -66,6 +66,7 @@ from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
 from .samples import DEPTH_COLUMNS, SampleRead, prepare_samples, read_samples
 from .settings import to_mapping
+from .spreader import unsplit_pass_warning
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
 from .tonnage import tonnage_table
 from .zones import ZONE_COLUMNS, ZoneResult, make_zones
@@ -1041,10 +1042,11 @@ def compute(
                     exclusions=excl,
                     user_zones=zones_here,
                     settings=zone_settings,
-                    spreader=s.spreader,
+                    spreader=s.spreader.for_product(product),
                 )
                 zone_frames.append(zr.zones)
                 zone_notes.extend(zr.notes)
+                _warn_unsplit_passes(zr.zones, s, paddock=name, product=product)
             zones = (
                 pd.concat(zone_frames, ignore_index=True)
                 if zone_frames
@@ -1145,6 +1147,18 @@ def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, **kw: Any) 
     except OSError as exc:
         logger.info("could not write the zones cache in %s (%s)", folder, exc)
     return zr
+
+
+def _warn_unsplit_passes(zones: gpd.GeoDataFrame, s: Any, *, paddock: str,
+                         product: str) -> None:
+    """Warn where a zone's whole rate goes on in one pass above the common per-pass limit
+    because the project sets none for the product (its rates are left as they are)."""
+    spread = zones[zones["kind"] != "exclusion"]
+    msg = unsplit_pass_warning(spread["rate_kg_ha"].tolist(), spread["zone"].tolist(),
+                               spreader=s.spreader, paddock=paddock, product=product,
+                               rate_unit=s.output.rate_unit)
+    if msg:
+        warnings.warn(msg, RateWarning, stacklevel=2)
 
 
 def _warn_uncertified(results: dict[str, PaddockResult], products: Any) -> None:

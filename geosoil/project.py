@@ -35,7 +35,7 @@ from .rates import RateSettings
 from .salinity import SalinitySettings
 from .samples import SampleSettings
 from .settings import describe, from_mapping, setting, to_mapping
-from .spreader import SpreaderSettings
+from .spreader import COMMON_MAX_PER_PASS_KG_HA, SpreaderSettings
 from .surfaces import InterpolationSettings
 from .zones import ZoneSettings
 
@@ -269,6 +269,15 @@ class ProjectSettings:
                     f"'{name}' is not a defined product; {hint}defined products: "
                     f"{', '.join(sorted(self.products)) or 'none'}",
                     key=f"tonnage.price_per_t.{name}",
+                )
+        for name in self.spreader.max_per_pass_by_product:  # a typo would leave no limit
+            if name not in self.products:
+                near = difflib.get_close_matches(name, list(self.products), n=1)
+                hint = f"did you mean '{near[0]}'? " if near else ""
+                raise SettingsError(
+                    f"'{name}' is not a defined product; {hint}defined products: "
+                    f"{', '.join(sorted(self.products)) or 'none'}",
+                    key=f"spreader.max_per_pass_by_product.{name}",
                 )
 
 
@@ -873,11 +882,16 @@ def new_project(
         farm=folder.resolve().name,
         # a new project starts from a spreader that meters no less than NEW_MIN_RATE_KG_HA:
         # tiny rates over whole paddocks are not what a spreader can put out
-        spreader=SpreaderSettings(unit="kg/ha", min_rate=NEW_MIN_RATE_KG_HA),
+        # and that spreads at most COMMON_MAX_PER_PASS_KG_HA of each product in one pass
+        spreader=SpreaderSettings(
+            unit="kg/ha", min_rate=NEW_MIN_RATE_KG_HA,
+            max_per_pass_by_product=dict.fromkeys(default_products(), COMMON_MAX_PER_PASS_KG_HA)),
     )
     notes.append(
         f"spreader minimum rate set to {NEW_MIN_RATE_KG_HA:g} kg/ha (common practice for "
-        "spinner spreaders); put your machine's figures in [spreader]"
+        f"spinner spreaders), and at most {COMMON_MAX_PER_PASS_KG_HA:g} kg/ha of each product "
+        "in one pass, larger rates split into equal passes (common practice); put your "
+        "machine's figures in [spreader]"
     )
     text = template(settings, header=f"written by 'geosoil new' for {samples.name}")
     parse_project(text, base_dir=folder.resolve(), source=str(target))  # it must run as written

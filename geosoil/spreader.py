@@ -13,8 +13,10 @@ spreading.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -28,7 +30,9 @@ from .units import RATE_UNITS, format_rate, rate_from_kg_ha, rate_to_kg_ha
 
 __all__ = [
     "SPREADER_CEILING_KG_HA",
+    "COMMON_MAX_PER_PASS_KG_HA",
     "SpreaderSettings",
+    "unsplit_pass_warning",
     "split_passes",
     "spreader_passes",
     "apply_spreader_limits",
@@ -45,6 +49,13 @@ def _kg_ha(value: float, unit: str) -> float:
 #: gypsum are set in single t/ha to tens of t/ha (common practice); a figure above this is
 #: a typo or a unit mix-up, refused before anything is computed.
 SPREADER_CEILING_KG_HA = 100_000.0
+
+#: Most lime or gypsum spread in one pass, kg/ha: about 5 t/ha (common practice, from
+#: memory: larger rates are split over passes or seasons so that the product is spread
+#: evenly, works into the soil and can be re-tested between; see the cautions). ``geosoil new``
+#: writes it for each product (``[spreader] max_per_pass_by_product``); a run with no
+#: per-pass limit for a product warns where a zone's single pass is above it.
+COMMON_MAX_PER_PASS_KG_HA = 5_000.0
 
 
 @dataclass(frozen=True)
@@ -66,6 +77,12 @@ class SpreaderSettings:
         0.0, doc="largest rate in one pass (0: no limit); more is split into equal passes",
         minimum=0.0,
     )
+    max_per_pass_by_product: dict[str, float] = setting(
+        default_factory=dict,
+        doc="largest rate in one pass of a product, by its name in [products] (0: none; "
+        "'geosoil new' writes 5000 kg/ha each, common practice); the smaller of it and "
+        "max_per_pass applies",
+    )
     rate_step: float = setting(
         0.0, doc="the machine's rate step; each pass is rounded to it (0: no rounding)", minimum=0.0
     )
@@ -81,15 +98,26 @@ class SpreaderSettings:
 
     def __post_init__(self) -> None:
         _check_declared(self)
-        for key in ("min_rate", "max_per_pass", "rate_step"):
-            kg_ha = _kg_ha(getattr(self, key), self.unit)
+        values = [(key, getattr(self, key)) for key in ("min_rate", "max_per_pass", "rate_step")]
+        values += [(f"max_per_pass_by_product.{name}", value)
+                   for name, value in self.max_per_pass_by_product.items()]
+        for key, value in values:
+            if not (math.isfinite(value) and value >= 0):
+                raise SettingsError(f"must be 0 or more (got {value:g})", key=key)
+            kg_ha = _kg_ha(value, self.unit)
             if kg_ha > SPREADER_CEILING_KG_HA:
                 raise SettingsError(
-                    f"{getattr(self, key):g} {self.unit} is beyond what any spreader puts out "
+                    f"{value:g} {self.unit} is beyond what any spreader puts out "
                     f"(at most {SPREADER_CEILING_KG_HA / 1000:g} t/ha in one pass); give the "
                     "machine's figure in [spreader] unit",
                     key=key,
                 )
+        for name in self.max_per_pass_by_product:
+            try:
+                self.for_product(name)
+            except SettingsError as exc:  # min_rate or rate_step above the product's limit
+                raise SettingsError(f"for product '{name}': {exc.bare_message}",
+                                    key=f"max_per_pass_by_product.{name}") from None
         if self.max_per_pass > 0:
             if self.min_rate > self.max_per_pass:
                 raise SettingsError(
@@ -118,6 +146,21 @@ class SpreaderSettings:
             return self.max_per_pass
         return math.floor(self.max_per_pass / self.rate_step + 1e-9) * self.rate_step
 
+    def for_product(self, product: str) -> SpreaderSettings:
+        """The limits that apply to ``product``: ``max_per_pass`` is the smaller of the
+        spreader's and the product's own (``max_per_pass_by_product``), 0 meaning none.
+
+        Examples
+        --------
+        >>> sp = SpreaderSettings(unit="t/ha", max_per_pass_by_product={"gypsum": 5.0})
+        >>> sp.for_product("gypsum").max_per_pass, sp.for_product("lime").max_per_pass
+        (5.0, 0.0)
+        """
+        own = self.max_per_pass_by_product.get(product, 0.0)
+        limits = [v for v in (self.max_per_pass, own) if v > 0]
+        return dataclasses.replace(self, max_per_pass=min(limits) if limits else 0.0,
+                                   max_per_pass_by_product={})
+
     @property
     def min_rate_kg_ha(self) -> float:
         """Smallest spreadable rate, kg/ha."""
@@ -132,6 +175,52 @@ class SpreaderSettings:
     def rate_step_kg_ha(self) -> float:
         """Rate step, kg/ha (0: none)."""
         return _kg_ha(self.rate_step, self.unit)
+
+
+def unsplit_pass_warning(
+    rates_kg_ha: Sequence[float], zones: Sequence[object], *, spreader: SpreaderSettings,
+    paddock: str, product: str, rate_unit: str = "kg/ha",
+) -> str | None:
+    """The warning for zones whose whole rate goes on in one pass above
+    :data:`COMMON_MAX_PER_PASS_KG_HA` because no per-pass limit applies to ``product``;
+    None when a limit applies or no zone is above it. Rates are never changed here: an
+    existing project keeps its rates until its owner sets a limit.
+
+    Parameters
+    ----------
+    rates_kg_ha, zones
+        Each zone's rate (kg/ha, one pass) and its number.
+    spreader
+        The project's spreader settings (its limits for ``product`` are looked up).
+    paddock, product
+        Named in the message.
+    rate_unit
+        Unit of the rates in the message.
+
+    Examples
+    --------
+    >>> print(unsplit_pass_warning([9800.0, 1200.0], [1, 2], spreader=SpreaderSettings(),
+    ...                            paddock="Red Hill", product="gypsum", rate_unit="t/ha"))
+    ... # doctest: +NORMALIZE_WHITESPACE
+    paddock 'Red Hill', gypsum: zone(s) 1 get up to 9.8 t/ha in a single pass, above the
+    5.0 t/ha commonly spread in one pass (common practice), because no per-pass limit is set:
+    set [spreader] max_per_pass_by_product.gypsum (or max_per_pass) to your spreader's
+    figure to split it into passes
+    """
+    if spreader.for_product(product).max_per_pass > 0:
+        return None
+    above = [(float(r), z) for r, z in zip(rates_kg_ha, zones, strict=True)
+             if math.isfinite(r) and r > COMMON_MAX_PER_PASS_KG_HA]
+    if not above:
+        return None
+    top = max(r for r, _ in above)
+    names = ", ".join(str(z) for _, z in above)
+    return (f"paddock '{paddock}', {product}: zone(s) {names} get up to "
+            f"{format_rate(top, rate_unit)} in a single pass, above the "
+            f"{format_rate(COMMON_MAX_PER_PASS_KG_HA, rate_unit)} commonly spread in one pass "
+            "(common practice), because no per-pass limit is set: set [spreader] "
+            f"max_per_pass_by_product.{product} (or max_per_pass) to your spreader's figure "
+            "to split it into passes")
 
 
 def split_passes(rate: ArrayLike, max_per_pass: float) -> tuple[Any, Any]:

@@ -682,3 +682,52 @@ def test_ph_in_cacl2_meets_its_own_no_lime_limit(tmp_path) -> None:
     cacl2 = compute(load_project(path), use_cache=False).paddocks["Flat"]
     assert np.nanmax(cacl2.rates.product_rates["lime"]) == 0
     assert any("pH (CaCl2) above 6.4" in n for n in cacl2.rates.notes)
+
+
+def test_a_large_rate_is_split_by_new_s_limit_and_an_older_project_is_warned(tmp_path) -> None:
+    """Issue: 'new' wrote no per-pass limit, so a large gypsum rate was prescribed as one pass
+    with no word. 'new' now writes [spreader] max_per_pass_by_product (5 t/ha each, common
+    practice; geosoil.spreader.COMMON_MAX_PER_PASS_KG_HA); a project without it keeps its rates
+    (one pass) and gets a warning naming the paddock, product and rate."""
+    from geosoil.project import new_project
+    from geosoil.spreader import COMMON_MAX_PER_PASS_KG_HA
+
+    folder = tmp_path / "farm"
+    folder.mkdir()
+    x0, y0 = 540_000.0, 6_160_000.0
+    gpd.GeoDataFrame({"name": ["Flat"]}, geometry=[shapely.box(x0, y0, x0 + 300, y0 + 300)],
+                     crs="EPSG:32755").to_file(folder / "paddocks.gpkg")
+    # a strongly sodic soil (ESP about 47 %): gypsum well above 5 t/ha at 10 cm
+    rows = [f"S{i}{j},{x0 + 50 + 100 * i:.1f},{y0 + 50 + 100 * j:.1f},7.2,5.0,3.0,0.8,8.0"
+            for i in range(3) for j in range(3)]
+    (folder / "lab.csv").write_text(
+        "Sample ID,Easting,Northing,pH (water),Exch Ca (cmol/kg),Exch Mg (cmol/kg),"
+        "Exch K (cmol/kg),Exch Na (cmol/kg)\n" + "\n".join(rows) + "\n")
+    path, notes = new_project(folder / "project", samples=folder / "lab.csv",
+                              paddocks=folder / "paddocks.gpkg", crs="EPSG:32755")
+    text = path.read_text(encoding="utf-8")
+    assert "max_per_pass_by_product = { gypsum = 5000.0, lime = 5000.0 }" in text
+    line = next(ln for ln in text.splitlines() if ln.startswith("max_per_pass_by_product"))
+    assert "common practice" in line
+    assert any("5000 kg/ha of each product in one pass" in n for n in notes)
+
+    split = compute(load_project(path), use_cache=False)
+    gyp = split.zones[(split.zones["product"] == "gypsum") & (split.zones["rate_kg_ha"] > 0)]
+    assert len(gyp) and (gyp["rate_kg_ha"] > COMMON_MAX_PER_PASS_KG_HA).all()
+    assert (gyp["passes"] >= 2).all()
+    assert (gyp["per_pass_kg_ha"] <= COMMON_MAX_PER_PASS_KG_HA + 1e-6).all()
+    assert not [w for w in split.warnings if "in a single pass" in w]
+
+    # the same project as written before 'new' gave a limit: its rates stay, and it is told
+    older = path.parent / "older.toml"
+    older.write_text("\n".join(ln for ln in text.splitlines()
+                               if not ln.startswith("max_per_pass_by_product")) + "\n")
+    one = compute(load_project(older), use_cache=False)
+    gyp1 = one.zones[(one.zones["product"] == "gypsum") & (one.zones["rate_kg_ha"] > 0)]
+    assert (gyp1["passes"] == 1).all()
+    assert gyp1["rate_kg_ha"].max() == pytest.approx(gyp["rate_kg_ha"].max(), rel=0.02)
+    told = [w for w in one.warnings if "in a single pass" in w]
+    assert len(told) == 1, one.warnings
+    top = f"{gyp1['rate_kg_ha'].max():,.0f} kg/ha"
+    assert told[0].startswith("paddock 'Flat', gypsum: zone(s) ") and top in told[0]
+    assert "common practice" in told[0] and "max_per_pass_by_product.gypsum" in told[0]

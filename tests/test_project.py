@@ -152,6 +152,16 @@ def test_a_price_for_a_product_that_is_not_defined_names_the_key_and_the_nearest
     assert "did you mean 'gypsum'?" in str(err) and "gypsum, lime" in str(err)
 
 
+def test_a_per_pass_limit_for_a_product_that_is_not_defined_names_the_key(
+    tmp_path: Path
+) -> None:
+    # a typo would leave gypsum without its per-pass limit, silently
+    err = _problem(MINIMAL + "\n[spreader]\nmax_per_pass_by_product = { gypsom = 5000.0 }\n",
+                   tmp_path)
+    assert err.key == "spreader.max_per_pass_by_product.gypsom"
+    assert "did you mean 'gypsum'?" in str(err)
+
+
 def test_a_missing_required_key_is_named(tmp_path: Path) -> None:
     err = _problem('[boundaries]\npaddocks = "p.geojson"\n', tmp_path)
     assert err.key == "samples"

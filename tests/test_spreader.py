@@ -13,11 +13,13 @@ from hypothesis import strategies as st
 from geosoil.errors import RateWarning, SettingsError
 from geosoil.settings import from_mapping
 from geosoil.spreader import (
+    COMMON_MAX_PER_PASS_KG_HA,
     SpreaderSettings,
     apply_spreader_limits,
     pass_schedule,
     split_passes,
     spreader_passes,
+    unsplit_pass_warning,
 )
 from geosoil.units import kg_ha_to_lb_ac, lb_ac_to_kg_ha
 
@@ -111,3 +113,39 @@ def test_bad_spreader_settings_name_the_key() -> None:
     with pytest.raises(SettingsError) as err:
         from_mapping(SpreaderSettings, {"min_rate": -1}, section="spreader")
     assert err.value.key == "spreader.min_rate"
+
+
+def test_a_product_s_own_per_pass_limit_and_the_spreader_s_the_smaller_applies() -> None:
+    sp = SpreaderSettings(unit="t/ha", max_per_pass=4.0,
+                          max_per_pass_by_product={"gypsum": 5.0, "lime": 2.5})
+    assert sp.for_product("gypsum").max_per_pass == 4.0
+    assert sp.for_product("lime").max_per_pass == 2.5
+    assert sp.for_product("dolomite").max_per_pass == 4.0
+    assert SpreaderSettings(max_per_pass_by_product={"lime": 0.0}).for_product("lime") \
+        .max_per_pass == 0.0  # 0: none
+    # the product's limit splits as the spreader's would (ceil(9.8 / 5) = 2 passes of 4.9)
+    n, per = split_passes(9800.0, sp.for_product("gypsum").max_per_pass_kg_ha)
+    assert int(n) == 3 and float(per) == pytest.approx(9800 / 3)  # 4 t/ha is the smaller
+    with pytest.raises(SettingsError) as err:
+        SpreaderSettings(min_rate=3000, max_per_pass_by_product={"gypsum": 2500})
+    assert err.value.key == "max_per_pass_by_product.gypsum"
+    with pytest.raises(SettingsError) as err:
+        from_mapping(SpreaderSettings, {"max_per_pass_by_product": {"lime": -1.0}},
+                     section="spreader")
+    assert "max_per_pass_by_product.lime" in str(err.value)
+
+
+def test_an_unsplit_pass_above_the_common_limit_is_named_and_left_as_it_is() -> None:
+    """5 t/ha in one pass: common practice (geosoil.spreader.COMMON_MAX_PER_PASS_KG_HA)."""
+    rates, zones = [9_800.0, COMMON_MAX_PER_PASS_KG_HA, 1_200.0, float("nan")], [1, 2, 3, 4]
+    msg = unsplit_pass_warning(rates, zones, spreader=SpreaderSettings(), paddock="Red Hill",
+                               product="gypsum")
+    assert msg is not None
+    assert msg.startswith("paddock 'Red Hill', gypsum: zone(s) 1 get up to 9,800 kg/ha")
+    assert "common practice" in msg and "max_per_pass_by_product.gypsum" in msg
+    for limited in (SpreaderSettings(max_per_pass=6000),
+                    SpreaderSettings(max_per_pass_by_product={"gypsum": 6000})):
+        assert unsplit_pass_warning(rates, zones, spreader=limited, paddock="Red Hill",
+                                    product="gypsum") is None
+    assert unsplit_pass_warning([4_000.0], [1], spreader=SpreaderSettings(), paddock="P",
+                                product="lime") is None
