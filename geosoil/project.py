@@ -17,7 +17,6 @@ import math
 import os
 import tomllib
 import typing
-import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -687,19 +686,6 @@ def _lime_for_columns(read: Any) -> tuple[RateSettings, list[str]]:
     return RateSettings(lime=lime), notes
 
 
-def _read_past_bad_rows(read_samples: Any, trial: SampleSettings) -> Any:
-    """Read the lab file for `new` with its bad rows passed over, without the run's
-    "skipped" warning (the project written stops at them; `new` says so in a note)."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        read = read_samples(trial, undecided="keep")
-    for w in caught:
-        if read.skipped and "bad row(s) skipped" in str(w.message):
-            continue
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return read
-
-
 def _depth_notes(samples: Any) -> list[str]:
     """What ``new`` says about the samples' depths (nothing without a depth column)."""
     if "depth_top_cm" not in samples.columns:
@@ -778,10 +764,11 @@ def new_project(
     boundaries = BoundarySettings(paddocks=paddocks_path)
     pads = read_paddocks(boundaries)
     # bad cells do not stop `new` (the project file is where on_bad_row is set): the rows are
-    # read past here, named in a note, and `check` and `run` stop at them as usual
+    # read past here (read.skipped, with no warning), named in a note, and `check` and `run`
+    # stop at them as usual
     trial = SampleSettings(file=samples, crs=crs, on_bad_row="skip")
     try:
-        read = _read_past_bad_rows(read_samples, trial)
+        read = read_samples(trial, undecided="keep", warn_skipped=False)
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
@@ -794,7 +781,8 @@ def new_project(
                 f"{ask}: the boundaries are in longitude/latitude ({pads.crs.name})"
             ) from None
         guess = pads.crs.to_string()
-        read = _read_past_bad_rows(read_samples, dataclasses.replace(trial, crs=guess))
+        read = read_samples(dataclasses.replace(trial, crs=guess), undecided="keep",
+                            warn_skipped=False)
         area = pads.geometry.union_all()
         pts = read.samples.geometry
         inside = float(np.mean(shapely.contains_xy(area, pts.x.to_numpy(), pts.y.to_numpy())))

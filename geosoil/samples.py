@@ -19,7 +19,8 @@ right under the header (``meq/100g``, ``mg/kg``, ...: no numbers, at least one
 cation unit) gives the unit of each column whose header names none. Every problem with a row
 raises :class:`~geosoil.errors.InputError` naming the file, row, column and the
 fix; with ``on_bad_row = "skip"`` the row is passed over instead, listed in
-:attr:`SampleRead.skipped` and in a :class:`~geosoil.errors.DataWarning`.
+:attr:`SampleRead.skipped` and in a :class:`~geosoil.errors.DataWarning` (unless the caller
+reports them itself: ``warn_skipped=False``).
 Input files are only read, never written.
 
 Plausible ranges (:data:`PLAUSIBLE_MAX_CMOL`, :data:`PLAUSIBLE_PH`,
@@ -1373,7 +1374,8 @@ def _id_issues(ids: list[str], rows: np.ndarray, id_header: str,
             first_seen[at] = int(rows[i])
 
 
-def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> SampleRead:
+def read_samples(settings: SampleSettings, *, undecided: str = "stop",
+                 warn_skipped: bool = True) -> SampleRead:
     """Read and check the lab results named in ``settings``.
 
     Parameters
@@ -1385,6 +1387,11 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
         names neither the exchangeable nor the potential method): "stop" raises
         :class:`InputError` naming it and the settings that decide it; "keep"
         reads the rest and lists it in :attr:`SampleRead.undecided`.
+    warn_skipped
+        With ``on_bad_row = "skip"``: say which rows were passed over in a
+        :class:`~geosoil.errors.DataWarning` (the default), or leave that to the
+        caller, which has them in :attr:`SampleRead.skipped` (``geosoil new``
+        lists them in a note, as the project it writes stops at them).
 
     Returns
     -------
@@ -1472,12 +1479,13 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop") -> Sample
             r, reason = skipped[0]
             raise InputError(f"every row is bad, e.g. {reason}", file=name, row=r,
                              fix="check the file and the [samples] settings")
-        warnings.warn(
-            f"{name}: {len(skipped)} bad row(s) skipped: "
-            + "; ".join(f"row {r}: {why}" for r, why in skipped[:20])
-            + (f"; and {len(skipped) - 20} more" if len(skipped) > 20 else ""),
-            DataWarning, stacklevel=2,
-        )
+        if warn_skipped:
+            warnings.warn(
+                f"{name}: {len(skipped)} bad row(s) skipped: "
+                + "; ".join(f"row {r}: {why}" for r, why in skipped[:20])
+                + (f"; and {len(skipped) - 20} more" if len(skipped) > 20 else ""),
+                DataWarning, stacklevel=2,
+            )
     keep = ~np.isin(rows, bad_rows)
 
     used = set(columns.values()) | {id_header} | (set(xy) if xy else set())

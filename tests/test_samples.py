@@ -680,6 +680,22 @@ def test_skip_bad_rows_lists_them(tmp_path):
     assert "negative" in got.skipped[1][1] and "Latitude" in got.skipped[1][1]
 
 
+def test_skipped_rows_are_data_the_caller_may_report_itself(tmp_path):
+    """Issue: 'new' hid the reader's "bad row(s) skipped" warning by matching its words. The
+    rows passed over are in SampleRead.skipped; with warn_skipped=False the reader warns
+    nothing about them (other warnings still come), and the caller says what it wants."""
+    import warnings
+
+    rows = [ROWS[0], ROWS[1].replace(",2.5,", ",abc,"), ROWS[2]]
+    path = lab(tmp_path, rows=rows)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = read_samples(SampleSettings(file=path, on_bad_row="skip"), warn_skipped=False)
+    assert [str(w.message) for w in caught if "row" in str(w.message)] == []
+    assert got.samples.sample_id.tolist() == ["A1", "A3"]
+    assert [r for r, _ in got.skipped] == [3] and "Exch Mg" in got.skipped[0][1]
+
+
 def test_skip_keeps_the_first_of_duplicate_ids(tmp_path):
     path = lab(tmp_path, rows=[ROWS[0], ROWS[1].replace("A2", "A1"), ROWS[2]])
     with pytest.warns(DataWarning):
