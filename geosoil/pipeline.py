@@ -25,7 +25,7 @@ import json
 import logging
 import time
 import warnings
-from collections.abc import Callable, Collection, Iterator, Mapping
+from collections.abc import Callable, Collection, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -59,7 +59,13 @@ from .layers import Layer, find_layers, spans
 from .names import MAX_NAME_CHARS, assign, slug
 from .products import Product, ProductSettings, resolve_products, uncertified
 from .project import Project
-from .rates import RateLayer, RateResult, check_inputs, compute_rates
+from .rates import (
+    RateLayer,
+    RateResult,
+    check_inputs,
+    compute_rates,
+    warn_acid_cells_without_lime,
+)
 from .record import source_digest
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
@@ -553,47 +559,6 @@ def _grouped_gaps(
     return out
 
 
-def _warn_acid_cells_without_lime(
-    name: str, cells: Mapping[str, Any], ph_method: str | None, ph: Any, rr: Any, s: Any,
-) -> None:
-    """Say so where cells the chemistry flags acid get no lime from the lime rule that ran.
-
-    A lime method's own target can be met where the acid flag is not (an acidity-share
-    target above the flag's acid saturation, a pH target below the flag's pH): the cell
-    is then acid on the samples table and the map, but spread with nothing.
-    """
-    lime_rule = s.rates.for_paddock(name).lime
-    lime = rr.contributions.get(("lime", lime_rule.product))
-    if lime is None:
-        return  # the lime rule did not run here: said by the rule warnings
-    chem = s.chemistry
-    acid = np.zeros(np.shape(lime), dtype=bool)
-    why = []
-    if ph_method is not None:
-        limit = chem.acid_ph_cacl2 if ph_method == "CaCl2" else chem.acid_ph
-        acid |= np.isfinite(ph) & (ph < limit)
-        why.append(f"pH{' (CaCl2)' if ph_method == 'CaCl2' else ''} below {limit:g}")
-    acid_sat = cells.get("acid_sat")
-    if acid_sat is not None:
-        acid |= np.isfinite(acid_sat) & (acid_sat > chem.acid_saturation_percent)
-        why.append(f"acid saturation above {chem.acid_saturation_percent:g} %")
-    skip = np.asarray(rr.needs_test, dtype=bool) if rr.needs_test is not None else False
-    none = acid & ~np.asarray(skip) & ~(np.asarray(lime) > 0)
-    n = int(np.count_nonzero(none))
-    if not n:
-        return
-    hint = ("lower rates.lime.target_acidity_share_percent below [chemistry] "
-            "acid_saturation_percent, or " if lime_rule.method == "acidity_share" else "")
-    warnings.warn(
-        f"{name}: {n} of {int(np.count_nonzero(acid))} acid cell(s) ({' or '.join(why)}) get "
-        f"no lime: the lime method ({rr.methods.get('lime', lime_rule.method)}) finds its "
-        f"own target already met there; {hint}choose a lime method to a target pH (give "
-        "buffer pH, or organic carbon and clay) if these cells need lime",
-        RateWarning,
-        stacklevel=2,
-    )
-
-
 def rule_warnings(
     skipped: dict[str, list[tuple[str, str]]], settings: Any
 ) -> list[str]:
@@ -1010,7 +975,9 @@ def compute(
                     scoop_density_g_cm3=s.samples.scoop_density_g_cm3,
                     layers=g_layers,
                 )
-            _warn_acid_cells_without_lime(name, cells, method, ph, rr, s)
+            warn_acid_cells_without_lime(name, cells, method, ph, rr,
+                                         lime_rule=s.rates.for_paddock(name).lime,
+                                         chemistry=s.chemistry)
             boundary = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
             excl = None
             if not prep.exclusions.empty:

@@ -82,7 +82,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .chemistry import CEC_PH7_SOURCE, cec_ph7_from_parts
+from .chemistry import CEC_PH7_SOURCE, ChemistrySettings, cec_ph7_from_parts
 from .errors import InputError, RateWarning, SettingsError
 from .liming import (
     CROP_TARGETS,
@@ -138,6 +138,7 @@ __all__ = [
     "check_inputs",
     "inputs_used",
     "compute_rates",
+    "warn_acid_cells_without_lime",
     "explain_cell",
     "format_steps",
 ]
@@ -1631,6 +1632,65 @@ def _target_need(st: _State, trace: _Trace, cells: _Cells, lr: LimeRule,
               {"pH": (ph, ""), "target": (target.ph, ""), "margin": (lr.trigger_margin_ph, "")},
               out, "cmol(+)/kg CaCO3", "[common practice]")
     return np.asarray(out, dtype=float)
+
+
+def warn_acid_cells_without_lime(
+    name: str, cells: Mapping[str, Any], ph_method: str | None, ph: Any, rr: RateResult, *,
+    lime_rule: LimeRule, chemistry: ChemistrySettings,
+) -> None:
+    """Say so where cells the chemistry flags acid get no lime from the lime rule that ran.
+
+    A lime method's own target can be met where the acid flag is not (an acidity-share
+    target above the flag's acid saturation, a pH target below the flag's pH): the cell
+    is then acid on the samples table and the map, but spread with nothing.
+
+    Parameters
+    ----------
+    name
+        The paddock, named in the warning.
+    cells
+        The paddock's cells (``acid_sat`` is read).
+    ph_method, ph
+        The pH the rules read (:func:`geosoil.chemistry.rule_ph`): its method and cells.
+    rr
+        The paddock's rates.
+    lime_rule, chemistry
+        The paddock's lime rule and the chemistry settings (the acid flag's limits).
+
+    Warns
+    -----
+    RateWarning
+        Acid cells that the lime rule leaves bare, with how many and why.
+    """
+    lime = rr.contributions.get(("lime", lime_rule.product))
+    if lime is None:
+        return  # the lime rule did not run here: said by the rule warnings
+    chem = chemistry
+    acid = np.zeros(np.shape(lime), dtype=bool)
+    why = []
+    if ph_method is not None:
+        limit = chem.acid_ph_cacl2 if ph_method == "CaCl2" else chem.acid_ph
+        acid |= np.isfinite(ph) & (ph < limit)
+        why.append(f"pH{' (CaCl2)' if ph_method == 'CaCl2' else ''} below {limit:g}")
+    acid_sat = cells.get("acid_sat")
+    if acid_sat is not None:
+        acid |= np.isfinite(acid_sat) & (acid_sat > chem.acid_saturation_percent)
+        why.append(f"acid saturation above {chem.acid_saturation_percent:g} %")
+    skip = np.asarray(rr.needs_test, dtype=bool) if rr.needs_test is not None else False
+    none = acid & ~np.asarray(skip) & ~(np.asarray(lime) > 0)
+    n = int(np.count_nonzero(none))
+    if not n:
+        return
+    hint = ("lower rates.lime.target_acidity_share_percent below [chemistry] "
+            "acid_saturation_percent, or " if lime_rule.method == "acidity_share" else "")
+    warnings.warn(
+        f"{name}: {n} of {int(np.count_nonzero(acid))} acid cell(s) ({' or '.join(why)}) get "
+        f"no lime: the lime method ({rr.methods.get('lime', lime_rule.method)}) finds its "
+        f"own target already met there; {hint}choose a lime method to a target pH (give "
+        "buffer pH, or organic carbon and clay) if these cells need lime",
+        RateWarning,
+        stacklevel=2,
+    )
 
 
 def _rule_maintenance(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,

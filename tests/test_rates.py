@@ -916,3 +916,32 @@ def test_a_rate_warning_names_its_paddock() -> None:
     hits = [w for w in found if "pHBC regression" in w]
     assert hits and all(w.startswith("paddock 'Creek Flat': pHBC regression") for w in hits)
     assert len(hits) == 1
+
+
+def test_acid_cells_the_lime_rule_leaves_bare_are_said_beside_the_rule() -> None:
+    """The warning lives with the lime rule (rates.warn_acid_cells_without_lime). Four cells:
+    acid by pH (5.0 < 5.5, the default flag, common practice) with lime; acid by acid
+    saturation (20 % > 15 %) without lime; not acid; acid but waiting for a lab test."""
+    from types import SimpleNamespace
+
+    from geosoil.chemistry import ChemistrySettings
+    from geosoil.rates import LimeRule, warn_acid_cells_without_lime
+
+    rule = LimeRule(method="acidity_share", target_acidity_share_percent=25.0)
+    rr = SimpleNamespace(contributions={("lime", "lime"): np.array([900.0, 0.0, 0.0, 0.0])},
+                         needs_test=np.array([False, False, False, True]),
+                         methods={"lime": "acidity share"})
+    cells = {"acid_sat": np.array([10.0, 20.0, 5.0, 30.0])}
+    ph = np.array([5.0, 6.0, 6.2, 6.0])
+    with pytest.warns(RateWarning) as caught:
+        warn_acid_cells_without_lime("Home", cells, "water", ph, rr, lime_rule=rule,
+                                     chemistry=ChemistrySettings())
+    (w,) = [str(c.message) for c in caught]
+    assert w.startswith("Home: 1 of 3 acid cell(s) (pH below 5.5 or acid saturation above "
+                        "15 %) get no lime: the lime method (acidity share) finds its own "
+                        "target already met there; lower rates.lime.target_acidity_share_percent")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # every acid cell limed (or waiting for a test): quiet
+        rr.contributions[("lime", "lime")] = np.array([900.0, 500.0, 0.0, 0.0])
+        warn_acid_cells_without_lime("Home", cells, "water", ph, rr, lime_rule=rule,
+                                     chemistry=ChemistrySettings())
