@@ -61,6 +61,7 @@ from .names import slug
 from .pipeline import FarmResult, treat_depth_cm
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
 from .products import MATERIALS
+from .rates import GYPSUM_NO_LIME_CREDIT
 from .record import input_checksums, now_utc, versions
 from .salinity import (
     DISPERSION_CLASSES,
@@ -1448,6 +1449,8 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
     for pr in farm.paddocks.values():
         for rule, method in pr.rates.methods.items():
             methods.setdefault(rule, method)
+    if "gypsum" in methods:
+        methods["gypsum"] = f"{methods['gypsum']}; {GYPSUM_NO_LIME_CREDIT}"
     methods.setdefault(
         "Interpolation",
         "ordinary kriging with variograms fitted by weighted least squares (Cressie 1985) "

@@ -122,6 +122,7 @@ __all__ = [
     "ENABLED_CHOICES",
     "INPUT_NAMES",
     "METHOD_CITATIONS",
+    "GYPSUM_NO_LIME_CREDIT",
     "AL_METHODS",
     "LIME_METHOD_ORDER",
     "DEFAULT_TARGET",
@@ -181,6 +182,15 @@ DEFAULT_TARGET = CropTarget(
 _ACID_BELOW = {"water": 6.0, "CaCl2": 5.5}
 
 #: Citation of each method, as shown in outputs and explanations.
+#: How the gypsum rule treats the calcium that lime brings, stated where the gypsum method is
+#: described (the report's methods, README): no credit, on purpose.
+GYPSUM_NO_LIME_CREDIT = (
+    "the gypsum rate takes no credit for the calcium that lime supplies where both are "
+    "prescribed: it is worked out as if no lime were spread, which is conservative on purpose "
+    "(lime's calcium reaches the exchange sites slowly and only as the lime neutralises "
+    "acidity)"
+)
+
 METHOD_CITATIONS: dict[str, str] = {
     "handbook60": "USDA Handbook 60 (Richards 1954); exchange efficiency F after Oster et al. 1999",
     "kamprath": "Kamprath 1970, Soil Sci. Soc. Am. Proc. 34:252",

@@ -220,6 +220,27 @@ def test_the_summary_run_json_and_report_give_the_same_cautions(demo_run) -> Non
     assert all("drains" in c and "mm" in c for c in gypsum)
 
 
+def test_the_report_and_readme_say_gypsum_takes_no_credit_for_lime_s_calcium(demo_run) -> None:  # noqa: ANN001
+    """Issue: the report did not say that gypsum takes no credit for the calcium lime
+    supplies. The report's methods table says so on the gypsum row (the demo gets both),
+    and README's methods section says so where it describes gypsum."""
+    import html as html_mod
+
+    from geosoil.rates import GYPSUM_NO_LIME_CREDIT
+
+    page = html_mod.unescape((demo_run.out / "report.html").read_text(encoding="utf-8"))
+    text = " ".join(page.split())
+    methods = text[text.index('id="assumptions"'):]
+    row = methods[methods.index("<td>gypsum</td>"):]
+    row = row[:row.index("</tr>")]
+    assert "Handbook 60" in row and GYPSUM_NO_LIME_CREDIT in row, row
+    readme = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    section = " ".join(readme[readme.index("## Methods, in short"):].split())
+    gypsum = section[section.index("- Gypsum for sodicity"):]
+    assert gypsum.index("no credit for the calcium that lime supplies") < gypsum.index("Lime for")
+    assert "conservative on purpose" in gypsum[:gypsum.index("Lime for")]
+
+
 @pytest.mark.browser
 def test_demo_map_every_layer_on_a_phone_offline(demo_run, browser) -> None:  # noqa: ANN001
     from tests.browser import artifact_path
