@@ -1428,8 +1428,10 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         "Zones": f"{s.zones.method}, {s.zones.classes} classes, zones under "
         f"{s.zones.min_zone_area_ha:g} ha merged",
         "Spreader": f"min {s.spreader.min_rate:g} {s.spreader.unit}, max per pass "
-        f"{s.spreader.max_per_pass:g} {s.spreader.unit} (0 = none), step "
-        f"{s.spreader.rate_step:g} {s.spreader.unit}",
+        f"{s.spreader.max_per_pass:g} {s.spreader.unit} (0 = none)"
+        + "".join(f", {name} at most {v:g} {s.spreader.unit} per pass"
+                  for name, v in s.spreader.max_per_pass_by_product.items() if v > 0)
+        + f", step {s.spreader.rate_step:g} {s.spreader.unit}",
     }
     assumptions["Soluble salts in exchangeable cations"] = soluble_salts_text(farm)
     assumptions.update(layer_assumptions(farm))
