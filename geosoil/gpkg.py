@@ -304,6 +304,12 @@ def _plain_columns(frame: Any) -> Any:
     return out
 
 
+#: Features from which a layer gets a spatial index (R-tree): the GeoPackage standard makes
+#: it optional, and a smaller layer is read whole by a GIS. The demo's 7 layers (at most a
+#: few hundred features) wrote in 0.07-0.13 s without one and 0.15-0.20 s with one.
+SPATIAL_INDEX_FROM = 10_000
+
+
 @contextlib.contextmanager
 def _unsynchronised_sqlite(pyogrio: Any) -> Iterator[None]:
     """SQLite without a disk flush per transaction while the layers are written.
@@ -370,8 +376,12 @@ def write_gpkg(
         for name, frame in layers.items():
             if frame is None or len(frame) == 0:
                 continue
+            # a spatial index (R-tree) for a layer large enough to need one: building it
+            # is most of the time a small layer takes to write (GIS reads those whole)
+            index = "YES" if len(frame) >= SPATIAL_INDEX_FROM else "NO"
             pyogrio.write_dataframe(_plain_columns(frame), tmp, layer=name, driver="GPKG",
-                                    append=bool(written), promote_to_multi=None)
+                                    append=bool(written), promote_to_multi=None,
+                                    layer_options={"SPATIAL_INDEX": index})
             written.append(name)
         rows = [
             {"f_table_catalog": "", "f_table_schema": "", "f_table_name": name,

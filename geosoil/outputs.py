@@ -34,15 +34,19 @@ Every file is written to a temporary name and renamed into place.
 from __future__ import annotations
 
 import dataclasses
+import functools
+import hashlib
 import json
 import logging
 import re
+import shutil
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
+import shapely
 
 from . import presentation, webmap
 from . import report as report_mod
@@ -62,7 +66,7 @@ from .pipeline import FarmResult, treat_depth_cm
 from .prescriptions import machine_crs, n_passes, pass_frames, pass_suffix, zone_raster
 from .products import MATERIALS
 from .rates import GYPSUM_NO_LIME_CREDIT
-from .record import input_checksums, now_utc, versions
+from .record import input_checksums, now_utc, sha256_file, source_digest, versions
 from .salinity import (
     DISPERSION_CLASSES,
     SALINITY_CLASSES,
@@ -75,6 +79,7 @@ from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
 from .units import format_rate as units_format_rate
 from .units import rate_from_kg_ha
 from .writers import (
+    atomic_path,
     atomic_write,
     reuse_or_write_cog,
     write_csv,
@@ -171,19 +176,114 @@ def _rel(path: Path, root: Path) -> str:
     return str(path.relative_to(root))
 
 
-def _previous_geotiffs(previous: Path | None) -> dict[str, Any]:
-    """What the earlier run in ``previous`` recorded of its GeoTIFFs (``run.json``
-    ``geotiffs``); empty when there is none or it cannot be read."""
+def _previous_record(previous: Path | None, field: str) -> dict[str, Any]:
+    """What the earlier run in ``previous`` recorded in ``run.json``'s ``field`` (path ->
+    entry); empty when there is none or it cannot be read."""
     if previous is None:
         return {}
     try:
         old = json.loads((previous / "run.json").read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return {}
-    tiffs = old.get("geotiffs") if isinstance(old, dict) else None
-    if not isinstance(tiffs, dict):
+    entries = old.get(field) if isinstance(old, dict) else None
+    if not isinstance(entries, dict):
         return {}
-    return {k: v for k, v in tiffs.items() if isinstance(k, str) and isinstance(v, dict)}
+    return {k: v for k, v in entries.items() if isinstance(k, str) and isinstance(v, dict)}
+
+
+def _previous_geotiffs(previous: Path | None) -> dict[str, Any]:
+    """What the earlier run in ``previous`` recorded of its GeoTIFFs (``run.json``
+    ``geotiffs``)."""
+    return _previous_record(previous, "geotiffs")
+
+
+@functools.cache
+def _prescription_writers_id() -> str:
+    """The source of what writes a pass's machine files, and the libraries' versions."""
+    import pyogrio
+    import rasterio
+
+    from . import isoxml, prescriptions, writers
+
+    return "\n".join([pyogrio.__version__, pyogrio.__gdal_version_string__,
+                      rasterio.__version__,
+                      source_digest(writers.__file__, prescriptions.__file__, isoxml.__file__,
+                                    __file__)])
+
+
+def _frame_key(frame: Any, *parts: Any) -> str:
+    """SHA-256 of a zone frame (geometries, CRS, every column) and ``parts`` (the machine
+    CRS, the grid...): what a pass's GeoJSON, shapefile and zone GeoTIFF are made from."""
+    h = hashlib.sha256(_prescription_writers_id().encode())
+    h.update(b"" if frame.crs is None else frame.crs.to_wkt().encode())
+    h.update(json.dumps([str(p) for p in parts]).encode())
+    for g in frame.geometry:
+        h.update(shapely.to_wkb(g))
+    h.update(pd.DataFrame(frame.drop(columns=frame.geometry.name)).to_csv().encode())
+    return h.hexdigest()
+
+
+class _PassFiles:
+    """A pass's GeoJSON, shapefile and zone GeoTIFF: copied from the folder being replaced
+    when they were made from the same zones with the same settings and their bytes are as
+    recorded (``run.json`` ``prescription_files``), else written."""
+
+    def __init__(self, out_dir: Path, previous: Path | None, geotiffs: _GeoTiffs) -> None:
+        self.out_dir, self.previous, self.geotiffs = out_dir, previous, geotiffs
+        self.old = _previous_record(previous, "prescription_files")
+        self.entries: dict[str, dict[str, str]] = {}
+        self.copied = 0
+
+    def _unchanged(self, path: Path, key: str) -> str | None:
+        """The recorded SHA-256 of ``path``'s earlier file when it was made under ``key``
+        and its bytes are still those; else None."""
+        rel = path.relative_to(self.out_dir).as_posix()
+        old = self.old.get(rel)
+        if self.previous is None or old is None or old.get("key") != key:
+            return None
+        digest = old.get("sha256")
+        if not isinstance(digest, str):
+            return None
+        if path.suffix == ".tif":
+            tif = self.geotiffs.old.get(rel)
+            if tif is None or tif.get("sha256") != digest or not isinstance(tif.get("key"), str):
+                return None
+        try:
+            return digest if sha256_file(self.previous / rel) == digest else None
+        except OSError:
+            return None
+
+    def reuse(self, paths: list[Path], key: str) -> bool:
+        """Copy every one of ``paths`` from the earlier folder when each is unchanged (all
+        or none)."""
+        digests = [self._unchanged(p, key) for p in paths]
+        if any(d is None for d in digests):
+            return False
+        for path, digest in zip(paths, digests, strict=True):
+            rel = path.relative_to(self.out_dir).as_posix()
+            path.parent.mkdir(parents=True, exist_ok=True)
+            with atomic_path(path) as tmp:
+                shutil.copyfile(self.previous / rel, tmp)  # type: ignore[operator]
+            self.entries[rel] = {"key": key, "sha256": str(digest)}
+            if path.suffix == ".tif":
+                self.geotiffs.entries[rel] = {"key": str(self.geotiffs.old[rel]["key"]),
+                                              "sha256": str(digest)}
+                self.geotiffs.copied += 1
+            self.copied += 1
+        return True
+
+    def made(self, path: Path, key: str) -> None:
+        """Record a file written afresh (its key and SHA-256) for the next run."""
+        rel = path.relative_to(self.out_dir).as_posix()
+        self.entries[rel] = {"key": key, "sha256": sha256_file(path)}
+
+    def record(self, progress: Any) -> dict[str, Any]:
+        """``run.json``'s ``prescription_files`` and ``prescription_files_copied``."""
+        if self.copied:
+            progress(f"{self.copied} of {len(self.entries)} prescription files unchanged since "
+                     "the run replaced: copied")
+        return {"prescription_files": dict(sorted(self.entries.items())),
+                "prescription_files_copied": self.copied}
 
 
 class _GeoTiffs:
@@ -246,6 +346,7 @@ def write_outputs(
     written: list[Path] = []
     geotiffs = _GeoTiffs(out_dir, previous, written)
     tif = geotiffs.write
+    pass_files = _PassFiles(out_dir, previous, geotiffs)
 
     def cog(path: Path, array: np.ndarray, transform: Any, description: str, unit: str) -> None:
         tif(path, array, transform=transform, crs=crs, descriptions=(description,),
@@ -274,22 +375,29 @@ def write_outputs(
                 stem = prep.product_files[product] + pass_suffix(
                     k, n, split_into=s.spreader.split_into)
                 p_geo = folder / f"{stem}.geojson"
-                write_geojson(p_geo, zk)
-                written.append(p_geo)
                 p_zip = folder / f"{stem}_shp.zip"
+                p_tif = folder / f"{stem}_zones.tif"
+                word = "season" if s.spreader.split_into == "seasons" else "pass"
+                what = f"{product} zone rates" + (f", {word} {k} of {n}" if n > 1 else "")
+                key = _frame_key(zk, mcrs.to_wkt(), crs.to_wkt(), tuple(pr.grid.transform),
+                                 pr.grid.mask.shape, s.grid.cell_size_m, what, k, n)
+                written.extend((p_geo, p_zip))
+                if pass_files.reuse([p_geo, p_zip, p_tif], key):
+                    written.append(p_tif)
+                    continue
+                write_geojson(p_geo, zk)
+                pass_files.made(p_geo, key)
                 write_shapefile_zip(p_zip, zk, crs=mcrs)
-                written.append(p_zip)
+                pass_files.made(p_zip, key)
                 if mcrs.equals(crs):
                     zr, zt = zone_raster(zk, crs=crs, cell_size_m=s.grid.cell_size_m,
                                          transform=pr.grid.transform, shape=pr.grid.mask.shape)
                     zr[~pr.grid.mask] = np.nan
                 else:
                     zr, zt = zone_raster(zk, crs=mcrs, cell_size_m=s.grid.cell_size_m)
-                p_tif = folder / f"{stem}_zones.tif"
-                word = "season" if s.spreader.split_into == "seasons" else "pass"
-                what = f"{product} zone rates" + (f", {word} {k} of {n}" if n > 1 else "")
                 tif(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
                     tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
+                pass_files.made(p_tif, key)
             written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product,
                                          names=iso_names, tasks=iso_tasks,
                                          partfields=iso_partfields))
@@ -322,6 +430,7 @@ def write_outputs(
     record = build_record(farm, out_dir=out_dir)
     record["names_shortened"] = list(iso_names.changed)
     record.update(geotiffs.record(progress))
+    record.update(pass_files.record(progress))
 
     # map and report
     progress("drawing the map")

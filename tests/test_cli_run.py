@@ -272,3 +272,49 @@ def test_one_list_of_warnings_in_the_summary_run_json_and_the_report(runs) -> No
     section = section[:section.index("</ul>")]
     items = [html.unescape(i) for i in re.findall(r"<li>(.*?)</li>", section, re.S)]
     assert items == listed
+
+
+def _members(path: Path) -> dict[str, bytes]:
+    import zipfile
+
+    with zipfile.ZipFile(path) as z:
+        return {n: z.read(n) for n in z.namelist()}
+
+
+def test_a_rerun_copies_the_unchanged_passes_machine_files_and_they_equal_a_fresh_write(  # noqa: E501
+        runs, tmp_path: Path) -> None:  # noqa: ANN001
+    """The gypsum rule changed (out2): the passes whose zones are unchanged take their
+    GeoJSON, shapefile and zone GeoTIFF from the folder replaced; every one equals what a
+    run into a new folder writes; a file changed since is never copied."""
+    import hashlib
+
+    out1, out2 = runs["out1"], runs["root"] / "out2"
+    rec2 = json.loads((out2 / "run.json").read_text())
+    files = sorted(p.relative_to(out2).as_posix() for p in (out2 / "prescriptions").glob(
+        "*/*") if p.suffix in (".geojson", ".zip", ".tif"))
+    assert sorted(rec2["prescription_files"]) == files
+    copied = [f for f in files if (out2 / f).read_bytes() == (out1 / f).read_bytes()]
+    assert rec2["prescription_files_copied"] == len(copied) > 0
+    assert any(f.startswith("prescriptions/creek-flat/gypsum") and f not in copied
+               for f in files)  # the changed pass: written anew
+    for rel in files:
+        assert rec2["prescription_files"][rel]["sha256"] == hashlib.sha256(
+            (out2 / rel).read_bytes()).hexdigest()
+    fresh = tmp_path / "fresh"
+    assert invoke("-q", "run", runs["farm"], "--out", fresh).exit_code == 0
+    assert json.loads((fresh / "run.json").read_text())["prescription_files_copied"] == 0
+    for rel in files:
+        if rel.endswith(".zip"):  # the members (a zip's own dates may differ)
+            assert _members(out2 / rel) == _members(fresh / rel), rel
+        else:
+            assert (out2 / rel).read_bytes() == (fresh / rel).read_bytes(), rel
+    # the same run again over out2's copy (nothing changed, so every pass could be copied),
+    # with one file edited since: that file's pass is written anew, the rest copied
+    out3 = tmp_path / "out3"
+    shutil.copytree(out2, out3)
+    edited = next(f for f in copied if f.endswith(".geojson"))
+    (out3 / edited).write_text('{"type": "FeatureCollection", "features": []}')
+    assert invoke("-q", "run", runs["farm"], "--out", out3, "--overwrite").exit_code == 0
+    assert (out3 / edited).read_bytes() == (fresh / edited).read_bytes()
+    rec3 = json.loads((out3 / "run.json").read_text())
+    assert rec3["prescription_files_copied"] == len(files) - 3

@@ -86,3 +86,28 @@ def test_styles_of_awkward_layer_names_read_back_from_the_geopackage(tmp_path: P
     assert back["f_table_name"].tolist() == [AWKWARD]
     assert (back["styleQML"].iloc[0], back["styleSLD"].iloc[0]) == styles[AWKWARD]
     _parse(back["styleQML"].iloc[0], back["styleSLD"].iloc[0])
+
+
+def test_a_large_layer_gets_a_spatial_index_and_a_small_one_none(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The R-tree is optional in the GeoPackage standard (OGC 12-128r18, extension
+    gpkg_rtree_index); a layer from SPATIAL_INDEX_FROM features gets one, registered in
+    gpkg_extensions as GDAL writes it; the layers read back the same either way."""
+    import sqlite3
+
+    from geosoil import gpkg
+
+    monkeypatch.setattr(gpkg, "SPATIAL_INDEX_FROM", 3)
+    small = gpd.GeoDataFrame({"n": [1, 2]}, geometry=[shapely.Point(0, 0), shapely.Point(1, 1)],
+                             crs="EPSG:32755")
+    large = gpd.GeoDataFrame({"n": [1, 2, 3]}, geometry=[shapely.Point(i, i) for i in range(3)],
+                             crs="EPSG:32755")
+    p = write_gpkg(tmp_path / "farm.gpkg", {"small": small, "large": large})
+    with sqlite3.connect(p) as db:
+        indexed = {t for (t,) in db.execute(
+            "SELECT table_name FROM gpkg_extensions WHERE extension_name = 'gpkg_rtree_index'")}
+    assert indexed == {"large"}
+    for name, frame in (("small", small), ("large", large)):
+        back = pyogrio.read_dataframe(p, layer=name)
+        assert back["n"].tolist() == frame["n"].tolist()
+        assert shapely.equals(back.geometry.values, frame.geometry.values).all()
