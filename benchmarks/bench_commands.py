@@ -1,8 +1,15 @@
 """Benchmark: the commands as a user runs them, each a separate process.
 
-Run from the repository root (after ``pip install -e .``)::
+Run from the repository root::
 
-    python benchmarks/bench_commands.py [--repeat 5]
+    python benchmarks/bench_commands.py [--repeat 5] [--installed]
+
+By default it first makes a fresh install as a user does (a new virtual environment
+and ``pip install`` of this folder, which compiles every module to bytecode) and
+times that installation's ``geosoil``; ``--installed`` times the ``geosoil`` beside
+the running interpreter instead (an editable install under
+``PYTHONDONTWRITEBYTECODE`` compiles geosoil's modules on every start, which a
+user's install does not).
 
 Each command is started as its own process, as from a shell, and timed from
 start to exit (wall time) with the peak resident memory of the process
@@ -10,7 +17,7 @@ start to exit (wall time) with the peak resident memory of the process
 
 * ``geosoil --help``, ``--version`` and every ``COMMAND --help``;
 * ``geosoil check`` on the demo farm;
-* ``geosoil demo`` with an empty surface cache (a fresh cache folder each run);
+* ``geosoil demo`` with an empty surface cache (no surfaces and no zones in it);
 * ``geosoil run`` on the demo farm after a change to a rate setting (the
   surfaces come from the cache);
 * ``geosoil explain`` on the demo farm (surfaces cached).
@@ -42,9 +49,24 @@ AT = "147.4521,-34.6873"  # a point in the demo farm's paddock Red Hill
 GOALS = {"startup": 0.3, "check": 1.0, "demo": 4.0, "rerun": 1.5, "explain": 1.5}
 
 
+#: The interpreter whose ``geosoil`` is timed (``main`` may point it at a fresh install).
+PYTHON = Path(sys.executable)
+
+
 def _geosoil() -> list[str]:
-    exe = Path(sys.executable).with_name("geosoil")
-    return [str(exe)] if exe.exists() else [sys.executable, "-m", "geosoil.cli.main"]
+    exe = PYTHON.with_name("geosoil")
+    return [str(exe)] if exe.exists() else [str(PYTHON), "-m", "geosoil.cli.main"]
+
+
+def fresh_install(where: Path) -> Path:
+    """A new virtual environment with geosoil installed from this folder (not editable);
+    its interpreter. Prints how long the installation took."""
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-m", "venv", str(where)], check=True)
+    py = where / "bin" / "python"
+    subprocess.run([str(py), "-m", "pip", "install", "-q", str(ROOT)], check=True)
+    print(f"fresh install (venv + pip install .): {time.perf_counter() - t0:.1f} s")
+    return py
 
 
 def run_once(args: list[str], env: dict[str, str]) -> tuple[float, float]:
@@ -77,9 +99,14 @@ def median_of(label: str, goal: str | None, repeat: int, make: object) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--installed", action="store_true",
+                    help="time the geosoil beside this interpreter (no fresh install)")
     args = ap.parse_args()
     tmp = Path(tempfile.mkdtemp(prefix="geosoil-bench-"))
+    global PYTHON
     try:
+        if not args.installed:
+            PYTHON = fresh_install(tmp / "venv")
         base_env = dict(os.environ, XDG_CACHE_HOME=str(tmp / "cache"))
         print(f"load average before: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores; "
               f"medians of {args.repeat} runs")
@@ -95,8 +122,12 @@ def main() -> None:
         counter = iter(range(10**6))
 
         def cold() -> tuple[list[str], dict[str, str]]:
-            env = dict(os.environ, XDG_CACHE_HOME=str(tmp / f"cold-{next(counter)}"))
-            return ["-q", "demo", "--out", str(tmp / "demo-out"), "--overwrite"], env
+            # no surfaces and no zones in the cache (the compiled page templates stay,
+            # as after any earlier run of this installation)
+            for entry in (tmp / "cache" / "geosoil").glob("*-*.*"):
+                if entry.name.startswith(("surfaces-", "zones-")):
+                    entry.unlink()
+            return ["-q", "demo", "--out", str(tmp / "demo-out"), "--overwrite"], base_env
 
         median_of("geosoil demo (empty surface cache)", "demo", args.repeat, cold)
         # fill the cache once, then change a rate setting before every run
