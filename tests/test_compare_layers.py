@@ -166,3 +166,32 @@ def test_seasons_with_no_depth_in_common_are_refused(compared: dict, tmp_path: P
                                    "--out", str(tmp_path / "c")])
     assert got.exit_code == 1
     assert "no depth in common" in got.output and "0-15 cm" in got.output
+
+
+@pytest.mark.browser
+def test_the_deeper_layers_change_shows_on_the_map(compared: dict) -> None:
+    """The map opened offline in headless Chromium: the 10-30 cm change is a layer of its
+    own, with its own legend title."""
+    from tests.browser import Chromium, artifact_path, require_chromium
+
+    with Chromium(require_chromium()) as browser:
+        page = browser.new_page(width=1280, height=900)
+        try:
+            page.goto(compared["out"] / "map.html")
+            browser.drain(0.2)
+            got = page.evaluate(
+                """(async () => {
+                  const api = window.geosoilMap;
+                  api.show({surface: 'esp_10-30cm_class', product: null});
+                  await api.surfaces['esp_10-30cm_class'].getElement().decode();
+                  return {keys: Object.keys(api.surfaces),
+                          titles: Array.from(document.querySelectorAll(
+                            '#gs-legend .gs-legend-title')).map(e => e.textContent)};
+                })()""")
+            assert {"esp_change", "esp_10-30cm_change", "ca_sat_10-30cm_class"} <= set(
+                got["keys"])
+            assert got["titles"] == ["ESP, 10-30 cm: changed beyond error?"]
+            page.screenshot(artifact_path("compare-layers-map.png"))
+            assert page.console_errors == []
+        finally:
+            page.close()
