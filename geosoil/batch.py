@@ -643,9 +643,25 @@ def run_batch(
         Dask is not installed; the batch folder cannot be used; the workers run
         another geosoil than this one.
     """
+    from .outfolder import missing_folders, remove_empty_folders
+
     distributed = require_distributed()
     projects = list(projects)
+    made = missing_folders(Path(out_dir).expanduser().resolve())
     out = _check_batch_folder(Path(out_dir), projects, overwrite=overwrite)
+    try:
+        return _run_batch_in(out, projects, distributed, scheduler=scheduler, client=client,
+                             workers=workers, memory_limit=memory_limit, use_cache=use_cache,
+                             progress=progress)
+    except BaseException:
+        remove_empty_folders(made)  # a batch that stopped leaves no empty folder of its own
+        raise
+
+
+def _run_batch_in(out: Path, projects: list[Path], distributed: Any, *, scheduler: str | None,
+                  client: Any, workers: int | None, memory_limit: str | int | None,
+                  use_cache: bool, progress: Progress) -> BatchResult:
+    """:func:`run_batch` once its folder is made."""
     jobs, unchanged, failed = plan_farms(projects, out_dir=out, use_cache=use_cache)
     started = record_mod.now_utc()
     t0 = time.perf_counter()

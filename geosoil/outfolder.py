@@ -40,7 +40,8 @@ from pathlib import Path
 
 from .errors import OutputBusyError, OutputExistsError, OutputWriteError
 
-__all__ = ["Staging", "output_folder", "check_target", "sibling_names"]
+__all__ = ["Staging", "output_folder", "check_target", "sibling_names", "missing_folders",
+           "remove_empty_folders"]
 
 logger = logging.getLogger(__name__)
 
@@ -240,7 +241,7 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
 
     final = check_target(path, overwrite=overwrite, inputs=inputs)
     lock_name, new_prefix, old_prefix = sibling_names(final)
-    made = [p for p in (final.parent, *final.parent.parents) if not p.exists()]
+    made = missing_folders(final.parent)
     lock_path = final.parent / lock_name
     try:
         final.parent.mkdir(parents=True, exist_ok=True)
@@ -252,7 +253,7 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
             f"{lock_path}); wait for it to finish, or choose another --out"
         ) from None  # the lock is the other run's: left as it is
     except OSError as exc:
-        _remove_empty(made)
+        remove_empty_folders(made)
         raise _write_error(exc, final=final, temp=final) from None
     completed = False
     try:
@@ -281,7 +282,7 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
     finally:
         _release(lock, lock_path)
         if not completed:
-            _remove_empty(made)
+            remove_empty_folders(made)
 
 
 def _release(lock: object, lock_path: Path) -> None:
@@ -293,7 +294,13 @@ def _release(lock: object, lock_path: Path) -> None:
     lock.release()  # type: ignore[attr-defined]
 
 
-def _remove_empty(folders: Sequence[Path]) -> None:
+def missing_folders(path: Path) -> list[Path]:
+    """``path`` and those of its parents that do not exist yet, deepest first: what making
+    ``path`` creates (for :func:`remove_empty_folders` when the job fails)."""
+    return [p for p in (path, *path.parents) if not p.exists()]
+
+
+def remove_empty_folders(folders: Sequence[Path]) -> None:
     """Remove the folders a refused or failed run made for its output (deepest first), each
     only while it is empty: another program may have written into one meanwhile."""
     for folder in folders:

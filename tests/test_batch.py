@@ -219,6 +219,26 @@ def test_a_batch_refuses_a_full_folder_that_is_not_a_batch(tmp_path) -> None:
     assert not (farm / batch.SUMMARY_CSV).exists() and not (tmp_path / batch.KEYS_FOLDER).exists()
 
 
+def test_a_batch_that_stops_before_any_farm_leaves_no_folder_of_its_own(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """A failed run leaves nothing geosoil made: here the cluster cannot start."""
+    farm = make_project(tmp_path / "farm", cache=tmp_path / "cache")
+
+    def no_cluster(**_: object) -> None:
+        raise OSError("no cluster here")
+
+    monkeypatch.setattr(batch, "local_cluster", no_cluster)
+    out = tmp_path / "season" / "2027"
+    with pytest.raises(OSError, match="no cluster"):
+        batch.run_batch([farm / "geosoil.toml"], out_dir=out)
+    assert not (tmp_path / "season").exists()
+    (tmp_path / "season").mkdir()  # a folder the user made stays
+    with pytest.raises(OSError, match="no cluster"):
+        batch.run_batch([farm / "geosoil.toml"], out_dir=out)
+    assert (tmp_path / "season").is_dir() and not out.exists()
+
+
 def test_the_summary_page_escapes_what_it_shows() -> None:
     evil = "<img src=x onerror=alert(1)>"
     outcomes = [
