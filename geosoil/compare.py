@@ -514,6 +514,26 @@ def _layer_jobs(pairs: list[_LayerPair], seasons: tuple[Season, Season],
     return jobs
 
 
+def _layer_grids(pair: _LayerPair, seasons: tuple[Season, Season],
+                 frames: tuple[gpd.GeoDataFrame, gpd.GeoDataFrame],
+                 grids: dict[str, PaddockGrid], notes: list[str]) -> dict[str, PaddockGrid]:
+    """The paddocks whose change a layer can give: every paddock for the top layer (one
+    unsampled there is refused by the kriging, as before); for a deeper layer, those both
+    seasons sampled at it (the others named in ``notes``)."""
+    if not pair.suffix:
+        return grids
+    here = {}
+    for name, grid in grids.items():
+        lacking = [season.name for season, frame in zip(seasons, frames, strict=True)
+                   if not (frame["paddock"] == name).any()]
+        if lacking:
+            notes.append(f"paddock '{name}' has no samples at {pair.label} in "
+                         f"{' and '.join(lacking)}: its {pair.label} change is not mapped")
+        else:
+            here[name] = grid
+    return here
+
+
 def _compare_layer(
     seasons: tuple[Season, Season], frames: tuple[gpd.GeoDataFrame, gpd.GeoDataFrame],
     grids: dict[str, PaddockGrid], variables: list[str], settings: InterpolationSettings, *,
@@ -641,8 +661,11 @@ def run_compare(
         merged: tuple[dict[tuple[str, str], Surface], ...] = ({}, {}, {})
         pairings: list[tuple[str | None, dict[str, SitePairing]]] = []
         for pair, frame_l, frame_t, found in jobs:
+            here = _layer_grids(pair, (last, this), (frame_l, frame_t), grids, notes)
+            if not here:
+                continue
             got, surfaces, paired = _compare_layer(
-                (last, this), (frame_l, frame_t), grids, found, settings,
+                (last, this), (frame_l, frame_t), here, found, settings,
                 labels={v: labels[v + pair.suffix] for v in found}, z=z,
                 paired_within=paired_within, notes=notes, layer=pair.label)
             pairings.append((pair.label, paired))
@@ -794,6 +817,8 @@ def _write(
         folder = temp / "change" / (slug(name) or "paddock")
         folder.mkdir(parents=True, exist_ok=True)
         for v in variables:
+            if (name, v) not in changes:  # a deeper layer not sampled in this paddock
+                continue
             s = changes[(name, v)]
             label, unit = labels[v]
             tags = {"variable": v, "unit": unit, "paddock": name}

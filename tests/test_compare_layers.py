@@ -195,3 +195,28 @@ def test_the_deeper_layers_change_shows_on_the_map(compared: dict) -> None:
             assert page.console_errors == []
         finally:
             page.close()
+
+
+def test_a_paddock_not_sampled_at_a_deeper_layer_is_named_not_refused(tmp_path: Path) -> None:
+    """Two paddocks at 0-10 and 10-30 cm, the same soil both seasons (change 0 everywhere,
+    hand arithmetic); this season South was not sampled at 10-30 cm."""
+    from tests.test_cli_run_depths import write_farm
+
+    last = write_farm(tmp_path / "last", tmp_path / "cache")
+    this = write_farm(tmp_path / "this", tmp_path / "cache")
+    lab = this / "lab.csv"
+    lab.write_text("\n".join(line for line in lab.read_text().splitlines()
+                             if not (line.startswith("S") and ",10-30 cm," in line)) + "\n")
+    got = CliRunner().invoke(cli, ["compare", str(last), str(this), "--out",
+                                   str(tmp_path / "c")])
+    assert got.exit_code == 0, got.output
+    record = json.loads((tmp_path / "c" / "run.json").read_text())
+    assert any("paddock 'South' has no samples at 10-30 cm in this season" in w
+               for w in record["warnings"])
+    change = tmp_path / "c" / "change"
+    assert _cells(change / "north" / "esp_10-30cm_change.tif") == pytest.approx(0.0, abs=1e-9)
+    assert _cells(change / "south" / "esp_change.tif") == pytest.approx(0.0, abs=1e-9)
+    assert not (change / "south" / "esp_10-30cm_change.tif").exists()
+    table = pd.read_csv(tmp_path / "c" / "change_by_zone.csv").set_index("paddock")
+    assert np.isnan(table.loc["South", "esp_10-30cm_change_mean"])
+    assert table.loc["North", "esp_10-30cm_change_mean"] == pytest.approx(0.0, abs=1e-9)
