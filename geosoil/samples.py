@@ -485,6 +485,19 @@ def _cation_unit(cell: str) -> str | None:
         return None
 
 
+def _filled(body: pd.DataFrame) -> pd.DataFrame:
+    """True for each cell that holds something (not empty, not only spaces), as
+    ``not _missing(v) and str(v).strip() != ""`` says of it, with whole columns at once."""
+    arr = body.to_numpy(dtype=object)
+    flat = arr.ravel()
+    if pd.api.types.infer_dtype(flat, skipna=False) == "string":  # every CSV
+        out = np.strings.str_len(_stripped(flat)) > 0
+    else:
+        out = np.array([not _missing(v) and str(v).strip() != "" for v in flat.tolist()],
+                       dtype=bool)
+    return pd.DataFrame(out.reshape(arr.shape), index=body.index, columns=body.columns)
+
+
 def _body(
     table: pd.DataFrame, first: int, *, file: str, excel: bool
 ) -> tuple[pd.DataFrame, np.ndarray, dict[str, str], int | None]:
@@ -502,7 +515,7 @@ def _body(
         names.append(text or f"column {_excel_column(i) if excel else i + 1}")
     body = table.iloc[first + 1 :].copy()
     body.columns = range(len(names))
-    filled = body.map(lambda v: not _missing(v) and str(v).strip() != "")
+    filled = _filled(body)
     unnamed = [i for i, c in enumerate(cells) if (_missing(c) or not str(c).strip())]
     keep_columns = [i for i in range(len(names)) if i not in unnamed or filled[i].any()]
     names = [names[i] for i in keep_columns]
@@ -616,8 +629,9 @@ def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
             fix=f"check the separator ('{sep}' was used) and the quotes on that row",
         ) from None
     try:
-        for _ in csv.reader(io.StringIO(text, newline=""), delimiter=sep, strict=True):
-            pass
+        if '"' in text:  # only a quote can open and never close
+            for _ in csv.reader(io.StringIO(text, newline=""), delimiter=sep, strict=True):
+                pass
     except csv.Error as exc:
         if "unexpected end of data" in str(exc) and records:
             # a quote opened and never closed swallows the rest of the file into one cell
@@ -626,15 +640,20 @@ def _read_csv(path: Path, name: str, settings: SampleSettings) -> _Raw:
                 "runs into one cell", file=name, row=len(records),
                 fix="remove the stray quote or close it",
             ) from None
-    width = max((len(r) for r in records), default=0)
-    table = pd.DataFrame([r + [""] * (width - len(r)) for r in records], dtype=object)
+    widths = np.fromiter(map(len, records), dtype=np.int64, count=len(records))
+    width = int(widths.max(initial=0))
+    if (widths == width).all():
+        table = pd.DataFrame(records, dtype=object)
+    else:
+        table = pd.DataFrame([r + [""] * (width - len(r)) for r in records], dtype=object)
     first = _find_header(table, settings)
     # A row with values beyond the header's last field has too many fields.
-    for n, record in enumerate(records[first + 1 :], start=first + 2):
+    longer = np.flatnonzero(widths[first + 1 :] > len(records[first])) + first + 1
+    for n, record in zip(longer + 1, (records[i] for i in longer), strict=True):
         if any(c.strip() for c in record[len(records[first]) :]):
             raise InputError(
                 f"the row has {len(record)} fields where the header (row {first + 1}) has "
-                f"{len(records[first])}", file=name, row=n,
+                f"{len(records[first])}", file=name, row=int(n),
                 fix=f"check the separator ('{sep}' was used) and the quotes on that row",
             )
     body, positions, unit_cells, units_row = _body(table, first, file=name, excel=False)
@@ -748,11 +767,62 @@ def _cell(value: Any, *, decimal_comma: bool) -> tuple[float, str, str]:
     return v, status, text
 
 
+def _stripped(texts: np.ndarray) -> np.ndarray:
+    """``str.strip()`` of every element of an object array of str, in numpy's string
+    routines (the same whitespace as Python's; a test holds them equal)."""
+    return np.strings.strip(texts.astype(np.dtypes.StringDType()))
+
+
+def _floats(texts: np.ndarray) -> np.ndarray:
+    """``float(t)`` of each text (numpy strings, whose cast to float parses as Python's
+    ``float`` does), NaN where ``float`` refuses it."""
+    try:
+        return texts.astype(float)
+    except (ValueError, TypeError, OverflowError):
+        pass
+    out = np.full(texts.size, np.nan)
+    for i, t in enumerate(texts.astype(object).tolist()):
+        try:
+            out[i] = float(t)
+        except (ValueError, TypeError, OverflowError):
+            pass
+    return out
+
+
 def _cells(values: pd.Series, *, decimal_comma: bool) -> tuple[np.ndarray, np.ndarray, list[str]]:
-    parsed = [_cell(v, decimal_comma=decimal_comma) for v in values.tolist()]
-    numbers = np.array([p[0] for p in parsed], dtype=float)
-    status = np.array([p[1] for p in parsed], dtype=object)
-    return numbers, status, [p[2] for p in parsed]
+    """(numbers, status, texts) of a column, each cell as :func:`_cell` reads it.
+
+    A column of text (every CSV) or of numbers (a workbook's or vector file's) is parsed
+    whole: Python's ``float`` over the stripped texts, as :func:`_cell` applies it. The
+    cells that gives no finite number for (empty words, ``<0.1``, text that is not a
+    number) and every cell of a mixed column go through :func:`_cell` one by one. The
+    tests hold the two equal cell by cell.
+    """
+    arr = values.to_numpy(dtype=object)
+    n = arr.size
+    numbers = np.full(n, np.nan)
+    status = np.full(n, "ok", dtype=object)
+    texts = np.full(n, "", dtype=object)
+    done = np.zeros(n, dtype=bool)
+    kind = pd.api.types.infer_dtype(arr, skipna=False)
+    if kind == "string":
+        text = _stripped(arr)
+        number = np.strings.replace(text, ",", ".") if decimal_comma else text
+        v = _floats(number)
+        done = np.isfinite(v)
+        numbers[done] = v[done]
+        texts[done] = text[done].astype(object)
+    elif kind in ("floating", "integer", "mixed-integer-float"):
+        try:
+            v = arr.astype(float)
+        except OverflowError:  # an integer beyond a float: _cell says so
+            v = np.full(n, np.nan)
+        done = np.isfinite(v)  # NaN is an empty cell, inf not a number: _cell says so
+        numbers[done] = v[done]
+        texts[done] = [str(x) for x in arr[done]]
+    for i in np.flatnonzero(~done):
+        numbers[i], status[i], texts[i] = _cell(arr[i], decimal_comma=decimal_comma)
+    return numbers, status, texts.tolist()
 
 
 def _id_text(value: Any) -> str:
@@ -761,6 +831,14 @@ def _id_text(value: Any) -> str:
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
     return str(value).strip()
+
+
+def _id_texts(values: pd.Series) -> list[str]:
+    """:func:`_id_text` of every cell; a column of text (most IDs) stripped at once."""
+    arr = values.to_numpy(dtype=object)
+    if pd.api.types.infer_dtype(arr, skipna=False) == "string":
+        return _stripped(arr).astype(object).tolist()
+    return [_id_text(v) for v in arr.tolist()]
 
 
 def _present(
@@ -835,6 +913,8 @@ def _read_depths(
            "depth_unit when the numbers are not in cm), or set [samples] depths = 'ignore'")
     if rng is not None:
         unit = depth_unit_of(rng) or settings.depth_unit
+        # a file has a few distinct depths however many rows: each text is parsed once
+        parsed: dict[str, tuple[float, float] | str] = {}
         for i, value in enumerate(table[rng].tolist()):
             if hasattr(value, "isoformat"):
                 issues.append(_Issue(int(rows[i]), rng, f"the depth is a date ({value}): a "
@@ -843,29 +923,40 @@ def _read_depths(
                                      "again, or give top and bottom in two columns"))
                 continue
             text = "" if _missing(value) else str(value)
-            try:
-                top[i], bottom[i] = parse_depth(text, unit=unit)
-            except ValueError as exc:
-                issues.append(_Issue(int(rows[i]), rng, str(exc), fix))
+            if text not in parsed:
+                try:
+                    parsed[text] = parse_depth(text, unit=unit)
+                except ValueError as exc:
+                    parsed[text] = str(exc)
+            got = parsed[text]
+            if isinstance(got, str):
+                issues.append(_Issue(int(rows[i]), rng, got, fix))
+            else:
+                top[i], bottom[i] = got
         return top, bottom
     assert top_h is not None and bottom_h is not None
     for header, out in ((top_h, top), (bottom_h, bottom)):
         unit = depth_unit_of(header) or settings.depth_unit
-        for i, value in enumerate(table[header].tolist()):
-            v, status, text = _cell(value, decimal_comma=decimal_comma)
-            if status != "ok":
-                issues.append(_Issue(int(rows[i]), header,
-                                     f"'{text}' is not a depth" if text else "the depth is empty",
-                                     "give every sample's top and bottom depth as numbers"))
-                continue
-            out[i] = v * DEPTH_UNITS[unit]
-    for i in range(n):
-        if np.isfinite(top[i]) and np.isfinite(bottom[i]):
-            try:
-                top[i], bottom[i] = check_depths(round(top[i], 6), round(bottom[i], 6))
-            except ValueError as exc:
-                issues.append(_Issue(int(rows[i]), bottom_h, str(exc),
-                                     "check the sample's top and bottom depth"))
+        numbers, status, texts = _cells(table[header], decimal_comma=decimal_comma)
+        for i in np.flatnonzero(status != "ok"):
+            issues.append(_Issue(int(rows[i]), header,
+                                 f"'{texts[i]}' is not a depth" if texts[i] else
+                                 "the depth is empty",
+                                 "give every sample's top and bottom depth as numbers"))
+        ok = status == "ok"
+        out[ok] = numbers[ok] * DEPTH_UNITS[unit]
+    # each distinct (top, bottom) checked once
+    both = np.flatnonzero(np.isfinite(top) & np.isfinite(bottom))
+    distinct, which = np.unique(np.column_stack([top[both], bottom[both]]), axis=0,
+                                return_inverse=True)
+    which = which.reshape(-1)
+    for k, (t, b) in enumerate(distinct.tolist()):
+        at = both[which == k]
+        try:
+            top[at], bottom[at] = check_depths(round(t, 6), round(b, 6))
+        except ValueError as exc:
+            issues.extend(_Issue(int(rows[i]), bottom_h, str(exc),
+                                 "check the sample's top and bottom depth") for i in at)
     return top, bottom
 
 
@@ -1293,7 +1384,9 @@ def _range_issues(
     if not crs.is_geographic:
         return
     skip_fix = " or set [samples] on_bad_row = 'skip'"
-    for i in np.flatnonzero(np.isfinite(x) & np.isfinite(y)):
+    located = np.isfinite(x) & np.isfinite(y)
+    in_range = (np.abs(x) <= 180) & (np.abs(y) <= 90)
+    for i in np.flatnonzero(located & (~in_range | ((x == 0) & (y == 0)))):
         lon, lat = x[i], y[i]
         if abs(lon) <= 180 and abs(lat) <= 90:
             if lon == 0 and lat == 0:
@@ -1356,22 +1449,34 @@ def _id_issues(ids: list[str], rows: np.ndarray, id_header: str,
                depths: tuple[np.ndarray, np.ndarray] | None, issues: list[_Issue]) -> None:
     """A problem for each empty sample ID and each ID seen before (at the same depth: one ID
     may name a place sampled at several depths)."""
-    first_seen: dict[tuple[str, float, float], int] = {}
-    for i, sid in enumerate(ids):
-        at = (sid, float(depths[0][i]), float(depths[1][i])) if depths is not None else (
-            sid, 0.0, 0.0)
-        if not sid:
+    n = len(ids)
+    frame = pd.DataFrame({
+        "id": pd.Series(ids, dtype=object),
+        "top": depths[0] if depths is not None else np.zeros(n),
+        "bottom": depths[1] if depths is not None else np.zeros(n),
+        "row": np.asarray(rows, dtype=np.int64),
+    })
+    empty = (frame["id"] == "").to_numpy()
+    # a depth that could not be read (NaN, a problem of its own) matches no other
+    compared = ~empty & np.isfinite(frame["top"].to_numpy()) & np.isfinite(
+        frame["bottom"].to_numpy())
+    named = frame[compared]
+    first_row = named.groupby(["id", "top", "bottom"], sort=False)["row"].transform("first")
+    again = np.zeros(n, dtype=bool)
+    again[np.flatnonzero(compared)[(first_row != named["row"]).to_numpy()]] = True
+    first = np.zeros(n, dtype=np.int64)
+    first[compared] = first_row.to_numpy()
+    for i in np.flatnonzero(empty | again):
+        if empty[i]:
             issues.append(_Issue(int(rows[i]), id_header, "the sample ID is empty",
                                  "give every sample an ID, or set [samples] on_bad_row = 'skip'"))
-        elif at in first_seen:
+        else:
             issues.append(_Issue(
-                int(rows[i]), id_header, f"sample ID '{sid}' is also on row {first_seen[at]}"
+                int(rows[i]), id_header, f"sample ID '{ids[i]}' is also on row {first[i]}"
                 + (" at the same depth" if depths is not None else ""),
                 "give each sample its own ID, or set [samples] on_bad_row = 'skip' to keep "
                 "the first",
             ))
-        else:
-            first_seen[at] = int(rows[i])
 
 
 def read_samples(settings: SampleSettings, *, undecided: str = "stop",
@@ -1442,7 +1547,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         table, rows, headers, taken | {h for h in depth_headers if h}, settings, name,
         raw.header_row, raw.decimal_comma, issues)
 
-    ids = [_id_text(v) for v in table[id_header].tolist()]
+    ids = _id_texts(table[id_header])
     _id_issues(ids, rows, id_header, depths, issues)
 
     values = {
@@ -1472,9 +1577,10 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
             first = min(issues, key=lambda i: (i.row, order.get(i.column or "", -1)))
             raise InputError(first.problem, file=name, row=first.row, column=first.column,
                              fix=first.fix)
-        for r in bad_rows:
-            reasons = [f"column '{i.column}': {i.problem}" for i in issues if i.row == r]
-            skipped.append((r, "; ".join(reasons)))
+        reasons: dict[int, list[str]] = {}
+        for i in issues:
+            reasons.setdefault(i.row, []).append(f"column '{i.column}': {i.problem}")
+        skipped.extend((r, "; ".join(reasons[r])) for r in bad_rows)
         if len(bad_rows) == len(rows):
             r, reason = skipped[0]
             raise InputError(f"every row is bad, e.g. {reason}", file=name, row=r,
