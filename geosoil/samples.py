@@ -938,9 +938,9 @@ def _read_depths(
     for header, out in ((top_h, top), (bottom_h, bottom)):
         unit = depth_unit_of(header) or settings.depth_unit
         numbers, status, texts = _cells(table[header], decimal_comma=decimal_comma)
-        for i in np.flatnonzero(status != "ok"):
-            issues.append(_Issue(int(rows[i]), header,
-                                 f"'{texts[i]}' is not a depth" if texts[i] else
+        for k in np.flatnonzero(status != "ok"):
+            issues.append(_Issue(int(rows[k]), header,
+                                 f"'{texts[k]}' is not a depth" if texts[k] else
                                  "the depth is empty",
                                  "give every sample's top and bottom depth as numbers"))
         ok = status == "ok"
