@@ -108,6 +108,9 @@ FARM_TASKSET = "farm_isoxml"
 
 #: The farm's GeoPackage, at the top of the output folder.
 FARM_GPKG = "farm.gpkg"
+#: Where a run puts every sample with its values (the map and the report draw at most
+#: a bounded number of them, and say so naming these).
+SAMPLES_EVERYWHERE = f"samples.csv and {FARM_GPKG} (layer samples)"
 
 #: Units of every surface and derived quantity, for files, map and report.
 SURFACE_UNITS: dict[str, str] = {
@@ -1435,6 +1438,8 @@ def build_farm_map(farm: FarmResult) -> str:
         sample_fields=sample_fields(farm),
         open_surface=surface,
         open_product=product,
+        max_samples=webmap.MAP_MAX_SAMPLES,
+        samples_source=SAMPLES_EVERYWHERE,
     )
 
 
@@ -1599,6 +1604,7 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         glance=tuple(paddock_glance(farm)),
         soil_maps=tuple(soil_maps(farm)),
         samples=prep.samples[["sample_id", "geometry"]],
+        samples_source=SAMPLES_EVERYWHERE,
         exclusion_kinds=exclusion_kinds(farm),
         acid_label=f"{ph_label(farm)} below {acid_ph_threshold(farm):g}",
         sodic_labels=(f"ESP ≥ {chem.sodic_esp_percent:g} %",

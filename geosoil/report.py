@@ -56,6 +56,7 @@ from .units import RATE_UNITS, format_rate
 
 __all__ = [
     "CAUTIONS",
+    "REPORT_MAX_SAMPLE_DOTS",
     "ChangeReportInput",
     "PaddockGlance",
     "Provenance",
@@ -74,6 +75,12 @@ __all__ = [
 ]
 
 logger = logging.getLogger(__name__)
+
+#: Most samples drawn on each soil map of the report. A map is 640 px wide: 2 000 dots of
+#: 6 px already cover most of a paddock, and each map stays under about 0.3 MB whatever the
+#: sample count (300 000 samples drew 108 MiB of dots). The full table is in the run's
+#: samples.csv and farm.gpkg; the report says so.
+REPORT_MAX_SAMPLE_DOTS = 2_000
 
 #: Cautions printed at the top of every report (callers may pass their own list).
 CAUTIONS: tuple[str, ...] = (
@@ -347,7 +354,13 @@ class ReportInput:
         :class:`SoilMap` of ESP, pH and acid saturation (or what there is).
     samples
         Optional sample points (``sample_id``, geometry in the paddocks' CRS), drawn
-        on the soil maps.
+        on the soil maps: at most ``max_sample_dots`` of them, spread evenly.
+    max_sample_dots
+        Most samples drawn on each soil map (:data:`REPORT_MAX_SAMPLE_DOTS`); above it,
+        a spread subset, and the page says how many of how many and where every sample
+        is (``samples_source``).
+    samples_source
+        Where every sample is with its values (e.g. ``"samples.csv and farm.gpkg"``).
     exclusion_kinds
         Exclusion label -> ``"creek buffer"`` or ``"exclusion"``: how exclusion zones
         are named in maps and tables.
@@ -389,6 +402,8 @@ class ReportInput:
     glance: Sequence[PaddockGlance] = ()
     soil_maps: Sequence[SoilMap] = ()
     samples: Any = None
+    max_sample_dots: int = 0  # 0: REPORT_MAX_SAMPLE_DOTS
+    samples_source: str = ""
     exclusion_kinds: Mapping[str, str] = field(default_factory=dict)
     acid_label: str = "acid"
     sodic_labels: tuple[str, str] = ("ESP ≥ 6 %", "ESP ≥ 15 %")
@@ -876,6 +891,7 @@ def surface_map_svg(
     width: int = 640,
     max_height: int = 440,
     uid: str = "s",
+    max_samples: int | None = None,
 ) -> str:
     """Static map of one soil surface over the farm: the surface in its colour classes
     (a PNG inside the SVG), exclusions hatched, paddock outlines and the samples on top.
@@ -896,6 +912,9 @@ def surface_map_svg(
         Largest size in CSS pixels.
     uid
         Text unique in the page, for pattern ids.
+    max_samples
+        Most samples drawn (None: all); above it, the spread subset of
+        :func:`sample_dots`.
 
     Returns
     -------
@@ -937,12 +956,17 @@ def surface_map_svg(
             })
     points = []
     if samples is not None and len(samples):
-        for _, p in samples.iterrows():
-            pt = p.geometry
-            if pt.geom_type != "Point":
-                pt = pt.representative_point()
-            sid = str(p["sample_id"]) if "sample_id" in samples.columns else ""
-            points.append({"x": frame.fx(pt.x), "y": frame.fy(pt.y), "id": sid})
+        drawn = samples.iloc[sample_dots(samples, max_samples)]
+        geoms = drawn.geometry.to_numpy()
+        not_point = np.flatnonzero(shapely.get_type_id(geoms) != 0)
+        if not_point.size:
+            geoms = geoms.copy()
+            geoms[not_point] = shapely.point_on_surface(geoms[not_point])
+        xy = shapely.get_coordinates(geoms)
+        ids = ([str(v) for v in drawn["sample_id"].tolist()] if "sample_id" in drawn.columns
+               else [""] * len(drawn))
+        points = [{"x": frame.fx(x), "y": frame.fy(y), "id": sid}
+                  for (x, y), sid in zip(xy.tolist(), ids, strict=True)]
     return _drawing("soil_map", {
         "width": frame.width, "height": frame.height, "title": soil.title, "pid": pid,
         "image": {"x": frame.fx(min(rx0, rx1)), "y": frame.fy(max(ry0, ry1)),
@@ -952,6 +976,25 @@ def surface_map_svg(
         "outlines": [_geom_path(g, frame.fx, frame.fy) for g in geoms],
         "samples": points, "bar": frame.scale_bar(frame.height - 8),
     })
+
+
+def sample_dots(samples: gpd.GeoDataFrame, most: int | None) -> np.ndarray:
+    """Indices of the samples a soil map draws: all when at most ``most`` (or ``most`` is
+    None), else a spread subset of ``most`` (:func:`geosoil.points.spread_subset`, seeded:
+    the same dots on every map and every run), ascending.
+
+    >>> from shapely.geometry import Point
+    >>> pts = gpd.GeoDataFrame(geometry=[Point(i, 0) for i in range(10)], crs="EPSG:32755")
+    >>> sample_dots(pts, None).tolist(), len(sample_dots(pts, 4))
+    ([0, 1, 2, 3, 4, 5, 6, 7, 8, 9], 4)
+    """
+    from .points import spread_subset
+
+    n = len(samples)
+    if most is None or n <= most:
+        return np.arange(n)
+    xy = shapely.get_coordinates(shapely.centroid(samples.geometry.to_numpy()))
+    return spread_subset(xy, most)
 
 
 # --------------------------------------------------------------------------- page
@@ -1167,10 +1210,14 @@ def build_report(data: ReportInput) -> str:
     if len(excl_zones):
         excl_zones = excl_zones[excl_zones["product"] == excl_zones["product"].iloc[0]]
     soil_maps = []
+    most = data.max_sample_dots or REPORT_MAX_SAMPLE_DOTS
+    n_samples = len(data.samples) if data.samples is not None else 0
+    samples_note = {"drawn": min(most, n_samples), "total": n_samples,
+                    "source": data.samples_source}
     for k, soil in enumerate(data.soil_maps):
         map_svg = surface_map_svg(soil, paddocks=_metric(data.paddocks),
                                   samples=data.samples, exclusions=excl_zones,
-                                  exclusion_kinds=kinds, uid=str(k))
+                                  exclusion_kinds=kinds, uid=str(k), max_samples=most)
         soil_maps.append({"title": soil.title, "unit": soil.unit, "svg": Markup(map_svg),
                           "legend": soil.classes.legend(), "note": soil.classes.note})
     has_creek = any(exclusion_kind(str(lab), kinds) == "creek buffer"
@@ -1264,6 +1311,7 @@ def build_report(data: ReportInput) -> str:
         n_paddocks=len(paddock_names), n_products=len(products),
         farm_table=farm_table, glance=_glance_table(data, products),
         soil_maps=soil_maps, has_creek=has_creek, has_exclusion=len(excl_zones) > 0,
+        samples_note=samples_note,
         paddocks=paddocks, cv_table=cv_table, variograms=variograms,
         uncertainty=uncertainty, density_table=density_table,
         assumptions=_simple_table([("assumption", False), ("value", False)],

@@ -950,8 +950,8 @@ def _read_depths(
     distinct, which = np.unique(np.column_stack([top[both], bottom[both]]), axis=0,
                                 return_inverse=True)
     which = which.reshape(-1)
-    for k, (t, b) in enumerate(distinct.tolist()):
-        at = both[which == k]
+    for j, (t, b) in enumerate(distinct.tolist()):
+        at = both[which == j]
         try:
             top[at], bottom[at] = check_depths(round(t, 6), round(b, 6))
         except ValueError as exc:

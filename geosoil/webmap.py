@@ -43,7 +43,7 @@ import importlib.resources
 import logging
 import math
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from html.parser import HTMLParser
 from typing import Any
@@ -52,6 +52,7 @@ import affine
 import numpy as np
 import pyproj
 import rasterio.warp
+import shapely
 from rasterio.enums import Resampling
 
 from .errors import CRSError, GeosoilError, InputError, SettingsError
@@ -68,6 +69,7 @@ from .presentation import (
 from .units import RATE_UNITS, format_rate
 
 __all__ = [
+    "MAP_MAX_SAMPLES",
     "MAX_ZONE_LABELS",
     "RasterLayer",
     "SampleField",
@@ -75,6 +77,7 @@ __all__ = [
     "WebRaster",
     "build_map",
     "remote_references",
+    "sample_rows",
     "warp_to_web_mercator",
 ]
 
@@ -428,26 +431,100 @@ def _flag_text(field: SampleField, value: Any) -> str | None:
     return f"{field.label}: {text}" if field.label else text
 
 
-def _samples_json(pts: Any, fields: Sequence[SampleField]) -> dict[str, Any]:
-    table = [f for f in fields if not f.flag and f.column in pts.columns]
-    flags = [f for f in fields if f.flag and f.column in pts.columns]
-    rows = []
-    if len(pts):
-        geoms = [g if g.geom_type == "Point" else g.representative_point() for g in pts.geometry]
-        cols = {f.column: pts[f.column].tolist() for f in (*table, *flags)}
-        ids = pts["sample_id"].tolist()
-        pads = pts["paddock"].tolist() if "paddock" in pts.columns else [""] * len(pts)
-        planned = [bool(v) for v in pts["planned"]] if "planned" in pts.columns \
-            else [False] * len(pts)
-        for i, g in enumerate(geoms):
-            values = []
-            for f in table:
-                text = fmt_value(cols[f.column][i], f.digits)
-                values.append(None if text == "–" else text)
-            flagged = [t for f in flags if (t := _flag_text(f, cols[f.column][i]))]
-            rows.append([round(g.y, 6), round(g.x, 6), fmt_value(ids[i]), fmt_value(pads[i]),
-                         values, flagged, 1 if planned[i] else 0])
-    return {"fields": [[f.label, f.unit] for f in table], "rows": rows}
+#: Most samples the map carries (a spread subset above it, every planned point kept): a
+#: 300 ha paddock at 10 000 samples has one every 300 m2, more than a screen can show
+#: apart; the page stays a few MiB and opens in seconds. The full table is in the
+#: run's samples.csv and farm.gpkg.
+MAP_MAX_SAMPLES = 10_000
+
+
+def _map_subset(pts: Any, most: int) -> np.ndarray:
+    """Indices of the samples the map carries: all when at most ``most``; else every
+    planned point and a spread subset (:func:`geosoil.points.spread_subset`, seeded) of
+    the others, ascending."""
+    from .points import spread_subset
+
+    n = len(pts)
+    if n <= most:
+        return np.arange(n)
+    planned = (pts["planned"].fillna(False).astype(bool).to_numpy() if "planned" in pts.columns
+               else np.zeros(n, dtype=bool))
+    others = np.flatnonzero(~planned)
+    room = max(most - int(planned.sum()), 0)
+    xy = shapely.get_coordinates(pts.geometry.to_numpy()[others])  # lon/lat: points only here
+    if len(xy) == len(others) and room:
+        # degrees of longitude shrink with latitude: blocks about square on the ground
+        xy = xy * [math.cos(math.radians(float(np.mean(xy[:, 1])))), 1.0]
+        chosen = others[spread_subset(xy, room)]
+    else:
+        chosen = others[:room]
+    return np.sort(np.concatenate([np.flatnonzero(planned), chosen]))
+
+
+def _samples_json(pts: Any, fields: Sequence[SampleField], *, most: int = MAP_MAX_SAMPLES,
+                  source: str = "") -> dict[str, Any]:
+    """The sample layer as columns: coordinates as whole millionths of a degree from the
+    first point, IDs, a paddock index, each popup field's texts, an index into the distinct
+    lists of flags, and the planned points' indices. The page builds a popup when one is
+    opened. ``n`` is the number of samples given, ``source`` where all of them are."""
+    columns = pts.columns if pts is not None else ()
+    table = [f for f in fields if not f.flag and f.column in columns]
+    flags = [f for f in fields if f.flag and f.column in columns]
+    out: dict[str, Any] = {"fields": [[f.label, f.unit] for f in table],
+                           "n": len(pts) if pts is not None else 0,
+                           "source": source, "lat0": 0, "lon0": 0, "lat": [], "lon": [],
+                           "id": [], "paddocks": [], "paddock": [], "values": [[] for _ in table],
+                           "flagSets": [[]], "flags": [], "planned": []}
+    if pts is None or not len(pts):
+        return out
+    pts = pts.iloc[_map_subset(pts, most)]
+    geoms = pts.geometry.to_numpy()
+    not_point = np.flatnonzero(shapely.get_type_id(geoms) != 0)
+    if not_point.size:
+        geoms = geoms.copy()
+        geoms[not_point] = shapely.point_on_surface(geoms[not_point])
+    xy = shapely.get_coordinates(geoms)
+    lon_e6 = np.round(xy[:, 0] * 1e6).astype(np.int64)
+    lat_e6 = np.round(xy[:, 1] * 1e6).astype(np.int64)
+    out["lon0"], out["lat0"] = int(lon_e6[0]), int(lat_e6[0])
+    out["lon"] = (lon_e6 - lon_e6[0]).tolist()
+    out["lat"] = (lat_e6 - lat_e6[0]).tolist()
+    out["id"] = [fmt_value(v) for v in pts["sample_id"].tolist()]
+    pads = [fmt_value(v) for v in pts["paddock"].tolist()] if "paddock" in pts.columns \
+        else [""] * len(pts)
+    names = list(dict.fromkeys(pads))
+    where = {p: k for k, p in enumerate(names)}
+    out["paddocks"], out["paddock"] = names, [where[p] for p in pads]
+    for k, f in enumerate(table):
+        texts = [fmt_value(v, f.digits) for v in pts[f.column].tolist()]
+        out["values"][k] = [None if t == "–" else t for t in texts]
+    cols = [pts[f.column].tolist() for f in flags]
+    sets: dict[tuple[str, ...], int] = {(): 0}
+    for i in range(len(pts)):
+        got = tuple(t for f, col in zip(flags, cols, strict=True) if (t := _flag_text(f, col[i])))
+        out["flags"].append(sets.setdefault(got, len(sets)))
+    out["flagSets"] = [list(k) for k in sets]
+    if "planned" in pts.columns:
+        out["planned"] = np.flatnonzero(pts["planned"].fillna(False).astype(bool)).tolist()
+    return out
+
+
+def sample_rows(samples: Mapping[str, Any]) -> list[list[Any]]:
+    """The map's sample layer (as :func:`build_map` puts it in the page) one row a sample:
+    ``[lat, lon, id, paddock, texts, flags, planned]``, as the page's ``sampleRow`` reads it.
+
+    >>> sample_rows({"fields": [["pH", ""]], "lat0": -35000000, "lon0": 147000000,
+    ...              "lat": [0, -10], "lon": [0, 25], "id": ["S1", "S2"], "paddocks": ["N"],
+    ...              "paddock": [0, 0], "values": [["5.2", None]], "flagSets": [[], ["sodic"]],
+    ...              "flags": [1, 0], "planned": [1]})[1]
+    [-35.00001, 147.000025, 'S2', 'N', [None], [], 1]
+    """
+    planned = set(samples["planned"])
+    return [[(samples["lat0"] + samples["lat"][i]) / 1e6,
+             (samples["lon0"] + samples["lon"][i]) / 1e6, samples["id"][i],
+             samples["paddocks"][samples["paddock"][i]], [v[i] for v in samples["values"]],
+             list(samples["flagSets"][samples["flags"][i]]), 1 if i in planned else 0]
+            for i in range(len(samples["id"]))]
 
 
 def _default_fields(pts: Any) -> list[SampleField]:
@@ -542,6 +619,8 @@ def build_map(
     sample_fields: Sequence[SampleField] | None = None,
     open_surface: str | None = None,
     open_product: str | None = None,
+    max_samples: int = MAP_MAX_SAMPLES,
+    samples_source: str = "",
 ) -> str:
     """The run's interactive map as one self-contained HTML page.
 
@@ -575,6 +654,13 @@ def build_map(
     open_surface, open_product
         The surface (a layer's ``key``) and the product whose zones are shown
         when the page opens (default: the first of each).
+    max_samples
+        Most samples the page carries (:data:`MAP_MAX_SAMPLES`): above it, every
+        planned point and a spread subset of the others, and the legend says how
+        many of how many are drawn.
+    samples_source
+        Where every sample is (e.g. ``"samples.csv and farm.gpkg"``), said in the
+        legend when not all are drawn.
 
     Returns
     -------
@@ -650,7 +736,7 @@ def build_map(
              "at": _latlon(label_point(r.geometry))}
             for _, r in (pads.iterrows() if pads is not None else iter(()))
         ],
-        "samples": _samples_json(pts, fields) if pts is not None else {"fields": [], "rows": []},
+        "samples": _samples_json(pts, fields, most=max_samples, source=samples_source),
         "open": {
             "surface": open_surface or (keys[0] if keys else None),
             "product": open_product or (names[0] if names else None),

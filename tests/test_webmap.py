@@ -208,10 +208,11 @@ def test_one_sample_layer_from_one_array(page_text: str) -> None:
     samples = data_of(page_text)["samples"]
     assert [f[0] for f in samples["fields"]] == ["Paddock", "pH (CaCl2)", "EC 1:5 (dS/m)",
                                                  "ESP", "note"]
-    assert len(samples["rows"]) == 12
-    row = samples["rows"][0]
+    rows = webmap.sample_rows(samples)
+    assert len(rows) == 12 and samples["n"] == 12
+    row = rows[0]
     assert row[2] == "S00" and len(row[4]) == 5
-    assert row[5] == ["sodic"] and samples["rows"][11][5] == []  # flags, "non-sodic" is no flag
+    assert row[5] == ["sodic"] and rows[11][5] == []  # flags, "non-sodic" is no flag
     assert page_text.count("L.circleMarker(") == 2  # the page's code, not one per sample
 
 
@@ -320,7 +321,7 @@ def test_hostile_strings_never_reach_the_page_raw(hostile_text: str) -> None:
     assert escape_text("Test farm " + HOSTILE_SCRIPT) in hostile_text  # <title>, autoescaped
     data = data_of(hostile_text)
     assert data["title"] == "Test farm " + HOSTILE_SCRIPT  # the JSON holds the text as it is
-    assert data["samples"]["rows"][0][2] == HOSTILE_IMG
+    assert webmap.sample_rows(data["samples"])[0][2] == HOSTILE_IMG
 
 
 # --------------------------------------------------------------------------- placement

@@ -171,23 +171,35 @@
   map.on("zoomend moveend layeradd layerremove resize", queueDeclutter);
 
   // ------------------------------------------------------------------ samples
+  // The layer comes as columns (webmap._samples_json): coordinates in millionths of a
+  // degree from the first point, texts per field, an index into the distinct flag lists.
+  var S = D.samples;
+  var plannedAt = {};
+  S.planned.forEach(function (i) { plannedAt[i] = true; });
+  function sampleRow(i) {
+    return [(S.lat0 + S.lat[i]) / 1e6, (S.lon0 + S.lon[i]) / 1e6, S.id[i],
+            S.paddocks[S.paddock[i]], S.values.map(function (v) { return v[i]; }),
+            S.flagSets[S.flags[i]], plannedAt[i] ? 1 : 0];
+  }
   var sampleRenderer = L.canvas({pane: "gs-samples", padding: 0.2});
   var samples = L.layerGroup();
   var markers = [];
-  D.samples.rows.forEach(function (r, i) {
-    var m = L.circleMarker([r[0], r[1]], {renderer: sampleRenderer, pane: "gs-samples",
-                                          radius: SMALL ? 4 : 5, color: "#000000", weight: 2,
-                                          fillColor: r[6] ? "#ffd400" : "#ffffff",
-                                          fillOpacity: 1});
+  S.id.forEach(function (id, i) {
+    var m = L.circleMarker([(S.lat0 + S.lat[i]) / 1e6, (S.lon0 + S.lon[i]) / 1e6],
+                           {renderer: sampleRenderer, pane: "gs-samples",
+                            radius: SMALL ? 4 : 5, color: "#000000", weight: 2,
+                            fillColor: plannedAt[i] ? "#ffd400" : "#ffffff",
+                            fillOpacity: 1});
     m.bindPopup(function () { return samplePopup(i); },
                 L.extend({className: "gs-sample-popup"}, popupOptions));
-    m.bindTooltip(el("span", null, r[2]), {direction: "top", offset: [0, -6]});
+    m.bindTooltip(function () { return el("span", null, S.id[i]); },
+                  {direction: "top", offset: [0, -6]});
     samples.addLayer(m);
     markers.push(m);
   });
 
   function samplePopup(i) {
-    var r = D.samples.rows[i];
+    var r = sampleRow(i);
     var rows = [];
     D.samples.fields.forEach(function (f, k) {
       var v = r[4][k];
@@ -436,11 +448,14 @@
       legendBody.appendChild(zs);
     }
     var other = [];
-    if (state.samples && D.samples.rows.length) {
-      if (D.samples.rows.some(function (r) { return !r[6]; })) {
-        other.push({cls: "gs-point", label: "soil sample (tap for lab values)"});
+    if (state.samples && S.id.length) {
+      if (S.planned.length < S.id.length) {
+        other.push({cls: "gs-point", label: "soil sample (tap for lab values)" +
+                    (S.id.length < S.n ? ": " + S.id.length.toLocaleString("en") + " of " +
+                     S.n.toLocaleString("en") + " drawn, spread evenly" +
+                     (S.source ? "; every sample is in " + S.source : "") : "")});
       }
-      if (D.samples.rows.some(function (r) { return r[6]; })) {
+      if (S.planned.length) {
         other.push({cls: "gs-point gs-planned", label: "planned sample (next season)"});
       }
     }
