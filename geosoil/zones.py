@@ -94,7 +94,6 @@ import numpy as np
 import pandas as pd
 import pyproj
 import rasterio.features
-import scipy  # scipy.ndimage loads on first use
 import shapely
 from affine import Affine
 from numpy.typing import NDArray
@@ -102,6 +101,7 @@ from shapely.affinity import rotate
 from shapely.geometry import shape as shape_from_geojson
 from shapely.geometry.base import BaseGeometry
 
+from .cellops import box_count, label_pieces, nearest_labelled
 from .errors import CRSError, DataWarning, InputError, RateWarning, SettingsError
 from .settings import setting
 from .spreader import SpreaderSettings, pass_schedule, spreader_passes
@@ -454,10 +454,7 @@ def _majority_filter(cls: NDArray[np.int64], valid: NDArray[np.bool_]) -> NDArra
     k = int(cls.max())
     if k <= 1:
         return cls
-    counts = np.stack(
-        [scipy.ndimage.uniform_filter((cls == c).astype(float), size=3, mode="constant") * 9.0
-         for c in range(1, k + 1)]
-    )
+    counts = np.stack([box_count(cls == c) for c in range(1, k + 1)])
     best = counts.argmax(axis=0) + 1
     best_count = counts.max(axis=0)
     own = np.take_along_axis(counts, np.clip(cls - 1, 0, k - 1)[None], axis=0)[0]
@@ -760,9 +757,8 @@ def _class_zones(
         if changed:
             notes.append(f"smoothing (3 x 3 majority) changed the class of {changed} cells")
     # cells without a rate take the nearest cell's class, so classes tile the raster
-    idx = scipy.ndimage.distance_transform_edt(cls == 0, return_distances=False,
-                                               return_indices=True)
-    filled = cls[idx[0], idx[1]]
+    near_r, near_c = nearest_labelled(cls != 0)
+    filled = cls[near_r, near_c]
     filled = _merge_components(
         filled, overlap=overlap, has_rate=has_rate, transform=transform,
         min_area_m2=settings.min_zone_area_ha * 1e4, notes=notes,
@@ -788,15 +784,7 @@ def _class_zones(
 def _label_pieces(cls: NDArray[np.int64]) -> tuple[NDArray[np.int64], list[int]]:
     """Connected pieces of each class (4-connectivity, like the polygonising): the piece
     number of every cell (from 1) and each piece's class (index 0 unused)."""
-    comp = np.zeros(cls.shape, dtype=np.int64)
-    comp_class = [0]
-    n = 0
-    for c in np.unique(cls):
-        lab, m = scipy.ndimage.label(cls == c)
-        comp[lab > 0] = lab[lab > 0] + n
-        comp_class.extend([int(c)] * m)
-        n += m
-    return comp, comp_class
+    return label_pieces(cls)
 
 
 _Adjacency = dict[int, dict[int, float]]

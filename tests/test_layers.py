@@ -13,6 +13,7 @@ PACKAGE = Path(geosoil.__file__).parent
 
 #: Each module of geosoil/ and its layer (DEVELOPERS.md, "Layers"); a new module goes here.
 CORE = {"errors", "settings", "units", "names", "layers", "recording", "chemistry", "columns",
+        "cellops",
         "salinity", "grids", "crs", "points", "variogram", "kriging", "model_choice",
         "surfaces", "sampling", "change", "products", "liming", "rates", "spreader", "zones",
         "tonnage", "prescriptions"}
