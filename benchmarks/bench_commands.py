@@ -15,7 +15,8 @@ Each command is started as its own process, as from a shell, and timed from
 start to exit (wall time) with the peak resident memory of the process
 (``getrusage`` of the children). It prints the median of ``--repeat`` runs of:
 
-* ``geosoil --help``, ``--version`` and every ``COMMAND --help``;
+* ``geosoil --help``, ``--version`` and ``COMMAND --help`` for every command the
+  command group has (read from it, so a new command is timed too);
 * ``geosoil check`` on the demo farm;
 * ``geosoil demo`` with an empty surface cache (no surfaces and no zones in it);
 * ``geosoil run`` on the demo farm after a change to a rate setting (the
@@ -69,6 +70,13 @@ def fresh_install(where: Path) -> Path:
     return py
 
 
+def command_names() -> list[str]:
+    """Every command of the ``geosoil`` group (click only is loaded to list them)."""
+    from geosoil.cli.main import cli
+
+    return sorted(cli.commands)
+
+
 def run_once(args: list[str], env: dict[str, str]) -> tuple[float, float]:
     """Wall time (s) and CPU time (user + system, s) of one ``geosoil`` process."""
     ru0 = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -110,8 +118,7 @@ def main() -> None:
         base_env = dict(os.environ, XDG_CACHE_HOME=str(tmp / "cache"))
         print(f"load average before: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores; "
               f"medians of {args.repeat} runs")
-        for extra in (["--help"], ["--version"], *[[c, "--help"] for c in
-                                                    ("new", "check", "run", "demo", "explain")]):
+        for extra in (["--help"], ["--version"], *[[c, "--help"] for c in command_names()]):
             median_of("geosoil " + " ".join(extra), "startup", args.repeat,
                       lambda e=extra: (e, base_env))
         # the demo farm as a project of its own, so a rate can be changed
