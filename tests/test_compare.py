@@ -215,6 +215,7 @@ def _shift_ph(lab: str, shift: float, *, noise: float, seed: int = 7) -> str:
     return "\n".join(out) + "\n"
 
 
+@pytest.mark.slow
 def test_resampled_sites_with_a_uniform_ph_rise_show_it(seasons: dict[str, Path],
                                                         tmp_path: Path) -> None:
     """The same 60 sites sampled again, pH up 0.6 everywhere (lab noise sd 0.03). Each site

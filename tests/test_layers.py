@@ -5,6 +5,7 @@ the other; orchestration above them; the command line on top, imported by nothin
 from __future__ import annotations
 
 import ast
+import functools
 from pathlib import Path
 
 import geosoil
@@ -52,6 +53,7 @@ def _imports(path: Path) -> set[str]:
     return found
 
 
+@functools.cache  # parsed once for the module's tests
 def _graph() -> dict[str, set[str]]:
     modules = {p.stem for p in PACKAGE.glob("*.py")} - {"__init__"}
     return {m: (_imports(PACKAGE / f"{m}.py") & (modules | {"cli", "demo_farm"})) - {m}

@@ -999,6 +999,7 @@ def one_bad_cell(draw) -> tuple[bytes, int, str]:
     return bom + text.encode("utf-8"), bad_line, _GOOD_HEADER[bad_col]
 
 
+@pytest.mark.slow
 @_FUZZ
 @given(case=one_bad_cell())
 def test_one_bad_cell_is_named_by_row_and_column(tmp_path, case):

@@ -154,6 +154,7 @@ def test_format_summary_shows_rates_in_the_chosen_unit() -> None:
     assert e.value.key == "rate_unit"
 
 
+@pytest.mark.slow
 @settings(max_examples=50, deadline=None)
 @given(
     rows=st.lists(

@@ -220,6 +220,7 @@ def test_fit_refuses_too_few_lags_and_bad_names() -> None:
     assert info.value.key == "weighting"
 
 
+@pytest.mark.slow
 def test_fit_on_simulated_fields_finds_the_range_and_a_realistic_variance() -> None:
     # 12 fields of 400 points on a 1000 m square with an exponential variogram of practical
     # range 200 m (simulated exactly, seeds 10-21). One field's variogram wanders a lot, so

@@ -344,6 +344,7 @@ def _cell_of(web: webmap.WebRaster, x: float, y: float) -> float:
     return math.nan
 
 
+@pytest.mark.slow
 @settings(max_examples=30, deadline=None)
 @given(
     place=st.sampled_from(_PLACES),
