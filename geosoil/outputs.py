@@ -328,7 +328,8 @@ def write_outputs(
     farm : FarmResult
         The computed farm from :func:`geosoil.pipeline.compute`.
     out_dir : Path
-        The output folder, already checked by ``writers.ensure_output_dir``.
+        The folder to write into: the temporary folder beside the output folder that
+        :func:`geosoil.outfolder.output_folder` checked and made.
     progress : callable, optional
         Called with a short message at each stage.
     previous : Path, optional
