@@ -169,32 +169,31 @@ def test_seasons_with_no_depth_in_common_are_refused(compared: dict, tmp_path: P
 
 
 @pytest.mark.browser
-def test_the_deeper_layers_change_shows_on_the_map(compared: dict) -> None:
+def test_the_deeper_layers_change_shows_on_the_map(compared: dict, browser) -> None:  # noqa: ANN001
     """The map opened offline in headless Chromium: the 10-30 cm change is a layer of its
     own, with its own legend title."""
-    from tests.browser import Chromium, artifact_path, require_chromium
+    from tests.browser import artifact_path
 
-    with Chromium(require_chromium()) as browser:
-        page = browser.new_page(width=1280, height=900)
-        try:
-            page.goto(compared["out"] / "map.html")
-            browser.drain(0.2)
-            got = page.evaluate(
-                """(async () => {
-                  const api = window.geosoilMap;
-                  api.show({surface: 'esp_10-30cm_class', product: null});
-                  await api.surfaces['esp_10-30cm_class'].getElement().decode();
-                  return {keys: Object.keys(api.surfaces),
-                          titles: Array.from(document.querySelectorAll(
-                            '#gs-legend .gs-legend-title')).map(e => e.textContent)};
-                })()""")
-            assert {"esp_change", "esp_10-30cm_change", "ca_sat_10-30cm_class"} <= set(
-                got["keys"])
-            assert got["titles"] == ["ESP, 10-30 cm: changed beyond error?"]
-            page.screenshot(artifact_path("compare-layers-map.png"))
-            assert page.console_errors == []
-        finally:
-            page.close()
+    page = browser.new_page(width=1280, height=900)
+    try:
+        page.goto(compared["out"] / "map.html")
+        browser.drain(0.2)
+        got = page.evaluate(
+            """(async () => {
+              const api = window.geosoilMap;
+              api.show({surface: 'esp_10-30cm_class', product: null});
+              await api.surfaces['esp_10-30cm_class'].getElement().decode();
+              return {keys: Object.keys(api.surfaces),
+                      titles: Array.from(document.querySelectorAll(
+                        '#gs-legend .gs-legend-title')).map(e => e.textContent)};
+            })()""")
+        assert {"esp_change", "esp_10-30cm_change", "ca_sat_10-30cm_class"} <= set(
+            got["keys"])
+        assert got["titles"] == ["ESP, 10-30 cm: changed beyond error?"]
+        page.screenshot(artifact_path("compare-layers-map.png"))
+        assert page.console_errors == []
+    finally:
+        page.close()
 
 
 def test_a_paddock_not_sampled_at_a_deeper_layer_is_named_not_refused(tmp_path: Path) -> None:
