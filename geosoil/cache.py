@@ -307,7 +307,7 @@ def _surface(d: Any, arrays: Mapping[str, np.ndarray],
     )
 
 
-def load(folder: Path, key: str, *, shapes: Mapping[str, tuple[int, int]]
+def load(folder: Path, key: str, *, shapes: Mapping[str, tuple[int, int]], touch: bool = True
          ) -> tuple[dict[tuple[str, str], Surface], list[str]] | None:
     """The surfaces stored under ``key``, checked; None when there is no entry.
 
@@ -319,6 +319,9 @@ def load(folder: Path, key: str, *, shapes: Mapping[str, tuple[int, int]]
         The hexadecimal hash of the surfaces' inputs.
     shapes : mapping of str to (int, int)
         Each paddock's grid shape (height, width): every surface must match.
+    touch : bool, optional
+        Mark the entry most recently used (False: leave the cache as it is, for
+        ``check``).
 
     Returns
     -------
@@ -360,7 +363,8 @@ def load(folder: Path, key: str, *, shapes: Mapping[str, tuple[int, int]]
     for d in items:
         s = _surface(d, arrays, shapes)
         out[(s.paddock, s.variable)] = s
-    os.utime(jsn)  # most recently used: the pruning keeps it longest
+    if touch:
+        os.utime(jsn)  # most recently used: the pruning keeps it longest
     return out, list(warns)
 
 
@@ -423,6 +427,8 @@ def zones_path(folder: Path, key: str) -> Path:
         The cache folder.
     key : str
         The hexadecimal hash of the zones' inputs.
+    touch : bool, optional
+        Mark the entry most recently used (False: leave the cache as it is).
 
     Returns
     -------
@@ -504,7 +510,8 @@ def save_zones(folder: Path, key: str, zones: Any, notes: list[str],
     return path
 
 
-def load_zones(folder: Path, key: str) -> tuple[Any, list[str], list[str]] | None:
+def load_zones(folder: Path, key: str, *, touch: bool = True
+               ) -> tuple[Any, list[str], list[str]] | None:
     """The zones stored under ``key``, checked; None when there is no entry.
 
     Parameters
@@ -572,7 +579,8 @@ def load_zones(folder: Path, key: str) -> tuple[Any, list[str], list[str]] | Non
     except Exception as exc:  # any WKB that does not read as a geometry
         raise CacheEntryError(f"a geometry cannot be read: {exc}") from None
     zones = gpd.GeoDataFrame(data, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
-    os.utime(path)  # most recently used: the pruning keeps it longest
+    if touch:
+        os.utime(path)  # most recently used: the pruning keeps it longest
     return zones, list(meta["notes"]), list(meta["warnings"])
 
 

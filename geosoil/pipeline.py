@@ -656,6 +656,7 @@ def surfaces_for(
     progress: Progress = _quiet,
     use_cache: bool = True,
     interpolate: Interpolator | None = None,
+    fill_cache: bool = True,
 ) -> tuple[dict[tuple[str, str], Surface], bool]:
     """Interpolated surfaces, from the cache when their inputs are unchanged.
 
@@ -676,6 +677,8 @@ def surfaces_for(
     interpolate : callable, optional
         What makes the surfaces on a cache miss, called like
         :func:`geosoil.surfaces.interpolate_farm` (None, the default, calls it).
+    fill_cache : bool, optional
+        False reads the cache but changes nothing in it (``check`` writes nothing).
 
     Returns
     -------
@@ -689,16 +692,17 @@ def surfaces_for(
     if use_cache:
         shapes = {name: g.mask.shape for name, g in prep.grids.items()}
         try:
-            stored = cache_mod.load(folder, key, shapes=shapes)
+            stored = cache_mod.load(folder, key, shapes=shapes, touch=fill_cache)
         except cache_mod.CacheEntryError as exc:
             stored = None
             note = (f"the cached surfaces {cache_mod.entry_paths(folder, key)[1]} failed their "
                     f"check ({exc}); nothing of them was used, the surfaces were computed "
-                    "again and the entry replaced")
+                    "again" + (" and the entry replaced" if fill_cache else ""))
             progress(note)
             prep.warnings.append(note)
-            with contextlib.suppress(OSError):
-                cache_mod.discard(folder, key)
+            if fill_cache:
+                with contextlib.suppress(OSError):
+                    cache_mod.discard(folder, key)
         if stored is not None:
             progress("surfaces: unchanged inputs, taken from the cache")
             prep.warnings.extend(w for w in stored[1] if w not in prep.warnings)
@@ -716,7 +720,7 @@ def surfaces_for(
     if prep.layers:
         surfaces = {**surfaces, **_layer_surfaces(prep, progress, found)}
     prep.warnings.extend(w for w in found if w not in prep.warnings)
-    if use_cache:
+    if use_cache and fill_cache:
         try:
             cache_mod.save(folder, key, surfaces, found)
             cache_mod.prune(folder, keep=CACHE_KEEP)
@@ -891,6 +895,7 @@ def compute(
     prepared: Prepared | None = None,
     interpolate: Interpolator | None = None,
     paddocks: Collection[str] | None = None,
+    fill_cache: bool = True,
 ) -> FarmResult:
     """Stages 1-5: read, interpolate, compute rates, zones and tonnage.
 
@@ -910,6 +915,9 @@ def compute(
         Compute rates, zones and tonnage for these paddocks only (``explain``
         needs one); default every paddock. Surfaces are always made (or taken
         from the cache) for the whole farm.
+    fill_cache : bool, optional
+        False reads the surface and zones caches but changes nothing in them
+        (``check``, which writes nothing).
 
     Returns
     -------
@@ -930,7 +938,7 @@ def compute(
     cpu["read and check"] = time.process_time() - c0
     t0, c0 = time.perf_counter(), time.process_time()
     surfaces, hit = surfaces_for(prep, progress=progress, use_cache=use_cache,
-                                 interpolate=interpolate)
+                                 interpolate=interpolate, fill_cache=fill_cache)
     timings["surfaces"] = time.perf_counter() - t0
     cpu["surfaces"] = time.process_time() - c0
     t0, c0 = time.perf_counter(), time.process_time()
@@ -1000,7 +1008,7 @@ def compute(
             for product, rate in rr.product_rates.items():
                 zr = _zones_for(
                     prep, rate,
-                    use_cache=use_cache,
+                    use_cache=use_cache, fill_cache=fill_cache,
                     transform=grid.transform,
                     crs=prep.crs,
                     paddock=name,
@@ -1085,20 +1093,22 @@ def _zones_key(rate: np.ndarray, **kw: Any) -> str:
     return h.hexdigest()
 
 
-def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, **kw: Any) -> ZoneResult:
+def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, fill_cache: bool = True,
+               **kw: Any) -> ZoneResult:
     """:func:`geosoil.zones.make_zones`, or the same zones from the cache when everything
-    they are made from is unchanged (the warnings they raised are raised again)."""
+    they are made from is unchanged (the warnings they raised are raised again).
+    ``fill_cache`` False reads the cache but changes nothing in it."""
     if not use_cache:
         return make_zones(rate, **kw)
     key = _zones_key(rate, **kw)
     folder = _cache_dir(prep)
     try:
-        stored = cache_mod.load_zones(folder, key)
+        stored = cache_mod.load_zones(folder, key, touch=fill_cache)
     except cache_mod.CacheEntryError as exc:
         prep.warnings.append(
             f"the cached zones {cache_mod.zones_path(folder, key)} failed their check ({exc}); "
             f"nothing of them was used, the zones of {kw['paddock']} ({kw['product']}) were "
-            "made again and the entry replaced")
+            "made again" + (" and the entry replaced" if fill_cache else ""))
         stored = None
     if stored is not None:
         zones, notes, raised = stored
@@ -1108,6 +1118,8 @@ def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, **kw: Any) 
     raised = []
     with record_warnings(raised):
         zr = make_zones(rate, **kw)
+    if not fill_cache:
+        return zr
     try:
         cache_mod.save_zones(folder, key, zr.zones, zr.notes, raised)
         cache_mod.prune_zones(folder, keep=ZONES_KEEP)
@@ -1152,7 +1164,12 @@ def _no_zones(crs: Any) -> gpd.GeoDataFrame:
 
 
 def check(project: Project) -> tuple[list[str], list[str]]:
-    """Validate inputs and settings without writing anything.
+    """Validate inputs and settings without writing any output.
+
+    When nothing is wrong the farm is computed as a run computes it (surfaces and
+    zones from the cache when a run made them, kriged otherwise; the cache is read,
+    not changed), so the warnings are the ones a run gives before it writes
+    (``FarmResult.warnings``).
 
     Parameters
     ----------
@@ -1207,7 +1224,16 @@ def check(project: Project) -> tuple[list[str], list[str]]:
                         f"paddock '{name}' has no samples; sample it or set "
                         "[interpolation] borrow_farm_surface = true"
                     )
-        sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if keep(w))
+        if problems:
+            sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if keep(w))
+            return problems, sink
+        # nothing wrong: the rest of the run but the writing, so that check gives every
+        # warning a run gives before it writes (rates, passes, the products' defaults):
+        # the surfaces come from the cache when a run has made them (it is read, not
+        # changed), else they are kriged here
+        with record_warnings(raised):
+            farm = compute(project, prepared=prep, fill_cache=False)
+        sink.extend(w for w in farm.warnings if keep(w))
     except GeosoilError as exc:
         problems.append(str(exc))
         sink.extend(w for w in raised if keep(w))

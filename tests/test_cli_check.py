@@ -326,3 +326,38 @@ def test_an_unknown_key_lists_every_valid_key(tmp_path: Path) -> None:
     listed = problems[0].split("Valid keys: ", 1)[1].strip().split(", ")
     assert listed == [f.name for f in dataclasses.fields(LimeRule)]
     assert {"kamprath_factor", "kamprath_min_al", "product"} <= set(listed)
+
+
+def _warnings(stderr: str) -> list[str]:
+    return [ln.removeprefix("warning: ") for ln in stderr.splitlines()
+            if ln.startswith("warning: ")]
+
+
+def test_check_gives_the_warnings_run_gives_on_the_demo(demo_run) -> None:  # noqa: ANN001
+    """The one warning list: the demo's check (with the session's cache, as after its run)
+    warns of what its run warned of, the lime split into passes among them."""
+    r = CliRunner().invoke(cli, ["check", str(demo_run.farm)],
+                           env={"XDG_CACHE_HOME": str(demo_run.cache.parent)})
+    assert r.exit_code == 0, r.stderr
+    assert _warnings(r.stderr) == demo_run.record["warnings"]
+    assert any("per pass" in w for w in demo_run.record["warnings"])
+    assert f"({len(demo_run.record['warnings'])} warning(s))" in r.stdout
+
+
+def test_check_gives_the_warnings_run_gives_with_default_products(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A trial: check said 0 warnings where run gave the products' pure-material defaults.
+    Check runs first (an empty cache: it kriges, changing nothing in the cache), then run."""
+    import json
+
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    project = make_project(tmp_path / "farm")
+    before = _tree(tmp_path)
+    r = check(project)
+    assert r.exit_code == 0, r.stderr
+    assert _tree(tmp_path) == before  # nothing written, not even to the cache
+    got = _run(project, tmp_path / "out")
+    assert got.exit_code == 0, got.stderr
+    ran = json.loads((tmp_path / "out" / "run.json").read_text())["warnings"]
+    assert any("still carries the pure-material defaults" in w for w in ran)
+    assert _warnings(r.stderr) == ran
