@@ -37,12 +37,21 @@ def print_cautions(cautions: Sequence[str] | None = None) -> None:
 
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
+    from geosoil.outputs import prescribed
     from geosoil.tonnage import KG_PER_SHORT_TON, format_summary, mass_unit_for
 
     settings = result.farm.prep.project.settings
     rate_unit = settings.output.rate_unit
-    echo(format_summary(result.tonnage, rate_unit=rate_unit,
-                              currency=settings.tonnage.currency))
+    headline, why = prescribed(result.farm)
+    t = result.tonnage
+    if len(t) and (t["tonnes"] > 0).any():
+        echo(format_summary(t, rate_unit=rate_unit, currency=settings.tonnage.currency))
+    else:
+        echo(headline)
+    if why:
+        echo("Why:" if headline.startswith("Nothing") else "Rules that gave no product:")
+        for line in why:
+            echo(f"  - {line}")
     first = result.record.get("first_season_tonnes")
     if first:
         echo("")
@@ -59,7 +68,8 @@ def print_summary(result: RunResult, *, quiet: bool) -> None:
     for name in ("tonnage.csv", "map.html", "report.html", "run.json"):
         echo(f"  {result.out_dir / name}")
     n_presc = sum(1 for p in result.written if "prescriptions" in p.parts)
-    echo(f"  {result.out_dir / 'prescriptions'}  ({n_presc} files)")
+    echo(f"  {result.out_dir / 'prescriptions'}  "
+         + (f"({n_presc} files)" if n_presc else "(none: nothing prescribed)"))
     shortened = result.record.get("names_shortened") or []
     if shortened:
         echo("")

@@ -95,6 +95,7 @@ __all__ = [
     "report_input",
     "product_text",
     "run_cautions",
+    "prescribed",
     "SURFACE_UNITS",
     "TITLES",
     "UNCERTAIN_SD",
@@ -1067,6 +1068,59 @@ def lime_needs_test(farm: FarmResult) -> list[dict[str, Any]]:
     return out
 
 
+def prescribed(farm: FarmResult) -> tuple[str, list[str]]:
+    """What the run prescribed, in one sentence, and why a rule gave nothing.
+
+    Parameters
+    ----------
+    farm : FarmResult
+        The computed farm.
+
+    Returns
+    -------
+    headline : str
+        ``"Prescribed: gypsum 25.02 t, lime 81.10 t (farm totals)"``, or ``"Nothing
+        prescribed: ..."`` when no zone of any paddock gets a product.
+    why : list of str
+        For each rule that gave no product anywhere: that it could not run (and what it
+        needs), or that no cell needs it; and the acid area where no lime method could run.
+    """
+    t = farm.tonnage
+    farm_rows = t[(t["level"] == "farm") & (t["tonnes"] > 0)] if len(t) else t
+    amounts = [f"{p} {v:,.2f} t" for p, v in zip(farm_rows["product"], farm_rows["tonnes"],
+                                                 strict=True)]
+    ran: dict[str, float] = {}
+    skipped: dict[str, list[tuple[str, str]]] = {}
+    for name, pr in farm.paddocks.items():
+        for (rule, _product), rate in pr.rates.contributions.items():
+            ran[rule] = ran.get(rule, 0.0) + float(np.nansum(rate))
+        for rule, reason in pr.rates.skipped:
+            skipped.setdefault(rule, []).append((name, reason))
+    why: list[str] = []
+    for rule in [*ran, *(r for r in skipped if r not in ran)]:
+        if ran.get(rule, 0.0) > 0:
+            continue
+        pairs = skipped.get(rule, [])
+        if not pairs:
+            why.append(f"the {rule} rule ran and no cell needs its product")
+            continue
+        reason = pairs[0][1]
+        if rule == "lime":
+            reason = reason.split(" (", 1)[0].replace("method_order", "[rates.lime] method_order")
+        where = ("any paddock" if len(pairs) == len(farm.paddocks)
+                 else "paddock " + ", ".join(f"'{n}'" for n, _ in pairs))
+        why.append(f"the {rule} rule could not run on {where}: {reason}"
+                   + ("; no cell of the other paddocks needs its product" if rule in ran else ""))
+    for row in lime_needs_test(farm):
+        why.append(f"paddock '{row['paddock']}': lime requirement needs a test on "
+                   f"{row['area_ha']:,.2f} ha of acid soil where no lime method can run"
+                   + (f"; ask the lab for {row['ask_for']}" if row["ask_for"] else ""))
+    if amounts:
+        return "Prescribed: " + ", ".join(amounts) + " (farm totals).", why
+    return ("Nothing prescribed: no zone of any paddock gets gypsum, lime or another product, "
+            "so no prescription files were written.", why)
+
+
 def _needs_test_layer(farm: FarmResult) -> tuple[np.ndarray, Any] | None:
     parts = []
     for name, grid in farm.prep.grids.items():
@@ -1581,8 +1635,12 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
                        f"{chem.strongly_sodic_esp_percent:g} % strongly sodic "
                        "(Northcote & Skene 1972 at the defaults 6 and 15)")
     settings_toml = prep.project.text
+    headline, why = prescribed(farm)
     return report_mod.ReportInput(
-        title=f"{s.farm or 'Farm'}: gypsum and lime prescriptions",
+        title=f"{s.farm or 'Farm'}: " + ("gypsum and lime prescriptions"
+                                         if headline.startswith("Prescribed")
+                                         else "nothing prescribed"),
+        prescribed=headline, not_prescribed=tuple(why),
         created=datetime.now(UTC),
         tonnage=farm.tonnage,
         zones=farm.zones,

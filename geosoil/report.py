@@ -384,6 +384,11 @@ class ReportInput:
         water column and a leaching caution to that product's zone table.
     leaching_esp
         ESP (%) from which gypsum needs leaching water and drainage to work.
+    prescribed
+        What the run prescribed, one sentence under the title ("Prescribed: ..." or
+        "Nothing prescribed: ..."; :func:`geosoil.outputs.prescribed`).
+    not_prescribed
+        Why a rule gave nothing, one line each, listed under it.
     """
 
     title: str
@@ -413,6 +418,8 @@ class ReportInput:
     zone_water: Mapping[tuple[str, str, str], tuple[float, float | None]] = field(
         default_factory=dict)
     leaching_esp: float = 15.0
+    prescribed: str = ""
+    not_prescribed: Sequence[str] = ()
 
     def __post_init__(self) -> None:
         if self.rate_unit not in RATE_UNITS:

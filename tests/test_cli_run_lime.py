@@ -120,6 +120,29 @@ def test_ph_only_file_flags_lime_requirement_needs_a_test(tmp_path: Path) -> Non
     assert "lime requirement needs a test" in report
 
 
+def test_a_run_that_prescribes_nothing_says_so_and_why(tmp_path: Path) -> None:
+    """A trial: a pH-only lab printed a tonnage header without rows and 'prescriptions
+    (0 files)', and the report was titled 'gypsum and lime prescriptions · 0 product(s)'."""
+    lab, pads = _flat_inputs(tmp_path / "in", with_oc_clay=False)
+    _, _, _, run, out = _new_check_run(tmp_path, lab, pads, edit=lambda d: _cache(d, tmp_path))
+    assert not (out / "prescriptions").exists() or not any((out / "prescriptions").rglob("*.*"))
+    lines = run.stdout.splitlines()
+    assert lines[0].startswith("Nothing prescribed: no zone of any paddock gets")
+    assert not any(ln.startswith("Paddock ") for ln in lines)  # no table without rows
+    why = run.stdout.split("Why:", 1)[1].split("Output folder:", 1)[0]
+    assert "the gypsum rule could not run on any paddock: needs ESP" in why
+    assert "the lime rule could not run on any paddock: no method of" in why
+    assert "lime requirement needs a test on 12.00 ha" in why  # the whole 400 m x 300 m
+    assert "organic carbon and clay" in why
+    assert "prescriptions  (none: nothing prescribed)" in run.stdout
+    assert "(0 files)" not in run.stdout
+    report = (out / "report.html").read_text()
+    assert "<h1 id=\"report-title\">farm: nothing prescribed</h1>" in report
+    assert "0 product(s)" not in report and "gypsum and lime prescriptions" not in report
+    assert "Nothing prescribed: no zone of any paddock" in report
+    assert "needs a test on 12.00 ha" in report
+
+
 def _flat_lab(folder: Path, head: str, values: str, *, seed: int) -> tuple[Path, Path]:
     """One paddock and 16 samples at random places, every one with the same ``values``."""
     folder.mkdir(parents=True, exist_ok=True)
