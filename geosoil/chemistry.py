@@ -504,6 +504,11 @@ def exchange_chemistry(
         Each part as percent of the ECEC; missing where the ECEC is (an ECEC of
         0 is no ECEC). Not clipped: with the lab's CEC as the ECEC the shares
         need not add up to 100 %.
+    Exchangeable Al
+        At most the exchangeable acidity (Al is part of it): where both are
+        known and Al is above it (kriged apart, or a lab's Al by one method and
+        acidity by another), the Al used is the acidity, so Al saturation never
+        exceeds acid saturation; ``al_lowered`` marks those.
     ESP
         ``na_sat``; where Na is missing, ESP from saturation-extract SAR
         (:func:`esp_from_sar`), else a given ``esp`` (an interpolated estimate);
@@ -533,6 +538,8 @@ def exchange_chemistry(
         the subtraction), ``<cation>_soluble`` (cmol(+)/kg taken off; NaN where
         nothing was) and ``<cation>_clamped`` (True where the soluble amount
         exceeded the extracted and 0 was kept) for each cation corrected; then
+        ``al`` (the Al used: at most the acidity), ``al_lowered`` (True where the Al
+        given was above the acidity and lowered to it),
         ``acidity`` (the acidity used), ``acidity_basis`` (int8 codes: index into
         :data:`ACIDITY_BASES`), ``ecec``, ``ecec_basis`` (int8 codes: index into
         :data:`ECEC_BASES`), ``ca_sat``, ``mg_sat``,
@@ -559,6 +566,15 @@ def exchange_chemistry(
     ...                          extract_water={"na": 5.0})
     >>> float(out["na"][0]), float(out["na_soluble"][0]), float(out["ecec"][0])
     (1.0, 5.0, 12.5)
+
+    Al above the exchangeable acidity (as two kriged surfaces can give) is lowered to it:
+
+    >>> out = exchange_chemistry({"ca": [2.0], "mg": [1.0], "k": [0.2], "na": [0.3],
+    ...                           "acidity": [1.0], "al": [1.2]})
+    >>> float(out["al"][0]), bool(out["al_lowered"][0]), float(out["al_sat"][0])
+    (1.0, True, 22.2...)
+    >>> bool(out["al_sat"][0] <= out["acid_sat"][0])
+    True
     """
     s = settings or ChemistrySettings()
     shape = np.broadcast_shapes(*(np.shape(v) for v in parts.values() if v is not None))
@@ -590,8 +606,12 @@ def exchange_chemistry(
                   cec_ph7_from_parts(ca, mg, k, na, get("acidity_potential")))
     use_t7 = ~use_sum & ~use_lab & np.isfinite(t7) & (t7 > 0)
     ecec = np.where(use_sum, summed, np.where(use_lab, lab_cec, np.where(use_t7, t7, np.nan)))
+    lowered = np.isfinite(al) & np.isfinite(used) & (al > used)
+    al = np.where(lowered, used, al)
     out: dict[str, NDArray[Any]] = {
         **corrected,
+        "al": al,
+        "al_lowered": lowered,
         "acidity": used,
         "acidity_basis": basis,
         "ecec": ecec,
@@ -730,6 +750,7 @@ def derive(
             on_bad_row=on_bad_row,
         )
 
+    _warn_al_above(samples, chem, file)
     on_t7 = chem["ecec_basis"] == ECEC_BASES.index("CEC at pH 7")
     if on_t7.any():
         warnings.warn(
@@ -795,6 +816,23 @@ def derive(
     out["acid_reason"] = reasons
     logger.debug("derived chemistry for %d samples (%d from SAR)", len(out), int(estimated.sum()))
     return out
+
+
+def _warn_al_above(samples: pd.DataFrame, chem: Mapping[str, Any],
+                   file: str | os.PathLike[str] | None) -> None:
+    """Name the samples whose lab Al is above their exchangeable acidity (lowered to it in
+    the chemistry, ``exchange_chemistry``)."""
+    lowered = np.asarray(chem["al_lowered"], dtype=bool)
+    if lowered.any():
+        names = [n for n, b in zip(sample_names(samples), lowered, strict=True) if b]
+        warnings.warn(
+            f"{file or 'samples'}: exchangeable Al above the exchangeable acidity (of which it is "
+            f"a part) at {_listed(names)}: their Al saturation is taken at most the acid "
+            "saturation (the Al kept in samples.csv is the lab's); ask the lab whether Al and "
+            "acidity were measured by the same extraction",
+            DataWarning,
+            stacklevel=3,
+        )
 
 
 def sample_names(samples: pd.DataFrame) -> list[str]:

@@ -469,7 +469,10 @@ def _write_grids(farm: FarmResult, out_dir: Path, cog: Any, progress: Any) -> No
         grid = prep.grids[paddock]
         folder = out_dir / "surfaces" / prep.paddock_files[paddock]
         unit = _unit_of(variable)
-        cog(folder / f"{variable}.tif", surf.estimate, grid.transform,
+        values = surf.estimate
+        if variable == "al" and paddock in farm.paddocks and "al" in farm.paddocks[paddock].cells:
+            values = farm.paddocks[paddock].cells["al"]  # at most the acidity, as the rates use
+        cog(folder / f"{variable}.tif", values, grid.transform,
             f"{_title_of(variable)} ({surf.method})", unit)
         if surf.std is not None:
             cog(folder / f"{variable}_sd.tif", surf.std, grid.transform,

@@ -780,8 +780,8 @@ def _cleared_cells(
     surfaces: Mapping[str, NDArray[np.float64]],
 ) -> tuple[dict[str, NDArray[np.float64]], list[str]]:
     """The surfaces as cell arrays with interpolation artefacts cleared (amounts below zero
-    set to zero, ESP within 0-100 %, Al at most the exchangeable acidity) and surfaces
-    without any value left out, with a note for each."""
+    set to zero, ESP within 0-100 %) and surfaces without any value left out, with a note
+    for each (Al above the acidity is lowered by the chemistry, ``exchange_chemistry``)."""
     cells: dict[str, NDArray[np.float64]] = {}
     notes: list[str] = []
     arrays = {v: np.array(arr, dtype=float) for v, arr in surfaces.items()}
@@ -801,13 +801,6 @@ def _cleared_cells(
                 notes.append(f"esp: {int(out.sum())} cells outside 0-100 % were clipped to it")
                 a = np.clip(a, 0.0, 100.0)
         cells[v] = a
-    if "al" in cells and "acidity" in cells:
-        above = cells["al"] > cells["acidity"]
-        if above.any():
-            notes.append(
-                f"al: {int(above.sum())} cells above the exchangeable acidity were lowered to it"
-            )
-            cells["al"] = np.where(above, cells["acidity"], cells["al"])
     return cells, notes
 
 
@@ -885,6 +878,13 @@ def derive_cells(
     for a in cells.values():
         inside |= np.isfinite(a)
     notes.extend(_basis_notes(chem, inside))
+    lowered = np.asarray(chem["al_lowered"]) & inside
+    if lowered.any():
+        by = float(np.max(cells["al"][lowered] - chem["al"][lowered]))
+        notes.append(f"al: {int(lowered.sum())} cells above the exchangeable acidity (by up to "
+                     f"{by:.3g} cmol(+)/kg, kriged apart) were lowered to it")
+    if "al" in cells:
+        cells["al"] = np.asarray(chem["al"], dtype=float)
     for key in ("acidity", "ecec", "ca_sat", "mg_sat", "k_sat", "na_sat", "esp", "acid_sat",
                 "al_sat"):
         value = np.asarray(chem[key], dtype=float)

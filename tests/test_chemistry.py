@@ -17,6 +17,7 @@ from geosoil.chemistry import (
     derive,
     ecec_from_parts,
     esp_from_sar,
+    exchange_chemistry,
     saturation,
     sodicity_class,
 )
@@ -141,6 +142,33 @@ def test_acidity_column_is_preferred_over_al_plus_h():
     out = derive(pd.DataFrame({"ca": [4.0], "mg": [2.0], "k": [0.5], "na": [0.5],
                                "acidity": [1.0], "al": [0.6], "h": [0.2]})).iloc[0]
     assert out.ecec == 8.0
+
+
+_amount = st.floats(0.0, 20.0, allow_nan=False)
+
+
+@given(st.lists(st.tuples(_amount, _amount, _amount, _amount, _amount, _amount),
+                min_size=1, max_size=20))
+def test_al_never_exceeds_the_acidity_it_is_part_of(rows):
+    """[derived] Al is part of the exchangeable acidity (Al + H), so Al <= acidity and Al
+    saturation <= acid saturation in every cell, whatever two kriged surfaces give."""
+    ca, mg, k, na, acidity, al = (np.array(c) for c in zip(*rows, strict=True))
+    out = exchange_chemistry({"ca": ca, "mg": mg, "k": k, "na": na, "acidity": acidity,
+                              "al": al})
+    assert (out["al"] <= out["acidity"]).all()
+    ok = np.isfinite(out["al_sat"])
+    assert (out["al_sat"][ok] <= out["acid_sat"][ok]).all()
+    np.testing.assert_array_equal(out["al_lowered"], al > acidity)
+    np.testing.assert_array_equal(out["al"], np.minimum(al, acidity))
+
+
+def test_a_samples_al_above_its_acidity_is_named():
+    with pytest.warns(DataWarning, match=r"Al above the exchangeable acidity .* at S2"):
+        out = derive(pd.DataFrame({"sample_id": ["S1", "S2"], "ca": [4.0, 4.0],
+                                   "mg": [2.0, 2.0], "k": [0.5, 0.5], "na": [0.5, 0.5],
+                                   "acidity": [1.0, 1.0], "al": [0.6, 1.3]}))
+    assert out["al"].tolist() == [0.6, 1.3]  # the lab's figures kept
+    assert out["al_sat"].iloc[1] == pytest.approx(out["acid_sat"].iloc[1])  # 1.0 / 8.0
 
 
 def test_only_al_measured_counts_as_the_acidity():
