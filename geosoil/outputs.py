@@ -513,7 +513,8 @@ class _IsoNames:
     characters, each change kept (original, short) for run.json and the summary.
 
     Only the names of task sets that are written count: a paddock and product with
-    no zone above 0 gets no task, so its name is neither shortened nor listed."""
+    no zone above 0 gets no task, so its name is neither shortened nor listed (a paddock
+    without a task is still a partfield of the farm's task set, when that is written)."""
 
     def __init__(self, farm: FarmResult) -> None:
         prep = farm.prep
@@ -539,7 +540,10 @@ class _IsoNames:
         # only the names that go into a written task set are shortened and recorded
         self.farm = self._short("farm", [s.farm or "farm"] if self.keys else [])\
             .get(s.farm or "farm", s.farm or "farm")
-        self.paddock = self._short("paddock", list(dict.fromkeys(k[0] for k in self.keys)))
+        # the farm's task set holds every paddock when it is written (_write_farm_taskset)
+        with_task = list(dict.fromkeys(k[0] for k in self.keys))
+        rest = [str(p) for p in prep.paddocks["paddock"] if p not in with_task]
+        self.paddock = self._short("paddock", with_task + (rest if self.keys else []))
         self._labels = dict(zip(self.keys, labels, strict=True))
         self._tasks = dict(zip(self.keys, tasks, strict=True))
         self.product = self._short("product", labels)
@@ -652,12 +656,16 @@ def _write_farm_taskset(
     out_dir: Path, *, farm: FarmResult, names: _IsoNames, tasks: list[Task],
     partfields: dict[str, int],
 ) -> list[Path]:
-    """The farm's task set: one partfield per paddock with a task, every task of the run."""
+    """The farm's task set: one partfield per paddock (those with a task first, in the
+    order of their tasks; then the paddocks with nothing prescribed, so a terminal has every
+    boundary), every task of the run. Nothing when no paddock has a task."""
     if not tasks:
         return []
     prep = farm.prep
     pfs = []
-    for paddock in sorted(partfields, key=partfields.__getitem__):
+    order = sorted(partfields, key=partfields.__getitem__)
+    order += [p for p in prep.paddocks["paddock"] if p not in partfields]
+    for paddock in order:
         boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
         excl = None
         if not prep.exclusions.empty:

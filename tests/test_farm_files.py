@@ -305,3 +305,19 @@ def test_every_written_shape_is_valid_and_has_no_sliver(which: str, run, demo_ru
         polys = _task_polygons(path)
         assert polys
         assert_clean(polys, "EPSG:4326")
+
+
+def test_the_farm_task_set_has_a_partfield_for_every_paddock(demo_run) -> None:  # noqa: ANN001
+    """README: 'one partfield per paddock'. The demo's Windmill gets neither gypsum nor lime
+    (no task), yet is a partfield of the farm's task set, read back by isoxml."""
+    out = demo_run.out
+    td, _ = isoxml_from_path(out / "prescriptions" / "farm_isoxml" / "TASKDATA")
+    pads = {p.designator: p for p in td.partfields}
+    tonnage = pd.read_csv(out / "tonnage.csv")
+    paddocks = tonnage[tonnage["level"] == "paddock"]
+    nothing = {p for p, t in paddocks.groupby("paddock")["tonnes"].sum().items() if t == 0}
+    assert nothing == {"Windmill"}
+    assert set(pads) == set(paddocks["paddock"])
+    with_task = {t.partfield_id_ref for t in td.tasks}
+    assert pads["Windmill"].id not in with_task and pads["Red Hill"].id in with_task
+    assert pads["Windmill"].polygons  # its boundary
