@@ -99,6 +99,7 @@ import numpy as np
 import pandas as pd
 import pyproj
 import shapely
+from affine import Affine
 from numpy.typing import NDArray
 from shapely.geometry.base import BaseGeometry
 from shapely.geometry.polygon import orient
@@ -206,6 +207,13 @@ class TaskGrid:
     def columns(self) -> int:
         """Number of columns (west to east)."""
         return int(self.values.shape[1])
+
+    @property
+    def transform(self) -> Affine:
+        """The grid as a north-up raster's transform (longitude, latitude; row 0 the
+        northernmost, as a GeoTIFF has it)."""
+        return Affine(self.cell_east, 0.0, self.min_east, 0.0, -self.cell_north,
+                      self.min_north + self.rows * self.cell_north)
 
 
 def _to_crs(crs: Any, zones: Any) -> pyproj.CRS:

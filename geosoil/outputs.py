@@ -399,7 +399,8 @@ def write_outputs(
                                          transform=pr.grid.transform, shape=pr.grid.mask.shape)
                     zr[~pr.grid.mask] = np.nan
                 else:
-                    zr, zt = zone_raster(zk, crs=mcrs, cell_size_m=s.grid.cell_size_m)
+                    zr, zt = zone_raster(zk, crs=mcrs, cell_size_m=s.grid.cell_size_m,
+                                         **_task_grid(zk, mcrs, farm=farm, paddock=name))
                 tif(p_tif, zr, transform=zt, crs=mcrs, descriptions=(what,),
                     tags={"unit": "kg/ha", "pass": f"{k} of {n}"})
                 pass_files.made(p_tif, key)
@@ -459,6 +460,19 @@ def write_outputs(
     write_json(p, record)
     written.append(p)
     return written, record
+
+
+def _task_grid(zones: Any, mcrs: Any, *, farm: FarmResult, paddock: str) -> dict[str, Any]:
+    """In WGS 84, the ISO 11783-10 task's own grid (``transform`` and ``shape`` for
+    :func:`geosoil.prescriptions.zone_raster`), so that the zone GeoTIFF and the task data
+    of a pass hold the same cells with the same rates; else nothing (a grid of its own)."""
+    if not mcrs.equals("EPSG:4326"):
+        return {}
+    prep = farm.prep
+    boundary = prep.paddocks.loc[prep.paddocks["paddock"] == paddock].geometry.iloc[0]
+    grid = grid_from_zones(zones, boundary=boundary, crs=zones.crs,
+                           cell_size_m=prep.project.settings.grid.cell_size_m)
+    return {"transform": grid.transform, "shape": (grid.rows, grid.columns)}
 
 
 def _write_grids(farm: FarmResult, out_dir: Path, cog: Any, progress: Any) -> None:
