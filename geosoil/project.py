@@ -259,25 +259,20 @@ class ProjectSettings:
 
     def __post_init__(self) -> None:
         # A price for a product that is not defined (a typo) would leave the real one
-        # without a price and the total cost short, without a word.
-        for name in self.tonnage.price_per_t:
-            if name not in self.products:
-                near = difflib.get_close_matches(name, list(self.products), n=1)
-                hint = f"did you mean '{near[0]}'? " if near else ""
-                raise SettingsError(
-                    f"'{name}' is not a defined product; {hint}defined products: "
-                    f"{', '.join(sorted(self.products)) or 'none'}",
-                    key=f"tonnage.price_per_t.{name}",
-                )
-        for name in self.spreader.max_per_pass_by_product:  # a typo would leave no limit
-            if name not in self.products:
-                near = difflib.get_close_matches(name, list(self.products), n=1)
-                hint = f"did you mean '{near[0]}'? " if near else ""
-                raise SettingsError(
-                    f"'{name}' is not a defined product; {hint}defined products: "
-                    f"{', '.join(sorted(self.products)) or 'none'}",
-                    key=f"spreader.max_per_pass_by_product.{name}",
-                )
+        # without a price and the total cost short, without a word; a per-pass limit
+        # for one would leave no limit.
+        for table, named in (("tonnage.price_per_t", self.tonnage.price_per_t),
+                             ("spreader.max_per_pass_by_product",
+                              self.spreader.max_per_pass_by_product)):
+            for name in named:
+                if name not in self.products:
+                    near = difflib.get_close_matches(name, list(self.products), n=1)
+                    hint = f"did you mean '{near[0]}'? " if near else ""
+                    raise SettingsError(
+                        f"'{name}' is not a defined product; {hint}defined products: "
+                        f"{', '.join(sorted(self.products)) or 'none'}",
+                        key=f"{table}.{name}",
+                    )
 
 
 @dataclass(frozen=True)
