@@ -44,8 +44,10 @@ __all__ = ["plan"]
                    "the class limit (sodic limit for na/esp, acid limit for ph/ph_cacl2), "
                    "or alike.")
 @click.option("--variable", default=None,
-              help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k) "
-                   "[default: the first of them kriged in the paddock].")
+              help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k, al) "
+                   "[default: with --weight rate the variable driving the paddock's largest "
+                   "prescribed product (Na/ESP for gypsum, the lime method's input for lime), "
+                   "else the first of them kriged in the paddock].")
 @overwrite_option
 @verbosity_options
 @click.pass_context
@@ -73,13 +75,23 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
     echo("Sampling plan: expected reduction in mean kriging variance")
     echo(f"{'paddock':<24} {'variable':<9} {'points':>6} {'before':>10} {'after':>10} "
          f"{'cut %':>6} {'weighted cut %':>14}")
+    def _g(v: float | None, fmt: str) -> str:
+        return "-" if v is None else format(v, fmt)
+
     for row in result.record["paddocks"]:
-        var = row["variable"] + (" (log)" if row["scale"] == "log" else "")
+        var = (row["variable"] or "none") + (" (log)" if row["scale"] == "log" else "")
         echo(f"{row['paddock'][:24]:<24} {var:<9} {row['new_points']:>6} "
-             f"{row['mean_kriging_variance_before']:>10.4g} "
-             f"{row['mean_kriging_variance_after']:>10.4g} "
-             f"{row['mean_variance_reduction_pct']:>6.1f} "
-             f"{row['weighted_variance_reduction_pct']:>14.1f}")
+             f"{_g(row['mean_kriging_variance_before'], '.4g'):>10} "
+             f"{_g(row['mean_kriging_variance_after'], '.4g'):>10} "
+             f"{_g(row['mean_variance_reduction_pct'], '.1f'):>6} "
+             f"{_g(row['weighted_variance_reduction_pct'], '.1f'):>14}")
+    echo("Variable planned for, by paddock:")
+    for row in result.record["paddocks"]:
+        if row["variable"] is None:
+            echo(f"  {row['paddock']}: none ({row['variable_reason']}); points by "
+                 f"{row['weighting']}")
+        else:
+            echo(f"  {row['paddock']}: {row['variable']}: {row['variable_reason']}")
     echo("")
     echo(f"Output folder: {result.out_dir}")
     for p in result.written:

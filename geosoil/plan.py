@@ -29,16 +29,25 @@ from .outfolder import output_folder
 from .pipeline import FarmResult, compute
 from .project import Project
 from .recording import record_warnings
-from .sampling import EDGE_SETBACK_M, PaddockPlan, limit_weights, plan_paddock, split_samples
+from .sampling import (
+    EDGE_SETBACK_M,
+    SPACE_FILLING_RULE,
+    PaddockPlan,
+    limit_weights,
+    plan_paddock,
+    space_filling_paddock,
+    split_samples,
+)
 from .writers import atomic_write, write_csv, write_geojson, write_json
 
 __all__ = ["PLAN_VARIABLES", "PlanResult", "run_plan", "gpx_text", "METHOD", "WEIGHTINGS",
            "BUDGET_RULE"]
 
-#: Variables whose variogram a plan may use, in the order tried by default: exchangeable Na
-#: (drives ESP and gypsum), ESP itself when kriged, pH in water or in CaCl2 (drives lime),
-#: exchangeable acidity.
-PLAN_VARIABLES = ("na", "esp", "ph", "ph_cacl2", "acidity", "ca", "mg", "k")
+#: Variables a plan may be asked for (``--variable``), in the order tried when no prescribed
+#: rate says which variable matters: exchangeable Na (drives ESP and gypsum), ESP itself when
+#: kriged, pH in water or in CaCl2, exchangeable acidity, Ca, Mg, K, Al. By default a plan
+#: weighted by the rate uses the variable that drives that rate (:func:`_driver_variable`).
+PLAN_VARIABLES = ("na", "esp", "ph", "ph_cacl2", "acidity", "ca", "mg", "k", "al")
 
 #: How ``--weight`` may weigh the cells.
 WEIGHTINGS = ("rate", "limit", "uniform")
@@ -99,6 +108,58 @@ def _variable_for(farm: FarmResult, paddock: str, wanted: str | None) -> str | N
     return None
 
 
+def _driver_variable(farm: FarmResult, paddock: str) -> tuple[str | None, str]:
+    """The kriged variable (with a variogram) that drives the paddock's largest prescribed
+    product, and why; ``(None, why not)`` when there is none.
+
+    The product with the most product over the paddock, the rule giving most of it, and that
+    rule's inputs in its own order (:func:`geosoil.rates.rule_inputs`: ESP from ``na`` and
+    ``ecec`` for gypsum; the lime method's input, e.g. ``al`` for Kamprath).
+    """
+    from .rates import input_sources, rule_inputs
+
+    result = farm.paddocks[paddock]
+    totals = {p: float(np.nansum(r)) for p, r in result.rates.product_rates.items()}
+    totals = {p: t for p, t in totals.items() if t > 0}
+    if not totals:
+        return None, "no rate is prescribed here"
+    product = max(totals, key=lambda p: totals[p])
+    parts = {rule: float(np.nansum(r)) for (rule, p), r in result.rates.contributions.items()
+             if p == product}
+    rule = max(parts, key=lambda r: parts[r])
+    settings = farm.prep.project.settings.rates.for_paddock(paddock)
+    cells = result.cells
+    available = set(cells) | {"ph"}
+    ph_method = "water" if "ph" in cells else ("CaCl2" if "ph_cacl2" in cells else None)
+    inputs = rule_inputs(rule, settings, available, ph_method)
+    method = f" ({settings.lime.method} method)" if rule == "lime" else ""
+    for v in inputs:
+        for cand in (("ph", "ph_cacl2") if v == "ph" else input_sources(v)):
+            surf = farm.surfaces.get((paddock, cand))
+            if surf is not None and surf.model is not None:
+                return cand, (f"drives the {rule} rule{method}, which gives most of {product}, "
+                              f"the largest product here (it reads {', '.join(inputs)})")
+    return None, (f"the {rule} rule{method} gives most of {product} here, but none of its "
+                  f"inputs ({', '.join(inputs)}) has a fitted variogram")
+
+
+def _choose_variable(farm: FarmResult, paddock: str, wanted: str | None,
+                     weighting: str) -> tuple[str | None, str]:
+    """The variable whose variogram plans ``paddock``, and why."""
+    if wanted:
+        v = _variable_for(farm, paddock, wanted)
+        return v, "asked for (--variable)"
+    if weighting == "rate":
+        v, why = _driver_variable(farm, paddock)
+        if v is not None:
+            return v, why
+        fallback = _variable_for(farm, paddock, None)
+        return fallback, (f"{why}; so the first kriged of {', '.join(PLAN_VARIABLES)}"
+                          if fallback else why)
+    v = _variable_for(farm, paddock, None)
+    return v, f"the first kriged of {', '.join(PLAN_VARIABLES)} (weighting by {weighting})"
+
+
 def _ids(paddock: str, n: int, taken: set[str]) -> list[str]:
     base = slug(paddock) or "paddock"
     out: list[str] = []
@@ -150,7 +211,8 @@ def _sd_layers(farm: FarmResult, plans: dict[str, PaddockPlan],
     out = []
     by_var: dict[str, list[str]] = {}
     for row in per_paddock:
-        by_var.setdefault(row["variable"], []).append(row["paddock"])
+        if row["variable"] is not None:
+            by_var.setdefault(row["variable"], []).append(row["paddock"])
     for var, names in by_var.items():
         pairs = [(farm.paddocks[n].grid, sd) for n in names
                  if n in plans and (sd := farm.surfaces[(n, var)].std) is not None]
@@ -277,8 +339,11 @@ def run_plan(
         ESP, the acid limit for pH; :func:`geosoil.sampling.limit_weights`) or
         ``"uniform"``.
     variable
-        Whose variogram to use; default the first of :data:`PLAN_VARIABLES`
-        kriged in the paddock.
+        Whose variogram to use. Default: with ``weighting="rate"`` the variable
+        driving the paddock's largest prescribed product (ESP's Na for gypsum, the
+        lime method's input for lime); otherwise, or when that has no variogram,
+        the first of :data:`PLAN_VARIABLES` kriged in the paddock. A paddock with
+        no variogram at all gets its points by :data:`SPACE_FILLING_RULE`.
     overwrite, use_cache
         As for :func:`geosoil.job.run`.
 
@@ -306,21 +371,25 @@ def run_plan(
         budget_record: dict[str, Any] | None = None
         with record_warnings(notes):
             chosen_var: dict[str, str] = {}
+            why_var: dict[str, str] = {}
+            unplanned: list[str] = []  # no variogram: space-filling points instead
             for name in farm.paddocks:
-                var = _variable_for(farm, name, variable)
+                var, why = _choose_variable(farm, name, variable, weighting)
                 if var is None:
                     warnings.warn(
                         f"{name}: no kriged surface with a variogram "
-                        f"({variable or 'any of ' + ', '.join(PLAN_VARIABLES)}), so no sampling "
-                        "plan for this paddock (the plan needs a fitted variogram)",
-                        DataWarning, stacklevel=1)
+                        f"({variable or 'any of ' + ', '.join(PLAN_VARIABLES)}), so its new "
+                        f"points are placed by the {SPACE_FILLING_RULE}", DataWarning,
+                        stacklevel=1)
+                    unplanned.append(name)
                     continue
                 chosen_var[name] = var
+                why_var[name] = why
             if budget is not None:
                 assert cost_per_sample is not None
                 total = math.floor(budget / cost_per_sample + 1e-9)
                 areas = {n: farm.paddocks[n].grid.n_cells * farm.paddocks[n].grid.cell_area_ha
-                         for n in chosen_var}
+                         for n in farm.paddocks if n in chosen_var or n in unplanned}
                 counts = split_samples(total, areas)
                 budget_record = {"budget": budget, "cost_per_sample": cost_per_sample,
                                  "samples": total, "rule": BUDGET_RULE, "per_paddock": counts}
@@ -328,7 +397,33 @@ def run_plan(
                     raise SettingsError(f"a budget of {budget:g} at {cost_per_sample:g} a sample "
                                         "buys no sample", key="--budget")
             else:
-                counts = {n: int(n_points or 0) for n in chosen_var}
+                counts = {n: int(n_points or 0) for n in [*chosen_var, *unplanned]}
+            for name in unplanned:
+                if counts[name] == 0:
+                    warnings.warn(f"{name}: the budget's split by area gives this paddock no "
+                                  "new sample", DataWarning, stacklevel=1)
+                    continue
+                outline = prep.paddocks.loc[prep.paddocks["paddock"] == name].geometry.iloc[0]
+                mine = samples[samples["paddock"] == name]
+                xy = np.column_stack([mine.geometry.x, mine.geometry.y])
+                pts, dist, setback = space_filling_paddock(
+                    farm.paddocks[name].grid, xy, n_points=counts[name],
+                    min_distance_m=min_distance_m, avoid=all_xy, boundary=outline,
+                    edge_setback_m=edge_setback_m)
+                ids = _ids(name, len(pts), taken_ids)
+                for rank, (sid, (x, y)) in enumerate(zip(ids, pts, strict=True), start=1):
+                    rows.append({"sample_id": sid, "paddock": name, "rank": rank,
+                                 "kriging_sd_now": None, "geometry": shapely.Point(x, y)})
+                per_paddock.append({
+                    "paddock": name, "variable": None, "variable_reason":
+                    "no kriged variable with a fitted variogram here",
+                    "scale": None, "variogram": None,
+                    "existing_samples": len(xy), "new_points": len(pts),
+                    "weighting": SPACE_FILLING_RULE,
+                    "min_distance_m": round(dist, 1), "edge_setback_m": round(setback, 1),
+                    "mean_kriging_variance_before": None, "mean_kriging_variance_after": None,
+                    "mean_variance_reduction_pct": None, "weighted_variance_reduction_pct": None,
+                })
             for name, var in chosen_var.items():
                 result = farm.paddocks[name]
                 if counts[name] == 0:
@@ -358,7 +453,7 @@ def run_plan(
                                  "kriging_sd_now": round(float(sd), 4),
                                  "geometry": shapely.Point(x, y)})
                 per_paddock.append({
-                    "paddock": name, "variable": var,
+                    "paddock": name, "variable": var, "variable_reason": why_var[name],
                     "scale": "log" if surf.log_transform else "as measured",
                     "variogram": {"model": surf.model.name, "nugget": surf.model.nugget,
                                   "psill": surf.model.psill, "range_m": surf.model.range},

@@ -127,6 +127,8 @@ __all__ = [
     "LIME_METHOD_ORDER",
     "DEFAULT_TARGET",
     "choose_lime_method",
+    "rule_inputs",
+    "input_sources",
     "GypsumRule",
     "LimeRule",
     "CalciumRule",
@@ -849,6 +851,33 @@ def choose_lime_method(
         reasons.append(f"{m} {why}")
     return None, reasons
 
+
+
+def rule_inputs(rule: str, settings: RateSettings, available: set[str],
+                ph_method: str | None = None) -> list[str]:
+    """The lab's analytes ``rule`` reads where ``available`` are given, in the rule's order
+    (its lime method resolved as :func:`compute_rates` resolves it): ``gypsum`` reads ESP
+    (``esp``, or ``na`` and ``ecec``); ``kamprath`` lime reads ``al``.
+
+    >>> rule_inputs("gypsum", RateSettings(), {"na", "ecec"})
+    ['na', 'ecec']
+    """
+    s = _resolve(settings, available, ph_method)
+    out: list[str] = []
+    for need in _needs(rule, s):
+        alts = _SOURCES.get(need, ((need,),))
+        out.extend(_source_of(need, available) or alts[0])
+    return list(dict.fromkeys(out))
+
+
+def input_sources(name: str) -> list[str]:
+    """``name`` and every analyte it may be computed from, in the order tried
+    (``esp``: ``esp``, ``na``, ``ecec``).
+
+    >>> input_sources("esp")
+    ['esp', 'na', 'ecec']
+    """
+    return list(dict.fromkeys([name, *(a for alt in _SOURCES.get(name, ()) for a in alt)]))
 
 def _resolve(settings: RateSettings, available: set[str], ph_method: str | None) -> RateSettings:
     """``settings`` with ``lime.method = 'auto'`` replaced by the method chosen (if any)."""

@@ -1459,12 +1459,13 @@ def build_plan_report(data: PlanReportInput) -> str:
     True
     """
     pads = _simple_table(
-        [("paddock", False), ("variable", False), ("weighting", False), ("samples now", True),
+        [("paddock", False), ("variable", False), ("why this variable", False),
+         ("weighting", False), ("samples now", True),
          ("new points", True), ("least distance m", True), ("edge setback m", True),
          ("mean kriging variance now", True),
          ("after the plan", True), ("cut %", True), ("weighted cut %", True)],
-        [[r["paddock"], r["variable"] + (" (log)" if r["scale"] == "log" else ""),
-          r["weighting"], _num(r["existing_samples"], 0), _num(r["new_points"], 0),
+        [[r["paddock"], (r["variable"] or "none") + (" (log)" if r["scale"] == "log" else ""),
+          r.get("variable_reason", ""), r["weighting"], _num(r["existing_samples"], 0), _num(r["new_points"], 0),
           _num(r["min_distance_m"], 0), _num(r.get("edge_setback_m", 0.0), 0),
           _sig(r["mean_kriging_variance_before"]),
           _sig(r["mean_kriging_variance_after"]), _num(r["mean_variance_reduction_pct"], 1),

@@ -74,6 +74,8 @@ from .variogram import VariogramModel
 __all__ = [
     "EDGE_SETBACK_M",
     "PaddockPlan",
+    "SPACE_FILLING_RULE",
+    "space_filling_paddock",
     "candidate_cells",
     "default_min_distance",
     "greedy_design",
@@ -388,6 +390,83 @@ def regular_design(cells: ArrayLike, *, n_points: int, area_m2: float) -> NDArra
     return np.asarray(hit, dtype=np.intp)
 
 
+
+def _allowed(name: str, xc: Array, keep_off: Array, min_distance_m: float,
+             boundary: shapely.Geometry | None, edge_setback_m: float) -> tuple[
+                 NDArray[np.bool_], float]:
+    """Candidates far enough from ``keep_off`` and inside the edge setback (lowered, with a
+    warning, where no candidate lies that far in); and the setback used."""
+    allowed = np.ones(len(xc), dtype=bool)
+    if min_distance_m > 0 and len(keep_off):  # off every existing sample
+        allowed = cKDTree(keep_off).query(xc)[0] >= min_distance_m
+    setback = 0.0
+    if boundary is not None and edge_setback_m > 0 and len(xc):
+        depth = shapely.distance(shapely.points(xc), boundary.boundary)
+        setback = float(edge_setback_m)
+        if not (depth >= setback).any():
+            setback = 0.5 * float(depth.max())
+            warnings.warn(f"{name}: no cell lies {edge_setback_m:g} m inside the paddock "
+                          f"boundary (the paddock is too small for the edge setback), so new "
+                          f"points keep only {setback:.0f} m from it", DataWarning, stacklevel=3)
+        allowed &= depth >= setback
+    return allowed, setback
+
+
+#: How a paddock without a fitted variogram is planned.
+SPACE_FILLING_RULE = ("space-filling: each new point at the candidate cell farthest from every "
+                      "sample and point before it (greedy maximin; no variogram, so no kriging "
+                      "variance)")
+
+
+def space_filling_paddock(
+    grid: PaddockGrid,
+    samples: ArrayLike,
+    *,
+    n_points: int,
+    min_distance_m: float | None = None,
+    avoid: ArrayLike | None = None,
+    boundary: shapely.Geometry | None = None,
+    edge_setback_m: float = 0.0,
+    max_cells: int = MAX_CELLS,
+) -> tuple[Array, float, float]:
+    """New points of a paddock with no variogram: :data:`SPACE_FILLING_RULE`.
+
+    Returns the points (k, 2), the least distance used and the edge setback used.
+    The same distance and setback rules as :func:`plan_paddock`.
+    """
+    xd = as_points(samples, "sample") if len(np.asarray(samples)) else np.empty((0, 2))
+    xc, _ = candidate_cells(grid, max_cells=max_cells)
+    area = grid.n_cells * grid.cell_area_ha * 10_000.0
+    if min_distance_m is None:
+        min_distance_m = default_min_distance(area, len(xd) + int(n_points))
+    keep_off = xd if avoid is None else np.vstack([xd, as_points(avoid, "sample")])
+    allowed, setback = _allowed(grid.name, xc, keep_off, min_distance_m, boundary,
+                                edge_setback_m)
+    if len(keep_off):
+        far = cKDTree(keep_off).query(xc)[0]
+    else:
+        far = np.full(len(xc), np.inf)
+    chosen: list[int] = []
+    for _ in range(int(n_points)):
+        score = np.where(allowed, far, -1.0)
+        if not len(score) or score.max() < 0:
+            break
+        if np.isinf(score.max()):  # nothing sampled yet: start at the cell nearest the middle
+            mid = xc[allowed].mean(axis=0)
+            score = np.where(allowed, -np.hypot(*(xc - mid).T), -np.inf)
+        i = int(np.argmax(score))
+        chosen.append(i)
+        d = np.hypot(*(xc - xc[i]).T)
+        far = np.minimum(far, d)
+        allowed &= d >= max(min_distance_m, 1e-9)
+    if len(chosen) < n_points:
+        warnings.warn(f"{grid.name}: only {len(chosen)} of {n_points} new points fit at least "
+                      f"{min_distance_m:.0f} m from the samples and each other"
+                      + (f" and {setback:.0f} m inside the boundary" if setback > 0 else "")
+                      + "; lower the minimum distance (or the edge setback) for more",
+                      DataWarning, stacklevel=2)
+    return xc[np.asarray(chosen, dtype=np.intp)], float(min_distance_m), setback
+
 def plan_paddock(
     grid: PaddockGrid,
     samples: ArrayLike,
@@ -461,19 +540,8 @@ def plan_paddock(
     if min_distance_m is None:
         min_distance_m = default_min_distance(area, len(xd) + int(n_points))
     keep_off = xd if avoid is None else np.vstack([xd, as_points(avoid, "sample")])
-    allowed = np.ones(len(xc), dtype=bool)
-    if min_distance_m > 0:  # off every existing sample, whichever variable it was taken for
-        allowed = cKDTree(keep_off).query(xc)[0] >= min_distance_m
-    setback = 0.0
-    if boundary is not None and edge_setback_m > 0 and len(xc):
-        depth = shapely.distance(shapely.points(xc), boundary.boundary)
-        setback = float(edge_setback_m)
-        if not (depth >= setback).any():
-            setback = 0.5 * float(depth.max())
-            warnings.warn(f"{grid.name}: no cell lies {edge_setback_m:g} m inside the paddock "
-                          f"boundary (the paddock is too small for the edge setback), so new "
-                          f"points keep only {setback:.0f} m from it", DataWarning, stacklevel=2)
-        allowed &= depth >= setback
+    allowed, setback = _allowed(grid.name, xc, keep_off, min_distance_m, boundary,
+                                edge_setback_m)
     chosen, _ = greedy_design(xd, xc, model, n_points=n_points, weights=w_all[index],
                               min_distance_m=min_distance_m, allowed=allowed)
     if len(chosen) < n_points:

@@ -186,3 +186,70 @@ def test_split_samples_adds_up_and_stays_within_a_sample_of_its_quota(total, are
     for n, a in names.items():
         quota = total * a / whole
         assert math.floor(quota) - 1e-9 <= got[n] <= math.ceil(quota) + 1e-9
+
+
+# ------------------------------------------------------------- which variable, no variogram
+
+
+def _fake_farm(product_rates: dict, contributions: dict, kriged: tuple[str, ...],
+               lime_method: str = "kamprath"):
+    """A stand-in for a computed farm: one paddock 'P' with the given rates and surfaces."""
+    from types import SimpleNamespace
+
+    from geosoil.rates import RateSettings
+
+    import dataclasses
+
+    settings = RateSettings()
+    settings = dataclasses.replace(settings, lime=dataclasses.replace(settings.lime,
+                                                                       method=lime_method))
+    rates = SimpleNamespace(product_rates=product_rates, contributions=contributions)
+    cells = {v: np.ones(4) for v in (*kriged, "ecec", "esp")}
+    paddock = SimpleNamespace(rates=rates, cells=cells)
+    rate_settings = SimpleNamespace(for_paddock=lambda name: settings)
+    prep = SimpleNamespace(project=SimpleNamespace(settings=SimpleNamespace(rates=rate_settings)))
+    surfaces = {("P", v): SimpleNamespace(model=object()) for v in kriged}
+    return SimpleNamespace(paddocks={"P": paddock}, prep=prep, surfaces=surfaces)
+
+
+def test_plan_variable_is_the_one_driving_the_largest_product() -> None:
+    """A trial farm's acid paddock: lime (Kamprath: exchangeable Al, Kamprath 1970) is its only
+    product, so the plan refines Al, not Na (the first kriged variable, used before)."""
+    from geosoil.plan import _choose_variable
+
+    lime = np.array([0.0, 2000.0, 3000.0, 0.0])
+    farm = _fake_farm({"lime": lime}, {("lime", "lime"): lime}, ("na", "ph_cacl2", "al"))
+    var, why = _choose_variable(farm, "P", None, "rate")
+    assert var == "al" and "lime rule" in why and "kamprath" in why
+    gyp = np.array([9000.0, 0, 0, 0])
+    farm = _fake_farm({"lime": lime, "gypsum": gyp},
+                      {("lime", "lime"): lime, ("gypsum", "gypsum"): gyp},
+                      ("ph_cacl2", "al", "na"))
+    var, why = _choose_variable(farm, "P", None, "rate")
+    assert var == "na" and "gypsum rule" in why  # gypsum 9 000 kg > lime 5 000 kg: ESP's Na
+    # asked for: kept, and said so
+    assert _choose_variable(farm, "P", "al", "rate") == ("al", "asked for (--variable)")
+    # no rate at all: the fixed order, said plainly
+    farm = _fake_farm({}, {}, ("ph_cacl2", "na"))
+    var, why = _choose_variable(farm, "P", None, "rate")
+    assert var == "na" and "no rate is prescribed" in why
+
+
+def test_space_filling_points_are_maximin_and_apart() -> None:
+    """A paddock with no variogram: each point is the candidate farthest from every sample and
+    point before it (greedy maximin), checked by brute force with scipy's cdist."""
+    from geosoil.sampling import space_filling_paddock
+
+    grid = PaddockGrid("p", Affine(10, 0, 0, 0, -10, 200), 20, 20, pyproj.CRS(32755),
+                       np.ones((20, 20), bool))
+    samples = np.array([[15.0, 185.0], [25.0, 175.0]])
+    pts, dist, setback = space_filling_paddock(grid, samples, n_points=4, min_distance_m=30.0)
+    assert len(pts) == 4 and dist == 30.0 and setback == 0.0
+    x, y = grid.cell_centres()
+    cells = np.column_stack([x, y])
+    taken = samples
+    for p in pts:
+        far = cdist(cells, taken).min(axis=1)
+        assert cdist([p], taken).min() == pytest.approx(far.max())
+        taken = np.vstack([taken, p])
+    assert cdist(pts, pts)[np.triu_indices(4, 1)].min() >= 30.0
