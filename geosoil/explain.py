@@ -184,15 +184,19 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
         where = f"lon {lon:.6f}, lat {lat:.6f}" + ("" if lonlat else f" (x {x:.1f}, y {y:.1f})")
         fix = ("give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
                f"({crs.name}) with --coords xy")
+        problem = f"the point at {where} is not inside any paddock ({', '.join(prep.grids)})"
         # latitude first? (a valid latitude, then a valid longitude, that swapped lands in one)
         if coords != "xy" and abs(a) <= 90 and abs(b) <= 180:
             sx, sy = to_work.transform(b, a)
-            if prep.paddocks.covers(shapely.Point(sx, sy)).any():
-                fix = f"did you mean {b!r},{a!r} (longitude first)?"
-        raise InputError(
-            f"the point at {where} is not inside any paddock ({', '.join(prep.grids)})",
-            fix=fix,
-        )
+            inside = prep.paddocks[prep.paddocks.covers(shapely.Point(sx, sy))]
+            if not inside.empty:
+                problem = (f"--at {a!r},{b!r} looks like latitude first: read as LON,LAT the "
+                           f"other way round it lies in paddock '{inside['paddock'].iloc[0]}'"
+                           ", but as given (read as "
+                           + ("LON,LAT" if lonlat else "x,y in the working CRS")
+                           + ") it is in no paddock")
+                fix = f"did you mean --at {b!r},{a!r} (LON,LAT)?"
+        raise InputError(problem, fix=fix)
     name = str(hit["paddock"].iloc[0])
     grid = prep.grids[name]
     col_f, row_f = ~grid.transform @ (x, y)

@@ -158,8 +158,9 @@ def test_latitude_first_is_caught(farm: Path, sodic_sample: tuple[float, float])
     silence: the point swapped lies in a paddock, so the error offers it longitude first."""
     lon, lat = sodic_sample
     r = invoke("explain", farm, "--at", f"{lat},{lon}")
-    assert r.exit_code == 1 and "not inside any paddock" in r.stderr
-    assert f"did you mean {lon!r},{lat!r} (longitude first)?" in r.stderr
+    assert r.exit_code == 1 and "looks like latitude first" in r.stderr
+    assert f"did you mean --at {lon!r},{lat!r} (LON,LAT)?" in r.stderr
+    assert "in paddock '" in r.stderr  # where the swapped reading lies, said plainly
     far = invoke("explain", farm, "--at", "-35.0,147.0")  # swapped, still in no paddock
     assert far.exit_code == 1 and "did you mean" not in far.stderr
 
