@@ -128,6 +128,7 @@ __all__ = [
     "DEFAULT_TARGET",
     "choose_lime_method",
     "rule_inputs",
+    "phbc_ph_note",
     "input_sources",
     "GypsumRule",
     "LimeRule",
@@ -1576,6 +1577,17 @@ def _rule_lime(st: _State, trace: _Trace, cells: _Cells, s: RateSettings,
     st.methods["lime"] = src
 
 
+def phbc_ph_note(ph_method: str) -> str:
+    """The warning when the pHBC lime method runs on pH not in its calibration's method."""
+    return (f"lime method 'phbc' (pH buffering capacity) was calibrated with pH in 0.01 M "
+            f"CaCl2 (Aitken, Moody & McKinley 1990, from memory), but runs here on the lab's pH "
+            f"in {ph_method} against a target in {ph_method}, with no conversion: geosoil has "
+            "no named pH conversion for it (its acid thresholds only take pH in CaCl2 as about "
+            "0.5-0.8 below pH in water, common practice, a range and not a conversion), so the "
+            "lime is (target - pH) x pHBC on that scale; give pH in CaCl2 for the method's "
+            "own calibration")
+
+
 def _target_need(st: _State, trace: _Trace, cells: _Cells, lr: LimeRule,
                  soil: _Soil) -> NDArray[np.float64]:
     """CaCO3 (cmol(+)/kg) to the target by a target-pH method, after the lime trigger."""
@@ -1635,6 +1647,8 @@ def _target_need(st: _State, trace: _Trace, cells: _Cells, lr: LimeRule,
     elif m == "phbc":
         b = cells.get("phbc")
         assert ph is not None
+        if soil.ph_method != meta.ph_method:
+            st.notes.append(phbc_ph_note(soil.ph_method))
         need = np.asarray(phbc_lime(ph, target.ph, b), dtype=float)
         trace.add("lime", "lime from the pH buffering capacity", "CaCO3 = (target - pH) x pHBC",
                   {"target": (target.ph, ""), "pH": (ph, ""), "pHBC": (b, "cmol(+)/kg/pH")},
@@ -2129,7 +2143,8 @@ def compute_rates(
         )
     for note in result.notes:
         # a safety rule that could not run is a warning, not a note
-        if note.startswith("pHBC regression") or note == PH_GUARD_NOT_APPLIED:
+        if (note.startswith(("pHBC regression", "lime method 'phbc'"))
+                or note == PH_GUARD_NOT_APPLIED):
             warnings.warn(note, RateWarning, stacklevel=2)
     if result.needs_test_cells:
         warnings.warn(

@@ -893,6 +893,26 @@ def test_explain_shows_the_calibration_and_its_conversion() -> None:
     assert steps[-1].result == pytest.approx(want, rel=1e-9)
 
 
+def test_phbc_on_ph_in_water_says_so() -> None:
+    """The pHBC method (Aitken, Moody & McKinley 1990, from memory: pH in 0.01 M CaCl2) run on
+    pH in water against a water target warns, naming the method, the pH used and that no
+    conversion is applied; on pH in CaCl2 it does not."""
+    s = _lime(method="phbc", target_ph=6.0, target_ph_method="water")
+    with pytest.warns(RateWarning, match="lime method 'phbc'") as got:
+        r = compute_rates({"ph": np.array([5.0]), "phbc": np.array([2.0])}, s, PRODUCTS,
+                          depth_m=0.10, bulk_density_g_cm3=1.3, ph_method="water")
+    text = " ".join(str(w.message) for w in got)
+    assert "pH in water" in text and "CaCl2" in text and "no conversion" in text
+    # the rate itself is (target - pH) x pHBC as before [derived]: 1.0 x 2.0 cmol/kg x soil
+    assert r.product_rates["lime"][0] == pytest.approx(
+        1.0 * 2.0 * MG_CACO3_PER_CMOL * 1e-6 * 1.3e6)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RateWarning)
+        compute_rates({"ph": np.array([5.0]), "phbc": np.array([2.0])},
+                      _lime(method="phbc", target_ph=5.5, target_ph_method="CaCl2"), PRODUCTS,
+                      depth_m=0.10, bulk_density_g_cm3=1.3, ph_method="CaCl2")
+
+
 def test_phbc_regression_outside_its_range_is_a_warning() -> None:
     # Aitken, Moody & McKinley 1990: organic carbon 8 % lies outside the soils it was fitted on
     with pytest.warns(RateWarning, match="outside the soils it was fitted on"):
