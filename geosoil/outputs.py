@@ -76,8 +76,8 @@ from .salinity import (
 )
 from .settings import to_mapping
 from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
+from .units import area_unit_for, rate_from_kg_ha
 from .units import format_rate as units_format_rate
-from .units import rate_from_kg_ha
 from .writers import (
     atomic_path,
     atomic_write,
@@ -417,7 +417,8 @@ def write_outputs(
     # tables
     p = out_dir / "tonnage.csv"
     write_csv(p, tonnage_csv(farm.tonnage, mass_unit=mass_unit_for(s.output.rate_unit),
-                             currency=s.tonnage.currency))
+                             currency=s.tonnage.currency,
+                             area_unit=area_unit_for(s.output.rate_unit)))
     written.append(p)
     passes = farm.zones[farm.zones.get("passes", pd.Series(1, index=farm.zones.index)) > 1] \
         if "passes" in farm.zones.columns else farm.zones.iloc[0:0]

@@ -1028,6 +1028,29 @@ def _mass(unit: str) -> tuple[str, str]:
     return ("short_tons", "short tons") if unit == "lb/ac" else ("tonnes", "t")
 
 
+def _area(ha: Any, unit: str, digits: int = 2) -> str:
+    """An area given in ha, shown in the area unit of the rate unit (acres beside lb/ac)."""
+    from .units import area_in, area_unit_for
+
+    if _isnan(ha):
+        return "–"
+    return _num(area_in(float(ha), area_unit_for(unit)), digits)
+
+
+def _area_of(row: Any, unit: str) -> str:
+    """A tonnage row's area in the rate unit's area unit: its own rounded acres (which add up
+    as the hectares do) where the table has them."""
+    if _area_unit(unit) == "ac" and "area_ac" in row and not _isnan(row["area_ac"]):
+        return _num(row["area_ac"], 2)
+    return _area(row["area_ha"], unit)
+
+
+def _area_unit(unit: str) -> str:
+    from .units import area_unit_for
+
+    return area_unit_for(unit)
+
+
 def _cost_header(currency: str) -> str:
     return f"cost ({currency})" if currency else "cost"
 
@@ -1059,7 +1082,7 @@ def _tonnage_table(
                     else ""
                 names[z["zone"]] = (exclusion_kind(label, kinds), label)
     split = bool(schedules)
-    headers = [("zone", False), ("area (ha)", True), (f"rate ({unit})", True)]
+    headers = [("zone", False), (f"area ({_area_unit(unit)})", True), (f"rate ({unit})", True)]
     if split:
         headers.append(("applied as", False))
     headers += [(f"product ({_mass(unit)[1]})", True), ("truckloads", True),
@@ -1082,7 +1105,7 @@ def _tonnage_table(
             first = _cell(_zone_label(r["zone"]), swatch=colour)
         else:
             first = _cell("total" if level in ("paddock", "farm") else level)
-        cells = [first, _cell(_num(r["area_ha"], 2), cls="num"),
+        cells = [first, _cell(_area_of(r, unit), cls="num"),
                  _cell(_rate_text(r["rate_kg_ha"], unit, with_unit=False) if is_zone else "",
                        cls="num")]
         if split:
@@ -1128,20 +1151,22 @@ def _glance_table(data: ReportInput, products: Sequence[str]) -> dict[str, Any] 
     if not data.glance:
         return None
     kinds = sorted({k for g in data.glance for k in g.excluded_ha})
-    headers = [("paddock", False), ("area (ha)", True)]
-    headers += [(f"{k} (ha)", True) for k in kinds]
-    headers += [(f"sodic, {data.sodic_labels[0]} (ha)", True),
-                (f"strongly sodic, {data.sodic_labels[1]} (ha)", True),
-                (f"acid, {data.acid_label} (ha)", True)]
-    headers += [(f"needs {p} (ha)", True) for p in products]
+    u = data.rate_unit
+    au = _area_unit(u)
+    headers = [("paddock", False), (f"area ({au})", True)]
+    headers += [(f"{k} ({au})", True) for k in kinds]
+    headers += [(f"sodic, {data.sodic_labels[0]} ({au})", True),
+                (f"strongly sodic, {data.sodic_labels[1]} ({au})", True),
+                (f"acid, {data.acid_label} ({au})", True)]
+    headers += [(f"needs {p} ({au})", True) for p in products]
     rows = []
     mass = _mass(data.rate_unit)[1]
     for g in data.glance:
-        row = [g.paddock, _num(g.area_ha, 2)]
-        row += [_num(g.excluded_ha.get(k, 0.0), 2) for k in kinds]
-        row += [_num(v, 2) if v is not None else "–"
+        row = [g.paddock, _area(g.area_ha, u)]
+        row += [_area(g.excluded_ha.get(k, 0.0), u) for k in kinds]
+        row += [_area(v, u) if v is not None else "–"
                 for v in (g.sodic_ha, g.strongly_sodic_ha, g.acid_ha)]
-        row += [(_num(g.product_ha[p], 2) + f" ({_num(g.product_t.get(p, 0.0), 1)} {mass})")
+        row += [(_area(g.product_ha[p], u) + f" ({_num(g.product_t.get(p, 0.0), 1)} {mass})")
                 if p in g.product_ha else "–" for p in products]
         rows.append(row)
     return _simple_table(headers, rows, "glance")
@@ -1207,9 +1232,11 @@ def build_report(data: ReportInput) -> str:
 
     farm = tonnage[tonnage["level"] == "farm"]
     farm_table = _simple_table(
-        [("product", False), ("area (ha)", True), (f"product ({_mass(data.rate_unit)[1]})", True),
+        [("product", False), (f"area ({_area_unit(data.rate_unit)})", True),
+         (f"product ({_mass(data.rate_unit)[1]})", True),
          ("truckloads", True), (_cost_header(data.currency), True)],
-        [[str(r["product"]), _num(r["area_ha"], 2), _num(_mass_of(r, data.rate_unit), 2),
+        [[str(r["product"]), _area_of(r, data.rate_unit),
+          _num(_mass_of(r, data.rate_unit), 2),
           _num(r["truckloads"], 0), _num(r["cost"], 2)] for _, r in farm.iterrows()],
         "farm-totals") if len(farm) else None
 
@@ -1465,7 +1492,8 @@ def build_plan_report(data: PlanReportInput) -> str:
          ("mean kriging variance now", True),
          ("after the plan", True), ("cut %", True), ("weighted cut %", True)],
         [[r["paddock"], (r["variable"] or "none") + (" (log)" if r["scale"] == "log" else ""),
-          r.get("variable_reason", ""), r["weighting"], _num(r["existing_samples"], 0), _num(r["new_points"], 0),
+          r.get("variable_reason", ""), r["weighting"], _num(r["existing_samples"], 0),
+          _num(r["new_points"], 0),
           _num(r["min_distance_m"], 0), _num(r.get("edge_setback_m", 0.0), 0),
           _sig(r["mean_kriging_variance_before"]),
           _sig(r["mean_kriging_variance_after"]), _num(r["mean_variance_reduction_pct"], 1),

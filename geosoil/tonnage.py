@@ -15,6 +15,9 @@ tonnes = area (ha) x rate (kg/ha) / 1000.
     Zone area, 0.01 ha; on total rows the area of all zones, exclusions included.
 ``spread_area_ha``
     Area with a rate above 0, 0.01 ha.
+``area_ac``, ``spread_area_ac``
+    The same areas in acres (0.01 ac; 1 ha = 10 000 / 4046.8564224 ac, NIST SP 811), each
+    rounded so that zones add up to their paddock and paddocks to the farm, as in ha.
 ``rate_kg_ha``
     The zone's rate (whole kg/ha); on total rows the mean over the spread area
     (tonnes x 1000 / spread area), empty when nothing is spread.
@@ -63,7 +66,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError, SettingsError
-from .units import RATE_UNITS, format_rate
+from .units import AC_PER_HA, KG_HA_PER_LB_AC, RATE_UNITS, area_unit_for, format_rate
 
 __all__ = [
     "TONNAGE_COLUMNS",
@@ -89,6 +92,8 @@ TONNAGE_COLUMNS: tuple[str, ...] = (
     "kind",
     "area_ha",
     "spread_area_ha",
+    "area_ac",
+    "spread_area_ac",
     "rate_kg_ha",
     "tonnes",
     "short_tons",
@@ -277,6 +282,9 @@ def tonnage_table(
         shares: dict[str, np.ndarray | None] = {}
         for col, exact in (("area_ha", rows["area_ha"].to_numpy(dtype=float)),
                            ("spread_area_ha", rows["spread_area_ha"].to_numpy(dtype=float)),
+                           ("area_ac", rows["area_ha"].to_numpy(dtype=float) * AC_PER_HA),
+                           ("spread_area_ac",
+                            rows["spread_area_ha"].to_numpy(dtype=float) * AC_PER_HA),
                            ("tonnes", t_exact),
                            ("short_tons", t_exact * 1000.0 / KG_PER_SHORT_TON)):
             total = _cents(float(exact.sum()))
@@ -325,7 +333,8 @@ def tonnage_table(
                         "rate_kg_ha": _mean_rate(*exact_farm[product])})
 
     table = pd.DataFrame.from_records(records, columns=list(TONNAGE_COLUMNS))
-    for col in ("area_ha", "spread_area_ha", "tonnes", "short_tons", "cost"):
+    for col in ("area_ha", "spread_area_ha", "area_ac", "spread_area_ac", "tonnes", "short_tons",
+                "cost"):
         table[col] = pd.to_numeric(table[col], errors="coerce").astype(float) / 100.0
     table["rate_kg_ha"] = pd.to_numeric(table["rate_kg_ha"], errors="coerce").astype(float)
     table["truckloads"] = pd.array(
@@ -339,7 +348,8 @@ def tonnage_table(
     return table.reset_index(drop=True)
 
 
-def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = "") -> pd.DataFrame:
+def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = "",
+                area_unit: str = "ha") -> pd.DataFrame:
     """The tonnage table as ``tonnage.csv`` shows it: one mass unit, the currency named,
     every figure as text with its rounding (``12.30``, not ``12.299999999``).
 
@@ -351,6 +361,9 @@ def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = ""
         ``"t"`` (column ``tonnes``) or ``"short ton"`` (column ``short_tons``).
     currency : str
         Currency code for the price and cost columns (``cost_AUD``); "" for none.
+    area_unit : str
+        ``"ha"`` (columns ``area_ha``, ``spread_area_ha``, ``rate_kg_ha``) or ``"ac"``
+        (``area_ac``, ``spread_area_ac``, ``rate_lb_ac``), as the rate unit goes.
 
     Returns
     -------
@@ -382,10 +395,17 @@ def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = ""
         "product": table["product"],
         "zone": table["zone"].map(lambda v: "" if v is pd.NA else str(int(v))),
         "kind": table["kind"].map(lambda v: "" if v is None else str(v)),
-        "area_ha": fixed("area_ha", 2),
-        "spread_area_ha": fixed("spread_area_ha", 2),
-        "rate_kg_ha": fixed("rate_kg_ha", 0),
     })
+    if area_unit == "ac":
+        out["area_ac"] = fixed("area_ac", 2)
+        out["spread_area_ac"] = fixed("spread_area_ac", 2)
+        out["rate_lb_ac"] = fixed("rate_kg_ha", 0, 1.0 / KG_HA_PER_LB_AC)
+    elif area_unit == "ha":
+        out["area_ha"] = fixed("area_ha", 2)
+        out["spread_area_ha"] = fixed("spread_area_ha", 2)
+        out["rate_kg_ha"] = fixed("rate_kg_ha", 0)
+    else:
+        raise SettingsError(f"area unit {area_unit!r} is not 'ha' or 'ac'", key="area_unit")
     out["tonnes" if metric else "short_tons"] = fixed("tonnes" if metric else "short_tons", 2)
     out["truckloads"] = table["truckloads"].map(lambda v: "" if v is pd.NA else str(int(v)))
     out[f"price_per_{per}{cur}"] = fixed(
@@ -421,7 +441,8 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha", currency: s
         From :func:`tonnage_table` (rates in kg/ha).
     rate_unit
         Unit of the mean rates shown: one of :data:`geosoil.units.RATE_UNITS`;
-        with lb/ac the amounts are in short tons, otherwise in tonnes.
+        with lb/ac the amounts are in short tons and the areas in acres, otherwise in
+        tonnes and hectares.
     currency
         Currency code shown with the cost ("" for none).
 
@@ -459,8 +480,9 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha", currency: s
     show_loads = rows["truckloads"].notna().any()
     show_cost = rows["cost"].notna().any()
     metric = mass_unit_for(rate_unit) == "t"
-    header = ["Paddock", "Product", "Area (ha)", "Spread (ha)", f"Mean rate ({rate_unit})",
-              "Tonnes" if metric else "Short tons"]
+    area = area_unit_for(rate_unit)  # acres beside a rate per acre
+    header = ["Paddock", "Product", f"Area ({area})", f"Spread ({area})",
+              f"Mean rate ({rate_unit})", "Tonnes" if metric else "Short tons"]
     if show_loads:
         header.append("Loads")
     if show_cost:
@@ -470,8 +492,8 @@ def format_summary(table: pd.DataFrame, *, rate_unit: str = "kg/ha", currency: s
         line = [
             "Farm" if r.level == "farm" else str(r.paddock),
             str(r.product),
-            _num(r.area_ha, 2),
-            _num(r.spread_area_ha, 2),
+            _num(r.area_ac if area == "ac" else r.area_ha, 2),
+            _num(r.spread_area_ac if area == "ac" else r.spread_area_ha, 2),
             _rate(r.rate_kg_ha, rate_unit),
             _num(r.tonnes if metric else r.short_tons, 2),
         ]

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import re
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -29,6 +30,9 @@ from numpy.typing import ArrayLike, NDArray
 from .errors import SettingsError
 
 __all__ = [
+    "AC_PER_HA",
+    "area_in",
+    "area_unit_for",
     "ATOMIC_WEIGHT",
     "CHARGE",
     "ANALYTES",
@@ -106,6 +110,27 @@ MG_CACO3_PER_CMOL: float = (
 
 #: kg/ha in 1 lb/ac, exact: 0.45359237 kg / (4046.8564224 m2 / 10000 m2).
 KG_HA_PER_LB_AC: float = float(Fraction("0.45359237") / (Fraction("4046.8564224") / 10000))
+
+#: Acres in 1 ha, exact: 10 000 m2 / 4046.8564224 m2 (the international acre, NIST SP 811).
+AC_PER_HA: float = float(Fraction(10000) / Fraction("4046.8564224"))
+
+
+def area_unit_for(rate_unit: str) -> str:
+    """The area unit that goes with a rate unit: acres with a rate per acre, else hectares.
+
+    >>> area_unit_for("lb/ac"), area_unit_for("t/ha")
+    ('ac', 'ha')
+    """
+    return "ac" if rate_unit.endswith("/ac") else "ha"
+
+
+def area_in(ha: ArrayLike, unit: str) -> Any:
+    """Hectares ``ha`` in ``unit`` (``"ha"`` or ``"ac"``).
+
+    >>> round(float(area_in(1.0, "ac")), 7)
+    2.4710538
+    """
+    return np.asarray(ha, dtype=float) * AC_PER_HA if unit == "ac" else ha
 
 _UNIT_ALIASES: dict[str, str] = {
     "cmol/kg": "cmol/kg",

@@ -219,7 +219,9 @@ def test_tonnage_in_short_tons_adds_up_after_rounding(run) -> None:
     def hundredths(rows: pd.DataFrame, col: str) -> int:
         return sum(round(float(v) * 100) for v in rows[col] if v != "")
 
-    for col in ("area_ha", "short_tons", "cost_AUD", "truckloads"):
+    # lb/ac: areas in acres (area_ac), adding up after rounding as the hectares do
+    assert "area_ac" in t.columns and "area_ha" not in t.columns
+    for col in ("area_ac", "spread_area_ac", "short_tons", "cost_AUD", "truckloads"):
         for (pad, prod), rows in t[t["level"] == "zone"].groupby(["paddock", "product"]):
             sub = t[(t["level"] == "paddock") & (t["paddock"] == pad) & (t["product"] == prod)]
             assert hundredths(rows, col) == hundredths(sub, col), (col, pad, prod)

@@ -395,6 +395,12 @@ def test_zone_map_in_lb_per_acre_uses_the_exact_factor() -> None:
     data = dataclasses.replace(report_input(), rate_unit="lb/ac")
     head, rows = _tonnage_table(report.build_report(data), "North", "gypsum")
     assert head[2] == "rate (lb/ac)" and rows[2][2] == "2,677"
+    # areas in acres beside a rate per acre: 1 ha = 2.4710538 ac (NIST SP 811), by hand
+    ha = _tonnage_table(report.build_report(report_input()), "North", "gypsum")[1]
+    assert head[1] == "area (ac)"
+    shown_ha = float(ha[2][1].replace(",", ""))  # rounded to 0.01 ha
+    assert float(rows[2][1].replace(",", "")) == pytest.approx(shown_ha * 2.4710538,
+                                                               abs=0.006 * 2.4710538)
 
 
 def test_zones_split_into_seasons_say_so_in_their_table() -> None:

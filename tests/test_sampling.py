@@ -194,11 +194,10 @@ def test_split_samples_adds_up_and_stays_within_a_sample_of_its_quota(total, are
 def _fake_farm(product_rates: dict, contributions: dict, kriged: tuple[str, ...],
                lime_method: str = "kamprath"):
     """A stand-in for a computed farm: one paddock 'P' with the given rates and surfaces."""
+    import dataclasses
     from types import SimpleNamespace
 
     from geosoil.rates import RateSettings
-
-    import dataclasses
 
     settings = RateSettings()
     settings = dataclasses.replace(settings, lime=dataclasses.replace(settings.lime,

@@ -250,3 +250,30 @@ def test_first_season_tonnes_take_one_pass_of_split_zones() -> None:
         "per_pass_kg_ha": [2000.0, 500.0, 0.0],
     })
     assert first_season_tonnes(z) == {"gypsum": 4 * 2 + 2 * 0.5, "lime": 0.0}
+
+
+def test_areas_in_acres_beside_a_rate_per_acre() -> None:
+    """With lb/ac the summary and tonnage.csv give areas in acres, not ha beside lb/ac and short
+    tons: 1 ha = 2.4710538 ac (10 000 m2 / 4046.8564224 m2, NIST SP 811), by hand:
+    North 10.5 ha = 25.95 ac, 10 ha spread = 24.71 ac; farm gypsum 20.5 ha = 50.66 ac."""
+    table = tonnage_table(zones_frame())
+    text = format_summary(table, rate_unit="lb/ac")
+    head = text.splitlines()[0]
+    assert "Area (ac)" in head and "Spread (ac)" in head and "(ha)" not in head
+    north = next(ln.split() for ln in text.splitlines() if ln.startswith("North    gypsum"))
+    assert north[2:4] == [f"{10.5 * 2.4710538:.2f}", f"{10.0 * 2.4710538:.2f}"] \
+        == ["25.95", "24.71"]
+    assert "Area (ha)" in format_summary(table, rate_unit="t/ha")  # per hectare: hectares
+    us = tonnage_csv(table, mass_unit="short ton", area_unit="ac")
+    assert {"area_ac", "spread_area_ac", "rate_lb_ac"} <= set(us.columns)
+    assert not {"area_ha", "spread_area_ha", "rate_kg_ha"} & set(us.columns)
+    farm = us[us["level"] == "farm"].set_index("product")
+    assert farm.loc["gypsum", "area_ac"] == f"{20.5 * 2.4710538:.2f}" == "50.66"
+    # 1950 kg/ha = 1740 lb/ac (1 lb/ac = 0.45359237 kg / 0.40468564224 ha, NIST SP 811)
+    assert farm.loc["gypsum", "rate_lb_ac"] == f"{1950 * 0.40468564224 / 0.45359237:.0f}"
+    # the row adds up as a farmer would check it: ac x lb/ac / 2000 lb = short tons (to 0.5 %)
+    z = us[us["level"] == "zone"].iloc[0]
+    assert float(z["spread_area_ac"]) * float(z["rate_lb_ac"]) / 2000 == pytest.approx(
+        float(z["short_tons"]), rel=5e-3)
+    with pytest.raises(SettingsError):
+        tonnage_csv(table, area_unit="m2")
