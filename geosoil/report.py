@@ -688,8 +688,10 @@ def zone_map_svg(
 
     Zones are filled by rate on the same rate scale as the web map
     (exclusions hatched grey, creek buffers hatched blue), labelled with zone number and
-    rate where they
-    are big enough, with the paddock outline, a scale bar and a grid-north arrow.
+    rate (:class:`_LabelPlacer`: inside the drawing, over no other label and no exclusion;
+    the number alone where the whole label finds no room; a numbered callout with a leader
+    line for a zone too small for either), with the paddock outline, a scale bar and a
+    grid-north arrow.
 
     Parameters
     ----------
@@ -744,7 +746,12 @@ def zone_map_svg(
     )
     pid = f"hatch-{uid}"
     drawn: list[dict[str, Any]] = []
-    labels = _LabelPlacer()
+    excl = [g for g, s in zip(zones.geometry, spread, strict=True)
+            if not s and g is not None and not g.is_empty]
+    labels = _LabelPlacer(frame, None)
+    if excl:
+        labels.obstacles = labels.to_px(shapely.union_all(excl))
+    pending: list[tuple[float, _ZoneDrawing, Any]] = []
     for _, z in zones.iterrows():
         d = _geom_path(z.geometry, frame.fx, frame.fy)
         if not d:
@@ -752,9 +759,16 @@ def zone_map_svg(
         zone = _zone_drawing(z, labelled="label" in zones.columns, top=top, pid=pid,
                              rate_unit=rate_unit, exclusion_kinds=exclusion_kinds)
         drawn.append({"d": d, "fill": zone.fill, "tip": zone.tip})
-        area_px = z.geometry.area * frame.scale * frame.scale
-        if area_px >= 900:
-            labels.place(zone, z.geometry, frame, short=area_px < 3500)
+        pending.append((z.geometry.area * frame.scale * frame.scale, zone, z.geometry))
+    # labels inside their zones, the smallest zones first (they have the fewest places);
+    # then a numbered callout for each rate zone left without one
+    callouts = []
+    for area_px, zone, geom in sorted(pending, key=lambda t: t[0]):
+        if not (area_px >= LABEL_MIN_AREA_PX and labels.place(zone, geom)) \
+                and not zone.excluded:
+            callouts.append((zone, geom))
+    for zone, geom in callouts:
+        labels.callout(zone, geom)
     return _drawing("zone_map", {
         "width": frame.width, "height": frame.height, "pid": pid, "zones": drawn,
         "outline": (_geom_path(outline, frame.fx, frame.fy)
@@ -838,38 +852,132 @@ def _zone_drawing(z: Any, *, labelled: bool, top: float, pid: str, rate_unit: st
     return _ZoneDrawing(fill=fill, tip=tip, label=label, number=number, excluded=excluded)
 
 
-class _LabelPlacer:
-    """Zone labels that overlap none drawn before (about 6.5 px a character)."""
+#: Width (px) a label's box allows per character: bold 12 px digits in the report's fonts
+#: advance about 0.7 em (DejaVu Sans Bold 0.696 em, from memory), so 8.4 px, over-estimated
+#: on purpose; :data:`LABEL_HALF_H` half the box's height.
+LABEL_CHAR_PX = 8.4
+LABEL_HALF_H = 8.0
+#: Least share of a label's box inside its zone (the rest may lie over a neighbour zone, never
+#: over another label, an exclusion or the drawing's edge).
+LABEL_MIN_SHARE = 0.6
+#: A zone smaller than this on the drawing (px²) gets a numbered callout, not a label inside.
+LABEL_MIN_AREA_PX = 120.0
 
-    def __init__(self) -> None:
+
+class _LabelPlacer:
+    """Zone labels inside the drawing, over no other label and no exclusion.
+
+    Each zone's label goes where it fits wholly inside its zone, as near the zone's label
+    point as it can (the whole label, else the zone number alone); a zone with no such
+    place (too small, or crowded) gets its number outside, in a free place nearby, with a
+    leader line to it (a numbered callout; the table under the map lists every zone).
+    Boxes are measured at :data:`LABEL_CHAR_PX` a character, wider than the bold 12 px
+    digits drawn, so a real label fits in the box (checked in a browser by the tests).
+    """
+
+    def __init__(self, frame: _Frame, obstacles: Any = None) -> None:
+        self.frame = frame
+        self.bounds = (1.0, 1.0, frame.width - 1.0, frame.height - 30.0)  # scale bar under
+        self.obstacles = obstacles  # exclusions in pixels (a labelled zone may not cover)
         self.labels: list[dict[str, Any]] = []
         self.boxes: list[tuple[float, float, float, float]] = []
 
-    def free_box(self, x: float, y: float, text: str) -> tuple[float, float, float, float] | None:
-        half_w, half_h = 3.3 * len(text) + 2, 8.0
-        bx = (x - half_w, y - half_h, x + half_w, y + half_h)
+    @staticmethod
+    def box_of(x: float, y: float, text: str) -> tuple[float, float, float, float]:
+        half_w, half_h = LABEL_CHAR_PX / 2 * len(text) + 2, LABEL_HALF_H
+        return (x - half_w, y - half_h, x + half_w, y + half_h)
+
+    def free(self, bx: tuple[float, float, float, float], *, own: Any = None) -> bool:
+        """Inside the drawing, over no label placed before and (unless ``own`` is the
+        exclusion itself) over no exclusion."""
+        x0, y0, x1, y1 = self.bounds
+        if bx[0] < x0 or bx[1] < y0 or bx[2] > x1 or bx[3] > y1:
+            return False
         for ox in self.boxes:
             if bx[0] < ox[2] and ox[0] < bx[2] and bx[1] < ox[3] and ox[1] < bx[3]:
-                return None
-        return bx
+                return False
+        if self.obstacles is not None and own is None:
+            if shapely.box(*bx).intersects(self.obstacles):
+                return False
+        return True
 
-    def place(self, zone: _ZoneDrawing, geom: Any, frame: _Frame, *, short: bool) -> None:
-        """The zone's label at its label point; the zone number alone on a small zone or
-        where the whole label finds no room; none where even that overlaps (the table under
-        the map lists every zone)."""
-        anchor = label_point(geom)
-        text = zone.number if short and not zone.excluded else zone.label
-        ink = ("#111" if zone.excluded or not zone.fill.startswith("#")
-               or _luminance(zone.fill) > 0.35 else "#fff")
-        x_px, y_px = frame.fx(anchor.x), frame.fy(anchor.y)
-        box_px = self.free_box(x_px, y_px, text)
-        if box_px is None and text != zone.number:  # try the zone number alone
-            text = zone.number
-            box_px = self.free_box(x_px, y_px, text)
-        if box_px is None:
-            return
-        self.boxes.append(box_px)
-        self.labels.append({"ink": ink, "x": x_px, "y": y_px, "text": text})
+    def to_px(self, geom: Any) -> Any:
+        f = self.frame
+        return shapely.transform(
+            geom, lambda c: np.column_stack([f.fx(c[:, 0]), f.fy(c[:, 1])]))
+
+    def candidates(self, geom_px: Any) -> list[tuple[float, float]]:
+        """Places in the zone, its label point first, then the rest nearest it first."""
+        anchor = label_point(geom_px)
+        out = [(anchor.x, anchor.y)]
+        x0, y0, x1, y1 = geom_px.bounds
+        xs, ys = np.meshgrid(np.arange(x0 + 2, x1, 4.0), np.arange(y0 + 2, y1, 4.0))
+        xs, ys = xs.ravel(), ys.ravel()
+        inside = shapely.contains_xy(geom_px, xs, ys)
+        xs, ys = xs[inside], ys[inside]
+        order = np.argsort(np.hypot(xs - anchor.x, ys - anchor.y), kind="stable")[:600]
+        out += [(float(xs[i]), float(ys[i])) for i in order]
+        return out
+
+    def place(self, zone: _ZoneDrawing, geom: Any) -> bool:
+        """The zone's label in a free place centred in the zone: the whole label wholly
+        inside the zone, else mostly inside (:data:`LABEL_MIN_SHARE`), else the zone number
+        alone likewise; False when none of these has a free place."""
+        geom_px = self.to_px(geom)
+        tries = [(zone.label, 1.0), (zone.label, LABEL_MIN_SHARE)]
+        if not zone.excluded:
+            tries += [(zone.number, 1.0), (zone.number, LABEL_MIN_SHARE)]
+        own = geom_px if zone.excluded else None
+        places = self.candidates(geom_px)
+        xs = np.array([p[0] for p in places])
+        ys = np.array([p[1] for p in places])
+        room = geom_px.buffer(1.0)
+        for text, share in tries:
+            hw = LABEL_CHAR_PX / 2 * len(text) + 2
+            boxes = shapely.box(xs - hw, ys - LABEL_HALF_H, xs + hw, ys + LABEL_HALF_H)
+            inside = shapely.area(shapely.intersection(boxes, room)) / (4 * hw * LABEL_HALF_H)
+            for i in np.flatnonzero(inside >= share - 1e-9):
+                bx = self.box_of(float(xs[i]), float(ys[i]), text)
+                if self.free(bx, own=own):
+                    # spilling over a neighbour: dark ink on a white halo, legible on any fill
+                    ink = None if share >= 1.0 else "#111"
+                    self._add(zone, text, float(xs[i]), float(ys[i]), bx, ink=ink,
+                              halo=share < 1.0)
+                    return True
+        return False
+
+    def callout(self, zone: _ZoneDrawing, geom: Any) -> bool:
+        """The zone number outside the zone, in the nearest free place round it, with a
+        leader line from the zone's label point."""
+        geom_px = self.to_px(geom)
+        anchor = label_point(geom_px)
+        text = zone.number
+        for r in (16.0, 24.0, 34.0, 46.0, 60.0, 80.0):
+            for k in range(16):
+                a = math.pi / 2 - k * math.pi / 8
+                x, y = anchor.x + r * math.cos(a), anchor.y - r * math.sin(a)
+                bx = self.box_of(x, y, text)
+                if self.free(bx):
+                    self._add(zone, text, x, y, bx, leader=(anchor.x, anchor.y), ink="#111",
+                              halo=True)
+                    return True
+        return False
+
+    def _add(self, zone: _ZoneDrawing, text: str, x: float, y: float,
+             bx: tuple[float, float, float, float], *, leader: tuple[float, float] | None = None,
+             ink: str | None = None, halo: bool = False) -> None:
+        if ink is None:
+            ink = ("#111" if zone.excluded or not zone.fill.startswith("#")
+                   or _luminance(zone.fill) > 0.35 else "#fff")
+        self.boxes.append(bx)
+        item: dict[str, Any] = {"ink": ink, "x": x, "y": y, "text": text, "box": bx,
+                                "leader": None, "halo": halo}
+        if leader is not None:
+            # from the zone's label point to the box's nearest edge
+            ex = min(max(leader[0], bx[0]), bx[2])
+            ey = min(max(leader[1], bx[1]), bx[3])
+            item["leader"] = {"x1": leader[0], "y1": leader[1], "x2": ex, "y2": ey}
+        self.labels.append(item)
 
 
 def exclusion_kind(label: str, kinds: Mapping[str, str] | None) -> str:

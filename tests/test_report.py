@@ -745,3 +745,91 @@ def test_a_table_value_that_is_not_a_number_is_escaped_once() -> None:
     page = jinja2.Environment(autoescape=True).from_string("<td>{{ v }}</td>")
     assert page.render(v=_num("<0.1")) == "<td>&lt;0.1</td>"
     assert page.render(v=_num(1234.5, 1)) == "<td>1,234.5</td>"
+
+
+def _label_case() -> tuple[gpd.GeoDataFrame, object]:
+    """An invented paddock 300 m x 160 m: zone 1 most of it, zone 2 a strip 14 m wide along
+    the east edge, zone 3 a 60 m square split by a creek buffer 4 m wide, zone 4 a 5 m square
+    inside zone 1 (too small for any label)."""
+    import shapely
+
+    paddock = box(X0, Y0, X0 + 300, Y0 + 160)
+    creek = box(X0 + 88, Y0 + 20, X0 + 92, Y0 + 80)
+    z3 = box(X0 + 60, Y0 + 20, X0 + 120, Y0 + 80).difference(creek)
+    z2 = box(X0 + 286, Y0, X0 + 300, Y0 + 160)
+    z4 = box(X0 + 200, Y0 + 100, X0 + 205, Y0 + 105)
+    z1 = shapely.difference(paddock, shapely.union_all([creek, z3, z2, z4]))
+    zones = gpd.GeoDataFrame(
+        {"zone": [1, 2, 3, 4, 5], "kind": ["rate", "rate", "rate", "rate", "exclusion"],
+         "rate_kg_ha": [0.0, 2750.0, 2250.0, 1500.0, 0.0],
+         "label": [None, None, None, None, "Bellbird Creek"]},
+        geometry=[z1, z2, z3, z4, creek], crs=CRS)
+    return zones, paddock
+
+
+def test_zone_labels_keep_to_free_places_inside_the_drawing() -> None:
+    """The placement rule (our own): each label inside the drawing, over no other label and no
+    exclusion; a zone without room for its label gets its number (or a numbered callout with a
+    leader line). Boxes measured at report.LABEL_CHAR_PX a character (the browser test below
+    checks the real text boxes)."""
+    import shapely
+
+    zones, paddock = _label_case()
+    svg = report.zone_map_svg(zones, outline=paddock, rate_unit="t/ha",
+                              exclusion_kinds={"Bellbird Creek": "creek buffer"})
+    vb = [float(v) for v in re.search(r'viewBox="([^"]+)"', svg).group(1).split()]
+    texts = re.findall(r'<text class="zone-label[^"]*" fill="[^"]+" x="([\d.]+)" '
+                       r'y="([\d.]+)"[^>]*>([^<]+)</text>', svg)
+    frame = report._Frame.around([*zones.geometry, paddock], width=560, max_height=300, pad=12,
+                                 foot=28, min_width=240)
+    creek_px = shapely.transform(zones.geometry.iloc[4], lambda c: np.column_stack(
+        [frame.fx(c[:, 0]), frame.fy(c[:, 1])]))
+    boxes = []
+    for x, y, text in texts:
+        t = html.unescape(text)
+        hw = report.LABEL_CHAR_PX / 2 * len(t) + 2
+        bx = (float(x) - hw, float(y) - report.LABEL_HALF_H, float(x) + hw,
+              float(y) + report.LABEL_HALF_H)
+        assert 0 <= bx[0] and bx[2] <= vb[2] and 0 <= bx[1] and bx[3] <= vb[3] - 28, t
+        assert not box(*bx).intersects(creek_px), t  # not over the creek buffer
+        boxes.append((t, bx))
+    for i, (ta, a) in enumerate(boxes):
+        for tb, b in boxes[i + 1:]:
+            assert not (a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]), (ta, tb)
+    numbers = {t.split(" · ")[0] for t, _ in boxes}
+    assert {"1", "2", "3", "4"} <= numbers  # every rate zone is named on the map
+    assert 'class="zone-leader"' in svg  # the 5 m zone: a numbered callout with a leader
+
+
+def test_browser_zone_labels_real_boxes_fit_the_rule(browser, tmp_path) -> None:
+    """In headless Chromium, the labels' real text boxes (getBBox, the report's CSS) of the
+    synthetic case lie inside the drawing, apart, and within the boxes the rule measured."""
+    import re as _re
+
+    zones, paddock = _label_case()
+    svg = report.zone_map_svg(zones, outline=paddock, rate_unit="t/ha",
+                              exclusion_kinds={"Bellbird Creek": "creek buffer"})
+    page_html = report.build_report(report_input())
+    css = _re.search(r"<style>(.*?)</style>", page_html, _re.S).group(1)
+    path = tmp_path / "labels.html"
+    path.write_text(f"<!doctype html><html><head><meta charset='utf-8'><style>{css}</style>"
+                    f"</head><body>{svg}</body></html>", encoding="utf-8")
+    page = browser.new_page(width=700, height=400)
+    page.goto(path)
+    got = page.evaluate("""(() => { const svg = document.querySelector('svg.zone-map');
+        const vb = svg.viewBox.baseVal;
+        return {w: vb.width, h: vb.height, labels: [...svg.querySelectorAll('text.zone-label')]
+          .map(t => { const b = t.getBBox();
+                      return {text: t.textContent, x: b.x, y: b.y, w: b.width, h: b.height}; })};
+        })()""")
+    page.screenshot(artifact_path("zone-labels.png"))
+    page.close()
+    labels = got["labels"]
+    assert len(labels) >= 4
+    for a in labels:
+        assert 0 <= a["x"] and a["x"] + a["w"] <= got["w"] and 0 <= a["y"], a
+        assert a["w"] <= report.LABEL_CHAR_PX * len(a["text"]) + 4, a  # the rule's box holds it
+    for i, a in enumerate(labels):
+        for b in labels[i + 1:]:
+            assert not (a["x"] < b["x"] + b["w"] and b["x"] < a["x"] + a["w"]
+                        and a["y"] < b["y"] + b["h"] and b["y"] < a["y"] + a["h"]), (a, b)
