@@ -1144,6 +1144,25 @@ def _warn_uncertified(results: dict[str, PaddockResult], products: Any) -> None:
     """Once per product a run applies that still carries the pure-material defaults."""
     used = sorted({p for pr in results.values() for p, r in pr.rates.product_rates.items()
                    if np.nansum(r) > 0})
+    _warn_uncertified_names(used, products)
+
+
+def _rule_products(rates: Any) -> list[str]:
+    """The products the rules that are not switched off may apply."""
+    names: list[str] = []
+    if rates.gypsum.enabled != "off":
+        names.append(rates.gypsum.product)
+    if rates.lime.enabled != "off":
+        names.append(rates.lime.product)
+    if rates.calcium.enabled != "off":
+        names += [rates.calcium.lime_product, rates.calcium.gypsum_product]
+    if rates.balance.enabled != "off":
+        names += [rates.balance.calcium_product, rates.balance.dolomite_product,
+                  rates.balance.potassium_product]
+    return sorted(set(names))
+
+
+def _warn_uncertified_names(used: list[str], products: Any) -> None:
     for name in used:
         keys = uncertified(name, products.get(name) or ProductSettings())
         if keys:
@@ -1163,13 +1182,32 @@ def _no_zones(crs: Any) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame({c: [] for c in cols}, geometry=[], crs=crs)
 
 
+#: ``check``'s last warning when no run has made the surfaces yet.
+RATES_NOT_CHECKED = (
+    "rates and zones not checked: no run has made this farm's surfaces yet (check does not "
+    "krige); warnings that come from the rates and zones (spreader passes, cells a rule "
+    "leaves bare) come with the run, and check gives them once a run has made the surfaces"
+)
+
+
+def _surfaces_cached(prep: Prepared) -> bool:
+    """Whether the cache holds this farm's surfaces (an entry's files are there)."""
+    try:
+        _, jsn = cache_mod.entry_paths(_cache_dir(prep), _surface_key(prep))
+        return jsn.is_file()
+    except OSError:
+        return False
+
+
 def check(project: Project) -> tuple[list[str], list[str]]:
     """Validate inputs and settings without writing any output.
 
-    When nothing is wrong the farm is computed as a run computes it (surfaces and
-    zones from the cache when a run made them, kriged otherwise; the cache is read,
-    not changed), so the warnings are the ones a run gives before it writes
-    (``FarmResult.warnings``).
+    When nothing is wrong and a run has made the surfaces (they are in the cache), the
+    farm is computed as a run computes it (surfaces and zones from the cache, which is
+    read, not changed), so the warnings are the ones a run gives before it writes
+    (``FarmResult.warnings``). Without cached surfaces nothing is kriged: the warnings
+    are those of the inputs and settings, the pure-material defaults of the products
+    the rules may apply, and :data:`RATES_NOT_CHECKED`.
 
     Parameters
     ----------
@@ -1227,13 +1265,23 @@ def check(project: Project) -> tuple[list[str], list[str]]:
         if problems:
             sink.extend(w for w in [*prep.warnings, *prep.rule_notes] if keep(w))
             return problems, sink
-        # nothing wrong: the rest of the run but the writing, so that check gives every
-        # warning a run gives before it writes (rates, passes, the products' defaults):
-        # the surfaces come from the cache when a run has made them (it is read, not
-        # changed), else they are kriged here
-        with record_warnings(raised):
-            farm = compute(project, prepared=prep, fill_cache=False)
-        sink.extend(w for w in farm.warnings if keep(w))
+        # nothing wrong. When a run has made the surfaces (they are in the cache), the rest
+        # of the run but the writing, reading the caches without changing them, so that
+        # check gives every warning a run gives before it writes (rates, passes, the
+        # products' defaults). Without them check does not krige (that is the run's work,
+        # and check stays quick and writes nothing): it warns of the products the rules
+        # may apply that carry the defaults, and says the rates were not checked.
+        if _surfaces_cached(prep):
+            with record_warnings(raised):
+                farm = compute(project, prepared=prep, fill_cache=False)
+            sink.extend(w for w in farm.warnings if keep(w))
+        else:
+            found: list[str] = []
+            with record_warnings(found):
+                _warn_uncertified_names(_rule_products(project.settings.rates),
+                                        project.settings.products)
+            sink.extend(w for w in [*prep.warnings, *prep.rule_notes, *found] if keep(w))
+            sink.append(RATES_NOT_CHECKED)
     except GeosoilError as exc:
         problems.append(str(exc))
         sink.extend(w for w in raised if keep(w))

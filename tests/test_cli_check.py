@@ -347,17 +347,26 @@ def test_check_gives_the_warnings_run_gives_on_the_demo(demo_run) -> None:  # no
 def test_check_gives_the_warnings_run_gives_with_default_products(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     """A trial: check said 0 warnings where run gave the products' pure-material defaults.
-    Check runs first (an empty cache: it kriges, changing nothing in the cache), then run."""
+    Before the first run (no surfaces in the cache) check kriges nothing and writes
+    nothing: it gives the products' defaults and says the rates were not checked; after
+    the run, its warnings are the run's."""
     import json
+
+    from geosoil.pipeline import RATES_NOT_CHECKED
 
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
     project = make_project(tmp_path / "farm")
     before = _tree(tmp_path)
-    r = check(project)
-    assert r.exit_code == 0, r.stderr
+    first = check(project)
+    assert first.exit_code == 0, first.stderr
     assert _tree(tmp_path) == before  # nothing written, not even to the cache
+    said = _warnings(first.stderr)
+    assert said[-1] == RATES_NOT_CHECKED
     got = _run(project, tmp_path / "out")
     assert got.exit_code == 0, got.stderr
     ran = json.loads((tmp_path / "out" / "run.json").read_text())["warnings"]
-    assert any("still carries the pure-material defaults" in w for w in ran)
-    assert _warnings(r.stderr) == ran
+    defaults = [w for w in ran if "still carries the pure-material defaults" in w]
+    assert defaults and set(defaults) <= set(said)  # (and those of products it may apply)
+    after = check(project)  # the run's surfaces are in the cache now
+    assert after.exit_code == 0, after.stderr
+    assert _warnings(after.stderr) == ran

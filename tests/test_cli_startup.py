@@ -71,14 +71,16 @@ def test_importing_the_package_imports_no_heavy_library() -> None:
     assert json.loads(done.stdout) == []
 
 
-def test_check_loads_no_interpolation_library(tmp_path, demo_run) -> None:  # noqa: ANN001
-    """``geosoil check`` after a run (its surfaces and zones in the cache) interpolates
-    nothing, so scipy's packages for kriging, variogram fitting and zones (about 0.3-0.5 s of
-    start-up) stay unloaded. (With nothing in the cache it kriges to give the run's warnings:
-    README.)"""
+@pytest.mark.parametrize("cached", [True, False])
+def test_check_loads_no_interpolation_library(tmp_path, demo_run, cached: bool) -> None:  # noqa: ANN001
+    """``geosoil check`` interpolates nothing, so scipy's packages for kriging, variogram
+    fitting and zones (about 0.3-0.5 s of start-up) stay unloaded: after a run (its
+    surfaces and zones in the cache, from which it computes the rates and zones) and
+    before one (no surfaces: it does not krige)."""
     from tests.demofarm import copy_demo
 
-    farm, _cache = copy_demo(tmp_path, cache=demo_run.cache)  # the session's run: cached
+    # the session's run's cache, or an empty one of the test's own
+    farm, _cache = copy_demo(tmp_path, cache=demo_run.cache if cached else None)
     code = (
         "import json, sys\n"
         "from geosoil.cli.main import cli\n"
