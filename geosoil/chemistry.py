@@ -736,8 +736,9 @@ def derive(
     if no_cations and len(samples):
         # a file of pH (or Al) alone: it still gives surfaces for what it has
         warnings.warn(
-            f"{file or 'samples'}: no exchangeable cations and no CEC in the file, so no ECEC, "
-            "saturations or ESP; rules that need them are skipped",
+            f"{file or 'samples'}: no exchangeable cations and no CEC were read from the file, "
+            "so no ECEC, saturations or ESP; rules that need them are skipped ('geosoil check' "
+            "lists the columns not read and why)",
             DataWarning,
             stacklevel=2,
         )

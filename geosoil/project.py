@@ -756,6 +756,7 @@ def new_project(
     samples = Path(samples).resolve()
     paddocks_path = Path(paddocks).resolve()
     notes: list[str] = []
+    to_do: list[str] = []  # what `check` will stop at, written at the top of the file
     boundaries = BoundarySettings(paddocks=paddocks_path)
     pads = read_paddocks(boundaries)
     # bad cells do not stop `new` (the project file is where on_bad_row is set): the rows are
@@ -763,7 +764,8 @@ def new_project(
     # stop at them as usual
     trial = SampleSettings(file=samples, crs=crs, on_bad_row="skip")
     try:
-        read = read_samples(trial, undecided="keep", warn_skipped=False)
+        read = read_samples(trial, undecided="keep", warn_skipped=False,
+                            suspect_units="keep")
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
@@ -777,7 +779,7 @@ def new_project(
             ) from None
         guess = pads.crs.to_string()
         read = read_samples(dataclasses.replace(trial, crs=guess), undecided="keep",
-                            warn_skipped=False)
+                            warn_skipped=False, suspect_units="keep")
         area = pads.geometry.union_all()
         pts = read.samples.geometry
         inside = float(np.mean(shapely.contains_xy(area, pts.x.to_numpy(), pts.y.to_numpy())))
@@ -829,9 +831,24 @@ def new_project(
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
     )
-    notes.append(
-        "units: " + ", ".join(f"{k} {v}" for k, v in read.units.items() if v)
-    )
+    stated = [f"{k} {v}" for k, v in read.units.items() if v and k not in read.assumed_units]
+    if stated:
+        notes.append("units: " + ", ".join(stated))
+    if read.assumed_units:
+        notes.append(
+            "no unit stated in the file for "
+            + ", ".join(f"'{read.columns[a]}'" for a in read.assumed_units)
+            + f": read as {trial.default_unit} ([samples] default_unit); state the lab's unit "
+            "in [samples.units] (e.g. " + f"{read.assumed_units[0]} = 'mmol/kg') if it is "
+            "another"
+        )
+    if read.unit_problem is not None:
+        notes.append(f"{read.unit_problem}; 'check' and 'run' stop until the unit is stated")
+        to_do.append(read.unit_problem)
+    if read.unused:
+        from .samples import unused_message
+
+        notes.append(unused_message(samples.name, read.unused))
     notes.extend(read.readings.values())
     notes.extend(_depth_notes(read.samples))
     for why in read.undecided.values():
@@ -842,7 +859,7 @@ def new_project(
         file=_relative(samples, folder),
         crs=crs if crs is not None else trial.crs,
         columns=dict(read.columns),
-        units={k: v for k, v in read.units.items() if v},
+        units={k: v for k, v in read.units.items() if v and k not in read.assumed_units},
     )
     rates, rate_notes = _lime_for_columns(read)
     notes.extend(rate_notes)
@@ -876,7 +893,11 @@ def new_project(
         "in one pass, larger rates split into equal passes (common practice); put your "
         "machine's figures in [spreader]"
     )
-    text = template(settings, header=f"written by 'geosoil new' for {samples.name}")
+    header = f"written by 'geosoil new' for {samples.name}"
+    if to_do:
+        header += "\nTo settle before 'geosoil check' passes:\n" + "\n".join(
+            f"- {t}" for t in to_do)
+    text = template(settings, header=header)
     parse_project(text, base_dir=folder.resolve(), source=str(target))  # it must run as written
     folder.mkdir(parents=True, exist_ok=True)
     from .writers import atomic_write

@@ -82,6 +82,7 @@ from .layers import DEPTH_UNITS, check_depths, depth_role, depth_unit_of, parse_
 from .salinity import to_ds_m
 from .settings import setting
 from .units import (
+    CATION_UNITS,
     DEFAULT_SCOOP_DENSITY_G_CM3,
     LAB_UNITS,
     VOLUMETRIC_UNITS,
@@ -104,9 +105,12 @@ __all__ = [
     "PLAUSIBLE_MAX_SAR",
     "PLAUSIBLE_BUFFER_PH",
     "PLAUSIBLE_MAX_PROPERTY",
+    "TYPICAL_MAX_ECEC_CMOL",
+    "TYPICAL_MIN_ECEC_CMOL",
     "HEADER_SEARCH_ROWS",
     "read_samples",
     "prepare_samples",
+    "unused_message",
 ]
 
 logger = logging.getLogger(__name__)
@@ -125,6 +129,15 @@ PLAUSIBLE_MAX_CMOL: dict[str, float] = {
     "cec": 300.0,
     "cec_ph7": 300.0,
 }
+#: Largest median ECEC (cmol(+)/kg) a farm's samples are taken to have when the lab's
+#: columns state no unit (common practice, from memory: the effective CEC of mineral soils
+#: seldom passes about 40-60 cmol(+)/kg even in heavy smectitic clays; organic soils go
+#: higher). Above it the unit assumed is suspected first: mmol(+)/kg read as cmol(+)/kg
+#: makes every amount ten times too large, which a per-value bound catches only in part.
+TYPICAL_MAX_ECEC_CMOL: float = 60.0
+#: Smallest median ECEC (cmol(+)/kg) a unit offered instead may give (common practice, from
+#: memory: the ECEC of sandy soils runs down to about 1 cmol(+)/kg).
+TYPICAL_MIN_ECEC_CMOL: float = 1.0
 #: Plausible buffer pH range (common practice: the buffers start at pH 7.5 to 8.0 and
 #: strongly acid soils bring them down to about 4.5).
 PLAUSIBLE_BUFFER_PH: tuple[float, float] = (3.5, 8.5)
@@ -333,6 +346,17 @@ class SampleRead:
     undecided
         Header -> why it was not read (an acidity that names neither the
         exchangeable nor the potential method); only with ``undecided="keep"``.
+    assumed_units
+        Analytes whose unit no header, units row or setting states (read in
+        ``[samples] default_unit``).
+    unit_problem
+        Why the unit assumed for those columns looks wrong for the farm as a
+        whole, and the setting that states it; only with ``suspect_units="keep"``
+        (else it is raised).
+    unused
+        Header -> why the column is not read (kept as the lab's own column),
+        for every column that is not an analyte, ID, coordinate, depth or
+        soluble cation.
     crs
         CRS of ``samples``.
     file
@@ -348,6 +372,9 @@ class SampleRead:
     file: Path
     readings: dict[str, str] = dataclasses.field(default_factory=dict)
     undecided: dict[str, str] = dataclasses.field(default_factory=dict)
+    assumed_units: tuple[str, ...] = ()
+    unit_problem: str | None = None
+    unused: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 class CRSInputError(InputError, CRSError):
@@ -1186,6 +1213,7 @@ def _units(
 def _analyte_values(
     analyte: str, header: str, unit: str | None, values: pd.Series, rows: np.ndarray,
     settings: SampleSettings, name: str, decimal_comma: bool, issues: list[_Issue],
+    *, plausible: bool = True,
 ) -> np.ndarray:
     numbers, texts = _checked_numbers(analyte, header, values, rows, settings, name,
                                       decimal_comma, issues)
@@ -1196,7 +1224,7 @@ def _analyte_values(
         return _unitless_values(analyte, header, numbers, texts, rows, issues)
     assert unit is not None
     return _exchangeable_values(analyte, header, unit, numbers, texts, rows, settings, name,
-                                issues)
+                                issues, plausible=plausible)
 
 
 _SKIP_FIX = " or set [samples] on_bad_row = 'skip'"
@@ -1284,11 +1312,15 @@ def _unitless_values(
 def _exchangeable_values(
     analyte: str, header: str, unit: str, numbers: np.ndarray, texts: list[str],
     rows: np.ndarray, settings: SampleSettings, name: str, issues: list[_Issue],
+    *, plausible: bool = True,
 ) -> np.ndarray:
     """An exchangeable cation or acidity in cmol(+)/kg; implausibly large values named, and
-    refused as a wrong unit when they are most of the column."""
+    refused as a wrong unit when they are most of the column (not with ``plausible`` false:
+    a unit already suspected for the whole farm)."""
     rho = settings.scoop_density_g_cm3
     cmol = to_cmol_kg(numbers, analyte, unit, density_g_cm3=rho)
+    if not plausible:
+        return cmol
     limit = PLAUSIBLE_MAX_CMOL[analyte]
     too_big = np.flatnonzero(cmol > limit)
     if too_big.size:
@@ -1307,6 +1339,130 @@ def _exchangeable_values(
             issues.append(_Issue(int(rows[i]), header, problem(int(i)),
                                  "correct the cell, or " + unit_fix + _SKIP_FIX))
     return cmol
+
+
+#: Exchangeable amounts whose sum per sample is its ECEC (acidity stands for Al + H).
+_ECEC_PARTS = ("ca", "mg", "k", "na", "al", "h", "acidity")
+
+
+def _assumed_units(
+    columns: Mapping[str, str], settings: SampleSettings, unit_cells: Mapping[str, str],
+) -> tuple[str, ...]:
+    """The exchangeable analytes whose unit nothing states: no setting, no unit in the
+    header, none in the units row (they are read in ``default_unit``)."""
+    out = []
+    for analyte, header in columns.items():
+        if analyte in UNITLESS or analyte in PROPERTIES or analyte in settings.units:
+            continue
+        cell = unit_cells.get(header)
+        if parse_header(header).unit is None and (
+                cell is None or "%" in cell or _cation_unit(cell) is None):
+            out.append(analyte)
+    return tuple(out)
+
+
+def _unit_suspicion(
+    table: pd.DataFrame, columns: Mapping[str, str], assumed: Sequence[str],
+    settings: SampleSettings, decimal_comma: bool,
+) -> tuple[str, str, str] | None:
+    """(problem, fix, first header) when the columns whose unit nothing states hold, read
+    in ``default_unit``, a farm of implausible soils: the median ECEC of the samples (sum
+    of the cations; the CEC alone when only it is assumed) above
+    :data:`TYPICAL_MAX_ECEC_CMOL`. The units that would bring it into the usual range are
+    named, most likely first. None when the values fit the unit."""
+    parts = [a for a in _ECEC_PARTS if a in assumed]
+    if "acidity" in parts:
+        parts = [a for a in parts if a not in ("al", "h")]
+    what = "ECEC (the sum of " + ", ".join(columns[a] for a in parts) + ")"
+    if not parts:
+        parts = [a for a in ("cec", "cec_ph7") if a in assumed][:1]
+        what = "CEC"
+    if not parts:
+        return None
+    unit = normalise_unit(settings.default_unit)
+    rho = settings.scoop_density_g_cm3
+    numbers = {}
+    for a in parts:
+        v, status, _ = _cells(table[columns[a]], decimal_comma=decimal_comma)
+        numbers[a] = np.where((status == "ok") & (v >= 0), v, np.nan)
+
+    def ecec(u: str) -> np.ndarray | None:
+        try:
+            stack = np.vstack([to_cmol_kg(numbers[a], a, u, density_g_cm3=rho) for a in parts])
+        except SettingsError:  # no mass form (acidity in mg/kg)
+            return None
+        seen = np.isfinite(stack).any(axis=0)
+        return np.nansum(stack, axis=0)[seen]
+
+    found = ecec(unit)
+    if found is None or not found.size or np.median(found) <= TYPICAL_MAX_ECEC_CMOL:
+        return None
+    likely: list[tuple[float, str, float]] = []
+    for u in CATION_UNITS:
+        if u in (unit, "meq/100g") or (u == "cmol/kg" and unit == "meq/100g"):
+            continue
+        other = ecec(u)
+        if other is not None and other.size:
+            median = float(np.median(other))
+            if TYPICAL_MIN_ECEC_CMOL <= median <= TYPICAL_MAX_ECEC_CMOL:
+                likely.append((abs(math.log(median / 10.0)), u, median))
+    likely.sort()
+    names = ", ".join(f"'{columns[a]}'" for a in assumed)
+    problem = (
+        f"the unit looks wrong for the farm as a whole: {names} state no unit and were read "
+        f"in {unit} ([samples] default_unit), which makes the samples' {what} "
+        f"{found.min():.0f}-{found.max():.0f} cmol(+)/kg (median {np.median(found):.0f}); "
+        f"soils seldom reach a median of {TYPICAL_MAX_ECEC_CMOL:g} (common practice)"
+    )
+    if likely:
+        problem += "; the lab's unit is probably " + " or ".join(
+            f"{u} (median {m:.1f} cmol(+)/kg)" for _, u, m in likely)
+    else:
+        problem += "; no unit geosoil reads brings them into the usual range: check that "\
+            "the columns hold exchangeable amounts"
+    best = likely[0][1] if likely else "..."
+    fix = (
+        "state the lab's unit for these columns: [samples.units] "
+        + ", ".join(f"{a} = '{best}'" for a in assumed)
+        + f" (units: {', '.join(LAB_UNITS)}), or a row of units under the header; if they "
+        f"really are {unit} (an organic soil), state that: [samples.units] {assumed[0]} = "
+        f"'{unit}' and the others alike"
+    )
+    return problem, fix, columns[assumed[0]]
+
+
+def _unused_columns(
+    headers: Sequence[str], used: set[str], described: Mapping[str, str],
+) -> dict[str, str]:
+    """Header -> why it is not read, for each column not used (kept as the lab's own)."""
+    out: dict[str, str] = {}
+    for header in headers:
+        if header in used:
+            continue
+        info = parse_header(described.get(header, header))
+        if info.undecided is not None:
+            continue  # named on its own, with the settings that decide it
+        if info.note is not None:
+            out[header] = info.note
+        elif info.role in CANONICAL:
+            out[header] = f"read as {info.role} from another column"
+        elif info.role is not None:
+            out[header] = f"a second {info.role} column"
+        elif header.startswith("column ") and header[7:].replace(" ", "").isalnum():
+            out[header] = "no header"
+        else:
+            out[header] = "name not recognised"
+    return out
+
+
+def unused_message(name: str, unused: Mapping[str, str]) -> str:
+    """One line naming every column not read and why (``new`` and ``check`` print it)."""
+    shown = "; ".join(f"'{h}' ({why})" for h, why in unused.items())
+    return (
+        f"{name}: {len(unused)} column(s) not read, kept as the lab's own columns: {shown}. "
+        "To read one, name it in [samples.columns] (e.g. ca = 'Calcium exchangeable') and "
+        "state its unit in [samples.units] (" + ", ".join(LAB_UNITS) + ")"
+    )
 
 
 def _row_list(rows: Iterable[int], most: int = 10) -> str:
@@ -1480,7 +1636,7 @@ def _id_issues(ids: list[str], rows: np.ndarray, id_header: str,
 
 
 def read_samples(settings: SampleSettings, *, undecided: str = "stop",
-                 warn_skipped: bool = True) -> SampleRead:
+                 warn_skipped: bool = True, suspect_units: str = "stop") -> SampleRead:
     """Read and check the lab results named in ``settings``.
 
     Parameters
@@ -1497,6 +1653,12 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         :class:`~geosoil.errors.DataWarning` (the default), or leave that to the
         caller, which has them in :attr:`SampleRead.skipped` (``geosoil new``
         lists them in a note, as the project it writes stops at them).
+    suspect_units
+        Columns that state no unit and whose values, read in ``default_unit``,
+        make a farm of implausible soils (median ECEC above
+        :data:`TYPICAL_MAX_ECEC_CMOL`): "stop" raises :class:`InputError`
+        naming them, the range seen and the likely unit; "keep" reads them as
+        they are and puts that in :attr:`SampleRead.unit_problem`.
 
     Returns
     -------
@@ -1550,9 +1712,18 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     ids = _id_texts(table[id_header])
     _id_issues(ids, rows, id_header, depths, issues)
 
+    assumed = _assumed_units(columns, settings, raw.unit_cells)
+    suspicion = _unit_suspicion(table, columns, assumed, settings, raw.decimal_comma)
+    unit_problem = None
+    if suspicion is not None:
+        problem, fix, column = suspicion
+        if suspect_units == "stop":
+            raise InputError(problem, file=name, row=raw.header_row, column=column, fix=fix)
+        unit_problem = f"{name}, column '{column}': {problem}. Fix: {fix}"
     values = {
         a: _analyte_values(a, columns[a], units[a], table[columns[a]], rows, settings, name,
-                           raw.decimal_comma, issues)
+                           raw.decimal_comma, issues,
+                           plausible=suspicion is None or a not in assumed)
         for a in CANONICAL if a in columns
     }
 
@@ -1621,9 +1792,14 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         ", ".join(f"{a} <- '{h}' ({units[a] or 'no unit'})" for a, h in columns.items()),
         describe_crs(crs),
     )
+    unused = _unused_columns(headers, used | {h for h in depth_headers if h}
+                             | set(solution_headers.values()), described)
+    if unused:
+        logger.info("%s", unused_message(name, unused))
     return SampleRead(
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
+        assumed_units=assumed, unit_problem=unit_problem, unused=unused,
     )
 
 

@@ -409,3 +409,32 @@ def test_new_records_warnings_with_the_project_s_one_recorder(
     assert warned.count("warning: paddock 'Home\\x1b]0;x\\x07' read twice") == 1
     assert any("divide by zero" in w and "(RuntimeWarning from " in w for w in warned)
     assert "\x1b" not in r.stderr and "\x07" not in r.stderr
+
+
+def _lab_from(inputs: dict[str, Path], folder: Path, header: str, convert, name="lab.csv") -> Path:
+    """The module's lon/lat lab file with a new header row and each row's values converted
+    (``convert(fields) -> fields``); the locations are kept."""
+    lines = inputs["lab_ll"].read_text().splitlines()
+    out = [header] + [",".join(convert(ln.split(","))) for ln in lines[1:]]
+    path = folder / name
+    path.write_text("\n".join(out) + "\n", encoding="utf-8")
+    return path
+
+
+def test_a_file_whose_unstated_unit_looks_wrong_is_written_and_checked_as_one_problem(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    # user trial: cations in mmol(+)/kg without units were read as cmol(+)/kg (ten times the
+    # gypsum); 'new' must say so once, write the project, and leave the unit to the user
+    lab = _lab_from(inputs, tmp_path, "Sample ID,Longitude,Latitude,pH (CaCl2),Ca,Mg,K,Na,Al",
+                    lambda f: f[:4] + [f"{float(v) * 10:.2f}" for v in f[4:9]])
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    assert "probably mmol/kg" in r.stderr and "bad row" not in r.stderr
+    project = tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())
+    assert "units" not in project["samples"]  # no unit written that nobody stated
+    assert "To settle before 'geosoil check' passes" in (tmp_path / "p" / "geosoil.toml").read_text()
+    c = invoke("check", tmp_path / "p")
+    problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
+    assert c.exit_code == 1 and len(problems) == 1
+    assert "unit looks wrong" in problems[0] and "skip" not in problems[0]

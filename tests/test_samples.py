@@ -619,8 +619,8 @@ def test_a_whole_column_in_the_wrong_unit_stops_even_when_skipping(tmp_path):
     path = lab(tmp_path, header=header, rows=["S1,147.001,-35.001,1002,243,195,92",
                                               "S2,147.002,-35.002,1503,300,180,80"])
     err = error_of(path, on_bad_row="skip")
-    assert_names(err, file=path, row=2, column="Ca")
-    assert "unit" in str(err) and "ca = '...'" in err.fix
+    assert_names(err, file=path, row=1, column="Ca")
+    assert "unit looks wrong" in str(err) and "ca = 'mg/kg'" in err.fix
 
 
 def test_ph_out_of_range(tmp_path):
@@ -1466,3 +1466,55 @@ def test_soluble_cations_named_in_the_settings(tmp_path: Path) -> None:
     assert "na_sol" not in read(lab(tmp_path, ["A1,147.0010,-35.0010,6.0,0.4"],
                                     header="Sample ID,Longitude,Latitude,Ca,Na",
                                     name="x.csv")).samples.columns
+
+
+# --------------------------------------------------------------------------- unit stated by no one
+
+# Invented amounts of a loam in mmol(+)/kg (ECEC about 12-19 cmol(+)/kg); headers state no unit.
+_NO_UNIT_HEADER = "ID,Lon,Lat,Ca,Mg,K,Na"
+_NO_UNIT_ROWS = [f"S{i},147.00{i},-35.00{i},{ca},{mg},{k},{na}" for i, (ca, mg, k, na) in
+                 enumerate([(126.7, 33.1, 8.2, 4.2), (108.3, 25.5, 8.4, 3.9),
+                            (94.3, 24.4, 8.7, 3.6), (141.0, 40.2, 7.9, 5.1)], start=1)]
+
+
+def test_unstated_units_ten_times_too_large_are_suspected_for_the_whole_farm(tmp_path):
+    # user trial: mmol(+)/kg read as cmol(+)/kg gave ten times the gypsum, with only the
+    # largest values flagged one by one and 'skip' offered as the fix
+    path = lab(tmp_path, header=_NO_UNIT_HEADER, rows=_NO_UNIT_ROWS)
+    err = error_of(path, on_bad_row="skip")
+    text = str(err)
+    assert err.column == "Ca" and "'Ca', 'Mg', 'K', 'Na'" in text
+    assert "cmol/kg ([samples] default_unit)" in text and "probably mmol/kg" in text
+    # the range seen: row sums 131.0 (94.3 + 24.4 + 8.7 + 3.6) to 194.2 (hand arithmetic)
+    assert "131-194 cmol(+)/kg" in text
+    assert "ca = 'mmol/kg'" in err.fix and "na = 'mmol/kg'" in err.fix
+    assert "skip" not in text
+
+
+def test_the_stated_unit_reads_the_same_file_in_cmol(tmp_path):
+    path = lab(tmp_path, header=_NO_UNIT_HEADER, rows=_NO_UNIT_ROWS)
+    got = read(path, units={a: "mmol/kg" for a in ("ca", "mg", "k", "na")})
+    # 1 cmol(+)/kg = 10 mmol(+)/kg (SI prefixes): 126.7 mmol(+)/kg is 12.67 cmol(+)/kg
+    assert got.samples["ca"].iloc[0] == pytest.approx(12.67)
+    assert got.assumed_units == () and got.unit_problem is None
+
+
+def test_unstated_units_in_mg_kg_point_to_mg_kg(tmp_path):
+    rows = [f"S{i},147.00{i},-35.00{i},{ca},{mg},{k},{na}" for i, (ca, mg, k, na) in
+            enumerate([(2539, 402, 321, 97), (2170, 310, 328, 90), (1890, 297, 340, 83)],
+                      start=1)]
+    err = error_of(lab(tmp_path, header=_NO_UNIT_HEADER, rows=rows))
+    assert "probably mg/kg" in str(err) and "ca = 'mg/kg'" in err.fix
+
+
+def test_plausible_unstated_units_are_read_and_listed_as_assumed(tmp_path):
+    rows = [f"S{i},147.00{i},-35.00{i},{ca},{mg},0.8,0.4" for i, (ca, mg) in
+            enumerate([(12.7, 3.3), (10.8, 2.5), (9.4, 2.4)], start=1)]
+    got = read(lab(tmp_path, header=_NO_UNIT_HEADER, rows=rows))
+    assert got.assumed_units == ("ca", "mg", "k", "na") and got.unit_problem is None
+
+
+def test_a_suspected_unit_can_be_kept_for_new(tmp_path):
+    path = lab(tmp_path, header=_NO_UNIT_HEADER, rows=_NO_UNIT_ROWS)
+    got = read_samples(SampleSettings(file=path), suspect_units="keep")
+    assert "probably mmol/kg" in got.unit_problem and got.skipped == []
