@@ -44,10 +44,11 @@ from __future__ import annotations
 
 import dataclasses
 import re
+import unicodedata
 from collections.abc import Sequence
 
 from .errors import SettingsError
-from .units import normalise_unit
+from .units import ELEMENT_MASS_UNITS, normalise_unit
 
 __all__ = [
     "CANONICAL",
@@ -103,13 +104,16 @@ PH_METHODS: dict[str, str] = {"ph": "water", "ph_cacl2": "CaCl2", "ph_kcl": "KCl
 #: Names (lower case, qualifier, charge and unit removed) that mean each analyte.
 #: The first spellings of ``cec`` name an effective CEC and are preferred over a plain CEC.
 ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
-    "ca": ("ca", "calcium"),
-    "mg": ("mg", "magnesium"),
-    "k": ("k", "potassium"),
-    "na": ("na", "sodium"),
-    "al": ("al", "aluminium", "aluminum"),
+    # English, and the words of German, Spanish, Portuguese and French labs (matched with
+    # their accents taken off: "cálcio" is "calcio")
+    "ca": ("ca", "calcium", "calcio"),
+    "mg": ("mg", "magnesium", "magnesio"),
+    "k": ("k", "potassium", "kalium", "potasio", "potassio"),
+    "na": ("na", "sodium", "natrium", "sodio"),
+    "al": ("al", "aluminium", "aluminum", "aluminio"),
     "h": ("h", "hydrogen"),
-    "acidity": ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity"),
+    "acidity": ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity",
+                "acidez"),
     "acidity_potential": ("potential acidity", "acidity potential"),
     "cec": (
         "ecec",
@@ -117,6 +121,9 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
         "effective cation exchange capacity",
         "cec",
         "cation exchange capacity",
+        # German KAK (eff.: effective), Spanish CIC(E), Portuguese CTC efetiva (t), French
+        "kak eff", "kakeff", "kak", "cice", "cic efectiva", "cic", "ctc efetiva", "ctc efectiva",
+        "capacidad de intercambio cationico", "capacite d echange cationique",
     ),
     "ph": ("ph",),
     "ph_cacl2": (),
@@ -125,7 +132,7 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
     "sar_1to5": (),
     "cec_ph7": (
         "cec ph7", "cec ph 7", "cec at ph 7", "cec ph 7 0", "ctc", "ctc ph 7", "ctc ph7",
-        "ctc a ph 7", "cec nh4oac ph 7", "potential cec",
+        "ctc a ph 7", "cec nh4oac ph 7", "potential cec", "kak pot", "kakpot",
     ),
     "bph_smp": ("smp buffer ph", "smp bph", "smp ph", "smp", "smp lime index", "bph smp",
                 "buffer ph smp"),
@@ -153,9 +160,14 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
 }
 
 #: Acidity names whose method must be stated (exchangeable or potential).
-_ACIDITY_NAMES = ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity")
+_ACIDITY_NAMES = ("acidity", "acid", "al+h", "h+al", "total acidity", "titratable acidity",
+                  "acidez")
+#: Words that say "exchangeable" in German, Spanish, Portuguese and French (accents off).
+_EXCHANGEABLE_FOREIGN = ("austauschbar", "austauschbares", "austauschbare", "intercambiable",
+                         "intercambiables", "trocavel", "trocaveis", "echangeable",
+                         "echangeables")
 #: Words that say an acidity is the exchangeable (1 M KCl) one.
-_EXCHANGEABLE_WORDS = ("exch", "exchangeable", "ex", "exc", "kcl")
+_EXCHANGEABLE_WORDS = ("exch", "exchangeable", "ex", "exc", "kcl", *_EXCHANGEABLE_FOREIGN)
 #: Words that say an acidity is potential acidity (pH 7 buffer or acetate methods).
 _POTENTIAL_WORDS = ("ph 7", "ph7", "ph 7.0", "ph7.0", "smp", "buffer", "acetate", "oac",
                     "ca(oac)2", "potential", "sikora", "mehlich", "bacl2", "tea", "ph 8.2")
@@ -185,17 +197,31 @@ ID_SPELLINGS: tuple[str, ...] = (
     "muestra",
     "ponto",
     "punto",
+    "id muestra",
+    "codigo muestra",
+    "probe",  # German: sample, sample number, sample name
+    "probennummer",
+    "probe nr",
+    "proben nr",
+    "probenbezeichnung",
+    "echantillon",  # French (accents off): sample
 )
 
-_LON = ("lon", "long", "longitude", "lng", "decimal longitude")
-_LAT = ("lat", "latitude", "decimal latitude")
-_EAST = ("easting", "eastings", "east", "mga easting", "utm easting")
-_NORTH = ("northing", "northings", "north", "mga northing", "utm northing")
+# with the Spanish (longitud, latitud) and German (Länge, Breite, -ngrad; accents off) words;
+# Portuguese and French write longitude and latitude
+_LON = ("lon", "long", "longitude", "lng", "decimal longitude", "longitud", "lange", "laenge",
+        "langengrad", "laengengrad", "geogr lange")
+_LAT = ("lat", "latitude", "decimal latitude", "latitud", "breite", "breitengrad",
+        "geogr breite")
+_EAST = ("easting", "eastings", "east", "mga easting", "utm easting", "rechtswert", "este",
+         "utm este")
+_NORTH = ("northing", "northings", "north", "mga northing", "utm northing", "hochwert",
+          "norte", "utm norte")
 _X = ("x", "x coord", "x coordinate", "xcoord", "point x", "coord x")
 _Y = ("y", "y coord", "y coordinate", "ycoord", "point y", "coord y")
 
 #: Words in front of (or after) an analyte name that change nothing.
-_QUALIFIERS = ("exch", "exchangeable", "ex", "exc", "extractable")
+_QUALIFIERS = ("exch", "exchangeable", "ex", "exc", "extractable", *_EXCHANGEABLE_FOREIGN)
 #: Words that mark an extract or measure other than the exchangeable amount.
 _NOT_EXCHANGEABLE = (
     "colwell",
@@ -312,13 +338,19 @@ def _unit_of(text: str) -> str | None:
         return None
 
 
+def _fold(text: str) -> str:
+    """``text`` without accents ("Längengrad" -> "Langengrad", "água" -> "agua")."""
+    return "".join(c for c in unicodedata.normalize("NFKD", text)
+                   if not unicodedata.combining(c))
+
+
 def _ph_method(text: str) -> str | None:
-    t = text.lower().replace(" ", "")
+    t = _fold(text).lower().replace(" ", "")
     if "cacl" in t or t in ("ca", "c"):
         return "CaCl2"
     if "kcl" in t:
         return "KCl"
-    if "water" in t or "h2o" in t or "h20" in t or t in ("w",):
+    if any(w in t for w in ("water", "h2o", "h20", "agua", "wasser", "eau")) or t in ("w",):
         return "water"
     return None
 
@@ -374,7 +406,7 @@ def parse_header(header: str) -> HeaderInfo:
     other = _lime_analyte(given, with_ratio, methods, units)
     if other is not None:
         return other
-    rest = _BRACKETS.sub(" ", plain).lower().replace("_", " ")
+    rest = _fold(_BRACKETS.sub(" ", plain)).lower().replace("_", " ")
     tokens = _split_trailing_unit(rest.split(), units)
     name = " ".join(tokens).replace(".", " ").replace("-", " ").replace("%", " % ")
     name = re.sub(r"\s*\+\s*", "+", name)
@@ -394,7 +426,28 @@ def parse_header(header: str) -> HeaderInfo:
     analyte = _ANALYTE_OF.get(joined)
     if analyte is None:
         return _not_an_analyte(given, words, note)
-    return _analyte_header(given, analyte, joined, methods, ratios, units, note)
+    return _unit_reading(_analyte_header(given, analyte, joined, methods, ratios, units, note))
+
+
+_CHARGE_MARK = re.compile(r"mmol\s*(?:\(\+\)|\+|\(c\)|_c|c)", re.IGNORECASE)
+_ION = {"ca": "Ca2+", "mg": "Mg2+"}
+
+
+def _unit_reading(info: HeaderInfo) -> HeaderInfo:
+    """The header with a note of how its unit is read where the unit leaves room: mmol/kg
+    of a divalent cation without the charge mark (mmol(+)/kg, mmolc/kg), and a cation in
+    g/kg."""
+    if info.role in _ION and info.unit == "mmol/kg" and not _CHARGE_MARK.search(info.header):
+        return dataclasses.replace(info, reading=(
+            f"'{info.header}' read as mmol of charge per kg (mmol(+)/kg, the usual reading: "
+            f"10 mmol(+)/kg = 1 cmol(+)/kg); if the lab means mmol of {_ION[info.role]} ions, "
+            f"each carries two charges and the amounts are twice as large in charge: ask the "
+            f"lab, and give the column in mmol(+)/kg (the values x 2)"))
+    if info.role in ("ca", "mg", "k", "na", "al") and info.unit == "g/kg":
+        return dataclasses.replace(info, reading=(
+            f"'{info.header}' read as g of the element per kg of soil (1 g/kg = 1000 mg/kg), "
+            "turned into cmol(+)/kg by its equivalent weight, as mg/kg is"))
+    return info
 
 
 def _bracket_parts(plain: str) -> tuple[list[str], list[str], str | None]:
@@ -511,9 +564,9 @@ def _with_unit(
     unit = units[0] if units else None
     if analyte in UNITLESS and unit is not None:
         return HeaderInfo(given, None, note=f"{analyte} has no unit, but the header says {unit}")
-    if analyte in ("acidity", "acidity_potential", "cec") and unit == "mg/kg":
+    if analyte in ("acidity", "acidity_potential", "cec") and unit in ELEMENT_MASS_UNITS:
         return HeaderInfo(
-            given, None, note=f"{analyte} in mg/kg is not defined; give it in cmol(+)/kg"
+            given, None, note=f"{analyte} in {unit} is not defined; give it in cmol(+)/kg"
         )
     return HeaderInfo(given, analyte, unit=unit, method=method, reading=reading)
 
@@ -680,6 +733,8 @@ def _lime_analyte(
     if tail_unit is not None:
         texts.append(tail_unit)
     said = [squashed[t] for t in texts if t in squashed]
+    # a property's unit that is also a cation unit ("g/kg") is the property's
+    units = [u for u in units if u not in PROPERTIES[analyte]]
     if units:
         return HeaderInfo(given, None, note=f"{analyte} in {units[0]} is not understood; give it "
                           f"in {' or '.join(PROPERTIES[analyte])}")

@@ -85,6 +85,7 @@ from .units import (
     CATION_UNITS,
     DEFAULT_SCOOP_DENSITY_G_CM3,
     LAB_UNITS,
+    ELEMENT_MASS_UNITS,
     VOLUMETRIC_UNITS,
     from_cmol_kg,
     mg_per_cmol,
@@ -298,9 +299,9 @@ class SampleSettings:
                     )
                 continue
             unit = _checked_unit(unit, key=f"units.{analyte}")
-            if unit == "mg/kg" and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
+            if unit in ELEMENT_MASS_UNITS and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
                 raise SettingsError(
-                    f"{analyte} has no mg/kg form; use cmol/kg, meq/100g or mmol/kg",
+                    f"{analyte} has no {unit} form; use cmol/kg, meq/100g or mmol/kg",
                     key=f"units.{analyte}",
                 )
         _checked_unit(self.default_unit, key="default_unit")
@@ -1197,9 +1198,9 @@ def _units(
             )
         else:
             unit = said or below or normalise_unit(settings.default_unit)
-        if unit == "mg/kg" and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
+        if unit in ELEMENT_MASS_UNITS and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
             raise InputError(
-                f"{analyte} has no mg/kg form (default_unit is {settings.default_unit})",
+                f"{analyte} has no {unit} form (default_unit is {settings.default_unit})",
                 file=name, row=header_row, column=header,
                 fix=f"state its unit: [samples.units] {analyte} = 'cmol/kg'",
             )

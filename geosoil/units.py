@@ -39,6 +39,7 @@ __all__ = [
     "CATION_UNITS",
     "VOLUMETRIC_UNITS",
     "LAB_UNITS",
+    "ELEMENT_MASS_UNITS",
     "DEFAULT_SCOOP_DENSITY_G_CM3",
     "is_volumetric",
     "MG_CACO3_PER_CMOL",
@@ -88,7 +89,10 @@ CHARGE: dict[str, tuple[str, int]] = {
 ANALYTES: tuple[str, ...] = ("ca", "mg", "k", "na", "al", "h", "acidity")
 
 #: Units accepted for exchangeable cations, as canonical spellings.
-CATION_UNITS: tuple[str, ...] = ("cmol/kg", "meq/100g", "mmol/kg", "mg/kg")
+CATION_UNITS: tuple[str, ...] = ("cmol/kg", "meq/100g", "mmol/kg", "mg/kg", "g/kg")
+
+#: Units of an element's mass per kg of soil (converted by the cation's equivalent weight).
+ELEMENT_MASS_UNITS: tuple[str, ...] = ("mg/kg", "g/kg")
 
 #: Charge per volume of soil, as labs that measure soil with a scoop report it
 #: (cmolc/dm3 and mmolc/dm3 in Brazil, meq/100 cm3 in North Carolina). Converted to
@@ -161,6 +165,9 @@ _UNIT_ALIASES: dict[str, str] = {
     "meq/100cc": "meq/100cm3",
     "meq/100ml": "meq/100cm3",
     "ppm": "mg/kg",
+    "g/kg": "g/kg",
+    "mg/g": "g/kg",
+    "‰": "g/kg",
     "µg/g": "mg/kg",
     "ug/g": "mg/kg",
 }
@@ -311,6 +318,8 @@ def to_cmol_kg(
     1.0
     >>> float(to_cmol_kg(25.0, "na", "mmol/kg")[()])
     2.5
+    >>> float(to_cmol_kg(2.0039, "ca", "g/kg")[()]).__round__(6)   # 2003.9 mg/kg
+    1.0
     >>> float(to_cmol_kg(36.0, "ca", "mmolc/dm3", density_g_cm3=1.2)[()])   # 3.6 cmolc/dm3
     3.0
     """
@@ -322,6 +331,8 @@ def to_cmol_kg(
         return v.copy()
     if u == "mmol/kg":
         return v / 10.0
+    if u == "g/kg":  # 1 g/kg = 1000 mg/kg of the element
+        return v * 1000.0 / mg_per_cmol(analyte)
     return v / mg_per_cmol(analyte)
 
 
@@ -359,6 +370,8 @@ def from_cmol_kg(
         return v.copy()
     if u == "mmol/kg":
         return v * 10.0
+    if u == "g/kg":
+        return v * mg_per_cmol(analyte) / 1000.0
     return v * mg_per_cmol(analyte)
 
 

@@ -370,3 +370,18 @@ def test_check_gives_the_warnings_run_gives_with_default_products(
     after = check(project)  # the run's surfaces are in the cache now
     assert after.exit_code == 0, after.stderr
     assert _warnings(after.stderr) == ran
+
+
+    assert any("still carries the pure-material defaults" in w for w in ran)
+    assert _warnings(r.stderr) == ran
+
+
+def test_check_lists_every_column_not_read(tmp_path: Path) -> None:
+    # user trial: columns with names geosoil did not know were dropped without a word
+    project = make_project(tmp_path / "p", header=HEADER + ",Kalzium frei",
+                           rows=[r + ",3.0" for r in _rows()])
+    r = check(project)
+    shown = [ln for ln in r.stderr.splitlines() if "not read" in ln]
+    assert len(shown) == 1 and shown[0].startswith("warning: ")
+    assert "'Kalzium frei' (name not recognised)" in shown[0]
+    assert "[samples.columns]" in shown[0] and "[samples.units]" in shown[0]

@@ -311,3 +311,58 @@ def test_ph_methods_and_sar_extracts_are_distinct_analytes():
     assert guess.analytes == {"ph": "pH (water)", "ph_cacl2": "pH (CaCl2)",
                               "ph_kcl": "pH (KCl)", "sar": "SARe", "sar_1to5": "SAR (1:5)"}
     assert guess.readings == {}
+
+
+@pytest.mark.parametrize(
+    "header, role, unit",
+    [
+        # German, Spanish, Portuguese and French lab words (terms of the trade)
+        ("Calcium austauschbar", "ca", None),
+        ("Kalium austauschbar (mmol(+)/kg)", "k", "mmol/kg"),
+        ("Natrium austauschbar", "na", None),
+        ("Ca intercambiable (cmol(+)/kg)", "ca", "cmol/kg"),
+        ("Potasio intercambiable", "k", None),
+        ("Sodio intercambiable", "na", None),
+        ("Cálcio trocável (cmolc/dm3)", "ca", "cmol/dm3"),
+        ("Potássio trocável", "k", None),
+        ("Magnésium échangeable (cmol(+)/kg)", "mg", "cmol/kg"),
+        ("Aluminio intercambiable", "al", None),
+        ("KAK eff", "cec", None),
+        ("CICE", "cec", None),
+        ("CTC efetiva", "cec", None),
+        ("KAK pot", "cec_ph7", None),
+        ("Acidez intercambiable", "acidity", None),
+        ("pH (agua)", "ph", None),
+        ("pH em água", "ph", None),
+        ("pH eau", "ph", None),
+        ("Probe", "id", None),
+        ("Muestra", "id", None),
+        ("Breitengrad", "lat", None),
+        ("Längengrad", "lon", None),
+        ("Latitud", "lat", None),
+        ("Longitud", "lon", None),
+        ("Rechtswert", "east", None),
+        ("Hochwert", "north", None),
+        # a cation in g/kg: element mass per kg, as mg/kg is
+        ("Ca (g/kg)", "ca", "g/kg"),
+        # g/kg stays a property's unit for organic carbon and clay
+        ("Organic carbon (g/kg)", "oc", "g/kg"),
+    ],
+)
+def test_other_languages_and_units(header, role, unit) -> None:
+    info = parse_header(header)
+    assert (info.role, info.unit) == (role, unit)
+
+
+@pytest.mark.parametrize("header", ["Ca (mmol/kg)", "Mg mmol/kg"])
+def test_mmol_of_a_divalent_cation_without_the_charge_mark_says_how_it_is_read(header) -> None:
+    # user trial: "Ca (mmol/kg)" was read as mmol(+)/kg without a word
+    info = parse_header(header)
+    assert info.unit == "mmol/kg" and "read as mmol of charge per kg" in info.reading
+    assert "two charges" in info.reading
+
+
+@pytest.mark.parametrize("header", ["Ca (mmolc/kg)", "Ca (mmol(+)/kg)", "K (mmol/kg)",
+                                    "Na mmol/kg"])
+def test_mmol_with_the_charge_mark_or_of_a_monovalent_cation_needs_no_note(header) -> None:
+    assert parse_header(header).reading is None

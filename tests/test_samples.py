@@ -835,7 +835,7 @@ def test_duplicate_distance_is_a_setting(tmp_path):
         ({"units": {"ca": "ppb"}}, "samples.units.ca"),
         ({"units": {"ph": "pH units"}}, "samples.units.ph"),
         ({"units": {"acidity": "mg/kg"}}, "samples.units.acidity"),
-        ({"default_unit": "g/kg"}, "samples.default_unit"),
+        ({"default_unit": "g/L"}, "samples.default_unit"),
         ({"on_bad_row": "skp"}, "samples.on_bad_row"),
         ({"duplicates": "merge"}, "samples.duplicates"),
         ({"duplicate_distance_m": -1.0}, "samples.duplicate_distance_m"),
@@ -1518,3 +1518,28 @@ def test_a_suspected_unit_can_be_kept_for_new(tmp_path):
     path = lab(tmp_path, header=_NO_UNIT_HEADER, rows=_NO_UNIT_ROWS)
     got = read_samples(SampleSettings(file=path), suspect_units="keep")
     assert "probably mmol/kg" in got.unit_problem and got.skipped == []
+
+
+def test_cations_in_g_kg_are_element_mass_per_kg(tmp_path):
+    # user trial: Ca/Mg/K/Na over a units row of g/kg were dropped without a word.
+    # 2.539 g/kg of Ca = 2539 mg/kg / 200.39 mg per cmol(+) (IUPAC atomic weight 40.078 / 2
+    # x 10) = 12.670 cmol(+)/kg; 0.097 g/kg of Na / 229.90 = 0.4219 (hand arithmetic)
+    path = write(tmp_path, "ID,Lon,Lat,Ca,Na,Organic carbon\n,deg,deg,g/kg,g/kg,g/kg\n"
+                           "S1,147.001,-35.001,2.539,0.097,8.9\n")
+    got = read(path)
+    assert got.samples["ca"].iloc[0] == pytest.approx(12.670, abs=5e-4)
+    assert got.samples["na"].iloc[0] == pytest.approx(0.4219, abs=5e-5)
+    assert got.samples["oc"].iloc[0] == pytest.approx(0.89)  # g/kg / 10 = %
+    assert got.units["ca"] == "g/kg" and got.unused == {}
+
+
+def test_columns_not_read_are_listed_with_why(tmp_path):
+    path = write(tmp_path, "ID,Lon,Lat,Ca (cmol(+)/kg),Ca %,Colwell K,Kalzium frei,Notes\n"
+                           "S1,147.001,-35.001,5.0,60,120,3,x\n")
+    got = read(path)
+    assert got.unused == {
+        "Ca %": "a percentage (saturation), not an amount",
+        "Colwell K": "another extract or measure, not the exchangeable amount",
+        "Kalzium frei": "name not recognised",
+        "Notes": "name not recognised",
+    }
