@@ -699,6 +699,31 @@ def _depth_notes(samples: Any) -> list[str]:
             "[soil] depth_m to the depth the amendment must treat"] if found else []
 
 
+def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -> list[str]:
+    """What ``new`` says of the units (stated, assumed, suspected) and the columns not read;
+    a suspected unit is also appended to ``to_do``."""
+    from .samples import unused_message
+
+    notes = []
+    stated = [f"{k} {v}" for k, v in read.units.items() if v and k not in read.assumed_units]
+    if stated:
+        notes.append("units: " + ", ".join(stated))
+    if read.assumed_units:
+        notes.append(
+            "no unit stated in the file for "
+            + ", ".join(f"'{read.columns[a]}'" for a in read.assumed_units)
+            + f": read as {trial.default_unit} ([samples] default_unit); state the lab's unit "
+            "in [samples.units] (e.g. " + f"{read.assumed_units[0]} = 'mmol/kg') if it is "
+            "another"
+        )
+    if read.unit_problem is not None:
+        notes.append(f"{read.unit_problem}; 'check' and 'run' stop until the unit is stated")
+        to_do.append(read.unit_problem)
+    if read.unused:
+        notes.append(unused_message(name, read.unused))
+    return notes
+
+
 def new_project(
     folder: Path | str,
     *,
@@ -831,24 +856,7 @@ def new_project(
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
     )
-    stated = [f"{k} {v}" for k, v in read.units.items() if v and k not in read.assumed_units]
-    if stated:
-        notes.append("units: " + ", ".join(stated))
-    if read.assumed_units:
-        notes.append(
-            "no unit stated in the file for "
-            + ", ".join(f"'{read.columns[a]}'" for a in read.assumed_units)
-            + f": read as {trial.default_unit} ([samples] default_unit); state the lab's unit "
-            "in [samples.units] (e.g. " + f"{read.assumed_units[0]} = 'mmol/kg') if it is "
-            "another"
-        )
-    if read.unit_problem is not None:
-        notes.append(f"{read.unit_problem}; 'check' and 'run' stop until the unit is stated")
-        to_do.append(read.unit_problem)
-    if read.unused:
-        from .samples import unused_message
-
-        notes.append(unused_message(samples.name, read.unused))
+    notes.extend(_unit_notes(read, trial, samples.name, to_do))
     notes.extend(read.readings.values())
     notes.extend(_depth_notes(read.samples))
     for why in read.undecided.values():

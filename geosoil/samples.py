@@ -84,8 +84,8 @@ from .settings import setting
 from .units import (
     CATION_UNITS,
     DEFAULT_SCOOP_DENSITY_G_CM3,
-    LAB_UNITS,
     ELEMENT_MASS_UNITS,
+    LAB_UNITS,
     VOLUMETRIC_UNITS,
     from_cmol_kg,
     mg_per_cmol,
@@ -154,6 +154,8 @@ PLAUSIBLE_MAX_SAR: float = 300.0
 HEADER_SEARCH_ROWS: int = 30
 
 _TABLE_SUFFIXES = (".csv", ".txt", ".tsv")
+#: Amounts given in charge only: no mg/kg or g/kg form.
+_NO_MASS_FORM = ("acidity", "acidity_potential", "cec", "cec_ph7")
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm")
 _VECTOR_SUFFIXES = (".geojson", ".json", ".gpkg", ".shp", ".zip")
 _EMPTY_WORDS = {"", "na", "n/a", "n.a.", "-", "--", "nan", "none", "null"}
@@ -299,7 +301,8 @@ class SampleSettings:
                     )
                 continue
             unit = _checked_unit(unit, key=f"units.{analyte}")
-            if unit in ELEMENT_MASS_UNITS and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
+            if unit in ELEMENT_MASS_UNITS and analyte in (
+                    "acidity", "acidity_potential", "cec", "cec_ph7"):
                 raise SettingsError(
                     f"{analyte} has no {unit} form; use cmol/kg, meq/100g or mmol/kg",
                     key=f"units.{analyte}",
@@ -1198,7 +1201,8 @@ def _units(
             )
         else:
             unit = said or below or normalise_unit(settings.default_unit)
-        if unit in ELEMENT_MASS_UNITS and analyte in ("acidity", "acidity_potential", "cec", "cec_ph7"):
+        if unit in ELEMENT_MASS_UNITS and analyte in (
+                "acidity", "acidity_potential", "cec", "cec_ph7"):
             raise InputError(
                 f"{analyte} has no {unit} form (default_unit is {settings.default_unit})",
                 file=name, row=header_row, column=header,
@@ -1364,13 +1368,28 @@ def _assumed_units(
 
 def _unit_suspicion(
     table: pd.DataFrame, columns: Mapping[str, str], assumed: Sequence[str],
-    settings: SampleSettings, decimal_comma: bool,
-) -> tuple[str, str, str] | None:
-    """(problem, fix, first header) when the columns whose unit nothing states hold, read
-    in ``default_unit``, a farm of implausible soils: the median ECEC of the samples (sum
-    of the cations; the CEC alone when only it is assumed) above
+    settings: SampleSettings, decimal_comma: bool, *, name: str, header_row: int | None,
+    stop: str,
+) -> str | None:
+    """Raise (``stop`` "stop") or return the problem when the columns whose unit nothing
+    states hold, read in ``default_unit``, a farm of implausible soils: the median ECEC of
+    the samples (sum of the cations; the CEC alone when only it is assumed) above
     :data:`TYPICAL_MAX_ECEC_CMOL`. The units that would bring it into the usual range are
     named, most likely first. None when the values fit the unit."""
+    found = _suspected_unit(table, columns, assumed, settings, decimal_comma)
+    if found is None:
+        return None
+    error = InputError(found[0], file=name, row=header_row, column=found[2], fix=found[1])
+    if stop == "stop":
+        raise error
+    return str(error)
+
+
+def _suspected_unit(
+    table: pd.DataFrame, columns: Mapping[str, str], assumed: Sequence[str],
+    settings: SampleSettings, decimal_comma: bool,
+) -> tuple[str, str, str] | None:
+    """(problem, fix, first header) for :func:`_unit_suspicion`, or None."""
     parts = [a for a in _ECEC_PARTS if a in assumed]
     if "acidity" in parts:
         parts = [a for a in parts if a not in ("al", "h")]
@@ -1458,6 +1477,8 @@ def _unused_columns(
 
 def unused_message(name: str, unused: Mapping[str, str]) -> str:
     """One line naming every column not read and why (``new`` and ``check`` print it)."""
+    if not unused:
+        return f"{name}: every column is read"
     shown = "; ".join(f"'{h}' ({why})" for h, why in unused.items())
     return (
         f"{name}: {len(unused)} column(s) not read, kept as the lab's own columns: {shown}. "
@@ -1714,17 +1735,12 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     _id_issues(ids, rows, id_header, depths, issues)
 
     assumed = _assumed_units(columns, settings, raw.unit_cells)
-    suspicion = _unit_suspicion(table, columns, assumed, settings, raw.decimal_comma)
-    unit_problem = None
-    if suspicion is not None:
-        problem, fix, column = suspicion
-        if suspect_units == "stop":
-            raise InputError(problem, file=name, row=raw.header_row, column=column, fix=fix)
-        unit_problem = f"{name}, column '{column}': {problem}. Fix: {fix}"
+    suspicion = _unit_suspicion(table, columns, assumed, settings, raw.decimal_comma,
+                                name=name, header_row=raw.header_row, stop=suspect_units)
     values = {
         a: _analyte_values(a, columns[a], units[a], table[columns[a]], rows, settings, name,
                            raw.decimal_comma, issues,
-                           plausible=suspicion is None or a not in assumed)
+                           plausible=not suspicion or a not in assumed)
         for a in CANONICAL if a in columns
     }
 
@@ -1795,12 +1811,11 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     )
     unused = _unused_columns(headers, used | {h for h in depth_headers if h}
                              | set(solution_headers.values()), described)
-    if unused:
-        logger.info("%s", unused_message(name, unused))
+    logger.info("%s", unused_message(name, unused))
     return SampleRead(
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
-        assumed_units=assumed, unit_problem=unit_problem, unused=unused,
+        assumed_units=assumed, unit_problem=suspicion, unused=unused,
     )
 
 

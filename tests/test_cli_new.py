@@ -433,7 +433,8 @@ def test_a_file_whose_unstated_unit_looks_wrong_is_written_and_checked_as_one_pr
     assert "probably mmol/kg" in r.stderr and "bad row" not in r.stderr
     project = tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())
     assert "units" not in project["samples"]  # no unit written that nobody stated
-    assert "To settle before 'geosoil check' passes" in (tmp_path / "p" / "geosoil.toml").read_text()
+    text = (tmp_path / "p" / "geosoil.toml").read_text()
+    assert "To settle before 'geosoil check' passes" in text
     c = invoke("check", tmp_path / "p")
     problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
     assert c.exit_code == 1 and len(problems) == 1
