@@ -318,7 +318,7 @@ def to_cmol_kg(
     1.0
     >>> float(to_cmol_kg(25.0, "na", "mmol/kg")[()])
     2.5
-    >>> float(to_cmol_kg(2.0039, "ca", "g/kg")[()]).__round__(6)   # 2003.9 mg/kg
+    >>> float(to_cmol_kg(0.20039, "ca", "g/kg")[()]).__round__(6)   # 200.39 mg/kg
     1.0
     >>> float(to_cmol_kg(36.0, "ca", "mmolc/dm3", density_g_cm3=1.2)[()])   # 3.6 cmolc/dm3
     3.0
