@@ -159,6 +159,11 @@ _NO_MASS_FORM = ("acidity", "acidity_potential", "cec", "cec_ph7")
 _EXCEL_SUFFIXES = (".xlsx", ".xlsm")
 _VECTOR_SUFFIXES = (".geojson", ".json", ".gpkg", ".shp", ".zip")
 _EMPTY_WORDS = {"", "na", "n/a", "n.a.", "-", "--", "nan", "none", "null"}
+#: Cells that say "below the detection limit" without a number (spaces taken out): not
+#: detected, below detection limit, below the limit of detection / reporting /
+#: quantification (common lab shorthand).
+_BELOW_WORDS = {"n.d.", "n.d", "nd", "bdl", "b.d.l.", "bld", "<lod", "<lor", "<dl", "<d.l.",
+                "<loq", "<ld", "notdetected", "belowdetection", "belowdetectionlimit"}
 #: The columns the depth of each sample is read into (cm below the surface).
 DEPTH_COLUMNS = ("depth_top_cm", "depth_bottom_cm")
 
@@ -785,6 +790,8 @@ def _cell(value: Any, *, decimal_comma: bool) -> tuple[float, str, str]:
     text = str(value).strip()
     if text.lower() in _EMPTY_WORDS:
         return math.nan, "empty", text
+    if text.lower().replace(" ", "") in _BELOW_WORDS:
+        return math.nan, "below", text  # below detection, no limit given
     number = text.replace(",", ".") if decimal_comma else text
     status = "ok"
     if number.startswith("<"):
@@ -1039,6 +1046,7 @@ def _read_solution(
             issues.append(_Issue(int(rows[i]), header,
                                  f"'{texts[i]}' is not a concentration",
                                  "correct the cell or set [samples] on_bad_row = 'skip'"))
+        numbers, _ = _below_limits(numbers, status)
         numbers = np.where(status == "below", numbers * below, numbers)
         numbers = np.where(numbers < 0, np.nan, numbers)
         out[SOLUTION_COLUMNS[ion]] = numbers * factor[unit][ion]
@@ -1251,6 +1259,11 @@ def _checked_numbers(
                 int(rows[i]), header, "the value is empty",
                 f"fill it in, add '{analyte}' to [samples] empty_allowed" + _SKIP_FIX,
             ))
+    if analyte in UNITLESS:  # a pH or SAR has no detection limit: 'n.d.' is not a number
+        for i in np.flatnonzero((status == "below") & np.isnan(numbers)):
+            issues.append(_Issue(int(rows[i]), header, f"'{texts[i]}' is not a number",
+                                 "correct the cell" + _SKIP_FIX))
+            status[i] = "bad"
     below = np.flatnonzero(status == "below")
     if below.size and settings.below_detection == "stop":
         for i in below:
@@ -1260,12 +1273,22 @@ def _checked_numbers(
             ))
     elif below.size:
         factor = {"half": 0.5, "limit": 1.0, "zero": 0.0}[settings.below_detection]
+        textless = np.flatnonzero((status == "below") & np.isnan(numbers))
+        numbers, limit = _below_limits(numbers, status)
         numbers[below] *= factor
+        said = ""
+        if textless.size:
+            shown = ", ".join(sorted({f"'{texts[i]}'" for i in textless}))
+            said = (f"; {textless.size} of them ({shown}) give no limit: " + (
+                f"the column's smallest stated limit, {limit:g}, is used for them"
+                if limit is not None else
+                "no limit is stated anywhere in the column, so they are taken as 0 (the "
+                "least they can be; state the lab's limit as '<0.1' to have it used)"))
         warnings.warn(
             f"{name}, column '{header}': {below.size} value(s) below the detection limit "
             f"(rows {_row_list(rows[below])}) taken as "
             + {"half": "half the limit", "limit": "the limit", "zero": "0"}[
-                settings.below_detection],
+                settings.below_detection] + said,
             DataWarning, stacklevel=5,
         )
     negative = np.flatnonzero(numbers < 0)
@@ -1274,6 +1297,19 @@ def _checked_numbers(
                              "correct the cell" + _SKIP_FIX))
     numbers[negative] = np.nan
     return numbers, texts
+
+
+def _below_limits(numbers: np.ndarray, status: np.ndarray) -> tuple[np.ndarray, float | None]:
+    """``numbers`` with each below-detection cell that gives no limit ('n.d.', '<LOD')
+    set to the smallest limit stated in the column ('<0.1'), or to 0 when none is; and
+    that limit (None when none is stated)."""
+    below = status == "below"
+    textless = below & np.isnan(numbers)
+    stated = numbers[below & ~textless]
+    limit = float(stated.min()) if stated.size else None
+    out = numbers.copy()
+    out[textless] = 0.0 if limit is None else limit
+    return out, limit
 
 
 def _property_values(

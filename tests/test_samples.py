@@ -208,7 +208,7 @@ def test_excel_rows_are_numbered_as_in_the_sheet(tmp_path):
     sheet.append([])
     sheet.append(["Sample", "Lon", "Lat", "Ca (cmol(+)/kg)", "Mg", "K", "Na"])  # row 3
     sheet.append(["S1", 147.001, -35.001, 5.5, 2, 0.5, 0.3])  # row 4
-    sheet.append([17, 147.002, -35.002, "n.d.", 2, 0.5, 0.3])  # row 5
+    sheet.append([17, 147.002, -35.002, "5.5*", 2, 0.5, 0.3])  # row 5
     book.save(path)
     err = error_of(path, sheet_or_layer="Results")
     assert_names(err, file=path, row=5, column="Ca (cmol(+)/kg)")
@@ -1543,3 +1543,33 @@ def test_columns_not_read_are_listed_with_why(tmp_path):
         "Kalzium frei": "name not recognised",
         "Notes": "name not recognised",
     }
+
+
+@pytest.mark.parametrize("word", ["n.d.", "ND", "nd", "<LOD", "<LOR", "bdl", "BDL", "< LOD"])
+def test_lab_words_for_below_detection_take_the_column_s_stated_limit(tmp_path, word):
+    # user trial: 'n.d.' and '<LOD' were "not a number". Like '<0.2' they are below the
+    # detection limit; they give no limit, so the smallest one the column states (0.2) is
+    # used, halved as '<0.2' is (common practice)
+    rows = [ROWS[0].replace(",0.1,5.9", ",<0.2,5.9"), ROWS[1].replace(",0.2,5.6", f",{word},5.6")]
+    with pytest.warns(DataWarning, match="smallest stated limit, 0.2") as caught:
+        got = read(lab(tmp_path, rows=rows))
+    assert got.samples.al.tolist() == pytest.approx([0.1, 0.1])
+    assert any(word in str(w.message) for w in caught)
+
+
+def test_below_detection_without_any_limit_is_zero_and_said(tmp_path):
+    rows = [ROWS[0], ROWS[1].replace(",0.2,5.6", ",n.d.,5.6")]
+    with pytest.warns(DataWarning, match="no limit is stated anywhere in the column, so they "
+                                        "are taken as 0"):
+        got = read(lab(tmp_path, rows=rows))
+    assert got.samples.al.iloc[1] == 0.0
+
+
+def test_below_detection_words_stop_when_asked_and_a_ph_has_no_detection_limit(tmp_path):
+    rows = [ROWS[0], ROWS[1].replace(",0.2,5.6", ",n.d.,5.6")]
+    err = error_of(lab(tmp_path, rows=rows), below_detection="stop")
+    assert_names(err, file=tmp_path / "lab.csv", row=3, column="Exch Al (meq/100g)")
+    rows = [ROWS[0], ROWS[1].replace(",0.2,5.6", ",0.2,n.d.")]
+    err = error_of(lab(tmp_path, rows=rows))
+    assert_names(err, file=tmp_path / "lab.csv", row=3, column="pH (water)")
+    assert "'n.d.' is not a number" in str(err)
