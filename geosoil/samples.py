@@ -112,6 +112,7 @@ __all__ = [
     "read_samples",
     "prepare_samples",
     "unused_message",
+    "parse_degrees",
 ]
 
 logger = logging.getLogger(__name__)
@@ -1576,16 +1577,78 @@ def _decide_crs(
     return crs
 
 
+_NUM = r"\d+(?:[.,]\d+)?"
+_DEGREES = re.compile(
+    rf"^(?P<h1>[NSEW])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM})\s*(?:°|º|˚)\s*"
+    rf"(?:(?P<m>{_NUM})\s*(?:'|′|’)\s*"
+    rf"(?:(?P<s>{_NUM})\s*(?:\"|″|”|''|’’)?\s*)?)?(?P<h2>[NSEW])?$",
+    re.IGNORECASE,
+)
+
+
+def parse_degrees(text: str) -> tuple[float, str | None] | None:
+    """Decimal degrees of a coordinate written in degrees, minutes and seconds, or None.
+
+    Degrees with a degree sign, then (optionally) minutes with ``'`` and seconds with
+    ``"``, any of them decimal; the hemisphere letter (N, S, E, W) before or after, or a
+    sign. S and W are negative. Returns the degrees and the hemisphere letter (None when
+    a sign or nothing was written). Minutes and seconds must be below 60, and only the
+    last part may have decimals.
+
+    Examples
+    --------
+    >>> parse_degrees("34°41.1760'S")
+    (-34.68626666666667, 'S')
+    >>> parse_degrees("147°27'12.5''E")
+    (147.45347222222222, 'E')
+    >>> parse_degrees("-34.5°"), parse_degrees("34°75'S")
+    ((-34.5, None), None)
+    """
+    m = _DEGREES.match(text.strip())
+    if m is None:
+        return None
+    if m["h1"] and m["h2"] or (m["h1"] or m["h2"]) and m["sign"]:
+        return None
+    hemisphere = (m["h1"] or m["h2"] or "").upper() or None
+    deg, minutes, seconds = (float(v.replace(",", ".")) if v else 0.0
+                             for v in (m["d"], m["m"], m["s"]))
+    if minutes >= 60 or seconds >= 60 or (m["s"] and not minutes.is_integer()) or (
+            m["m"] and not deg.is_integer()):
+        return None
+    value = deg + minutes / 60 + seconds / 3600
+    negative = hemisphere in ("S", "W") or m["sign"] in ("-", "\u2212")
+    return (-value if negative else value), hemisphere
+
+
 def _coordinate_cells(
     table: pd.DataFrame, column: str, rows: np.ndarray, decimal_comma: bool,
-    issues: list[_Issue],
+    issues: list[_Issue], *, axis: str = "x",
 ) -> np.ndarray:
-    """Coordinates of one table column; empty or non-numeric cells become issues (and NaN)."""
+    """Coordinates of one table column (decimal, or degrees, minutes and seconds as
+    :func:`parse_degrees` reads them); empty or non-numeric cells become issues (and NaN).
+    ``axis`` "x" (longitude: E or W) or "y" (latitude: N or S)."""
     values, status, texts = _cells(table[column], decimal_comma=decimal_comma)
-    for i in np.flatnonzero(status != "ok"):
+    for i in np.flatnonzero(status == "bad"):
+        found = parse_degrees(texts[i])
+        if found is None:
+            continue
+        value, hemisphere = found
+        wrong = {"x": ("N", "S"), "y": ("E", "W")}[axis]
+        if hemisphere in wrong:
+            what, where = ("latitude", "longitude") if axis == "x" else ("longitude", "latitude")
+            issues.append(_Issue(int(rows[i]), column, f"'{texts[i]}' is a {what} "
+                                 f"({hemisphere}) in the {where} column",
+                                 "swap the columns (set [samples] x_column and y_column) or "
+                                 "correct the cell"))
+            values[i], status[i] = np.nan, "done"
+            continue
+        values[i], status[i] = value, "ok"
+    for i in np.flatnonzero((status != "ok") & (status != "done")):
         what = "empty" if status[i] == "empty" else f"'{texts[i]}', not a number"
         issues.append(_Issue(int(rows[i]), column, f"the coordinate is {what}",
-                             "give the sample's location or set [samples] on_bad_row = 'skip'"))
+                             "give the sample's location in decimal degrees (-34.6863) or "
+                             "degrees, minutes and seconds (34°41'10.7\"S), or set [samples] "
+                             "on_bad_row = 'skip'"))
         values[i] = np.nan
     return values
 
@@ -1788,7 +1851,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         assert xy is not None
         xcol, ycol = xy
         x = _coordinate_cells(table, xcol, rows, raw.decimal_comma, issues)
-        y = _coordinate_cells(table, ycol, rows, raw.decimal_comma, issues)
+        y = _coordinate_cells(table, ycol, rows, raw.decimal_comma, issues, axis="y")
         location_column = f"{xcol}/{ycol}"
         crs = _decide_crs(settings, None, x, y, geographic, name, xcol, int(rows[0]))
     _range_issues(x, y, rows, crs, xcol, ycol, issues)

@@ -1573,3 +1573,47 @@ def test_below_detection_words_stop_when_asked_and_a_ph_has_no_detection_limit(t
     err = error_of(lab(tmp_path, rows=rows))
     assert_names(err, file=tmp_path / "lab.csv", row=3, column="pH (water)")
     assert "'n.d.' is not a number" in str(err)
+
+
+@pytest.mark.parametrize("text, expected", [
+    # hand arithmetic: degrees + minutes / 60 + seconds / 3600, south and west negative
+    ("34°41.1760'S", -(34 + 41.1760 / 60)),           # -34.6862667
+    ("147°27'12.5\"E", 147 + 27 / 60 + 12.5 / 3600),  # 147.4534722
+    ("S 34° 41' 10.56\"", -(34 + 41 / 60 + 10.56 / 3600)),
+    ("-34°41'", -(34 + 41 / 60)),
+    ("147.4523°", 147.4523),
+    ("34°41′10″S", -(34 + 41 / 60 + 10 / 3600)),
+])
+def test_degrees_minutes_seconds(text, expected):
+    from geosoil.samples import parse_degrees
+
+    assert parse_degrees(text)[0] == pytest.approx(expected, abs=1e-12)
+
+
+@pytest.mark.parametrize("text", ["34°75'S", "34°41'61\"S", "S34°E", "-34°41'S", "34 41 S",
+                                  "34.5°41'10\""])
+def test_degrees_that_are_not_a_coordinate(text):
+    from geosoil.samples import parse_degrees
+
+    assert parse_degrees(text) is None
+
+
+def test_coordinates_in_degrees_and_minutes_are_read(tmp_path):
+    # user trial: "34°41.1760'S" was "not a number"
+    path = write(tmp_path, "ID,Latitude,Longitude,Ca (cmol(+)/kg)\n"
+                           "S1,34°41.1760'S,147°27'12.5\"E,5.0\n"
+                           "S2,34°41.2000'S,147°27.3000'E,5.5\n")
+    got = read(path)
+    assert got.samples.geometry.y.tolist() == pytest.approx([-(34 + 41.1760 / 60),
+                                                             -(34 + 41.2 / 60)])
+    assert got.samples.geometry.x.tolist() == pytest.approx([147 + 27 / 60 + 12.5 / 3600,
+                                                             147 + 27.3 / 60])
+    assert got.crs.to_epsg() == 4326
+
+
+def test_a_latitude_letter_in_the_longitude_column_is_named(tmp_path):
+    path = write(tmp_path, "ID,Latitude,Longitude,Ca (cmol(+)/kg)\n"
+                           "S1,147°27'12.5\"E,34°41.1760'S,5.0\n")
+    err = error_of(path)
+    assert "is a latitude (S) in the longitude column" in str(err) or \
+        "is a longitude (E) in the latitude column" in str(err)
