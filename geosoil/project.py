@@ -699,6 +699,18 @@ def _depth_notes(samples: Any) -> list[str]:
             "[soil] depth_m to the depth the amendment must treat"] if found else []
 
 
+def _sheet_read(read: Any, trial: SampleSettings, notes: list[str]) -> str | None:
+    """The sheet a new project names: the one read, when the workbook has several (written
+    down, so that every run reads the same sheet), with a note."""
+    if len(read.sheets) <= 1:
+        return trial.sheet_or_layer
+    notes.append(f"sheet '{read.sheet}' of {len(read.sheets)} read (the first with a table of "
+                 "samples; the others: " + ", ".join(
+                     f"'{n}'" for n in read.sheets if n != read.sheet)
+                 + "); set [samples] sheet_or_layer to read another")
+    return str(read.sheet)
+
+
 def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -> list[str]:
     """What ``new`` says of the units (stated, assumed, suspected) and the columns not read;
     a suspected unit is also appended to ``to_do``."""
@@ -856,6 +868,7 @@ def new_project(
     notes.append(
         "columns: " + ", ".join(f"{k} <- '{v}'" for k, v in read.columns.items())
     )
+    sheet = _sheet_read(read, trial, notes)
     notes.extend(_unit_notes(read, trial, samples.name, to_do))
     notes.extend(read.readings.values())
     notes.extend(_depth_notes(read.samples))
@@ -865,6 +878,7 @@ def new_project(
         trial,
         on_bad_row="stop",  # the project stops at bad rows until the user says otherwise
         file=_relative(samples, folder),
+        sheet_or_layer=sheet,
         crs=crs if crs is not None else trial.crs,
         columns=dict(read.columns),
         units={k: v for k, v in read.units.items() if v and k not in read.assumed_units},

@@ -363,6 +363,8 @@ class SampleRead:
         Why the unit assumed for those columns looks wrong for the farm as a
         whole, and the setting that states it; only with ``suspect_units="keep"``
         (else it is raised).
+    sheet, sheets
+        The workbook sheet read and all the workbook's sheets (Excel only).
     unused
         Header -> why the column is not read (kept as the lab's own column),
         for every column that is not an analyte, ID, coordinate, depth or
@@ -384,6 +386,8 @@ class SampleRead:
     undecided: dict[str, str] = dataclasses.field(default_factory=dict)
     assumed_units: tuple[str, ...] = ()
     unit_problem: str | None = None
+    sheet: str | None = None
+    sheets: tuple[str, ...] = ()
     unused: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
@@ -417,6 +421,8 @@ class _Raw(NamedTuple):
     decimal_comma: bool
     unit_cells: dict[str, str] = {}
     units_row: int | None = None
+    sheet: str | None = None
+    sheets: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------- reading
@@ -712,26 +718,66 @@ def _read_excel(path: Path, name: str, settings: SampleSettings) -> _Raw:
             fix="open it in a spreadsheet program and save it as .xlsx or CSV UTF-8",
         ) from None
     with book:
-        if sheet is not None and sheet not in book.sheet_names:
+        names = [str(n) for n in book.sheet_names]
+        if sheet is not None and sheet not in names:
             raise InputError(
-                f"there is no sheet '{sheet}'; the sheets are {', '.join(book.sheet_names)}",
+                f"there is no sheet '{sheet}'; the sheets are {', '.join(names)}",
                 file=name, fix="set [samples] sheet_or_layer to one of them",
             )
-        try:
-            table = pd.read_excel(book, sheet_name=sheet if sheet is not None else 0,
-                                  header=None, dtype=object)
-        except Exception as exc:  # noqa: BLE001 - openpyxl and XML errors of a damaged sheet
-            raise InputError(
-                f"the sheet cannot be read ({type(exc).__name__}: {exc})", file=name,
-                fix="open it in a spreadsheet program and save it again as .xlsx or CSV UTF-8",
-            ) from None
+        if sheet is not None:
+            table = _excel_sheet(book, sheet, name)
+        else:
+            # the first sheet with a table of samples: a cover sheet ("Portada", "Cover")
+            # or notes before the results are passed over
+            for sheet in names:
+                table = _excel_sheet(book, sheet, name)
+                if _has_table(table, settings):
+                    break
+            else:
+                sheet, table = names[0], _excel_sheet(book, names[0], name)
+                if len(names) > 1:
+                    raise InputError(
+                        "no sheet of the workbook holds a table of samples (a header row "
+                        "naming analytes with rows under it); the sheets are "
+                        + ", ".join(f"'{n}'" for n in names), file=name,
+                        fix="set [samples] sheet_or_layer to the sheet of the results, and "
+                        "[samples.columns] to its analyte columns",
+                    )
+            if sheet != names[0]:
+                warnings.warn(
+                    f"{name}: read sheet '{sheet}', the first with a table of samples (the "
+                    f"workbook's sheets: {', '.join(repr(n) for n in names)}); set [samples] "
+                    "sheet_or_layer to read another", DataWarning, stacklevel=4,
+                )
     filled = table.notna().any(axis=1).to_numpy()
     if not filled.any():
         raise InputError("the sheet is empty", file=name, fix="set [samples] sheet_or_layer")
     first = _find_header(table, settings)
     body, positions, unit_cells, units_row = _body(table, first, file=name, excel=True)
     return _Raw(body, positions + 1, first + 1, None, None, False, unit_cells,
-                None if units_row is None else units_row + 1)
+                None if units_row is None else units_row + 1, sheet, tuple(names))
+
+
+def _excel_sheet(book: pd.ExcelFile, sheet: str, name: str) -> pd.DataFrame:
+    """One sheet's cells, no header taken."""
+    try:
+        return pd.read_excel(book, sheet_name=sheet, header=None, dtype=object)
+    except Exception as exc:  # noqa: BLE001 - openpyxl and XML errors of a damaged sheet
+        raise InputError(
+            f"sheet '{sheet}' cannot be read ({type(exc).__name__}: {exc})", file=name,
+            fix="open it in a spreadsheet program and save it again as .xlsx or CSV UTF-8",
+        ) from None
+
+
+def _has_table(table: pd.DataFrame, settings: SampleSettings) -> bool:
+    """True when a sheet has a header row naming an analyte with a row of values under it."""
+    if table.empty or not table.notna().any(axis=None):
+        return False
+    first = _find_header(table, settings)
+    texts = [t for t in (_header_text(c) for c in table.iloc[first].tolist()) if t]
+    named = {h for h in (*settings.columns.values(), settings.id_column) if h}
+    found = bool(detect_columns(texts).analytes) or bool(named & set(texts))
+    return found and bool(table.iloc[first + 1:].notna().any(axis=None))
 
 
 def _read_vector(path: Path, name: str, layer: str | None) -> _Raw:
@@ -1914,7 +1960,8 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     return SampleRead(
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
-        assumed_units=assumed, unit_problem=suspicion, unused=unused,
+        assumed_units=assumed, unit_problem=suspicion, unused=unused, sheet=raw.sheet,
+        sheets=raw.sheets,
     )
 
 

@@ -439,3 +439,20 @@ def test_a_file_whose_unstated_unit_looks_wrong_is_written_and_checked_as_one_pr
     problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
     assert c.exit_code == 1 and len(problems) == 1
     assert "unit looks wrong" in problems[0] and "skip" not in problems[0]
+
+
+def test_new_writes_down_the_sheet_it_read(inputs: dict[str, Path], tmp_path: Path) -> None:
+    # user trial: a workbook whose first sheet is a cover
+    table = pd.read_csv(inputs["lab_ll"])
+    path = tmp_path / "lab.xlsx"
+    with pd.ExcelWriter(path) as xl:
+        pd.DataFrame({"Laboratorio": ["informe"]}).to_excel(xl, sheet_name="Portada",
+                                                           index=False)
+        table.to_excel(xl, sheet_name="Resultados", index=False)
+    r = invoke("new", tmp_path / "p", "--samples", path, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    assert "sheet 'Resultados' of 2 read" in r.stderr and "'Portada'" in r.stderr
+    project = tomllib.loads((tmp_path / "p" / "geosoil.toml").read_text())
+    assert project["samples"]["sheet_or_layer"] == "Resultados"
+    c = invoke("check", tmp_path / "p")
+    assert c.exit_code == 0, c.stderr

@@ -1617,3 +1617,37 @@ def test_a_latitude_letter_in_the_longitude_column_is_named(tmp_path):
     err = error_of(path)
     assert "is a latitude (S) in the longitude column" in str(err) or \
         "is a longitude (E) in the latitude column" in str(err)
+
+
+def _workbook(path: Path, sheets: dict[str, list[list]]) -> Path:
+    book = openpyxl.Workbook()
+    book.remove(book.active)
+    for title, lines in sheets.items():
+        sheet = book.create_sheet(title)
+        for line in lines:
+            sheet.append(line)
+    book.save(path)
+    return path
+
+
+_RESULTS = [["Muestra", "Longitud", "Latitud", "Ca intercambiable (cmol(+)/kg)"],
+            ["M1", 147.001, -35.001, 5.0], ["M2", 147.002, -35.002, 6.0]]
+
+
+def test_a_cover_sheet_before_the_results_is_passed_over_and_named(tmp_path):
+    # user trial: a cover sheet ('Portada') first gave "the file has no data rows"
+    path = _workbook(tmp_path / "lab.xlsx", {
+        "Portada": [["Informe de análisis de suelos"], ["Cliente: invented farm"]],
+        "Resultados": _RESULTS})
+    with pytest.warns(DataWarning, match="read sheet 'Resultados'.*'Portada', 'Resultados'.*"
+                                         "sheet_or_layer"):
+        got = read(path)
+    assert got.samples["ca"].tolist() == [5.0, 6.0]
+    assert (got.sheet, got.sheets) == ("Resultados", ("Portada", "Resultados"))
+
+
+def test_a_workbook_without_any_table_names_its_sheets(tmp_path):
+    path = _workbook(tmp_path / "lab.xlsx", {"Portada": [["Informe"]], "Notas": [["nada"]]})
+    err = error_of(path)
+    assert "no sheet of the workbook holds a table" in str(err)
+    assert "'Portada', 'Notas'" in str(err) and "sheet_or_layer" in err.fix
