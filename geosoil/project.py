@@ -736,6 +736,32 @@ def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -
     return notes
 
 
+def _inside_notes(read: Any, pads: Any, name: str) -> list[str]:
+    """What ``new`` says when samples fall outside the boundaries (nothing when all are in)."""
+    notes: list[str] = []
+    if read.samples.crs is None or pads.crs is None or not len(read.samples):
+        return notes
+    pts = read.samples.geometry.to_crs(pads.crs)
+    inside_each = shapely.intersects_xy(
+        pads.geometry.union_all(), pts.x.to_numpy(), pts.y.to_numpy())
+    share = float(np.mean(inside_each))
+    if share < 0.5:
+        notes.append(
+            f"only {share:.0%} of the samples fall inside the boundaries with the CRS "
+            f"{read.samples.crs.name}: check the samples' CRS (--crs) and the boundaries file"
+        )
+    elif share < 1:
+        rows = read.samples["source_row"].to_numpy()[~inside_each]
+        shown = ", ".join(str(int(r)) for r in rows[:10]) + (
+            f" and {len(rows) - 10} more" if len(rows) > 10 else "")
+        notes.append(
+            f"{len(rows)} sample(s) lie outside every paddock ({name} row(s) "
+            f"{shown}): 'check' and 'run' stop at them; correct their coordinates, or set "
+            "[samples] on_bad_row = 'skip' to leave them out"
+        )
+    return notes
+
+
 def new_project(
     folder: Path | str,
     *,
@@ -782,7 +808,7 @@ def new_project(
     """
     from .boundaries import read_paddocks
     from .errors import CRSError, OutputExistsError
-    from .samples import read_samples
+    from .samples import SettingNeededError, read_columns, read_samples
 
     folder = Path(folder)
     target = folder / PROJECT_FILE_NAME
@@ -803,6 +829,13 @@ def new_project(
     try:
         read = read_samples(trial, undecided="keep", warn_skipped=False,
                             suspect_units="keep")
+    except SettingNeededError as exc:
+        # the ID or coordinate columns, or a unit, need a setting of the file being written:
+        # write it with what the header row says, and leave that setting to the user
+        read = read_columns(trial)
+        to_do.append(str(exc))
+        notes.append(f"{exc}; the project is written with that left for you: 'check' and "
+                     "'run' stop until it is set")
     except CRSError:
         if crs is not None or pads.crs is None:
             raise
@@ -838,25 +871,7 @@ def new_project(
             crs = read.crs.to_string()  # a table carries no CRS: write what was detected
         elif crs is None and read.crs is not None:
             notes.append(f"sample coordinates in the file's own CRS, {read.crs.name}")
-    if read.samples.crs is not None and pads.crs is not None and len(read.samples):
-        pts = read.samples.geometry.to_crs(pads.crs)
-        inside_each = shapely.intersects_xy(
-            pads.geometry.union_all(), pts.x.to_numpy(), pts.y.to_numpy())
-        share = float(np.mean(inside_each))
-        if share < 0.5:
-            notes.append(
-                f"only {share:.0%} of the samples fall inside the boundaries with the CRS "
-                f"{read.samples.crs.name}: check the samples' CRS (--crs) and the boundaries file"
-            )
-        elif share < 1:
-            rows = read.samples["source_row"].to_numpy()[~inside_each]
-            shown = ", ".join(str(int(r)) for r in rows[:10]) + (
-                f" and {len(rows) - 10} more" if len(rows) > 10 else "")
-            notes.append(
-                f"{len(rows)} sample(s) lie outside every paddock ({samples.name} row(s) "
-                f"{shown}): 'check' and 'run' stop at them; correct their coordinates, or set "
-                "[samples] on_bad_row = 'skip' to leave them out"
-            )
+    notes.extend(_inside_notes(read, pads, samples.name))
     if read.skipped:
         shown = "; ".join(f"row {r}: {why}" for r, why in read.skipped[:5]) + (
             f"; and {len(read.skipped) - 5} more" if len(read.skipped) > 5 else "")

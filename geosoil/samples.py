@@ -55,7 +55,7 @@ import warnings
 import zipfile
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, NamedTuple, NoReturn
+from typing import Any, NamedTuple, NoReturn, cast
 from xml.etree import ElementTree
 
 import geopandas as gpd
@@ -110,6 +110,8 @@ __all__ = [
     "TYPICAL_MIN_ECEC_CMOL",
     "HEADER_SEARCH_ROWS",
     "read_samples",
+    "read_columns",
+    "SettingNeededError",
     "prepare_samples",
     "unused_message",
     "parse_degrees",
@@ -389,6 +391,13 @@ class SampleRead:
     sheet: str | None = None
     sheets: tuple[str, ...] = ()
     unused: dict[str, str] = dataclasses.field(default_factory=dict)
+
+
+class SettingNeededError(InputError):
+    """A column of the samples file needs a ``[samples]`` setting before the rows can be
+    read: the sample ID or coordinate columns were not recognised, or most values of a
+    column do not fit its unit. ``geosoil new`` writes the project anyway, with the
+    setting left to the user (:func:`read_columns` gives what the header row says)."""
 
 
 class CRSInputError(InputError, CRSError):
@@ -1111,7 +1120,7 @@ def _nearest(header: str, headers: Sequence[str]) -> str:
 
 def _map_columns(
     headers: list[str], settings: SampleSettings, name: str, header_row: int | None,
-    *, need_xy: bool, described: Mapping[str, str] | None = None,
+    *, need_xy: bool, described: Mapping[str, str] | None = None, lenient: bool = False,
 ) -> tuple[dict[str, str], str, tuple[str, str] | None, bool | None, dict[str, str | None],
            dict[str, str], dict[str, str]]:
     """Analyte -> header, ID header, coordinate headers, lon/lat or not, methods,
@@ -1168,8 +1177,10 @@ def _map_columns(
             fix="name them in [samples.columns], e.g. ca = 'Exch Ca'. " + _nearest("", headers),
         )
     id_header = present(settings.id_column, "id_column") if settings.id_column else guess.id
+    if id_header is None and lenient:
+        id_header = ""
     if id_header is None:
-        raise InputError(
+        raise SettingNeededError(
             "no sample ID column was recognised", file=name, row=header_row,
             fix="set [samples] id_column to the header of the sample IDs. "
             + _nearest("", headers),
@@ -1179,17 +1190,18 @@ def _map_columns(
     if need_xy:
         x = present(settings.x_column, "x_column") if settings.x_column else guess.x
         y = present(settings.y_column, "y_column") if settings.y_column else guess.y
-        if x is None or y is None:
-            raise InputError(
+        if x is not None and y is not None:
+            roles = (info(x).role, info(y).role)
+            geographic = True if roles == ("lon", "lat") else (
+                False if roles == ("east", "north") else None)
+            xy = (x, y)
+        elif not lenient:
+            raise SettingNeededError(
                 "no coordinate columns were recognised (longitude/latitude, easting/northing "
                 "or X/Y)", file=name, row=header_row, column=x or y,
                 fix="set [samples] x_column and y_column (and crs when they are projected). "
                 + _nearest("", headers),
             )
-        roles = (info(x).role, info(y).role)
-        geographic = True if roles == ("lon", "lat") else (
-            False if roles == ("east", "north") else None)
-        xy = (x, y)
     _check_roles(columns, id_header, xy, name, header_row)
     chosen = set(columns.values()) - set(settings.columns.values())
     readings = {back.get(h, h): r for h, r in raw_guess.readings.items()
@@ -1421,7 +1433,8 @@ def _exchangeable_values(
         unit_fix = (f"check the unit: the lab's unit goes in [samples.units] {analyte} = "
                     f"'...' ({', '.join(LAB_UNITS)})")
         if too_big.size * 2 > np.isfinite(cmol).sum():
-            raise InputError(f"most values look wrong for the unit: {problem(int(too_big[0]))}",
+            raise SettingNeededError(
+                f"most values look wrong for the unit: {problem(int(too_big[0]))}",
                              file=name, row=int(rows[too_big[0]]), column=header, fix=unit_fix)
         for i in too_big:
             issues.append(_Issue(int(rows[i]), header, problem(int(i)),
@@ -1962,6 +1975,43 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
         assumed_units=assumed, unit_problem=suspicion, unused=unused, sheet=raw.sheet,
         sheets=raw.sheets,
+    )
+
+
+def read_columns(settings: SampleSettings) -> SampleRead:
+    """What the header row (and a units row) of the samples file say, without its rows.
+
+    For ``geosoil new`` when :func:`read_samples` raised :class:`SettingNeededError`:
+    the columns, units and methods detected, with no samples (``samples`` is empty, and
+    ``crs`` is the file's own or None), and the ID or coordinates missing where they were
+    not recognised.
+
+    Parameters
+    ----------
+    settings
+        Where the file is and how to read it.
+
+    Returns
+    -------
+    SampleRead
+    """
+    name = str(settings.file)
+    raw = _read_raw(settings, name)
+    headers = list(raw.table.columns)
+    described = {h: f"{h} ({raw.unit_cells[h]})" for h in headers
+                 if h in raw.unit_cells and parse_header(h).unit is None}
+    columns, _id, _xy, _geo, methods, readings, unsure = _map_columns(
+        headers, settings, name, raw.header_row, need_xy=raw.geometry is None,
+        described=described, lenient=True,
+    )
+    units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
+                   units_row=raw.units_row)
+    empty = gpd.GeoDataFrame({"sample_id": [], "source_row": []}, geometry=[], crs=raw.crs)
+    return SampleRead(
+        samples=empty, columns=columns, units=units, methods=methods, skipped=[],
+        crs=cast(pyproj.CRS, raw.crs), file=Path(settings.file), readings=readings,
+        undecided=unsure, assumed_units=_assumed_units(columns, settings, raw.unit_cells),
+        sheet=raw.sheet, sheets=raw.sheets,
     )
 
 

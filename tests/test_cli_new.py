@@ -456,3 +456,39 @@ def test_new_writes_down_the_sheet_it_read(inputs: dict[str, Path], tmp_path: Pa
     assert project["samples"]["sheet_or_layer"] == "Resultados"
     c = invoke("check", tmp_path / "p")
     assert c.exit_code == 0, c.stderr
+
+
+@pytest.mark.parametrize("header, key", [
+    ("Kennung,Longitude,Latitude", "id_column"),  # an ID header geosoil does not know
+    ("Sample ID,Ost,Nord", "x_column"),           # coordinate headers it does not know
+])
+def test_new_writes_the_project_when_the_id_or_coordinates_need_a_setting(
+    inputs: dict[str, Path], tmp_path: Path, header: str, key: str
+) -> None:
+    # user trial: 'new' wrote nothing, yet its fix pointed at settings in the file it did
+    # not write
+    head = inputs["lab_ll"].read_text().splitlines()[0].split(",", 3)[3]
+    lab = _lab_from(inputs, tmp_path, f"{header},{head}", lambda f: f)
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    assert f"set [samples] {key}" in r.stderr and "the project is written" in r.stderr
+    text = (tmp_path / "p" / "geosoil.toml").read_text()
+    assert f"# {key} = ..." in text and "To settle before 'geosoil check' passes" in text
+    project = tomllib.loads(text)
+    assert project["samples"]["columns"]["ca"] == "Exch Ca (meq/100g)"
+    c = invoke("check", tmp_path / "p")
+    problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
+    assert c.exit_code == 1 and len(problems) == 1 and f"[samples] {key}" in problems[0]
+
+
+def test_new_recognises_german_and_spanish_id_and_coordinates(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    head = inputs["lab_ll"].read_text().splitlines()[0].split(",", 3)[3]
+    for n, header in enumerate(("Probe,Längengrad,Breitengrad", "Muestra,Longitud,Latitud")):
+        lab = _lab_from(inputs, tmp_path, f"{header},{head}", lambda f: f, name=f"lab{n}.csv")
+        r = invoke("new", tmp_path / f"p{n}", "--samples", lab,
+                   "--paddocks", inputs["paddocks_ll"])
+        assert r.exit_code == 0 and "To settle" not in (
+            tmp_path / f"p{n}" / "geosoil.toml").read_text()
+        assert invoke("check", tmp_path / f"p{n}").exit_code == 0
