@@ -714,8 +714,6 @@ def _sheet_read(read: Any, trial: SampleSettings, notes: list[str]) -> str | Non
 def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -> list[str]:
     """What ``new`` says of the units (stated, assumed, suspected) and the columns not read;
     a suspected unit is also appended to ``to_do``."""
-    from .samples import unused_message
-
     notes = []
     stated = [f"{k} {v}" for k, v in read.units.items() if v and k not in read.assumed_units]
     if stated:
@@ -731,9 +729,7 @@ def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -
     if read.unit_problem is not None:
         notes.append(f"{read.unit_problem}; 'check' and 'run' stop until the unit is stated")
         to_do.append(read.unit_problem)
-    if read.unused:
-        notes.append(unused_message(name, read.unused))
-    return notes
+    return notes  # the columns not read are a warning of the reading, printed once
 
 
 def _inside_notes(read: Any, pads: Any, name: str) -> list[str]:

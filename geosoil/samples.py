@@ -1548,9 +1548,20 @@ def _suspected_unit(
 
 
 def _unused_columns(
+    headers: Sequence[str], used: set[str], described: Mapping[str, str], *, name: str,
+) -> dict[str, str]:
+    """Header -> why it is not read, for each column not used (kept as the lab's own); one
+    warning names them all, so that check, run, run.json and the report all say it."""
+    out = _why_unused(headers, used, described)
+    if out:
+        warnings.warn(unused_message(name, out), DataWarning, stacklevel=4)
+    return out
+
+
+def _why_unused(
     headers: Sequence[str], used: set[str], described: Mapping[str, str],
 ) -> dict[str, str]:
-    """Header -> why it is not read, for each column not used (kept as the lab's own)."""
+    """Header -> why it is not read, for each column not used."""
     out: dict[str, str] = {}
     for header in headers:
         if header in used:
@@ -1968,8 +1979,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         describe_crs(crs),
     )
     unused = _unused_columns(headers, used | {h for h in depth_headers if h}
-                             | set(solution_headers.values()), described)
-    logger.info("%s", unused_message(name, unused))
+                             | set(solution_headers.values()), described, name=name)
     return SampleRead(
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
