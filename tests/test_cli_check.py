@@ -372,10 +372,6 @@ def test_check_gives_the_warnings_run_gives_with_default_products(
     assert _warnings(after.stderr) == ran
 
 
-    assert any("still carries the pure-material defaults" in w for w in ran)
-    assert _warnings(r.stderr) == ran
-
-
 def test_check_lists_every_column_not_read(tmp_path: Path) -> None:
     # user trial: columns with names geosoil did not know were dropped without a word
     project = make_project(tmp_path / "p", header=HEADER + ",Kalzium frei",
