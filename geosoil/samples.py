@@ -841,7 +841,10 @@ def _cell(value: Any, *, decimal_comma: bool) -> tuple[float, str, str]:
     if isinstance(value, (bool, np.bool_, np.datetime64)) or hasattr(value, "isoformat"):
         return math.nan, "bad", str(value)  # a tick box or a date, not an amount
     if isinstance(value, (int, float, np.integer, np.floating)):
-        v = float(value)
+        try:
+            v = float(value)
+        except OverflowError:  # a whole number beyond any float (a workbook's cell)
+            return math.nan, "bad", str(value)
         return (v, "ok", str(value)) if math.isfinite(v) else (math.nan, "bad", str(value))
     text = str(value).strip()
     if text.lower() in _EMPTY_WORDS:

@@ -34,7 +34,7 @@ TEXTS = ["1.5", " 2.25 ", "+.5", "-0", "1.", "1e3", "1E-2", "1_0", "\u0663", "\u
          "1e999", "<0.1", "< 0.2", "<", "abc", "1,5", "1.234,5", "0x10", "5 %", "12-3"]
 OBJECTS = [1.5, 2, 0, -3, float("nan"), float("inf"), None, True, np.bool_(False),
            np.float64(2.5), np.int64(7), datetime.date(2026, 3, 1), pd.Timestamp("2026-03-01"),
-           [1, 2], {"a": 1}, "3.5", " 4 ", ""]
+           [1, 2], {"a": 1}, "3.5", " 4 ", "", 10**400]  # (a whole number beyond any float)
 
 
 def _one_by_one(values, decimal_comma):
@@ -52,6 +52,13 @@ def test_whole_column_parsing_equals_the_cell_by_cell_rule(values, decimal_comma
     np.testing.assert_array_equal(numbers, want_numbers)  # NaN equal to NaN
     assert list(status) == want_status
     assert texts == want_texts
+
+
+def test_a_whole_number_beyond_any_float_is_a_bad_cell_not_a_crash():
+    assert _cell(10**400, decimal_comma=False)[:2] == (pytest.approx(math.nan, nan_ok=True),
+                                                       "bad")
+    numbers, status, _ = _cells(pd.Series([1, 10**400], dtype=object), decimal_comma=False)
+    assert numbers[0] == 1.0 and math.isnan(numbers[1]) and list(status) == ["ok", "bad"]
 
 
 def test_filled_cells_equal_the_cell_by_cell_rule():
