@@ -911,8 +911,8 @@ class _LabelPlacer:
         anchor = label_point(geom_px)
         out = [(anchor.x, anchor.y)]
         x0, y0, x1, y1 = geom_px.bounds
-        xs, ys = np.meshgrid(np.arange(x0 + 2, x1, 4.0), np.arange(y0 + 2, y1, 4.0))
-        xs, ys = xs.ravel(), ys.ravel()
+        grid_x, grid_y = np.meshgrid(np.arange(x0 + 2, x1, 4.0), np.arange(y0 + 2, y1, 4.0))
+        xs, ys = grid_x.ravel(), grid_y.ravel()
         inside = shapely.contains_xy(geom_px, xs, ys)
         xs, ys = xs[inside], ys[inside]
         order = np.argsort(np.hypot(xs - anchor.x, ys - anchor.y), kind="stable")[:600]
