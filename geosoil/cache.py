@@ -382,6 +382,20 @@ def discard(folder: Path, key: str) -> None:
         p.unlink(missing_ok=True)
 
 
+def _keep_newest(folder: Path, kind: str, keep: int, *, also: str | None = None) -> None:
+    """Keep the ``keep`` most recently used ``<kind>-*.json`` entries (and each one's
+    ``also`` file); delete the rest, and temporary files of ``kind`` left by killed runs."""
+    entries = sorted(folder.glob(f"{kind}-*.json"), key=lambda p: p.stat().st_mtime,
+                     reverse=True)
+    for old in entries[keep:]:
+        old.unlink(missing_ok=True)
+        if also is not None:
+            old.with_suffix(also).unlink(missing_ok=True)
+    for tmp in folder.glob(f".{kind}-*.part*"):  # geosoil.writers.atomic_write's
+        if time.time() - tmp.stat().st_mtime > _STALE_TEMP_S:
+            tmp.unlink(missing_ok=True)
+
+
 def prune(folder: Path, *, keep: int) -> None:
     """Keep the ``keep`` most recently used entries; delete the rest, older
     versions' pickle files and temporary files of killed runs.
@@ -393,20 +407,13 @@ def prune(folder: Path, *, keep: int) -> None:
     keep : int
         How many entries to keep.
     """
-    entries = sorted(folder.glob("surfaces-*.json"), key=lambda p: p.stat().st_mtime,
-                     reverse=True)
-    for old in entries[keep:]:
-        old.unlink(missing_ok=True)
-        old.with_suffix(".npz").unlink(missing_ok=True)
+    _keep_newest(folder, "surfaces", keep, also=".npz")
     for legacy in folder.glob("surfaces-*.pickle"):  # never opened: a pickle can run code
         legacy.unlink(missing_ok=True)
     live = {p.with_suffix("") for p in folder.glob("surfaces-*.json")}
     for npz in folder.glob("surfaces-*.npz"):
         if npz.with_suffix("") not in live and time.time() - npz.stat().st_mtime > _STALE_TEMP_S:
             npz.unlink(missing_ok=True)
-    for tmp in folder.glob(".surfaces-*.part*"):  # geosoil.writers.atomic_write's
-        if time.time() - tmp.stat().st_mtime > _STALE_TEMP_S:
-            tmp.unlink(missing_ok=True)
 
 
 # --------------------------------------------------------------------------- zones
@@ -594,10 +601,4 @@ def prune_zones(folder: Path, *, keep: int) -> None:
     keep : int
         How many entries to keep.
     """
-    entries = sorted(folder.glob("zones-*.json"), key=lambda p: p.stat().st_mtime,
-                     reverse=True)
-    for old in entries[keep:]:
-        old.unlink(missing_ok=True)
-    for tmp in folder.glob(".zones-*.part*"):
-        if time.time() - tmp.stat().st_mtime > _STALE_TEMP_S:
-            tmp.unlink(missing_ok=True)
+    _keep_newest(folder, "zones", keep)

@@ -626,6 +626,25 @@ def classes_png(values: np.ndarray, classes: Classes) -> bytes:
     return bytes(data)
 
 
+def point_xy(geoms: np.ndarray) -> np.ndarray:
+    """(n, 2) coordinates where the map and the report draw each geometry's dot: a point
+    as it is, anything else at a point on its surface.
+
+    Examples
+    --------
+    >>> import shapely
+    >>> point_xy(np.array([shapely.Point(1, 2), shapely.box(0, 0, 2, 2)])).tolist()
+    [[1.0, 2.0], [1.0, 1.0]]
+    """
+    import shapely
+
+    not_point = np.flatnonzero(shapely.get_type_id(geoms) != 0)
+    if not_point.size:
+        geoms = geoms.copy()
+        geoms[not_point] = shapely.point_on_surface(geoms[not_point])
+    return shapely.get_coordinates(geoms)
+
+
 def classes_data_uri(values: np.ndarray, classes: Classes) -> str:
     """``data:image/png;base64,...`` of :func:`classes_png`."""
     return "data:image/png;base64," + base64.b64encode(classes_png(values, classes)).decode(

@@ -50,6 +50,7 @@ from .presentation import (
     classes_data_uri,
     escape_text,
     label_point,
+    point_xy,
     rate_colour,
 )
 from .units import RATE_UNITS, format_rate
@@ -1087,12 +1088,7 @@ def surface_map_svg(
     points = []
     if samples is not None and len(samples):
         drawn = samples.iloc[sample_dots(samples, max_samples)]
-        geoms = drawn.geometry.to_numpy()
-        not_point = np.flatnonzero(shapely.get_type_id(geoms) != 0)
-        if not_point.size:
-            geoms = geoms.copy()
-            geoms[not_point] = shapely.point_on_surface(geoms[not_point])
-        xy = shapely.get_coordinates(geoms)
+        xy = point_xy(drawn.geometry.to_numpy())
         ids = ([str(v) for v in drawn["sample_id"].tolist()] if "sample_id" in drawn.columns
                else [""] * len(drawn))
         points = [{"x": frame.fx(x), "y": frame.fy(y), "id": sid}

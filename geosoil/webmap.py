@@ -63,6 +63,7 @@ from .presentation import (
     fmt_value,
     json_for_script,
     label_point,
+    point_xy,
     rate_classes,
     rate_colour,
 )
@@ -478,12 +479,7 @@ def _samples_json(pts: Any, fields: Sequence[SampleField], *, most: int = MAP_MA
     if pts is None or not len(pts):
         return out
     pts = pts.iloc[_map_subset(pts, most)]
-    geoms = pts.geometry.to_numpy()
-    not_point = np.flatnonzero(shapely.get_type_id(geoms) != 0)
-    if not_point.size:
-        geoms = geoms.copy()
-        geoms[not_point] = shapely.point_on_surface(geoms[not_point])
-    xy = shapely.get_coordinates(geoms)
+    xy = point_xy(pts.geometry.to_numpy())
     lon_e6 = np.round(xy[:, 0] * 1e6).astype(np.int64)
     lat_e6 = np.round(xy[:, 1] * 1e6).astype(np.int64)
     out["lon0"], out["lat0"] = int(lon_e6[0]), int(lat_e6[0])
