@@ -391,6 +391,22 @@ def regular_design(cells: ArrayLike, *, n_points: int, area_m2: float) -> NDArra
 
 
 
+def _room(grid: PaddockGrid, xd: Array, xc: Array, *, n_points: int, min_distance_m: float | None,
+          avoid: ArrayLike | None, boundary: shapely.Geometry | None, edge_setback_m: float,
+          ) -> tuple[float, Array, NDArray[np.bool_], float]:
+    """The least distance between points (the default from the paddock's area when not
+    given), the points new ones keep off (samples and ``avoid``), the candidate cells
+    allowed and the edge setback used: the rules every plan of a paddock shares."""
+    area = grid.n_cells * grid.cell_area_ha * 10_000.0
+    if min_distance_m is None:
+        min_distance_m = default_min_distance(area, len(xd) + int(n_points))
+    keep_off: Array = (xd if avoid is None
+                       else np.vstack([xd, as_points(avoid, "sample")]).astype(np.float64))
+    allowed, setback = _allowed(grid.name, xc, keep_off, min_distance_m, boundary,
+                                edge_setback_m)
+    return min_distance_m, keep_off, allowed, setback
+
+
 def _allowed(name: str, xc: Array, keep_off: Array, min_distance_m: float,
              boundary: shapely.Geometry | None, edge_setback_m: float) -> tuple[
                  NDArray[np.bool_], float]:
@@ -436,12 +452,9 @@ def space_filling_paddock(
     """
     xd = as_points(samples, "sample") if len(np.asarray(samples)) else np.empty((0, 2))
     xc, _ = candidate_cells(grid, max_cells=max_cells)
-    area = grid.n_cells * grid.cell_area_ha * 10_000.0
-    if min_distance_m is None:
-        min_distance_m = default_min_distance(area, len(xd) + int(n_points))
-    keep_off = xd if avoid is None else np.vstack([xd, as_points(avoid, "sample")])
-    allowed, setback = _allowed(grid.name, xc, keep_off, min_distance_m, boundary,
-                                edge_setback_m)
+    min_distance_m, keep_off, allowed, setback = _room(
+        grid, xd, xc, n_points=n_points, min_distance_m=min_distance_m, avoid=avoid,
+        boundary=boundary, edge_setback_m=edge_setback_m)
     if len(keep_off):
         far = cKDTree(keep_off).query(xc)[0]
     else:
@@ -536,12 +549,9 @@ def plan_paddock(
         else:
             warnings.warn(f"{grid.name}: no rate is prescribed in this paddock, so the sampling "
                           "plan weights every cell alike", DataWarning, stacklevel=2)
-    area = grid.n_cells * grid.cell_area_ha * 10_000.0
-    if min_distance_m is None:
-        min_distance_m = default_min_distance(area, len(xd) + int(n_points))
-    keep_off = xd if avoid is None else np.vstack([xd, as_points(avoid, "sample")])
-    allowed, setback = _allowed(grid.name, xc, keep_off, min_distance_m, boundary,
-                                edge_setback_m)
+    min_distance_m, keep_off, allowed, setback = _room(
+        grid, xd, xc, n_points=n_points, min_distance_m=min_distance_m, avoid=avoid,
+        boundary=boundary, edge_setback_m=edge_setback_m)
     chosen, _ = greedy_design(xd, xc, model, n_points=n_points, weights=w_all[index],
                               min_distance_m=min_distance_m, allowed=allowed)
     if len(chosen) < n_points:
