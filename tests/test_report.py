@@ -13,6 +13,7 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
+import shapely
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapely.geometry import Point, box
@@ -833,3 +834,23 @@ def test_browser_zone_labels_real_boxes_fit_the_rule(browser, tmp_path) -> None:
         for b in labels[i + 1:]:
             assert not (a["x"] < b["x"] + b["w"] and b["x"] < a["x"] + a["w"]
                         and a["y"] < b["y"] + b["h"] and b["y"] < a["y"] + a["h"]), (a, b)
+
+
+def test_share_inside_equals_shapely_intersection():
+    """The label placement's share of a box inside a zone, from rectangle clipping, equals
+    the share from shapely's general intersection (the reference library) on an irregular
+    zone with a hole and on boxes partly, wholly and not at all inside it."""
+    rng = np.random.default_rng(7)
+    angles = np.sort(rng.uniform(0, 2 * np.pi, 40))
+    radii = rng.uniform(40, 100, 40)
+    outer = shapely.Polygon(np.column_stack([200 + radii * np.cos(angles),
+                                             150 + radii * np.sin(angles)]))
+    zone = outer.difference(shapely.Point(200, 150).buffer(15)).buffer(1.0)
+    xs = rng.uniform(80, 320, 200)
+    ys = rng.uniform(30, 270, 200)
+    half_w, half_h = 23.0, 8.0
+    got = report._share_inside(zone, xs, ys, half_w, half_h)
+    boxes = shapely.box(xs - half_w, ys - half_h, xs + half_w, ys + half_h)
+    want = shapely.area(shapely.intersection(boxes, zone)) / (4 * half_w * half_h)
+    assert ((want > 0) & (want < 1)).sum() > 20  # many boxes on the zone's edge
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)
