@@ -37,8 +37,11 @@ def check(ctx: click.Context, project: Path) -> None:
                 "the input files are checked once the settings are valid"
             )
         sys.exit(1)
-    found, warnings = check_project(proj)
+    notes: list[str] = []
+    found, warnings = check_project(proj, notes=notes)
     if not ctx.obj["quiet"]:
+        for n in notes:
+            echo_err(f"note: {n}")
         for w in warnings:
             echo_err(f"warning: {w}")
     for problem in found:

@@ -65,6 +65,7 @@ __all__ = [
     "parse_header",
     "detect_columns",
     "extract_water_of_header",
+    "is_bookkeeping",
 ]
 
 #: Buffer-pH analytes, one per buffer (a buffer pH means nothing without its buffer).
@@ -841,3 +842,46 @@ def detect_columns(headers: Sequence[str]) -> ColumnGuess:
         readings=readings,
         undecided=undecided,
     )
+
+
+#: Words of headers that keep the lab's, the sampler's or the farm's records rather than a
+#: measurement: comments, dates, lab and job numbers, names of the farm, paddock and crop
+#: (English, German, Spanish, Portuguese, French; folded and lower case; our own list).
+_BOOKKEEPING_WORDS = frozenset("""
+    comment comments note notes remark remarks observation observations description descr
+    date dated time year season sampled sampling collected received reported analysed
+    analyzed tested lab laboratory no nr number num ref reference job batch order invoice
+    client customer grower owner farm property paddock field block site location place
+    sampler collector crop report certificate cert status type name code id sample
+    bemerkung bemerkungen kommentar anmerkung anmerkungen datum probenahme labor
+    labornummer auftrag kunde betrieb schlag feld ort beschreibung kultur probe
+    comentario comentarios observacion observaciones nota fecha muestreo laboratorio
+    numero cliente finca lote campo sitio descripcion cultivo muestra
+    observacao observacoes data amostragem fazenda talhao local descricao cultura amostra
+    commentaire commentaires remarque remarques prelevement laboratoire exploitation
+    parcelle champ lieu echantillon
+""".split())
+#: Words that join the others ("date of sampling", "numero de laboratorio").
+_JOINING_WORDS = frozenset("of the by at on in de del la le du da do der des".split())
+
+
+def is_bookkeeping(header: str) -> bool:
+    """Whether a header names a record-keeping column (a comment, a date, a lab or job
+    number, the farm or crop), not an analyte: every word is one of the record-keeping
+    words (or joins them, or is a number) and no unit is written. A header naming an
+    element or a measure ("Zn", "B (mg/kg)", "Olsen P") is not.
+
+    Examples
+    --------
+    >>> [is_bookkeeping(h) for h in ("Comments", "Date sampled", "Lab no.", "Fecha de muestreo")]
+    [True, True, True, True]
+    >>> [is_bookkeeping(h) for h in ("Zn", "B (mg/kg)", "Olsen P", "Notes (mg/kg)", "")]
+    [False, False, False, False, False]
+    """
+    text = _fold(str(header)).lower()
+    if parse_header(header).unit is not None or "/" in text or "%" in text:
+        return False
+    words = re.findall(r"[a-z0-9]+", text)
+    named = [w for w in words if w in _BOOKKEEPING_WORDS]
+    return bool(named) and all(
+        w in _BOOKKEEPING_WORDS or w in _JOINING_WORDS or w.isdigit() for w in words)

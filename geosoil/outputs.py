@@ -880,6 +880,8 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
             "n_used": int(len(prep.all_samples)),
             "columns": dict(prep.read.columns),
             "units": dict(prep.read.units),
+            # every column not read and why (the warnings name those that may be analytes)
+            "columns_not_read": dict(prep.read.unused),
             "skipped_rows": [{"row": r, "reason": why} for r, why in prep.read.skipped],
         },
         "paddocks": [

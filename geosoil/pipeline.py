@@ -70,7 +70,14 @@ from .record import source_digest
 from .recording import record_warnings
 from .salinity import derive_cells as salinity_cells
 from .salinity import derive_samples as derive_salinity
-from .samples import DEPTH_COLUMNS, SampleRead, prepare_samples, read_samples
+from .samples import (
+    DEPTH_COLUMNS,
+    SampleRead,
+    prepare_samples,
+    read_samples,
+    record_keeping,
+    record_keeping_message,
+)
 from .settings import to_mapping
 from .spreader import unsplit_pass_warning
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
@@ -1199,7 +1206,7 @@ def _surfaces_cached(prep: Prepared) -> bool:
         return False
 
 
-def check(project: Project) -> tuple[list[str], list[str]]:
+def check(project: Project, *, notes: list[str] | None = None) -> tuple[list[str], list[str]]:
     """Validate inputs and settings without writing any output.
 
     When nothing is wrong and a run has made the surfaces (they are in the cache), the
@@ -1213,6 +1220,10 @@ def check(project: Project) -> tuple[list[str], list[str]]:
     ----------
     project : Project
         The loaded project.
+
+    notes : list of str, optional
+        Filled with what check says that is neither a problem nor a warning (the
+        record-keeping columns of the samples file that are not read).
 
     Returns
     -------
@@ -1238,6 +1249,8 @@ def check(project: Project) -> tuple[list[str], list[str]]:
     try:
         with record_warnings(raised):
             prep = prepare(trial, undecided="keep", listing=True)
+        if notes is not None and record_keeping(prep.read.unused):
+            notes.append(record_keeping_message(str(prep.read.file), prep.read.unused))
         for header, why in prep.read.undecided.items():
             problems.append(f"{prep.read.file}, column '{header}': {why}")
         problems.extend(prep.problems)

@@ -32,7 +32,7 @@ from .errors import GeosoilError, InputError, SettingsError
 from .products import ProductSettings
 from .rates import RateSettings
 from .salinity import SalinitySettings
-from .samples import SampleSettings
+from .samples import SampleSettings, record_keeping, record_keeping_message
 from .settings import describe, from_mapping, setting, to_mapping
 from .spreader import COMMON_MAX_PER_PASS_KG_HA, SpreaderSettings
 from .surfaces import InterpolationSettings
@@ -729,7 +729,9 @@ def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -
     if read.unit_problem is not None:
         notes.append(f"{read.unit_problem}; 'check' and 'run' stop until the unit is stated")
         to_do.append(read.unit_problem)
-    return notes  # the columns not read are a warning of the reading, printed once
+    if record_keeping(read.unused):  # the others are a warning of the reading, printed once
+        notes.append(record_keeping_message(name, read.unused))
+    return notes
 
 
 def _inside_notes(read: Any, pads: Any, name: str) -> list[str]:

@@ -74,6 +74,7 @@ from .columns import (
     PROPERTY_UNIT_TEXTS,
     UNITLESS,
     detect_columns,
+    is_bookkeeping,
     parse_header,
 )
 from .crs import describe_crs, parse_crs
@@ -114,6 +115,9 @@ __all__ = [
     "SettingNeededError",
     "prepare_samples",
     "unused_message",
+    "RECORD_KEEPING",
+    "record_keeping",
+    "record_keeping_message",
     "parse_degrees",
 ]
 
@@ -1553,12 +1557,23 @@ def _suspected_unit(
 def _unused_columns(
     headers: Sequence[str], used: set[str], described: Mapping[str, str], *, name: str,
 ) -> dict[str, str]:
-    """Header -> why it is not read, for each column not used (kept as the lab's own); one
-    warning names them all, so that check, run, run.json and the report all say it."""
+    """Header -> why it is not read, for each column not used (kept as the lab's own). One
+    warning names those that may hold an analyte, so that check, run, run.json and the report
+    all say it; the record-keeping ones (comments, dates, lab numbers) are one info line
+    (``-v``; ``new`` and ``check`` say it as a note), and every one stays in the returned
+    mapping (``run.json`` ``samples.columns_not_read``)."""
     out = _why_unused(headers, used, described)
-    if out:
-        warnings.warn(unused_message(name, out), DataWarning, stacklevel=4)
+    kept = record_keeping(out)
+    if len(kept) < len(out):
+        warnings.warn(unused_message(name, {h: w for h, w in out.items() if h not in kept}),
+                      DataWarning, stacklevel=4)
+    if kept:
+        logger.info("%s", record_keeping_message(name, out))
     return out
+
+
+#: Why a record-keeping column (a comment, a date, a lab number) is not read.
+RECORD_KEEPING = "record keeping, not an analyte"
 
 
 def _why_unused(
@@ -1574,19 +1589,37 @@ def _why_unused(
             continue  # named on its own, with the settings that decide it
         if info.note is not None:
             out[header] = info.note
+        elif info.role == "id":
+            out[header] = f"a second {info.role} column ({RECORD_KEEPING})"
         elif info.role in CANONICAL:
             out[header] = f"read as {info.role} from another column"
         elif info.role is not None:
             out[header] = f"a second {info.role} column"
         elif header.startswith("column ") and header[7:].replace(" ", "").isalnum():
             out[header] = "no header"
+        elif header not in described and is_bookkeeping(header):
+            out[header] = RECORD_KEEPING
         else:
             out[header] = "name not recognised"
     return out
 
 
+def record_keeping(unused: Mapping[str, str]) -> dict[str, str]:
+    """The record-keeping columns among the columns not read (a comment, a date, a lab or
+    job number, a second ID column): no analyte is left out by not reading them."""
+    return {h: why for h, why in unused.items() if RECORD_KEEPING in why}
+
+
+def record_keeping_message(name: str, unused: Mapping[str, str]) -> str:
+    """One short line naming the record-keeping columns not read (``-v``, ``new``, ``check``)."""
+    kept = record_keeping(unused)
+    return (f"{name}: {len(kept)} record-keeping column(s) not read, kept as the lab's own "
+            "columns: " + ", ".join(f"'{h}'" for h in kept))
+
+
 def unused_message(name: str, unused: Mapping[str, str]) -> str:
-    """One line naming every column not read and why (``new`` and ``check`` print it)."""
+    """One line naming every column given and why it is not read (the reading's warning
+    names those that may hold an analyte)."""
     if not unused:
         return f"{name}: every column is read"
     shown = "; ".join(f"'{h}' ({why})" for h, why in unused.items())

@@ -381,3 +381,18 @@ def test_check_lists_every_column_not_read(tmp_path: Path) -> None:
     assert len(shown) == 1 and shown[0].startswith("warning: ")
     assert "'Kalzium frei' (name not recognised)" in shown[0]
     assert "[samples.columns]" in shown[0] and "[samples.units]" in shown[0]
+
+
+def test_check_notes_record_keeping_columns_and_warns_of_the_others(tmp_path: Path) -> None:
+    # user trial: a 'Notes' column was a warning in every run; check says it as a note
+    project = make_project(tmp_path / "p", header=HEADER + ",Notes,Zn",
+                           rows=[r + ",dry,2" for r in _rows()])
+    r = check(project)
+    assert r.exit_code == 0, r.stderr
+    notes = [ln for ln in r.stderr.splitlines() if ln.startswith("note: ")]
+    assert len(notes) == 1 and "1 record-keeping column(s) not read" in notes[0]
+    assert notes[0].endswith("'Notes'")
+    shown = [ln for ln in r.stderr.splitlines() if "column(s) not read" in ln
+             and ln.startswith("warning: ")]
+    assert len(shown) == 1 and "'Zn' (name not recognised)" in shown[0]
+    assert "Notes" not in shown[0]

@@ -344,3 +344,12 @@ def test_demo_map_labels_never_overlap_on_a_phone(demo_run, browser) -> None:  #
         assert page.console_errors == []
     finally:
         page.close()
+
+
+def test_the_demo_s_comments_column_is_no_warning_but_is_in_run_json(demo_run) -> None:  # noqa: ANN001
+    # user trial: every demo run warned that 'Comments' was not read; it keeps records, so
+    # the summary says nothing of it and run.json keeps every column not read
+    assert "Comments" not in demo_run.cli.stdout + demo_run.cli.stderr
+    assert not any("Comments" in w for w in demo_run.record["warnings"])
+    assert demo_run.record["samples"]["columns_not_read"] == {
+        "Comments": "record keeping, not an analyte"}

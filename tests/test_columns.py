@@ -6,7 +6,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from geosoil.columns import ANALYTE_SPELLINGS, detect_columns, parse_header
+from geosoil.columns import ANALYTE_SPELLINGS, detect_columns, is_bookkeeping, parse_header
 
 
 @pytest.mark.parametrize(
@@ -366,3 +366,17 @@ def test_mmol_of_a_divalent_cation_without_the_charge_mark_says_how_it_is_read(h
                                     "Na mmol/kg"])
 def test_mmol_with_the_charge_mark_or_of_a_monovalent_cation_needs_no_note(header) -> None:
     assert parse_header(header).reading is None
+
+
+@pytest.mark.parametrize("header", ["Comments", "Notes", "Date sampled", "Lab no.", "Lab No 2",
+                                    "Job number", "Date of sampling", "Bemerkungen",
+                                    "Fecha de muestreo", "Observações", "Remarques"])
+def test_record_keeping_headers(header: str) -> None:
+    # user trial: the demo's 'Comments' was warned of in every run as an analyte might be
+    assert is_bookkeeping(header)
+
+
+@pytest.mark.parametrize("header", ["Zn", "B (mg/kg)", "Olsen P", "Colwell K", "NO3-N",
+                                    "Notes (mg/kg)", "Sample %", "Kalzium frei", "column 7", ""])
+def test_headers_that_may_hold_an_analyte_are_not_record_keeping(header: str) -> None:
+    assert not is_bookkeeping(header)

@@ -862,12 +862,8 @@ def test_reading_records_no_unexpected_warnings(tmp_path):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         read(lab(tmp_path))
-    # the one expected: the fixture's 'Notes' column is named as a column not read
-    assert [str(w.message).split(": ", 1)[1] for w in caught] == [
-        "1 column(s) not read, kept as the lab's own columns: 'Notes' (name not recognised). "
-        "To read one, name it in [samples.columns] (e.g. ca = 'Calcium exchangeable') and state "
-        "its unit in [samples.units] (cmol/kg, meq/100g, mmol/kg, mg/kg, g/kg, cmol/dm3, "
-        "mmol/dm3, meq/100cm3)"]
+    # the fixture's 'Notes' column is record keeping: not read, and no warning of it
+    assert [str(w.message) for w in caught] == []
 
 
 # ------------------------------------------------------------------ messy files (hypothesis)
@@ -1550,8 +1546,30 @@ def test_columns_not_read_are_listed_with_why(tmp_path):
         "Ca %": "a percentage (saturation), not an amount",
         "Colwell K": "another extract or measure, not the exchangeable amount",
         "Kalzium frei": "name not recognised",
-        "Notes": "name not recognised",
+        "Notes": "record keeping, not an analyte",
     }
+
+
+def test_record_keeping_columns_are_no_warning_analyte_like_ones_are(tmp_path, caplog):
+    # user trial: every run warned of the demo's 'Comments'. Columns that plainly keep
+    # records (a comment, a date, a lab number) are one info line; columns that may hold an
+    # analyte geosoil does not use stay a warning; every one stays in SampleRead.unused
+    path = write(tmp_path, "Sample ID,Lon,Lat,Ca (cmol(+)/kg),Notes,Date sampled,Lab no.,Zn,"
+                           "B (mg/kg),Olsen P\nS1,147.001,-35.001,5.0,dry,2026-03-01,L17,2,0.5,"
+                           "12\n")
+    with caplog.at_level("INFO", logger="geosoil.samples"), \
+            warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = read(path)
+    said = [str(w.message) for w in caught]
+    assert len(said) == 1 and "3 column(s) not read" in said[0]
+    assert all(f"'{h}'" in said[0] for h in ("Zn", "B (mg/kg)", "Olsen P"))
+    assert not any(h in said[0] for h in ("Notes", "Date sampled", "Lab no."))
+    assert list(got.unused) == ["Notes", "Date sampled", "Lab no.", "Zn", "B (mg/kg)",
+                                "Olsen P"]
+    info = [r.getMessage() for r in caplog.records if "record-keeping" in r.getMessage()]
+    assert info == [f"{path}: 3 record-keeping column(s) not read, kept as the lab's own "
+                    "columns: 'Notes', 'Date sampled', 'Lab no.'"]
 
 
 @pytest.mark.parametrize("word", ["n.d.", "ND", "nd", "<LOD", "<LOR", "bdl", "BDL", "< LOD"])
