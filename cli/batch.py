@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors, verbosity_options
+from .options import echo, echo_err, handle_errors, loading_stack, verbosity_options
 from .summary import print_cautions
 
 __all__ = ["batch"]
@@ -84,7 +84,8 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
     unchanged since the last batch into OUT is skipped. A farm that fails is reported
     and the others go on; the exit status is then 1.
     """
-    from geosoil.batch import SUMMARY_CSV, SUMMARY_HTML, find_projects, products_of, run_batch
+    with loading_stack():
+        from geosoil.batch import SUMMARY_CSV, SUMMARY_HTML, find_projects, products_of, run_batch
 
     if scheduler and (workers is not None or memory_limit != "auto"):
         raise click.UsageError(

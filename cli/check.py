@@ -7,7 +7,14 @@ from pathlib import Path
 
 import click
 
-from .options import echo, echo_err, handle_errors, project_argument, verbosity_options
+from .options import (
+    echo,
+    echo_err,
+    handle_errors,
+    loading_stack,
+    project_argument,
+    verbosity_options,
+)
 
 __all__ = ["check"]
 
@@ -23,9 +30,10 @@ def check(ctx: click.Context, project: Path) -> None:
     PROJECT is a project folder or its TOML file. Every problem found is
     listed on stderr; nothing is written.
     """
-    from geosoil.errors import SettingsError
-    from geosoil.pipeline import check as check_project
-    from geosoil.project import load_project_problems
+    with loading_stack():
+        from geosoil.errors import SettingsError
+        from geosoil.pipeline import check as check_project
+        from geosoil.project import load_project_problems
 
     proj, problems = load_project_problems(project)
     if proj is None:

@@ -6,7 +6,14 @@ from pathlib import Path
 
 import click
 
-from .options import echo, handle_errors, out_option, overwrite_option, verbosity_options
+from .options import (
+    echo,
+    handle_errors,
+    loading_stack,
+    out_option,
+    overwrite_option,
+    verbosity_options,
+)
 from .summary import print_cautions, print_warnings
 
 __all__ = ["compare"]
@@ -42,8 +49,9 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     folder of 'geosoil run'; give last season's output folder to have the
     change per zone of its prescription.
     """
-    from geosoil.change import CLASS_CODES, parse_ph_conversion
-    from geosoil.compare import run_compare
+    with loading_stack():
+        from geosoil.change import CLASS_CODES, parse_ph_conversion
+        from geosoil.compare import run_compare
 
     conversion = parse_ph_conversion(ph_conversion) if ph_conversion else None
     result = run_compare(last, this, out_dir=out, ph_conversion=conversion,

@@ -11,6 +11,7 @@ from .options import (
     Progress,
     echo_err,
     handle_errors,
+    loading_stack,
     out_option,
     overwrite_option,
     verbosity_options,
@@ -34,8 +35,9 @@ def demo_project_file() -> Path:
 @handle_errors
 def demo(ctx: click.Context, out: Path, overwrite: bool, no_cache: bool) -> None:
     """Run the whole job on the bundled demo farm (an invented farm)."""
-    from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
-    from geosoil.project import load_project
+    with loading_stack():
+        from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
+        from geosoil.project import load_project
 
     progress = Progress(quiet=ctx.obj["quiet"])
     path = demo_project_file()

@@ -6,7 +6,14 @@ from pathlib import Path
 
 import click
 
-from .options import Progress, echo, handle_errors, project_argument, verbosity_options
+from .options import (
+    Progress,
+    echo,
+    handle_errors,
+    loading_stack,
+    project_argument,
+    verbosity_options,
+)
 
 __all__ = ["explain"]
 
@@ -49,9 +56,10 @@ def explain(ctx: click.Context, project: Path, at: tuple[float, float], coords: 
     values and the cell's chemistry, to the product rate of each rule and the
     zone rate the spreader applies there.
     """
-    from geosoil.explain import explain_location, format_explanation, locate
-    from geosoil.pipeline import compute, prepare
-    from geosoil.project import load_project
+    with loading_stack():
+        from geosoil.explain import explain_location, format_explanation, locate
+        from geosoil.pipeline import compute, prepare
+        from geosoil.project import load_project
 
     a, b = at
     proj = load_project(project)

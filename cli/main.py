@@ -13,7 +13,7 @@ import click
 from geosoil import __version__
 
 from . import batch, check, compare, demo, explain, new, plan, run
-from .options import set_verbosity, show_click_error, show_warnings_clean
+from .options import arm_loading_stack, set_verbosity, show_click_error, show_warnings_clean
 
 __all__ = ["main", "cli"]
 
@@ -70,6 +70,7 @@ cli.add_command(compare.compare)
 
 def main() -> None:
     """Console-script entry point."""
+    arm_loading_stack()
     try:
         cli(prog_name="geosoil")
     except SystemExit as exc:

@@ -9,6 +9,7 @@ import click
 from .options import (
     echo,
     handle_errors,
+    loading_stack,
     out_option,
     overwrite_option,
     project_argument,
@@ -60,8 +61,9 @@ def plan(ctx: click.Context, project: Path, n_points: int | None, budget: float 
         raise click.UsageError("give --points, or --budget with --cost-per-sample (not both)")
     if (budget is None) != (cost_per_sample is None):
         raise click.UsageError("--budget and --cost-per-sample go together")
-    from geosoil.plan import run_plan  # the stack loads when a command runs, not at --help
-    from geosoil.project import load_project
+    with loading_stack():
+        from geosoil.plan import run_plan  # the stack loads when a command runs, not at --help
+        from geosoil.project import load_project
 
     proj = load_project(project)
     result = run_plan(proj, out_dir=out, n_points=n_points, budget=budget,

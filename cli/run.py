@@ -9,6 +9,7 @@ import click
 from .options import (
     Progress,
     handle_errors,
+    loading_stack,
     out_option,
     overwrite_option,
     project_argument,
@@ -29,8 +30,9 @@ __all__ = ["run"]
 @handle_errors
 def run(ctx: click.Context, project: Path, out: Path, overwrite: bool, no_cache: bool) -> None:
     """Run the whole job for PROJECT (a project folder or its geosoil.toml)."""
-    from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
-    from geosoil.project import load_project
+    with loading_stack():
+        from geosoil.job import run as run_job  # the stack loads when a command runs, not at --help
+        from geosoil.project import load_project
 
     progress = Progress(quiet=ctx.obj["quiet"])
     proj = load_project(project)

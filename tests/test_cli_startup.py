@@ -136,3 +136,67 @@ def test_a_closed_pipe_ends_the_command_with_an_error_status_and_no_traceback() 
         os.close(w)
     assert done.returncode != 0
     assert "Traceback" not in done.stderr
+
+
+def _gc_state_after(code: str) -> dict:
+    """``code`` run in a fresh interpreter; the collector's state it prints as JSON."""
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+_GC_PROBE = (
+    "import gc, json\n"
+    "from geosoil.cli import options\n"
+    "{arm}"
+    "failed = False\n"
+    "try:\n"
+    "    with options.loading_stack():\n"
+    "        inside = gc.isenabled()\n"
+    "        import numpy\n"
+    "        {fail}\n"
+    "except ImportError:\n"
+    "    failed = True\n"
+    "print(json.dumps({{'inside': inside, 'enabled': gc.isenabled(), 'failed': failed,\n"
+    "                  'frozen': gc.get_freeze_count()}}))\n"
+)
+
+
+@pytest.mark.parametrize("fail", [False, True])
+def test_the_console_script_imports_the_stack_with_the_collector_paused_then_frozen(
+        fail: bool) -> None:
+    """In the console script's process (armed), the stack is imported with the cyclic
+    collector off, what it made is frozen out of later passes (gc.freeze, Python's
+    documented use for long-lived objects), and the collector is on again afterwards, also
+    when an import in the block fails."""
+    state = _gc_state_after(_GC_PROBE.format(
+        arm="options.arm_loading_stack()\n",
+        fail="import geosoil_no_such_module" if fail else "pass"))
+    assert state["inside"] is False
+    assert state["enabled"] is True
+    assert state["failed"] is fail
+    assert state["frozen"] > 10_000  # numpy's objects and everything before them
+
+
+def test_elsewhere_loading_the_stack_leaves_the_collector_alone() -> None:
+    """Code calling the commands in a longer-lived process (tests, a notebook) keeps the
+    collector as it is: nothing paused, nothing frozen."""
+    state = _gc_state_after(_GC_PROBE.format(arm="", fail="pass"))
+    assert state == {"inside": True, "enabled": True, "failed": False, "frozen": 0}
+
+
+def test_the_console_script_arms_the_collector_pause() -> None:
+    """``geosoil`` as a user starts it arms :func:`loading_stack` before any command runs."""
+    module, attr = _entry()
+    code = (
+        "import json, sys\n"
+        f"import {module} as m\n"
+        "from geosoil.cli import options\n"
+        "sys.argv = ['geosoil', '--version']\n"
+        "import atexit\n"
+        "atexit.register(lambda: print(json.dumps(options._FREEZE_AFTER_IMPORTS)))\n"
+        f"m.{attr}()\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "true"
