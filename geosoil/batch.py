@@ -155,6 +155,13 @@ def _projects_in_list(path: Path) -> list[Path]:
                 fix="correct the path, or remove the line",
             )
         out.append(p if p.is_file() else p / PROJECT_FILE_NAME)
+    if not out:
+        raise InputError(
+            "the list of projects names no project (it is empty, or every line is blank or "
+            "a comment)", file=path,
+            fix="write one project folder or project file a line, or give the folders "
+            "themselves",
+        )
     return out
 
 
@@ -177,7 +184,8 @@ def find_projects(paths: Iterable[str | os.PathLike[str]]) -> list[Path]:
     Raises
     ------
     InputError
-        A path does not exist, or holds no project.
+        A path does not exist, or holds no project (a folder without one, a list
+        naming none).
 
     Examples
     --------
@@ -640,13 +648,16 @@ def run_batch(
     Raises
     ------
     GeosoilError
-        Dask is not installed; the batch folder cannot be used; the workers run
-        another geosoil than this one.
+        No project was given; Dask is not installed; the batch folder cannot be
+        used; the workers run another geosoil than this one.
     """
     from .outfolder import missing_folders, remove_empty_folders
 
-    distributed = require_distributed()
     projects = list(projects)
+    if not projects:
+        raise GeosoilError("the batch was given no project; give project folders, project "
+                           "files, folders of project folders or lists of projects")
+    distributed = require_distributed()
     made = missing_folders(Path(out_dir).expanduser().resolve())
     out = _check_batch_folder(Path(out_dir), projects, overwrite=overwrite)
     try:

@@ -208,11 +208,11 @@ def test_a_batch_refuses_a_full_folder_that_is_not_a_batch(tmp_path) -> None:
     out = tmp_path / "out"
     out.mkdir()
     (out / "notes.txt").write_text("mine")
-    with pytest.raises(OutputExistsError, match="--overwrite"):
-        batch.run_batch([], out_dir=out)
-    assert (out / "notes.txt").read_text() == "mine"
     farm = tmp_path / "farm"
     shutil.copytree(DEMO, farm, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    with pytest.raises(OutputExistsError, match="--overwrite"):
+        batch.run_batch([farm / "geosoil.toml"], out_dir=out)
+    assert (out / "notes.txt").read_text() == "mine"
     for where in (farm, tmp_path):  # a farm's own folder, and the folder that holds it
         with pytest.raises(OutputExistsError, match="input file"):
             batch.run_batch([farm / "geosoil.toml"], out_dir=where, overwrite=True)
@@ -263,3 +263,10 @@ def test_without_dask_the_error_says_how_to_install_it(monkeypatch) -> None:
     monkeypatch.setitem(sys.modules, "distributed", None)
     with pytest.raises(GeosoilError, match=r"geosoil\[batch\]"):
         batch.require_distributed()
+
+
+def test_a_batch_of_no_project_is_refused_before_any_folder(tmp_path: Path) -> None:
+    # user trial: an empty list of farms ran nothing and exited 0
+    with pytest.raises(GeosoilError, match="no project"):
+        batch.run_batch([], out_dir=tmp_path / "out")
+    assert not (tmp_path / "out").exists()

@@ -45,6 +45,17 @@ def test_a_folder_without_projects_exits_1_naming_it(tmp_path) -> None:
     assert "empty" in result.output and "holds no project" in result.output
 
 
+@pytest.mark.parametrize("text", ["", "# the farms of 2027\n\n   \n"])
+def test_a_list_of_no_projects_exits_1_naming_the_list(tmp_path, text) -> None:
+    # user trial: a batch given an empty list of farms did nothing and exited 0
+    listed = tmp_path / "farms.txt"
+    listed.write_text(text)
+    result = invoke("batch", listed, "--out", tmp_path / "out")
+    assert result.exit_code == 1
+    assert str(listed) in result.output and "names no project" in result.output
+    assert not (tmp_path / "out").exists()
+
+
 @pytest.mark.slow
 def test_a_batch_on_a_scheduler_prints_the_table_and_exits_1_for_a_failed_farm(tmp_path) -> None:
     farms = tmp_path / "farms"
