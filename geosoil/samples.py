@@ -119,6 +119,7 @@ __all__ = [
     "record_keeping",
     "record_keeping_message",
     "parse_degrees",
+    "degrees_problem",
 ]
 
 logger = logging.getLogger(__name__)
@@ -1690,16 +1691,27 @@ _DEGREES = re.compile(
     rf"(?:(?P<s>{_NUM})\s*(?:\"|″|”|''|’’)?\s*)?)?(?P<h2>[NSEW])?$",
     re.IGNORECASE,
 )
+#: Degrees, minutes and seconds separated by spaces or colons ("34 41 10 S", "-34:41:10",
+#: "147 27.2 E"), or decimal degrees with a hemisphere letter ("34.6861 S").
+_SEPARATED = [re.compile(
+    rf"^(?P<h1>[NSEW])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM}){parts}\s*(?P<h2>[NSEW])?$",
+    re.IGNORECASE) for parts in (
+        rf"\s*:\s*(?P<m>{_NUM})(?:\s*:\s*(?P<s>{_NUM}))?",
+        rf"\s+(?P<m>{_NUM})(?:\s+(?P<s>{_NUM}))?",
+        "",
+)]
 
 
 def parse_degrees(text: str) -> tuple[float, str | None] | None:
     """Decimal degrees of a coordinate written in degrees, minutes and seconds, or None.
 
     Degrees with a degree sign, then (optionally) minutes with ``'`` and seconds with
-    ``"``, any of them decimal; the hemisphere letter (N, S, E, W) before or after, or a
+    ``"``; or degrees, minutes and seconds separated by spaces or colons (``34 41 10 S``,
+    ``-34:41:10``); or decimal degrees with a hemisphere letter (``34.6861 S``); the last
+    part may have decimals. The hemisphere letter (N, S, E, W) before or after, or a
     sign. S and W are negative. Returns the degrees and the hemisphere letter (None when
-    a sign or nothing was written). Minutes and seconds must be below 60, and only the
-    last part may have decimals.
+    a sign or nothing was written). None when the text is not such a coordinate, or is
+    one that cannot be read (:func:`degrees_problem` says why).
 
     Examples
     --------
@@ -1707,20 +1719,63 @@ def parse_degrees(text: str) -> tuple[float, str | None] | None:
     (-34.68626666666667, 'S')
     >>> parse_degrees("147°27'12.5''E")
     (147.45347222222222, 'E')
+    >>> parse_degrees("34 41 10 S"), parse_degrees("-34:41:10")
+    ((-34.68611111111111, 'S'), (-34.68611111111111, None))
     >>> parse_degrees("-34.5°"), parse_degrees("34°75'S")
     ((-34.5, None), None)
     """
-    m = _DEGREES.match(text.strip())
-    if m is None:
-        return None
-    if m["h1"] and m["h2"] or (m["h1"] or m["h2"]) and m["sign"]:
-        return None
+    found = _read_degrees(text)
+    return found if isinstance(found, tuple) else None
+
+
+def degrees_problem(text: str) -> str | None:
+    """Why a text written as degrees, minutes and seconds cannot be read as one coordinate
+    (minutes or seconds not below 60, a sign and a hemisphere letter both, a group of
+    three digits that may be a thousands group); None when it is read or is no such text.
+
+    Examples
+    --------
+    >>> degrees_problem("-34 41 10 S")
+    'it gives both a sign and a hemisphere letter, which disagree or repeat each other'
+    >>> "thousands spaced (6123456)" in degrees_problem("6 123 456")
+    True
+    >>> degrees_problem("34 41 10 S") is None
+    True
+    """
+    found = _read_degrees(text)
+    return found if isinstance(found, str) else None
+
+
+def _read_degrees(text: str) -> tuple[float, str | None] | str | None:
+    """The degrees and hemisphere of ``text``, why it cannot be read (str), or None when
+    it is not written as degrees at all."""
+    t = text.strip()
+    found = _DEGREES.match(t)
+    separated = found is None
+    if found is None:
+        found = next((f for f in (r.match(t) for r in _SEPARATED) if f), None)
+        if found is None:
+            return None
+    m = {k: found.groupdict().get(k) for k in ("h1", "h2", "sign", "d", "m", "s")}
+    if separated and not m["m"] and not (m["h1"] or m["h2"]):
+        return None  # a plain number is no degrees text
+    if m["h1"] and m["h2"]:
+        return "it gives a hemisphere letter at both ends"
+    if (m["h1"] or m["h2"]) and m["sign"]:
+        return "it gives both a sign and a hemisphere letter, which disagree or repeat each other"
+    if separated and found.re is _SEPARATED[1] and any(
+            v and len(re.split(r"[.,]", v)[0]) > 2 for v in (m["m"], m["s"])):
+        number = "".join(v for v in (m["d"], m["m"], m["s"]) if v)
+        return (f"its groups of three digits may be one number with its thousands spaced "
+                f"({number}), or degrees, minutes and seconds")
     hemisphere = (m["h1"] or m["h2"] or "").upper() or None
     deg, minutes, seconds = (float(v.replace(",", ".")) if v else 0.0
                              for v in (m["d"], m["m"], m["s"]))
-    if minutes >= 60 or seconds >= 60 or (m["s"] and not minutes.is_integer()) or (
-            m["m"] and not deg.is_integer()):
-        return None
+    for part, value in (("minutes", minutes), ("seconds", seconds)):
+        if value >= 60:
+            return f"its {part} ({value:g}) are not below 60"
+    if (m["s"] and not minutes.is_integer()) or (m["m"] and not deg.is_integer()):
+        return "only its last part (degrees, minutes or seconds) may have decimals"
     value = deg + minutes / 60 + seconds / 3600
     negative = hemisphere in ("S", "W") or m["sign"] in ("-", "\u2212")
     return (-value if negative else value), hemisphere
@@ -1735,8 +1790,16 @@ def _coordinate_cells(
     ``axis`` "x" (longitude: E or W) or "y" (latitude: N or S)."""
     values, status, texts = _cells(table[column], decimal_comma=decimal_comma)
     for i in np.flatnonzero(status == "bad"):
-        found = parse_degrees(texts[i])
+        found = _read_degrees(texts[i])
         if found is None:
+            continue
+        if isinstance(found, str):
+            issues.append(_Issue(int(rows[i]), column, f"the coordinate '{texts[i]}' cannot "
+                                 f"be read as degrees: {found}",
+                                 "write it in decimal degrees (-34.6861) or as degrees, "
+                                 "minutes and seconds with a hemisphere letter (34 41 10 S, "
+                                 "34°41'10\"S)"))
+            values[i], status[i] = np.nan, "done"
             continue
         value, hemisphere = found
         wrong = {"x": ("N", "S"), "y": ("E", "W")}[axis]

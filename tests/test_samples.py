@@ -1610,6 +1610,19 @@ def test_below_detection_words_stop_when_asked_and_a_ph_has_no_detection_limit(t
     ("-34°41'", -(34 + 41 / 60)),
     ("147.4523°", 147.4523),
     ("34°41′10″S", -(34 + 41 / 60 + 10 / 3600)),
+    # separated by spaces or colons (user trial: "34 41 10 S" was "not a number"):
+    # 34 + 41/60 + 10/3600 = 34.6861111; 147 + 27/60 + 12/3600 = 147.4533333
+    ("34 41 10 S", -34.686111111111111),
+    ("147 27 12 E", 147.45333333333333),
+    ("-34 41 10", -34.686111111111111),
+    ("S 34 41 10", -34.686111111111111),
+    ("34:41:10 S", -34.686111111111111),
+    ("-34:41:10", -34.686111111111111),
+    ("147 : 27 : 12.5", 147 + 27 / 60 + 12.5 / 3600),  # 147.4534722
+    ("34 41.1760 S", -(34 + 41.1760 / 60)),              # degrees and decimal minutes
+    ("34 41 S", -(34 + 41 / 60)),
+    ("34.6861 S", -34.6861),                              # decimal degrees and a letter
+    ("147 27 12,5 E", 147 + 27 / 60 + 12.5 / 3600),      # a decimal comma
 ])
 def test_degrees_minutes_seconds(text, expected):
     from geosoil.samples import parse_degrees
@@ -1617,12 +1630,48 @@ def test_degrees_minutes_seconds(text, expected):
     assert parse_degrees(text)[0] == pytest.approx(expected, abs=1e-12)
 
 
-@pytest.mark.parametrize("text", ["34°75'S", "34°41'61\"S", "S34°E", "-34°41'S", "34 41 S",
-                                  "34.5°41'10\""])
+@pytest.mark.parametrize("text", ["34°75'S", "34°41'61\"S", "S34°E", "-34°41'S",
+                                  "34.5°41'10\"", "34 75 S", "-34 41 10 S", "6 123 456",
+                                  "34:41 10", "34.5 41 10", "S 34 41 10 S", "12", "-12.5"])
 def test_degrees_that_are_not_a_coordinate(text):
     from geosoil.samples import parse_degrees
 
     assert parse_degrees(text) is None
+
+
+@pytest.mark.parametrize("text, why", [
+    ("-34 41 10 S", "both a sign and a hemisphere letter"),
+    ("34 75 10 S", "minutes (75) are not below 60"),
+    ("34:41:60", "seconds (60) are not below 60"),
+    ("6 123 456", "thousands spaced (6123456)"),
+    ("S 34 41 10 S", "a hemisphere letter at both ends"),
+    ("34.5 41 10", "only its last part"),
+])
+def test_ambiguous_degrees_cells_are_named_by_row_and_column(tmp_path, text, why):
+    # user trial: a cell that reads as degrees in more than one way (or in none) is named
+    path = write(tmp_path, "ID,Latitude,Longitude,Ca (cmol(+)/kg)\n"
+                           "S1,34 41 10 S,147 27 12 E,5.0\n"
+                           f"S2,{text},147 27 12 E,5.5\n")
+    err = error_of(path)
+    assert_names(err, file=path, row=3, column="Latitude")
+    assert f"'{text}' cannot be read as degrees" in str(err) and why in str(err)
+    assert "34 41 10 S" in err.fix
+
+
+def test_coordinates_separated_by_spaces_or_colons_are_read(tmp_path):
+    # user trial: "34 41 10 S" and "-34 41 10" were "not a number". Hand-converted:
+    # 34°41'10" = 34 + 41/60 + 10/3600 = 34.686111; 147°27'12" = 147.453333;
+    # 34°41'12.6" = 34.686833; 147°27'9" = 147.4525 (south and west negative)
+    path = write(tmp_path, "ID,Latitude,Longitude,Ca (cmol(+)/kg)\n"
+                           "S1,34 41 10 S,147 27 12 E,5.0\n"
+                           "S2,-34 41 12.6,147 27 9,5.5\n"
+                           "S3,34:41:10 S,147:27:12 E,6.0\n")
+    got = read(path)
+    assert got.samples.geometry.y.tolist() == pytest.approx([-34.686111, -34.686833,
+                                                             -34.686111], abs=5e-7)
+    assert got.samples.geometry.x.tolist() == pytest.approx([147.453333, 147.4525,
+                                                             147.453333], abs=5e-7)
+    assert got.crs.to_epsg() == 4326
 
 
 def test_coordinates_in_degrees_and_minutes_are_read(tmp_path):
