@@ -711,6 +711,19 @@ def _sheet_read(read: Any, trial: SampleSettings, notes: list[str]) -> str | Non
     return str(read.sheet)
 
 
+def _units_unchecked(read: Any, trial: SampleSettings) -> str | None:
+    """What ``new`` leaves to settle of the units when the rows could not be read (no ID
+    or coordinate columns): the columns whose unit nothing states, read in the default
+    unit, whose values nothing has checked yet; None when every unit is stated."""
+    if not read.assumed_units:
+        return None
+    return ("no unit stated for " + ", ".join(f"'{read.columns[a]}'" for a in read.assumed_units)
+            + f": read as {trial.default_unit} ([samples] default_unit), not yet checked "
+            "against their values (the rows are read once the columns above are set); state "
+            f"the lab's unit in [samples.units] (e.g. {read.assumed_units[0]} = 'mmol/kg') if "
+            "it is another")
+
+
 def _unit_notes(read: Any, trial: SampleSettings, name: str, to_do: list[str]) -> list[str]:
     """What ``new`` says of the units (stated, assumed, suspected) and the columns not read;
     a suspected unit is also appended to ``to_do``."""
@@ -832,8 +845,13 @@ def new_project(
         # write it with what the header row says, and leave that setting to the user
         read = read_columns(trial)
         to_do.append(str(exc))
-        notes.append(f"{exc}; the project is written with that left for you: 'check' and "
-                     "'run' stop until it is set")
+        units = _units_unchecked(read, trial) if exc.keys else None
+        if units is not None:
+            to_do.append(units)
+        settle = "that" if len(exc.keys) < 2 and not units else "these"
+        notes.append(f"{exc}; {units + '; ' if units else ''}the project is written with "
+                     f"{settle} left for you: 'check' and 'run' stop until "
+                     f"{'it is' if settle == 'that' else 'they are'} set")
     except CRSError:
         if crs is not None or pads.crs is None:
             raise

@@ -402,7 +402,11 @@ class SettingNeededError(InputError):
     """A column of the samples file needs a ``[samples]`` setting before the rows can be
     read: the sample ID or coordinate columns were not recognised, or most values of a
     column do not fit its unit. ``geosoil new`` writes the project anyway, with the
-    setting left to the user (:func:`read_columns` gives what the header row says)."""
+    setting left to the user (:func:`read_columns` gives what the header row says).
+    ``keys`` names the ``[samples]`` settings of the ID and coordinate columns that were
+    not recognised (empty for a unit)."""
+
+    keys: tuple[str, ...] = ()
 
 
 class CRSInputError(InputError, CRSError):
@@ -1185,16 +1189,9 @@ def _map_columns(
             fix="name them in [samples.columns], e.g. ca = 'Exch Ca'. " + _nearest("", headers),
         )
     id_header = present(settings.id_column, "id_column") if settings.id_column else guess.id
-    if id_header is None and lenient:
-        id_header = ""
-    if id_header is None:
-        raise SettingNeededError(
-            "no sample ID column was recognised", file=name, row=header_row,
-            fix="set [samples] id_column to the header of the sample IDs. "
-            + _nearest("", headers),
-        )
     xy = None
     geographic = None
+    x = y = None
     if need_xy:
         x = present(settings.x_column, "x_column") if settings.x_column else guess.x
         y = present(settings.y_column, "y_column") if settings.y_column else guess.y
@@ -1203,13 +1200,9 @@ def _map_columns(
             geographic = True if roles == ("lon", "lat") else (
                 False if roles == ("east", "north") else None)
             xy = (x, y)
-        elif not lenient:
-            raise SettingNeededError(
-                "no coordinate columns were recognised (longitude/latitude, easting/northing "
-                "or X/Y)", file=name, row=header_row, column=x or y,
-                fix="set [samples] x_column and y_column (and crs when they are projected). "
-                + _nearest("", headers),
-            )
+    if not lenient:
+        _undecided_id_or_xy(id_header, (x, y) if need_xy else None, name, header_row, headers)
+    id_header = id_header or ""
     _check_roles(columns, id_header, xy, name, header_row)
     chosen = set(columns.values()) - set(settings.columns.values())
     readings = {back.get(h, h): r for h, r in raw_guess.readings.items()
@@ -1217,6 +1210,41 @@ def _map_columns(
     undecided = {back.get(h, h): why for h, why in raw_guess.undecided.items()
                  if back.get(h, h) not in taken}
     return columns, id_header, xy, geographic, methods, readings, undecided
+
+
+#: The ID and coordinate settings: key -> what the column holds.
+_PLACE_KEYS = {"id_column": "the sample ID", "x_column": "x (longitude or easting)",
+               "y_column": "y (latitude or northing)"}
+
+
+def _undecided_id_or_xy(
+    id_header: str | None, xy: tuple[str | None, str | None] | None, name: str,
+    header_row: int | None, headers: Sequence[str],
+) -> None:
+    """One :class:`SettingNeededError` naming every one of the sample ID, x and y columns
+    that was not recognised (``xy`` None: the file's geometry gives the places)."""
+    found = {"id_column": id_header, **({} if xy is None else
+                                        {"x_column": xy[0], "y_column": xy[1]})}
+    missing = [k for k, v in found.items() if v is None]
+    if not missing:
+        return
+    what = [_PLACE_KEYS[k] for k in missing]
+    listed = what[0] if len(what) == 1 else ", ".join(what[:-1]) + " or " + what[-1]
+    known = [f"{_PLACE_KEYS[k].split(' (')[0]} '{v}'" for k, v in found.items() if v]
+    keys = [f"[samples] {k}" for k in missing]
+    problem = f"no column was recognised for {listed}" + (
+        f" (recognised: {', '.join(known)})" if known else "")
+    if "x_column" in missing or "y_column" in missing:
+        problem += "; coordinates are longitude/latitude, easting/northing or X/Y"
+    fix = ("set " + (keys[0] if len(keys) == 1 else ", ".join(keys[:-1]) + " and " + keys[-1])
+           + " to the header" + ("s" if len(keys) > 1 else "") + " of "
+           + ("that column" if len(keys) == 1 else "those columns")
+           + (" (and crs when x and y are projected)"
+              if "x_column" in missing or "y_column" in missing else "")
+           + ". " + _nearest("", headers))
+    err = SettingNeededError(problem, file=name, row=header_row, fix=fix)
+    err.keys = tuple(missing)
+    raise err
 
 
 def _check_roles(

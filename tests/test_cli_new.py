@@ -481,6 +481,33 @@ def test_new_writes_the_project_when_the_id_or_coordinates_need_a_setting(
     assert c.exit_code == 1 and len(problems) == 1 and f"[samples] {key}" in problems[0]
 
 
+def test_new_names_every_undecided_column_when_id_and_coordinates_are_unknown(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    # user trial: with neither the ID nor the coordinate columns known, 'new' named only the
+    # ID; every undecided one (ID, x, y and the units nothing states) is named
+    lab = _lab_from(inputs, tmp_path, "Kennung,Ost,Nord,pH (CaCl2),Ca,Mg,K (cmol/kg),"
+                    "Na (cmol/kg),Al (cmol/kg),Exch. Acidity (cmol/kg)", lambda f: f)
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    said = [ln for ln in r.stderr.splitlines() if "the project is written" in ln]
+    assert len(said) == 1
+    for words in ("sample ID", "x (longitude or easting)", "y (latitude or northing)",
+                  "[samples] id_column", "[samples] x_column", "[samples] y_column",
+                  "no unit stated for 'Ca', 'Mg'", "they are set"):
+        assert words in said[0], words
+    text = (tmp_path / "p" / "geosoil.toml").read_text()
+    top = text.split("\n[samples]\n")[0]
+    settle = top.split("To settle before 'geosoil check' passes:")[1]
+    for words in ("[samples] id_column", "[samples] x_column", "[samples] y_column",
+                  "no unit stated for 'Ca', 'Mg'", "[samples.units]"):
+        assert words in settle, words
+    c = invoke("check", tmp_path / "p")
+    problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
+    assert c.exit_code == 1 and len(problems) == 1
+    assert all(f"[samples] {k}" in problems[0] for k in ("id_column", "x_column", "y_column"))
+
+
 def test_new_recognises_german_and_spanish_id_and_coordinates(
     inputs: dict[str, Path], tmp_path: Path
 ) -> None:

@@ -542,6 +542,21 @@ def test_no_id_column(tmp_path):
     assert "sample ID" in str(err) and "id_column" in err.fix
 
 
+def test_no_id_and_no_coordinate_columns_are_named_together(tmp_path):
+    # user trial: only the ID was named when the coordinates were unknown too
+    path = lab(tmp_path, header="Where,Ost,Nord,Ca,Mg,K,Na", rows=["S1,147,-35,5,2,0.5,0.3"])
+    err = error_of(path)
+    assert_names(err, file=path, row=1, column=None)
+    assert "sample ID, x (longitude or easting) or y (latitude or northing)" in str(err)
+    assert "[samples] id_column, [samples] x_column and [samples] y_column" in err.fix
+    assert err.keys == ("id_column", "x_column", "y_column")
+    path = lab(tmp_path, header="Where,Longitude,Nord,Ca", rows=["S1,147,-35,5"])
+    err = error_of(path, x_column="Longitude")
+    assert "for the sample ID or y (latitude or northing) (recognised: x 'Longitude')" \
+        in str(err)
+    assert err.keys == ("id_column", "y_column")
+
+
 def test_no_coordinate_columns(tmp_path):
     path = lab(tmp_path, header="ID,Ca,Mg,K,Na", rows=["S1,5,2,0.5,0.3"])
     err = error_of(path)
