@@ -240,6 +240,19 @@ class SampleDensity:
         """Hectares per sample (NaN without samples)."""
         return self.area_ha / self.samples if self.samples > 0 else math.nan
 
+    def in_unit(self, area_unit: str) -> tuple[float, float, float]:
+        """The area, samples per area unit and area per sample in ``area_unit`` ("ha" or
+        "ac", 1 ha = 2.4710538 ac).
+
+        >>> SampleDensity(paddock="North", samples=10, area_ha=40.0).in_unit("ha")
+        (40.0, 0.25, 4.0)
+        """
+        from .units import area_in
+
+        area = float(area_in(self.area_ha, area_unit))
+        return (area, self.samples / area if area > 0 else math.nan,
+                area / self.samples if self.samples > 0 else math.nan)
+
 
 @dataclass(frozen=True)
 class Provenance:
@@ -1180,6 +1193,13 @@ def _area_of(row: Any, unit: str) -> str:
     return _area(row["area_ha"], unit)
 
 
+def _density_line(d: SampleDensity, au: str) -> str:
+    """A paddock's sample density in one line, in the area unit ``au``."""
+    area, per, each = d.in_unit(au)
+    return (f"{_num(area, 2)} {au} · {d.samples} sample(s) · {_num(per, 2)} samples per {au} "
+            f"({_num(each, 1)} {au} per sample)")
+
+
 def _area_unit(unit: str) -> str:
     from .units import area_unit_for
 
@@ -1431,9 +1451,7 @@ def build_report(data: ReportInput) -> str:
                            "table": table})
         paddocks.append({
             "anchor": f"paddock-{i}", "name": paddock, "blocks": blocks,
-            "density": None if d is None else (
-                f"{_num(d.area_ha, 2)} ha · {d.samples} sample(s) · {_num(d.per_ha, 2)} samples "
-                f"per ha ({_num(d.ha_per_sample, 1)} ha per sample)"),
+            "density": None if d is None else _density_line(d, _area_unit(data.rate_unit)),
         })
 
     cv_table = _simple_table(
@@ -1458,11 +1476,13 @@ def build_report(data: ReportInput) -> str:
           f"{_sig(u.sd_max)} {u.unit}".strip(),
           f"{_sig(u.sd_mean)} {u.unit}".strip() if u.sd_mean is not None else "–"]
          for u in data.uncertainty], "uncertainty") if data.uncertainty else None
+    au = _area_unit(data.rate_unit)  # acres beside a rate per acre, as the other tables
     density_table = _simple_table(
-        [("paddock", False), ("samples", True), ("area (ha)", True), ("samples per ha", True),
-         ("ha per sample", True)],
-        [[d.paddock, str(d.samples), _num(d.area_ha, 2), _num(d.per_ha, 2),
-          _num(d.ha_per_sample, 1)] for d in data.density], "density") if data.density else None
+        [("paddock", False), ("samples", True), (f"area ({au})", True),
+         (f"samples per {au}", True), (f"{au} per sample", True)],
+        [[d.paddock, str(d.samples),
+          *(_num(v, n) for v, n in zip(d.in_unit(au), (2, 2, 1), strict=True))]
+         for d in data.density], "density") if data.density else None
 
     nav = [("cautions", "Cautions"), ("summary", "Farm totals")]
     if data.glance:

@@ -304,6 +304,25 @@ def test_density_figures_in_the_report(page: str) -> None:
     assert "0.21" in sec  # 6 samples on 28.8 ha = 0.2083 [derived]
 
 
+def test_density_in_acres_beside_a_rate_per_acre() -> None:
+    # user trial: with lb/ac the other tables were in acres and the density stayed in ha.
+    # 1 ha = 2.4710538 ac (NIST SP 811), by hand: 40 ha = 98.842152 ac, 10 samples = 0.1012
+    # per ac, 9.88 ac per sample; 28.8 ha = 71.166349 ac, 6 samples = 0.0843, 11.86
+    page = report.build_report(dataclasses.replace(report_input(), rate_unit="lb/ac"))
+    sec = _section(page, "density")
+    for text in ("area (ac)", "samples per ac", "ac per sample", "98.84", "0.10", "9.9",
+                 "71.17", "0.08", "11.9"):
+        assert text in sec, text
+    assert "(ha)" not in sec and "per ha" not in sec and "ha per" not in sec
+    lines = re.findall(r'<p class="density-line">([^<]*)</p>', page)
+    assert lines and lines[0] == ("98.84 ac · 10 sample(s) · 0.10 samples per ac "
+                                  "(9.9 ac per sample)")
+    assert not any(" ha" in ln for ln in lines)
+    hectares = re.findall(r'<p class="density-line">([^<]*)</p>', report.build_report(
+        report_input()))
+    assert hectares[0] == "40.00 ha · 10 sample(s) · 0.25 samples per ha (4.0 ha per sample)"
+
+
 def test_assumptions_methods_and_citations(page: str) -> None:
     sec = _section(page, "assumptions")
     for text in (
