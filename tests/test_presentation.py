@@ -160,3 +160,36 @@ def test_classes_png_is_one_palette_entry_per_class_with_no_data_clear() -> None
     got = [cmap[int(v)] for v in band[0]]
     assert got[:3] == [(*pr.hex_to_rgb(x), 255) for x in c.colours]
     assert got[3][3] == 0  # transparent
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(1, 40), st.integers(1, 40), st.randoms(use_true_random=False))
+def test_classes_png_round_trips_through_gdal(h: int, w: int, rnd) -> None:
+    """The paletted PNG written with zlib reads back through GDAL's PNG driver (the
+    reference reader) as the class of every cell, its colour, and no data transparent."""
+    values = np.array([rnd.choice([np.nan, rnd.uniform(0, 40)]) for _ in range(h * w)])
+    values = values.reshape(h, w)
+    c = pr.classes_for("esp", np.array([1.0]))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with MemoryFile(pr.classes_png(values, c)) as mem, mem.open() as src:
+            assert (src.driver, src.count, src.width, src.height) == ("PNG", 1, w, h)
+            band = src.read(1)
+            cmap = src.colormap(1)
+    np.testing.assert_array_equal(band, c.index(values) + 1)
+    assert cmap[0][3] == 0
+    assert [cmap[k + 1] for k in range(len(c.colours))] == [
+        (*pr.hex_to_rgb(x), 255) for x in c.colours]
+
+
+def test_a_large_classes_png_round_trips_through_gdal() -> None:
+    """A map-sized image (several zlib blocks) reads back cell for cell."""
+    y, x = np.mgrid[0:700, 0:900]
+    values = 10 + 8 * np.sin(x / 37.0) * np.cos(y / 23.0)
+    values[:50, :80] = np.nan
+    c = pr.classes_for("esp", values)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        with MemoryFile(pr.classes_png(values, c)) as mem, mem.open() as src:
+            band = src.read(1)
+    np.testing.assert_array_equal(band, c.index(values) + 1)
