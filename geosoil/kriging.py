@@ -78,9 +78,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Literal, overload
 
 import numpy as np
-import scipy  # submodules load on first use (scipy.linalg, scipy.spatial)
 from numpy.typing import ArrayLike, NDArray
-from threadpoolctl import ThreadpoolController
 
 from .errors import InputError, InterpolationWarning, SettingsError
 from .points import COINCIDENT_M, as_points, as_samples
@@ -88,6 +86,7 @@ from .variogram import VariogramModel
 
 if TYPE_CHECKING:
     from scipy.spatial import cKDTree
+    from threadpoolctl import ThreadpoolController
 
 __all__ = [
     "SMALL_SYSTEM",
@@ -119,6 +118,8 @@ SMALL_SYSTEM = 1000
 
 @functools.cache
 def _controller() -> ThreadpoolController:
+    from threadpoolctl import ThreadpoolController
+
     return ThreadpoolController()  # inspects the loaded BLAS libraries once
 
 
@@ -220,6 +221,7 @@ def _factor(xy: Array, model: VariogramModel) -> tuple[Array, VariogramModel]:
         c = rho * m.psill
         c[np.diag_indices_from(c)] = m.sill
         try:
+            import scipy.linalg
             low = scipy.linalg.cholesky(c, lower=True, overwrite_a=True, check_finite=False)
         except np.linalg.LinAlgError:
             continue
@@ -242,6 +244,8 @@ def _coincident(
     xd: Array, xt: Array, tree: cKDTree | None = None
 ) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
     """(target, sample) index pairs closer than COINCIDENT_M (by the engine's own d2)."""
+    import scipy.spatial
+
     tree = scipy.spatial.cKDTree(xd) if tree is None else tree
     d, _ = tree.query(xt, k=1, distance_upper_bound=4 * COINCIDENT_M)
     hit = np.flatnonzero(np.isfinite(d))
@@ -352,6 +356,8 @@ def _global(
     n, m = len(z), len(xt)
     with small_blas(n):
         low, model = _factor(xd, model)
+        import scipy.linalg
+
         inv = scipy.linalg.lapack.dtrtri(low, lower=1)[0]  # M = L^-1, lower triangle
     ones = np.ones(n)
     v = inv @ ones
@@ -460,6 +466,8 @@ def _local(
     exact: bool,
     workers: int | None,
 ) -> tuple[Array, Array, Array]:
+    import scipy.spatial
+
     m, nb = len(xt), neighbours
     tree = scipy.spatial.cKDTree(xd)
     order, starts, centres = _tiles(xt, tile_m)
@@ -720,6 +728,8 @@ def kriging_weights(
     b[:n] = model.correlation_sq(d2) * model.psill
     if exact:
         b[:n][d2 <= _EPS2] += model.nugget
+    import scipy.linalg
+
     x = scipy.linalg.solve(a, b)
     return x[:n], float(-x[n])
 
@@ -759,6 +769,8 @@ def loo_cross_validation(
     n = len(z)
     with small_blas(n):
         low, used = _factor(xd, model)
+        import scipy.linalg
+
         cinv = scipy.linalg.cho_solve((low, True), np.eye(n), check_finite=False)
         b = cinv.sum(axis=1)  # C^-1 1
         s = float(b.sum())

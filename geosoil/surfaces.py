@@ -54,7 +54,6 @@ from typing import Any
 
 import geopandas as gpd
 import numpy as np
-import scipy  # scipy.spatial loads on first use
 import shapely
 from numpy.typing import NDArray
 
@@ -303,6 +302,8 @@ def _xy(gdf: gpd.GeoDataFrame) -> NDArray[np.float64]:
 
 def _max_distance(xy: NDArray[np.float64]) -> float:
     """The largest distance between two points (through their convex hull: no n x n table)."""
+    import scipy.spatial
+
     pts = xy
     if len(xy) > 3:
         try:
@@ -425,6 +426,8 @@ def _zone_values(
         return None
     n_fill = int((~filled).sum())
     if n_fill:
+        import scipy.spatial
+
         tree = scipy.spatial.cKDTree(np.column_stack([x[filled], y[filled]]))
         _, idx = tree.query(np.column_stack([x[~filled], y[~filled]]))
         out[~filled] = out[filled][idx]

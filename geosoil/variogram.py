@@ -56,7 +56,6 @@ from dataclasses import dataclass
 from typing import Final
 
 import numpy as np
-import scipy  # scipy.optimize and scipy.special load on first use
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InputError, SettingsError
@@ -89,6 +88,8 @@ _MATERN_TARGET: Final = math.exp(-3.0)
 @functools.lru_cache(maxsize=64)
 def _matern_scale(nu: float) -> float:
     """``s_nu`` with ``rho_nu(s_nu) = exp(-3)`` for the unit-scale Matérn correlation."""
+    import scipy.optimize
+
     if nu == 0.5:
         return 3.0
     return float(
@@ -110,6 +111,8 @@ def _matern_unit(t: NDArray[np.float64], nu: float) -> NDArray[np.float64]:
     out = np.ones_like(t)
     pos = t > 0
     tp = t[pos]
+    import scipy.special
+
     # kve = kv * exp(t): stays finite far out, where kv underflows
     log_c = (1.0 - nu) * math.log(2.0) - scipy.special.gammaln(nu)
     with np.errstate(under="ignore"):
@@ -529,6 +532,8 @@ def fit(
             big = g > 1e-12
             jac *= np.where(big, target / np.maximum(g, 1e-12) ** 2, 1e12)[:, None]
         return sqrt_w[:, None] * jac
+
+    import scipy.optimize
 
     nugget0 = min(0.5 * float(gamma.min()) / gmax, 1.0)
     best = None

@@ -96,6 +96,34 @@ def test_check_loads_no_interpolation_library(tmp_path, demo_run, cached: bool) 
     assert json.loads(done.stdout.strip().splitlines()[-1]) == []
 
 
+def test_a_run_from_cached_surfaces_loads_no_interpolation_library(tmp_path, demo_run) -> None:  # noqa: ANN001
+    """A re-run after a rate change, its surfaces in the cache, kriges nothing: scipy and
+    threadpoolctl (the kriging engine's) stay unloaded, not even scipy's base package
+    (a fifth of a tenth of a second of every re-run)."""
+    import shutil
+
+    from tests.demofarm import copy_demo
+
+    cache = tmp_path / "cache"
+    shutil.copytree(demo_run.cache, cache)  # the session's surfaces; its cache left as it was
+    farm, _ = copy_demo(tmp_path, cache=cache,
+                        changes={"rates.gypsum": {"target_esp_percent": 5.5}})
+    code = (
+        "import json, sys\n"
+        "from geosoil.cli.main import cli\n"
+        "try:\n"
+        f"    cli.main(args=['-q', 'run', {str(farm)!r}, '--out', {str(tmp_path / 'out')!r}])\n"
+        "except SystemExit as exc:\n"
+        "    assert exc.code in (0, None), exc.code\n"
+        "print(json.dumps(sorted(m for m in sys.modules\n"
+        "                        if m.split('.')[0] in ('scipy', 'threadpoolctl'))))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True)
+    assert json.loads(done.stdout.strip().splitlines()[-1]) == []
+    assert (tmp_path / "out" / "report.html").is_file()
+
+
 def _console(*args: str, **kw: object) -> subprocess.CompletedProcess[str]:
     """The installed console script's entry point run in a fresh interpreter with ``args``."""
     module, attr = _entry()
