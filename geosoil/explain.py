@@ -25,7 +25,7 @@ from .columns import CANONICAL, EXCHANGEABLE, PROPERTIES
 from .errors import InputError
 from .pipeline import FarmResult, Prepared
 from .rates import RateLayer, Step, explain_cell
-from .units import rate_from_kg_ha
+from .units import format_rate, rate_from_kg_ha
 
 __all__ = [
     "Explanation",
@@ -60,6 +60,9 @@ class Explanation:
     acidity_source: str = ""
     #: how the soluble salts were taken off the nearest samples' cations (empty when not)
     soluble: list[str] = field(default_factory=list)
+    #: ``[output] rate_unit``: the unit every rate is shown in (the rules' arithmetic runs in
+    #: kg/ha, shown beside it)
+    rate_unit: str = "kg/ha"
 
 
 def parse_location(text: str) -> tuple[float, float]:
@@ -287,17 +290,20 @@ def explain_location(
                                                              s.output.rate_unit))),
             "unit": s.output.rate_unit,
             "passes": int(zr["passes"]) if "passes" in zr and not _nan(zr["passes"]) else 1,
+            "schedule": str(zr["schedule"]) if "schedule" in zr
+            and isinstance(zr["schedule"], str) else "",
         })
     for prod, arr in pr.rates.product_rates.items():
         notes.append(
-            f"per-cell {prod} rate before spreader limits: {float(arr[row, col]):.1f} kg/ha"
+            f"per-cell {prod} rate before spreader limits: "
+            f"{_rate_text(float(arr[row, col]), s.output.rate_unit)}"
         )
     return Explanation(
         soluble=_soluble_lines(prep, pts.iloc[order]),
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
         zones=zones, notes=notes, ecec_parts=_ecec_parts(cell),
-        acidity_source=_acidity_source(prep.read.columns),
+        acidity_source=_acidity_source(prep.read.columns), rate_unit=s.output.rate_unit,
     )
 
 
@@ -425,9 +431,11 @@ def format_explanation(e: Explanation) -> str:
     out.append("3. Cell chemistry (amounts in cmol(+)/kg; shares in % of the cell's ECEC)")
     out.extend(_chemistry_lines(e))
     out.append("")
-    out.append("4. Rules, step by step")
+    out.append("4. Rules, step by step" + (
+        "" if e.rate_unit == "kg/ha" else
+        f" (rates in {e.rate_unit}; the rules' arithmetic runs in kg/ha, given in brackets)"))
     for st in e.steps:
-        out.extend(_step_lines(st))
+        out.extend(_step_lines(st, e.rate_unit))
     out.append("")
     out.append("5. Zone rates the spreader applies here")
     if not e.zones:
@@ -435,8 +443,10 @@ def format_explanation(e: Explanation) -> str:
     for z in e.zones:
         out.append(
             f"   {z['product']}: zone {z['zone']} ({z['kind']}): "
-            f"{z['rate_in_unit']:.4g} {z['unit']}"
-            + (f" in {z['passes']} passes" if z["passes"] > 1 else "")
+            + (f"{z['rate_in_unit']:.4g} {z['unit']}" if z["unit"] == "kg/ha"
+               else format_rate(z["rate_kg_ha"], z["unit"]))
+            + ((f" as {z['schedule']}" if z.get("schedule") else f" in {z['passes']} passes")
+               if z["passes"] > 1 else "")
         )
     for n in e.notes:
         out.append(f"   note: {n}")
@@ -468,17 +478,35 @@ def _chemistry_lines(e: Explanation) -> list[str]:
     return out
 
 
-def _step_lines(st: Step) -> list[str]:
-    """One rule step of section 4 of :func:`format_explanation`."""
+def _rate_text(kg_ha: float, unit: str) -> str:
+    """A rate in ``unit`` (as every table shows it), with the kg/ha the arithmetic ran in
+    beside it (``"2,230 lb/ac (2500 kg/ha)"``) when the unit is another."""
+    if unit == "kg/ha" or not math.isfinite(kg_ha):
+        return f"{kg_ha:.1f} kg/ha"
+    return f"{format_rate(kg_ha, unit)} ({kg_ha:.6g} kg/ha)"
+
+
+def _step_lines(st: Step, rate_unit: str = "kg/ha") -> list[str]:
+    """One rule step of section 4 of :func:`format_explanation`; a value in kg/ha is shown
+    in ``rate_unit`` first, its kg/ha in brackets."""
+
+    def shown(v: Any, name: str = "") -> str:
+        # a product's rate; an amount the formula names in kg ("kg Ca/ha") stays in kg/ha
+        if (rate_unit != "kg/ha" and isinstance(v, tuple) and len(v) == 2
+                and v[1] == "kg/ha" and isinstance(v[0], (int, float))
+                and not name.startswith("kg ")):
+            return _rate_text(float(v[0]), rate_unit)
+        return _fmt(v)
+
     out = [f"   [{st.rule}] {st.description}"]
     if not st.formula and math.isnan(st.result):  # a note, not a computation
         return out
     if st.formula:
         out.append(f"      formula: {st.formula}")
     if st.inputs:
-        ins = ", ".join(f"{k} = {_fmt(v)}" for k, v in st.inputs.items())
+        ins = ", ".join(f"{k} = {shown(v, k)}" for k, v in st.inputs.items())
         out.append(f"      inputs: {ins}")
-    out.append(f"      result: {_fmt((st.result, st.unit))}")
+    out.append(f"      result: {shown((st.result, st.unit))}")
     if st.source:
         out.append(f"      source: {st.source}")
     return out

@@ -75,7 +75,7 @@ from .salinity import (
     gypsum_water_mm,
 )
 from .settings import to_mapping
-from .tonnage import first_season_tonnes, mass_unit_for, tonnage_csv
+from .tonnage import first_season_tonnes, mass_unit_for, passes_csv, tonnage_csv
 from .units import area_unit_for, rate_from_kg_ha
 from .units import format_rate as units_format_rate
 from .writers import (
@@ -420,12 +420,8 @@ def write_outputs(
                              currency=s.tonnage.currency,
                              area_unit=area_unit_for(s.output.rate_unit)))
     written.append(p)
-    passes = farm.zones[farm.zones.get("passes", pd.Series(1, index=farm.zones.index)) > 1] \
-        if "passes" in farm.zones.columns else farm.zones.iloc[0:0]
     p = out_dir / "passes.csv"
-    cols = [c for c in ("paddock", "product", "zone", "rate_kg_ha", "passes", "per_pass_kg_ha",
-                        "schedule", "area_ha") if c in passes.columns]
-    write_csv(p, pd.DataFrame(passes[cols]))
+    write_csv(p, passes_csv(farm.zones, rate_unit=s.output.rate_unit))
     written.append(p)
     p = out_dir / "samples.csv"
     samples = prep.all_samples.copy()

@@ -79,7 +79,7 @@ from .samples import (
     record_keeping_message,
 )
 from .settings import to_mapping
-from .spreader import unsplit_pass_warning
+from .spreader import pass_schedule, unsplit_pass_warning
 from .surfaces import Surface, derive_cells, interpolate_farm, variables_to_interpolate
 from .tonnage import tonnage_table
 from .zones import ZONE_COLUMNS, ZoneResult, make_zones
@@ -1026,7 +1026,8 @@ def compute(
                     settings=zone_settings,
                     spreader=s.spreader.for_product(product),
                 )
-                zone_frames.append(zr.zones)
+                zone_frames.append(_schedule_in(zr.zones, s.spreader.for_product(product),
+                                                s.output.rate_unit))
                 zone_notes.extend(zr.notes)
                 _warn_unsplit_passes(zr.zones, s, paddock=name, product=product)
             zones = (
@@ -1133,6 +1134,18 @@ def _zones_for(prep: Prepared, rate: np.ndarray, *, use_cache: bool, fill_cache:
     except OSError as exc:
         logger.info("could not write the zones cache in %s (%s)", folder, exc)
     return zr
+
+
+def _schedule_in(zones: gpd.GeoDataFrame, spreader: Any, unit: str) -> gpd.GeoDataFrame:
+    """The zones with their ``schedule`` text in the run's rate unit (``[output] rate_unit``),
+    the unit of every table and page the user reads; the cached frame is left as it is."""
+    if "schedule" not in zones.columns or not len(zones) or unit == spreader.unit:
+        return zones
+    texts = [pass_schedule(int(n), float(per), spreader, unit=unit)
+             if isinstance(t, str) and t else t
+             for n, per, t in zip(zones["passes"], zones["per_pass_kg_ha"], zones["schedule"],
+                                  strict=True)]
+    return zones.assign(schedule=texts)
 
 
 def _warn_unsplit_passes(zones: gpd.GeoDataFrame, s: Any, *, paddock: str,

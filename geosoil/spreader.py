@@ -377,8 +377,10 @@ def apply_spreader_limits(
     return out
 
 
-def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings) -> str:
-    """How a rate split by :func:`spreader_passes` is put on, in the spreader's unit.
+def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings, *,
+                  unit: str | None = None) -> str:
+    """How a rate split by :func:`spreader_passes` is put on, in the spreader's unit
+    (or ``unit``: the run shows it in ``[output] rate_unit``, as every table).
 
     ``"3 passes of 0.75 t/ha"`` when ``split_into = "passes"``; ``"2 seasons of
     2.0 t/ha"`` when ``split_into = "seasons"`` (one application a year,
@@ -392,6 +394,9 @@ def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings
         Rate per pass, kg/ha.
     spreader : SpreaderSettings
         The spreader's limits.
+    unit : str, optional
+        The rate unit of the text (one of ``kg/ha``, ``t/ha``, ``lb/ac``); default the
+        spreader's.
 
     Returns
     -------
@@ -406,7 +411,10 @@ def pass_schedule(passes: int, per_pass_kg_ha: float, spreader: SpreaderSettings
     '2 seasons of 2.0 t/ha'
     >>> pass_schedule(1, 2000.0, sp)
     ''
+    >>> pass_schedule(n, per, sp, unit="lb/ac")
+    '2 seasons of 1,784 lb/ac'
     """
     if passes <= 1:
         return ""
-    return f"{passes} {spreader.split_into} of {format_rate(per_pass_kg_ha, spreader.unit)}"
+    shown = spreader.unit if unit is None else unit
+    return f"{passes} {spreader.split_into} of {format_rate(per_pass_kg_ha, shown)}"

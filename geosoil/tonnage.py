@@ -77,6 +77,7 @@ __all__ = [
     "mass_unit_for",
     "tonnage_table",
     "tonnage_csv",
+    "passes_csv",
     "format_summary",
     "first_season_tonnes",
 ]
@@ -412,6 +413,65 @@ def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = ""
         "price_per_t", 2, 1.0 if metric else KG_PER_SHORT_TON / 1000.0)
     out[f"cost{cur}"] = fixed("cost", 2)
     return out
+
+
+def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame:
+    """The zones that need more than one pass (or season), as ``passes.csv`` shows them:
+    areas and rates in the units of ``tonnage.csv`` for ``rate_unit`` (acres and lb/ac
+    with lb/ac, else hectares and kg/ha), every figure as text with its rounding.
+
+    Parameters
+    ----------
+    zones : DataFrame
+        Zones with ``paddock``, ``product``, ``zone``, ``rate_kg_ha``, ``area_ha`` and
+        (when any zone is split) ``passes``, ``per_pass_kg_ha``, ``schedule``.
+    rate_unit : str
+        ``[output] rate_unit``: one of kg/ha, t/ha, lb/ac.
+
+    Returns
+    -------
+    DataFrame
+        One row per zone with more than one pass: ``paddock, product, zone, rate_kg_ha,
+        passes, per_pass_kg_ha, schedule, area_ha`` (``rate_lb_ac``, ``per_pass_lb_ac``,
+        ``area_ac`` with lb/ac). No row (the header alone) when every zone takes one pass.
+
+    Examples
+    --------
+    >>> z = pd.DataFrame({"paddock": ["North"], "product": ["lime"], "zone": [5],
+    ...                   "rate_kg_ha": [5000.0], "passes": [2], "per_pass_kg_ha": [2500.0],
+    ...                   "schedule": ["2 passes of 2,230 lb/ac"], "area_ha": [3.0]})
+    >>> passes_csv(z, rate_unit="lb/ac").iloc[0].tolist()
+    ['North', 'lime', '5', '4461', '2', '2230', '2 passes of 2,230 lb/ac', '7.41']
+    """
+    if rate_unit not in RATE_UNITS:
+        raise SettingsError(
+            f"rate unit '{rate_unit}' is not known; use one of {', '.join(RATE_UNITS)}",
+            key="rate_unit",
+        )
+    acres = area_unit_for(rate_unit) == "ac"
+    rate_col, per_col, area_col = (("rate_lb_ac", "per_pass_lb_ac", "area_ac") if acres
+                                   else ("rate_kg_ha", "per_pass_kg_ha", "area_ha"))
+    columns = ["paddock", "product", "zone", rate_col, "passes", per_col, "schedule", area_col]
+    if "passes" not in zones.columns:
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in columns})
+    split = zones[pd.to_numeric(zones["passes"], errors="coerce").fillna(0) > 1]
+    rate_factor = 1.0 / KG_HA_PER_LB_AC if acres else 1.0
+    area_factor = AC_PER_HA if acres else 1.0
+
+    def fixed(col: str, digits: int, factor: float) -> list[str]:
+        vals = pd.to_numeric(split[col], errors="coerce").astype(float) * factor
+        return ["" if not math.isfinite(v) else f"{v:.{digits}f}" for v in vals]
+
+    return pd.DataFrame({
+        "paddock": [str(v) for v in split["paddock"]],
+        "product": [str(v) for v in split["product"]],
+        "zone": [str(int(v)) for v in split["zone"]],
+        rate_col: fixed("rate_kg_ha", 0, rate_factor),
+        "passes": [str(int(v)) for v in split["passes"]],
+        per_col: fixed("per_pass_kg_ha", 0, rate_factor),
+        "schedule": [str(v) if isinstance(v, str) else "" for v in split["schedule"]],
+        area_col: fixed("area_ha", 2, area_factor),
+    }, columns=columns)
 
 
 def _num(value: object, digits: int) -> str:

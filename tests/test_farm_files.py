@@ -48,7 +48,7 @@ def run(tmp_path_factory: pytest.TempPathFactory, demo_run) -> dict:  # noqa: AN
     assert result.exit_code == 0, result.output
     out = root / "out"
     gpkg = out / "farm.gpkg"
-    return {"out": out, "stdout": result.stdout, "gpkg": gpkg,
+    return {"out": out, "stdout": result.stdout, "gpkg": gpkg, "farm": farm,
             "record": json.loads((out / "run.json").read_text())}
 
 
@@ -228,6 +228,61 @@ def test_tonnage_in_short_tons_adds_up_after_rounding(run) -> None:
         for prod, rows in t[t["level"] == "paddock"].groupby("product"):
             farm = t[(t["level"] == "farm") & (t["product"] == prod)]
             assert hundredths(rows, col) == hundredths(farm, col), (col, prod)
+
+
+# 1 lb/ac = 0.45359237 kg / 0.40468564224 ha = 1.12085116 kg/ha; 1 ha = 2.4710538 ac
+# (NIST SP 811, appendix B: the pound and the acre by definition), written out by hand here
+LB_AC_IN_KG_HA = 1.12085116
+AC_IN_HA = 2.4710538
+
+
+def test_passes_csv_and_the_schedule_texts_are_in_lb_ac_like_tonnage(run) -> None:
+    """With rate_unit lb/ac, passes.csv is in acres and lb/ac, rounded as tonnage.csv is, and
+    its schedule text (and the report's, the map's) says lb/ac: no t/ha or kg/ha beside."""
+    p = pd.read_csv(run["out"] / "passes.csv", dtype=str, keep_default_na=False)
+    assert list(p.columns) == ["paddock", "product", "zone", "rate_lb_ac", "passes",
+                               "per_pass_lb_ac", "schedule", "area_ac"]
+    assert len(p), "the copy's 1.5 t/ha spreader splits some zones"
+    for _, r in p.iterrows():
+        z = _zones(run, r["product"]).set_index(["paddock", "zone"]).loc[
+            (r["paddock"], int(r["zone"]))]
+        # hand arithmetic against the GeoPackage's kg/ha and ha (machine units)
+        assert r["rate_lb_ac"] == f"{z['rate_kg_ha'] / LB_AC_IN_KG_HA:.0f}"
+        assert r["per_pass_lb_ac"] == f"{z['per_pass_kg_ha'] / LB_AC_IN_KG_HA:.0f}"
+        assert re.fullmatch(r"[0-9]+\.[0-9]{2}", r["area_ac"])
+        assert abs(float(r["area_ac"]) - z["area_ha"] * AC_IN_HA) <= 0.005 + 1e-9
+        per = f"{z['per_pass_kg_ha'] / LB_AC_IN_KG_HA:,.0f}"
+        assert r["schedule"] == f"{r['passes']} passes of {per} lb/ac"
+        assert z["schedule"] == r["schedule"]  # the GeoPackage's text says the same
+    report = (run["out"] / "report.html").read_text()
+    page = (run["out"] / "map.html").read_text()
+    for text in (report, page):
+        found = re.findall(r"[0-9]+ passes of [0-9.,]+ ([a-z/]+)", text)
+        assert found and set(found) == {"lb/ac"}, set(found)
+
+
+def test_explain_gives_every_rate_in_lb_ac(run) -> None:
+    """explain shows the zone rate, its passes, the per-cell rate and the rules' product
+    rates in lb/ac (the kg/ha the arithmetic runs in beside them)."""
+    z = _zones(run, "lime")
+    split = z[z["passes"] > 1].iloc[0]
+    point = shapely.Point(*_inner_points(z.iloc[[split.name]])[(split["paddock"],
+                                                              int(split["zone"]))])
+    lonlat = pyproj.Transformer.from_crs(z.crs, 4326, always_xy=True).transform(point.x, point.y)
+    result = CliRunner().invoke(cli, ["explain", str(run["farm"]), "--at",
+                                      f"{lonlat[0]:.7f},{lonlat[1]:.7f}"])
+    assert result.exit_code == 0, result.output
+    text = result.stdout
+    per = f"{split['per_pass_kg_ha'] / LB_AC_IN_KG_HA:,.0f}"
+    total = f"{split['rate_kg_ha'] / LB_AC_IN_KG_HA:,.0f}"
+    assert f"lime: zone {int(split['zone'])} (rate): {total} lb/ac as " \
+           f"{int(split['passes'])} passes of {per} lb/ac" in text
+    note = re.search(r"per-cell lime rate before spreader limits: ([0-9,]+) lb/ac "
+                     r"\(([0-9.e+]+) kg/ha\)", text)
+    assert note, text
+    assert note[1] == f"{float(note[2]) / LB_AC_IN_KG_HA:,.0f}"
+    assert re.search(r"\[total\] lime: .*\n.*\n.*inputs: lime = [0-9,]+ lb/ac", text)
+    assert not re.search(r"result: [0-9.e+]+ kg/ha", text)  # every product rate in lb/ac
 
 
 def test_shortened_names_are_reported_with_their_original(run) -> None:

@@ -98,6 +98,10 @@ def test_pass_schedule_names_passes_or_seasons_in_the_spreader_unit() -> None:
     lb = SpreaderSettings(unit="lb/ac")
     # 2 x 1000 lb/ac: the rate per pass is shown back in lb/ac (exact factor, NIST SP 811)
     assert pass_schedule(2, float(lb_ac_to_kg_ha(1000.0)), lb) == "2 passes of 1,000 lb/ac"
+    # shown in the run's rate unit (a t/ha spreader, a report in lb/ac): 2500 kg/ha per pass
+    # / 1.12085116 kg/ha per lb/ac (NIST SP 811) = 2230.4 lb/ac
+    assert pass_schedule(2, 2500.0, SpreaderSettings(unit="t/ha"), unit="lb/ac") \
+        == "2 passes of 2,230 lb/ac"
 
 
 def test_bad_spreader_settings_name_the_key() -> None:

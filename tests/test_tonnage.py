@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 
 from geosoil.errors import InputError, SettingsError
 from geosoil.tonnage import (
+    passes_csv,
     LEVELS,
     TONNAGE_COLUMNS,
     apportion,
@@ -277,3 +278,23 @@ def test_areas_in_acres_beside_a_rate_per_acre() -> None:
         float(z["short_tons"]), rel=5e-3)
     with pytest.raises(SettingsError):
         tonnage_csv(table, area_unit="m2")
+
+
+def test_passes_csv_follows_the_rate_unit_and_is_rounded_like_tonnage() -> None:
+    """passes.csv: hectares and kg/ha (or acres and lb/ac with lb/ac) to 0.01 and to the
+    whole rate, as tonnage.csv; zones in one pass are left out."""
+    zones = pd.DataFrame({
+        "paddock": ["A", "A"], "product": ["lime", "lime"], "zone": [3, 4],
+        "rate_kg_ha": [316.636624722, 90.0], "passes": [2, 1],
+        "per_pass_kg_ha": [158.31831236117145, 90.0],
+        "schedule": ["2 seasons of 158 kg/ha", ""], "area_ha": [2.6199649122804405, 1.0]})
+    t = passes_csv(zones)
+    assert t.to_dict("records") == [{
+        "paddock": "A", "product": "lime", "zone": "3", "rate_kg_ha": "317", "passes": "2",
+        "per_pass_kg_ha": "158", "schedule": "2 seasons of 158 kg/ha", "area_ha": "2.62"}]
+    lb = passes_csv(zones, rate_unit="lb/ac").iloc[0]
+    # by hand: 316.64 / 1.12085116 = 282.5 lb/ac; 158.32 / 1.12085116 = 141.2;
+    # 2.61996 ha x 2.4710538 ac/ha = 6.474 ac (NIST SP 811)
+    assert (lb["rate_lb_ac"], lb["per_pass_lb_ac"], lb["area_ac"]) == ("282", "141", "6.47")
+    assert list(passes_csv(zones.assign(passes=1)).columns)[3] == "rate_kg_ha"
+    assert passes_csv(zones.drop(columns=["passes"])).empty
