@@ -739,7 +739,8 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     zones = farm.zones
     if zones.empty or "rate_kg_ha" not in zones.columns:
         return out
-    for _, z in zones.iterrows():
+    gcol = zones.geometry.name
+    for z in zones.to_dict("records"):
         product = prep.products.get(str(z.get("product")))
         if product is None or product.material != "gypsum":
             continue
@@ -749,7 +750,7 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
         fraction = min(1.0, product.ca_fraction / pure_ca) if product.ca_fraction > 0 else 1.0
         mm = float(gypsum_water_mm(rate / 1000.0, gypsum_fraction=fraction,
                                    solubility_g_l=sal.gypsum_solubility_g_l))
-        share = _sodic_share(farm, str(z["paddock"]), z.geometry)
+        share = _sodic_share(farm, str(z["paddock"]), z[gcol])
         out.append({"paddock": str(z["paddock"]), "zone": str(z.get("zone", "")),
                     "product": str(z["product"]), "rate_kg_ha": rate,
                     "gypsum_fraction": fraction, "water_mm": mm,

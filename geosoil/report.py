@@ -766,14 +766,16 @@ def zone_map_svg(
     if excl:
         labels.obstacles = labels.to_px(shapely.union_all(excl))
     pending: list[tuple[float, _ZoneDrawing, Any]] = []
-    for _, z in zones.iterrows():
-        d = _geom_path(z.geometry, frame.fx, frame.fy)
+    gcol = zones.geometry.name
+    for z in zones.to_dict("records"):  # plain rows: a Series a row cost more than the row
+        geom = z[gcol]
+        d = _geom_path(geom, frame.fx, frame.fy)
         if not d:
             continue
         zone = _zone_drawing(z, labelled="label" in zones.columns, top=top, pid=pid,
                              rate_unit=rate_unit, exclusion_kinds=exclusion_kinds)
         drawn.append({"d": d, "fill": zone.fill, "tip": zone.tip})
-        pending.append((z.geometry.area * frame.scale * frame.scale, zone, z.geometry))
+        pending.append((geom.area * frame.scale * frame.scale, zone, geom))
     # labels inside their zones, the smallest zones first (they have the fewest places);
     # then a numbered callout for each rate zone left without one
     callouts = []
@@ -1231,7 +1233,7 @@ def _tonnage_table(
         if "schedule" in zones.columns:
             schedules = {z: str(t) for z, t in zip(zones["zone"], zones["schedule"], strict=True)
                          if isinstance(t, str) and t}
-        for _, z in zones.iterrows():
+        for z in zones.to_dict("records"):
             if str(z["kind"]) == "exclusion":
                 label = str(z["label"]) if "label" in zones.columns and not _isnan(z["label"]) \
                     else ""
@@ -1246,7 +1248,7 @@ def _tonnage_table(
         headers += [("water to dissolve (mm)", True), ("leaching and drainage", False)]
     rows = []
     order = df.assign(_o=(df["level"] != "zone").astype(int)).sort_values("_o", kind="stable")
-    for _, r in order.iterrows():
+    for r in order.to_dict("records"):
         level = str(r["level"]).lower()
         is_zone = level == "zone"
         if is_zone and r["zone"] in names:

@@ -540,11 +540,12 @@ def _products_json(zns: Any, rate_unit: str) -> list[dict[str, Any]]:
         classes = rate_classes(list(rates),
                                fmt=lambda r: format_rate(r, rate_unit, with_unit=False))
         zones = []
-        for _, z in rows.iterrows():
+        gcol = rows.geometry.name
+        for z in rows.to_dict("records"):
             rate = float(z["rate_kg_ha"])
             schedule = z.get("schedule", "")
             item: dict[str, Any] = {
-                "g": _geometry_json(z.geometry),
+                "g": _geometry_json(z[gcol]),
                 "z": fmt_value(z["zone"]),
                 "r": format_rate(rate, rate_unit, with_unit=False) if math.isfinite(rate)
                 else "–",
@@ -555,7 +556,7 @@ def _products_json(zns: Any, rate_unit: str) -> list[dict[str, Any]]:
                 "l": fmt_value(z["label"]) if "label" in rows.columns else "",
             }
             if labelled:
-                item["at"] = _latlon(label_point(z.geometry))
+                item["at"] = _latlon(label_point(z[gcol]))
             zones.append(item)
         out.append({"product": str(product), "unit": rate_unit, "labelled": labelled,
                     "legend": classes.legend(), "zones": zones})
