@@ -380,3 +380,18 @@ def test_record_keeping_headers(header: str) -> None:
                                     "Notes (mg/kg)", "Sample %", "Kalzium frei", "column 7", ""])
 def test_headers_that_may_hold_an_analyte_are_not_record_keeping(header: str) -> None:
     assert not is_bookkeeping(header)
+
+
+@given(st.one_of(st.floats(allow_nan=False, allow_infinity=False).map(repr),
+                 st.integers(-10**9, 10**9).map(str),
+                 st.decimals(allow_nan=False, allow_infinity=False, places=3)
+                 .map(lambda d: str(d).replace(".", ",")),
+                 st.floats(0, 1000, allow_nan=False).map(lambda f: f"<{f:g}")))
+def test_a_number_names_no_column(text: str) -> None:
+    """The header search skips the numbers of a data row (geosoil.samples._find_header):
+    sound only while no number, as a lab writes it (decimal comma, below-detection "<"),
+    is read as naming an analyte, the sample ID or a coordinate."""
+    from geosoil.samples import _is_number
+
+    assert _is_number(text)
+    assert parse_header(text).role is None
