@@ -115,7 +115,8 @@ def test_gypsum_by_hand_from_the_printed_values(at_lonlat) -> None:  # noqa: ANN
     fraction = CA_IN_GYPSUM * purity * (1 - moisture)
     by_hand = ca_kg_ha / fraction
     assert by_hand > 1000  # a sodic cell
-    printed = _number(r"^   \[total\] gypsum: .*\n.*\n.*\n      result: [\d.,]+ t/ha \(([\d.e+]+) kg/ha\)", out)
+    printed = _number(r"^   \[total\] gypsum: .*\n.*\n.*\n"
+                      r"      result: [\d.,]+ t/ha \(([\d.e+]+) kg/ha\)", out)
     # the printed interpolated values carry 4 significant figures
     assert printed == pytest.approx(by_hand, rel=2e-3)
 
@@ -127,7 +128,8 @@ def test_ph_above_the_limit_gets_no_lime(at_lonlat) -> None:  # noqa: ANN001
     rates = tomllib.loads((DEMO / "geosoil.toml").read_text())["rates"]
     limit = rates["no_lime_above_ph_cacl2"]
     ph = _number(r"^   pH \(CaCl2\) = ([\d.]+)$", out)
-    lime = _number(r"^   \[total\] lime: .*\n.*\n.*\n      result: [\d.,]+ t/ha \(([\d.e+]+) kg/ha\)", out)
+    lime = _number(r"^   \[total\] lime: .*\n.*\n.*\n"
+                   r"      result: [\d.,]+ t/ha \(([\d.e+]+) kg/ha\)", out)
     assert ph > limit  # the demo's sodic patch is alkaline
     assert lime == 0
     assert re.search(r"\[lime\] pH guard.*\n.*\n.*\n      result: 0 t/ha \(0 kg/ha\)", out)

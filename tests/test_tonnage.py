@@ -13,11 +13,11 @@ from hypothesis import strategies as st
 
 from geosoil.errors import InputError, SettingsError
 from geosoil.tonnage import (
-    passes_csv,
     LEVELS,
     TONNAGE_COLUMNS,
     apportion,
     format_summary,
+    passes_csv,
     tonnage_csv,
     tonnage_table,
 )
