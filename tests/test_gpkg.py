@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
@@ -14,8 +15,9 @@ from geosoil.gpkg import plain_style, write_gpkg, zone_styles
 
 
 def test_layers_read_back_and_gdal_settings_are_left_as_they_were(tmp_path: Path) -> None:
-    """The layers are written with SQLite's per-transaction disk flush off; GDAL's
-    setting is put back afterwards (the rest of the process is not changed)."""
+    """The layers are written with SQLite's per-transaction disk flush off and its journal
+    in memory; GDAL's settings are put back afterwards (the rest of the process is not
+    changed)."""
     pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": "NORMAL"})
     try:
         a = gpd.GeoDataFrame({"paddock": ["North", "South"], "n": [1, 2]},
@@ -26,10 +28,18 @@ def test_layers_read_back_and_gdal_settings_are_left_as_they_were(tmp_path: Path
         p = write_gpkg(tmp_path / "farm.gpkg", {"paddocks": a, "samples": b},
                        styles={"paddocks": plain_style("paddocks", "outline")})
         assert pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS") == "NORMAL"
+        assert pyogrio.get_gdal_config_option("OGR_SQLITE_JOURNAL") is None
     finally:
         pyogrio.set_gdal_config_options({"OGR_SQLITE_SYNCHRONOUS": None})
     layers = [name for name, _ in pyogrio.list_layers(p)]
     assert layers == ["paddocks", "samples", "layer_styles"]
+    # SQLite's own check of the file (the Python standard library's sqlite3), no journal left
+    import sqlite3
+
+    with contextlib.closing(sqlite3.connect(p)) as db:
+        assert db.execute("PRAGMA integrity_check").fetchone() == ("ok",)
+        assert db.execute("PRAGMA journal_mode").fetchone() == ("delete",)
+    assert sorted(f.name for f in tmp_path.iterdir()) == ["farm.gpkg"]
     back = pyogrio.read_dataframe(p, layer="paddocks")
     assert back["paddock"].tolist() == ["North", "South"] and back["n"].tolist() == [1, 2]
     assert back.geometry.area.tolist() == [100.0, 100.0]
