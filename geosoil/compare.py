@@ -259,13 +259,21 @@ def read_season(path: str | Path, *, label: str) -> Season:
     return _read_project(p, label)
 
 
-def check_same_farm(last: Season, this: Season) -> None:
+def check_same_farm(last: Season, this: Season) -> list[str]:
     """Refuse two seasons that are not the same farm on the same grid.
+
+    Paddocks that only one season has are left out of the comparison, with a warning
+    naming them; the paddocks both have are compared.
+
+    Returns
+    -------
+    list of str
+        The warning naming the paddocks of one season only (empty when both have the same).
 
     Raises
     ------
     SeasonMismatchError
-        Different working CRS, different paddock names, or a paddock whose
+        Different working CRS, no paddock name in common, or a shared paddock whose
         boundaries share less than :data:`LEAST_OVERLAP` of their area.
     """
     if not last.crs.equals(this.crs):
@@ -275,19 +283,25 @@ def check_same_farm(last: Season, this: Season) -> None:
             "boundaries file or [samples] crs)")
     a = set(last.paddocks["paddock"].astype(str))
     b = set(this.paddocks["paddock"].astype(str))
-    if a != b:
-        only_a, only_b = sorted(a - b), sorted(b - a)
-        parts = []
-        if only_a:
-            parts.append(f"only in {last.name}: {', '.join(only_a)}")
-        if only_b:
-            parts.append(f"only in {this.name}: {', '.join(only_b)}")
+    only_a, only_b = sorted(a - b), sorted(b - a)
+    parts = []
+    if only_a:
+        parts.append(f"only in {last.name}: {', '.join(only_a)}")
+    if only_b:
+        parts.append(f"only in {this.name}: {', '.join(only_b)}")
+    if not a & b:
         raise SeasonMismatchError(
-            "the seasons have different paddocks (" + "; ".join(parts) + "): compare the "
+            "the seasons share no paddock (" + "; ".join(parts) + "): compare the "
             "same farm, with the paddocks named alike in both seasons' boundaries")
+    notes = []
+    if parts:
+        notes.append(
+            "paddocks that one season does not have are not compared (" + "; ".join(parts)
+            + "); the paddocks both have are: " + ", ".join(sorted(a & b))
+            + " (name a paddock alike in both seasons' boundaries to compare it)")
     ga = last.paddocks.dissolve(by="paddock").geometry
     gb = this.paddocks.dissolve(by="paddock").geometry
-    for name in sorted(a):
+    for name in sorted(a & b):
         pa, pb = ga.loc[name], gb.loc[name]
         union = shapely.union(pa, pb).area
         share = shapely.intersection(pa, pb).area / union if union > 0 else 0.0
@@ -296,6 +310,24 @@ def check_same_farm(last: Season, this: Season) -> None:
                 f"paddock '{name}' has other boundaries in {last.name} and {this.name}: they "
                 f"share {100 * share:.0f} % of their area, less than "
                 f"{100 * LEAST_OVERLAP:.0f} %: compare seasons of the same paddocks")
+    return notes
+
+
+def _only(season: Season, names: set[str]) -> Season:
+    """The season cut to the paddocks ``names``: its boundaries, samples (every layer's),
+    grids and prescription zones."""
+    if set(season.paddocks["paddock"].astype(str)) <= names:
+        return season
+
+    def cut(frame: Any) -> Any:
+        if frame is None or "paddock" not in frame.columns:
+            return frame
+        return frame[frame["paddock"].astype(str).isin(names)].reset_index(drop=True)
+
+    return dataclasses.replace(
+        season, paddocks=cut(season.paddocks), samples=cut(season.samples),
+        grids={n: g for n, g in season.grids.items() if str(n) in names},
+        zones=cut(season.zones), layers=[(layer, cut(f)) for layer, f in season.layers])
 
 
 def _values(samples: gpd.GeoDataFrame, col: str) -> bool:
@@ -606,8 +638,9 @@ def run_compare(
     Raises
     ------
     SeasonMismatchError
-        The seasons are not the same farm (CRS, paddocks) or their pH methods
-        differ with no conversion stated.
+        The seasons are not the same farm (CRS, no paddock in common, a shared paddock's
+        boundaries moved) or their pH methods differ with no conversion stated. Paddocks
+        of one season only are left out, with a warning.
     InputError
         A season is neither a project nor an output folder, or misses a file.
     """
@@ -618,8 +651,10 @@ def run_compare(
                             key="--paired-within")
     last = read_season(last_path, label="last season")
     this = read_season(this_path, label="this season")
-    check_same_farm(last, this)
-    notes: list[str] = [*(f"last season: {w}" for w in last.warnings),
+    left_out = check_same_farm(last, this)
+    shared = set(last.paddocks["paddock"].astype(str)) & set(this.paddocks["paddock"].astype(str))
+    last, this = _only(last, shared), _only(this, shared)
+    notes: list[str] = [*left_out, *(f"last season: {w}" for w in last.warnings),
                         *(f"this season: {w}" for w in this.warnings)]
     pairs = _layer_pairs(last, this, notes)
     if last.soluble_salts != this.soluble_salts:

@@ -284,12 +284,40 @@ def test_outputs_reopen_and_record(seasons: dict[str, Path]) -> None:
 # ------------------------------------------------------------------- mismatched seasons
 
 
-def test_other_paddocks_are_refused(seasons: dict[str, Path], tmp_path: Path) -> None:
+def test_seasons_sharing_no_paddock_are_refused(seasons: dict[str, Path],
+                                                 tmp_path: Path) -> None:
     other = _project(tmp_path / "other", _lab(offset=15.0, treated=True), name="Hill")
     got = invoke("compare", seasons["last_out"], other, "--out", tmp_path / "x")
     assert got.exit_code == 1
-    assert "different paddocks" in got.output and "only in this season" in got.output
+    assert "share no paddock" in got.output and "only in this season" in got.output
     assert str(other / "geosoil.toml") in got.output
+    assert not (tmp_path / "x").exists()
+
+
+def test_a_paddock_of_one_season_only_is_left_out_with_a_warning(seasons: dict[str, Path],
+                                                                 tmp_path: Path) -> None:
+    """Last season had a paddock more (West Block, sampled); this season only Flat: Flat is
+    compared, West Block named in the summary, run.json and the report."""
+    last = _project(tmp_path / "last", _lab(offset=0.0, treated=False))
+    west = shapely.box(X0 - 400.0, Y0, X0, Y0 + H)
+    both = gpd.GeoDataFrame({"name": ["Flat", "West Block"]},
+                            geometry=[shapely.box(X0, Y0, X0 + W, Y0 + H), west], crs=UTM)
+    both.to_file(last / "paddocks.gpkg")
+    rows = [f"W{i}{j},{X0 - 360 + 90 * i:.1f},{Y0 + 60 + 90 * j:.1f},6.0,8.0,3.0,0.5,0.4,0.1"
+            for i in range(4) for j in range(5)]
+    with (last / "lab.csv").open("a") as f:
+        f.write("\n".join(rows) + "\n")
+    out = tmp_path / "change"
+    got = invoke("compare", last, seasons["this"], "--out", out)
+    assert got.exit_code == 0, got.output
+    said = " ".join(got.output.split())
+    assert "not compared (only in last season" in said and "West Block" in said
+    record = json.loads((out / "run.json").read_text())
+    assert any("West Block" in w and "not compared" in w for w in record["warnings"])
+    assert {r["paddock"] for r in record["paddocks"]} == {"Flat"}
+    assert sorted(p.name for p in (out / "change").iterdir()) == ["flat"]
+    report = " ".join((out / "report.html").read_text().split())
+    assert "West Block" in report and "not compared" in report
 
 
 def test_other_crs_is_refused(seasons: dict[str, Path], tmp_path: Path) -> None:
