@@ -36,7 +36,7 @@ def _table(outcomes: list, products: list[str]) -> str:  # type: ignore[type-arg
               "Warnings", "Time (s)"]
     rows = []
     for o in outcomes:
-        ok = o.status != "failed"
+        ok = o.status not in ("failed", "not in this batch")
         rows.append([
             o.name, o.status, "" if o.paddocks is None else str(o.paddocks),
             *[f"{o.tonnes[p]:,.2f}" if ok and p in o.tonnes else "" for p in products],
@@ -105,6 +105,9 @@ def batch(ctx: click.Context, projects: tuple[Path, ...], out: Path, scheduler: 
                        progress=progress)
     echo(_table(result.outcomes, products_of(result.outcomes)))
     echo("")
+    for o in result.outcomes:
+        if o.note:
+            echo(f"{o.name}: {o.note}")
     echo(f"Batch folder: {result.out_dir}")
     for name in (SUMMARY_CSV, SUMMARY_HTML):
         echo(f"  {result.out_dir / name}")

@@ -12,6 +12,10 @@ is given, each into its usual output folder, and writes a summary of them all::
       keys/<farm>.json        per farm: the key of its inputs, settings and code, and its row
                               of the summary (a re-run skips a farm whose key is unchanged)
 
+A farm of an earlier batch into the same folder that this batch was not given keeps
+its folder and key, untouched; the summary lists it as "not in this batch" (never
+deleted in silence).
+
 The work runs on Dask's distributed scheduler: a local cluster (one worker
 process per core, one thread each, listening on the loopback address only) or
 an existing scheduler given by its address. Each farm is split into tasks:
@@ -85,6 +89,8 @@ __all__ = [
     "local_cluster",
     "products_of",
     "summary_rows",
+    "not_in_batch",
+    "NOT_IN_BATCH",
     "summary_csv",
     "summary_html",
     "require_distributed",
@@ -301,7 +307,7 @@ class FarmOutcome:
 
     name: str
     project: str
-    status: str  # "done" | "unchanged" | "failed"
+    status: str  # "done" | "unchanged" | "failed" | "not in this batch"
     farm: str = ""
     paddocks: int | None = None
     tonnes: dict[str, float] = field(default_factory=dict)
@@ -312,6 +318,7 @@ class FarmOutcome:
     peak_rss_mib: float | None = None
     surfaces_from_cache: bool | None = None
     output: str = ""
+    note: str = ""
 
     def row(self) -> dict[str, Any]:
         """The outcome as a JSON-ready mapping (the record kept in ``keys/``)."""
@@ -711,6 +718,9 @@ def _run_batch_in(out: Path, projects: list[Path], distributed: Any, *, schedule
                 own_cluster.close()
     order = _farm_names(projects)
     ordered = [outcomes[n] for n in order if n in outcomes]
+    earlier = not_in_batch(out, order)
+    for o in earlier:
+        progress(f"{o.name}: {o.note}")
     record = {
         "geosoil": __version__,
         "started": started,
@@ -721,10 +731,66 @@ def _run_batch_in(out: Path, projects: list[Path], distributed: Any, *, schedule
         "done": sum(o.status == "done" for o in ordered),
         "unchanged": sum(o.status == "unchanged" for o in ordered),
         "failed": sum(o.status == "failed" for o in ordered),
+        "not_in_this_batch": [o.name for o in earlier],
         "cautions": list(report_mod.CAUTIONS),
     }
+    ordered += earlier
     written = _write_summary(out, ordered, record)
     return BatchResult(out_dir=out, outcomes=ordered, written=written, record=record)
+
+
+NOT_IN_BATCH = "not in this batch"
+
+
+def not_in_batch(out: Path, names: Sequence[str]) -> list[FarmOutcome]:
+    """The farms an earlier batch into ``out`` left (an output folder of a run, or a key
+    in ``keys/``) that are not among ``names``: their files are left as they were, and
+    the summary says so.
+
+    Parameters
+    ----------
+    out : Path
+        The batch folder.
+    names : sequence of str
+        The farms (folder names) of this batch.
+
+    Returns
+    -------
+    list of FarmOutcome
+        One per farm left, in name order, with status ``"not in this batch"`` and a note
+        naming what was left.
+    """
+    given = {fold(n) for n in names}
+    keys = {p.stem: p for p in (out / KEYS_FOLDER).glob("*.json")} \
+        if (out / KEYS_FOLDER).is_dir() else {}
+    folders = {p.name for p in out.iterdir()
+               if p.is_dir() and (p / "run.json").is_file() and p.name != KEYS_FOLDER}
+    left = []
+    for name in sorted(set(keys) | folders):
+        if fold(name) in given:
+            continue
+        what = [f"{name}/"] if name in folders else []
+        if name in keys:
+            what.append(f"{KEYS_FOLDER}/{name}.json")
+        farm = ""
+        if name in keys:
+            row = (_read_json(keys[name]) or {}).get("row")
+            if isinstance(row, dict) and isinstance(row.get("farm"), str):
+                farm = row["farm"]
+        left.append(FarmOutcome(
+            name=name, project="", status=NOT_IN_BATCH, farm=farm,
+            output=f"{name}/" if name in folders else "",
+            note=f"{NOT_IN_BATCH}: outputs from an earlier batch left as they were "
+                 f"({' and '.join(what)}); delete them yourself if the farm is gone"))
+    return left
+
+
+def _read_json(path: Path) -> dict[str, Any] | None:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) else None
 
 
 def _cluster_info(client: Any, scheduler: str | None) -> dict[str, Any]:
@@ -878,14 +944,15 @@ def summary_rows(outcomes: Sequence[FarmOutcome]) -> tuple[list[str], list[list[
     products = products_of(outcomes)
     header = ["farm", "farm_name", "status", "paddocks",
               *[f"tonnes_{p}" for p in products], "cost", "warnings", "seconds",
-              "peak_rss_mib", "output", "error", "warning_messages"]
+              "peak_rss_mib", "output", "error", "warning_messages", "note"]
     rows = []
     for o in outcomes:
+        ran = o.status not in ("failed", NOT_IN_BATCH)
         rows.append([
             o.name, o.farm, o.status, o.paddocks,
-            *[o.tonnes.get(p) if o.status != "failed" else None for p in products],
-            o.cost, len(o.warnings) if o.status != "failed" else None, o.seconds,
-            o.peak_rss_mib, o.output, o.error, " | ".join(o.warnings),
+            *[o.tonnes.get(p) if ran else None for p in products],
+            o.cost, len(o.warnings) if ran else None, o.seconds,
+            o.peak_rss_mib, o.output, o.error, " | ".join(o.warnings), o.note,
         ])
     return header, rows
 
@@ -926,7 +993,8 @@ tr.failed td { background: #fde8e8; }
 <body>
 <h1>Batch of {{ record.farms }} farms</h1>
 <p>{{ record.done }} run, {{ record.unchanged }} unchanged since the last batch (skipped),
-{{ record.failed }} failed. Started {{ record.started }}, finished {{ record.finished }}
+{{ record.failed }} failed{% if record.get('not_in_this_batch') %}; {{ record.not_in_this_batch|length }}
+farm(s) of an earlier batch not in this batch, their outputs left as they were{% endif %}. Started {{ record.started }}, finished {{ record.finished }}
 ({{ "%.1f"|format(record.wall_s) }} s){% if record.cluster %} on {{ record.cluster.where }}
 with {{ record.cluster.workers }} worker(s), memory limit per worker
 {{ record.cluster.memory_limit_text }}{% endif %}.</p>
@@ -945,9 +1013,11 @@ with {{ record.cluster.workers }} worker(s), memory limit per worker
 <td class="num">{% if o.cost is not none %}{{ "{:,.2f}".format(o.cost) }}{% endif %}</td>
 <td>{% if o.warnings %}<details><summary>{{ o.warnings|length }}</summary><ul>
 {% for w in o.warnings %}<li>{{ w }}</li>{% endfor %}</ul></details>
-{%- elif o.status != "failed" %}0{% endif %}</td>
+{%- elif o.status not in ("failed", "not in this batch") %}0{% endif %}</td>
 <td class="num">{% if o.seconds is not none %}{{ "%.1f"|format(o.seconds) }}{% endif %}</td>
 <td>{% if o.status == "failed" %}{{ o.error }}
+{%- elif o.status == "not in this batch" %}{{ o.note }}{% if o.output %}
+<a href="{{ o.link }}">{{ o.link }}</a>{% endif %}
 {%- else %}<a href="{{ o.link }}">{{ o.link }}</a>{% endif %}</td>
 </tr>
 {% endfor %}</tbody></table>

@@ -161,6 +161,35 @@ def test_a_rerun_skips_unchanged_farms_and_runs_a_changed_one(first, client) -> 
     assert (first.out / "bravo-farm" / "tonnage.csv").stat().st_mtime_ns != stamp["bravo-farm"]
 
 
+@pytest.mark.slow
+def test_a_farm_dropped_from_the_batch_is_said_and_its_outputs_kept(first, client) -> None:
+    """A batch given only alpha-farm into the folder where bravo-farm ran before: bravo's
+    folder and key stay byte for byte, and the summary (CSV, page, record, rows) says it is
+    not in this batch and that its outputs were left as they were."""
+    bravo = first.out / "bravo-farm"
+    before = {p: p.read_bytes() for p in [*bravo.rglob("*"),
+                                          first.out / batch.KEYS_FOLDER / "bravo-farm.json"]
+              if p.is_file()}
+    only = [p for p in first.projects if p.parent.name == "alpha-farm"]
+    result = batch.run_batch(only, out_dir=first.out, client=client)
+    got = by_name(result)
+    assert got["alpha-farm"].status in ("unchanged", "done")
+    left = got["bravo-farm"]
+    assert left.status == "not in this batch"
+    assert "outputs from an earlier batch left as they were" in left.note
+    assert "bravo-farm/" in left.note and "keys/bravo-farm.json" in left.note
+    assert {p: p.read_bytes() for p in before} == before  # nothing deleted or changed
+    assert all(p.exists() for p in before)
+    lines = (first.out / batch.SUMMARY_CSV).read_text(encoding="utf-8").splitlines()
+    assert lines[0].endswith(",note")
+    row = next(x for x in lines if x.startswith("bravo-farm,"))
+    assert "not in this batch" in row and "left as they were" in row
+    page = (first.out / batch.SUMMARY_HTML).read_text(encoding="utf-8")
+    assert "not in this batch: outputs from an earlier batch left as they were" in page
+    record = json.loads((first.out / batch.BATCH_RECORD).read_text(encoding="utf-8"))
+    assert record["not_in_this_batch"] == ["bravo-farm"] and record["farms"] == 1
+
+
 # --------------------------------------------------------------------------- without a cluster
 
 
