@@ -15,7 +15,7 @@ from typing import Any, TypeVar
 
 import click
 
-from geosoil.errors import GeosoilError
+from geosoil.errors import GeosoilError, SettingsError
 
 __all__ = [
     "project_argument",
@@ -152,13 +152,20 @@ def echo_err(message: str) -> None:
 
 
 def handle_errors(func: F) -> F:
-    """Map library errors, and files that cannot be read or written, to exit 1 on stderr."""
+    """Map library errors, and files that cannot be read or written, to exit 1 on stderr;
+    a bad command-line option the library found (a :class:`SettingsError` whose key is the
+    option, ``--budget``) to a usage error naming the option (exit 2)."""
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
         try:
             return func(*args, **kwargs)
         except GeosoilError as exc:
+            key = getattr(exc, "key", None)
+            if type(exc) is SettingsError and isinstance(key, str) and key.startswith("--"):
+                raise click.BadParameter(exc.bare_message,
+                                         ctx=click.get_current_context(silent=True),
+                                         param_hint=f"'{key}'") from None
             echo_err(f"error: {exc}")
             sys.exit(1)
         except OSError as exc:  # a folder that cannot be made, a disk that is full...

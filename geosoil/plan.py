@@ -284,6 +284,10 @@ def _check_options(n_points: int | None, budget: float | None, cost_per_sample: 
         if cost_per_sample is None or not (np.isfinite(cost_per_sample) and cost_per_sample > 0):
             raise SettingsError(f"must be above 0 with --budget (got {cost_per_sample!r})",
                                 key="--cost-per-sample")
+        if math.floor(budget / cost_per_sample + 1e-9) == 0:
+            raise SettingsError(f"a budget of {budget:g} at {cost_per_sample:g} a sample "
+                                "(--cost-per-sample) buys no sample: give a budget of at least "
+                                "one sample's cost", key="--budget")
     if weighting not in WEIGHTINGS:
         raise SettingsError(f"must be one of {', '.join(WEIGHTINGS)} (got {weighting!r})",
                             key="--weight")

@@ -78,3 +78,52 @@ def test_every_command_lists_the_flags_in_its_help(command: str) -> None:
     r = CliRunner().invoke(cli, [command, "--help"])
     assert r.exit_code == 0
     assert "-q, --quiet" in r.stdout and "-v, --verbose" in r.stdout
+
+
+def _option_mistakes(tmp: Path) -> list[tuple[str, list[str], str]]:
+    """(command, arguments, the option the message must name): command-line mistakes of
+    every command, each of which the README says exits 2 (click's usage errors)."""
+    from geosoil import demo_farm
+
+    demo = Path(demo_farm.__file__).parent  # a valid project: the mistake is the option's
+    a_file = tmp / "a-file.txt"
+    a_file.write_text("x", encoding="utf-8")
+    lab, pads = demo / "lab_results.csv", demo / "paddocks.geojson"
+    return [
+        ("new", [str(tmp / "p"), "--samples", str(lab), "--paddocks", str(pads),
+                 "--crs", "EPSG:999999"], "--crs"),
+        ("check", [str(demo), "--bogus"], "--bogus"),
+        ("run", [str(demo), "--out", str(a_file)], "--out"),
+        ("demo", ["--out", str(a_file)], "--out"),
+        ("explain", [str(demo), "--at", "147.45"], "--at"),
+        ("explain", [str(demo), "--at", "147.45,-34.69", "--coords", "utm"], "--coords"),
+        ("plan", [str(demo), "--points", "3", "--variable", "zinc", "--out", str(tmp / "o")],
+         "--variable"),
+        ("plan", [str(demo), "--budget", "10", "--cost-per-sample", "45",
+                  "--out", str(tmp / "o")], "--budget"),
+        ("plan", [str(demo), "--points", "3", "--weight", "limit", "--variable", "ca",
+                  "--out", str(tmp / "o")], "--weight"),
+        ("compare", [str(demo), str(demo), "--out", str(tmp / "o"),
+                     "--ph-conversion", "pH = 3"], "--ph-conversion"),
+        ("compare", [str(demo), str(demo), "--out", str(tmp / "o"),
+                     "--ph-conversion", "water = water + 1"], "--ph-conversion"),
+        ("compare", [str(demo), str(demo), "--out", str(tmp / "o"), "--z", "0"], "--z"),
+        ("batch", [str(demo), "--out", str(tmp / "b"), "--memory-limit", "lots"],
+         "--memory-limit"),
+        ("batch", [str(demo), "--out", str(tmp / "b"), "--workers", "0"], "--workers"),
+    ]
+
+
+@pytest.mark.parametrize("k", range(14))
+def test_a_command_line_mistake_exits_2_naming_the_option(k: int, tmp_path: Path) -> None:
+    """README: exit 2 for a mistake on the command line (was 1 with "setting '--budget'" for
+    the options the library checks); the option is named; nothing is written."""
+    cases = _option_mistakes(tmp_path)
+    assert len(cases) == 14
+    command, args, option = cases[k]
+    r = CliRunner().invoke(cli, [command, *args])
+    assert r.exit_code == 2, (command, r.output)
+    assert f"'{option}'" in r.stderr or f"{option}" in r.stderr.split("Error:")[-1], r.stderr
+    assert f"cli {command} [OPTIONS]" in r.stderr  # the usage line (the runner names it cli)
+    assert "setting '--" not in r.stderr
+    assert not (tmp_path / "o").exists() and not (tmp_path / "p").exists()

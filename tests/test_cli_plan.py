@@ -121,7 +121,9 @@ def test_budget_sets_the_number_of_points(planned: dict[str, object], tmp_path: 
     assert "largest remainder" in record["budget"]["rule"]
     assert len(pd.read_csv(tmp_path / "b" / "plan_points.csv")) == 3
     none = invoke("plan", farm, "--budget", 20, "--cost-per-sample", 30, "--out", tmp_path / "c")
-    assert none.exit_code == 1 and "buys no sample" in none.output
+    # a command-line mistake: exit 2 naming the option, before anything is computed
+    assert none.exit_code == 2 and "buys no sample" in none.output
+    assert "Invalid value for '--budget'" in none.output and not (tmp_path / "c").exists()
 
 
 def test_budget_and_points_options_go_together_right(planned: dict[str, object],
@@ -146,14 +148,14 @@ def test_weight_by_nearness_to_the_sodic_limit(planned: dict[str, object],
         ["nearness to the sodic limit (ESP 6 %)"] * 2
     bad = invoke("plan", farm, "--points", 3, "--weight", "limit", "--variable", "ca",
                  "--out", tmp_path / "m")
-    assert bad.exit_code == 1 and "no class limit" in bad.output
+    assert bad.exit_code == 2 and "no class limit" in bad.output and "'--weight'" in bad.output
 
 
 def test_plan_bad_options(planned: dict[str, object], tmp_path: Path) -> None:
     farm = planned["farm"]
     assert invoke("plan", farm, "--points", 0, "--out", tmp_path / "x").exit_code == 2
     bad = invoke("plan", farm, "--points", 2, "--out", tmp_path / "y", "--variable", "zinc")
-    assert bad.exit_code == 1 and "--variable" in bad.output
+    assert bad.exit_code == 2 and "Invalid value for '--variable'" in bad.output
 
 
 def test_points_keep_the_edge_setback(planned: dict[str, object], tmp_path: Path) -> None:
