@@ -993,8 +993,10 @@ tr.failed td { background: #fde8e8; }
 <body>
 <h1>Batch of {{ record.farms }} farms</h1>
 <p>{{ record.done }} run, {{ record.unchanged }} unchanged since the last batch (skipped),
-{{ record.failed }} failed{% if record.get('not_in_this_batch') %}; {{ record.not_in_this_batch|length }}
-farm(s) of an earlier batch not in this batch, their outputs left as they were{% endif %}. Started {{ record.started }}, finished {{ record.finished }}
+{{ record.failed }} failed{% if record.get('not_in_this_batch') %};
+{{ record.not_in_this_batch|length }} farm(s) of an earlier batch not in this batch, their
+outputs left as they were{% endif %}. Started {{ record.started }},
+finished {{ record.finished }}
 ({{ "%.1f"|format(record.wall_s) }} s){% if record.cluster %} on {{ record.cluster.where }}
 with {{ record.cluster.workers }} worker(s), memory limit per worker
 {{ record.cluster.memory_limit_text }}{% endif %}.</p>
