@@ -40,6 +40,7 @@ import json
 import logging
 import re
 import shutil
+import weakref
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -725,6 +726,12 @@ def _surface_record(surf: Any) -> dict[str, Any]:
     return rec
 
 
+#: The farm (a weak reference: never kept alive for this) and zones :func:`gypsum_water`
+#: last answered for, and its answer: the run record, the cautions and the report each ask
+#: for it (a spreader grid has thousands of zones to measure).
+_GYPSUM_WATER_LAST: list[Any] = [lambda: None, None, None]
+
+
 def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     """Per zone of a gypsum product: the water (mm) that only dissolves its rate.
 
@@ -732,6 +739,15 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     solubility is ``[salinity] gypsum_solubility_g_l`` (see
     :func:`geosoil.salinity.gypsum_water_mm`).
     """
+    last_farm, last_zones, rows = _GYPSUM_WATER_LAST
+    if last_farm() is farm and last_zones == id(farm.zones):
+        return [dict(r) for r in rows]
+    rows = _gypsum_water(farm)
+    _GYPSUM_WATER_LAST[:] = [weakref.ref(farm), id(farm.zones), rows]
+    return [dict(r) for r in rows]
+
+
+def _gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     prep = farm.prep
     sal = prep.project.settings.salinity
     pure_ca = MATERIALS["gypsum"].fraction("Ca")
@@ -740,6 +756,7 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     if zones.empty or "rate_kg_ha" not in zones.columns:
         return out
     gcol = zones.geometry.name
+    cells: dict[str, Any] = {}  # per paddock: its cells' centres and ESP, made once
     for z in zones.to_dict("records"):
         product = prep.products.get(str(z.get("product")))
         if product is None or product.material != "gypsum":
@@ -750,7 +767,7 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
         fraction = min(1.0, product.ca_fraction / pure_ca) if product.ca_fraction > 0 else 1.0
         mm = float(gypsum_water_mm(rate / 1000.0, gypsum_fraction=fraction,
                                    solubility_g_l=sal.gypsum_solubility_g_l))
-        share = _sodic_share(farm, str(z["paddock"]), z[gcol])
+        share = _sodic_share(farm, str(z["paddock"]), z[gcol], cells=cells)
         out.append({"paddock": str(z["paddock"]), "zone": str(z.get("zone", "")),
                     "product": str(z["product"]), "rate_kg_ha": rate,
                     "gypsum_fraction": fraction, "water_mm": mm,
@@ -758,29 +775,39 @@ def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     return out
 
 
-def _sodic_share(farm: FarmResult, paddock: str, geometry: Any) -> float | None:
+def _sodic_share(farm: FarmResult, paddock: str, geometry: Any,
+                 cells: dict[str, Any] | None = None) -> float | None:
     """The share of a zone's cells whose ESP (in any layer gypsum treats) is at or above the
     gypsum rule's leaching limit: there the displaced sodium must be leached, so the soil
-    must drain. None when the zone has no cells with ESP."""
+    must drain. None when the zone has no cells with ESP. ``cells`` keeps each paddock's
+    cell centres and largest ESP between calls (a spreader grid has thousands of zones)."""
     import shapely
 
     pr = farm.paddocks.get(paddock)
     if pr is None or geometry is None or geometry.is_empty:
         return None
+    cells = {} if cells is None else cells
+    if paddock not in cells:
+        treated = {label for label, *_ in pr.gypsum_spans}
+        found = [pr.cells.get("esp")] + [c.get("esp") for layer, c in pr.layers
+                                         if layer.label in treated]
+        esps = [e for e in found if e is not None]
+        cells[paddock] = (None if not esps else
+                          (*pr.grid.cell_centres(),
+                           np.fmax.reduce([e[pr.grid.mask] for e in esps])))
+    if cells[paddock] is None:
+        return None
+    x, y, most = cells[paddock]
     limit = farm.prep.project.settings.rates.for_paddock(paddock).gypsum.leaching_note_esp_percent
-    treated = {label for label, *_ in pr.gypsum_spans}
-    found = [pr.cells.get("esp")] + [cells.get("esp") for layer, cells in pr.layers
-                                     if layer.label in treated]
-    esps = [e for e in found if e is not None]
-    if not esps:
+    # the cells in the zone's bounds first (a zone is small beside its paddock), then in it
+    x0, y0, x1, y1 = geometry.bounds
+    near = np.flatnonzero((x >= x0) & (x <= x1) & (y >= y0) & (y <= y1))
+    inside = near[shapely.contains_xy(geometry, x[near], y[near])]
+    if not inside.size:
         return None
-    x, y = pr.grid.cell_centres()
-    inside = shapely.contains_xy(geometry, x, y)
-    if not inside.any():
-        return None
-    most = np.fmax.reduce([e[pr.grid.mask] for e in esps])[inside]
-    known = np.isfinite(most)
-    return float((most[known] >= limit).mean()) if known.any() else None
+    values = most[inside]
+    known = np.isfinite(values)
+    return float((values[known] >= limit).mean()) if known.any() else None
 
 
 #: What the gypsum water figure means, for run.json and the report.

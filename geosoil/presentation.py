@@ -35,6 +35,7 @@ This module is pure: nothing here reads or writes files.
 from __future__ import annotations
 
 import base64
+import functools
 import html
 import json
 import math
@@ -58,6 +59,7 @@ __all__ = [
     "classes_data_uri",
     "classes_for",
     "classes_png",
+    "MAX_ZONE_LABELS",
     "colourise",
     "escape_text",
     "fmt_number",
@@ -267,6 +269,13 @@ def lightness(colour: str) -> float:
     return 116 * y ** (1 / 3) - 16 if y > 216 / 24389 else 24389 / 27 * y
 
 
+#: Most zones in one drawing (a product layer of the map, a zone map of the report) that are
+#: each labelled with their rate; a drawing with more (a spreader grid) labels none: the
+#: map shows the rate on hover and in the popup, the report's table lists every zone.
+MAX_ZONE_LABELS: int = 80
+
+
+@functools.lru_cache(maxsize=4096)
 def palette_colour(name: str, t: float) -> str:
     """The hex colour at position ``t`` (0 to 1, clipped) along palette ``name``
     (linear in sRGB between its anchors).

@@ -46,6 +46,7 @@ import shapely
 
 from .errors import GeosoilError, InputError, SettingsError
 from .presentation import (
+    MAX_ZONE_LABELS,
     Classes,
     classes_data_uri,
     escape_text,
@@ -749,8 +750,11 @@ def zone_map_svg(
         geoms.append(outline)
     if not geoms:
         return _drawing("note", "no-zones", "No zones to draw.")
-    frame = _Frame.around(geoms, width=width, max_height=max_height, pad=12, foot=28,
-                          min_width=240)
+    # a zone map of more zones than a drawing can label (a spreader grid) labels none: one
+    # line under it says so (the table lists every zone)
+    labelled = len(zones) <= MAX_ZONE_LABELS
+    frame = _Frame.around(geoms, width=width, max_height=max_height, pad=12,
+                          foot=28 if labelled else 44, min_width=240)
     rates = zones["rate_kg_ha"].astype(float)
     spread = zones["kind"].astype(str) != "exclusion"
     top = (
@@ -779,7 +783,7 @@ def zone_map_svg(
     # labels inside their zones, the smallest zones first (they have the fewest places);
     # then a numbered callout for each rate zone left without one
     callouts = []
-    for area_px, zone, geom in sorted(pending, key=lambda t: t[0]):
+    for area_px, zone, geom in sorted(pending, key=lambda t: t[0]) if labelled else ():
         if not (area_px >= LABEL_MIN_AREA_PX and labels.place(zone, geom)) \
                 and not zone.excluded:
             callouts.append((zone, geom))
@@ -789,7 +793,9 @@ def zone_map_svg(
         "width": frame.width, "height": frame.height, "pid": pid, "zones": drawn,
         "outline": (_geom_path(outline, frame.fx, frame.fy)
                     if outline is not None and not outline.is_empty else ""),
-        "labels": labels.labels, "bar": frame.scale_bar(frame.height - 14),
+        "labels": labels.labels, "bar": frame.scale_bar(frame.height - (14 if labelled else 30)),
+        "note": None if labelled else (f"{len(zones):,} zones, too many to label here: each "
+                                       "is in the table below"),
     })
 
 

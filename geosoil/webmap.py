@@ -57,6 +57,7 @@ from rasterio.enums import Resampling
 
 from .errors import CRSError, GeosoilError, InputError, SettingsError
 from .presentation import (
+    MAX_ZONE_LABELS,
     Classes,
     classes_data_uri,
     fmt_number,
@@ -83,10 +84,6 @@ __all__ = [
 ]
 
 logger = logging.getLogger(__name__)
-
-#: Most zones in one product layer that are each labelled with their rate; a layer
-#: with more (a spreader grid) shows the rate on hover and in the popup only.
-MAX_ZONE_LABELS: int = 80
 
 #: The optional background tiles (only named in the page when ``background_tiles=True``).
 TILE_URL = "https://tile.openstreetmap.org/{z}/{x}/{y}.png"

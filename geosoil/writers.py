@@ -257,7 +257,24 @@ def jsonable(obj: Any) -> Any:
     >>> jsonable({"a": float("nan"), "b": np.array([1.5, np.inf]), "c": np.int64(3)})
     {'a': None, 'b': [1.5, None], 'c': 3}
     """
-    if obj is None or isinstance(obj, (bool, str)):
+    # the plain types first, by exact type (a run record of a spreader grid holds hundreds
+    # of thousands of values; the isinstance tests below go through abstract classes)
+    kind = type(obj)
+    if kind is str or kind is int or kind is bool or obj is None:
+        return obj
+    if kind is float:
+        return obj if math.isfinite(obj) else None
+    if kind is dict:
+        return {k if type(k) is str else str(k): jsonable(v) for k, v in obj.items()}
+    if kind is list or kind is tuple:
+        return [jsonable(v) for v in obj]
+    return _jsonable_other(obj)
+
+
+def _jsonable_other(obj: Any) -> Any:
+    """:func:`jsonable` of anything but a plain str, int, bool, None, float, dict, list or
+    tuple."""
+    if isinstance(obj, (bool, str)):
         return obj
     if isinstance(obj, (int, np.integer)) and not isinstance(obj, bool):
         return int(obj)
@@ -411,15 +428,46 @@ def write_csv(path: str | os.PathLike[str], table: pd.DataFrame, *, index: bool 
 MIN_PART_M2 = 1.0
 
 
-def _areas_m2(parts: Sequence[BaseGeometry], crs: Any) -> NDArray[np.float64]:
-    """Area (m²) of each polygon: on the WGS 84 ellipsoid for a geographic CRS, else planar
-    in the CRS's linear unit."""
-    crs = crs if isinstance(crs, pyproj.CRS) else _crs(crs)
-    if crs.is_geographic:
-        geod = pyproj.Geod(ellps="WGS84")
-        return np.array([abs(geod.geometry_area_perimeter(p)[0]) for p in parts])
-    unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
-    return np.asarray(shapely.area(np.asarray(parts, dtype=object)), dtype=float) * unit**2
+_WGS84_ELLIPSOID = pyproj.Geod(ellps="WGS84")
+
+#: The last CRS :func:`_area_basis` was asked about and its answer: a frame's geometries
+#: share one CRS object, and pyproj's answers (is_geographic, axis_info) cost more than
+#: a small zone's repair (a spreader grid writes thousands of zones).
+_LAST_BASIS: list[Any] = [None, None]
+
+
+def _area_basis(crs: Any) -> tuple[bool, float]:
+    """Whether ``crs`` is geographic, and its linear unit in metres (else 1)."""
+    if _LAST_BASIS[0] is crs:
+        return _LAST_BASIS[1]  # type: ignore[no-any-return]
+    c = crs if isinstance(crs, pyproj.CRS) else _crs(crs)
+    basis = (bool(c.is_geographic),
+             float(c.axis_info[0].unit_conversion_factor) if c.axis_info else 1.0)
+    _LAST_BASIS[:] = [crs, basis]
+    return basis
+
+
+#: Metres in a degree of latitude (and of longitude at the equator), near enough to tell a
+#: part far above :data:`MIN_PART_M2` from one near it (WGS 84, about 111.3 km).
+_M_PER_DEGREE = 111_320.0
+
+
+def _small(parts: Sequence[BaseGeometry], crs: Any, min_m2: float) -> NDArray[np.bool_]:
+    """Whether each polygon's area is under ``min_m2`` m²: on the WGS 84 ellipsoid for a
+    geographic CRS (pyproj's geodesic area, for the parts a plain estimate puts within 10
+    times the limit; the estimate, degrees² times the metres a degree covers there, is
+    within a few per cent of it at paddock scale), else planar in the CRS's linear unit."""
+    geographic, unit = _area_basis(crs)
+    arr = np.asarray(parts, dtype=object)
+    planar = np.asarray(shapely.area(arr), dtype=float)
+    if not geographic:
+        return planar * unit**2 < min_m2
+    lat = np.radians(np.asarray(shapely.get_y(shapely.centroid(arr)), dtype=float))
+    estimate = planar * _M_PER_DEGREE**2 * np.cos(lat)
+    small = estimate < min_m2
+    for i in np.flatnonzero(estimate < 10 * min_m2):
+        small[i] = abs(_WGS84_ELLIPSOID.geometry_area_perimeter(arr[i])[0]) < min_m2
+    return small
 
 
 def valid_polygons(geom: BaseGeometry | None, crs: Any, *,
@@ -468,13 +516,13 @@ def valid_polygons(geom: BaseGeometry | None, crs: Any, *,
         return None
     kept: list[BaseGeometry] = []
     changed = len(parts) != len(shapely.get_parts(geom))
-    for part, area in zip(parts, _areas_m2(parts, crs), strict=True):
-        if area < min_part_m2:
+    for part, tiny in zip(parts, _small(parts, crs, min_part_m2), strict=True):
+        if tiny:
             changed = True
             continue
         holes = list(part.interiors)
         if holes:
-            small = _areas_m2([shapely.Polygon(h) for h in holes], crs) < min_part_m2
+            small = _small([shapely.Polygon(h) for h in holes], crs, min_part_m2)
             if small.any():
                 changed = True
                 part = shapely.Polygon(part.exterior, [h for h, s in zip(holes, small,

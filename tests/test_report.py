@@ -873,3 +873,25 @@ def test_share_inside_equals_shapely_intersection():
     want = shapely.area(shapely.intersection(boxes, zone)) / (4 * half_w * half_h)
     assert ((want > 0) & (want < 1)).sum() > 20  # many boxes on the zone's edge
     np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)
+
+
+def test_a_zone_map_of_more_zones_than_a_drawing_can_label_labels_none_and_says_so() -> None:
+    """A spreader grid's zone map (more zones than MAX_ZONE_LABELS) draws every zone and no
+    label, callout or leader, with one line saying the table lists them; one at the limit
+    is labelled as before."""
+    from geosoil.presentation import MAX_ZONE_LABELS
+
+    def grid(n: int) -> gpd.GeoDataFrame:
+        cols = 10
+        boxes = [box(24 * (i % cols), 24 * (i // cols), 24 * (i % cols) + 24,
+                     24 * (i // cols) + 24) for i in range(n)]
+        return gpd.GeoDataFrame({"zone": range(1, n + 1), "kind": ["rate"] * n,
+                                 "rate_kg_ha": [500.0 + 10 * i for i in range(n)]},
+                                geometry=boxes, crs="EPSG:32755")
+
+    many = report.zone_map_svg(grid(MAX_ZONE_LABELS + 1), rate_unit="t/ha")
+    assert many.count('class="zone"') == MAX_ZONE_LABELS + 1
+    assert "zone-label" not in many and "zone-leader" not in many
+    assert f"{MAX_ZONE_LABELS + 1} zones, too many to label here" in many
+    few = report.zone_map_svg(grid(MAX_ZONE_LABELS), rate_unit="t/ha")
+    assert "zone-label" in few and "too many to label" not in few

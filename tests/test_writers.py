@@ -14,10 +14,13 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pyogrio
+import pyproj
 import pytest
 import rasterio
 import shapely
 from affine import Affine
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import geosoil.writers as writers
 from geosoil.errors import CRSError
@@ -362,3 +365,59 @@ def test_valid_polygons_repairs_leaves_alone_and_drops() -> None:
                                shapely.box(147.1, -35, 147.100001, -34.999999)])
     kept = writers.valid_polygons(ll, "EPSG:4326")
     assert kept.geom_type == "Polygon" and kept.equals(ll.geoms[0])
+
+
+def _json_reference(obj):  # noqa: ANN001, ANN202
+    """What a run record's value is in JSON (RFC 8259 has no NaN or infinity): the test's
+    own plain walk, one rule a type."""
+    import math
+
+    if isinstance(obj, dict):
+        return {str(k): _json_reference(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple, np.ndarray)):
+        return [_json_reference(v) for v in obj]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return float(obj) if math.isfinite(obj) else None
+    return obj
+
+
+_json_leaves = (st.none() | st.booleans() | st.integers(-10**12, 10**12) | st.text(max_size=5)
+                | st.floats(allow_nan=True, allow_infinity=True)
+                | st.integers(-100, 100).map(np.int64) | st.floats(-1e6, 1e6).map(np.float64)
+                | st.sampled_from([np.nan, np.inf, -np.inf, np.bool_(True)]))
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.recursive(_json_leaves, lambda kids: st.lists(kids, max_size=4)
+                    | st.lists(kids, max_size=3).map(tuple)
+                    | st.dictionaries(st.text(max_size=4) | st.integers(0, 9), kids,
+                                      max_size=4), max_leaves=25))
+def test_jsonable_is_plain_json_with_no_nan(value) -> None:  # noqa: ANN001
+    """Nested records of Python and numpy values become plain JSON (NaN and infinities
+    None, numpy scalars Python's, tuples lists, keys text), as a plain walk makes them, and
+    the standard library writes them without NaN (json.dumps allow_nan=False)."""
+    out = writers.jsonable(value)
+    assert out == _json_reference(value)
+    json.dumps(out, allow_nan=False)
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.floats(-70, 70), st.floats(-179, 179), st.floats(0.05, 40.0), st.floats(0.05, 40.0))
+def test_small_parts_in_longitude_latitude_agree_with_the_geodesic_area(
+        lat: float, lon: float, w_m: float, h_m: float) -> None:
+    """A part under MIN_PART_M2 in longitude/latitude is told by its geodesic area on the
+    WGS 84 ellipsoid (pyproj's Geod, the reference), also when the writer's plain estimate
+    decides (parts far from the limit)."""
+    import math
+
+    geod = pyproj.Geod(ellps="WGS84")
+    dlat = h_m / 111_000.0
+    dlon = w_m / (111_000.0 * math.cos(math.radians(lat)))
+    part = shapely.box(lon, lat, lon + dlon, lat + dlat)
+    exact = abs(geod.geometry_area_perimeter(part)[0])
+    got = writers._small([part], "EPSG:4326", MIN_PART_M2)
+    assert bool(got[0]) == (exact < MIN_PART_M2)
