@@ -9,6 +9,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import platform
+import sys
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -83,6 +84,13 @@ def _versions() -> dict[str, str]:
     out = {"geosoil": __version__, "python": platform.python_version()}
     for pkg in ("numpy", "scipy", "pandas", "geopandas", "shapely", "pyproj", "rasterio",
                 "pyogrio", "jinja2", "django-js-lib-leaflet", "jenkspy"):
+        # a package already imported says its version itself (its metadata, looked up by
+        # scanning the installed packages, costs milliseconds a package; a test holds the
+        # two equal)
+        loaded = getattr(sys.modules.get(pkg), "__version__", None)
+        if isinstance(loaded, str):
+            out[pkg] = loaded
+            continue
         try:
             out[pkg] = md.version(pkg)
         except md.PackageNotFoundError:
