@@ -33,15 +33,16 @@ def check(ctx: click.Context, project: Path) -> None:
     with loading_stack():
         from geosoil.errors import SettingsError
         from geosoil.pipeline import check as check_project
-        from geosoil.project import load_project_problems
+        from geosoil.project import PROJECT_FILE_NAME, load_project_problems
 
     proj, problems = load_project_problems(project)
     if proj is None:
         for p in problems:
             echo_err(f"problem: {p}")
         if all(isinstance(p, SettingsError) for p in problems):
+            toml = project / PROJECT_FILE_NAME if project.is_dir() else project
             echo_err(
-                f"{len(problems)} problem(s) in the settings of {project}; "
+                f"{len(problems)} problem(s) found in the settings of {toml.resolve()}; "
                 "the input files are checked once the settings are valid"
             )
         sys.exit(1)

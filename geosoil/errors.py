@@ -86,13 +86,21 @@ class SettingsError(GeosoilError, ValueError):
     """A setting in a project file (or passed to the library) is wrong.
 
     ``key`` is the dotted key as written in the project file,
-    e.g. ``rates.gypsum.target_esp_percent``.
+    e.g. ``rates.gypsum.target_esp_percent``; ``source`` the file it was read from,
+    when known (``setting 'grid.cell_size_m' in /farm/geosoil.toml: ...``).
     """
 
-    def __init__(self, message: str, *, key: str | None = None) -> None:
+    def __init__(self, message: str, *, key: str | None = None,
+                 source: str | os.PathLike[str] | None = None) -> None:
         self.key = key
         self.bare_message = message
-        super().__init__(f"setting '{key}': {message}" if key else message)
+        self.source = None if source is None else os.fspath(source)
+        where = f" in {self.source}" if self.source else ""
+        if key:
+            text = f"setting '{key}'{where}: {message}"
+        else:
+            text = f"{self.source}: {message}" if self.source else message
+        super().__init__(text)
 
 
 class CRSError(GeosoilError, ValueError):

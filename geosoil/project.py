@@ -436,7 +436,10 @@ def parse_project(text: str, *, base_dir: Path, source: str = "project file") ->
     if settings is not None:
         return settings
     if len(problems) == 1:
-        raise problems[0]
+        only = problems[0]
+        if type(only) is SettingsError and only.source is None:  # name the file it is in
+            raise SettingsError(only.bare_message, key=only.key, source=source)
+        raise only
     raise SettingsError(
         f"{len(problems)} problems in {source}:\n" + "\n".join(f"  {p}" for p in problems)
     )
@@ -485,7 +488,7 @@ def load_project(path: Path | str) -> Project:
     """
     p = _project_path(path)
     text = _read_text(p)
-    settings = parse_project(text, base_dir=p.parent.resolve(), source=str(p))
+    settings = parse_project(text, base_dir=p.parent.resolve(), source=str(p.resolve()))
     return Project(settings=settings, path=p.resolve(), text=text)
 
 

@@ -156,7 +156,8 @@ def check_range(
     high_bad = maximum is not None and value > maximum
     if low_bad or high_bad:
         if minimum is not None and maximum is not None:
-            rng = f"{'more than' if exclusive_minimum else 'from'} {minimum:g} to {maximum:g}{u}"
+            rng = (f"more than {minimum:g} and at most {maximum:g}{u}" if exclusive_minimum
+                   else f"from {minimum:g} to {maximum:g}{u}")
         elif minimum is not None:
             rng = f"{'more than' if exclusive_minimum else 'at least'} {minimum:g}{u}"
         else:

@@ -110,6 +110,7 @@ def test_value_out_of_range_names_the_key_and_the_range(tmp_path: Path) -> None:
     r, problems = _broken(tmp_path, extra="[rates.gypsum]\ntarget_esp_percent = 120\n")
     assert "'rates.gypsum.target_esp_percent'" in problems[0]
     assert "from 0 to 100 %" in problems[0] and "got 120" in problems[0]
+    assert " to 100 %" in problems[0] and "more than 0 to" not in problems[0]
 
 
 def test_wrong_type_names_the_key(tmp_path: Path) -> None:
@@ -129,6 +130,26 @@ def test_several_settings_problems_are_all_listed(tmp_path: Path) -> None:
         assert f"'{key}'" in text
     assert "did you mean 'quantiles'" in text and "did you mean 'output'" in text
     assert "4 problem(s)" in r.stderr
+    # the summary names the project file, as the problems found in the inputs do
+    toml = (tmp_path / "farm" / "geosoil.toml").resolve()
+    assert f"4 problem(s) found in the settings of {toml};" in r.stderr
+
+
+def test_a_settings_problem_names_the_project_file_in_check_and_run(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """Given as a bare folder name ('check bad'), the messages name the TOML file, not 'the
+    settings of bad'; run's error names it too."""
+    make_project(tmp_path / "bad", extra="[grid]\ncell_size_m = -5\n")
+    monkeypatch.chdir(tmp_path)
+    toml = (tmp_path / "bad" / "geosoil.toml").resolve()
+    r = check(Path("bad"))
+    assert r.exit_code == 1
+    assert f"found in the settings of {toml};" in r.stderr
+    assert "settings of bad;" not in r.stderr
+    run = CliRunner().invoke(cli, ["run", "bad", "--out", str(tmp_path / "out")])
+    assert run.exit_code == 1
+    assert f"setting 'grid.cell_size_m' in {toml}: must be" in run.stderr
 
 
 def test_missing_samples_file_is_named(tmp_path: Path) -> None:

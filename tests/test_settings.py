@@ -55,6 +55,21 @@ def test_nested_key_named_in_message() -> None:
     assert "from 0 to 100 %" in str(e.value) and "150" in str(e.value)
 
 
+def test_a_range_open_at_its_low_end_reads_as_english() -> None:
+    """Issue: 'must be more than 0 to 100 %' was garbled: a range whose low end is not
+    allowed says 'more than 0 and at most 100 %'; a closed one 'from 0 to 100 %'."""
+    from geosoil.settings import check_range
+
+    with pytest.raises(SettingsError) as e:
+        check_range(120.0, key="purity_percent", minimum=0.0, maximum=100.0,
+                    exclusive_minimum=True, unit="%")
+    assert str(e.value) == ("setting 'purity_percent': must be more than 0 and at most 100 % "
+                            "(got 120)")
+    with pytest.raises(SettingsError) as e:
+        check_range(0.0, key="k", minimum=0.0, maximum=100.0, exclusive_minimum=True, unit="%")
+    assert "more than 0 and at most 100 %" in str(e.value) and " to " not in str(e.value)
+
+
 def test_choices_listed() -> None:
     with pytest.raises(SettingsError) as e:
         from_mapping(Outer, {"file": "a", "inner": {"method": "alpah"}})
