@@ -91,6 +91,7 @@ from .writers import (
 
 __all__ = [
     "write_outputs",
+    "task_designator",
     "build_record",
     "build_farm_map",
     "report_input",
@@ -520,6 +521,29 @@ def _write_grids(farm: FarmResult, out_dir: Path, cog: Any, progress: Any) -> No
                 pr.grid.transform, f"{gyp} for rule gypsum, {label} layer's part", "kg/ha")
 
 
+def task_designator(paddock: str, label: str, product: str, step: str = "") -> str:
+    """A task's name for the terminal: paddock, pass and product, within ISO 11783-10's
+    32 characters where it can be.
+
+    The product's label when the name fits ("Red Hill Agricultural lime"), else its
+    key in ``[products]`` ("Tiny Lot lime": the default label "agricultural lime
+    (calcite)" is long); the product element keeps the whole label either way. A name
+    that does not fit even so (a long paddock name) is cut later, and listed.
+
+    Examples
+    --------
+    >>> task_designator("Tiny Lot", "agricultural lime (calcite)", "lime")
+    'Tiny Lot lime'
+    >>> task_designator("Red Hill", "Gypsum", "gypsum", "pass 1/2")
+    'Red Hill pass 1/2 Gypsum'
+    """
+    head = " ".join(t for t in (paddock, step) if t)
+    full = f"{head} {label}"
+    if len(full) <= MAX_DESIGNATOR or len(f"{head} {product}") > MAX_DESIGNATOR:
+        return full
+    return f"{head} {product}"
+
+
 class _IsoNames:
     """Every ISO 11783-10 designator of a run: distinct, cut to the standard's 32
     characters, each change kept (original, short) for run.json and the summary.
@@ -547,7 +571,8 @@ class _IsoNames:
                 for k in range(1, n + 1):
                     lab = f"{word} {k}/{n} {label}" if n > 1 else label
                     labels.append(lab)
-                    tasks.append(f"{name} {lab}")
+                    tasks.append(task_designator(name, label, product,
+                                                 f"{word} {k}/{n}" if n > 1 else ""))
                     self.keys.append((name, product, k, n))
         # only the names that go into a written task set are shortened and recorded
         self.farm = self._short("farm", [s.farm or "farm"] if self.keys else [])\

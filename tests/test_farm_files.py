@@ -292,12 +292,49 @@ def test_shortened_names_are_reported_with_their_original(run) -> None:
     assert "Names shortened" in run["stdout"] and repr(farm["short"]) in run["stdout"]
 
 
+def test_task_names_fit_without_cutting_in_the_common_case(run) -> None:
+    """Issue: every lime task name was cut ('Red Hill pass 1/2 Agricultural l'); a task
+    is named with its product's key where the label makes it longer than ISO 11783-10's
+    32 characters, and the product element keeps the whole label."""
+    names: set[str] = set()
+    products: set[str] = set()
+    for xml in (run["out"] / "prescriptions").rglob("TASKDATA.XML"):
+        root = ET.parse(xml).getroot()
+        names.update(t.get("B") for t in root.iter("TSK"))
+        products.update(p.get("B") for p in root.iter("PDT"))
+    # the copy's 1.5 t/ha spreader puts Red Hill's lime on in three passes
+    assert {"Red Hill pass 1/3 lime", "Red Hill pass 3/3 lime"} <= names
+    assert "Creek Flat pass 1/3 Mined gypsum" in names  # the label, where it fits
+    assert all(len(n) <= 32 for n in names)
+    assert "pass 1/3 Agricultural lime" in products
+    assert not [s for s in run["record"]["names_shortened"] if s["what"] == "task"]
+    assert "Agricultural l'" not in run["stdout"]
+
+
+def test_task_designator_of_the_default_lime_label_fits() -> None:
+    """The label a new project's lime gets by default (27 characters) beside a paddock
+    name gives a task name within 32 characters (ISO 11783-10 designator), not cut."""
+    from geosoil.outputs import task_designator
+    from geosoil.products import MATERIALS
+
+    label = MATERIALS["lime"].label
+    assert len(f"Tiny Lot {label}") > 32  # what was cut to 'Tiny Lot agricultural lime (calc'
+    assert task_designator("Tiny Lot", label, "lime") == "Tiny Lot lime"
+    assert task_designator("Tiny Lot", "Mined gypsum", "gypsum") == "Tiny Lot Mined gypsum"
+    assert task_designator("North", label, "lime", "season 2/3") == "North season 2/3 lime"
+    long = "Lower creek flat below the shearing shed"
+    assert task_designator(long, label, "lime") == f"{long} {label}"  # cut later, and listed
+
+
 def test_only_written_tasks_have_their_names_listed(tmp_path: Path, demo_run) -> None:  # noqa: ANN001
-    """A long lime label makes every lime task name longer than ISO 11783-10's 32
+    """A long paddock name makes Red Hill's task names longer than ISO 11783-10's 32
     characters; Creek Flat and Windmill get no lime, so no lime task of theirs is written
     and their names are not listed as shortened (only what was written is)."""
     farm, _ = copy_demo(tmp_path, cache=demo_run.cache,
                         changes={"products.lime": {"label": "Agricultural lime, fine grade"}})
+    pads = farm / "paddocks.geojson"
+    pads.write_text(pads.read_text(encoding="utf-8").replace(
+        '"Red Hill"', '"Red Hill below the old shearing shed"'), encoding="utf-8")
     result = CliRunner().invoke(cli, ["run", str(farm), "--out", str(tmp_path / "out")])
     assert result.exit_code == 0, result.output
     record = json.loads((tmp_path / "out" / "run.json").read_text())
