@@ -188,17 +188,9 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
         fix = ("give a point inside a paddock, as LON,LAT or as x,y in the working CRS "
                f"({crs.name}) with --coords xy")
         problem = f"the point at {where} is not inside any paddock ({', '.join(prep.grids)})"
-        # latitude first? (a valid latitude, then a valid longitude, that swapped lands in one)
-        if coords != "xy" and abs(a) <= 90 and abs(b) <= 180:
-            sx, sy = to_work.transform(b, a)
-            inside = prep.paddocks[prep.paddocks.covers(shapely.Point(sx, sy))]
-            if not inside.empty:
-                problem = (f"--at {a!r},{b!r} looks like latitude first: read as LON,LAT the "
-                           f"other way round it lies in paddock '{inside['paddock'].iloc[0]}'"
-                           ", but as given (read as "
-                           + ("LON,LAT" if lonlat else "x,y in the working CRS")
-                           + ") it is in no paddock")
-                fix = f"did you mean --at {b!r},{a!r} (LON,LAT)?"
+        hint = _swapped_hint(prep, a, b, coords=coords, lonlat=lonlat, x=x, y=y)
+        if hint is not None:
+            problem, fix = hint
         raise InputError(problem, fix=fix)
     name = str(hit["paddock"].iloc[0])
     grid = prep.grids[name]
@@ -211,6 +203,62 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
             fix="pick a point a cell further inside the paddock",
         )
     return Location(float(x), float(y), float(lon), float(lat), name, row, col)
+
+
+#: A swapped reading of --at within this distance of a paddock (or within the farm's own
+#: size, when that is larger) is offered as what was meant: rounded coordinates (one
+#: decimal of a degree is up to about 5 km) still land near the farm.
+NEAR_FARM_M = 10_000.0
+
+
+def _swapped_hint(prep: Prepared, a: float, b: float, *, coords: str, lonlat: bool,
+                  x: float, y: float) -> tuple[str, str] | None:
+    """The problem and fix to give when ``--at a,b`` lands on no paddock but ``b,a`` (as
+    LON,LAT, or as x,y in the working CRS) lands on the farm or near it: nearer than
+    the reading as given, and within :data:`NEAR_FARM_M` (or the farm's size)."""
+    farm = shapely.union_all(prep.paddocks.geometry.to_numpy())
+    x0, y0, x1, y1 = farm.bounds
+    near = max(NEAR_FARM_M, math.hypot(x1 - x0, y1 - y0))
+    to_work = pyproj.Transformer.from_crs("EPSG:4326", prep.crs, always_xy=True)
+
+    def away(px: float, py: float) -> float:
+        if not (math.isfinite(px) and math.isfinite(py)):
+            return math.inf
+        return float(farm.distance(shapely.Point(px, py)))
+
+    given = away(x, y)
+    readings = []
+    if coords != "xy" and abs(a) <= 90 and abs(b) <= 180:  # latitude first
+        readings.append(("LON,LAT", to_work.transform(b, a)))
+    if coords != "lonlat" and not lonlat:  # northing first, in the working CRS
+        readings.append(("x,y in the working CRS", (b, a)))
+    for how, (sx, sy) in readings:
+        d = away(sx, sy)
+        if not (d <= near and d < given):
+            continue
+        point = shapely.Point(sx, sy)
+        inside = prep.paddocks[prep.paddocks.covers(point)]
+        if not inside.empty:
+            where = f"it lies in paddock '{inside['paddock'].iloc[0]}'"
+        else:
+            nearest = prep.paddocks.iloc[int(prep.paddocks.distance(point).argmin())]
+            where = (f"it lies {_distance_text(d)} from paddock '{nearest['paddock']}' (not "
+                     "inside it: rounded coordinates?)")
+        first = "latitude" if how == "LON,LAT" else "northing (y)"
+        as_given = "LON,LAT" if lonlat else "x,y in the working CRS"
+        problem = (f"--at {a!r},{b!r} looks like {first} first: read as {how} the other way "
+                   f"round {where}, but as given (read as {as_given}) it is "
+                   + ("in no paddock" if not math.isfinite(given)
+                      else f"{_distance_text(given)} from the farm"))
+        fix = f"did you mean --at {b!r},{a!r} ({'LON,LAT' if how == 'LON,LAT' else 'X,Y'})?"
+        if inside.empty:
+            fix += " Give a point inside a paddock"
+        return problem, fix
+    return None
+
+
+def _distance_text(m: float) -> str:
+    return f"{m:,.0f} m" if m < 10_000 else f"{m / 1000:,.0f} km"
 
 
 def explain_location(

@@ -205,3 +205,88 @@ def test_the_totals_are_the_per_cell_rates(farm: FarmResult) -> None:
             for product, rate in pr.rates.product_rates.items():
                 assert _total(e, product) == pytest.approx(float(rate[r, c]), rel=1e-12, abs=1e-9)
             assert math.isfinite(e.cell["ecec"])
+
+
+# --------------------------------------------------------------------------- --at swapped
+
+# Invented box paddocks where the farms of a user trial lay (lon/lat bounds, WGS 84): an
+# Australian, an Argentine, a US and a German farm, so that swapped readings fall in every
+# quadrant and in both of explain's readings (lon/lat when both numbers fit, else x/y).
+TRIAL_FARMS = {
+    "hollow": (151.9651, -29.1048, 151.9821, -29.0986),
+    "estancia": (-59.1738, -34.3222, -59.1649, -34.3157),
+    "tiny": (-93.6037, 42.0004, -93.6018, 42.0016),
+    "nordhof": (10.4679, 52.3410, 10.4797, 52.3483),
+}
+
+
+def _lonlat_farm(folder: Path, bounds: tuple[float, float, float, float]):  # noqa: ANN202
+    """A one-paddock project (samples in lon/lat) over ``bounds``, prepared (no kriging)."""
+    import geopandas as gpd
+    import shapely
+
+    from geosoil.pipeline import prepare
+    from geosoil.project import load_project
+
+    folder.mkdir(parents=True)
+    x0, y0, x1, y1 = bounds
+    gpd.GeoDataFrame({"name": ["Block"]}, geometry=[shapely.box(*bounds)],
+                     crs="EPSG:4326").to_file(folder / "paddocks.geojson")
+    rows = [f"S{i}{j},{x0 + (x1 - x0) * (i + 0.5) / 3:.6f},{y0 + (y1 - y0) * (j + 0.5) / 3:.6f},"
+            f"5.5,6.0,2.0,0.5,0.4,0.2" for i in range(3) for j in range(3)]
+    (folder / "lab.csv").write_text(
+        "Sample,Longitude,Latitude,pH (CaCl2),Ca (cmol/kg),Mg (cmol/kg),K (cmol/kg),"
+        "Na (cmol/kg),Exch Acidity (cmol/kg)\n" + "\n".join(rows) + "\n")
+    (folder / "geosoil.toml").write_text(
+        '[samples]\nfile = "lab.csv"\n\n[boundaries]\npaddocks = "paddocks.geojson"\n')
+    return prepare(load_project(folder))
+
+
+@pytest.mark.parametrize("name", sorted(TRIAL_FARMS))
+def test_latitude_first_is_offered_swapped_on_every_farm(name: str, tmp_path: Path) -> None:
+    """--at LAT,LON of a point of the farm: whether the numbers read as lon/lat (both within
+    90) or as x/y (the longitude beyond 90), the error offers LON,LAT."""
+    prep = _lonlat_farm(tmp_path / name, TRIAL_FARMS[name])
+    x0, y0, x1, y1 = TRIAL_FARMS[name]
+    lon, lat = round((x0 + x1) / 2, 4), round((y0 + y1) / 2, 4)
+    with pytest.raises(InputError) as err:
+        locate(prep, lat, lon)
+    msg = str(err.value)
+    assert "looks like latitude first" in msg and "in paddock 'Block'" in msg
+    assert f"did you mean --at {lon!r},{lat!r} (LON,LAT)?" in msg
+
+
+def test_latitude_first_rounded_off_the_farm_is_still_offered(tmp_path: Path) -> None:
+    """The trial's case: '--at -29.1,152.0' (one decimal, read as x,y: 'lon 62.78, lat
+    -85.53') swapped lies about 1.7 km east of the farm, in no paddock: still the hint."""
+    prep = _lonlat_farm(tmp_path / "hollow", TRIAL_FARMS["hollow"])
+    with pytest.raises(InputError) as err:
+        locate(prep, -29.1, 152.0)
+    msg = str(err.value)
+    assert "looks like latitude first" in msg and "from paddock 'Block'" in msg
+    assert "did you mean --at 152.0,-29.1 (LON,LAT)?" in msg
+    metres = float(msg.split(" m from paddock")[0].rsplit(" ", 1)[1].replace(",", ""))
+    # 152.0 - 151.9821 = 0.0179 degrees of longitude at 29.1 S: 0.0179 x 111.32 km x
+    # cos(29.1 deg) = 1.74 km (spherical approximation, good to about 0.5 %)
+    assert metres == pytest.approx(0.0179 * 111_320 * math.cos(math.radians(29.1)), rel=0.01)
+
+
+def test_northing_first_in_the_working_crs_is_offered_swapped(tmp_path: Path) -> None:
+    import pyproj
+
+    prep = _lonlat_farm(tmp_path / "nordhof", TRIAL_FARMS["nordhof"])
+    x, y = pyproj.Transformer.from_crs(4326, prep.crs, always_xy=True).transform(10.473, 52.344)
+    with pytest.raises(InputError) as err:
+        locate(prep, round(y, 1), round(x, 1), coords="xy")
+    msg = str(err.value)
+    assert "looks like northing (y) first" in msg and "in paddock 'Block'" in msg
+    assert f"did you mean --at {round(x, 1)!r},{round(y, 1)!r} (X,Y)?" in msg
+
+
+def test_a_swapped_point_far_from_the_farm_gets_no_hint(tmp_path: Path) -> None:
+    prep = _lonlat_farm(tmp_path / "tiny", TRIAL_FARMS["tiny"])
+    for a, b in ((42.5, -93.6), (-35.0, 147.0)):  # swapped: 55 km off, and a continent off
+        with pytest.raises(InputError) as err:
+            locate(prep, a, b)
+        assert "did you mean" not in str(err.value) and "not inside any paddock" in str(
+            err.value)
