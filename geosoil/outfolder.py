@@ -37,11 +37,12 @@ import shutil
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 from .errors import OutputBusyError, OutputExistsError, OutputWriteError
 
 __all__ = ["Staging", "output_folder", "check_target", "sibling_names", "missing_folders",
-           "remove_empty_folders"]
+           "remove_empty_folders", "take_lock"]
 
 logger = logging.getLogger(__name__)
 
@@ -237,24 +238,21 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
         The folder beside the target cannot be made or written, or a write
         failed (disk full, permission, read-only), naming the file and the fix.
     """
-    import filelock
-
     final = check_target(path, overwrite=overwrite, inputs=inputs)
     lock_name, new_prefix, old_prefix = sibling_names(final)
     made = missing_folders(final.parent)
     lock_path = final.parent / lock_name
     try:
         final.parent.mkdir(parents=True, exist_ok=True)
-        lock = filelock.FileLock(str(lock_path), timeout=0)
-        lock.acquire()
-    except filelock.Timeout:
-        raise OutputBusyError(
-            f"another geosoil run is writing {final} now (it holds "
-            f"{lock_path}); wait for it to finish, or choose another --out"
-        ) from None  # the lock is the other run's: left as it is
+        lock = take_lock(lock_path)
     except OSError as exc:
         remove_empty_folders(made)
         raise _write_error(exc, final=final, temp=final) from None
+    if lock is None:
+        raise OutputBusyError(
+            f"another geosoil run is writing {final} now (it holds "
+            f"{lock_path}); wait for it to finish, or choose another --out"
+        )  # the lock is the other run's: left as it is
     completed = False
     try:
         staging = Staging(final=final, temp=final)
@@ -285,10 +283,68 @@ def output_folder(path: str | os.PathLike[str], *, overwrite: bool,
             remove_empty_folders(made)
 
 
+class _FileLock:
+    """A lock taken by :func:`take_lock` on POSIX: the open lock file, flocked."""
+
+    def __init__(self, fd: int) -> None:
+        self.fd = fd
+
+    def release(self) -> None:
+        import fcntl
+
+        try:
+            fcntl.flock(self.fd, fcntl.LOCK_UN)
+        finally:
+            os.close(self.fd)
+
+
+def take_lock(path: Path) -> Any:
+    """An exclusive lock on the file ``path`` (made when missing), taken without waiting;
+    None when another process holds it. ``release()`` lets it go.
+
+    On POSIX it is the kernel's advisory lock on the open file (``fcntl.flock``): the lock
+    the filelock library takes there, so the two see each other (tests), without loading
+    that library (a tenth of the start-up of a re-run, with what it imports). Elsewhere it
+    is filelock's. A lock taken on a file that its holder removed meanwhile (a run removes
+    its lock file while holding it, then lets go) is let go and taken afresh on the path.
+    """
+    if os.name != "posix":  # pragma: no cover - Windows
+        import filelock
+
+        other = filelock.FileLock(str(path), timeout=0)
+        try:
+            other.acquire()
+        except filelock.Timeout:
+            return None
+        return other
+    import fcntl
+
+    while True:
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(fd)
+            return None
+        except BaseException:
+            os.close(fd)
+            raise
+        held = os.fstat(fd)
+        try:
+            now = os.stat(path)
+        except FileNotFoundError:
+            now = None
+        if now is not None and (now.st_ino, now.st_dev) == (held.st_ino, held.st_dev):
+            return _FileLock(fd)
+        fcntl.flock(fd, fcntl.LOCK_UN)  # removed (or replaced) meanwhile: afresh
+        os.close(fd)
+
+
 def _release(lock: object, lock_path: Path) -> None:
     """Remove the lock file while holding it, then release it: nothing of the run is left
     beside the output folder. A run that opened the file just before and locks it just after
-    finds it unlinked (filelock checks the link count) and tries afresh on the path."""
+    finds it unlinked (:func:`take_lock` compares the file it holds with the path's) and
+    tries afresh on the path."""
     with contextlib.suppress(OSError):  # Windows cannot remove an open file; it stays
         lock_path.unlink()
     lock.release()  # type: ignore[attr-defined]

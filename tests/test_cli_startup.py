@@ -99,7 +99,8 @@ def test_check_loads_no_interpolation_library(tmp_path, demo_run, cached: bool) 
 def test_a_run_from_cached_surfaces_loads_no_interpolation_library(tmp_path, demo_run) -> None:  # noqa: ANN001
     """A re-run after a rate change, its surfaces in the cache, kriges nothing: scipy and
     threadpoolctl (the kriging engine's) stay unloaded, not even scipy's base package
-    (a fifth of a tenth of a second of every re-run)."""
+    (a fifth of a tenth of a second of every re-run); the output folder's lock is the
+    kernel's, without the filelock library (POSIX)."""
     import shutil
 
     from tests.demofarm import copy_demo
@@ -116,7 +117,7 @@ def test_a_run_from_cached_surfaces_loads_no_interpolation_library(tmp_path, dem
         "except SystemExit as exc:\n"
         "    assert exc.code in (0, None), exc.code\n"
         "print(json.dumps(sorted(m for m in sys.modules\n"
-        "                        if m.split('.')[0] in ('scipy', 'threadpoolctl'))))\n"
+        "                        if m.split('.')[0] in ('scipy', 'threadpoolctl', 'filelock'))))\n"
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           check=True)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import errno
 import json
+import os
 from pathlib import Path
 
 import filelock
@@ -159,3 +160,30 @@ def test_a_long_folder_name_gets_short_sibling_names(tmp_path: Path) -> None:
     names = sibling_names(out)
     assert all(len(n.encode()) < 100 for n in names)
     assert len(set(names)) == 3
+
+
+@pytest.mark.skipif(os.name != "posix", reason="the kernel's flock is POSIX's")
+def test_the_folder_lock_and_the_filelock_library_see_each_other(tmp_path: Path) -> None:
+    """geosoil's lock on POSIX (fcntl.flock without the library) and the filelock library's
+    (the reference) exclude each other both ways; a lock file removed by its holder before
+    letting go is taken afresh on the path, never on the removed file."""
+    from geosoil.outfolder import take_lock
+
+    path = tmp_path / ".out.geosoil-lock"
+    ours = take_lock(path)
+    assert ours is not None
+    with pytest.raises(filelock.Timeout):
+        filelock.FileLock(str(path), timeout=0).acquire()
+    assert take_lock(path) is None  # a second taker in this process is refused too
+    path.unlink()  # as a run ends: the file removed while held, then let go
+    ours.release()
+    again = take_lock(path)
+    assert again is not None and path.exists()
+    assert os.fstat(again.fd).st_ino == os.stat(path).st_ino
+    again.release()
+    theirs = filelock.FileLock(str(path), timeout=0)
+    with theirs:
+        assert take_lock(path) is None
+    mine = take_lock(path)
+    assert mine is not None
+    mine.release()
