@@ -47,6 +47,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pyproj
 import shapely
 
 from . import presentation, webmap
@@ -58,6 +59,7 @@ from .isoxml import (
     MAX_DESIGNATOR,
     Partfield,
     Task,
+    TaskGrid,
     designators,
     grid_from_zones,
     write_taskset,
@@ -237,7 +239,7 @@ class _PassFiles:
     def __init__(self, out_dir: Path, previous: Path | None, geotiffs: _GeoTiffs) -> None:
         self.out_dir, self.previous, self.geotiffs = out_dir, previous, geotiffs
         self.old = _previous_record(previous, "prescription_files")
-        self.entries: dict[str, dict[str, str]] = {}
+        self.entries: dict[str, dict[str, Any]] = {}
         self.copied = 0
 
     def _unchanged(self, path: Path, key: str) -> str | None:
@@ -278,10 +280,39 @@ class _PassFiles:
             self.copied += 1
         return True
 
-    def made(self, path: Path, key: str) -> None:
-        """Record a file written afresh (its key and SHA-256) for the next run."""
+    def made(self, path: Path, key: str, **extra: Any) -> None:
+        """Record a file written afresh (its key and SHA-256, and ``extra``) for the next
+        run."""
         rel = path.relative_to(self.out_dir).as_posix()
-        self.entries[rel] = {"key": key, "sha256": sha256_file(path)}
+        self.entries[rel] = {"key": key, "sha256": sha256_file(path), **extra}
+
+    def reuse_taskset(self, xml: Path, grd: Path, key: str) -> TaskGrid | None:
+        """A pass's task set (``TASKDATA.XML`` and its one grid file) copied from the earlier
+        folder when unchanged (:meth:`reuse`), with its grid read back from the copied grid
+        file and the grid's corner and cells recorded beside it; else None (nothing
+        copied)."""
+        rel = grd.relative_to(self.out_dir).as_posix()
+        place = self.old.get(rel, {}).get("grid")
+        if not (isinstance(place, list) and len(place) == 6):
+            return None
+        try:
+            min_north, min_east, cell_north, cell_east = (float(v) for v in place[:4])
+            rows, columns = int(place[4]), int(place[5])
+        except (TypeError, ValueError):
+            return None
+        try:
+            if self.previous is None or (self.previous / rel).stat().st_size != 4 * rows * columns:
+                return None  # not the grid recorded beside it (a run.json edited by hand)
+        except OSError:
+            return None
+        if not self.reuse([xml, grd], key):
+            return None
+        values = np.frombuffer(grd.read_bytes(), dtype="<i4")
+        self.entries[rel]["grid"] = [min_north, min_east, cell_north, cell_east, rows, columns]
+        grid_values = values.astype(np.int32).reshape(rows, columns)
+        grid_values.setflags(write=False)
+        return TaskGrid(min_north=min_north, min_east=min_east, cell_north=cell_north,
+                        cell_east=cell_east, values=grid_values)
 
     def record(self, progress: Any) -> dict[str, Any]:
         """``run.json``'s ``prescription_files`` and ``prescription_files_copied``."""
@@ -408,7 +439,7 @@ def write_outputs(
                 pass_files.made(p_tif, key)
             written.extend(_write_isoxml(folder, z, farm=farm, paddock=name, product=product,
                                          names=iso_names, tasks=iso_tasks,
-                                         partfields=iso_partfields))
+                                         partfields=iso_partfields, pass_files=pass_files))
     written.extend(_write_farm_taskset(out_dir, farm=farm, names=iso_names, tasks=iso_tasks,
                                        partfields=iso_partfields))
 
@@ -605,6 +636,7 @@ class _IsoNames:
 def _write_isoxml(
     folder: Path, zones: Any, *, farm: FarmResult, paddock: str, product: str,
     names: _IsoNames, tasks: list[Task], partfields: dict[str, int],
+    pass_files: _PassFiles | None = None,
 ) -> list[Path]:
     """ISO 11783-10 task data for one paddock and product: one task set per pass.
 
@@ -617,7 +649,9 @@ def _write_isoxml(
     2/3 ..." when rates are split into seasons) so that the terminal tells them
     apart even when the name is cut to the standard's 32 characters.
     Nothing is written when no zone gets product. Each task is also added to
-    ``tasks`` (and its paddock to ``partfields``) for the farm's task set.
+    ``tasks`` (and its paddock to ``partfields``) for the farm's task set. A pass's task
+    set made from the same zones, boundary, exclusions and names as the one in the folder
+    being replaced is copied from it (``pass_files``), its grid read back.
     """
     if not (zones["rate_kg_ha"] > 0).any():
         return []
@@ -632,17 +666,44 @@ def _write_isoxml(
                    exclusions=excl)
     n_tasks = n_passes(zones)
     written: list[Path] = []
+    place = _partfield_digest(pf)
     for k, zk in pass_frames(zones):
         key = (paddock, product, k, n_tasks)
         sub = folder / (f"{prep.product_files[product]}"
                         f"{pass_suffix(k, n_tasks, split_into=s.spreader.split_into)}_isoxml")
-        grid = grid_from_zones(zk, boundary=boundary, crs=zones.crs,
-                               cell_size_m=s.grid.cell_size_m)
+        xml, grd = sub / "TASKDATA" / "TASKDATA.XML", sub / "TASKDATA" / "GRD00001.bin"
+        made_of = _frame_key(zk, "task data", place, names.farm, names.task_name(key),
+                             names.label(key), s.grid.cell_size_m, k, n_tasks)
+        copied = pass_files.reuse_taskset(xml, grd, made_of) if pass_files is not None else None
+        grid = copied if copied is not None else grid_from_zones(
+            zk, boundary=boundary, crs=zones.crs, cell_size_m=s.grid.cell_size_m)
         task = Task(name=names.task_name(key), partfield=0, product=names.label(key), grid=grid)
-        written.extend(write_taskset(sub, partfields=[pf], tasks=[task], farm=names.farm))
+        if copied is not None:
+            written.extend([xml, grd])
+        else:
+            written.extend(write_taskset(sub, partfields=[pf], tasks=[task], farm=names.farm))
+            if pass_files is not None:
+                pass_files.made(xml, made_of)
+                pass_files.made(grd, made_of, grid=[grid.min_north, grid.min_east,
+                                                    grid.cell_north, grid.cell_east,
+                                                    grid.rows, grid.columns])
         index = partfields.setdefault(paddock, len(partfields))
         tasks.append(dataclasses.replace(task, partfield=index))
     return written
+
+
+def _partfield_digest(pf: Partfield) -> str:
+    """SHA-256 of what a task set's partfield is made from: its name, boundary, CRS and
+    exclusions."""
+    h = hashlib.sha256(pf.name.encode())
+    h.update(shapely.to_wkb(pf.boundary))
+    h.update(pyproj.CRS.from_user_input(pf.crs).to_wkt().encode())
+    if pf.exclusions is not None:
+        for g in pf.exclusions.geometry:
+            h.update(shapely.to_wkb(g))
+        h.update(pd.DataFrame(pf.exclusions.drop(columns=pf.exclusions.geometry.name))
+                 .to_csv().encode())
+    return h.hexdigest()
 
 
 def gpkg_layers(farm: FarmResult) -> dict[str, Any]:

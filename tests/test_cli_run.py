@@ -284,16 +284,24 @@ def _members(path: Path) -> dict[str, bytes]:
 def test_a_rerun_copies_the_unchanged_passes_machine_files_and_they_equal_a_fresh_write(  # noqa: E501
         runs, tmp_path: Path) -> None:  # noqa: ANN001
     """The gypsum rule changed (out2): the passes whose zones are unchanged take their
-    GeoJSON, shapefile and zone GeoTIFF from the folder replaced; every one equals what a
-    run into a new folder writes; a file changed since is never copied."""
+    GeoJSON, shapefile, zone GeoTIFF and task set (ISO 11783-10 XML and grid) from the
+    folder replaced; every one equals what a run into a new folder writes, and so does the
+    farm's task set (made from the copied grids); a file changed since is never copied."""
     import hashlib
 
     out1, out2 = runs["out1"], runs["root"] / "out2"
     rec2 = json.loads((out2 / "run.json").read_text())
-    files = sorted(p.relative_to(out2).as_posix() for p in (out2 / "prescriptions").glob(
-        "*/*") if p.suffix in (".geojson", ".zip", ".tif"))
+    files = sorted(
+        [p.relative_to(out2).as_posix() for p in (out2 / "prescriptions").glob("*/*")
+         if p.suffix in (".geojson", ".zip", ".tif")]
+        + [p.relative_to(out2).as_posix() for p in (out2 / "prescriptions").glob(
+            "*/*_isoxml/TASKDATA/*")])
+    assert any(f.endswith("TASKDATA.XML") for f in files)
     assert sorted(rec2["prescription_files"]) == files
-    copied = [f for f in files if (out2 / f).read_bytes() == (out1 / f).read_bytes()]
+    rec1 = json.loads((out1 / "run.json").read_text())
+    copied = [f for f in files if rec2["prescription_files"][f]["key"]
+              == rec1["prescription_files"].get(f, {}).get("key")]  # made of the same
+    assert all((out2 / f).read_bytes() == (out1 / f).read_bytes() for f in copied)
     assert rec2["prescription_files_copied"] == len(copied) > 0
     assert any(f.startswith("prescriptions/creek-flat/gypsum") and f not in copied
                for f in files)  # the changed pass: written anew
@@ -303,11 +311,15 @@ def test_a_rerun_copies_the_unchanged_passes_machine_files_and_they_equal_a_fres
     fresh = tmp_path / "fresh"
     assert invoke("-q", "run", runs["farm"], "--out", fresh).exit_code == 0
     assert json.loads((fresh / "run.json").read_text())["prescription_files_copied"] == 0
-    for rel in files:
+    farm_set = sorted(p.relative_to(out2).as_posix() for p in (out2 / "prescriptions").glob(
+        "*/TASKDATA/*"))
+    assert farm_set and not set(farm_set) & set(files)
+    for rel in files + farm_set:
         if rel.endswith(".zip"):  # the members (a zip's own dates may differ)
             assert _members(out2 / rel) == _members(fresh / rel), rel
         else:
             assert (out2 / rel).read_bytes() == (fresh / rel).read_bytes(), rel
+    assert any(f.endswith("GRD00001.bin") and f in copied for f in files)
     # the same run again over out2's copy (nothing changed, so every pass could be copied),
     # with one file edited since: that file's pass is written anew, the rest copied
     out3 = tmp_path / "out3"
