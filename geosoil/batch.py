@@ -779,7 +779,7 @@ def not_in_batch(out: Path, names: Sequence[str]) -> list[FarmOutcome]:
                 farm = row["farm"]
         left.append(FarmOutcome(
             name=name, project="", status=NOT_IN_BATCH, farm=farm,
-            output=f"{name}/" if name in folders else "",
+            output=str(out / name) if name in folders else "",
             note=f"{NOT_IN_BATCH}: outputs from an earlier batch left as they were "
                  f"({' and '.join(what)}); delete them yourself if the farm is gone"))
     return left

@@ -178,6 +178,8 @@ def test_a_farm_dropped_from_the_batch_is_said_and_its_outputs_kept(first, clien
     assert left.status == "not in this batch"
     assert "outputs from an earlier batch left as they were" in left.note
     assert "bravo-farm/" in left.note and "keys/bravo-farm.json" in left.note
+    assert left.output == str(first.out / "bravo-farm") == got["alpha-farm"].output.replace(
+        "alpha-farm", "bravo-farm")  # the folder, named as a farm that ran names its own
     assert {p: p.read_bytes() for p in before} == before  # nothing deleted or changed
     assert all(p.exists() for p in before)
     lines = (first.out / batch.SUMMARY_CSV).read_text(encoding="utf-8").splitlines()
