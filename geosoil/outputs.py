@@ -52,7 +52,7 @@ import shapely
 
 from . import presentation, webmap
 from . import report as report_mod
-from .chemistry import SOLUBLE_SOURCE, rule_ph
+from .chemistry import SOLUBLE_DERIVED, SOLUBLE_SOURCE, rule_ph
 from .gpkg import plain_style, write_gpkg, zone_styles
 from .grids import mosaic
 from .isoxml import (
@@ -1477,16 +1477,29 @@ def sample_fields(farm: FarmResult) -> list[Any]:
             fields.append(webmap.SampleField(var, ph_label(farm, var), "", 1))
     fields.append(webmap.SampleField("ec_1_5", "EC 1:5", "dS/m", 2))
     fields.append(webmap.SampleField("ece", "ECe", "dS/m", 1))
+    for c in _CATIONS:  # the soluble cations of the extract, as read (the lab's own
+        # columns of them are not repeated)
+        fields.append(webmap.SampleField(f"{c}_sol", f"Soluble {_CATIONS[c]} (extract)",
+                                         "mmol(+)/L", 2))
+    solution = set(read.samples.attrs.get("solution_columns", {}).values())
     known = {"sample_id", "source_row", "paddock", "geometry", "layer", "depth_top_cm",
-             "depth_bottom_cm", *read.columns}
+             "depth_bottom_cm", *read.columns, *_SOLUBLE_COLUMNS, *solution}
     lab_other = [c for c in farm.prep.samples.columns
                  if c not in known and c not in _DERIVED_COLUMNS and c in cols]
     for c in lab_other:  # the lab's other columns, under the lab's own headers
         fields.append(webmap.SampleField(c, str(c)))
+    corrected = {c for c in _CATIONS if f"{c}_extracted" in cols}
+    given = any(f"{c}_sol" in cols for c in _CATIONS)
     for var, label in (("ca", "Exch. Ca"), ("mg", "Exch. Mg"), ("k", "Exch. K"),
                        ("na", "Exch. Na"), ("al", "Exch. Al"), ("acidity", "Exch. acidity"),
                        ("ecec", "ECEC"), ("cec", "CEC (lab)")):
-        fields.append(webmap.SampleField(var, label, cmol, 2))
+        if var in corrected:  # what the run used: extracted - soluble = exchangeable
+            fields.append(webmap.SampleField(f"{var}{_AS_USED}",
+                                             f"{label}: extracted - soluble", cmol))
+        elif var in _CATIONS and given:
+            fields.append(webmap.SampleField(var, f"{label} (as extracted)", cmol, 2))
+        else:
+            fields.append(webmap.SampleField(var, label, cmol, 2))
     for var, label in (("esp", "ESP"), ("ca_sat", "Ca saturation"),
                        ("mg_sat", "Mg saturation"), ("k_sat", "K saturation"),
                        ("acid_sat", "Acid saturation"), ("al_sat", "Al saturation")):
@@ -1523,15 +1536,61 @@ _DEEPER_FIELDS = (("esp", "ESP", "%", 1), ("ecec", "ECEC", "cmol(+)/kg", 2),
                   ("cross", "CROSS", "", 2))
 
 
+#: The exchangeable bases a soluble-salt correction may change, and their symbols.
+_CATIONS = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
+#: The samples' soluble-salt columns, shown in the popup under labels of their own.
+_SOLUBLE_COLUMNS = {*SOLUBLE_DERIVED, *(f"{c}_sol" for c in _CATIONS)}
+#: Suffix of a corrected cation's popup text ("3.00 - 2.50 = 0.50").
+_AS_USED = "_as_used"
+
+
+def _as_used(samples: Any) -> dict[str, list[str | None]]:
+    """Per cation the run corrected for soluble salts, each sample's popup text of what it
+    used: ``extracted - soluble = exchangeable`` (cmol(+)/kg, 2 decimals), the lab's figure
+    alone where the sample has no soluble value, and a correction below 0 said as set to 0.
+
+    >>> _as_used(pd.DataFrame({"na_extracted": [3.0, 0.4, 2.0], "na_soluble": [2.5, 0.5, None],
+    ...                        "na": [0.5, 0.0, 2.0]}))["na_as_used"]
+    ['3.00 - 2.50 = 0.50', '0.40 - 0.50 = 0.00 (set to 0)', '2.00 (no soluble value)']
+    """
+    out: dict[str, list[str | None]] = {}
+    for c in _CATIONS:
+        if f"{c}_extracted" not in samples.columns:
+            continue
+        ext, sol, used = (pd.to_numeric(samples[k], errors="coerce").to_numpy(dtype=float)
+                          for k in (f"{c}_extracted", f"{c}_soluble", c))
+        texts: list[str | None] = []
+        for e, v, u in zip(ext, sol, used, strict=True):
+            if not np.isfinite(e):
+                texts.append(None)
+            elif not np.isfinite(v):
+                texts.append(f"{e:.2f} (no soluble value)")
+            else:
+                below = " (set to 0)" if e - v < -1e-9 else ""
+                texts.append(f"{e:.2f} - {v:.2f} = {u:.2f}{below}")
+        out[f"{c}{_AS_USED}"] = texts
+    return out
+
+
 def map_samples(farm: FarmResult) -> Any:
     """The map's sample points: the top layer's, each with the values of the deeper samples
     taken at the same place (same ID, within the near-duplicate distance), named with the
-    layer's suffix (``esp_10-30cm``). Deeper samples at other places are not drawn."""
+    layer's suffix (``esp_10-30cm``); deeper samples at other places are not drawn. Where
+    the run subtracted soluble salts, each corrected cation's ``<c>_as_used`` text says
+    what it used, and the EC 1:5 pretreatment flag is off for the corrected samples."""
     prep = farm.prep
     top = prep.samples
-    if not prep.layers:
+    used = _as_used(top)
+    if not prep.layers and not used:
         return top
     out = top.copy()
+    for col, texts in used.items():
+        out[col] = texts
+    if used and "pretreatment_needed" in out.columns and "soluble_subtracted" in out.columns:
+        done = out["soluble_subtracted"].fillna(False).astype(bool)
+        out["pretreatment_needed"] = out["pretreatment_needed"].where(~done, False)
+    if not prep.layers:
+        return out
     near = prep.project.settings.samples.duplicate_distance_m
     for ls in prep.layers[1:]:
         deeper = ls.samples

@@ -242,6 +242,19 @@ def _cells(path: Path) -> np.ndarray:
     return np.asarray(band.compressed(), dtype=float)
 
 
+def _popup(out: Path) -> tuple[dict[str, str | None], list[str]]:
+    """The first sample's popup in the run's map.html: label -> text, and its flags."""
+    import re
+
+    from geosoil import webmap
+
+    page = (out / "map.html").read_text(encoding="utf-8")
+    data = json.loads(re.search(r'<script type="application/json" id="geosoil-data">(.*?)'
+                                r"</script>", page, re.S).group(1))["samples"]
+    row = webmap.sample_rows(data)[0]
+    return {label: v for (label, _unit), v in zip(data["fields"], row[4], strict=True)}, row[5]
+
+
 def test_check_run_and_explain_subtract_the_soluble_salts(tmp_path: Path) -> None:
     project = _farm(tmp_path / "farm", "subtract", tmp_path / "cache")
     said = "exchangeable cations corrected for soluble salts"
@@ -269,6 +282,17 @@ def test_check_run_and_explain_subtract_the_soluble_salts(tmp_path: Path) -> Non
     assert any(said in w for w in record["warnings"])
     report = (out / "report.html").read_text()
     assert "Soluble salts in exchangeable cations" in report and said in report
+    # user trial: the map's popup showed no extracted or soluble figures under labels of
+    # their own; it shows what the run used (the module's hand-worked table, 2 decimals)
+    popup, flags = _popup(out)
+    assert popup["Exch. Na: extracted - soluble"] == "3.00 - 2.50 = 0.50"
+    assert popup["Exch. Ca: extracted - soluble"] == "8.00 - 2.00 = 6.00"
+    assert popup["Exch. K: extracted - soluble"] == "0.80 - 0.25 = 0.55"
+    assert popup["Soluble Na (extract)"] == "5.00"  # 115 mg/L / 22.990 mg per mmol(+)
+    assert popup["Soluble Ca (extract)"] == "4.00"  # 2 mmol/L of Ca2+
+    assert popup["ESP"] == "5.2" and popup["ECEC"] == "9.55"
+    assert "Exch. Na" not in popup and "na_sol" not in popup and "Na 1:5 (mg/L)" not in popup
+    assert not any("washing out" in f for f in flags)  # corrected: no pretreatment flag
     explained = CliRunner().invoke(cli, ["explain", str(project), "--at", "145.0010,-35.9990"])
     assert explained.exit_code == 0, explained.output
     assert "exchangeable = extracted - soluble" in explained.output
@@ -285,6 +309,11 @@ def test_warn_by_default_keeps_the_labs_figures_and_offers_the_setting(tmp_path:
     assert _cells(out / "surfaces" / "salty" / "esp.tif") == pytest.approx(ESP_UNCORRECTED)
     record = json.loads((out / "run.json").read_text())
     assert record["soluble_salts"]["mode"] == "warn"
+    popup, flags = _popup(out)  # the lab's figures, as extracted, beside the extract's
+    assert popup["Exch. Na (as extracted)"] == "3.00" and popup["ESP"] == "20.3"
+    assert popup["Soluble Na (extract)"] == "5.00"
+    assert not any("extracted - soluble" in label for label in popup)
+    assert any("washing out" in f for f in flags)
     assert "&#39;warn&#39;" in (out / "report.html").read_text()
 
 
