@@ -37,12 +37,13 @@ def print_cautions(cautions: Sequence[str] | None = None) -> None:
 
 def print_summary(result: RunResult, *, quiet: bool) -> None:
     """Print the tonnage table (stdout), then files, warnings and cautions."""
-    from geosoil.outputs import prescribed
+    from geosoil.outputs import prescribed, reasons_to_say
     from geosoil.tonnage import KG_PER_SHORT_TON, format_summary, mass_unit_for
 
     settings = result.farm.prep.project.settings
     rate_unit = settings.output.rate_unit
-    headline, why = prescribed(result.farm)
+    headline, every = prescribed(result.farm)
+    why = reasons_to_say(headline, every)  # run.json and the report keep every line
     t = result.tonnage
     if len(t) and (t["tonnes"] > 0).any():
         echo(format_summary(t, rate_unit=rate_unit, currency=settings.tonnage.currency))

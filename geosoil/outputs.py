@@ -41,6 +41,7 @@ import logging
 import re
 import shutil
 import weakref
+from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -100,6 +101,8 @@ __all__ = [
     "product_text",
     "run_cautions",
     "prescribed",
+    "reasons_to_say",
+    "RAN_NO_NEED",
     "SURFACE_UNITS",
     "TITLES",
     "UNCERTAIN_SD",
@@ -1004,6 +1007,8 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "surfaces_from_cache": farm.cache_hit,
         "rules": {
             "notes": farm.rule_notes,
+            # every rule that gave no product anywhere, and why (prescribed)
+            "gave_no_product": prescribed(farm)[1],
             "skipped": sorted({f"{r}: {why}" for pr in farm.paddocks.values()
                                for r, why in pr.rates.skipped}),
             "cell_notes": {name: pr.cell_notes + list(pr.rates.notes)
@@ -1206,6 +1211,25 @@ def lime_needs_test(farm: FarmResult) -> list[dict[str, Any]]:
     return out
 
 
+#: How :func:`prescribed` says that a rule ran and no cell needed its product.
+RAN_NO_NEED = "rule ran and no cell needs its product"
+
+
+def reasons_to_say(headline: str, why: Sequence[str]) -> list[str]:
+    """The lines of :func:`prescribed`'s ``why`` that the command line's summary and the
+    report's title say: every one when nothing was prescribed; else those that matter (a
+    rule that could not run, acid soil that needs a lime test), not a rule that ran and
+    found no cell in need (``run.json`` and the report's methods keep every line).
+
+    >>> reasons_to_say("Prescribed: gypsum 1.00 t (farm totals).",
+    ...                ["the calcium " + RAN_NO_NEED, "the lime rule could not run on ..."])
+    ['the lime rule could not run on ...']
+    """
+    if not headline.startswith("Prescribed"):
+        return list(why)
+    return [w for w in why if not w.endswith(RAN_NO_NEED)]
+
+
 def prescribed(farm: FarmResult) -> tuple[str, list[str]]:
     """What the run prescribed, in one sentence, and why a rule gave nothing.
 
@@ -1240,7 +1264,7 @@ def prescribed(farm: FarmResult) -> tuple[str, list[str]]:
             continue
         pairs = skipped.get(rule, [])
         if not pairs:
-            why.append(f"the {rule} rule ran and no cell needs its product")
+            why.append(f"the {rule} {RAN_NO_NEED}")
             continue
         reason = pairs[0][1]
         if rule == "lime":
@@ -1833,11 +1857,13 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
                        "(Northcote & Skene 1972 at the defaults 6 and 15)")
     settings_toml = prep.project.text
     headline, why = prescribed(farm)
+    if why:  # every rule that gave no product, and why (the title says what matters)
+        methods.setdefault("Rules that gave no product", "; ".join(why))
     return report_mod.ReportInput(
         title=f"{s.farm or 'Farm'}: " + ("gypsum and lime prescriptions"
                                          if headline.startswith("Prescribed")
                                          else "nothing prescribed"),
-        prescribed=headline, not_prescribed=tuple(why),
+        prescribed=headline, not_prescribed=tuple(reasons_to_say(headline, why)),
         created=datetime.now(UTC),
         tonnage=farm.tonnage,
         zones=farm.zones,

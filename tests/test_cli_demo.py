@@ -353,3 +353,18 @@ def test_the_demo_s_comments_column_is_no_warning_but_is_in_run_json(demo_run) -
     assert not any("Comments" in w for w in demo_run.record["warnings"])
     assert demo_run.record["samples"]["columns_not_read"] == {
         "Comments": "record keeping, not an analyte"}
+
+
+def test_a_rule_that_ran_and_found_no_need_is_in_run_json_and_methods_not_the_summary(
+        demo_run) -> None:  # noqa: ANN001
+    # user trial: every demo run's summary said "Rules that gave no product: the calcium
+    # rule ran ..." though nothing was wrong; run.json and the report's methods keep it
+    assert "Rules that gave no product" not in demo_run.cli.stdout
+    assert "calcium rule ran" not in demo_run.cli.stdout
+    assert demo_run.record["rules"]["gave_no_product"] == [
+        "the calcium rule ran and no cell needs its product"]
+    page = (demo_run.out / "report.html").read_text(encoding="utf-8")
+    methods = page[page.index('id="assumptions"'):]
+    methods = methods[:methods.index("</section>")]
+    assert "Rules that gave no product" in methods and "calcium rule ran" in methods
+    assert 'id="not-prescribed"' not in page  # nothing under the title

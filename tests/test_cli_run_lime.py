@@ -104,6 +104,9 @@ def test_ph_oc_clay_only_gives_lime_equal_to_hand_arithmetic(tmp_path: Path) -> 
     zones = gpd.read_file(out / "prescriptions" / "home" / "lime.geojson")
     assert zones["rate_kg_ha"].max() == pytest.approx(rate, rel=1e-6)
     assert "needs a test" not in run.output
+    # a rule that could not run is said out loud, also when another rule prescribed
+    said = run.stdout.split("Rules that gave no product:", 1)[1].split("Output folder:", 1)[0]
+    assert "the gypsum rule could not run on any paddock: needs ESP" in said
 
 
 def test_ph_only_file_flags_lime_requirement_needs_a_test(tmp_path: Path) -> None:
