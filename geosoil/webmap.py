@@ -68,7 +68,7 @@ from .presentation import (
     rate_classes,
     rate_colour,
 )
-from .units import RATE_UNITS, format_rate
+from .units import RATE_UNITS, area_in, area_unit_for, format_rate
 
 __all__ = [
     "MAP_MAX_SAMPLES",
@@ -548,7 +548,7 @@ def _products_json(zns: Any, rate_unit: str) -> list[dict[str, Any]]:
                 else "–",
                 "c": rate_colour(rate, top),
                 "p": fmt_value(z["paddock"]),
-                "a": fmt_number(float(z["area_ha"]), 2),
+                "a": _area_text(z["area_ha"], rate_unit),
                 "s": schedule if isinstance(schedule, str) else "",
                 "l": fmt_value(z["label"]) if "label" in rows.columns else "",
             }
@@ -560,7 +560,17 @@ def _products_json(zns: Any, rate_unit: str) -> list[dict[str, Any]]:
     return out
 
 
-def _exclusions_json(excl: Any) -> list[dict[str, Any]]:
+def _area_text(area_ha: Any, rate_unit: str) -> str:
+    """An area given in ha, with its unit: acres beside a rate per acre (as the report).
+
+    >>> _area_text(40.0, "t/ha"), _area_text(40.0, "lb/ac")
+    ('40.00 ha', '98.84 ac')
+    """
+    unit = area_unit_for(rate_unit)
+    return f"{fmt_number(float(area_in(float(area_ha), unit)), 2)} {unit}"
+
+
+def _exclusions_json(excl: Any, rate_unit: str) -> list[dict[str, Any]]:
     if excl is None or not len(excl):
         return []
     name_col = next((c for c in ("label", "exclusion", "name") if c in excl.columns), None)
@@ -572,7 +582,7 @@ def _exclusions_json(excl: Any) -> list[dict[str, Any]]:
             "name": fmt_value(row[name_col]) if name_col else "",
             "kind": "creek buffer" if kind == "creek buffer" else "exclusion",
             "p": fmt_value(row["paddock"]) if "paddock" in excl.columns else "",
-            "a": fmt_number(float(row["area_ha"]), 2) if "area_ha" in excl.columns else "",
+            "a": _area_text(row["area_ha"], rate_unit) if "area_ha" in excl.columns else "",
         })
     return out
 
@@ -722,7 +732,7 @@ def build_map(
         "notes": [str(n) for n in notes if str(n).strip()],
         "surfaces": [_surface_json(layer) for layer in rasters],
         "products": products,
-        "exclusions": _exclusions_json(excl),
+        "exclusions": _exclusions_json(excl, rate_unit),
         "paddocks": [
             {"g": _geometry_json(r.geometry), "name": fmt_value(r["paddock"]),
              # the pole of inaccessibility: well inside its own paddock, never on a

@@ -248,6 +248,17 @@ def test_zone_labels_popups_and_legend_use_the_rate_unit(unit: str, shown: tuple
     assert [z["r"] for z in gyp["zones"]] == list(shown[:3]) * 2
 
 
+def test_zone_popup_areas_in_acres_beside_a_rate_per_acre() -> None:
+    # user trial (as the report's tables): areas in acres with lb/ac; 1 ha = 2.4710538 ac
+    # (NIST SP 811), by hand for each zone's own area
+    for unit, factor, name in (("t/ha", 1.0, "ha"), ("lb/ac", 2.4710538, "ac")):
+        zones = _grid_zones(3)
+        gyp = data_of(build(zones=zones, rate_unit=unit))["products"][0]
+        for z, ha in zip(gyp["zones"], zones["area_ha"], strict=True):
+            number, shown = z["a"].split(" ")
+            assert shown == name and float(number) == pytest.approx(ha * factor, abs=0.005)
+
+
 def _grid_zones(n_side: int) -> gpd.GeoDataFrame:
     """n_side x n_side square zones over the north paddock, like a spreader grid."""
     size = 400 / n_side

@@ -66,7 +66,7 @@
         l.gsColour = z.c;
         var rows = [["Paddock", z.p], ["Rate (" + p.unit + ")", z.r]];
         if (z.s) { rows.push(["Applied as", z.s]); }
-        rows.push(["Area", z.a + " ha"]);
+        rows.push(["Area", z.a]);
         if (z.l) { rows.push(["Class", z.l]); }
         l.bindPopup(function () { return table(p.product + ": zone " + z.z, rows); },
                     popupOptions);
@@ -105,7 +105,7 @@
       var what = creek ? "Creek buffer (not spread)" : "Exclusion (not spread)";
       l.bindTooltip(el("span", null, what + ": " + x.name), {sticky: true});
       l.bindPopup(function () {
-        return table(what, [["Name", x.name], ["Paddock", x.p], ["Area", x.a + " ha"]]);
+        return table(what, [["Name", x.name], ["Paddock", x.p], ["Area", x.a]]);
       }, popupOptions);
       exclusions.addLayer(l);
     });
