@@ -1630,6 +1630,8 @@ def _why_unused(
             out[header] = "no header"
         elif header not in described and is_bookkeeping(header):
             out[header] = RECORD_KEEPING
+        elif depth_role(header) is not None:  # [samples] depths = "ignore", or a second one
+            out[header] = f"a depth column not read as the samples' depth ({RECORD_KEEPING})"
         else:
             out[header] = "name not recognised"
     return out

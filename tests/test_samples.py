@@ -1407,9 +1407,15 @@ def test_a_depth_that_cannot_be_read_names_file_row_and_column(tmp_path: Path) -
     with pytest.warns(DataWarning, match="row 3"):
         got = read(path, on_bad_row="skip")
     assert got.samples["sample_id"].tolist() == ["A1"]
-    # "ignore" reads the file as one layer, the depth column kept as the lab wrote it
-    got = read(path, depths="ignore").samples
+    # "ignore" reads the file as one layer, the depth column kept as the lab wrote it (a
+    # column not read, as the user asked: no warning of it)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        whole = read(path, depths="ignore")
+    got = whole.samples
     assert "depth_top_cm" not in got.columns and got["Depth"].tolist() == ["0-10", "topsoil"]
+    assert not any("not read" in str(w.message) for w in caught)
+    assert "a depth column not read" in whole.unused["Depth"]
     # top and bottom the wrong way round
     header = "Sample ID,Top (cm),Bottom (cm),Longitude,Latitude,Exch Ca (meq/100g)"
     path = lab(tmp_path, ["A1,30,10,147.0010,-35.0010,6.0"], header=header, name="lab2.csv")
