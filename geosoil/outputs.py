@@ -891,6 +891,8 @@ def _sodic_share(farm: FarmResult, paddock: str, geometry: Any,
     # the cells in the zone's bounds first (a zone is small beside its paddock), then in it
     x0, y0, x1, y1 = geometry.bounds
     near = np.flatnonzero((x >= x0) & (x <= x1) & (y >= y0) & (y <= y1))
+    if near.size > 64:
+        shapely.prepare(geometry)  # many cells in one zone: the indexed point-in-polygon test
     inside = near[shapely.contains_xy(geometry, x[near], y[near])]
     if not inside.size:
         return None
