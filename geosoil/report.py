@@ -750,11 +750,11 @@ def zone_map_svg(
         geoms.append(outline)
     if not geoms:
         return _drawing("note", "no-zones", "No zones to draw.")
-    # a zone map of more zones than a drawing can label (a spreader grid) labels none: one
-    # line under it says so (the table lists every zone)
+    # a zone map of more zones than a drawing can label (a spreader grid) labels none (the
+    # report's caption says so; its table lists every zone)
     labelled = len(zones) <= MAX_ZONE_LABELS
-    frame = _Frame.around(geoms, width=width, max_height=max_height, pad=12,
-                          foot=28 if labelled else 44, min_width=240)
+    frame = _Frame.around(geoms, width=width, max_height=max_height, pad=12, foot=28,
+                          min_width=240)
     rates = zones["rate_kg_ha"].astype(float)
     spread = zones["kind"].astype(str) != "exclusion"
     top = (
@@ -794,9 +794,7 @@ def zone_map_svg(
         "width": frame.width, "height": frame.height, "pid": pid, "zones": drawn,
         "outline": (_geom_path(outline, frame.fx, frame.fy)
                     if outline is not None and not outline.is_empty else ""),
-        "labels": labels.labels, "bar": frame.scale_bar(frame.height - (14 if labelled else 30)),
-        "note": None if labelled else (f"{len(zones):,} zones, too many to label here: each "
-                                       "is in the table below"),
+        "labels": labels.labels, "bar": frame.scale_bar(frame.height - 14),
     })
 
 
@@ -1458,6 +1456,7 @@ def build_report(data: ReportInput) -> str:
                     f"where a zone has ESP at or above {_num(data.leaching_esp, 0)} % the soil "
                     "must drain for gypsum to work: where it does not, drainage comes first.")
             blocks.append({"product": product, "svg": svg, "notes": " ".join(notes),
+                           "unlabelled": len(zp) if len(zp) > MAX_ZONE_LABELS else 0,
                            "table": table})
         paddocks.append({
             "anchor": f"paddock-{i}", "name": paddock, "blocks": blocks,

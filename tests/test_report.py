@@ -875,10 +875,10 @@ def test_share_inside_equals_shapely_intersection():
     np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)
 
 
-def test_a_zone_map_of_more_zones_than_a_drawing_can_label_labels_none_and_says_so() -> None:
+def test_a_zone_map_of_more_zones_than_a_drawing_can_label_labels_none() -> None:
     """A spreader grid's zone map (more zones than MAX_ZONE_LABELS) draws every zone and no
-    label, callout or leader, with one line saying the table lists them; one at the limit
-    is labelled as before."""
+    label, callout or leader (the report's caption says the table lists them: tested on a
+    whole report in test_cli_run); one at the limit is labelled as before."""
     from geosoil.presentation import MAX_ZONE_LABELS
 
     def grid(n: int) -> gpd.GeoDataFrame:
@@ -892,6 +892,28 @@ def test_a_zone_map_of_more_zones_than_a_drawing_can_label_labels_none_and_says_
     many = report.zone_map_svg(grid(MAX_ZONE_LABELS + 1), rate_unit="t/ha")
     assert many.count('class="zone"') == MAX_ZONE_LABELS + 1
     assert "zone-label" not in many and "zone-leader" not in many
-    assert f"{MAX_ZONE_LABELS + 1} zones, too many to label here" in many
     few = report.zone_map_svg(grid(MAX_ZONE_LABELS), rate_unit="t/ha")
-    assert "zone-label" in few and "too many to label" not in few
+    assert "zone-label" in few
+
+
+def test_the_report_says_when_a_zone_map_has_too_many_zones_to_label() -> None:
+    """A paddock's zone map of more zones than MAX_ZONE_LABELS (a spreader grid): its caption
+    says they are too many to label and that the table lists each; the other maps keep
+    'labelled zone · rate'."""
+    from geosoil.presentation import MAX_ZONE_LABELS
+
+    data = report_input()
+    zones = data.zones
+    first = zones.iloc[0]
+    n = MAX_ZONE_LABELS + 5
+    x0, y0 = first.geometry.bounds[:2]
+    grid = gpd.GeoDataFrame(
+        [{**first.drop("geometry").to_dict(), "zone": i + 1, "kind": "rate",
+          "rate_kg_ha": 1000.0 + i} for i in range(n)],
+        geometry=[box(x0 + 10 * (i % 10), y0 + 10 * (i // 10), x0 + 10 * (i % 10) + 10,
+                      y0 + 10 * (i // 10) + 10) for i in range(n)], crs=zones.crs)
+    same = (zones["paddock"] == first["paddock"]) & (zones["product"] == first["product"])
+    page = report.build_report(dataclasses.replace(
+        data, zones=pd.concat([zones[~same], grid], ignore_index=True)))
+    assert page.count(f"{n} zones, too many to label here: each is in the table below") == 1
+    assert "labelled zone · rate" in page  # the other paddock's or product's maps
