@@ -37,7 +37,11 @@ sieves) or ENV directly, and moisture. Rules used, in this order:
    (``nv_cao_percent``) is converted, CCE = NV x M(CaCO3)/M(CaO) = NV x 1.7848.
    A liming material's Ca (and Mg) follow a certificate CCE (Ca = Ca of the
    pure material x CCE / CCE of the pure material) unless the certificate
-   states them.
+   states them. A stated CCE (or NV) above the pure material's by more than
+   half a point (a whole-percent figure's rounding) is refused: no product
+   neutralises more than its pure material (pure calcite: CCE 100, NV 56 on a
+   CaO basis), and such a figure, mostly a CCE in ``nv_cao_percent``, would
+   cut the lime rate in silence.
 4. Fineness factor: from the percent passing each sieve with the configured
    factors (default: the Cornell Cooperative Extension scheme, factor 0 for
    the part retained on 20 mesh, 0.40 for 20-60 mesh, 0.80 for 60-100 mesh,
@@ -476,6 +480,50 @@ def _follow_cce(
     return prov
 
 
+#: How far a certificate's neutralising value may lie above the pure material's, in
+#: percentage points on the basis it is stated: half a point, the rounding of a figure
+#: printed to the whole percent.
+CERTIFICATE_ROUNDING_PERCENT: float = 0.5
+
+
+def _check_cce_possible(ps: ProductSettings, mat: Material, key: str) -> None:
+    """Refuse a neutralising value above the pure material's: no product of a material
+    neutralises more than the material itself (calcite's CCE is 100 % by definition).
+    Such a figure is mostly a CCE entered as a CaO-basis value (or a product of another
+    material), and would cut the lime rate in silence."""
+    if not mat.elements:  # custom: the certificate is all there is (range-checked)
+        return
+    pure_cce = mat.cce * 100.0
+    if ps.nv_cao_percent is not None:
+        field, stated, pure = "nv_cao_percent", ps.nv_cao_percent, pure_cce / CCE_PER_NV_CAO
+        basis = "CaO basis"
+    elif ps.cce_percent is not None:
+        field, stated, pure = "cce_percent", ps.cce_percent, pure_cce
+        basis = "CaCO3 basis"
+    else:
+        return
+    if stated <= pure + CERTIFICATE_ROUNDING_PERCENT:
+        return
+    cce_stated = stated * CCE_PER_NV_CAO if field == "nv_cao_percent" else stated
+    if field == "nv_cao_percent" and stated <= pure_cce + CERTIFICATE_ROUNDING_PERCENT:
+        hint = f"{stated:g} reads as a CCE (CaCO3 basis): if so, give it as cce_percent"
+    else:
+        hint = "check the certificate's figure and its basis"
+    other = next((m.key for m in MATERIALS.values()
+                  if m.cce > mat.cce and m.cce * 100.0 + CERTIFICATE_ROUNDING_PERCENT
+                  >= cce_stated), None)
+    if other is not None:
+        hint += f"; if the product is another material, say which (material = '{other}')"
+    raise SettingsError(
+        f"{stated:g} % ({basis}) is above the {pure:.1f} % of pure {mat.formula} "
+        f"(material '{mat.key}', stoichiometry): no product neutralises more than its "
+        + (f"pure material, and this figure would give at most {100.0 * pure / stated:.0f} % "
+           "of the lime the soil needs" if pure > 0 else "pure material")
+        + f"; {hint}",
+        key=f"{key}.{field}",
+    )
+
+
 def _resolve_one(name: str, ps: ProductSettings) -> Product:
     key = f"products.{name}"
     material_key = ps.material if ps.material is not None else name
@@ -524,6 +572,7 @@ def _resolve_one(name: str, ps: ProductSettings) -> Product:
                 f"CCE {mat.cce * 100:.2f} % for pure {mat.formula} (stoichiometry) "
                 f"x purity {ps.purity_percent:g} %"
             )
+    _check_cce_possible(ps, mat, key)
     prov = _follow_cce(ps, mat, cce, values, prov)
     if ps.env_percent is not None:
         env = ps.env_percent / 100.0

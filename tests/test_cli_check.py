@@ -152,6 +152,17 @@ def test_a_settings_problem_names_the_project_file_in_check_and_run(
     assert f"setting 'grid.cell_size_m' in {toml}: must be" in run.stderr
 
 
+def test_a_calcite_neutralising_value_above_pure_calcites_is_a_problem(tmp_path: Path) -> None:
+    # [derived] pure CaCO3: CCE 100 %, NV 56.0 % on a CaO basis; NV 95 for a calcite is a
+    # CCE figure in the CaO key (it would cut the lime rate by 41 % in silence)
+    r, problems = _broken(tmp_path, extra="[products.lime]\nnv_cao_percent = 95\n")
+    assert len(problems) == 1
+    assert "'products.lime.nv_cao_percent'" in problems[0]
+    assert "95 %" in problems[0] and "56.0 %" in problems[0]
+    r, problems = _broken(tmp_path / "b", extra="[products.lime]\ncce_percent = 150\n")
+    assert "'products.lime.cce_percent'" in problems[0] and "100.0 %" in problems[0]
+
+
 def test_missing_samples_file_is_named(tmp_path: Path) -> None:
     project = make_project(tmp_path / "farm")
     (project / "lab.csv").unlink()

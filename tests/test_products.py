@@ -282,3 +282,81 @@ def test_several_products_in_one_run() -> None:
     assert set(products) == {"gypsum", "lime"}
     assert not products["gypsum"].liming and products["lime"].liming
     assert math.isclose(products["gypsum"].cce, 0.0)
+
+
+# ------------------------------------------------- a neutralising value above the pure material's
+
+# [derived] CCE of a pure material = (mol H+ neutralised per g) / (2 / M(CaCO3)), with the
+# molar masses from the periodictable package (an outside oracle, not geosoil's table):
+# calcite 100 % by definition, dolomite ~108.5 %, hydrated lime ~135.1 %, quicklime ~178.5 %;
+# a neutralising value on a CaO basis is CCE x M(CaO) / M(CaCO3) (pure CaCO3: NV ~56.0).
+PURE_FORMULA = {"lime": ("CaCO3", 2), "dolomite": ("CaMg(CO3)2", 4),
+                "hydrated_lime": ("Ca(OH)2", 2), "quicklime": ("CaO", 2)}
+
+
+def _pure_cce_percent(key: str) -> float:
+    formula, equivalents = PURE_FORMULA[key]
+    m_caco3 = periodictable.formula("CaCO3").mass
+    return 100.0 * (equivalents / periodictable.formula(formula).mass) / (2 / m_caco3)
+
+
+def _pure_nv_cao_percent(key: str) -> float:
+    return _pure_cce_percent(key) * periodictable.formula("CaO").mass \
+        / periodictable.formula("CaCO3").mass
+
+
+def test_pure_values_from_periodictable_are_the_textbook_ones() -> None:
+    # the oracle itself, against the rounded figures every liming text prints ([derived])
+    assert _pure_cce_percent("lime") == pytest.approx(100.0)
+    assert _pure_cce_percent("dolomite") == pytest.approx(109, abs=1)
+    assert _pure_cce_percent("hydrated_lime") == pytest.approx(135, abs=0.5)
+    assert _pure_cce_percent("quicklime") == pytest.approx(179, abs=1)
+    assert _pure_nv_cao_percent("lime") == pytest.approx(56.0, abs=0.05)
+
+
+@pytest.mark.parametrize("material", sorted(PURE_FORMULA))
+def test_a_cce_above_the_pure_materials_is_refused_naming_key_value_and_pure_value(
+    material: str,
+) -> None:
+    pure = _pure_cce_percent(material)
+    # the pure value itself (as a certificate rounds it) is accepted
+    ok = resolve_products({"p": ProductSettings(material=material, cce_percent=round(pure))})
+    assert ok["p"].cce * 100 == pytest.approx(round(pure))
+    stated = round(pure) + 2
+    with pytest.raises(SettingsError) as err:
+        resolve_products({"p": ProductSettings(material=material, cce_percent=stated)})
+    assert err.value.key == "products.p.cce_percent"
+    text = str(err.value)
+    assert f"{stated:g} %" in text and f"{pure:.1f} %" in text
+
+
+@pytest.mark.parametrize("material", sorted(PURE_FORMULA))
+def test_a_cao_basis_value_above_the_pure_materials_is_refused(material: str) -> None:
+    pure = _pure_nv_cao_percent(material)
+    assert resolve_products(
+        {"p": ProductSettings(material=material, nv_cao_percent=round(pure, 1))})
+    with pytest.raises(SettingsError) as err:
+        resolve_products({"p": ProductSettings(material=material, nv_cao_percent=pure + 2)})
+    assert err.value.key == "products.p.nv_cao_percent"
+    assert f"{pure:.1f} %" in str(err.value)
+
+
+def test_a_calcite_cce_given_as_cao_basis_is_named_as_the_mix_up() -> None:
+    # NV (CaO basis) of pure CaCO3 is 56 ([derived]); 95 is a CCE figure in the wrong key
+    # and, taken as CaO basis (CCE 169.6 %), would give 59 % of the lime needed
+    with pytest.raises(SettingsError) as err:
+        resolve_products({"lime": ProductSettings(nv_cao_percent=95)})
+    assert err.value.key == "products.lime.nv_cao_percent"
+    text = str(err.value)
+    assert "95 %" in text and "56.0 %" in text and "cce_percent" in text
+    with pytest.raises(SettingsError) as err:
+        resolve_products({"lime": ProductSettings(cce_percent=150)})
+    assert err.value.key == "products.lime.cce_percent"
+    assert "150 %" in str(err.value) and "100.0 %" in str(err.value)
+
+
+def test_a_custom_product_keeps_its_certificates_value() -> None:
+    # no pure material to compare with: the certificate is all there is (MgO-rich blends
+    # reach a CCE near 250 %, [derived] M(CaCO3)/M(MgO) = 2.48)
+    p = resolve_products({"blend": ProductSettings(material="custom", cce_percent=200)})
+    assert p["blend"].cce == pytest.approx(2.0)
