@@ -45,7 +45,9 @@ __all__ = ["plan"]
                    "the class limit (sodic limit for na/esp, acid limit for ph/ph_cacl2), "
                    "or alike.")
 @click.option("--variable", default=None,
-              help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k, al) "
+              help="Whose variogram to use (na, esp, ph, ph_cacl2, acidity, ca, mg, k, al; "
+                   "esp, derived from Na, uses Na's; one the lab file does not give is an "
+                   "error naming those it does) "
                    "[default: with --weight rate the variable driving the paddock's largest "
                    "prescribed product (Na/ESP for gypsum, the lime method's input for lime), "
                    "else the first of them kriged in the paddock].")

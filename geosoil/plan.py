@@ -143,12 +143,45 @@ def _driver_variable(farm: FarmResult, paddock: str) -> tuple[str | None, str]:
                   f"inputs ({', '.join(inputs)}) has a fitted variogram")
 
 
+#: Variables a run derives from kriged ones rather than kriging them, and the variable whose
+#: variogram plans for them: ESP = 100 Na / ECEC (:mod:`geosoil.chemistry`), kriged only when
+#: the lab gives no exchangeable Na (ESP from SAR).
+DERIVED_FROM = {"esp": "na"}
+
+
+def _check_variable_exists(farm: FarmResult, wanted: str | None) -> None:
+    """Refuse ``--variable`` naming a variable that no paddock of the farm has (the lab file
+    does not give it), naming those the plan can use."""
+    if not wanted:
+        return
+    kriged = {v for (_, v) in farm.surfaces}
+    if wanted in kriged or DERIVED_FROM.get(wanted) in kriged:
+        return
+    usable = [v for v in PLAN_VARIABLES if v in kriged or DERIVED_FROM.get(v) in kriged]
+    hint = ""
+    other_ph = {"ph": "ph_cacl2", "ph_cacl2": "ph"}.get(wanted)
+    if other_ph in usable:
+        method = "CaCl2" if other_ph == "ph_cacl2" else "water"
+        hint = f" (the lab measured pH in {method}: --variable {other_ph})"
+    raise SettingsError(
+        f"no paddock of this farm has '{wanted}' (the lab file does not give it); the "
+        f"variables this farm can plan with: {', '.join(usable) or 'none'}{hint}",
+        key="--variable")
+
+
 def _choose_variable(farm: FarmResult, paddock: str, wanted: str | None,
                      weighting: str) -> tuple[str | None, str]:
     """The variable whose variogram plans ``paddock``, and why."""
     if wanted:
         v = _variable_for(farm, paddock, wanted)
-        return v, "asked for (--variable)"
+        if v is not None:
+            return v, "asked for (--variable)"
+        source = DERIVED_FROM.get(wanted)
+        if source is not None and _variable_for(farm, paddock, source) is not None:
+            return source, (f"asked for {wanted} (--variable); {wanted} is derived from the "
+                            f"kriged {source} (ESP = 100 Na / ECEC), not kriged itself, so "
+                            f"{source}'s variogram plans it")
+        return None, f"asked for {wanted} (--variable), which has no fitted variogram here"
     if weighting == "rate":
         v, why = _driver_variable(farm, paddock)
         if v is not None:
@@ -157,6 +190,8 @@ def _choose_variable(farm: FarmResult, paddock: str, wanted: str | None,
         return fallback, (f"{why}; so the first kriged of {', '.join(PLAN_VARIABLES)}"
                           if fallback else why)
     v = _variable_for(farm, paddock, None)
+    if v is None:
+        return None, f"none of {', '.join(PLAN_VARIABLES)} has a fitted variogram here"
     return v, f"the first kriged of {', '.join(PLAN_VARIABLES)} (weighting by {weighting})"
 
 
@@ -347,7 +382,10 @@ def run_plan(
         driving the paddock's largest prescribed product (ESP's Na for gypsum, the
         lime method's input for lime); otherwise, or when that has no variogram,
         the first of :data:`PLAN_VARIABLES` kriged in the paddock. A paddock with
-        no variogram at all gets its points by :data:`SPACE_FILLING_RULE`.
+        no variogram at all gets its points by :data:`SPACE_FILLING_RULE`. A
+        variable the run derives (``esp``) is planned with the variogram of the one
+        it is derived from (:data:`DERIVED_FROM`); one no paddock has is a
+        :class:`SettingsError` naming those it has.
     overwrite, use_cache
         As for :func:`geosoil.job.run`.
 
@@ -377,8 +415,10 @@ def run_plan(
             chosen_var: dict[str, str] = {}
             why_var: dict[str, str] = {}
             unplanned: list[str] = []  # no variogram: space-filling points instead
+            _check_variable_exists(farm, variable)
             for name in farm.paddocks:
                 var, why = _choose_variable(farm, name, variable, weighting)
+                why_var[name] = why
                 if var is None:
                     warnings.warn(
                         f"{name}: no kriged surface with a variogram "
@@ -388,7 +428,6 @@ def run_plan(
                     unplanned.append(name)
                     continue
                 chosen_var[name] = var
-                why_var[name] = why
             if budget is not None:
                 assert cost_per_sample is not None
                 total = math.floor(budget / cost_per_sample + 1e-9)
@@ -420,7 +459,7 @@ def run_plan(
                                  "kriging_sd_now": None, "geometry": shapely.Point(x, y)})
                 per_paddock.append({
                     "paddock": name, "variable": None, "variable_reason":
-                    "no kriged variable with a fitted variogram here",
+                    why_var[name] or "no kriged variable with a fitted variogram here",
                     "scale": None, "variogram": None,
                     "existing_samples": len(xy), "new_points": len(pts),
                     "weighting": SPACE_FILLING_RULE,

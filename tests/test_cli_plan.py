@@ -190,3 +190,35 @@ def test_points_keep_the_edge_setback(planned: dict[str, object], tmp_path: Path
     for r in record["paddocks"]:
         assert 0 < r["edge_setback_m"] < 200 and r["new_points"] == 1
         assert least_depth(tmp_path / "s")[r["paddock"]] >= r["edge_setback_m"] - 0.05
+
+
+def test_variable_esp_plans_with_nas_variogram(planned: dict[str, object],
+                                               tmp_path: Path) -> None:
+    """ESP is derived from the kriged Na and ECEC, not kriged (README, --help): --variable esp
+    plans every paddock with Na's variogram, so its points are those of --variable na (was:
+    every paddock 'none' and space-filling points, exit 0)."""
+    farm = planned["farm"]
+    esp = invoke("plan", farm, "--points", 4, "--out", tmp_path / "esp", "--variable", "esp")
+    na = invoke("plan", farm, "--points", 4, "--out", tmp_path / "na", "--variable", "na")
+    assert esp.exit_code == 0 and na.exit_code == 0, esp.output + na.output
+    record = json.loads((tmp_path / "esp" / "run.json").read_text())
+    for row in record["paddocks"]:
+        assert row["variable"] == "na" and row["variogram"] is not None
+        assert "asked for esp" in row["variable_reason"]
+        assert row["mean_kriging_variance_after"] < row["mean_kriging_variance_before"]
+    assert "none (" not in esp.output and "asked for esp" in esp.output
+    a = pd.read_csv(tmp_path / "esp" / "plan_points.csv")
+    b = pd.read_csv(tmp_path / "na" / "plan_points.csv")
+    np.testing.assert_allclose(a[["easting_m", "northing_m"]], b[["easting_m", "northing_m"]])
+
+
+def test_a_variable_the_lab_did_not_measure_is_an_error_naming_those_it_did(
+        planned: dict[str, object], tmp_path: Path) -> None:
+    """The small farm's lab gives pH in CaCl2 only: --variable ph is exit 1 naming ph_cacl2
+    (was: space-filling points, exit 0), and leaves no output folder."""
+    farm = planned["farm"]
+    bad = invoke("plan", farm, "--points", 2, "--out", tmp_path / "ph", "--variable", "ph")
+    assert bad.exit_code == 1
+    assert "--variable" in bad.output and "'ph'" in bad.output
+    assert "ph_cacl2" in bad.output and "esp" in bad.output
+    assert not (tmp_path / "ph").exists() and list(tmp_path.iterdir()) == []
