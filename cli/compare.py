@@ -50,7 +50,7 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
     change per zone of its prescription.
     """
     with loading_stack():
-        from geosoil.change import CLASS_CODES, parse_ph_conversion
+        from geosoil.change import CLASS_CODES, PAIRED_CHANGE_NOTE, parse_ph_conversion
         from geosoil.compare import run_compare
 
     conversion = parse_ph_conversion(ph_conversion) if ph_conversion else None
@@ -73,6 +73,8 @@ def compare(ctx: click.Context, last: Path, this: Path, out: Path, ph_conversion
              f"{f(r['this_mean']):>8} {f(r['change_mean'], '+'):>8} {r['fell_pct']:>7.1f} "
              f"{r['rose_pct']:>7.1f} {r['no_change_beyond_error_pct']:>8.1f} "
              f"{r['no_error_surface_pct']:>12.1f}")
+    if any(r["method"] == "paired sites" for r in rec["paddocks"]):
+        echo(f"  {PAIRED_CHANGE_NOTE}")
     zones = result.table[result.table["product"] != "none"]
     if len(zones):
         echo("")

@@ -63,6 +63,7 @@ __all__ = [
     "CLASS_CODES",
     "CLASS_NAMES",
     "METHODS",
+    "PAIRED_CHANGE_NOTE",
     "PAIRED_LEAST_SHARE",
     "PAIRED_WITHIN_M",
     "PH_METHODS",
@@ -414,6 +415,19 @@ def _zone_cells(grid: PaddockGrid, geom: object) -> NDArray[np.bool_]:
     return inside
 
 
+#: A zone's figures per variable in :func:`zone_change_table`, in column order.
+_ZONE_PARTS = ("last_mean", "this_mean", "change_mean", "this_minus_last_mean", "rose_pct",
+               "fell_pct", "no_change_pct")
+
+#: What the change of a "paired sites" paddock is, and why it is not this season's mean
+#: minus last season's (said in the summary, the report, the map and the README).
+PAIRED_CHANGE_NOTE = (
+    "With paired sites the change is kriged from the differences at the sites sampled both "
+    "seasons, not taken from the two seasons' maps, so its mean can differ from this "
+    "season's mean minus last season's (change_by_zone.csv gives both: <variable>_change_mean "
+    "and <variable>_this_minus_last_mean); with independent seasons the two are the same.")
+
+
 def zone_change_table(
     zones: gpd.GeoDataFrame | None,
     grids: Mapping[str, PaddockGrid],
@@ -439,8 +453,13 @@ def zone_change_table(
         cells in no zone of last season with a rate above zero. Columns:
         ``paddock, product, zone, prescribed_rate_kg_ha, passes, cells,
         area_ha`` and per variable ``<v>_last_mean, <v>_this_mean,
-        <v>_change_mean, <v>_rose_pct, <v>_fell_pct, <v>_no_change_pct,
-        <v>_method`` (a key of :data:`METHODS`: how the paddock's change was made).
+        <v>_change_mean, <v>_this_minus_last_mean, <v>_rose_pct, <v>_fell_pct,
+        <v>_no_change_pct, <v>_method`` (a key of :data:`METHODS`: how the
+        paddock's change was made). ``<v>_change_mean`` is the mean of the change
+        map; with paired sites that map is kriged from the sites' differences, so
+        it need not equal ``<v>_this_mean - <v>_last_mean``, which
+        ``<v>_this_minus_last_mean`` gives (:data:`PAIRED_CHANGE_NOTE`; the two
+        are equal with independent seasons).
     """
     # in the order the changes come (each layer's, shallowest first, in CHANGE_VARIABLES order)
     variables = list(dict.fromkeys(k[1] for k in changes))
@@ -472,8 +491,7 @@ def zone_change_table(
             row["area_ha"] = round(n * grid.cell_area_ha, 2)
             for v in variables:
                 s = changes.get((name, v))
-                for part in ("last_mean", "this_mean", "change_mean", "rose_pct",
-                             "fell_pct", "no_change_pct"):
+                for part in _ZONE_PARTS:
                     row[f"{v}_{part}"] = math.nan
                 row[f"{v}_method"] = s.method if s is not None else ""
                 if s is None or n == 0:
@@ -485,12 +503,12 @@ def zone_change_table(
                 row[f"{v}_last_mean"] = float(np.mean(s.last[cells][ok]))
                 row[f"{v}_this_mean"] = float(np.mean(s.this[cells][ok]))
                 row[f"{v}_change_mean"] = float(np.mean(ch[ok]))
+                row[f"{v}_this_minus_last_mean"] = (row[f"{v}_this_mean"]  # type: ignore
+                                                    - row[f"{v}_last_mean"])
                 row[f"{v}_rose_pct"] = 100 * s.share("rose", cells)
                 row[f"{v}_fell_pct"] = 100 * s.share("fell", cells)
                 row[f"{v}_no_change_pct"] = 100 * s.share("no change beyond error", cells)
             rows.append(row)
     cols = ["paddock", "product", "zone", "prescribed_rate_kg_ha", "passes", "cells", "area_ha"]
-    cols += [f"{v}_{p}" for v in variables for p in ("last_mean", "this_mean", "change_mean",
-                                                     "rose_pct", "fell_pct", "no_change_pct",
-                                                     "method")]
+    cols += [f"{v}_{p}" for v in variables for p in (*_ZONE_PARTS, "method")]
     return pd.DataFrame(rows, columns=cols)

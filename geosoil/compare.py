@@ -33,6 +33,7 @@ from .change import (
     CHANGE_VARIABLES,
     CLASS_CODES,
     METHODS,
+    PAIRED_CHANGE_NOTE,
     PAIRED_LEAST_SHARE,
     PAIRED_WITHIN_M,
     PH_METHODS,
@@ -82,7 +83,7 @@ INDEPENDENCE = (
     "the change's standard deviation is that of the kriged difference (paired sites). "
     "Elsewhere the seasons' kriging errors are taken as independent (each season kriged from "
     "its own samples): sd_change = sqrt(sd_last^2 + sd_this^2). Each paddock and variable "
-    "says which method it used.")
+    "says which method it used. " + PAIRED_CHANGE_NOTE)
 
 
 @dataclass
@@ -752,6 +753,9 @@ def _paddock_summary(changes: dict[tuple[str, str], ChangeSurface],
             "last_mean": float(np.nanmean(s.last)) if ok.any() else None,
             "this_mean": float(np.nanmean(s.this)) if ok.any() else None,
             "change_mean": float(np.nanmean(s.change)) if ok.any() else None,
+            # with paired sites the change is kriged apart: not this - last (PAIRED_CHANGE_NOTE)
+            "this_minus_last_mean": float(np.nanmean(s.this) - np.nanmean(s.last))
+            if ok.any() else None,
             "sd_change_mean": float(np.nanmean(s.sd_change))
             if s.sd_change is not None and ok.any() else None,
             **{f"{k.replace(' ', '_')}_pct": round(100 * s.share(k), 2) for k in CLASS_CODES},

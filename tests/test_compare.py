@@ -12,6 +12,7 @@ Outside readers: GDAL (through rasterio) reopens the change rasters, pandas the 
 
 from __future__ import annotations
 
+import html
 import json
 import math
 import shutil
@@ -123,6 +124,47 @@ def test_classes_at_the_normal_95_percent_limit() -> None:
                                 CLASS_CODES["fell"]]
     assert np.isnan(got[3])
     assert (classify_change(np.array([5.0]), None) == CLASS_CODES["no error surface"]).all()
+
+
+def test_zone_means_state_how_the_change_relates_to_this_minus_last() -> None:
+    """A zone's change is the mean of the change map; with paired sites that map is kriged
+    from the sites' differences, so it need not be this mean - last mean (the trial's ESP
+    3.06 -> 1.70 beside a change of -1.41); the table gives this - last beside it, equal to
+    the change with independent seasons (arithmetic of means over the same cells)."""
+    from geosoil.change import PAIRED_CHANGE_NOTE, paired_change_surface, zone_change_table
+    from geosoil.grids import aligned_grids
+
+    pad = gpd.GeoDataFrame({"paddock": ["A"]}, geometry=[shapely.box(X0, Y0, X0 + 100, Y0 + 50)],
+                           crs=UTM)
+    grid = aligned_grids(pad, cell_size_m=10.0)["A"]
+    rng = np.random.default_rng(3)
+    shape = (grid.height, grid.width)
+    last, this = rng.uniform(2, 9, shape), rng.uniform(1, 6, shape)
+    kriged_difference = (this - last) + rng.normal(0.3, 0.2, shape)  # kriged apart
+    zones = gpd.GeoDataFrame(
+        {"paddock": ["A"], "product": ["gypsum"], "zone": ["1"], "rate_kg_ha": [2000.0]},
+        geometry=[shapely.box(X0, Y0, X0 + 50, Y0 + 50)], crs=UTM)
+    for method, surface in (
+            ("paired sites", paired_change_surface("esp", "A", last, this,
+                                                   (kriged_difference, np.full(shape, 0.1)),
+                                                   n_pairs=30)),
+            ("independent", change_surface("esp", "A", (last, np.ones(shape)),
+                                           (this, np.ones(shape))))):
+        table = zone_change_table(zones, {"A": grid}, {("A", "esp"): surface})
+        for _, row in table.iterrows():
+            assert row["esp_method"] == method
+            assert row["esp_this_minus_last_mean"] == pytest.approx(
+                row["esp_this_mean"] - row["esp_last_mean"], abs=1e-12)
+            if method == "independent":
+                assert row["esp_change_mean"] == pytest.approx(
+                    row["esp_this_minus_last_mean"], abs=1e-12)
+            else:  # the kriged differences, here 0.3 above this - last on average
+                assert row["esp_change_mean"] - row["esp_this_minus_last_mean"] == \
+                    pytest.approx(0.3, abs=0.15)
+        cols = list(table.columns)
+        assert cols.index("esp_this_minus_last_mean") == cols.index("esp_change_mean") + 1
+    assert "esp_change_mean" not in PAIRED_CHANGE_NOTE and "this_minus_last" in \
+        PAIRED_CHANGE_NOTE
 
 
 def test_ph_conversion_reads_the_stated_form() -> None:
@@ -242,7 +284,14 @@ def test_resampled_sites_with_a_uniform_ph_rise_show_it(seasons: dict[str, Path]
                for s in record["surfaces"])
     table = pd.read_csv(tmp_path / "paired" / "change_by_zone.csv")
     assert (table["ph_method"] == "paired sites").all()
-    assert "paired sites (60)" in (tmp_path / "paired" / "report.html").read_text()
+    # this - last beside the change, as written (to 4 decimals), and said where one looks
+    np.testing.assert_allclose(table["ph_this_minus_last_mean"],
+                               table["ph_this_mean"] - table["ph_last_mean"], atol=2e-4)
+    assert ph["this_minus_last_mean"] == pytest.approx(ph["this_mean"] - ph["last_mean"])
+    report = html.unescape((tmp_path / "paired" / "report.html").read_text())
+    assert "paired sites (60)" in report
+    assert "not taken from the two seasons' maps" in report
+    assert "not taken from the two seasons' maps" in got.output
     # unchanged variables stay unchanged at paired sites
     esp = next(r for r in record["paddocks"] if r["variable"] == "esp")
     assert esp["change_mean"] == 0.0 and esp["no_change_beyond_error_pct"] == 100
