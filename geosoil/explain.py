@@ -13,6 +13,7 @@ computes.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -351,7 +352,9 @@ def explain_location(
         x=float(x), y=float(y), lon=float(lon), lat=float(lat), paddock=name, row=row, col=col,
         nearest_samples=nearest, interpolated=interpolated, cell=cell, steps=list(steps),
         zones=zones, notes=notes, ecec_parts=_ecec_parts(cell),
-        acidity_source=_acidity_source(prep.read.columns), rate_unit=s.output.rate_unit,
+        acidity_source=(_acidity_source(prep.read.columns)
+                        or _neutral_acidity(cell, interpolated, s.chemistry)),
+        rate_unit=s.output.rate_unit,
     )
 
 
@@ -400,6 +403,22 @@ def _acidity_source(columns: dict[str, str]) -> str:
         el = given[0].capitalize()
         return f"{el} alone (the lab gives no {'H' if el == 'Al' else 'Al'}; '{columns[given[0]]}')"
     return ""
+
+
+def _neutral_acidity(cell: dict[str, float], interpolated: Mapping[str, Any],
+                     chemistry: Any) -> str:
+    """Where the cell's acidity comes from when nothing of it was measured here: 0 at a
+    neutral or alkaline pH (:func:`geosoil.chemistry.exchange_chemistry`, common practice)."""
+    if any(v in interpolated for v in ("acidity", "al", "h")):
+        return ""
+    if not math.isfinite(cell.get("acidity", math.nan)):
+        return ""
+    if math.isfinite(cell.get("ph", math.nan)):
+        label, limit = "pH (water)", chemistry.neutral_ph
+    else:
+        label, limit = "pH (CaCl2)", chemistry.neutral_ph_cacl2
+    return (f"not measured: taken as 0 at {label} {limit:g} or above (common practice: "
+            "exchangeable acidity is negligible in neutral and alkaline soils)")
 
 
 def _ecec_parts(cell: dict[str, float]) -> dict[str, float]:

@@ -524,7 +524,14 @@ def _paddock_variables(
     pts = samples[samples["paddock"] == name] if "paddock" in samples.columns else samples
     if pts.empty and borrow:
         pts = samples
-    return {v for v in variables if v in pts.columns and pts[v].notna().any()}
+    have = {v for v in variables if v in pts.columns and pts[v].notna().any()}
+    # a sample whose acidity was not measured has one all the same where its pH is neutral
+    # or above (0, common practice) or its lab gave Al or H: so do the cells that the run
+    # derives from the kriged pH, Al and H (chemistry.exchange_chemistry), and the rules
+    # that read acidity run on them
+    if "acidity_basis" in pts.columns and (pts["acidity_basis"].astype(str) != "none").any():
+        have.add("acidity")
+    return have
 
 
 def _rows_text(rows: list[int]) -> str:

@@ -428,3 +428,51 @@ def test_check_notes_record_keeping_columns_and_warns_of_the_others(tmp_path: Pa
              and ln.startswith("warning: ")]
     assert len(shown) == 1 and "'Zn' (name not recognised)" in shown[0]
     assert "Notes" not in shown[0]
+
+
+def _alkaline_rows(n: int = 12) -> list[str]:
+    """Every sample alkaline (pH in water 7.8-8.3) and its exchangeable acidity left blank,
+    as labs do above pH 7 (common practice: acidity is negligible there)."""
+    return [",".join(r.split(",")[:3] + [f"{7.8 + (i % 6) / 10:.1f}"] + r.split(",")[4:8]
+                     + [""]) for i, r in enumerate(_rows(n))]
+
+
+def test_an_alkaline_farm_gets_one_warning_list_from_check_run_and_explain(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A trial: on a farm where every sample is alkaline and the acidity was not measured,
+    check warned 'lime rule is enabled but cannot run' while the run ran it (acidity 0 at
+    pH 7 or above, common practice) and explain showed acidity 0 without saying why. The
+    run is right: the lime rule runs and gives none. Check says so before the first run
+    (no such warning) and after it (the run's warnings exactly); explain says where the
+    acidity 0 comes from."""
+    import json
+
+    from geosoil.pipeline import RATES_NOT_CHECKED
+
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    project = make_project(tmp_path / "farm", rows=_alkaline_rows(),
+                           header=HEADER.replace("pH (CaCl2)", "pH (water)"),
+                           extra='[rates.lime]\nmethod = "acidity_share"\n')
+    first = check(project)
+    assert first.exit_code == 0, first.stderr
+    said = _warnings(first.stderr)
+    assert said[-1] == RATES_NOT_CHECKED
+    assert not any("cannot run" in w for w in said)
+    got = _run(project, tmp_path / "out")
+    assert got.exit_code == 0, got.stderr
+    assert "the lime rule ran and no cell needs its product" in got.stdout
+    ran = json.loads((tmp_path / "out" / "run.json").read_text())["warnings"]
+    assert not any("cannot run" in w for w in ran)
+    # before the run: the run's warnings but the kriging's (check does not krige), and the
+    # products a rule may apply (lime here)
+    assert {w for w in ran if "variogram" not in w} <= set(said)
+    assert {w for w in said if w not in ran} <= {
+        RATES_NOT_CHECKED, *(w for w in said if "'lime' still carries" in w)}
+    after = check(project)
+    assert _warnings(after.stderr) == ran
+    x, y = X0 + 200, Y0 + 150
+    explained = CliRunner().invoke(cli, ["explain", str(project), "--at", f"{x},{y}"])
+    assert explained.exit_code == 0, explained.stderr
+    line = next(ln for ln in explained.stdout.splitlines()
+                if "exchangeable acidity =" in ln)
+    assert "not measured" in line and "pH (water) 7 or above" in line and line.endswith("= 0")
