@@ -452,3 +452,47 @@ def test_zone_geotiff_and_task_data_of_a_pass_hold_the_same_cells(which: str, ru
             # the task holds 0 where the GeoTIFF has no zone (outside, exclusions)
             np.testing.assert_array_equal(np.round(np.nan_to_num(rates) * 100) / 100, values)
     assert pairs >= 3
+
+
+def test_spread_area_never_exceeds_the_area_on_the_demo_and_spreader_grid_zones(
+        tmp_path: Path, demo_run) -> None:  # noqa: ANN001
+    """A trial: tonnage.csv showed a zone of 3.30 ha with 3.31 ha spread (spreader-grid zones,
+    50 such rows on the demo's). Every row's spread area is at most its area, a zone's is its
+    area where it gets product, in the demo's tonnage.csv and with spreader-grid zones."""
+    from geosoil.pipeline import compute
+    from geosoil.project import load_project
+
+    farm, _ = copy_demo(tmp_path, cache=demo_run.cache,
+                        changes={"zones": {"method": "spreader_grid"}})
+    grid = compute(load_project(farm)).tonnage
+    demo = pd.read_csv(demo_run.out / "tonnage.csv")
+    assert len(grid) > 1000  # hundreds of grid cells per paddock and product
+    for t in (demo, grid):
+        assert (t["spread_area_ha"] <= t["area_ha"]).all()
+        zones = t[t["level"] == "zone"]
+        spread = zones["spread_area_ha"] > 0
+        assert (zones.loc[spread, "spread_area_ha"] == zones.loc[spread, "area_ha"]).all()
+
+
+def test_task_data_partfield_area_is_the_ground_area_of_the_utm_area(demo_run) -> None:  # noqa: ANN001
+    """README: the task data's partfield area (PFD D, m²) is the area on the WGS 84
+    ellipsoid; tonnage.csv, the report and farm.gpkg hold the flat area in the working UTM
+    zone. They differ by the projection's areal scale (pyproj's factors, an outside oracle:
+    about 0.9992 near the central meridian, k0² = 0.9996²), at most about 0.2 % in a zone."""
+    import geopandas as gpd
+
+    out = demo_run.out
+    root = ET.parse(out / "prescriptions" / "farm_isoxml" / "TASKDATA" / "TASKDATA.XML")
+    ground = {p.get("C"): float(p.get("D")) for p in root.iter("PFD")}
+    pads = gpd.read_file(out / "farm.gpkg", layer="paddocks")
+    tonnage = pd.read_csv(out / "tonnage.csv")
+    flat_ha = tonnage[tonnage["level"] == "paddock"].groupby("paddock")["area_ha"].first()
+    proj = pyproj.Proj(pads.crs)
+    assert set(ground) == set(pads["paddock"]) == set(flat_ha.index)
+    for name, geom in zip(pads["paddock"], pads.geometry, strict=True):
+        lonlat = gpd.GeoSeries([geom.centroid], crs=pads.crs).to_crs(4326).iloc[0]
+        scale = proj.get_factors(lonlat.x, lonlat.y).areal_scale
+        assert ground[name] == pytest.approx(geom.area / scale, abs=max(1.0, 1e-5 * geom.area))
+        # the two figures a user sees: within the UTM zone's scale of each other
+        assert abs(ground[name] / (flat_ha[name] * 1e4) - 1) < 0.0025
+        assert flat_ha[name] == pytest.approx(geom.area / 1e4, abs=0.006)

@@ -195,6 +195,13 @@ def test_property_rounded_rows_add_up(rows, capacity, price) -> None:
             farm = t[(t["level"] == "farm") & (t["product"] == product)]
             assert round(pads[col].astype(float).sum() * scale) == round(
                 float(farm[col].iloc[0]) * scale), (col, product)
+    # the spread area is never more than the area beside it (zone, paddock, farm rows), and
+    # is a zone's own rounded area where it gets product
+    assert (t["spread_area_ha"] <= t["area_ha"]).all()
+    assert (t["spread_area_ac"] <= t["area_ac"]).all()
+    got = (zones.sort_values(["paddock", "product", "zone"])["rate_kg_ha"] > 0).to_numpy()
+    assert (z.loc[got, "spread_area_ha"] == z.loc[got, "area_ha"]).all()
+    assert (z.loc[~got, "spread_area_ha"] == 0).all()
     pads = t[t["level"] == "paddock"]
     loads = pads["truckloads"].astype(float)
     assert (loads * capacity >= pads["tonnes"] - 1e-6).all()
@@ -298,3 +305,20 @@ def test_passes_csv_follows_the_rate_unit_and_is_rounded_like_tonnage() -> None:
     assert (lb["rate_lb_ac"], lb["per_pass_lb_ac"], lb["area_ac"]) == ("282", "141", "6.47")
     assert list(passes_csv(zones.assign(passes=1)).columns)[3] == "rate_kg_ha"
     assert passes_csv(zones.drop(columns=["passes"])).empty
+
+
+def test_spread_area_is_never_more_than_the_zone_area_after_rounding() -> None:
+    """A trial: tonnage.csv showed a zone of 3.30 ha with 3.31 ha spread. Rounded apart, the
+    areas 0.006 ha (no product) and 3.305 ha (product) share 3.31 ha as 0.01 + 3.30 (largest
+    remainder: 0.6 > 0.5 hundredth) while the spread area alone, 3.305, rounds to 3.31
+    (half away from zero). The spread area is the zone's rounded area where it is spread."""
+    zones = pd.DataFrame({"paddock": ["A", "A"], "product": ["gypsum", "gypsum"], "zone": [1, 2],
+                          "rate_kg_ha": [0.0, 2000.0], "area_ha": [0.006, 3.305]})
+    t = tonnage_table(zones)
+    z = t[t["level"] == "zone"].set_index("zone")
+    assert z.loc[2, "area_ha"] == pytest.approx(3.30)
+    assert z.loc[2, "spread_area_ha"] == pytest.approx(3.30)
+    assert z.loc[1, "spread_area_ha"] == 0
+    pad = t[t["level"] == "paddock"].iloc[0]
+    assert pad["area_ha"] == pytest.approx(3.31) and pad["spread_area_ha"] == pytest.approx(3.30)
+    assert pad["spread_area_ac"] <= pad["area_ac"]
