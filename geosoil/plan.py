@@ -181,6 +181,9 @@ def _choose_variable(farm: FarmResult, paddock: str, wanted: str | None,
             return source, (f"asked for {wanted} (--variable); {wanted} is derived from the "
                             f"kriged {source} (ESP = 100 Na / ECEC), not kriged itself, so "
                             f"{source}'s variogram plans it")
+        if source is not None:
+            return None, (f"asked for {wanted} (--variable): neither it nor {source}, which it "
+                          "is derived from, has a fitted variogram here")
         return None, f"asked for {wanted} (--variable), which has no fitted variogram here"
     if weighting == "rate":
         v, why = _driver_variable(farm, paddock)

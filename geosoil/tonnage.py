@@ -15,8 +15,7 @@ tonnes = area (ha) x rate (kg/ha) / 1000.
     Zone area, 0.01 ha; on total rows the area of all zones, exclusions included.
 ``spread_area_ha``
     Area with a rate above 0, 0.01 ha: a zone's rounded area where its rate is
-    above 0 (else 0), and on total rows the sum of those, so it is never more
-    than the area beside it.
+    above 0 (else 0), so it is never more than the area beside it.
 ``area_ac``, ``spread_area_ac``
     The same areas in acres (0.01 ac; 1 ha = 10 000 / 4046.8564224 ac, NIST SP 811), each
     rounded so that zones add up to their paddock and paddocks to the farm, as in ha.
@@ -38,11 +37,11 @@ tonnes = area (ha) x rate (kg/ha) / 1000.
 tonnes to 0.01, cost to 0.01 of the currency, from the rounded tonnes); the
 zones share the rounded paddock figure by the largest-remainder method, so
 every zone is its exact figure rounded up or down and the zone rows add up
-to the paddock row exactly. The spread area is not rounded apart: it is the
-rounded area of the zones with a rate (rounded apart, a zone of 3.30 ha could
-show 3.31 ha spread), so a paddock's spread area can differ from its exact
-total by a hundredth per zone. Farm rows are the sums of the paddock rows, so a
-farm figure can differ from its exact total by a few hundredths.
+to the paddock row exactly. The paddock's rounded spread area is shared by
+the zones with a rate and the rest of its rounded area by the others, so a
+zone's spread area is its area (rounded apart, a zone of 3.30 ha could show
+3.31 ha spread). Farm rows are the sums of the paddock rows, so a farm figure
+can differ from its exact total by a few hundredths.
 
 Examples
 --------
@@ -209,16 +208,32 @@ def _mean_rate(tonnes: float, spread_ha: float) -> float:
     return float(_cents(tonnes * 1000.0 / spread_ha / 100.0))
 
 
-def _spread_areas(spread: np.ndarray, shares: dict[str, np.ndarray | None],
-                  sums: dict[str, int | None]) -> None:
-    """The spread areas (ha, ac) of a paddock's zones: each zone's rounded area where it is
-    spread (``spread``), else 0, and their sum, so a spread area is never more than the area
-    beside it (rounded apart, a zone of 3.30 ha could show 3.31 ha spread). In place."""
-    for col, area in (("spread_area_ha", "area_ha"), ("spread_area_ac", "area_ac")):
-        area_shares = shares[area]
-        assert area_shares is not None  # the areas are shared first
-        shares[col] = np.where(spread, area_shares, 0)
-        sums[col] = int(np.where(spread, area_shares, 0).sum())
+def _area_shares(exact: np.ndarray, spread: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """A paddock's zone areas in hundredths, its area and its spread area (``spread``: the
+    zones with a rate), each total its exact figure rounded.
+
+    The rounded spread area goes to the zones spread and the rest of the rounded area to the
+    others, each group by the largest remainder of its exact areas, so every zone is its
+    exact area rounded up or down, a zone's spread area is its area (rounded apart, a zone of
+    3.30 ha could show 3.31 ha spread) and the spread area is never above the area.
+    """
+    total = _cents(float(exact.sum()))
+    spread_total = _cents(float(exact[spread].sum()))
+    shares = np.zeros(len(exact), dtype="int64")
+    shares[spread] = _largest_remainder(spread_total, exact[spread] * 100.0)
+    shares[~spread] = _largest_remainder(total - spread_total, exact[~spread] * 100.0)
+    return shares, total, spread_total
+
+
+def _paddock_areas(rows: pd.DataFrame, shares: dict[str, np.ndarray | None],
+                   sums: dict[str, int | None]) -> None:
+    """The rounded areas and spread areas (ha and ac) of a paddock's zones and their totals,
+    by :func:`_area_shares`, into ``shares`` and ``sums``."""
+    spread = rows["rate_kg_ha"].to_numpy(dtype=float) > 0
+    for col, factor in (("area_ha", 1.0), ("area_ac", AC_PER_HA)):
+        area, sums[col], sums[f"spread_{col}"] = _area_shares(
+            rows["area_ha"].to_numpy(dtype=float) * factor, spread)
+        shares[col], shares[f"spread_{col}"] = area, np.where(spread, area, 0)
 
 
 def tonnage_table(
@@ -298,16 +313,14 @@ def tonnage_table(
         t_exact = rows["tonnes"].to_numpy(dtype=float)
         sums: dict[str, int | None] = {}
         shares: dict[str, np.ndarray | None] = {}
-        for col, exact in (("area_ha", rows["area_ha"].to_numpy(dtype=float)),
-                           ("area_ac", rows["area_ha"].to_numpy(dtype=float) * AC_PER_HA),
-                           ("tonnes", t_exact),
+        _paddock_areas(rows, shares, sums)
+        for col, exact in (("tonnes", t_exact),
                            ("short_tons", t_exact * 1000.0 / KG_PER_SHORT_TON)):
             total = _cents(float(exact.sum()))
             sums[col] = total
             # the rounded total shared by the exact figures themselves (not rescaled to it),
             # so each zone is its exact figure rounded up or down
             shares[col] = _largest_remainder(total, exact * 100.0)
-        _spread_areas(rows["rate_kg_ha"].to_numpy(dtype=float) > 0, shares, sums)
         tonnes = sums["tonnes"] or 0
         if math.isfinite(cap):
             loads = math.ceil(tonnes / 100 / cap - 1e-9) if tonnes > 0 else 0

@@ -202,6 +202,17 @@ def test_property_rounded_rows_add_up(rows, capacity, price) -> None:
     got = (zones.sort_values(["paddock", "product", "zone"])["rate_kg_ha"] > 0).to_numpy()
     assert (z.loc[got, "spread_area_ha"] == z.loc[got, "area_ha"]).all()
     assert (z.loc[~got, "spread_area_ha"] == 0).all()
+    # every zone's area is its exact area rounded up or down, every paddock's spread area its
+    # exact spread area rounded (half away from zero, as a person rounds)
+    ordered = zones.sort_values(["paddock", "product", "zone"])
+    assert np.all(np.abs(z["area_ha"].to_numpy() - ordered["area_ha"].to_numpy())
+                  < 0.01 + 1e-9)
+    exact_spread = ordered.assign(s=ordered["area_ha"] * got).groupby(
+        ["paddock", "product"])["s"].sum()
+    for (paddock, product), value in exact_spread.items():
+        pad = t[(t["level"] == "paddock") & (t["paddock"] == paddock)
+                & (t["product"] == product)].iloc[0]
+        assert abs(pad["spread_area_ha"] - value) <= 0.005 + 1e-9
     pads = t[t["level"] == "paddock"]
     loads = pads["truckloads"].astype(float)
     assert (loads * capacity >= pads["tonnes"] - 1e-6).all()
@@ -311,14 +322,15 @@ def test_spread_area_is_never_more_than_the_zone_area_after_rounding() -> None:
     """A trial: tonnage.csv showed a zone of 3.30 ha with 3.31 ha spread. Rounded apart, the
     areas 0.006 ha (no product) and 3.305 ha (product) share 3.31 ha as 0.01 + 3.30 (largest
     remainder: 0.6 > 0.5 hundredth) while the spread area alone, 3.305, rounds to 3.31
-    (half away from zero). The spread area is the zone's rounded area where it is spread."""
+    (half away from zero). The rounded spread area (3.31) goes to the zones spread and the
+    rest of the rounded area (0) to the others: each zone is its exact area rounded up or
+    down, and its spread area is its area."""
     zones = pd.DataFrame({"paddock": ["A", "A"], "product": ["gypsum", "gypsum"], "zone": [1, 2],
                           "rate_kg_ha": [0.0, 2000.0], "area_ha": [0.006, 3.305]})
     t = tonnage_table(zones)
     z = t[t["level"] == "zone"].set_index("zone")
-    assert z.loc[2, "area_ha"] == pytest.approx(3.30)
-    assert z.loc[2, "spread_area_ha"] == pytest.approx(3.30)
-    assert z.loc[1, "spread_area_ha"] == 0
+    assert z.loc[2, "area_ha"] == z.loc[2, "spread_area_ha"] == pytest.approx(3.31)
+    assert z.loc[1, "area_ha"] == z.loc[1, "spread_area_ha"] == 0
     pad = t[t["level"] == "paddock"].iloc[0]
-    assert pad["area_ha"] == pytest.approx(3.31) and pad["spread_area_ha"] == pytest.approx(3.30)
+    assert pad["area_ha"] == pad["spread_area_ha"] == pytest.approx(3.31)
     assert pad["spread_area_ac"] <= pad["area_ac"]
