@@ -23,7 +23,7 @@ import pandas as pd
 import shapely
 
 from . import __version__
-from .errors import DataWarning, SettingsError
+from .errors import DataWarning, InputError, SettingsError
 from .names import slug
 from .outfolder import output_folder
 from .pipeline import FarmResult, compute
@@ -163,10 +163,12 @@ def _check_variable_exists(farm: FarmResult, wanted: str | None) -> None:
     if other_ph in usable:
         method = "CaCl2" if other_ph == "ph_cacl2" else "water"
         hint = f" (the lab measured pH in {method}: --variable {other_ph})"
-    raise SettingsError(
-        f"no paddock of this farm has '{wanted}' (the lab file does not give it); the "
-        f"variables this farm can plan with: {', '.join(usable) or 'none'}{hint}",
-        key="--variable")
+    # a problem of the inputs, not of the command line (exit 1): --variable ph is right
+    # for a farm whose lab measured pH in water
+    raise InputError(
+        f"--variable {wanted}: no paddock of this farm has '{wanted}' (the lab file does "
+        f"not give it)", file=farm.prep.read.file,
+        fix=f"choose one the farm has with --variable: {', '.join(usable) or 'none'}{hint}")
 
 
 def _choose_variable(farm: FarmResult, paddock: str, wanted: str | None,
@@ -387,8 +389,8 @@ def run_plan(
         the first of :data:`PLAN_VARIABLES` kriged in the paddock. A paddock with
         no variogram at all gets its points by :data:`SPACE_FILLING_RULE`. A
         variable the run derives (``esp``) is planned with the variogram of the one
-        it is derived from (:data:`DERIVED_FROM`); one no paddock has is a
-        :class:`SettingsError` naming those it has.
+        it is derived from (:data:`DERIVED_FROM`); one no paddock has is an
+        :class:`InputError` naming those it has.
     overwrite, use_cache
         As for :func:`geosoil.job.run`.
 
@@ -396,6 +398,8 @@ def run_plan(
     ------
     SettingsError
         A bad number of points, budget, weighting or variable.
+    InputError
+        A variable the farm's samples do not give.
     """
     _check_options(n_points, budget, cost_per_sample, weighting, variable, min_distance_m,
                    edge_setback_m)
