@@ -236,7 +236,15 @@ def _limit_weights(farm: FarmResult, name: str, var: str) -> tuple[np.ndarray, s
         method = "water" if var == "ph" else "CaCl2"
         return limit_weights(surf.estimate, surf.std, limit), (
             f"nearness to the acid limit (pH in {method} {limit:g})")
-    raise SettingsError(
+    raise _no_class_limit(var)
+
+
+#: The variables whose decision has a class limit (``--weight limit``).
+LIMIT_VARIABLES = ("na", "esp", "ph", "ph_cacl2")
+
+
+def _no_class_limit(var: str) -> SettingsError:
+    return SettingsError(
         f"'{var}' has no class limit to weigh nearness to; with --weight limit use "
         "--variable na or esp (the sodic limit), ph or ph_cacl2 (the acid limit)",
         key="--weight")
@@ -334,6 +342,8 @@ def _check_options(n_points: int | None, budget: float | None, cost_per_sample: 
     if variable is not None and variable not in PLAN_VARIABLES:
         raise SettingsError(f"must be one of {', '.join(PLAN_VARIABLES)} (got {variable!r})",
                             key="--variable")
+    if weighting == "limit" and variable is not None and variable not in LIMIT_VARIABLES:
+        raise _no_class_limit(variable)  # before any kriging
     if min_distance_m is not None and not (np.isfinite(min_distance_m) and min_distance_m >= 0):
         raise SettingsError(f"must be 0 m or more (got {min_distance_m!r})",
                             key="--min-distance")
