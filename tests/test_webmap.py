@@ -637,6 +637,34 @@ def test_browser_zones_as_outlines_or_filled_with_the_rate_legend(map_page) -> N
 
 
 @pytest.mark.browser
+def test_browser_zone_popup_gives_acres_beside_lb_ac(browser, tmp_path) -> None:
+    """Opened in the browser, a lime zone's popup reads its rate in lb/ac and its area in
+    acres (2.4710538 ac a ha, NIST SP 811), an exclusion's area in acres too."""
+    parts = farm()
+    path = tmp_path / "map.html"
+    path.write_text(build(rate_unit="lb/ac"), encoding="utf-8")
+    page = _open(browser, path)
+    try:
+        got = page.evaluate(
+            """(() => {
+              const g = window.geosoilMap;
+              g.show({product: 'lime'});
+              const texts = [];
+              g.prescriptions['lime'].shapes.eachLayer(l => {
+                l.openPopup(l.getBounds().getCenter());
+                texts.push(l.getPopup().getElement().innerText);
+                l.closePopup();
+              });
+              return texts;
+            })()""")
+    finally:
+        page.close()
+    north = float(parts["zones"][parts["zones"]["product"] == "lime"]["area_ha"].iloc[0])
+    assert any(f"Area\t{north * 2.4710538:,.2f} ac" in t and "Rate (lb/ac)" in t
+               for t in got), got
+    assert not any(" ha" in t for t in got)
+
+
 def test_browser_hostile_text_shows_as_text_and_never_runs(map_page) -> None:
     popups = map_page.evaluate(
         """(() => {
