@@ -66,6 +66,7 @@ __all__ = [
     "detect_columns",
     "extract_water_of_header",
     "is_bookkeeping",
+    "letter_o_reading",
 ]
 
 #: Buffer-pH analytes, one per buffer (a buffer pH means nothing without its buffer).
@@ -885,3 +886,48 @@ def is_bookkeeping(header: str) -> bool:
     named = [w for w in words if w in _BOOKKEEPING_WORDS]
     return bool(named) and all(
         w in _BOOKKEEPING_WORDS or w in _JOINING_WORDS or w.isdigit() for w in words)
+
+
+#: Header words (folded, lower case) only German labs write, and words only labs writing in
+#: Spanish, Portuguese or French write: they tell what a longitude's letter "O" means, east
+#: (Ost) in German, west (Oeste, Ouest) in the others. Our own lists.
+_GERMAN_WORDS = frozenset("""
+    probe proben probennummer probenbezeichnung rechtswert hochwert breite breitengrad
+    lange laenge langengrad laengengrad austauschbar austauschbare austauschbares kalium
+    natrium kak leitfahigkeit leitfaehigkeit schlag tiefe bodenart humus ost
+""".split())
+_ROMANCE_WORDS = frozenset("""
+    muestra punto longitud latitud intercambiable intercambiables calcio magnesio potasio
+    sodio aluminio acidez agua cic cice conductividad profundidad lote oeste
+    amostra ponto trocavel trocaveis potassio ctc condutividade profundidade talhao
+    echantillon echangeable echangeables conductivite profondeur parcelle ouest
+""".split())
+
+
+def letter_o_reading(headers: Sequence[str], column: str | None = None) -> str | None:
+    """What the hemisphere letter "O" of a longitude means, from the language of the
+    headers: "W" (Spanish, Portuguese and French oeste, ouest), "E" (German Ost), or None
+    when they do not say (English headers only) or say both.
+
+    The longitude's own header decides first (``Longitud`` is Spanish, ``Länge``
+    German); when it does not (``Longitude`` is English, Portuguese and French alike),
+    the whole header row does.
+
+    Examples
+    --------
+    >>> letter_o_reading(["Muestra", "Latitud", "Longitud", "pH agua"], "Longitud")
+    'W'
+    >>> letter_o_reading(["Probe", "Breite", "Länge"], "Länge")
+    'E'
+    >>> letter_o_reading(["Amostra", "Latitude", "Longitude"], "Longitude")
+    'W'
+    >>> letter_o_reading(["Sample", "Lat", "Long"], "Long") is None
+    True
+    """
+    def reading(texts: Sequence[str]) -> str | None:
+        words = {w for t in texts for w in re.findall(r"[a-z0-9]+", _fold(str(t)).lower())}
+        german, romance = bool(words & _GERMAN_WORDS), bool(words & _ROMANCE_WORDS)
+        return None if german == romance else ("E" if german else "W")
+
+    own = reading([column]) if column is not None else None
+    return own if own is not None else reading(list(headers))

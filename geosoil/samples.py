@@ -75,6 +75,7 @@ from .columns import (
     UNITLESS,
     detect_columns,
     is_bookkeeping,
+    letter_o_reading,
     parse_header,
 )
 from .crs import describe_crs, parse_crs
@@ -214,6 +215,13 @@ class SampleSettings:
         None,
         doc="CRS of the coordinates: EPSG code ('EPSG:28355'), authority string or WKT "
         "(default: the file's own, else WGS 84 longitude/latitude when they look like it)",
+    )
+    letter_o: str = setting(
+        "auto",
+        doc="what the letter O after a longitude in degrees means (59°10.4'O): 'west' "
+        "(oeste, ouest: Spanish, Portuguese, French), 'east' (Ost: German), or 'auto': "
+        "the language of the headers says",
+        choices=("auto", "west", "east"),
     )
     columns: dict[str, str] = setting(
         default_factory=dict,
@@ -1718,31 +1726,37 @@ def _decide_crs(
 
 _NUM = r"\d+(?:[.,]\d+)?"
 _DEGREES = re.compile(
-    rf"^(?P<h1>[NSEW])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM})\s*(?:°|º|˚)\s*"
+    rf"^(?P<h1>[NSEWOL])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM})\s*(?:°|º|˚)\s*"
     rf"(?:(?P<m>{_NUM})\s*(?:'|′|’)\s*"
-    rf"(?:(?P<s>{_NUM})\s*(?:\"|″|”|''|’’)?\s*)?)?(?P<h2>[NSEW])?$",
+    rf"(?:(?P<s>{_NUM})\s*(?:\"|″|”|''|’’)?\s*)?)?(?P<h2>[NSEWOL])?$",
     re.IGNORECASE,
 )
 #: Degrees, minutes and seconds separated by spaces or colons ("34 41 10 S", "-34:41:10",
 #: "147 27.2 E"), or decimal degrees with a hemisphere letter ("34.6861 S").
 _SEPARATED = [re.compile(
-    rf"^(?P<h1>[NSEW])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM}){parts}\s*(?P<h2>[NSEW])?$",
+    rf"^(?P<h1>[NSEWOL])?\s*(?P<sign>[-+\u2212])?\s*(?P<d>{_NUM}){parts}\s*(?P<h2>[NSEWOL])?$",
     re.IGNORECASE) for parts in (
         rf"\s*:\s*(?P<m>{_NUM})(?:\s*:\s*(?P<s>{_NUM}))?",
         rf"\s+(?P<m>{_NUM})(?:\s+(?P<s>{_NUM}))?",
         "",
 )]
+#: Hemisphere letters besides N, S, E, W: L (leste, Portuguese) is east; O is west in
+#: Spanish, Portuguese and French (oeste, ouest) but east in German (Ost), so the caller
+#: says which (``letter_o``).
+_LETTERS = {"N": "N", "S": "S", "E": "E", "W": "W", "L": "E"}
 
 
-def parse_degrees(text: str) -> tuple[float, str | None] | None:
+def parse_degrees(text: str, *, letter_o: str | None = None) -> tuple[float, str | None] | None:
     """Decimal degrees of a coordinate written in degrees, minutes and seconds, or None.
 
     Degrees with a degree sign, then (optionally) minutes with ``'`` and seconds with
     ``"``; or degrees, minutes and seconds separated by spaces or colons (``34 41 10 S``,
     ``-34:41:10``); or decimal degrees with a hemisphere letter (``34.6861 S``); the last
-    part may have decimals. The hemisphere letter (N, S, E, W) before or after, or a
-    sign. S and W are negative. Returns the degrees and the hemisphere letter (None when
-    a sign or nothing was written). None when the text is not such a coordinate, or is
+    part may have decimals. The hemisphere letter before or after, or a sign: N, S, E,
+    W, L (leste: east) and O, which is ``letter_o`` ("W" or "E"). S and W are negative.
+    Returns the degrees and the hemisphere letter read (N, S, E or W; "O" when
+    ``letter_o`` is None, with the degrees unsigned; None when a sign or nothing was
+    written). None when the text is not such a coordinate, or is
     one that cannot be read (:func:`degrees_problem` says why).
 
     Examples
@@ -1753,10 +1767,12 @@ def parse_degrees(text: str) -> tuple[float, str | None] | None:
     (147.45347222222222, 'E')
     >>> parse_degrees("34 41 10 S"), parse_degrees("-34:41:10")
     ((-34.68611111111111, 'S'), (-34.68611111111111, None))
+    >>> parse_degrees("59°10.393'O", letter_o="W"), parse_degrees("59°10.393'O")
+    ((-59.17321666666667, 'W'), (59.17321666666667, 'O'))
     >>> parse_degrees("-34.5°"), parse_degrees("34°75'S")
     ((-34.5, None), None)
     """
-    found = _read_degrees(text)
+    found = _read_degrees(text, letter_o=letter_o)
     return found if isinstance(found, tuple) else None
 
 
@@ -1778,7 +1794,8 @@ def degrees_problem(text: str) -> str | None:
     return found if isinstance(found, str) else None
 
 
-def _read_degrees(text: str) -> tuple[float, str | None] | str | None:
+def _read_degrees(text: str, *, letter_o: str | None = None,
+                  ) -> tuple[float, str | None] | str | None:
     """The degrees and hemisphere of ``text``, why it cannot be read (str), or None when
     it is not written as degrees at all."""
     t = text.strip()
@@ -1800,7 +1817,8 @@ def _read_degrees(text: str) -> tuple[float, str | None] | str | None:
         number = "".join(v for v in (m["d"], m["m"], m["s"]) if v)
         return (f"its groups of three digits may be one number with its thousands spaced "
                 f"({number}), or degrees, minutes and seconds")
-    hemisphere = (m["h1"] or m["h2"] or "").upper() or None
+    written = (m["h1"] or m["h2"] or "").upper()
+    hemisphere = (letter_o or "O") if written == "O" else _LETTERS.get(written)
     deg, minutes, seconds = (float(v.replace(",", ".")) if v else 0.0
                              for v in (m["d"], m["m"], m["s"]))
     for part, value in (("minutes", minutes), ("seconds", seconds)):
@@ -1815,14 +1833,15 @@ def _read_degrees(text: str) -> tuple[float, str | None] | str | None:
 
 def _coordinate_cells(
     table: pd.DataFrame, column: str, rows: np.ndarray, decimal_comma: bool,
-    issues: list[_Issue], *, axis: str = "x",
+    issues: list[_Issue], *, axis: str = "x", letter_o: str | None = None,
 ) -> np.ndarray:
     """Coordinates of one table column (decimal, or degrees, minutes and seconds as
     :func:`parse_degrees` reads them); empty or non-numeric cells become issues (and NaN).
-    ``axis`` "x" (longitude: E or W) or "y" (latitude: N or S)."""
+    ``axis`` "x" (longitude: E or W) or "y" (latitude: N or S); ``letter_o`` what a
+    longitude's O means ("W" or "E"; None: not known, a cell with O is an issue)."""
     values, status, texts = _cells(table[column], decimal_comma=decimal_comma)
     for i in np.flatnonzero(status == "bad"):
-        found = _read_degrees(texts[i])
+        found = _read_degrees(texts[i], letter_o=letter_o if axis == "x" else "W")
         if found is None:
             continue
         if isinstance(found, str):
@@ -1837,10 +1856,21 @@ def _coordinate_cells(
         wrong = {"x": ("N", "S"), "y": ("E", "W")}[axis]
         if hemisphere in wrong:
             what, where = ("latitude", "longitude") if axis == "x" else ("longitude", "latitude")
+            letter = texts[i].strip().strip("-+\u2212")
+            letter = (letter[0] if letter[:1].isalpha() else letter[-1]).upper()
             issues.append(_Issue(int(rows[i]), column, f"'{texts[i]}' is a {what} "
-                                 f"({hemisphere}) in the {where} column",
+                                 f"({letter}) in the {where} column",
                                  "swap the columns (set [samples] x_column and y_column) or "
                                  "correct the cell"))
+            values[i], status[i] = np.nan, "done"
+            continue
+        if hemisphere == "O":
+            issues.append(_Issue(
+                int(rows[i]), column,
+                f"'{texts[i]}': the letter O is west in Spanish, Portuguese and French "
+                "(oeste, ouest) but east in German (Ost), and the headers do not say which "
+                "language the file is in",
+                "set [samples] letter_o = 'west' or 'east'"))
             values[i], status[i] = np.nan, "done"
             continue
         values[i], status[i] = value, "ok"
@@ -2051,7 +2081,9 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     else:
         assert xy is not None
         xcol, ycol = xy
-        x = _coordinate_cells(table, xcol, rows, raw.decimal_comma, issues)
+        letter_o = {"west": "W", "east": "E"}.get(settings.letter_o) or letter_o_reading(
+            headers, xcol)
+        x = _coordinate_cells(table, xcol, rows, raw.decimal_comma, issues, letter_o=letter_o)
         y = _coordinate_cells(table, ycol, rows, raw.decimal_comma, issues, axis="y")
         location_column = f"{xcol}/{ycol}"
         crs = _decide_crs(settings, None, x, y, geographic, name, xcol, int(rows[0]))

@@ -1716,6 +1716,47 @@ def test_a_latitude_letter_in_the_longitude_column_is_named(tmp_path):
         "is a longitude (E) in the latitude column" in str(err)
 
 
+# hand arithmetic: 59 + 10.393 / 60 = 59.17321667 degrees; the hemisphere letters of
+# Spanish (Oeste), Portuguese (Oeste, Leste), French (Ouest) and German (Ost) are the
+# languages' own words for west and east
+_O_ROWS = "M1,34°19.297'S,59°10.393'O,5.0\nM2,34°19.221'S,59°10.387'O,5.5\n"
+
+
+@pytest.mark.parametrize("header, west", [
+    ("Muestra,Latitud,Longitud,Ca intercambiable (cmol/kg)", True),       # Spanish: oeste
+    ("Amostra,Latitude,Longitude,Cálcio trocável (cmol/kg)", True),       # Portuguese: oeste
+    ("Échantillon,Latitude,Longitude,Ca échangeable (cmol/kg)", True),    # French: ouest
+    ("Probe,Breite,Länge,Calcium austauschbar (cmol/kg)", False),        # German: Ost
+])
+def test_the_letter_o_of_a_longitude_is_read_by_the_headers_language(tmp_path, header, west):
+    # user trial: "59°10.393'O" in a Spanish workbook was "not a number"
+    got = read(write(tmp_path, header + "\n" + _O_ROWS))
+    x = got.samples.geometry.x.tolist()
+    sign = -1 if west else 1
+    assert x == pytest.approx([sign * (59 + 10.393 / 60), sign * (59 + 10.387 / 60)])
+    assert got.samples.geometry.y.iloc[0] == pytest.approx(-(34 + 19.297 / 60))
+
+
+def test_the_letter_o_with_english_headers_is_refused_naming_row_column_and_setting(tmp_path):
+    path = write(tmp_path, "ID,Lat,Long,Ca (cmol/kg)\n" + _O_ROWS)
+    err = error_of(path)
+    assert_names(err, file=path, row=2, column="Long")
+    assert "west in Spanish, Portuguese and French" in str(err)
+    assert "east in German" in str(err) and "letter_o" in err.fix
+    for setting, sign in (("west", -1), ("east", 1)):
+        got = read(path, letter_o=setting)
+        assert got.samples.geometry.x.iloc[0] == pytest.approx(sign * (59 + 10.393 / 60))
+
+
+def test_the_letter_l_is_east_and_an_o_in_the_latitude_column_is_named(tmp_path):
+    got = read(write(tmp_path, "Amostra,Latitude,Longitude,Ca (cmol/kg)\n"
+                               "P1,34°19.297'S,59°10.393'L,5.0\n"))
+    assert got.samples.geometry.x.iloc[0] == pytest.approx(59 + 10.393 / 60)
+    path = write(tmp_path, "Muestra,Latitud,Longitud,Ca (cmol/kg)\n"
+                           "M1,59°10.393'O,34°19.297'S,5.0\n")
+    assert "is a longitude (O) in the latitude column" in str(error_of(path))
+
+
 def _workbook(path: Path, sheets: dict[str, list[list]]) -> Path:
     book = openpyxl.Workbook()
     book.remove(book.active)
