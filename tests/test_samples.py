@@ -1748,6 +1748,13 @@ def test_the_letter_o_with_english_headers_is_refused_naming_row_column_and_sett
         assert got.samples.geometry.x.iloc[0] == pytest.approx(sign * (59 + 10.393 / 60))
 
 
+def test_the_letter_o_after_spaced_degrees_minutes_seconds(tmp_path):
+    # hand arithmetic: 59 + 10 / 60 + 23.6 / 3600 = 59.17322222 degrees, west
+    got = read(write(tmp_path, "Muestra,Latitud,Longitud,Ca (cmol/kg)\n"
+                               "M1,34 19 17.8 S,59 10 23.6 O,5.0\n"))
+    assert got.samples.geometry.x.iloc[0] == pytest.approx(-(59 + 10 / 60 + 23.6 / 3600))
+
+
 def test_the_letter_l_is_east_and_an_o_in_the_latitude_column_is_named(tmp_path):
     got = read(write(tmp_path, "Amostra,Latitude,Longitude,Ca (cmol/kg)\n"
                                "P1,34°19.297'S,59°10.393'L,5.0\n"))
