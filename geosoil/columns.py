@@ -103,6 +103,18 @@ UNITLESS: tuple[str, ...] = ("ph", "ph_cacl2", "ph_kcl", "sar", "sar_1to5", *BUF
 #: pH analytes and the solution each is measured in.
 PH_METHODS: dict[str, str] = {"ph": "water", "ph_cacl2": "CaCl2", "ph_kcl": "KCl"}
 
+#: Electrical conductivity, naming no extract, in English, Spanish (CE: conductividad
+#: eléctrica), Portuguese (condutividade elétrica), French (conductivité électrique) and
+#: German (LF: Leitfähigkeit); folded, lower case.
+_EC_NAMES: tuple[str, ...] = (
+    "ec", "electrical conductivity", "conductivity", "ce", "conductividad electrica",
+    "conductividad", "condutividade eletrica", "condutividade", "conductivite electrique",
+    "conductivite", "lf", "leitfahigkeit", "leitfaehigkeit", "elektrische leitfahigkeit",
+    "el leitfahigkeit",
+)
+#: Units of a conductivity, as PROPERTY_UNIT_TEXTS spells them (squashed, lower case).
+_EC_UNIT_TEXTS = ("ds/m", "ms/cm", "us/cm", "\u00b5s/cm", "\u03bcs/cm", "ms/m")
+
 #: Names (lower case, qualifier, charge and unit removed) that mean each analyte.
 #: The first spellings of ``cec`` name an effective CEC and are preferred over a plain CEC.
 ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
@@ -153,12 +165,19 @@ ANALYTE_SPELLINGS: dict[str, tuple[str, ...]] = {
     "clay": ("clay", "clay content", "clay fraction"),
     "phbc": ("phbc", "ph bc", "ph buffering capacity", "ph buffer capacity",
              "buffering capacity"),
-    # "EC 1:5", "EC1:5", "EC (1:5 water)": the words once ":" and brackets are split off
-    "ec_1_5": ("ec 1 5", "ec1 5", "ec 1 5 water", "ec 1 5 h2o", "ec1 5 water",
-               "electrical conductivity 1 5", "conductivity 1 5", "ec 1 5 soil water"),
-    "ece": ("ece", "ec e", "ecse", "ec se", "ec sat", "ec paste", "ec sat paste",
-            "ec saturation extract", "ec saturated paste", "saturated paste ec",
-            "electrical conductivity saturation extract", "ec saturation paste"),
+    # "EC 1:5", "EC1:5", "EC (1:5 water)", "CE 1:5", "LF 1:5": the words once ":" and
+    # brackets are split off, with each language's EC (below)
+    "ec_1_5": ("ec1 5", "ce1 5", "lf1 5", "ec 1 5 soil water", *(
+        f"{ec} 1 5{water}" for ec in _EC_NAMES
+        for water in ("", " water", " h2o", " agua", " eau", " wasser"))),
+    "ece": ("ece", "ec e", "ecse", "ec se", "ec sat", "ec sat paste", "saturated paste ec",
+            "cee", "ce e", "ce es", "ce ex", "lfe", *(
+                f"{ec} {extract}" for ec in _EC_NAMES for extract in (
+                    "saturation extract", "sat extract", "paste", "saturated paste",
+                    "saturation paste", "extracto de saturacion", "extracto saturado",
+                    "pasta saturada", "extrato de saturacao", "extrato da pasta saturada",
+                    "pate saturee", "extrait de pate saturee", "extrait sature",
+                    "sattigungsextrakt", "im sattigungsextrakt"))),
 }
 
 #: Acidity names whose method must be stated (exchangeable or potential).
@@ -467,6 +486,8 @@ def _bracket_parts(plain: str) -> tuple[list[str], list[str], str | None]:
             methods.append(inner)
         elif any(w in low for w in ("%", "sat")):
             note = "a percentage (saturation), not an amount"
+        elif "/" in inner and low.replace(" ", "") in _EC_UNIT_TEXTS:
+            note = f"a conductivity ({inner}) naming no extract, not an exchangeable amount"
         elif "/" in inner:
             note = f"unit '{inner}' is not an exchangeable amount"
         elif inner:
@@ -721,9 +742,14 @@ def _lime_analyte(
             + ", ".join(f"{a} = '{given}'" for a in BUFFER_PH[:1]) + " (or "
             + ", ".join(BUFFER_PH[1:]) + ")",
         )
-    joined = " ".join(words)
+    joined = _fold(" ".join(words))
     found = next((a for a in PROPERTIES if joined in ANALYTE_SPELLINGS[a]), None)
-    if found is None and joined in ("ec", "electrical conductivity") and not extra:
+    if found is None and joined in _EC_NAMES and extra:
+        # the extract in brackets: "EC (1:5 water)", "CE (extracto de saturación)"
+        named = _fold(" ".join([*words, *extra]))
+        found = next((a for a in ("ec_1_5", "ece") if named in ANALYTE_SPELLINGS[a]), None)
+        extra = [] if found else extra
+    if found is None and joined in _EC_NAMES and not extra:
         return HeaderInfo(given, None, note="an EC that names no extract: map it with "
                           f"[samples.columns] ec_1_5 = '{given}' (1:5 water) or ece = "
                           f"'{given}' (saturation extract)")

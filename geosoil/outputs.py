@@ -997,7 +997,9 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
             "units": dict(prep.read.units),
             # every column not read and why (the warnings name those that may be analytes)
             "columns_not_read": dict(prep.read.unused),
-            "skipped_rows": [{"row": r, "reason": why} for r, why in prep.read.skipped],
+            "skipped_rows": [{"row": r, "reason": why} for r, why in prep.read.skipped] + [
+                {"row": r, "reason": f"a note below the table, not a sample: '{text}'"}
+                for r, text in prep.read.footnotes],
         },
         "paddocks": [
             {"paddock": name, "cells": int(g.mask.sum()), "cell_size_m": s.grid.cell_size_m,

@@ -365,6 +365,9 @@ class SampleRead:
         "water", "CaCl2" or None; pass it to :func:`geosoil.chemistry.derive`).
     skipped
         (row, reason) of each row passed over (``on_bad_row = "skip"``).
+    footnotes
+        (row, text) of each note below the table (a row whose only cell is text, as
+        "Methods: pH 1:5 water"), passed over whatever ``on_bad_row`` says, and said.
     readings
         Header -> the usual reading taken for a detected header that names no
         method (a bare "pH" read as pH in water), with the setting that changes it.
@@ -404,6 +407,7 @@ class SampleRead:
     sheet: str | None = None
     sheets: tuple[str, ...] = ()
     unused: dict[str, str] = dataclasses.field(default_factory=dict)
+    footnotes: list[tuple[int, str]] = dataclasses.field(default_factory=list)
 
 
 class SettingNeededError(InputError):
@@ -939,6 +943,43 @@ def _cells(values: pd.Series, *, decimal_comma: bool) -> tuple[np.ndarray, np.nd
     for i in np.flatnonzero(~done):
         numbers[i], status[i], texts[i] = _cell(arr[i], decimal_comma=decimal_comma)
     return numbers, status, texts.tolist()
+
+
+def _footnotes(
+    table: pd.DataFrame, rows: np.ndarray, id_header: str,
+) -> tuple[pd.DataFrame, np.ndarray, list[tuple[int, str]]]:
+    """``table`` and ``rows`` without the notes below the table, and those notes (row,
+    text). A note is one of the last rows whose only filled cell is text that is not a
+    number and, in the sample ID column, not like the IDs above it (longer than any, or
+    with a colon): "Methods: pH 1:5 water", "Results relate to the samples as received".
+    A lone ID ("A43") stays a row (its empty cells are bad cells)."""
+    if len(table) < 2:
+        return table, rows, []
+    filled = _filled(table).to_numpy()
+    counts = filled.sum(axis=1)
+    cut = len(table)
+    while cut > 1 and counts[cut - 1] == 1:
+        cut -= 1
+    if cut == len(table):
+        return table, rows, []
+    columns = list(table.columns)
+    ids = [str(v).strip() for v in table[id_header].iloc[:cut]] if id_header in columns else []
+    longest = max((len(t) for t in ids), default=0)
+    notes: list[tuple[int, str]] = []
+    for i in range(cut, len(table)):
+        j = int(np.flatnonzero(filled[i])[0])
+        text = str(table.iat[i, j]).strip()
+        if _is_number(text) or not any(c.isalpha() for c in text) or (
+                columns[j] == id_header and len(text) <= longest and ":" not in text):
+            notes = []  # a row of its own: this and the rows above it stay rows
+            cut = i + 1
+            continue
+        notes.append((int(rows[i]), text))
+    return table.iloc[:cut], rows[:cut], notes
+
+
+def _shortened(text: str, most: int = 60) -> str:
+    return text if len(text) <= most else text[: most - 3].rstrip() + "..."
 
 
 def _id_text(value: Any) -> str:
@@ -1664,10 +1705,19 @@ def unused_message(name: str, unused: Mapping[str, str]) -> str:
     if not unused:
         return f"{name}: every column is read"
     shown = "; ".join(f"'{h}' ({why})" for h, why in unused.items())
+    # the hint fits the kinds of column listed: a conductivity is mapped as an EC with
+    # the EC units, anything else as an exchangeable amount with the cation units
+    ec = [h for h, why in unused.items() if "conductivity" in why or why.startswith("an EC")]
+    hints = []
+    if ec:
+        hints.append("an EC as ec_1_5 (1:5 water) or ece (saturation extract), e.g. ec_1_5 = "
+                     f"'{ec[0]}', in " + ", ".join(PROPERTIES["ec_1_5"]))
+    if len(ec) < len(unused):
+        hints.append("an exchangeable amount as e.g. ca = 'Calcium exchangeable', with its "
+                     "unit in [samples.units] (" + ", ".join(LAB_UNITS) + ")")
     return (
         f"{name}: {len(unused)} column(s) not read, kept as the lab's own columns: {shown}. "
-        "To read one, name it in [samples.columns] (e.g. ca = 'Calcium exchangeable') and "
-        "state its unit in [samples.units] (" + ", ".join(LAB_UNITS) + ")"
+        "To read one, name it in [samples.columns]: " + "; or ".join(hints)
     )
 
 
@@ -2043,6 +2093,15 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     )
     if unsure and undecided == "stop":
         _refuse_undecided(unsure, name, raw.header_row)
+    footnotes: list[tuple[int, str]] = []
+    if raw.geometry is None:
+        table, rows, footnotes = _footnotes(table, rows, id_header)
+        if footnotes:
+            warnings.warn(
+                f"{name}: {len(footnotes)} note row(s) below the table passed over, not "
+                "samples: " + "; ".join(f"row {r}: '{_shortened(t)}'" for r, t in footnotes),
+                DataWarning, stacklevel=2,
+            )
     units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
                    units_row=raw.units_row)
     per_volume = sorted(a for a, u in units.items() if u in VOLUMETRIC_UNITS)
@@ -2147,7 +2206,7 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         samples=samples, columns=columns, units=units, methods=methods, skipped=skipped,
         crs=crs, file=Path(settings.file), readings=readings, undecided=unsure,
         assumed_units=assumed, unit_problem=suspicion, unused=unused, sheet=raw.sheet,
-        sheets=raw.sheets,
+        sheets=raw.sheets, footnotes=footnotes,
     )
 
 

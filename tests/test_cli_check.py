@@ -480,3 +480,14 @@ def test_an_alkaline_farm_gets_one_warning_list_from_check_run_and_explain(
     line = next(ln for ln in explained.stdout.splitlines()
                 if "exchangeable acidity =" in ln)
     assert "not measured" in line and "pH (water) 7 or above" in line and line.endswith("= 0")
+
+
+def test_a_note_below_the_lab_table_is_said_by_check_not_a_problem(tmp_path: Path) -> None:
+    # user trial: a last row "Methods: pH 1:5 water..." stopped check ("row 9 ... the
+    # coordinate is empty"); it is passed over and said
+    project = make_project(tmp_path / "p", rows=[*_rows(), "Methods: pH 1:5 CaCl2,,,,,,,,"])
+    result = check(project)
+    assert result.exit_code == 0, result.stderr
+    assert not _problems(result.stderr)
+    assert "1 note row(s) below the table passed over, not samples: row 14: 'Methods: pH " \
+        "1:5 CaCl2'" in result.stderr

@@ -259,3 +259,43 @@ def test_dispersion_class_edges(esp: float, ec: float, expected: int) -> None:
     # the limits after the diagram of Rengasamy et al. 1984 are from memory (docs/SOURCES.md,
     # "Salinity, sodicity and dispersion"): each edge belongs to the less dispersive class
     assert int(sal.dispersion_classes(esp, ec)) == expected
+
+
+@pytest.mark.parametrize("header, role, unit", [
+    # user trial: the Spanish "CE 1:5 (dS/m)" was not read; EC is CE in Spanish, Portuguese
+    # and French (conductividad / condutividade / conductivité électrique) and LF
+    # (Leitfähigkeit) in German
+    ("CE 1:5 (dS/m)", "ec_1_5", "dS/m"),
+    ("Conductividad eléctrica 1:5 agua (dS/m)", "ec_1_5", "dS/m"),
+    ("Condutividade elétrica 1:5 (mS/cm)", "ec_1_5", "mS/cm"),
+    ("LF 1:5 (µS/cm)", "ec_1_5", "uS/cm"),
+    ("Leitfähigkeit 1:5 (mS/m)", "ec_1_5", "mS/m"),
+    ("EC (1:5 water)", "ec_1_5", None),
+    ("CEe (dS/m)", "ece", "dS/m"),
+    ("CE extracto de saturación (dS/m)", "ece", "dS/m"),
+    ("LF Sättigungsextrakt (dS/m)", "ece", "dS/m"),
+])
+def test_ec_headers_in_the_supported_languages(header, role, unit) -> None:
+    from geosoil.columns import parse_header
+
+    info = parse_header(header)
+    assert (info.role, info.unit) == (role, unit)
+
+
+def test_an_ec_left_unread_gets_an_ec_hint_not_the_cation_units(tmp_path) -> None:
+    # user trial: 'CE (dS/m)' style columns were "unit 'dS/m' is not an exchangeable
+    # amount" with a hint listing cation units only
+    from geosoil.errors import DataWarning
+    from geosoil.samples import SampleSettings, read_samples
+
+    p = tmp_path / "lab.csv"
+    p.write_text("Muestra,Longitud,Latitud,Ca,CE (dS/m),Salinidad (dS/m)\n"
+                 "M1,147.001,-35.001,5,0.4,0.4\nM2,147.002,-35.002,6,0.5,0.5\n")
+    with pytest.warns(DataWarning) as caught:
+        read_samples(SampleSettings(file=p))
+    said = next(str(w.message) for w in caught if "not read" in str(w.message))
+    assert "'CE (dS/m)' (an EC that names no extract" in said
+    assert "'Salinidad (dS/m)' (a conductivity (dS/m) naming no extract" in said
+    assert "ec_1_5 (1:5 water) or ece (saturation extract)" in said
+    assert "dS/m, mS/cm, uS/cm, mS/m" in said
+    assert "cmol/kg, meq/100g" not in said and "not an exchangeable amount" in said

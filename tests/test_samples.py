@@ -1764,6 +1764,39 @@ def test_the_letter_l_is_east_and_an_o_in_the_latitude_column_is_named(tmp_path)
     assert "is a longitude (O) in the latitude column" in str(error_of(path))
 
 
+_NOTE = "Methods: pH 1:5 water; cations 1 M NH4Cl"
+
+
+@pytest.mark.parametrize("kind", ["csv", "xlsx"])
+def test_a_note_below_the_table_is_passed_over_and_said(tmp_path, kind):
+    # user trial: a last row "Methods: pH 1:5 water..." stopped the run ("row 9 ... the
+    # coordinate is empty"); it is a note, not a sample, and is said
+    header = HEADER.split(",")
+    lines = [header, *(r.split(",") for r in ROWS[:3]), [""] * len(header), [_NOTE],
+             ["Results relate to the samples as received"]]
+    if kind == "csv":
+        path = write(tmp_path, "\n".join(",".join(f'"{c}"' if "," in c else c for c in line)
+                                         for line in lines) + "\n")
+    else:
+        path = _workbook(tmp_path / "lab.xlsx", {"Results": [
+            [float(c) if c.replace(".", "").replace("-", "").isdigit() else (c or None)
+             for c in line] for line in lines]})
+    with pytest.warns(DataWarning, match=r"2 note row\(s\) below the table passed over, not "
+                                         r"samples: row 6: 'Methods: pH 1:5 water"):
+        got = read(path)
+    assert got.samples.sample_id.tolist() == ["A1", "A2", "A3"]
+    assert got.footnotes == [(6, _NOTE), (7, "Results relate to the samples as received")]
+    assert got.skipped == []
+
+
+def test_a_lone_sample_id_at_the_end_stays_a_bad_row(tmp_path):
+    # an ID with no values is a sample with missing cells, not a note
+    path = lab(tmp_path, rows=[*ROWS[:3], "A4,,,,,,,,,"])
+    err = error_of(path)
+    assert_names(err, file=path, row=5, column="Longitude")
+    assert "the coordinate is empty" in str(err)
+
+
 def _workbook(path: Path, sheets: dict[str, list[list]]) -> Path:
     book = openpyxl.Workbook()
     book.remove(book.active)
