@@ -64,6 +64,7 @@ import logging
 import math
 import os
 import re
+import unicodedata
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -108,6 +109,32 @@ NAME_COLUMNS: tuple[str, ...] = (
     "block",
     "blockname",
     "blockid",
+    # the paddock in German (Schlag, Feld), Spanish (lote, potrero, parcela), Portuguese
+    # (talhão, gleba, piquete) and French (parcelle, îlot); accents folded
+    "schlag",
+    "schlagname",
+    "schlagbezeichnung",
+    "feld",
+    "feldname",
+    "lote",
+    "nombrelote",
+    "nombredellote",
+    "potrero",
+    "parcela",
+    "talhao",
+    "nometalhao",
+    "nomedotalhao",
+    "gleba",
+    "piquete",
+    "parcelle",
+    "nomparcelle",
+    "nomdelaparcelle",
+    "ilot",
+    # name in German, Spanish, Portuguese and French
+    "bezeichnung",
+    "nombre",
+    "nome",
+    "nom",
     "label",
     "title",
 )
@@ -204,7 +231,8 @@ class BoundarySettings:
 
     paddocks: Path = setting(doc="paddock boundary polygons (GeoJSON, GeoPackage, shapefile)")
     name_column: str | None = setting(
-        None, doc="column with paddock names; unset: detect name/paddock/field/block"
+        None, doc="column with paddock names; unset: detect name/paddock/field/block (and "
+        "Schlag, Feld, Lote, Potrero, Talhão, Parcelle and alike)"
     )
     layer: str | None = setting(None, doc="layer of the paddocks file, for multi-layer files")
     duplicate_names: str = setting(
@@ -249,7 +277,10 @@ class BoundarySettings:
 
 
 def _squash(name: str) -> str:
-    return re.sub(r"[^0-9a-z]", "", str(name).lower())
+    """The name without case, accents, spaces or punctuation ("Talhão" -> "talhao")."""
+    folded = "".join(c for c in unicodedata.normalize("NFKD", str(name))
+                     if not unicodedata.combining(c))
+    return re.sub(r"[^0-9a-z]", "", folded.lower())
 
 
 def _read_vector(path: Path | str, *, layer: str | None, key: str) -> gpd.GeoDataFrame:
@@ -320,6 +351,15 @@ def _find_column(
         if candidate in by_squash:
             return by_squash[candidate]
     return None
+
+
+def _numbered(prefix: str, n: int) -> str:
+    """How features without a name column are named: "paddocks are numbered 'Paddock 1'
+    to 'Paddock 3' in file order", or "the one paddock is named 'Paddock 1'"."""
+    what = prefix.lower()
+    if n == 1:
+        return f"the one {what} is named '{prefix} 1'"
+    return f"{what}s are numbered '{prefix} 1' to '{prefix} {n}' in file order"
 
 
 def _labels(
@@ -590,10 +630,11 @@ def read_paddocks(settings: BoundarySettings) -> gpd.GeoDataFrame:
     if column is None:
         shown = [str(c) for c in frame.columns if c != frame.geometry.name]
         warnings.warn(
-            f"{path}: no paddock-name column found (looked for name, paddock, field, block; "
-            f"the file has: {', '.join(shown) or 'no columns'}); paddocks are numbered "
-            f"'Paddock 1' to 'Paddock {len(frame)}' in file order. "
-            "Set [boundaries] name_column to use a column",
+            f"{path}: no paddock-name column found (looked for name, paddock, field, block "
+            "and their German, Spanish, Portuguese and French words, as Schlag, Lote, Talhão, "
+            f"Parcelle; the file has: {', '.join(shown) or 'no columns'}); "
+            + _numbered("Paddock", len(frame))
+            + ". Set [boundaries] name_column to use a column",
             DataWarning,
             stacklevel=2,
         )
@@ -784,9 +825,9 @@ def read_user_zones(
     column = _find_column(frame, id_column, ZONE_COLUMNS, path=path, key="zone_id_column")
     if column is None:
         warnings.warn(
-            f"{path}: no zone-id column found (looked for zone, zone_id, id, name); zones are "
-            f"numbered 'Zone 1' to 'Zone {len(frame)}' in file order. "
-            "Set [boundaries] zone_id_column to use a column",
+            f"{path}: no zone-id column found (looked for zone, zone_id, id, name); "
+            + _numbered("Zone", len(frame))
+            + ". Set [boundaries] zone_id_column to use a column",
             DataWarning,
             stacklevel=2,
         )

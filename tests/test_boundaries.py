@@ -130,6 +130,31 @@ def test_common_name_spellings_are_found(tmp_path, column):
     assert read_paddocks(BoundarySettings(paddocks=path))["paddock"].tolist() == ["Top"]
 
 
+@pytest.mark.parametrize("column", ["Schlag", "Feld", "Lote", "Potrero", "Talhão", "TALHAO",
+                                    "Parcelle", "Nom de la parcelle", "Nombre"])
+def test_name_columns_in_german_spanish_portuguese_and_french_are_found(tmp_path, column):
+    # user trial: a 'Schlag' (German) and a 'Lote' (Spanish) column were not found, so the
+    # paddocks became 'Paddock 1...'
+    path = write_geojson(tmp_path / "p.geojson",
+                         [({column: "Lote 7 – El Ñandú", "area": 1}, lonlat_square(147.0, -34.0,
+                                                                             0.01))])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", DataWarning)
+        got = read_paddocks(BoundarySettings(paddocks=path))
+    assert got["paddock"].tolist() == ["Lote 7 – El Ñandú"]
+
+
+def test_one_unnamed_paddock_is_named_paddock_1_in_good_words(tmp_path):
+    # user trial: "numbered 'Paddock 1' to 'Paddock 1'"
+    path = write_geojson(tmp_path / "p.geojson", [({"area": 1.0}, lonlat_square(147.0, -34.0,
+                                                                                0.01))])
+    with pytest.warns(DataWarning) as caught:
+        out = read_paddocks(BoundarySettings(paddocks=path))
+    said = " ".join(str(w.message) for w in caught)
+    assert "the one paddock is named 'Paddock 1'" in said and "to 'Paddock 1'" not in said
+    assert out["paddock"].tolist() == ["Paddock 1"]
+
+
 def test_without_name_column_paddocks_are_numbered_with_a_warning(tmp_path):
     path = write_geojson(
         tmp_path / "p.geojson",
