@@ -42,7 +42,13 @@ from . import model_choice as model_choice_mod
 from . import points as points_mod
 from . import surfaces as surfaces_mod
 from . import variogram as variogram_mod
-from .boundaries import read_exclusions, read_paddocks, read_user_zones, settle_overlaps
+from .boundaries import (
+    BoundarySettings,
+    read_exclusions,
+    read_paddocks,
+    read_user_zones,
+    settle_overlaps,
+)
 from .chemistry import derive, rule_ph
 from .covariates import bulk_density_on_grid
 from .crs import choose_working_crs
@@ -373,6 +379,7 @@ def prepare(
                 id_column=s.boundaries.zone_id_column,
                 duplicate_names=s.boundaries.duplicate_names,
             )
+        _warn_outside_paddocks(paddocks, exclusions, user_zones, s.boundaries)
         samples = prepare_samples(
             samples, paddocks=paddocks, working_crs=crs, settings=s.samples, file=str(read.file),
             duplicates_found=problems if listing else None,
@@ -431,6 +438,53 @@ def prepare(
         paddock_files=paddock_files, product_files=product_files, layers=layers,
         soluble_salts=soluble_salts,
     )
+
+
+#: Area of a user zone outside every paddock that is said (a digitising sliver along a
+#: shared boundary is less): at least this much and at least OUTSIDE_SHARE of the zone.
+OUTSIDE_LEAST_HA = 0.05
+OUTSIDE_SHARE = 0.01
+
+
+def _warn_outside_paddocks(
+    paddocks: gpd.GeoDataFrame, exclusions: gpd.GeoDataFrame | None,
+    user_zones: gpd.GeoDataFrame | None, settings: BoundarySettings,
+) -> None:
+    """A warning for each exclusion area that lies outside every paddock (it excludes
+    nothing: the paddock it was drawn for was removed or redrawn) and each user zone with
+    part of it outside every paddock (that part gets no rate), naming it and the area
+    outside. Creek lines are left alone (a creek runs on past the paddocks). Areas in
+    hectares of the working CRS (metres)."""
+    if paddocks.empty:
+        return
+    farm = shapely.union_all(paddocks.geometry.values)
+    if exclusions is not None and not exclusions.empty:
+        areas = exclusions[exclusions["kind"] == "area"]
+        for name, g in zip(areas["exclusion"], areas.geometry, strict=True):
+            if g is None or g.is_empty or g.intersection(farm).area > 0.0:
+                continue
+            warnings.warn(
+                f"{settings.exclusions}: exclusion '{name}' ({g.area / 1e4:.2f} ha) lies "
+                "outside every paddock, so it excludes nothing: was its paddock removed or "
+                "redrawn? Remove it from the file, or correct the paddock boundaries",
+                DataWarning, stacklevel=3,
+            )
+    if user_zones is not None and not user_zones.empty:
+        for name, g in zip(user_zones["zone"], user_zones.geometry, strict=True):
+            if g is None or g.is_empty:
+                continue
+            outside = g.difference(farm).area
+            if outside / 1e4 < OUTSIDE_LEAST_HA or outside < OUTSIDE_SHARE * g.area:
+                continue
+            share = outside / g.area
+            what = ("lies outside every paddock: it gets no rate" if share > 0.999 else
+                    f"has {outside / 1e4:.2f} ha ({share:.0%}) outside every paddock: that "
+                    "part gets no rate")
+            warnings.warn(
+                f"{settings.zones}: zone '{name}' ({g.area / 1e4:.2f} ha) {what}; was a "
+                "paddock removed or redrawn? Correct the zones or the paddock boundaries",
+                DataWarning, stacklevel=3,
+            )
 
 
 @contextlib.contextmanager
