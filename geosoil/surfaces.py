@@ -561,6 +561,7 @@ def interpolate_farm(
             if surface is None:
                 surface = farm.surface(name, variable, grid, pts, notes, borrowed=borrowed)
             out[(name, variable)] = surface
+        farm.say_idw(name)
     return out
 
 
@@ -627,6 +628,9 @@ class _FarmInterpolation:
         self.told_local: set[str] = set()  # paddocks already warned about the neighbourhood
         # ... and about the subset their variograms are fitted on (None: the farm-wide fit)
         self.told_fit: set[str | None] = set()
+        # paddock -> why -> the variables inverse-distance weighted for that reason: one
+        # warning a paddock (say_idw), not one a variable
+        self.idw: dict[str, dict[str, list[str]]] = {}
 
     def farm_fit(self, variable: str, log: bool) -> _Fit:
         """The farm-wide variogram of ``variable`` (log scale when ``log``); raises
@@ -671,13 +675,25 @@ class _FarmInterpolation:
         power = self.settings.idw_power
         msg = f"{why}: inverse-distance weighting (power {power:g}), no error surface"
         notes.append(msg)
-        warnings.warn(f"{name}, {variable}: {msg}", InterpolationWarning, stacklevel=4)
+        self.idw.setdefault(name, {}).setdefault(why, []).append(variable)
         x, y = grid.cell_centres()
         est = idw(xy, z, np.column_stack([x, y]), power=power)
         return Surface(
             variable, name, _physical(variable, grid.to_array(est), notes), None,
             "inverse-distance weighting", len(z), notes=tuple(notes),
         )
+
+    def say_idw(self, name: str) -> None:
+        """One warning for the paddock's inverse-distance weighted variables, naming them
+        by reason: "Tiny Lot, ca, mg, k: 3 samples, fewer than min_samples_kriging = 8:
+        inverse-distance weighting (power 2), no error surface"."""
+        said = self.idw.pop(name, None)
+        if not said:
+            return
+        why = "; ".join(f"{', '.join(variables)}: {reason}" for reason, variables in said.items())
+        warnings.warn(f"{name}, {why}: inverse-distance weighting (power "
+                      f"{self.settings.idw_power:g}), no error surface",
+                      InterpolationWarning, stacklevel=3)
 
     def surface(self, name: str, variable: str, grid: PaddockGrid, pts: gpd.GeoDataFrame,
                 notes: list[str], *, borrowed: bool) -> Surface:

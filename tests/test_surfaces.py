@@ -192,6 +192,27 @@ def test_fewer_samples_than_min_samples_kriging_use_idw_with_a_warning(grid_a) -
     assert inside.min() >= z.min() - 1e-12 and inside.max() <= z.max() + 1e-12
 
 
+def test_inverse_distance_weighting_is_one_warning_a_paddock_naming_its_variables(
+        grid_a) -> None:
+    # user trial: a tiny farm got 7 near-identical lines ("Tiny Lot, ca: 3 samples, fewer
+    # than min_samples_kriging...", one a variable); one line a paddock names them all
+    xy = random_xy(5, seed=2)
+    z = smooth_field(xy)
+    al = z.copy()
+    al[:2] = np.nan  # 3 values: a reason of its own
+    s = samples("A", xy, ca=z, mg=z + 1, k=z / 10, al=al)
+    out, warned = quiet(samples=s, grids=grid_a, variables=["ca", "mg", "k", "al"],
+                        settings=InterpolationSettings(min_samples_kriging=8))
+    assert {out[("A", v)].method for v in ("ca", "mg", "k", "al")} == {
+        "inverse-distance weighting"}
+    said = [str(w.message) for w in warned if "inverse-distance" in str(w.message)]
+    assert said == ["A, ca, mg, k: 5 samples, fewer than min_samples_kriging = 8; al: 3 "
+                    "samples, fewer than min_samples_kriging = 8: inverse-distance weighting "
+                    "(power 2), no error surface"]
+    # each surface keeps its own note
+    assert "3 samples" in out[("A", "al")].notes[-1] and "5 samples" in out[("A", "ca")].notes[-1]
+
+
 def test_enough_samples_are_kriged_with_variogram_and_cross_validation(grid_a) -> None:
     xy = random_xy(40, seed=3)
     z = smooth_field(xy)
