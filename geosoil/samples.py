@@ -249,8 +249,9 @@ class SampleSettings:
     )
     below_detection: str = setting(
         "half",
-        doc="values such as '<0.1': 'half' the limit (common practice), the 'limit', 'zero', "
-        "or 'stop'",
+        doc="values below detection such as '<0.1': 'half' the limit (common practice), the "
+        "'limit', 'zero', or 'stop'; 'n.d.', '<LOD', 'bdl' take the column's smallest stated "
+        "limit (else 0) and are treated alike",
         choices=("half", "limit", "zero", "stop"),
     )
     duplicates: str = setting(

@@ -1829,3 +1829,23 @@ def test_a_workbook_without_any_table_names_its_sheets(tmp_path):
     err = error_of(path)
     assert "no sheet of the workbook holds a table" in str(err)
     assert "'Portada', 'Notas'" in str(err) and "sheet_or_layer" in err.fix
+
+
+def test_readme_and_the_setting_say_what_the_default_below_detection_does(tmp_path):
+    # user trial: README said below-detection words take "the column's smallest stated
+    # limit", while the default `new` writes, below_detection = "half", halves it
+    import dataclasses
+
+    field = next(f for f in dataclasses.fields(SampleSettings) if f.name == "below_detection")
+    assert field.default == "half"  # what `new` writes (every setting at its default)
+    assert "'n.d.', '<LOD', 'bdl' take the column's smallest stated limit" in str(
+        field.metadata)
+    readme = " ".join((Path(__file__).parent.parent / "README.md").read_text(
+        encoding="utf-8").split())
+    assert "below detection (`<0.1`) as half the limit by default" in readme
+    assert "`n.d.`, `<LOD`, `bdl` alike, with the column's smallest stated limit" in readme
+    # and the code does what they say: '<0.2' and 'n.d.' in one column are both 0.1
+    rows = [ROWS[0].replace(",0.1,5.9", ",<0.2,5.9"), ROWS[1].replace(",0.2,5.6", ",n.d.,5.6")]
+    with pytest.warns(DataWarning, match="taken as half the limit"):
+        got = read(lab(tmp_path, rows=rows))
+    assert got.samples.al.tolist() == pytest.approx([0.1, 0.1])
