@@ -947,13 +947,29 @@ def _cells(values: pd.Series, *, decimal_comma: bool) -> tuple[np.ndarray, np.nd
 
 
 def _footnotes(
-    table: pd.DataFrame, rows: np.ndarray, id_header: str,
+    table: pd.DataFrame, rows: np.ndarray, id_header: str, *, name: str, table_file: bool,
 ) -> tuple[pd.DataFrame, np.ndarray, list[tuple[int, str]]]:
     """``table`` and ``rows`` without the notes below the table, and those notes (row,
-    text). A note is one of the last rows whose only filled cell is text that is not a
-    number and, in the sample ID column, not like the IDs above it (longer than any, or
-    with a colon): "Methods: pH 1:5 water", "Results relate to the samples as received".
-    A lone ID ("A43") stays a row (its empty cells are bad cells)."""
+    text), said in a warning. A note is one of the last rows whose only filled cell is
+    text that is not a number and, in the sample ID column, not like the IDs above it
+    (longer than any, or with a colon): "Methods: pH 1:5 water", "Results relate to the
+    samples as received". A lone ID ("A43") stays a row (its empty cells are bad cells).
+    A vector file (``table_file`` False) has none."""
+    table, rows, notes = _trailing_notes(table, rows, id_header) if table_file else (
+        table, rows, [])
+    if notes:
+        warnings.warn(
+            f"{name}: {len(notes)} note row(s) below the table passed over, not "
+            "samples: " + "; ".join(f"row {r}: '{_shortened(t)}'" for r, t in notes),
+            DataWarning, stacklevel=3,
+        )
+    return table, rows, notes
+
+
+def _trailing_notes(
+    table: pd.DataFrame, rows: np.ndarray, id_header: str,
+) -> tuple[pd.DataFrame, np.ndarray, list[tuple[int, str]]]:
+    """:func:`_footnotes` without the warning."""
     if len(table) < 2:
         return table, rows, []
     filled = _filled(table).to_numpy()
@@ -2094,15 +2110,8 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     )
     if unsure and undecided == "stop":
         _refuse_undecided(unsure, name, raw.header_row)
-    footnotes: list[tuple[int, str]] = []
-    if raw.geometry is None:
-        table, rows, footnotes = _footnotes(table, rows, id_header)
-        if footnotes:
-            warnings.warn(
-                f"{name}: {len(footnotes)} note row(s) below the table passed over, not "
-                "samples: " + "; ".join(f"row {r}: '{_shortened(t)}'" for r, t in footnotes),
-                DataWarning, stacklevel=2,
-            )
+    table, rows, footnotes = _footnotes(table, rows, id_header, name=name,
+                                        table_file=raw.geometry is None)
     units = _units(columns, settings, name, raw.header_row, unit_cells=raw.unit_cells,
                    units_row=raw.units_row)
     per_volume = sorted(a for a, u in units.items() if u in VOLUMETRIC_UNITS)

@@ -12,9 +12,9 @@ from pathlib import Path
 import geopandas as gpd
 import shapely
 from click.testing import CliRunner
+from geosoil.cli.main import cli
 
 from geosoil import job
-from geosoil.cli.main import cli
 from geosoil.project import load_project
 from tests.small_farm import UTM, X0, Y0, make_project
 
