@@ -1901,11 +1901,14 @@ def _read_degrees(text: str, *, letter_o: str | None = None,
 def _coordinate_cells(
     table: pd.DataFrame, column: str, rows: np.ndarray, decimal_comma: bool,
     issues: list[_Issue], *, axis: str = "x", letter_o: str | None = None,
+    undecided_o: list[tuple[int, str]] | None = None,
 ) -> np.ndarray:
     """Coordinates of one table column (decimal, or degrees, minutes and seconds as
     :func:`parse_degrees` reads them); empty or non-numeric cells become issues (and NaN).
     ``axis`` "x" (longitude: E or W) or "y" (latitude: N or S); ``letter_o`` what a
-    longitude's O means ("W" or "E"; None: not known, a cell with O is an issue)."""
+    longitude's O means ("W" or "E"; None: not known, each cell with O is appended to
+    ``undecided_o`` as (row, text), and is NaN)."""
+    undecided_o = [] if undecided_o is None else undecided_o
     values, status, texts = _cells(table[column], decimal_comma=decimal_comma)
     for i in np.flatnonzero(status == "bad"):
         found = _read_degrees(texts[i], letter_o=letter_o if axis == "x" else "W")
@@ -1932,12 +1935,7 @@ def _coordinate_cells(
             values[i], status[i] = np.nan, "done"
             continue
         if hemisphere == "O":
-            issues.append(_Issue(
-                int(rows[i]), column,
-                f"'{texts[i]}': the letter O is west in Spanish, Portuguese and French "
-                "(oeste, ouest) but east in German (Ost), and the headers do not say which "
-                "language the file is in",
-                "set [samples] letter_o = 'west' or 'east'"))
+            undecided_o.append((int(rows[i]), texts[i]))
             values[i], status[i] = np.nan, "done"
             continue
         values[i], status[i] = value, "ok"
@@ -1949,6 +1947,33 @@ def _coordinate_cells(
                              "on_bad_row = 'skip'"))
         values[i] = np.nan
     return values
+
+
+def _table_coordinates(
+    table: pd.DataFrame, xy: tuple[str, str], rows: np.ndarray, decimal_comma: bool,
+    issues: list[_Issue], *, headers: Sequence[str], settings: SampleSettings, name: str,
+) -> tuple[np.ndarray, np.ndarray]:
+    """x and y of a table's rows (:func:`_coordinate_cells`). A longitude's letter O that
+    neither ``[samples] letter_o`` nor the headers' language decides stops the reading
+    with a :class:`SettingNeededError` naming the first such cell (``geosoil new`` then
+    writes the project with the setting left to the user)."""
+    xcol, ycol = xy
+    letter_o = {"west": "W", "east": "E"}.get(settings.letter_o) or letter_o_reading(
+        headers, xcol)
+    undecided: list[tuple[int, str]] = []
+    x = _coordinate_cells(table, xcol, rows, decimal_comma, issues, letter_o=letter_o,
+                          undecided_o=undecided)
+    y = _coordinate_cells(table, ycol, rows, decimal_comma, issues, axis="y")
+    if undecided:
+        row, text = undecided[0]
+        more = f" (and {len(undecided) - 1} more cells)" if len(undecided) > 1 else ""
+        raise SettingNeededError(
+            f"'{text}'{more}: the letter O of a longitude is west in Spanish, Portuguese and "
+            "French (oeste, ouest) but east in German (Ost), and the headers do not say "
+            "which language the file is in", file=name, row=row, column=xcol,
+            fix="set [samples] letter_o = 'west' or 'east'",
+        )
+    return x, y
 
 
 def _range_issues(
@@ -2150,10 +2175,8 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
     else:
         assert xy is not None
         xcol, ycol = xy
-        letter_o = {"west": "W", "east": "E"}.get(settings.letter_o) or letter_o_reading(
-            headers, xcol)
-        x = _coordinate_cells(table, xcol, rows, raw.decimal_comma, issues, letter_o=letter_o)
-        y = _coordinate_cells(table, ycol, rows, raw.decimal_comma, issues, axis="y")
+        x, y = _table_coordinates(table, xy, rows, raw.decimal_comma, issues, headers=headers,
+                                  settings=settings, name=name)
         location_column = f"{xcol}/{ycol}"
         crs = _decide_crs(settings, None, x, y, geographic, name, xcol, int(rows[0]))
     _range_issues(x, y, rows, crs, xcol, ycol, issues)

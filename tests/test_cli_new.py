@@ -519,3 +519,30 @@ def test_new_recognises_german_and_spanish_id_and_coordinates(
         assert r.exit_code == 0 and "To settle" not in (
             tmp_path / f"p{n}" / "geosoil.toml").read_text()
         assert invoke("check", tmp_path / f"p{n}").exit_code == 0
+
+
+def test_a_longitude_letter_o_the_headers_do_not_decide_is_left_to_the_user(
+    inputs: dict[str, Path], tmp_path: Path
+) -> None:
+    # 'O' is west in Spanish, Portuguese and French but east (Ost) in German: with English
+    # headers `new` writes the project with [samples] letter_o to settle, check names it,
+    # and 'east' (these longitudes are 147 E) settles it
+    def dms(fields: list[str]) -> list[str]:
+        lon = float(fields[1])
+        return [fields[0], f"{int(lon)}°{(lon - int(lon)) * 60:.5f}'O", *fields[2:]]
+
+    head = inputs["lab_ll"].read_text().splitlines()[0]
+    lab = _lab_from(inputs, tmp_path, head, dms)
+    r = invoke("new", tmp_path / "p", "--samples", lab, "--paddocks", inputs["paddocks_ll"])
+    assert r.exit_code == 0, r.stderr
+    text = (tmp_path / "p" / "geosoil.toml").read_text()
+    settle = text.split("To settle before 'geosoil check' passes:")[1].split("\n[")[0]
+    assert "letter O of a longitude" in settle and "letter_o" in settle
+    c = invoke("check", tmp_path / "p")
+    problems = [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")]
+    assert c.exit_code == 1 and len(problems) == 1
+    assert "row 2, column 'Longitude'" in problems[0] and "letter_o" in problems[0]
+    (tmp_path / "p" / "geosoil.toml").write_text(
+        text.replace('letter_o = "auto"', 'letter_o = "east"'))
+    c = invoke("check", tmp_path / "p")
+    assert not [ln for ln in c.stderr.splitlines() if ln.startswith("problem:")], c.stderr

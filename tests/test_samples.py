@@ -1743,6 +1743,11 @@ def test_the_letter_o_with_english_headers_is_refused_naming_row_column_and_sett
     assert_names(err, file=path, row=2, column="Long")
     assert "west in Spanish, Portuguese and French" in str(err)
     assert "east in German" in str(err) and "letter_o" in err.fix
+    assert "(and 1 more cells)" in str(err)
+    # a setting decides it, not a row: skipping bad rows does not pass over it
+    from geosoil.samples import SettingNeededError
+
+    assert isinstance(error_of(path, on_bad_row="skip"), SettingNeededError)
     for setting, sign in (("west", -1), ("east", 1)):
         got = read(path, letter_o=setting)
         assert got.samples.geometry.x.iloc[0] == pytest.approx(sign * (59 + 10.393 / 60))
