@@ -1966,7 +1966,8 @@ def _table_coordinates(
     y = _coordinate_cells(table, ycol, rows, decimal_comma, issues, axis="y")
     if undecided:
         row, text = undecided[0]
-        more = f" (and {len(undecided) - 1} more cells)" if len(undecided) > 1 else ""
+        n = len(undecided) - 1
+        more = f" (and {n} more cell{'s' if n > 1 else ''})" if n else ""
         raise SettingNeededError(
             f"'{text}'{more}: the letter O of a longitude is west in Spanish, Portuguese and "
             "French (oeste, ouest) but east in German (Ost), and the headers do not say "
@@ -2195,8 +2196,10 @@ def read_samples(settings: SampleSettings, *, undecided: str = "stop",
         skipped.extend((r, "; ".join(reasons[r])) for r in bad_rows)
         if len(bad_rows) == len(rows):
             r, reason = skipped[0]
+            example = next(i for i in issues if i.row == r)
             raise InputError(f"every row is bad, e.g. {reason}", file=name, row=r,
-                             fix="check the file and the [samples] settings")
+                             fix=f"{example.fix}; else check the file and the [samples] "
+                             "settings")
         if warn_skipped:
             warnings.warn(
                 f"{name}: {len(skipped)} bad row(s) skipped: "

@@ -1743,7 +1743,7 @@ def test_the_letter_o_with_english_headers_is_refused_naming_row_column_and_sett
     assert_names(err, file=path, row=2, column="Long")
     assert "west in Spanish, Portuguese and French" in str(err)
     assert "east in German" in str(err) and "letter_o" in err.fix
-    assert "(and 1 more cells)" in str(err)
+    assert "(and 1 more cell)" in str(err)
     # a setting decides it, not a row: skipping bad rows does not pass over it
     from geosoil.samples import SettingNeededError
 
@@ -1854,3 +1854,14 @@ def test_readme_and_the_setting_say_what_the_default_below_detection_does(tmp_pa
     with pytest.warns(DataWarning, match="taken as half the limit"):
         got = read(lab(tmp_path, rows=rows))
     assert got.samples.al.tolist() == pytest.approx([0.1, 0.1])
+
+
+def test_every_row_bad_gives_the_example_s_own_fix(tmp_path):
+    # user trial: "every row is bad, e.g. ... not a number" said only "check the file and
+    # the [samples] settings"; the example's own fix comes first
+    rows = [",".join(f if k != 1 else "147°00.060'X" for k, f in enumerate(r.split(",")))
+            for r in ROWS]
+    err = error_of(lab(tmp_path, rows=rows), on_bad_row="skip")
+    assert "every row is bad" in str(err)
+    assert err.fix.startswith("give the sample's location in decimal degrees")
+    assert err.fix.endswith("else check the file and the [samples] settings")
