@@ -214,12 +214,14 @@ def _prescription_writers_id() -> str:
     import pyogrio
     import rasterio
 
-    from . import isoxml, prescriptions, writers
+    from . import isoxml, prescriptions, units, writers
 
+    # pyproj: the task grid's cells in degrees; shapely and GEOS: the polygons' repair
     return "\n".join([pyogrio.__version__, pyogrio.__gdal_version_string__,
-                      rasterio.__version__,
+                      rasterio.__version__, pyproj.__version__, pyproj.proj_version_str,
+                      shapely.__version__, shapely.geos_version_string,
                       source_digest(writers.__file__, prescriptions.__file__, isoxml.__file__,
-                                    __file__)])
+                                    units.__file__, __file__)])
 
 
 def _frame_key(frame: Any, *parts: Any) -> str:
@@ -891,9 +893,12 @@ def _sodic_share(farm: FarmResult, paddock: str, geometry: Any,
     # the cells in the zone's bounds first (a zone is small beside its paddock), then in it
     x0, y0, x1, y1 = geometry.bounds
     near = np.flatnonzero((x >= x0) & (x <= x1) & (y >= y0) & (y <= y1))
-    if near.size > 64:
+    many = near.size > 64 and not shapely.is_prepared(geometry)
+    if many:
         shapely.prepare(geometry)  # many cells in one zone: the indexed point-in-polygon test
     inside = near[shapely.contains_xy(geometry, x[near], y[near])]
+    if many:
+        shapely.destroy_prepared(geometry)  # the zone's own geometry: left as it was
     if not inside.size:
         return None
     values = most[inside]
