@@ -208,7 +208,7 @@ def locate(prep: Prepared, a: float, b: float, *, coords: str = "auto") -> Locat
 
 #: A swapped reading of --at within this distance of a paddock (or within the farm's own
 #: size, when that is larger) is offered as what was meant: rounded coordinates (one
-#: decimal of a degree is up to about 5 km) still land near the farm.
+#: decimal of a degree is up to about 5 km) still land near the farm. Our choice.
 NEAR_FARM_M = 10_000.0
 
 

@@ -40,7 +40,6 @@ import json
 import logging
 import re
 import shutil
-import weakref
 from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
@@ -817,28 +816,14 @@ def _surface_record(surf: Any) -> dict[str, Any]:
     return rec
 
 
-#: The farm (a weak reference: never kept alive for this) and zones :func:`gypsum_water`
-#: last answered for, and its answer: the run record, the cautions and the report each ask
-#: for it (a spreader grid has thousands of zones to measure).
-_GYPSUM_WATER_LAST: list[Any] = [lambda: None, None, None]
-
-
 def gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     """Per zone of a gypsum product: the water (mm) that only dissolves its rate.
 
     The product's share of CaSO4.2H2O is its Ca over pure gypsum's Ca; the
     solubility is ``[salinity] gypsum_solubility_g_l`` (see
-    :func:`geosoil.salinity.gypsum_water_mm`).
+    :func:`geosoil.salinity.gypsum_water_mm`). A run works it out once
+    (:func:`build_record`); the cautions and the report take it from there.
     """
-    last_farm, last_zones, rows = _GYPSUM_WATER_LAST
-    if last_farm() is farm and last_zones == id(farm.zones):
-        return [dict(r) for r in rows]
-    rows = _gypsum_water(farm)
-    _GYPSUM_WATER_LAST[:] = [weakref.ref(farm), id(farm.zones), rows]
-    return [dict(r) for r in rows]
-
-
-def _gypsum_water(farm: FarmResult) -> list[dict[str, Any]]:
     prep = farm.prep
     sal = prep.project.settings.salinity
     pure_ca = MATERIALS["gypsum"].fraction("Ca")
@@ -914,9 +899,11 @@ GYPSUM_WATER_NOTE = (
 )
 
 
-def gypsum_water_cautions(farm: FarmResult) -> list[str]:
-    """One caution line per paddock with gypsum: the range of dissolving water over its zones."""
-    rows = gypsum_water(farm)
+def gypsum_water_cautions(farm: FarmResult,
+                          water: list[dict[str, Any]] | None = None) -> list[str]:
+    """One caution line per paddock with gypsum: the range of dissolving water over its zones
+    (``water``: :func:`gypsum_water`'s rows, worked out here when not given)."""
+    rows = gypsum_water(farm) if water is None else water
     lines = []
     for paddock in dict.fromkeys(r["paddock"] for r in rows):
         mm = [r["water_mm"] for r in rows if r["paddock"] == paddock]
@@ -927,15 +914,18 @@ def gypsum_water_cautions(farm: FarmResult) -> list[str]:
     return lines
 
 
-def run_cautions(farm: FarmResult) -> list[str]:
+def run_cautions(farm: FarmResult, water: list[dict[str, Any]] | None = None) -> list[str]:
     """The run's one list of cautions: the standing ones (:data:`geosoil.report.CAUTIONS`)
-    and a gypsum-water line per paddock with gypsum. run.json, the report and the command
-    line's summary all show this list."""
-    return [*report_mod.CAUTIONS, *gypsum_water_cautions(farm)]
+    and a gypsum-water line per paddock with gypsum (``water`` as for
+    :func:`gypsum_water_cautions`). run.json, the report and the command line's summary all
+    show this list."""
+    return [*report_mod.CAUTIONS, *gypsum_water_cautions(farm, water)]
 
 
-def salinity_record(farm: FarmResult) -> dict[str, Any]:
-    """run.json's salinity block: the ECe basis, class areas per paddock, gypsum water."""
+def salinity_record(farm: FarmResult,
+                    water: list[dict[str, Any]] | None = None) -> dict[str, Any]:
+    """run.json's salinity block: the ECe basis, class areas per paddock, gypsum water
+    (``water`` as for :func:`gypsum_water_cautions`)."""
     prep = farm.prep
     sal = prep.project.settings.salinity
     areas = []
@@ -956,7 +946,7 @@ def salinity_record(farm: FarmResult) -> dict[str, Any]:
         f"{sal.saline_ece_ds_m:g} dS/m, sodic at ESP >= {sal.sodic_esp_percent:g} %",
         "dispersion_limits": dataclasses.asdict(DispersionLimits()),
         "paddocks": areas,
-        "gypsum_water": gypsum_water(farm),
+        "gypsum_water": gypsum_water(farm) if water is None else water,
         "gypsum_water_note": GYPSUM_WATER_NOTE,
     }
 
@@ -979,6 +969,7 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
     prep = farm.prep
     s = prep.project.settings
     zones = farm.zones
+    water = gypsum_water(farm)  # once: the cautions and the salinity block share it
     zone_rows = []
     for _, z in zones.iterrows():
         zone_rows.append({
@@ -1039,10 +1030,10 @@ def build_record(farm: FarmResult, *, out_dir: Path) -> dict[str, Any]:
         "first_season_tonnes": (
             first_season_tonnes(zones) if s.spreader.split_into == "seasons" else None
         ),
-        "salinity": salinity_record(farm),
+        "salinity": salinity_record(farm, water),
         "soluble_salts": soluble_salts_record(farm),
         "layers": layers_record(farm),
-        "cautions": run_cautions(farm),
+        "cautions": run_cautions(farm, water),
     }
 
 
@@ -1883,10 +1874,10 @@ def report_input(farm: FarmResult, record: dict[str, Any]) -> report_mod.ReportI
         assumptions=assumptions,
         methods=tuple(methods.items()),
         warnings=tuple(farm.warnings),
-        cautions=tuple(run_cautions(farm)),
+        cautions=tuple(record["cautions"]),
         zone_water={(r["paddock"], r["product"], r["zone"]): (r["water_mm"],
                                                               r["leaching_esp_share"])
-                    for r in gypsum_water(farm)},
+                    for r in record["salinity"]["gypsum_water"]},
         leaching_esp=s.rates.gypsum.leaching_note_esp_percent,
         notes=tuple(
             f"{name}: {n}" for name, pr in farm.paddocks.items()

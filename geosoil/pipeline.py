@@ -442,6 +442,7 @@ def prepare(
 
 #: Area of a user zone outside every paddock that is said (a digitising sliver along a
 #: shared boundary is less): at least this much and at least OUTSIDE_SHARE of the zone.
+#: Our choice (a sliver of a few cells).
 OUTSIDE_LEAST_HA = 0.05
 OUTSIDE_SHARE = 0.01
 

@@ -272,6 +272,7 @@ def lightness(colour: str) -> float:
 #: Most zones in one drawing (a product layer of the map, a zone map of the report) that are
 #: each labelled with their rate; a drawing with more (a spreader grid) labels none: the
 #: map shows the rate on hover and in the popup, the report's table lists every zone.
+#: Our choice (about as many labels as a 560-pixel drawing holds apart).
 MAX_ZONE_LABELS: int = 80
 
 
