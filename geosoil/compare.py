@@ -750,11 +750,12 @@ def _paddock_summary(changes: dict[tuple[str, str], ChangeSurface],
             "paddock": name, "variable": v, "label": labels[v][0],
             "unit": labels[v][1], "method": s.method, "paired_sites": s.n_pairs,
             "cells": int(ok.sum()),
-            "last_mean": float(np.nanmean(s.last)) if ok.any() else None,
-            "this_mean": float(np.nanmean(s.this)) if ok.any() else None,
-            "change_mean": float(np.nanmean(s.change)) if ok.any() else None,
+            # every mean over the same cells, those with a change (as change_by_zone.csv)
+            "last_mean": float(np.mean(s.last[ok])) if ok.any() else None,
+            "this_mean": float(np.mean(s.this[ok])) if ok.any() else None,
+            "change_mean": float(np.mean(s.change[ok])) if ok.any() else None,
             # with paired sites the change is kriged apart: not this - last (PAIRED_CHANGE_NOTE)
-            "this_minus_last_mean": float(np.nanmean(s.this) - np.nanmean(s.last))
+            "this_minus_last_mean": float(np.mean(s.this[ok]) - np.mean(s.last[ok]))
             if ok.any() else None,
             "sd_change_mean": float(np.nanmean(s.sd_change))
             if s.sd_change is not None and ok.any() else None,

@@ -456,3 +456,24 @@ def test_samples_at_several_depths_compare_the_top_layer(seasons: dict[str, Path
     assert any("top layer (0-10 cm) is compared" in w for w in record["warnings"])
     esp = [r for r in record["paddocks"] if r["variable"] == "esp"]
     assert esp and all(r["change_mean"] == 0.0 for r in esp)
+
+
+def test_the_paddock_means_are_over_the_cells_with_a_change() -> None:
+    """run.json's paddock means (last, this, change, this - last) are over the same cells,
+    those with a change, as the zone table's: where the seasons' surfaces cover different
+    cells, independent seasons still give change = this - last (arithmetic of means)."""
+    from geosoil.compare import _paddock_summary
+
+    rng = np.random.default_rng(5)
+    last, this = rng.uniform(2, 9, (6, 8)), rng.uniform(1, 6, (6, 8))
+    last[0, :] = np.nan  # last season's surface misses a row this season has
+    this[:, 0] = np.nan  # and this season's a column
+    surface = change_surface("esp", "A", (last, np.ones(last.shape)),
+                             (this, np.ones(this.shape)))
+    (row,) = _paddock_summary({("A", "esp"): surface}, ["esp"], {"esp": ("ESP", "%")})
+    ok = np.isfinite(this - last)
+    assert row["cells"] == int(ok.sum()) == 35
+    assert row["last_mean"] == pytest.approx(float(np.mean(last[ok])), abs=1e-12)
+    assert row["change_mean"] == pytest.approx(row["this_minus_last_mean"], abs=1e-12)
+    assert row["this_minus_last_mean"] == pytest.approx(row["this_mean"] - row["last_mean"],
+                                                        abs=1e-12)
