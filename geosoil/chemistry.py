@@ -64,6 +64,7 @@ from .errors import DataWarning, InputError, SettingsError
 from .settings import setting
 
 __all__ = [
+    "CATION_SYMBOLS",
     "ChemistrySettings",
     "DERIVED",
     "ecec_from_parts",
@@ -128,7 +129,9 @@ SOLUBLE_SOURCE = (
     "kg of soil / 10 [derived]; right only for cations extracted without washing out soluble "
     "salts first (Rayment & Lyons 2011 method 15A1)"
 )
-_NAMES = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na", "acidity": "acidity (Al + H)"}
+#: The exchangeable bases and their chemical symbols (the one list the outputs and explain use).
+CATION_SYMBOLS = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
+_NAMES = {**CATION_SYMBOLS, "acidity": "acidity (Al + H)"}
 
 
 @dataclasses.dataclass(frozen=True)

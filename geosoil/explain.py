@@ -21,7 +21,7 @@ import numpy as np
 import pyproj
 import shapely
 
-from .chemistry import rule_ph
+from .chemistry import CATION_SYMBOLS, rule_ph
 from .columns import CANONICAL, EXCHANGEABLE, PROPERTIES
 from .errors import InputError
 from .pipeline import FarmResult, Prepared
@@ -358,9 +358,6 @@ def explain_location(
     )
 
 
-_CATION_NAMES = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
-
-
 def _soluble_lines(prep: Prepared, nearest: Any) -> list[str]:
     """The subtraction of soluble salts at the nearest samples ([chemistry] soluble_salts =
     "subtract"), or what the setting left as it was."""
@@ -383,7 +380,7 @@ def _soluble_lines(prep: Prepared, nearest: Any) -> list[str]:
             ex, sol, left = (r.get(f"{c}_extracted"), r.get(f"{c}_soluble"), r.get(c))
             if _nan(ex) or _nan(sol) or _nan(left):
                 continue
-            terms.append(f"{_CATION_NAMES[c]} {float(ex):.4g} - {float(sol):.4g} = "
+            terms.append(f"{CATION_SYMBOLS[c]} {float(ex):.4g} - {float(sol):.4g} = "
                          f"{float(left):.4g}" + (" (below 0: set to 0)"
                                                  if float(ex) - float(sol) < -1e-9 else ""))
         if terms:

@@ -52,7 +52,7 @@ import shapely
 
 from . import presentation, webmap
 from . import report as report_mod
-from .chemistry import SOLUBLE_DERIVED, SOLUBLE_SOURCE, rule_ph
+from .chemistry import CATION_SYMBOLS, SOLUBLE_DERIVED, SOLUBLE_SOURCE, rule_ph
 from .gpkg import plain_style, write_gpkg, zone_styles
 from .grids import mosaic
 from .isoxml import (
@@ -1048,9 +1048,8 @@ def soluble_salts_record(farm: FarmResult) -> dict[str, Any]:
 def soluble_salts_text(farm: FarmResult) -> str:
     """The report's line on soluble salts in the exchangeable cations."""
     rec = soluble_salts_record(farm)
-    names = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
     if rec.get("mode") != "subtract":
-        given = [names[c] for c in rec.get("soluble_given", [])]
+        given = [CATION_SYMBOLS[c] for c in rec.get("soluble_given", [])]
         return ("the lab's figures, not corrected ([chemistry] soluble_salts = 'warn'); "
                 + (f"the file gives soluble {', '.join(given)}: 'subtract' takes them off "
                    "where the lab did not wash the salts out first" if given else
@@ -1058,7 +1057,7 @@ def soluble_salts_text(farm: FarmResult) -> str:
     cations = rec.get("cations") or {}
     if not cations:
         return "'subtract' set, but the file gives no soluble cations: nothing subtracted"
-    parts = [f"{names[c]} at {v['samples']} sample(s), {v['water_l_per_kg']:g} L/kg"
+    parts = [f"{CATION_SYMBOLS[c]} at {v['samples']} sample(s), {v['water_l_per_kg']:g} L/kg"
              + (f", set to 0 at {len(v['clamped'])}" if v["clamped"] else "")
              for c, v in cations.items()]
     return "soluble amounts subtracted ([chemistry] soluble_salts = 'subtract'): " + \
@@ -1561,7 +1560,7 @@ _DEEPER_FIELDS = (("esp", "ESP", "%", 1), ("ecec", "ECEC", "cmol(+)/kg", 2),
 
 
 #: The exchangeable bases a soluble-salt correction may change, and their symbols.
-_CATIONS = {"ca": "Ca", "mg": "Mg", "k": "K", "na": "Na"}
+_CATIONS = CATION_SYMBOLS
 #: The samples' soluble-salt columns, shown in the popup under labels of their own.
 _SOLUBLE_COLUMNS = {*SOLUBLE_DERIVED, *(f"{c}_sol" for c in _CATIONS)}
 #: Suffix of a corrected cation's popup text ("3.00 - 2.50 = 0.50").

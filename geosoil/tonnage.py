@@ -65,6 +65,7 @@ from __future__ import annotations
 import logging
 import math
 from collections.abc import Mapping
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -415,8 +416,7 @@ def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = ""
     cur = f"_{currency}" if currency else ""
 
     def fixed(col: str, digits: int, factor: float = 1.0) -> pd.Series:
-        vals = pd.to_numeric(table[col], errors="coerce").astype(float) * factor
-        return vals.map(lambda v: "" if not math.isfinite(v) else f"{v:.{digits}f}")
+        return pd.Series(_fixed(table[col], digits, factor), index=table.index, dtype=object)
 
     out = pd.DataFrame({
         "level": table["level"],
@@ -487,8 +487,7 @@ def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame
     area_factor = AC_PER_HA if acres else 1.0
 
     def fixed(col: str, digits: int, factor: float) -> list[str]:
-        vals = pd.to_numeric(split[col], errors="coerce").astype(float) * factor
-        return ["" if not math.isfinite(v) else f"{v:.{digits}f}" for v in vals]
+        return _fixed(split[col], digits, factor)
 
     return pd.DataFrame({
         "paddock": [str(v) for v in split["paddock"]],
@@ -500,6 +499,13 @@ def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame
         "schedule": [str(v) if isinstance(v, str) else "" for v in split["schedule"]],
         area_col: fixed("area_ha", 2, area_factor),
     }, columns=columns)
+
+
+def _fixed(values: Any, digits: int, factor: float = 1.0) -> list[str]:
+    """Each value times ``factor`` as text with ``digits`` decimals ("" where not a number):
+    the figures of tonnage.csv and passes.csv."""
+    vals = pd.to_numeric(values, errors="coerce").astype(float) * factor
+    return ["" if not math.isfinite(v) else f"{v:.{digits}f}" for v in vals]
 
 
 def _num(value: object, digits: int) -> str:
