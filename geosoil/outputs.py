@@ -458,7 +458,7 @@ def write_outputs(
                              area_unit=area_unit_for(s.output.rate_unit)))
     written.append(p)
     p = out_dir / "passes.csv"
-    write_csv(p, passes_csv(farm.zones, rate_unit=s.output.rate_unit))
+    write_csv(p, passes_csv(farm.zones, rate_unit=s.output.rate_unit, tonnage=farm.tonnage))
     written.append(p)
     p = out_dir / "samples.csv"
     samples = prep.all_samples.copy()

@@ -443,7 +443,8 @@ def tonnage_csv(table: pd.DataFrame, *, mass_unit: str = "t", currency: str = ""
     return out
 
 
-def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame:
+def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha",
+               tonnage: pd.DataFrame | None = None) -> pd.DataFrame:
     """The zones that need more than one pass (or season), as ``passes.csv`` shows them:
     areas and rates in the units of ``tonnage.csv`` for ``rate_unit`` (acres and lb/ac
     with lb/ac, else hectares and kg/ha), every figure as text with its rounding.
@@ -455,6 +456,10 @@ def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame
         (when any zone is split) ``passes``, ``per_pass_kg_ha``, ``schedule``.
     rate_unit : str
         ``[output] rate_unit``: one of kg/ha, t/ha, lb/ac.
+    tonnage : DataFrame, optional
+        The run's :func:`tonnage_table`: a zone's area is then its zone row's there, the
+        figure tonnage.csv shows (a paddock's rounded area shared among its zones), else
+        the zone's own area rounded.
 
     Returns
     -------
@@ -489,6 +494,16 @@ def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame
     def fixed(col: str, digits: int, factor: float) -> list[str]:
         return _fixed(split[col], digits, factor)
 
+    area = fixed("area_ha", 2, area_factor)
+    if tonnage is not None and len(split):
+        rows = tonnage[tonnage["level"].astype(str) == "zone"]
+        keys = zip(rows["paddock"].astype(str), rows["product"].astype(str),
+                   pd.to_numeric(rows["zone"], errors="coerce"), strict=True)
+        shown = dict(zip(keys, _fixed(rows["area_ac" if acres else "area_ha"], 2),
+                         strict=True))
+        area = [shown.get((str(p), str(q), float(z)), a) for p, q, z, a in
+                zip(split["paddock"], split["product"], split["zone"], area, strict=True)]
+
     return pd.DataFrame({
         "paddock": [str(v) for v in split["paddock"]],
         "product": [str(v) for v in split["product"]],
@@ -497,7 +512,7 @@ def passes_csv(zones: pd.DataFrame, *, rate_unit: str = "kg/ha") -> pd.DataFrame
         "passes": [str(int(v)) for v in split["passes"]],
         per_col: fixed("per_pass_kg_ha", 0, rate_factor),
         "schedule": [str(v) if isinstance(v, str) else "" for v in split["schedule"]],
-        area_col: fixed("area_ha", 2, area_factor),
+        area_col: area,
     }, columns=columns)
 
 

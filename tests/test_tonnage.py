@@ -334,3 +334,25 @@ def test_spread_area_is_never_more_than_the_zone_area_after_rounding() -> None:
     pad = t[t["level"] == "paddock"].iloc[0]
     assert pad["area_ha"] == pad["spread_area_ha"] == pytest.approx(3.31)
     assert pad["spread_area_ac"] <= pad["area_ac"]
+
+
+@pytest.mark.parametrize("rate_unit, area_col", [("t/ha", "area_ha"), ("lb/ac", "area_ac")])
+def test_passes_csv_gives_a_zone_the_area_tonnage_csv_gives_it(rate_unit: str,
+                                                                 area_col: str) -> None:
+    """Three zones of 1.006 ha, the third in two passes (a reviewer's case): tonnage.csv
+    shares the paddock's rounded 3.02 ha among them (one of them 1.00 ha); passes.csv gives
+    the two-pass zone the same figure tonnage.csv does, not its own area rounded apart."""
+    zones = pd.DataFrame({
+        "paddock": ["A"] * 3, "product": ["lime"] * 3, "zone": [1, 2, 3],
+        "kind": ["rate"] * 3, "rate_kg_ha": [1000.0, 1000.0, 6000.0], "area_ha": [1.006] * 3,
+        "passes": [1, 1, 2], "per_pass_kg_ha": [1000.0, 1000.0, 3000.0],
+        "schedule": ["", "", "2 passes of 3 t/ha"]})
+    table = tonnage_table(zones)
+    csv = tonnage_csv(table, area_unit=area_col.split("_")[1],
+                      mass_unit="short ton" if area_col == "area_ac" else "t")
+    in_tonnage = csv[(csv["level"] == "zone") & (csv["zone"] == "3")][area_col].iloc[0]
+    shown = passes_csv(zones, rate_unit=rate_unit, tonnage=table)
+    assert shown[area_col].tolist() == [in_tonnage]
+    # the zone's own area rounded apart (what passes.csv gave before) can differ from it
+    own = passes_csv(zones, rate_unit=rate_unit)[area_col].iloc[0]
+    assert own == f"{1.006 * (2.4710538 if area_col == 'area_ac' else 1.0):.2f}"
