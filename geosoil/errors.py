@@ -87,7 +87,7 @@ class SettingsError(GeosoilError, ValueError):
 
     ``key`` is the dotted key as written in the project file,
     e.g. ``rates.gypsum.target_esp_percent``; ``source`` the file it was read from,
-    when known (``setting 'grid.cell_size_m' in /farm/geosoil.toml: ...``).
+    when known (``setting 'grid.cell_size_m' in my-farm/geosoil.toml: ...``).
     """
 
     def __init__(self, message: str, *, key: str | None = None,

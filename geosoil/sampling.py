@@ -391,6 +391,17 @@ def regular_design(cells: ArrayLike, *, n_points: int, area_m2: float) -> NDArra
 
 
 
+def _warn_short(name: str, got: int, n_points: int, min_distance_m: float,
+                setback: float) -> None:
+    """Say when fewer points than asked fit a paddock's distance and setback rules."""
+    if got < n_points:
+        warnings.warn(f"{name}: only {got} of {n_points} new points fit at least "
+                      f"{min_distance_m:.0f} m from the samples and each other"
+                      + (f" and {setback:.0f} m inside the boundary" if setback > 0 else "")
+                      + "; lower the minimum distance (or the edge setback) for more",
+                      DataWarning, stacklevel=3)
+
+
 def _room(grid: PaddockGrid, xd: Array, xc: Array, *, n_points: int, min_distance_m: float | None,
           avoid: ArrayLike | None, boundary: shapely.Geometry | None, edge_setback_m: float,
           ) -> tuple[float, Array, NDArray[np.bool_], float]:
@@ -472,12 +483,7 @@ def space_filling_paddock(
         d = np.hypot(*(xc - xc[i]).T)
         far = np.minimum(far, d)
         allowed &= d >= max(min_distance_m, 1e-9)
-    if len(chosen) < n_points:
-        warnings.warn(f"{grid.name}: only {len(chosen)} of {n_points} new points fit at least "
-                      f"{min_distance_m:.0f} m from the samples and each other"
-                      + (f" and {setback:.0f} m inside the boundary" if setback > 0 else "")
-                      + "; lower the minimum distance (or the edge setback) for more",
-                      DataWarning, stacklevel=2)
+    _warn_short(grid.name, len(chosen), n_points, min_distance_m, setback)
     return xc[np.asarray(chosen, dtype=np.intp)], float(min_distance_m), setback
 
 def plan_paddock(
@@ -554,12 +560,7 @@ def plan_paddock(
         boundary=boundary, edge_setback_m=edge_setback_m)
     chosen, _ = greedy_design(xd, xc, model, n_points=n_points, weights=w_all[index],
                               min_distance_m=min_distance_m, allowed=allowed)
-    if len(chosen) < n_points:
-        warnings.warn(f"{grid.name}: only {len(chosen)} of {n_points} new points fit at least "
-                      f"{min_distance_m:.0f} m from the samples and each other"
-                      + (f" and {setback:.0f} m inside the boundary" if setback > 0 else "")
-                      + "; lower the minimum distance (or the edge setback) for more",
-                      DataWarning, stacklevel=2)
+    _warn_short(grid.name, len(chosen), n_points, min_distance_m, setback)
     pts = xc[chosen]
     x, y = grid.cell_centres()
     every = np.column_stack([x, y])
